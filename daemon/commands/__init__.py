@@ -1,0 +1,9 @@
+"""Subcommands of the `isentrope` command line.
+
+Each module here defines ``NAME`` (the subcommand), ``HELP`` (one line), ``add_arguments(parser)``
+and ``run(args) -> int`` (the exit code). Register a new module in ``COMMAND_MODULES``.
+"""
+
+COMMAND_MODULES: list[str] = [
+    # e.g. "isentrope.daemon.commands.run"
+]

@@ -1,0 +1,28 @@
+"""Exceptions that the command line maps onto exit codes."""
+
+from __future__ import annotations
+
+from isentrope.daemon.stores.base import FatalStoreError, StoreError, TemporaryStoreError
+
+__all__ = ["ConfigError", "StoreError", "TemporaryStoreError", "FatalStoreError", "EXIT_OK",
+           "EXIT_OTHER", "EXIT_CONFIG", "EXIT_UNREACHABLE"]
+
+EXIT_OK = 0
+EXIT_OTHER = 1
+EXIT_CONFIG = 2
+EXIT_UNREACHABLE = 3
+
+
+class ConfigError(Exception):
+    """The configuration is invalid. ``problems`` lists every problem found, one line each."""
+
+    def __init__(self, problems: list[str] | str):
+        if isinstance(problems, str):
+            problems = [problems]
+        self.problems = list(problems)
+        super().__init__("; ".join(self.problems))
+
+    def __str__(self) -> str:
+        if len(self.problems) == 1:
+            return self.problems[0]
+        return f"{len(self.problems)} configuration problems:\n" + "\n".join(f"  {p}" for p in self.problems)
