@@ -7,7 +7,8 @@ field names and plant units stay at the store boundary.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+import dataclasses
+from dataclasses import dataclass
 
 #: Role name -> (quantity, required, description). Quantity selects the unit table in
 #: isentrope.calc.units ("pressure", "temperature", "flow", "power", "percent").
@@ -62,7 +63,7 @@ class RoleMapping:
     unit: str
     measurement: str = "plant"
     field: str = ""
-    tags: dict[str, str] = field(default_factory=dict)
+    tags: dict[str, str] = dataclasses.field(default_factory=dict)
     range: tuple[float, float] | None = None
 
     @property
