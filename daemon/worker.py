@@ -1,0 +1,456 @@
+"""The scheduled worker: which windows to process, reading, the pipeline, writing, checkpoint.
+
+One worker serves one unit. Each *cycle* processes the time from the checkpoint (minus a
+look-back, so late-arriving samples are picked up) to ``now - settle`` in bounded chunks
+(``plan_windows``). For each chunk it
+
+1. reads raw samples over the chunk widened by the pipeline's margins (rolling screens and
+   steady windows need history before the chunk, and a little after it),
+2. runs the ``Pipeline`` (pure computation, no I/O),
+3. writes every result series for the chunk (idempotent writes: re-processing replaces),
+4. saves the alarm state, and only then
+5. advances the checkpoint to the chunk end.
+
+The checkpoint never moves past results that were not written. A failed write keeps its batch
+in memory (one batch at most, so memory stays bounded) and the next cycle writes it before
+anything else. Store calls that fail with ``TemporaryStoreError`` are retried within the cycle
+with exponential backoff and jitter; when the retries are spent the worker logs one line and
+tries again at the next cycle. ``FatalStoreError`` is not retried.
+
+``plan_windows`` takes the clock as an argument, and ``Worker`` takes ``clock`` and ``sleep``
+callables, so the tests need no real waiting. ``stop()`` (wired to SIGTERM/SIGINT by the
+``run`` and ``backfill`` commands) ends the work between chunks, never in the middle of one.
+
+Results are advisory performance information, not a protective function.
+"""
+
+from __future__ import annotations
+
+import logging
+import random
+import re
+import threading
+import time as _time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+
+logger = logging.getLogger("isentrope.worker")
+
+#: Epoch used to align chunk boundaries, so that any two runs cut time at the same instants.
+_EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
+
+#: Window boundaries are floored to this resolution (stable keys; common practice, no source).
+DEFAULT_RESOLUTION = pd.Timedelta("1s")
+
+#: Name of the measurement that records one heartbeat per cycle (see DEVELOPERS.md).
+STATUS_MEASUREMENT = "worker_status"
+
+
+def _utc(t) -> pd.Timestamp:
+    ts = pd.Timestamp(t)
+    if ts.tzinfo is None:
+        raise ValueError(f"time {t!r} has no time zone; expected a UTC time such as '2025-01-01T00:00Z'")
+    return ts.tz_convert("UTC")
+
+
+_DURATION = re.compile(r"^\s*(-?\d+(?:\.\d+)?)\s*(ms|s|m|min|h|d|w)\s*$")
+_DURATION_UNIT = {"ms": "milliseconds", "s": "seconds", "m": "minutes", "min": "minutes",
+                  "h": "hours", "d": "days", "w": "weeks"}
+
+
+def as_timedelta(value) -> pd.Timedelta:
+    """A duration from a string such as "15m", "2h", "1d", a timedelta, or seconds."""
+    if isinstance(value, str):
+        m = _DURATION.match(value)
+        if m:
+            return pd.Timedelta(**{_DURATION_UNIT[m.group(2)]: float(m.group(1))})
+        raise ValueError(f"duration {value!r} not understood; expected e.g. '30s', '15m', '2h', '1d'")
+    if isinstance(value, (int, float)):
+        return pd.Timedelta(seconds=float(value))
+    return pd.Timedelta(value)
+
+
+def _td(value, name: str) -> pd.Timedelta:
+    try:
+        td = as_timedelta(value)
+    except ValueError as exc:
+        raise ValueError(f"{name}: {exc}") from None
+    if pd.isna(td) or td < pd.Timedelta(0):
+        raise ValueError(f"{name} must be a non-negative duration, found {value!r}")
+    return td
+
+
+def floor_time(t: pd.Timestamp, step: pd.Timedelta) -> pd.Timestamp:
+    """Floor ``t`` to a multiple of ``step`` counted from the Unix epoch (UTC)."""
+    n = (t - _EPOCH) // step
+    return _EPOCH + n * step
+
+
+def plan_windows(
+    checkpoint: pd.Timestamp | None,
+    now: pd.Timestamp,
+    settle,
+    lookback,
+    chunk,
+    start_default: pd.Timestamp | None = None,
+    *,
+    resolution=DEFAULT_RESOLUTION,
+) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
+    """Windows ``[start, end)`` one cycle must process, in time order.
+
+    Parameters
+    ----------
+    checkpoint : Timestamp or None
+        End of the last processed window (UTC), None when the worker never ran.
+    now : Timestamp
+        The current time (UTC); passed in so tests can use a fake clock.
+    settle : str or Timedelta
+        Delay before data is considered complete: nothing after ``now - settle`` is processed.
+    lookback : str or Timedelta
+        How far before the checkpoint to start again, so late-arriving samples are picked up.
+    chunk : str or Timedelta
+        Longest window; chunk boundaries fall on multiples of ``chunk`` from the Unix epoch, so
+        a catch-up after an outage and an uninterrupted run cut time at the same instants.
+    start_default : Timestamp or None
+        Where to start when there is no checkpoint; None means ``now - settle - lookback``.
+    resolution : str or Timedelta
+        Window ends are floored to this [default 1 s].
+
+    Returns
+    -------
+    list of (Timestamp, Timestamp)
+        Contiguous, non-overlapping chunks covering ``[start, now - settle)``; empty when
+        there is nothing to do. Nothing is skipped, however long the outage was.
+    """
+    now = _utc(now)
+    settle = _td(settle, "settle")
+    lookback = _td(lookback, "lookback")
+    chunk = _td(chunk, "chunk")
+    resolution = _td(resolution, "resolution")
+    if chunk <= pd.Timedelta(0):
+        raise ValueError(f"chunk must be a positive duration, found {chunk!r}")
+    end = floor_time(now - settle, resolution) if resolution > pd.Timedelta(0) else now - settle
+    if checkpoint is not None:
+        start = _utc(checkpoint) - lookback
+    elif start_default is not None:
+        start = _utc(start_default)
+    else:
+        start = end - lookback
+    if start >= end:
+        return []
+    windows = []
+    s = start
+    while s < end:
+        boundary = floor_time(s, chunk) + chunk
+        e = min(boundary, end)
+        windows.append((s, e))
+        s = e
+    return windows
+
+
+def backoff_delays(retries: int, backoff, backoff_max, rng: random.Random) -> list[float]:
+    """Sleep times [s] between attempts: exponential, capped, with jitter.
+
+    Attempt k (k = 0, 1, ...) waits ``d = min(backoff_max, backoff * 2**k)`` scaled by a
+    uniform factor in [0.5, 1.0] ("equal jitter", common practice, no source), so many
+    workers restarting together do not hit the database in step.
+    """
+    base = as_timedelta(backoff).total_seconds()
+    cap = as_timedelta(backoff_max).total_seconds()
+    out = []
+    for k in range(int(retries)):
+        d = min(cap, base * (2.0 ** k))
+        out.append(d * (0.5 + 0.5 * rng.random()))
+    return out
+
+
+def call_with_retry(
+    fn: Callable,
+    *,
+    what: str,
+    retries: int,
+    backoff,
+    backoff_max,
+    sleep: Callable[[float], None] = _time.sleep,
+    rng: random.Random | None = None,
+    stop_event: threading.Event | None = None,
+):
+    """Call ``fn()``; on ``TemporaryStoreError`` retry up to ``retries`` times with backoff.
+
+    ``FatalStoreError`` and any other exception propagate at once. When the retries are spent
+    the last ``TemporaryStoreError`` propagates (the caller logs it once). A set ``stop_event``
+    ends the retrying early.
+    """
+    rng = rng or random.Random()
+    delays = backoff_delays(retries, backoff, backoff_max, rng)
+    attempt = 0
+    while True:
+        try:
+            return fn()
+        except TemporaryStoreError as exc:
+            if attempt >= len(delays) or (stop_event is not None and stop_event.is_set()):
+                raise
+            delay = delays[attempt]
+            attempt += 1
+            logger.debug("%s failed (%s); retry %d of %d in %.1f s", what, exc, attempt, len(delays), delay)
+            sleep(delay)
+
+
+@dataclass
+class Batch:
+    """Results of one chunk waiting to be written, and the checkpoint they allow."""
+
+    start: pd.Timestamp
+    end: pd.Timestamp
+    writes: list  # of (measurement, frame, tags), written in order
+    alarm_state: dict | None
+    written: int = 0  # how many of ``writes`` are already in the store
+    state_saved: bool = False
+
+
+@dataclass
+class CycleReport:
+    """What one cycle did (also written as the heartbeat series)."""
+
+    started: pd.Timestamp
+    windows: list = field(default_factory=list)
+    chunks_done: int = 0
+    rows_read: int = 0
+    rows_flagged: int = 0
+    checkpoint: pd.Timestamp | None = None
+    duration_s: float = 0.0
+    error: str | None = None
+    stopped: bool = False
+
+    @property
+    def ok(self) -> bool:
+        return self.error is None
+
+
+class Worker:
+    """Processes a unit's data from its checkpoint forward; one instance per unit.
+
+    Parameters
+    ----------
+    store : Store
+        Where raw samples are read and results, state and checkpoints written.
+    pipeline : isentrope.daemon.pipeline.Pipeline
+        The computation (no I/O).
+    mappings : sequence of RoleMapping
+        The unit's role mapping.
+    unit : str
+        Unit name; the ``unit`` tag of every result series.
+    settle, lookback, chunk : str or Timedelta
+        See ``plan_windows``.
+    retries : int
+        Retries of a failing store call within one cycle.
+    backoff, backoff_max : str or Timedelta
+        First retry delay and its cap.
+    checkpoint_name : str
+        Name of the checkpoint (``backfill`` uses its own so it never disturbs ``run``).
+    start_default : Timestamp or None
+        Where to start when there is no checkpoint.
+    barometric_kpa : float or None
+        Constant barometric pressure for gauge transmitters when no barometric tag is mapped.
+    clock : callable
+        Returns the current UTC time; injectable for tests.
+    sleep : callable
+        ``sleep(seconds)``; injectable for tests.
+    rng : random.Random
+        Jitter source.
+    """
+
+    def __init__(
+        self,
+        store: Store,
+        pipeline,
+        mappings,
+        unit: str,
+        *,
+        settle="2m",
+        lookback="30m",
+        chunk="1d",
+        retries: int = 4,
+        backoff="2s",
+        backoff_max="60s",
+        checkpoint_name: str | None = None,
+        start_default: pd.Timestamp | None = None,
+        barometric_kpa: float | None = None,
+        clock: Callable[[], pd.Timestamp] | None = None,
+        sleep: Callable[[float], None] = _time.sleep,
+        rng: random.Random | None = None,
+    ):
+        self.store = store
+        self.pipeline = pipeline
+        self.mappings = list(mappings)
+        self.unit = unit
+        self.settle = _td(settle, "settle")
+        self.lookback = _td(lookback, "lookback")
+        self.chunk = _td(chunk, "chunk")
+        self.retries = int(retries)
+        self.backoff = _td(backoff, "backoff")
+        self.backoff_max = _td(backoff_max, "backoff_max")
+        self.checkpoint_name = checkpoint_name or f"run/{unit}"
+        self.start_default = None if start_default is None else _utc(start_default)
+        self.barometric_kpa = barometric_kpa
+        self.clock = clock or (lambda: pd.Timestamp.now(tz="UTC"))
+        self.sleep = sleep
+        self.rng = rng or random.Random()
+        self.stop_event = threading.Event()
+        self.pending: Batch | None = None
+        self.last_report: CycleReport | None = None
+        self._lock = threading.Lock()
+
+    # --- names of the saved state ---------------------------------------------------------
+    @property
+    def alarm_state_name(self) -> str:
+        return f"alarms/{self.checkpoint_name}"
+
+    @property
+    def tags(self) -> dict[str, str]:
+        return {"unit": self.unit}
+
+    # --- control --------------------------------------------------------------------------
+    def stop(self) -> None:
+        """Ask the worker to stop after the chunk in progress."""
+        self.stop_event.set()
+
+    @property
+    def stopping(self) -> bool:
+        return self.stop_event.is_set()
+
+    def _retry(self, fn, what: str):
+        return call_with_retry(fn, what=what, retries=self.retries, backoff=self.backoff,
+                               backoff_max=self.backoff_max, sleep=self.sleep, rng=self.rng,
+                               stop_event=self.stop_event)
+
+    # --- one cycle ------------------------------------------------------------------------
+    def plan(self, now: pd.Timestamp | None = None, until: pd.Timestamp | None = None):
+        """The windows the next cycle would process (reads the checkpoint)."""
+        now = self.clock() if now is None else now
+        checkpoint = self._retry(lambda: self.store.get_checkpoint(self.checkpoint_name),
+                                 f"reading checkpoint {self.checkpoint_name!r}")
+        _, after = self.pipeline.margins
+        windows = plan_windows(checkpoint, now, self.settle + after, self.lookback, self.chunk,
+                               self.start_default)
+        if until is not None:
+            until = _utc(until)
+            windows = [(s, min(e, until)) for s, e in windows if s < until]
+        return windows
+
+    def run_cycle(self, until: pd.Timestamp | None = None, progress: Callable | None = None) -> CycleReport:
+        """Process everything from the checkpoint to ``now - settle`` (or ``until``).
+
+        Never raises for store trouble: a ``TemporaryStoreError`` that outlives its retries
+        ends the cycle with one log line and ``report.error`` set; the next cycle resumes from
+        the checkpoint. ``FatalStoreError`` is logged the same way and re-raised (retrying will
+        not help; the command exits non-zero). ``progress(start, end)`` is called after each
+        chunk is committed.
+        """
+        with self._lock:
+            return self._run_cycle(until, progress)
+
+    def _run_cycle(self, until, progress) -> CycleReport:
+        t0 = _time.monotonic()
+        now = self.clock()
+        report = CycleReport(started=now)
+        try:
+            if self.pending is not None:
+                self._flush(self.pending)
+                report.checkpoint = self.pending.end
+                self.pending = None
+            windows = self.plan(now, until)
+            report.windows = windows
+            for start, end in windows:
+                if self.stopping:
+                    report.stopped = True
+                    break
+                rows_read, rows_flagged = self._process(start, end)
+                report.rows_read += rows_read
+                report.rows_flagged += rows_flagged
+                report.chunks_done += 1
+                report.checkpoint = end
+                if progress is not None:
+                    progress(start, end)
+        except TemporaryStoreError as exc:
+            report.error = f"store unreachable: {exc}"
+            where = f" (window {self.pending.start.isoformat()} to {self.pending.end.isoformat()}, " \
+                    f"{len(self.pending.writes) - self.pending.written} writes kept for the next cycle)" \
+                if self.pending is not None else ""
+            logger.warning("unit %s: cycle ended after %d retries: %s%s; checkpoint stays at %s",
+                           self.unit, self.retries, exc, where,
+                           report.checkpoint.isoformat() if report.checkpoint is not None else "its last value")
+        except FatalStoreError as exc:
+            report.error = f"store error: {exc}"
+            report.duration_s = _time.monotonic() - t0
+            self.last_report = report
+            raise
+        report.duration_s = _time.monotonic() - t0
+        self.last_report = report
+        self._heartbeat(report)
+        return report
+
+    def _process(self, start: pd.Timestamp, end: pd.Timestamp) -> tuple[int, int]:
+        before, after = self.pipeline.margins
+        read_start, read_end = start - before, end + after
+        frame = self._retry(
+            lambda: self.store.read(self.mappings, read_start, read_end, barometric_kpa=self.barometric_kpa),
+            f"reading unit {self.unit} from {read_start.isoformat()} to {read_end.isoformat()}")
+        state = self._retry(lambda: self.store.load_state(self.alarm_state_name),
+                            f"loading state {self.alarm_state_name!r}")
+        results = self.pipeline.process(frame, start, end, alarm_state=state or None)
+        batch = Batch(start=start, end=end, writes=results.writes(self.tags),
+                      alarm_state=results.alarm_state)
+        self.pending = batch
+        self._flush(batch)
+        self.pending = None
+        return results.counts["rows_in_window"], results.counts["rows_flagged"]
+
+    def _flush(self, batch: Batch) -> None:
+        """Write what is left of ``batch``, save its state, then advance the checkpoint."""
+        while batch.written < len(batch.writes):
+            measurement, frame, tags = batch.writes[batch.written]
+            self._retry(lambda: self.store.write_results(measurement, frame, tags),
+                        f"writing {measurement} ({len(frame)} rows) for {batch.start.isoformat()} "
+                        f"to {batch.end.isoformat()}")
+            batch.written += 1
+        if batch.alarm_state is not None and not batch.state_saved:
+            self._retry(lambda: self.store.save_state(self.alarm_state_name, batch.alarm_state),
+                        f"saving state {self.alarm_state_name!r}")
+            batch.state_saved = True
+        self._retry(lambda: self.store.set_checkpoint(self.checkpoint_name, batch.end),
+                    f"setting checkpoint {self.checkpoint_name!r} to {batch.end.isoformat()}")
+
+    def _heartbeat(self, report: CycleReport) -> None:
+        """One row of ``worker_status``; a failure here is logged and never ends the worker."""
+        last = report.checkpoint
+        if last is None:
+            try:
+                last = self.store.get_checkpoint(self.checkpoint_name)
+            except (TemporaryStoreError, FatalStoreError):
+                last = None
+        lag = (report.started - last).total_seconds() if last is not None else np.nan
+        row = pd.DataFrame(
+            {
+                "last_processed_s": [float((last - _EPOCH).total_seconds()) if last is not None else np.nan],
+                "lag_s": [float(lag)],
+                "rows_read": [float(report.rows_read)],
+                "rows_flagged": [float(report.rows_flagged)],
+                "chunks": [float(report.chunks_done)],
+                "cycle_duration_s": [float(report.duration_s)],
+                "ok": [bool(report.ok)],
+                "pending_writes": [float(0 if self.pending is None
+                                         else len(self.pending.writes) - self.pending.written)],
+            },
+            index=pd.DatetimeIndex([floor_time(report.started, DEFAULT_RESOLUTION)], name="time"),
+        )
+        try:
+            self.store.write_results(STATUS_MEASUREMENT, row, {**self.tags, "worker": self.checkpoint_name})
+        except (TemporaryStoreError, FatalStoreError) as exc:
+            logger.warning("unit %s: heartbeat at %s not written: %s", self.unit,
+                           report.started.isoformat(), exc)
