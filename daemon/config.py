@@ -25,7 +25,8 @@ The dataclass tree (these names are stable; other modules build on them):
 Durations are strings ("15m"), times are ISO 8601 (naive means UTC), secrets are
 ``"${ENV_NAME}"`` or a ``*_file`` key naming a file whose first line is the secret; a secret
 written literally in the file is refused. ``deploy/example.toml`` documents every key with its
-default. Units of each role are checked against ``isentrope.calc.units.KNOWN_UNITS``.
+default. Units of each role are checked against ``isentrope.calc.units.KNOWN_UNITS`` (accepted
+spellings are stored under their canonical name, "barg" -> "bar(g)").
 """
 
 from __future__ import annotations
@@ -741,28 +742,34 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
                        username=username, token=token, password=password, **common)
 
 
-def _known_units() -> dict[str, str | None] | None:
-    """Unit name -> quantity (None when the table does not say), from calc/units.py."""
+def _units_module():
+    """isentrope.calc.units, imported on first use."""
+    from isentrope.calc import units
+
+    return units
+
+
+def _check_unit(r: _Reader, path: tuple[str, ...], role: str, unit: str) -> str | None:
+    """The canonical unit name, or None after reporting why the unit does not fit the role."""
+    units = _units_module()
+    quantity = ROLES[role][0]
     try:
-        from isentrope.calc import units
-    except ImportError:
+        name = units.canonical_unit(unit)
+    except ValueError as exc:
+        same = [u for u in units.KNOWN_UNITS if units.UNITS[u].quantity == quantity]
+        close = difflib.get_close_matches(unit, same, n=1, cutoff=0.5)
+        hint = f"; did you mean '{close[0]}'?" if close else ""
+        reason = str(exc).split("; known units:")[0]
+        r.problem(path, f"{reason}; units for a {quantity}: {', '.join(same)}{hint}")
         return None
-    known = getattr(units, "KNOWN_UNITS", None)
-    if known is None:
+    found = units.UNITS[name].quantity
+    if found != quantity:
+        r.problem(path, f"{unit!r} is a unit of {found}, but {role} is a {quantity}")
         return None
-    out: dict[str, str | None] = {}
-    if isinstance(known, dict):
-        for k, v in known.items():
-            if isinstance(v, str):
-                out[k] = v  # unit -> quantity
-            elif isinstance(v, (list, tuple, set, frozenset, dict)):
-                for u in v:  # quantity -> units
-                    out[u] = k
-            else:
-                out[k] = getattr(v, "quantity", None)
-    else:
-        out = {u: None for u in known}
-    return out
+    if role == "barometric_p" and units.UNITS[name].gauge:
+        r.problem(path, f"the barometric pressure must be absolute, found the gauge unit {unit!r}")
+        return None
+    return name
 
 
 _ROLE_KEYS = ["tag", "unit", "measurement", "field", "tags", "range", "uncertainty"]
@@ -771,7 +778,6 @@ _ROLE_KEYS = ["tag", "unit", "measurement", "field", "tags", "range", "uncertain
 def _read_roles(r: _Reader, top: dict) -> tuple[dict[str, RoleMapping], dict[str, RoleUncertainty]]:
     p = ("roles",)
     d = r.table(top, p, required=True)
-    known_units = _known_units()
     roles: dict[str, RoleMapping] = {}
     unc: dict[str, RoleUncertainty] = {}
     for role, body in d.items():
@@ -790,18 +796,8 @@ def _read_roles(r: _Reader, top: dict) -> tuple[dict[str, RoleMapping], dict[str
         if tag is not None and not tag.strip():
             r.problem(rp + ("tag",), "must not be empty")
         unit = r.value(body, rp + ("unit",), "str")
-        if unit is not None and known_units is not None:
-            if unit not in known_units:
-                same = [u for u, q in known_units.items() if q in (quantity, None)]
-                close = difflib.get_close_matches(unit, same, n=1, cutoff=0.5)
-                hint = f"; did you mean '{close[0]}'?" if close else ""
-                r.problem(rp + ("unit",), f"unknown unit {unit!r} for a {quantity}; known: "
-                          f"{', '.join(sorted(same))}{hint}")
-                unit = None
-            elif known_units[unit] is not None and known_units[unit] != quantity:
-                r.problem(rp + ("unit",), f"{unit!r} is a unit of {known_units[unit]}, "
-                          f"but {role} is a {quantity}")
-                unit = None
+        if unit is not None:
+            unit = _check_unit(r, rp + ("unit",), role, unit)
         measurement = r.value(body, rp + ("measurement",), "str", default="plant")
         fld = r.value(body, rp + ("field",), "str", default="")
         tags = r.value(body, rp + ("tags",), "str_table", default={})
@@ -1036,16 +1032,8 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
 
 
 def _is_gauge(unit: str) -> bool:
-    """Whether a pressure unit name is a gauge unit (needs the barometric pressure)."""
-    try:
-        from isentrope.calc import units
-        probe = getattr(units, "is_gauge", None)
-        if callable(probe):
-            return bool(probe(unit))
-    except ImportError:
-        pass
-    u = unit.lower().replace(" ", "")
-    return u in {"psig", "barg", "kpag", "mpag", "kg/cm2g"} or "(g)" in u or u.endswith("gauge")
+    """Whether a (canonical) pressure unit is a gauge unit, needing the barometric pressure."""
+    return bool(_units_module().UNITS[unit].gauge)
 
 
 _TOP = ["unit", "store", "roles", "screening", "steady", "sections", "baseline", "alarms",
