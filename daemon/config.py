@@ -13,7 +13,8 @@ The dataclass tree (these names are stable; other modules build on them):
 * ``UnitConfig``: ``name``, ``plant``, ``rating_mw``, ``online_mw``.
 * ``StoreConfig``: ``kind`` ("sqlite", "influx2", "influx1") and the per-kind settings;
   ``open_options()`` gives the keyword arguments for
-  ``isentrope.daemon.stores.open_store(kind, **options)`` with secrets revealed.
+  ``isentrope.daemon.stores.open_store(kind, **options)`` with secrets revealed; ``open()``
+  calls it.
 * ``Secret``: a value that never shows in ``repr``/``str``; ``reveal()`` returns it.
 * ``RoleUncertainty``: ``value`` and ``basis`` ("percent_of_reading" for pressure, power,
   flow; "kelvin" for temperature; "percent_points" for valve position).
@@ -158,6 +159,12 @@ class StoreConfig:
     verify_ssl: bool = True
     timeout: dt.timedelta = dt.timedelta(seconds=10)
     batch_size: int = 5000
+
+    def open(self):
+        """Open the configured store (the first I/O; call only after validation)."""
+        from isentrope.daemon.stores import open_store
+
+        return open_store(self.kind, **self.open_options())
 
     def open_options(self) -> dict[str, Any]:
         """Keyword arguments for ``open_store(kind, **options)``; secrets revealed, timeout

@@ -1,0 +1,221 @@
+"""`isentrope check -c FILE`: validate the configuration, connect, and look at every mapped tag.
+
+For each mapped role it reads the last ``--since`` (default 24 h) of raw samples and prints one
+table row: role, tag, unit, samples, last time, min, max, verdict. A verdict is a problem when
+the tag has no data, is stale (no sample within ``alarms.data_quality_limit`` of the end),
+is flat, has samples outside its instrument range, or has values that are implausible in the
+declared unit while another unit of the same quantity would make them plausible (a pressure
+declared psig whose values look like kPa). Exit 0 when every tag is fine, 1 on any problem,
+2 for an invalid file, 3 when the store cannot be reached.
+"""
+
+from __future__ import annotations
+
+import argparse
+import datetime as dt
+import sys
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon.config import Config, load_config, parse_duration
+
+NAME = "check"
+HELP = "validate a configuration, connect to its store and check every mapped tag's recent data"
+
+#: Plausible internal values [MPa abs, K, MW, kg/s, %] of each role while the unit is online,
+#: broad enough for any large steam unit, narrow enough to catch a wrong unit (a factor of
+#: 6.9 between psi and kPa, 10 between bar and MPa...). Common practice, no source.
+PLAUSIBLE: dict[str, tuple[float, float]] = {
+    "throttle_p": (2.0, 35.0),
+    "throttle_t": (550.0, 900.0),
+    "cold_reheat_p": (0.4, 9.0),
+    "cold_reheat_t": (450.0, 750.0),
+    "hot_reheat_p": (0.4, 9.0),
+    "hot_reheat_t": (550.0, 900.0),
+    "crossover_p": (0.05, 2.5),
+    "crossover_t": (400.0, 720.0),
+    "lp_extraction_p": (0.004, 1.0),
+    "lp_extraction_t": (290.0, 620.0),
+    "condenser_p": (0.001, 0.035),
+    "first_stage_p": (0.5, 30.0),
+    "valve_position": (-5.0, 105.0),
+    "barometric_p": (0.050, 0.110),
+}
+#: Gross output and main steam flow scale with the rating: [MW per MW], [kg/s per MW].
+#: Common practice, no source (about 0.8 kg/s per MW at full load for a reheat unit).
+PLAUSIBLE_PER_RATING: dict[str, tuple[float, float]] = {
+    "gross_output": (0.0, 1.3),
+    "main_steam_flow": (0.03, 2.0),
+}
+#: Roles judged whether or not the unit is online.
+ALWAYS_ONLINE = ("barometric_p", "valve_position", "gross_output")
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("-c", "--config", required=True, metavar="FILE", help="configuration file (TOML)")
+    parser.add_argument("--since", default="24h", metavar="DURATION",
+                        help="how far back to look, e.g. 6h, 2d (default: 24h)")
+    parser.add_argument("--end", default=None, metavar="TIME",
+                        help="end of the look (ISO 8601, naive = UTC; default: now)")
+
+
+def _end_time(text: str | None) -> pd.Timestamp:
+    if text is None:
+        return pd.Timestamp.now(tz="UTC")
+    try:
+        ts = pd.Timestamp(text)
+    except ValueError:
+        raise ValueError(f"--end: expected an ISO 8601 time such as 2026-03-01T12:00Z, found {text!r}") from None
+    return ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
+
+
+def _barometric_kpa(config: Config, raw: pd.DataFrame) -> float:
+    """The barometric pressure used to judge gauge readings [kPa]."""
+    from isentrope.calc import units
+
+    if "barometric_p" in raw.columns:
+        vals = pd.to_numeric(raw["barometric_p"], errors="coerce").dropna()
+        if len(vals):
+            kpa = float(units.convert(float(vals.median()), config.roles["barometric_p"].unit, "kPa(a)"))
+            low, high = units.BAROMETRIC_KPA_RANGE
+            if low <= kpa <= high:
+                return kpa
+    if config.screening.barometric_kpa is not None:
+        return config.screening.barometric_kpa
+    return units.STANDARD_ATMOSPHERE_KPA
+
+
+def _plausible(config: Config, role: str) -> tuple[float, float]:
+    if role in PLAUSIBLE_PER_RATING:
+        lo, hi = PLAUSIBLE_PER_RATING[role]
+        return lo * config.unit.rating_mw, hi * config.unit.rating_mw
+    return PLAUSIBLE[role]
+
+
+def _other_units(role: str, declared: str, median: float, plausible: tuple[float, float], baro_kpa: float) -> list[str]:
+    """Units of the role's quantity under which ``median`` would be plausible."""
+    from isentrope.calc import units
+    from isentrope.daemon.roles import ROLES
+
+    quantity = ROLES[role][0]
+    internal = units.INTERNAL_UNIT[quantity]
+    fits = []
+    for name in units.KNOWN_UNITS:
+        u = units.UNITS[name]
+        if u.quantity != quantity or name == declared:
+            continue
+        if role == "barometric_p" and u.gauge:
+            continue
+        value = float(units.convert(median, name, internal, barometric_kpa=baro_kpa))
+        if plausible[0] <= value <= plausible[1]:
+            fits.append(name)
+    return fits
+
+
+def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
+    """One row per mapped role: what was found and a verdict (``ok`` True/False)."""
+    from isentrope.calc import units
+    from isentrope.daemon.roles import ROLES
+
+    baro_kpa = _barometric_kpa(config, raw)
+    online = None
+    if "gross_output" in raw.columns:
+        mw = pd.to_numeric(raw["gross_output"], errors="coerce")
+        mw_internal = units.convert(mw.to_numpy(dtype=float), config.roles["gross_output"].unit, "MW")
+        online = mw_internal >= config.unit.online_mw
+    stale_after = config.alarms.data_quality_limit
+    rows = []
+    for m in config.mappings:
+        col = pd.to_numeric(raw[m.role], errors="coerce") if m.role in raw.columns else pd.Series(dtype=float)
+        valid = col.dropna()
+        row = {"role": m.role, "tag": m.tag, "unit": m.unit, "samples": int(len(valid)),
+               "last": valid.index[-1] if len(valid) else None,
+               "min": float(valid.min()) if len(valid) else float("nan"),
+               "max": float(valid.max()) if len(valid) else float("nan")}
+        problems, notes = [], []
+        if not len(valid):
+            problems.append("no data")
+        else:
+            if end - row["last"] > stale_after:
+                problems.append(f"stale: last sample {_age(end - row['last'])} before the end")
+            if len(valid) > 1 and row["max"] == row["min"]:
+                problems.append("flat: every sample the same")
+            if m.range is not None:
+                outside = int(((valid < m.range[0]) | (valid > m.range[1])).sum())
+                if outside:
+                    problems.append(f"{outside} outside range [{m.range[0]:g}, {m.range[1]:g}]")
+            judged = valid
+            if online is not None and m.role not in ALWAYS_ONLINE:
+                mask = pd.Series(online, index=col.index).reindex(valid.index).fillna(False).astype(bool)
+                judged = valid[mask.to_numpy()]
+            if not len(judged):
+                notes.append("unit offline: unit not judged")
+            else:
+                quantity = ROLES[m.role][0]
+                internal = units.INTERNAL_UNIT[quantity]
+                median = float(judged.median())
+                value = float(units.convert(median, m.unit, internal, barometric_kpa=baro_kpa))
+                lo, hi = _plausible(config, m.role)
+                if not lo <= value <= hi:
+                    others = _other_units(m.role, m.unit, median, (lo, hi), baro_kpa)
+                    hint = f"; looks like {' or '.join(others)}" if others else ""
+                    problems.append(f"median {median:.6g} {m.unit} = {value:.4g} {internal}, "
+                                    f"implausible (expected {lo:g}-{hi:g} {internal}){hint}")
+        row["ok"] = not problems
+        row["verdict"] = "; ".join(problems + notes) if (problems or notes) else "ok"
+        if problems:
+            row["verdict"] = "PROBLEM: " + row["verdict"]
+        rows.append(row)
+    return rows
+
+
+def _age(delta: pd.Timedelta | dt.timedelta) -> str:
+    seconds = int(pd.Timedelta(delta).total_seconds())
+    if seconds >= 86400:
+        return f"{seconds / 86400:.1f} d"
+    if seconds >= 3600:
+        return f"{seconds / 3600:.1f} h"
+    return f"{seconds // 60} min"
+
+
+def format_table(rows: list[dict]) -> str:
+    """A plain fixed-width table."""
+    head = ["role", "tag", "unit", "samples", "last time (UTC)", "min", "max", "verdict"]
+    body = []
+    for r in rows:
+        body.append([
+            r["role"], r["tag"], r["unit"], str(r["samples"]),
+            r["last"].strftime("%Y-%m-%d %H:%M:%S") if r["last"] is not None else "-",
+            f"{r['min']:.6g}" if np.isfinite(r["min"]) else "-",
+            f"{r['max']:.6g}" if np.isfinite(r["max"]) else "-",
+            r["verdict"],
+        ])
+    widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(head)]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip(),
+             "  ".join("-" * w for w in widths)]
+    for b in body:
+        lines.append("  ".join(c.ljust(w) for c, w in zip(b, widths)).rstrip())
+    return "\n".join(lines)
+
+
+def run(args: argparse.Namespace) -> int:
+    config = load_config(args.config)
+    try:
+        since = parse_duration(args.since)
+    except ValueError as exc:
+        raise ValueError(f"--since: {exc}") from None
+    end = _end_time(args.end)
+    start = end - pd.Timedelta(since)
+    with config.store.open() as store:
+        raw = store.read_raw(list(config.mappings), start, end)
+    rows = judge(config, raw, end)
+    print(f"{config.unit.name}: {config.store.kind} store, {len(rows)} mapped roles, "
+          f"{start.isoformat()} to {end.isoformat()}")
+    print(format_table(rows))
+    bad = [r for r in rows if not r["ok"]]
+    if bad:
+        print(f"{len(bad)} of {len(rows)} roles have problems.", file=sys.stderr)
+        return 1
+    print(f"all {len(rows)} roles ok. (Advisory check of data availability only.)")
+    return 0

@@ -1,0 +1,139 @@
+"""`isentrope export -c FILE --start T --end T --format csv [-o FILE]`: results for spreadsheets.
+
+Reads result series with ``Store.read_results`` over ``[start, end)`` and writes one CSV: a
+``time`` column in ISO 8601 UTC (``2026-03-01T12:05:00Z``) and one column per field. With one
+``--measurement`` the columns are the field names; with several they are
+``<measurement>.<field>``, joined on time. The series are selected by the tags the worker
+writes: ``unit = <[unit] name>`` plus any ``--tag key=value`` (e.g. ``--tag section=hp`` for
+the deviation series). Default measurement: the per-sample section figures. The output file is
+written to a temporary name and renamed, so an interrupted export never leaves half a file in
+place of a good one.
+"""
+
+from __future__ import annotations
+
+import argparse
+import io
+import os
+import sys
+import tempfile
+from pathlib import Path
+
+import pandas as pd
+
+from isentrope.daemon.config import load_config
+
+NAME = "export"
+HELP = "export result series over a time window as CSV (ISO UTC times, one column per field)"
+
+#: Used when the pipeline module does not name its result series (should not happen).
+_FALLBACK_MEASUREMENT = "section_samples"
+
+
+def _default_measurement() -> str:
+    try:
+        from isentrope.daemon import pipeline
+    except ImportError:
+        return _FALLBACK_MEASUREMENT
+    return getattr(pipeline, "SAMPLES_MEASUREMENT", _FALLBACK_MEASUREMENT)
+
+
+def add_arguments(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("-c", "--config", required=True, metavar="FILE", help="configuration file (TOML)")
+    parser.add_argument("--start", required=True, metavar="TIME", help="window start, ISO 8601 (naive = UTC)")
+    parser.add_argument("--end", required=True, metavar="TIME", help="window end (exclusive), ISO 8601 (naive = UTC)")
+    parser.add_argument("--format", choices=("csv",), default="csv", help="output format (default: csv)")
+    parser.add_argument("-o", "--output", default=None, metavar="FILE", help="output file (default: standard output)")
+    parser.add_argument("--measurement", action="append", default=None, metavar="NAME",
+                        help="result series to export; repeat for several (default: the per-sample section figures)")
+    parser.add_argument("--tag", action="append", default=[], metavar="KEY=VALUE",
+                        help="extra tag filter, e.g. section=hp; repeatable")
+
+
+def parse_time(text: str, what: str) -> pd.Timestamp:
+    """ISO 8601 -> UTC timestamp (naive means UTC); ValueError naming the option."""
+    try:
+        ts = pd.Timestamp(text)
+    except (ValueError, TypeError):
+        ts = None
+    if ts is None or pd.isna(ts):
+        raise ValueError(f"{what}: expected an ISO 8601 time such as 2026-03-01 or 2026-03-01T12:00Z, found {text!r}")
+    return ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
+
+
+def parse_tags(items: list[str]) -> dict[str, str]:
+    tags = {}
+    for item in items:
+        key, sep, value = item.partition("=")
+        if not sep or not key.strip():
+            raise ValueError(f"--tag: expected KEY=VALUE such as section=hp, found {item!r}")
+        tags[key.strip()] = value.strip()
+    return tags
+
+
+def collect(store, measurements: list[str], start: pd.Timestamp, end: pd.Timestamp,
+            tags: dict[str, str]) -> pd.DataFrame:
+    """The requested series joined on time; columns prefixed by measurement when several."""
+    frames = []
+    for name in measurements:
+        frame = store.read_results(name, start, end, tags)
+        if len(measurements) > 1:
+            frame = frame.add_prefix(f"{name}.")
+        frames.append(frame)
+    if not frames:
+        return pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
+    out = pd.concat(frames, axis=1, join="outer").sort_index()
+    out.index.name = "time"
+    return out
+
+
+def to_csv_text(frame: pd.DataFrame) -> str:
+    """CSV with ``time`` as ISO 8601 UTC with a trailing Z; floats at full precision."""
+    index = pd.DatetimeIndex(frame.index)
+    index = index.tz_localize("UTC") if index.tz is None else index.tz_convert("UTC")
+    has_fraction = bool(len(index)) and bool((index.microsecond != 0).any() or (index.nanosecond != 0).any())
+    fmt = "%Y-%m-%dT%H:%M:%S.%fZ" if has_fraction else "%Y-%m-%dT%H:%M:%SZ"
+    out = frame.copy()
+    out.index = pd.Index(index.strftime(fmt), name="time")
+    buf = io.StringIO()
+    out.to_csv(buf, lineterminator="\n")
+    return buf.getvalue()
+
+
+def _write_atomically(path: Path, text: str) -> None:
+    path = path.expanduser()
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", dir=path.parent if str(path.parent) else ".")
+    try:
+        with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        if os.path.exists(tmp):
+            os.unlink(tmp)
+        raise
+
+
+def run(args: argparse.Namespace) -> int:
+    config = load_config(args.config)
+    start = parse_time(args.start, "--start")
+    end = parse_time(args.end, "--end")
+    if end <= start:
+        raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
+    tags = {"unit": config.unit.name, **parse_tags(args.tag)}
+    measurements = args.measurement or [_default_measurement()]
+    if args.output is not None and not Path(args.output).expanduser().parent.is_dir():
+        raise ValueError(f"-o: no such directory: {Path(args.output).expanduser().parent}")
+    with config.store.open() as store:
+        frame = collect(store, measurements, start, end, tags)
+    text = to_csv_text(frame)
+    if args.output is None:
+        sys.stdout.write(text)
+    else:
+        _write_atomically(Path(args.output), text)
+    where = args.output or "standard output"
+    if frame.empty:
+        print(f"isentrope: no results of {', '.join(measurements)} with tags {tags} in "
+              f"[{start.isoformat()}, {end.isoformat()}); wrote the header only to {where}", file=sys.stderr)
+    elif args.output is not None:
+        print(f"wrote {len(frame)} rows x {frame.shape[1]} fields to {where}", file=sys.stderr)
+    return 0

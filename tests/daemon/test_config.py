@@ -1,0 +1,383 @@
+"""Configuration: every problem at once with file, key and line; deploy/example.toml loads and
+documents every option with its real default; secrets never show; a bad file exits 2 before any
+connection is made."""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import re
+import socket
+import textwrap
+import tomllib
+from pathlib import Path
+
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from isentrope.daemon import cli
+from isentrope.daemon import config as cfgmod
+from isentrope.daemon.config import (
+    ConfigError,
+    Secret,
+    format_duration,
+    load_config,
+    parse_config,
+    parse_duration,
+)
+from isentrope.daemon.roles import REQUIRED_ROLES
+
+REPO = Path(__file__).resolve().parents[2]
+EXAMPLE = REPO / "deploy" / "example.toml"
+
+ROLE_UNITS = {
+    "throttle_p": "MPa(a)", "throttle_t": "degC", "cold_reheat_p": "MPa(a)", "cold_reheat_t": "degC",
+    "hot_reheat_p": "MPa(a)", "hot_reheat_t": "degC", "crossover_p": "kPa(a)", "crossover_t": "degC",
+    "condenser_p": "kPa(a)", "gross_output": "MW",
+}
+
+
+def minimal(extra: str = "", store: str | None = None, roles: dict | None = None) -> str:
+    """A small valid file (SQLite store, the required roles) with ``extra`` appended."""
+    roles = ROLE_UNITS if roles is None else roles
+    parts = ['[unit]\nname = "Test unit"\nrating_mw = 500.0\n',
+             store if store is not None else '[store]\nkind = "sqlite"\npath = "t.sqlite"\n']
+    for role, unit in roles.items():
+        parts.append(f'[roles.{role}]\ntag = "T-{role}"\nunit = "{unit}"\n')
+    parts.append(textwrap.dedent(extra))
+    return "\n".join(parts)
+
+
+def problems(text: str, source: str = "unit.toml", **kw) -> list[str]:
+    with pytest.raises(ConfigError) as info:
+        parse_config(text, source=source, **kw)
+    return info.value.problems
+
+
+def line_of(text: str, needle: str) -> int:
+    for n, line in enumerate(text.splitlines(), start=1):
+        if needle in line:
+            return n
+    raise AssertionError(needle)
+
+
+# --- the example file ---------------------------------------------------------------------
+def test_example_loads_as_a_complete_config():
+    c = load_config(EXAMPLE)
+    assert c.unit.name == "Brackwater Moss 3"
+    assert c.unit.rating_mw == 520.0
+    assert c.store.kind == "sqlite"
+    assert c.store.path == EXAMPLE.parent / "brackwater3.sqlite"  # relative to the file
+    assert set(REQUIRED_ROLES) <= set(c.roles)
+    assert c.roles["throttle_p"].unit == "bar(g)"
+    assert c.roles["throttle_p"].range == (0.0, 250.0)
+    assert c.screening.barometric_kpa == 99.6
+    assert c.steady.window == dt.timedelta(minutes=30)
+    assert c.sections.exhaust_loss_curve[0] == (60.0, 45.0)
+    assert c.baseline.start.isoformat() == "2026-01-12T00:00:00+00:00"
+    assert c.economics.enabled and c.economics.planned_outage == dt.date(2027, 4, 12)
+    assert c.economics.overhaul["hp"].recoverable_points == 3.0
+    assert c.schedule.chunk == dt.timedelta(days=1)
+    assert [m.role for m in c.mappings][:2] == ["throttle_p", "throttle_t"]
+
+
+def _documented_keys(text: str) -> set[str]:
+    """Keys written as ``key =`` in the file, active or commented out."""
+    return set(re.findall(r"^\s*#?\s*([a-z_0-9]+)\s*=", text, flags=re.MULTILINE))
+
+
+def test_example_documents_every_option():
+    text = EXAMPLE.read_text()
+    keys = _documented_keys(text)
+    tables = [cfgmod.UnitConfig, cfgmod.ScreeningConfig, cfgmod.SteadyConfig, cfgmod.SectionsConfig,
+              cfgmod.BaselineConfig, cfgmod.AlarmsConfig, cfgmod.EconomicsConfig, cfgmod.ScheduleConfig,
+              cfgmod.SensitivityConfig, cfgmod.OverhaulCase]
+    wanted = {f.name for t in tables for f in dataclasses.fields(t)} - {"sensitivity", "overhaul"}
+    wanted |= set().union(*cfgmod._STORE_KEYS.values())
+    wanted |= set(cfgmod._ROLE_KEYS)
+    role_keys_doc = text[text.index("Keys of each [roles.<role>] table"):]
+    for k in cfgmod._ROLE_KEYS:  # documented in the comment block, as "#   key  ..."
+        assert re.search(rf"^#\s+{k}\s", role_keys_doc, flags=re.MULTILINE), k
+    missing = sorted(wanted - set(cfgmod._ROLE_KEYS) - keys)
+    assert not missing, f"options not documented in example.toml: {missing}"
+
+
+def test_example_defaults_match_the_code():
+    """Each ``key = value  # default: X`` with X a TOML value: X is what the code uses when the
+    key is left out."""
+    defaults = parse_config(minimal(), source="m.toml", base_dir=Path("/tmp"))
+    table = None
+    checked = 0
+    for line in EXAMPLE.read_text().splitlines():
+        m = re.match(r"^\[([a-z_.]+)\]", line)
+        if m:
+            table = m.group(1)
+            continue
+        m = re.match(r"^([a-z_0-9]+)\s*=.*#\s*default:\s*(.+?)(?:;.*)?$", line)
+        if not m or table not in ("screening", "steady", "sections", "baseline", "alarms", "economics", "schedule"):
+            continue
+        key, literal = m.group(1), m.group(2).strip()
+        try:
+            expected_raw = tomllib.loads(f"x = {literal}")["x"]
+        except tomllib.TOMLDecodeError:
+            continue  # "none", "10 % of rating_mw", ...
+        got = getattr(getattr(defaults, table), key)
+        if isinstance(got, dt.timedelta):
+            expected = parse_duration(expected_raw)
+        elif isinstance(got, tuple):
+            expected = tuple(expected_raw)
+        else:
+            expected = expected_raw
+        assert got == expected, f"[{table}] {key}: example says default {literal}, code uses {got!r}"
+        checked += 1
+    assert checked >= 35  # most options carry a literal default
+
+
+# --- durations ----------------------------------------------------------------------------
+@pytest.mark.parametrize("text, seconds", [
+    ("30s", 30), ("15m", 900), ("2h", 7200), ("1d", 86400), ("1w", 604800), ("1h30m", 5400),
+    ("0.5h", 1800), ("250ms", 0.25), (" 5 m ", 300),
+])
+def test_parse_duration(text, seconds):
+    assert parse_duration(text).total_seconds() == pytest.approx(seconds)
+
+
+@pytest.mark.parametrize("text", ["", "15", "m", "15x", "-5m", "1h 30", "1.2.3h", "abc"])
+def test_parse_duration_rejects(text):
+    with pytest.raises(ValueError, match="expected a duration"):
+        parse_duration(text)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(min_value=0, max_value=10**8))
+def test_duration_round_trip(seconds):
+    delta = dt.timedelta(seconds=seconds)
+    assert parse_duration(format_duration(delta)) == delta
+
+
+# --- every problem at once, with file, key and line ------------------------------------------
+def test_unknown_key_suggests_and_names_the_line():
+    text = minimal('[steady]\nwindw = "30m"\n')
+    assert problems(text) == [f"unit.toml:{line_of(text, 'windw')}: steady.windw: unknown key; did you mean 'window'?"]
+
+
+def test_all_problems_reported_together():
+    text = minimal("""
+        [steady]
+        min_length = "2x"
+        method = "ptc7"
+
+        [alarms]
+        deviation_warning = -2.0
+        deviation_alarm = -1.0
+        persistance = 3
+
+        [schedule]
+        retries = "four"
+        """)
+    got = problems(text)
+    assert got == [
+        f"unit.toml:{line_of(text, 'method')}: steady.method: expected one of 'ptc6', 'r_statistic', found 'ptc7'; did you mean 'ptc6'?",
+        f"unit.toml:{line_of(text, 'min_length')}: steady.min_length: expected a duration such as \"30s\", \"15m\", \"2h\", \"1d\" or \"1h30m\", found '2x'",
+        f"unit.toml:{line_of(text, 'persistance')}: alarms.persistance: unknown key; did you mean 'persistence'?",
+        f"unit.toml:{line_of(text, 'deviation_alarm')}: alarms.deviation_alarm: must be at or below deviation_warning (-2), found -1",
+        f"unit.toml:{line_of(text, 'retries')}: schedule.retries: expected an integer, found a string ('four')",
+    ]
+
+
+def test_unknown_table_and_role():
+    text = minimal('[roles.throtle_t]\ntag = "X"\nunit = "degC"\n\n[schedul]\ninterval = "5m"\n')
+    got = problems(text)
+    assert f"unit.toml:{line_of(text, '[schedul]')}: schedul: unknown key; did you mean 'schedule'?" in got
+    assert f"unit.toml:{line_of(text, '[roles.throtle_t]')}: roles.throtle_t: unknown role; did you mean 'throttle_t'?" in got
+
+
+def test_missing_required_roles_and_tables():
+    roles = {k: v for k, v in ROLE_UNITS.items() if k not in ("condenser_p", "gross_output")}
+    text = minimal(roles=roles)
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, '[roles.')}: roles: required roles not mapped: condenser_p, gross_output"]
+    assert problems('[unit]\nname = "x"\nrating_mw = 1.0\n') == [
+        "unit.toml: store: missing table [store]",
+        "unit.toml: roles: missing table [roles]",
+        "unit.toml: roles: required roles not mapped: " + ", ".join(REQUIRED_ROLES),
+    ]
+
+
+def test_unit_of_wrong_quantity_ambiguous_and_aliases():
+    roles = dict(ROLE_UNITS, throttle_t="psia", crossover_p="bar", hot_reheat_p="mpaa")
+    text = minimal(roles=roles)
+    got = problems(text)
+    assert got[0] == f"unit.toml:{line_of(text, 'psia')}: roles.throttle_t.unit: 'psia' is a unit of pressure, but throttle_t is a temperature"
+    bar_line = line_of(text, 'unit = "bar"')
+    assert got[1].startswith(f"unit.toml:{bar_line}: roles.crossover_p.unit: unit 'bar' does not say "
+                             "whether the pressure is absolute or gauge")
+    assert len(got) == 2
+    ok = parse_config(minimal(roles=dict(ROLE_UNITS, hot_reheat_p="mpaa")))
+    assert ok.roles["hot_reheat_p"].unit == "MPa(a)"  # stored under the canonical name
+
+
+def test_gauge_pressure_needs_a_barometric_pressure():
+    text = minimal(roles=dict(ROLE_UNITS, throttle_p="psig"))
+    assert problems(text) == ["unit.toml: screening.barometric_kpa: gauge pressures are mapped (throttle_p): "
+                              "map the barometric_p role or set screening.barometric_kpa"]
+    parse_config(text + "\n[screening]\nbarometric_kpa = 100.2\n")
+    parse_config(minimal(roles=dict(ROLE_UNITS, throttle_p="psig", barometric_p="kPa(a)")))
+    got = problems(minimal(roles=dict(ROLE_UNITS, barometric_p="kPa(g)")))
+    assert got == [f"unit.toml:{line_of(minimal(roles=dict(ROLE_UNITS, barometric_p='kPa(g)')), 'kPa(g)')}: "
+                   "roles.barometric_p.unit: the barometric pressure must be absolute, found the gauge unit 'kPa(g)'"]
+
+
+def test_not_toml_names_the_line():
+    text = minimal("[steady]\nwindow = 30m\n")
+    got = problems(text)
+    assert len(got) == 1 and got[0].startswith(f"unit.toml:{line_of(text, 'window = 30m')}: not valid TOML: ")
+
+
+def test_line_scan_is_not_fooled_by_multiline_arrays():
+    text = minimal("""
+        [sections]
+        annulus_area_m2 = 30.0
+        lp_exhaust_flow_fraction = 0.6
+        exhaust_loss_curve = [
+          [100.0, 30.0],
+          [90.0, 40.0],
+        ]
+        eta_lp_desing = 0.88
+        """)
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, 'exhaust_loss_curve')}: sections.exhaust_loss_curve: velocities must rise strictly, found [100.0, 90.0]",
+        f"unit.toml:{line_of(text, 'eta_lp_desing')}: sections.eta_lp_desing: unknown key; did you mean 'eta_lp_design'?",
+    ][::-1]
+
+
+def test_cross_checks():
+    got = problems(minimal("""
+        [sections]
+        lp_mode = "energy_balance"
+
+        [baseline]
+        start = "2026-02-01"
+        end = "2026-01-01"
+
+        [steady]
+        min_length = "2h"
+        max_length = "1h"
+
+        [economics]
+        fuel_price_per_gj = 3.0
+        currency = "euro"
+        """))
+    text = "\n".join(got)
+    assert "sections.lp_mode: \"energy_balance\" needs the main_steam_flow role mapped" in text
+    assert "sections.reheat_flow_fraction: lp_mode \"energy_balance\" needs reheat_flow_fraction" in text
+    assert "baseline.end: must be after start (2026-02-01T00:00:00+00:00), found 2026-01-01T00:00:00+00:00" in text
+    assert "steady.min_length: must not exceed max_length (1h), found 2h" in text
+    assert "economics.heat_rate_kj_per_kwh: fuel_price_per_gj is given: heat_rate_kj_per_kwh is needed too" in text
+    assert "economics.currency: expected a three-letter ISO 4217 code such as \"EUR\", found 'euro'" in text
+
+
+def test_ranges_and_types():
+    got = problems(minimal("""
+        [sections]
+        eta_lp_design = 1.2
+        [alarms]
+        persistence = 0
+        moisture_limit_percent = true
+        [roles.valve_position]
+        tag = "V"
+        unit = "%"
+        range = [100, 0]
+        """))
+    assert any("sections.eta_lp_design: expected a value >= 0.5 and <= 1.0, found 1.2" in p for p in got)
+    assert any("alarms.persistence: expected a value >= 1, found 0" in p for p in got)
+    assert any("alarms.moisture_limit_percent: expected a number, found a boolean (true)" in p for p in got)
+    assert any("roles.valve_position.range: expected [low, high] with low < high, found [100, 0]" in p for p in got)
+
+
+# --- secrets ------------------------------------------------------------------------------
+INFLUX2 = '[store]\nkind = "influx2"\nurl = "http://127.0.0.1:8086"\norg = "o"\nbucket = "b"\n'
+
+
+def test_secret_from_environment_is_never_shown():
+    c = parse_config(minimal(store=INFLUX2 + 'token = "${ISEN_TEST_TOKEN}"\n'),
+                     environ={"ISEN_TEST_TOKEN": "s3cr3t-value"})
+    assert c.store.token.reveal() == "s3cr3t-value"
+    assert c.store.open_options()["token"] == "s3cr3t-value"
+    for shown in (repr(c), str(c), repr(c.store), f"{c.store.token}"):
+        assert "s3cr3t-value" not in shown
+    assert "env:ISEN_TEST_TOKEN" in repr(c.store.token)
+
+
+def test_secret_from_file(tmp_path):
+    (tmp_path / "tok").write_text("file-token\n")
+    c = parse_config(minimal(store=INFLUX2 + 'token_file = "tok"\n'), base_dir=tmp_path, environ={})
+    assert c.store.token == Secret("file-token")
+    assert "file-token" not in repr(c)
+
+
+def test_secret_problems():
+    text = minimal(store=INFLUX2 + 'token = "plain-token"\n')
+    assert problems(text, environ={}) == [
+        f"unit.toml:{line_of(text, 'plain-token')}: store.token: write secrets as \"${{ENV_NAME}}\" or use "
+        "'token_file'; a secret written in the file is refused"]
+    got = problems(minimal(store=INFLUX2 + 'token = "${NOT_SET_ANYWHERE}"\n'), environ={})
+    assert got[0].endswith("store.token: environment variable NOT_SET_ANYWHERE is not set")
+    got = problems(minimal(store=INFLUX2), environ={})
+    assert got == ["unit.toml:1: store.token: missing required key 'token' (or 'token_file')"] or \
+        got[0].endswith("store.token: missing required key 'token' (or 'token_file')")
+    got = problems(minimal(store='[store]\nkind = "influx1"\nurl = "http://127.0.0.1:8086"\n'
+                                 'database = "d"\nusername = "u"\ntoken = "${T}"\n'), environ={"T": "x"})
+    assert got[0].endswith("store.token: give either 'token' or 'username'/'password', not both")
+
+
+def test_store_kind_and_url():
+    got = problems(minimal(store='[store]\nkind = "influx3"\n'))
+    assert got[0].endswith("store.kind: expected one of 'sqlite', 'influx2', 'influx1', found 'influx3'; did you mean 'influx2'?")
+    got = problems(minimal(store=INFLUX2.replace("http://127.0.0.1:8086", "127.0.0.1:8086") + 'token = "${T}"\n'),
+                   environ={"T": "x"})
+    assert got[0].endswith("store.url: expected an http:// or https:// URL, found '127.0.0.1:8086'")
+    got = problems(minimal(store='[store]\nkind = "sqlite"\npath = "x.sqlite"\nbucket = "b"\n'))
+    assert got[0].endswith("store.bucket: unknown key; known keys: kind, path")
+
+
+def test_unreadable_file(tmp_path):
+    with pytest.raises(ConfigError, match=r"nothere\.toml: cannot read the configuration"):
+        load_config(tmp_path / "nothere.toml")
+
+
+# --- through the command line: exit 2, the exact message, and no connection ----------------
+def test_bad_file_exits_2_before_any_connection(tmp_path, capsys):
+    listener = socket.socket()
+    listener.bind(("127.0.0.1", 0))
+    listener.listen(8)
+    listener.setblocking(False)
+    port = listener.getsockname()[1]
+    try:
+        text = minimal('[steady]\nwindw = "30m"\n',
+                       store=INFLUX2.replace("8086", str(port)) + 'token = "${ISEN_TEST_TOKEN_2}"\n')
+        path = tmp_path / "bad.toml"
+        path.write_text(text)
+        rc = cli.main(["check", "-c", str(path)])
+        err = capsys.readouterr().err
+        assert rc == 2
+        assert err == (
+            "isentrope: configuration error: 2 configuration problems:\n"
+            f"  {path}:{line_of(text, 'token')}: store.token: environment variable ISEN_TEST_TOKEN_2 is not set\n"
+            f"  {path}:{line_of(text, 'windw')}: steady.windw: unknown key; did you mean 'window'?\n"
+        )
+        with pytest.raises(BlockingIOError):  # nobody connected to the store's port
+            listener.accept()
+    finally:
+        listener.close()
+
+
+def test_single_problem_message(tmp_path, capsys):
+    path = tmp_path / "one.toml"
+    text = minimal('[alarms]\nhysteresis = -1.0\n')
+    path.write_text(text)
+    assert cli.main(["check", "-c", str(path)]) == 2
+    assert capsys.readouterr().err == (
+        f"isentrope: configuration error: {path}:{line_of(text, 'hysteresis')}: alarms.hysteresis: "
+        "expected a value >= 0, found -1.0\n")
