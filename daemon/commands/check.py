@@ -93,24 +93,29 @@ def _plausible(config: Config, role: str) -> tuple[float, float]:
     return PLAUSIBLE[role]
 
 
-def _other_units(role: str, declared: str, median: float, plausible: tuple[float, float], baro_kpa: float) -> list[str]:
-    """Units of the role's quantity under which ``median`` would be plausible."""
+def _other_units(role: str, declared: str, median: float, plausible: tuple[float, float],
+                 baro_kpa: float) -> list[str]:
+    """At most two units of the role's quantity under which ``median`` would be plausible,
+    the one putting it nearest the middle of the plausible range first."""
     from isentrope.calc import units
     from isentrope.daemon.roles import ROLES
 
     quantity = ROLES[role][0]
     internal = units.INTERNAL_UNIT[quantity]
+    lo, hi = plausible
     fits = []
     for name in units.KNOWN_UNITS:
         u = units.UNITS[name]
-        if u.quantity != quantity or name == declared:
-            continue
-        if role == "barometric_p" and u.gauge:
+        if u.quantity != quantity or name == declared or (role == "barometric_p" and u.gauge):
             continue
         value = float(units.convert(median, name, internal, barometric_kpa=baro_kpa))
-        if plausible[0] <= value <= plausible[1]:
-            fits.append(name)
-    return fits
+        if lo <= value <= hi:
+            if lo > 0:  # ranges of absolute quantities: distance on a log scale
+                distance = abs(np.log(value / np.sqrt(lo * hi)))
+            else:
+                distance = abs(value - (lo + hi) / 2) / (hi - lo)
+            fits.append((distance, name))
+    return [name for _, name in sorted(fits)[:2]]
 
 
 def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:

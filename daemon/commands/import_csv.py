@@ -8,7 +8,8 @@ Two layouts, detected from the header (or forced with ``--layout``):
 
 Times with an offset or ``Z`` are taken as written. Naive times are local times of
 ``--timezone`` (default UTC): the repeated hour at the end of daylight saving time is
-``--ambiguous`` (reject the rows, or take the earlier/later instant) and the skipped hour at its
+``--ambiguous`` (reject the rows, take the earlier/later instant, or "file-order": first
+occurrence earlier, second later, as a historian writes the repeated hour) and the skipped hour at its
 start is ``--nonexistent`` (reject, or shift forward to the first valid instant). Rejected rows
 are counted, never guessed.
 
@@ -93,13 +94,17 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="long = time,tag,value; wide = time,<tag>,<tag>,... (default: auto)")
     parser.add_argument("--timezone", default="UTC", metavar="ZONE",
                         help="IANA zone of times written without an offset, e.g. Europe/Berlin (default: UTC)")
-    parser.add_argument("--ambiguous", choices=("reject", "earlier", "later"), default="reject",
+    parser.add_argument("--ambiguous", choices=("reject", "earlier", "later", "file-order"), default="reject",
                         help="naive times in the repeated hour when daylight saving ends: reject the rows, "
-                             "or take the earlier (summer time) or later (standard time) instant (default: reject)")
+                             "take the earlier (daylight saving) or later (standard time) instant, or "
+                             "file-order (first occurrence earlier, second later) (default: reject)")
+    parser.add_argument("--dayfirst", action="store_true", help="read 03/04/2026 as 3 April (default: 4 March)")
     parser.add_argument("--nonexistent", choices=("reject", "shift-forward"), default="reject",
                         help="naive times in the hour skipped when daylight saving starts (default: reject)")
     parser.add_argument("--delimiter", default=None, metavar="CHAR",
                         help="field separator (default: detected from the header: , ; or tab)")
+    parser.add_argument("--decimal", choices=(".", ","), default=".",
+                        help="decimal mark of the values (default: .); with , use a ; or tab delimiter")
     parser.add_argument("--dry-run", action="store_true", help="read and report, write nothing")
 
 
@@ -121,7 +126,23 @@ def _sniff_delimiter(first_line: str) -> str:
     return best if counts[best] else ","
 
 
-def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str, nonexistent: str) -> tuple[pd.Series, pd.Series]:
+def _to_datetime(s: pd.Series, dayfirst: bool, utc: bool) -> pd.Series:
+    """Parse ISO 8601 fast; anything else element by element (slower, rarer)."""
+    if not dayfirst:
+        parsed = pd.to_datetime(s, errors="coerce", format="ISO8601", utc=utc)
+        rest = parsed.isna()
+        if not rest.any():
+            return parsed
+    else:
+        parsed = pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns, UTC]" if utc else "datetime64[ns]")
+        rest = pd.Series(True, index=s.index)
+    parsed[rest] = pd.to_datetime(s[rest], errors="coerce", format="mixed", dayfirst=dayfirst, utc=utc)
+    return parsed
+
+
+def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str = "reject", nonexistent: str = "reject",
+                dayfirst: bool = False, group: pd.Series | None = None,
+                seen: Counter | None = None) -> tuple[pd.Series, pd.Series]:
     """Strings -> UTC timestamps, and a reason per rejected row ("" when accepted).
 
     Parameters
@@ -130,10 +151,19 @@ def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str, nonexistent: st
         Times as written (ISO 8601 or any form pandas reads; with or without an offset) [-].
     zone : zoneinfo.ZoneInfo
         Zone of times written without an offset [-].
-    ambiguous : {"reject", "earlier", "later"}
-        Naive times that occur twice (end of daylight saving) [-].
+    ambiguous : {"reject", "earlier", "later", "file-order"}
+        Naive times that occur twice (end of daylight saving): reject, take the earlier
+        (daylight saving) or later (standard time) instant, or "file-order": the first
+        occurrence of a time (per ``group``) is the earlier instant, the second the later,
+        a third is rejected [-].
     nonexistent : {"reject", "shift-forward"}
         Naive times that never occur (start of daylight saving) [-].
+    dayfirst : bool
+        Read 03/04/2026 as 3 April [-].
+    group : pandas.Series, optional
+        Key (the tag, in the long layout) within which "file-order" counts occurrences [-].
+    seen : collections.Counter, optional
+        Occurrences counted so far, carried from chunk to chunk of one file [-].
     """
     s = text.astype("string").str.strip()
     out = pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns, UTC]")
@@ -143,48 +173,63 @@ def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str, nonexistent: st
     aware = ~empty & s.str.contains(_OFFSET, na=False)
     naive = ~empty & ~aware
     if aware.any():
-        parsed = pd.to_datetime(s[aware], utc=True, errors="coerce", format="mixed")
-        out[aware] = parsed
+        out[aware] = _to_datetime(s[aware], dayfirst, utc=True)
         reason[aware & out.isna()] = "unreadable time"
-    if naive.any():
-        parsed = pd.to_datetime(s[naive], errors="coerce", format="mixed")
-        bad = parsed.isna()
-        reason[parsed.index[bad]] = "unreadable time"
-        good = parsed[~bad]
-        if len(good):
-            if str(zone) == "UTC":
-                local = good.dt.tz_localize("UTC")
+    if not naive.any():
+        return out, reason
+    parsed = _to_datetime(s[naive], dayfirst, utc=False)
+    bad = parsed.isna()
+    reason[parsed.index[bad]] = "unreadable time"
+    good = parsed[~bad]
+    if not len(good):
+        return out, reason
+    if str(zone) == "UTC":
+        out[good.index] = good.dt.tz_localize("UTC")
+        return out, reason
+    # Which naive times are ambiguous, which nonexistent: localise with NaT for both, then
+    # again with a fixed choice for the ambiguous ones (only the nonexistent stay NaT).
+    probe = good.dt.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
+    is_nonexistent = good.dt.tz_localize(zone, ambiguous=np.ones(len(good), dtype=bool), nonexistent="NaT").isna()
+    is_ambiguous = probe.isna() & ~is_nonexistent
+    local = probe.copy()
+    if is_ambiguous.any():
+        sub = good[is_ambiguous]
+        if ambiguous == "reject":
+            reason[sub.index] = f"ambiguous local time in {zone}"
+        else:
+            if ambiguous == "file-order":
+                keys = list(zip(group[sub.index] if group is not None else [""] * len(sub), sub))
+                seen = Counter() if seen is None else seen
+                nth = []
+                for key in keys:
+                    seen[key] += 1
+                    nth.append(seen[key])
+                nth = np.asarray(nth)
+                third = nth > 2
+                reason[sub.index[third]] = f"ambiguous local time in {zone} seen more than twice"
+                dst = nth == 1
             else:
-                # Which naive times are ambiguous or nonexistent: localise with NaT for both,
-                # then tell them apart by trying again with a fixed choice.
-                amb_choice = {"earlier": True, "later": False}.get(ambiguous)
-                probe = good.dt.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-                amb_probe = good.dt.tz_localize(zone, ambiguous=np.ones(len(good), dtype=bool), nonexistent="NaT")
-                is_nonexistent = amb_probe.isna()
-                is_ambiguous = probe.isna() & ~is_nonexistent
-                local = probe.copy()
-                if is_ambiguous.any():
-                    if amb_choice is None:
-                        reason[good.index[is_ambiguous.to_numpy()]] = f"ambiguous local time in {zone}"
-                    else:
-                        sub = good[is_ambiguous]
-                        local[is_ambiguous] = sub.dt.tz_localize(
-                            zone, ambiguous=np.full(len(sub), amb_choice, dtype=bool), nonexistent="NaT")
-                if is_nonexistent.any():
-                    if nonexistent == "reject":
-                        reason[good.index[is_nonexistent.to_numpy()]] = f"nonexistent local time in {zone}"
-                    else:
-                        sub = good[is_nonexistent]
-                        local[is_nonexistent] = sub.dt.tz_localize(
-                            zone, ambiguous="NaT", nonexistent="shift_forward")
-            out[good.index] = local.dt.tz_convert("UTC")
+                dst = np.full(len(sub), ambiguous == "earlier", dtype=bool)
+                third = np.zeros(len(sub), dtype=bool)
+            done = sub.dt.tz_localize(zone, ambiguous=dst, nonexistent="NaT")
+            done[third] = pd.NaT
+            local[sub.index] = done
+    if is_nonexistent.any():
+        sub = good[is_nonexistent]
+        if nonexistent == "reject":
+            reason[sub.index] = f"nonexistent local time in {zone}"
+        else:
+            local[sub.index] = sub.dt.tz_localize(zone, ambiguous="NaT", nonexistent="shift_forward")
+    out[good.index] = local.dt.tz_convert("UTC")
     return out, reason
 
 
-def _numbers(values: pd.Series) -> tuple[pd.Series, int]:
+def _numbers(values: pd.Series, decimal: str = ".") -> tuple[pd.Series, int]:
     """Strings -> floats (NaN where not a finite number); also how many non-empty cells were
-    not numbers."""
+    not numbers. ``decimal`` "," reads 165,2 as 165.2."""
     s = values.astype(object).where(values.notna(), "").astype(str).str.strip()
+    if decimal == ",":
+        s = s.str.replace(",", ".", regex=False)
     nums = pd.to_numeric(s.where(s != "", None), errors="coerce").astype(float)
     nums[~np.isfinite(nums.to_numpy())] = np.nan
     bad = int((nums.isna() & (s != "")).sum())
@@ -192,12 +237,12 @@ def _numbers(values: pd.Series) -> tuple[pd.Series, int]:
 
 
 def _long_chunk(chunk: pd.DataFrame, cols: tuple[str, str, str], tag_role: dict[str, str],
-                times: pd.Series, report: ImportReport) -> pd.DataFrame:
+                times: pd.Series, report: ImportReport, decimal: str) -> pd.DataFrame:
     _, gcol, vcol = cols
     tags = chunk[gcol].fillna("").astype(str).str.strip()
     mapped = tags.isin(list(tag_role))
     report.unmapped_tags.update(t or "(empty)" for t in tags[~mapped])
-    values, bad = _numbers(chunk.loc[mapped, vcol])
+    values, bad = _numbers(chunk.loc[mapped, vcol], decimal)
     report.bad_values += bad
     frame = pd.DataFrame({"time": times[mapped], "role": tags[mapped].map(tag_role), "value": values})
     dup = frame.duplicated(["time", "role"], keep="last")
@@ -206,7 +251,7 @@ def _long_chunk(chunk: pd.DataFrame, cols: tuple[str, str, str], tag_role: dict[
 
 
 def _wide_chunk(chunk: pd.DataFrame, tcol: str, tag_role: dict[str, str], times: pd.Series,
-                report: ImportReport) -> pd.DataFrame:
+                report: ImportReport, decimal: str) -> pd.DataFrame:
     out = {}
     for col in chunk.columns:
         if col == tcol:
@@ -215,7 +260,7 @@ def _wide_chunk(chunk: pd.DataFrame, tcol: str, tag_role: dict[str, str], times:
         if tag not in tag_role:
             report.unmapped_tags[tag] += int(chunk[col].notna().sum())
             continue
-        values, bad = _numbers(chunk[col])
+        values, bad = _numbers(chunk[col], decimal)
         report.bad_values += bad
         out[tag_role[tag]] = values.to_numpy()
     wide = pd.DataFrame(out, index=pd.DatetimeIndex(times, name="time"))
@@ -224,20 +269,37 @@ def _wide_chunk(chunk: pd.DataFrame, tcol: str, tag_role: dict[str, str], times:
     return wide[~dup]
 
 
-def import_files(config: Config, paths: list[Path], store, layout: str = "auto", timezone: str = "UTC",
-                 ambiguous: str = "reject", nonexistent: str = "reject", delimiter: str | None = None,
+def time_zone(name: str) -> ZoneInfo:
+    """An IANA zone; ValueError naming the option when unknown."""
+    try:
+        return ZoneInfo(name)
+    except (ZoneInfoNotFoundError, ValueError):
+        raise ValueError(f"--timezone: unknown time zone {name!r}; use an IANA name such as "
+                         "UTC, Europe/Berlin or America/Chicago") from None
+
+
+@dataclass(frozen=True)
+class ImportOptions:
+    """How to read the files (see the module docstring)."""
+
+    layout: str = "auto"
+    timezone: str = "UTC"
+    ambiguous: str = "reject"
+    nonexistent: str = "reject"
+    dayfirst: bool = False
+    delimiter: str | None = None
+    decimal: str = "."
+
+
+def import_files(config: Config, paths: list[Path], store, options: ImportOptions = ImportOptions(),
                  dry_run: bool = False) -> ImportReport:
     """Read CSV exports and write them to ``store`` (unless ``dry_run``); returns the counts.
 
-    Raises ValueError for an unknown time zone or a file whose header cannot be used.
+    Raises ValueError for an unknown time zone, a file whose header cannot be used, or a
+    malformed row (its line number; rows before it are written already).
     """
-    try:
-        zone = ZoneInfo(timezone)
-    except (ZoneInfoNotFoundError, ValueError):
-        raise ValueError(f"--timezone: unknown time zone {timezone!r}; use an IANA name such as "
-                         "UTC, Europe/Berlin or America/Chicago") from None
+    zone = time_zone(options.timezone)
     tag_role = {m.tag: m.role for m in config.mappings}
-    mappings = list(config.mappings)
     report = ImportReport()
     for path in paths:
         path = Path(path)
@@ -245,43 +307,45 @@ def import_files(config: Config, paths: list[Path], store, layout: str = "auto",
             first = fh.readline()
         if not first.strip():
             raise ValueError(f"{path}: empty file, expected a header line")
-        sep = delimiter or _sniff_delimiter(first)
+        sep = options.delimiter or _sniff_delimiter(first)
+        if options.decimal == "," and sep == ",":
+            raise ValueError(f"{path}: decimal comma with a comma delimiter; give --delimiter")
         header = next(csv.reader([first], delimiter=sep))
-        kind = detect_layout(header) if layout == "auto" else layout
+        kind = detect_layout(header) if options.layout == "auto" else options.layout
         names = [h.strip().lower() for h in header]
         if kind == "long":
             try:
-                tcol = header[next(i for i, n in enumerate(names) if n in TIME_NAMES)]
-                gcol = header[next(i for i, n in enumerate(names) if n in TAG_NAMES)]
-                vcol = header[next(i for i, n in enumerate(names) if n in VALUE_NAMES)]
+                cols = tuple(header[next(i for i, n in enumerate(names) if n in group)]
+                             for group in (TIME_NAMES, TAG_NAMES, VALUE_NAMES))
             except StopIteration:
                 raise ValueError(f"{path}: long layout needs time, tag and value columns, found {header}") from None
         else:
             if len(header) < 2:
-                raise ValueError(f"{path}: wide layout needs a time column and at least one tag column, found {header}")
-            tcol, gcol, vcol = header[0], "", ""
+                raise ValueError(f"{path}: wide layout needs a time column and at least one tag column, "
+                                 f"found {header}")
+            cols = (header[0], "", "")
         report.files += 1
-        log.info("importing %s (%s layout, times without offset in %s)", path, kind, timezone)
+        log.info("importing %s (%s layout, times without offset in %s)", path, kind, options.timezone)
         # Every cell as text: "Bad", "I/O Timeout", "NaN" are counted as not-a-number below.
-        # A row with the wrong number of fields stops the file with its line number (rows
-        # before it are already written; writing the file again replaces them).
         reader = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False, na_values=[],
                              chunksize=CHUNK_ROWS, encoding="utf-8-sig", skipinitialspace=True)
+        seen: Counter = Counter()  # file-order occurrences of ambiguous local times
         try:
             for chunk in reader:
-                _import_chunk(chunk, kind, (tcol, gcol, vcol), zone, ambiguous, nonexistent,
-                              tag_role, mappings, store, dry_run, report)
+                _import_chunk(chunk, kind, cols, zone, options, seen, tag_role, config, store, dry_run, report)
         except pd.errors.ParserError as exc:
             raise ValueError(f"{path}: malformed CSV: {exc}") from None
     return report
 
 
-def _import_chunk(chunk: pd.DataFrame, kind: str, cols: tuple, zone: ZoneInfo, ambiguous: str,
-                  nonexistent: str, tag_role: dict[str, str], mappings: list, store, dry_run: bool,
+def _import_chunk(chunk: pd.DataFrame, kind: str, cols: tuple, zone: ZoneInfo, options: ImportOptions,
+                  seen: Counter, tag_role: dict[str, str], config: Config, store, dry_run: bool,
                   report: ImportReport) -> None:
-    tcol = cols[0]
+    tcol, gcol, _ = cols
     report.rows_read += len(chunk)
-    times, reason = parse_times(chunk[tcol], zone, ambiguous, nonexistent)
+    group = chunk[gcol].fillna("").astype(str).str.strip() if kind == "long" else None
+    times, reason = parse_times(chunk[tcol], zone, options.ambiguous, options.nonexistent,
+                                dayfirst=options.dayfirst, group=group, seen=seen)
     rejected = reason != ""
     report.reject_reasons.update(reason[rejected].tolist())
     report.rows_rejected += int(rejected.sum())
@@ -289,17 +353,18 @@ def _import_chunk(chunk: pd.DataFrame, kind: str, cols: tuple, zone: ZoneInfo, a
     if not len(chunk):
         return
     if kind == "long":
-        wide = _long_chunk(chunk, cols, tag_role, times, report)
+        wide = _long_chunk(chunk, cols, tag_role, times, report, options.decimal)
     else:
-        wide = _wide_chunk(chunk, tcol, tag_role, times, report)
+        wide = _wide_chunk(chunk, tcol, tag_role, times, report, options.decimal)
     wide = wide.dropna(how="all").sort_index()
     wide.index.name = "time"
+    wide.columns.name = None
     if wide.empty:
         return
     report.roles_seen.update(wide.columns[wide.notna().any()].tolist())
     report.first = wide.index[0] if report.first is None else min(report.first, wide.index[0])
     report.last = wide.index[-1] if report.last is None else max(report.last, wide.index[-1])
-    present = [m for m in mappings if m.role in wide.columns]
+    present = [m for m in config.mappings if m.role in wide.columns]
     if dry_run:
         report.samples_written += int(wide.notna().sum().sum())
     else:
@@ -312,16 +377,18 @@ def run(args: argparse.Namespace) -> int:
     missing = [str(p) for p in paths if not p.is_file()]
     if missing:
         raise ValueError(f"no such file: {', '.join(missing)}")
-    if args.delimiter is not None and len(args.delimiter.replace("\\t", "\t")) != 1:
-        raise ValueError(f"--delimiter: expected one character, found {args.delimiter!r}")
     delimiter = args.delimiter.replace("\\t", "\t") if args.delimiter else None
+    if delimiter is not None and len(delimiter) != 1:
+        raise ValueError(f"--delimiter: expected one character, found {args.delimiter!r}")
+    options = ImportOptions(layout=args.layout, timezone=args.timezone, ambiguous=args.ambiguous,
+                            nonexistent=args.nonexistent, dayfirst=args.dayfirst, delimiter=delimiter,
+                            decimal=args.decimal)
+    time_zone(options.timezone)  # before any connection
     if args.dry_run:
-        report = import_files(config, paths, None, args.layout, args.timezone, args.ambiguous,
-                              args.nonexistent, delimiter, dry_run=True)
+        report = import_files(config, paths, None, options, dry_run=True)
     else:
         with config.store.open() as store:
-            report = import_files(config, paths, store, args.layout, args.timezone, args.ambiguous,
-                                  args.nonexistent, delimiter)
+            report = import_files(config, paths, store, options)
     for line in report.lines(config, written=not args.dry_run):
         print(line)
     return 0

@@ -1,0 +1,373 @@
+"""The `check`, `import-csv` and `export` commands, end to end through ``cli.main`` against the
+SQLite store, plus the time-zone handling of the importer.
+
+Plant readings below are invented demo values of a fictional 500 MW unit (no source needed:
+they only have to be plausible); the daylight-saving instants are facts of the EU rule
+(Directive 2000/84/EC: summer time runs from 01:00 UTC on the last Sunday of March to 01:00 UTC
+on the last Sunday of October; in 2026 those are 29 March and 25 October), and the unit factor
+1 psi = 6.894757 kPa is NIST SP 811 (2008) Appendix B.
+"""
+
+from __future__ import annotations
+
+import socket
+import textwrap
+from collections import Counter
+from pathlib import Path
+from zoneinfo import ZoneInfo
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from isentrope.daemon import cli
+from isentrope.daemon.commands import check as check_cmd
+from isentrope.daemon.commands import export as export_cmd
+from isentrope.daemon.commands.import_csv import detect_layout, parse_times
+from isentrope.daemon.config import load_config
+
+#: Role -> (tag, plant unit, typical value in that unit, noise). Invented demo values.
+PLANT = {
+    "throttle_p": ("U7-MS-P", "MPa(a)", 16.5, 0.02),
+    "throttle_t": ("U7-MS-T", "degC", 538.0, 0.3),
+    "cold_reheat_p": ("U7-CRH-P", "MPa(a)", 3.9, 0.01),
+    "cold_reheat_t": ("U7-CRH-T", "degC", 330.0, 0.3),
+    "hot_reheat_p": ("U7-HRH-P", "MPa(a)", 3.55, 0.01),
+    "hot_reheat_t": ("U7-HRH-T", "degC", 538.0, 0.3),
+    "crossover_p": ("U7-XO-P", "kPa(a)", 950.0, 2.0),
+    "crossover_t": ("U7-XO-T", "degC", 350.0, 0.3),
+    "condenser_p": ("U7-CND-P", "kPa(a)", 5.0, 0.02),
+    "gross_output": ("U7-GEN-MW", "MW", 480.0, 1.0),
+}
+END = pd.Timestamp("2026-05-04T12:00:00Z")
+
+
+def write_config(tmp_path: Path, units: dict | None = None, extra: str = "", store: str | None = None) -> Path:
+    units = units or {}
+    parts = [
+        '[unit]\nname = "Test Unit 7"\nplant = "Invented Station"\nrating_mw = 500.0\n',
+        store or '[store]\nkind = "sqlite"\npath = "unit7.sqlite"\n',
+        "[screening]\nbarometric_kpa = 100.0\n",
+    ]
+    for role, (tag, unit, typical, _) in PLANT.items():
+        lo, hi = (0.0, 2.5 * typical) if unit != "degC" else (0.0, 650.0)
+        parts.append(f'[roles.{role}]\ntag = "{tag}"\nunit = "{units.get(role, unit)}"\nrange = [{lo}, {hi}]\n')
+    parts.append(textwrap.dedent(extra))
+    path = tmp_path / "unit7.toml"
+    path.write_text("\n".join(parts))
+    return path
+
+
+def plant_frame(start: pd.Timestamp, periods: int, seed: int = 7) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    index = pd.date_range(start, periods=periods, freq="1min", name="time")
+    return pd.DataFrame({role: typical + noise * rng.standard_normal(periods)
+                         for role, (_, _, typical, noise) in PLANT.items()}, index=index)
+
+
+def open_store(config_path: Path):
+    return load_config(config_path).store.open()
+
+
+def store_with_day(tmp_path: Path, units: dict | None = None, frame: pd.DataFrame | None = None) -> Path:
+    path = write_config(tmp_path, units)
+    config = load_config(path)
+    frame = plant_frame(END - pd.Timedelta("24h"), 1440) if frame is None else frame
+    with config.store.open() as store:
+        store.write_raw(list(config.mappings), frame)
+    return path
+
+
+# --- check -------------------------------------------------------------------------------
+def test_check_all_ok(tmp_path, capsys):
+    path = store_with_day(tmp_path)
+    rc = cli.main(["check", "-c", str(path), "--end", END.isoformat()])
+    out = capsys.readouterr().out
+    assert rc == 0, out
+    lines = out.splitlines()
+    assert lines[1].split() == ["role", "tag", "unit", "samples", "last", "time", "(UTC)", "min", "max", "verdict"]
+    rows = {line.split()[0]: line.split() for line in lines[3:3 + len(PLANT)]}
+    assert set(rows) == set(PLANT)
+    assert rows["throttle_p"][:5] == ["throttle_p", "U7-MS-P", "MPa(a)", "1440", "2026-05-04"]
+    assert rows["throttle_p"][5] == "11:59:00" and rows["throttle_p"][-1] == "ok"
+    assert lines[-1].startswith("all 10 roles ok.")
+
+
+def test_check_finds_a_pressure_in_the_wrong_unit(tmp_path, capsys):
+    """Throttle pressure declared psig while the historian holds kPa: 16 500 "psig" is 113.9
+    MPa, implausible; as kPa it is 16.5 MPa (1 psi = 6.894757 kPa, NIST SP 811)."""
+    frame = plant_frame(END - pd.Timedelta("24h"), 1440)
+    frame["throttle_p"] = 16500.0
+    frame.iloc[::2, 0] = 16501.0  # not flat
+    path = store_with_day(tmp_path, units={"throttle_p": "psig"}, frame=frame)
+    rc = cli.main(["check", "-c", str(path), "--end", END.isoformat()])
+    captured = capsys.readouterr()
+    assert rc == 1
+    row = next(line for line in captured.out.splitlines() if line.startswith("throttle_p"))
+    assert row.endswith("PROBLEM: median 16500.5 psig = 113.9 MPa(a), implausible (expected 2-35 MPa(a)); "
+                        "looks like kPa(a) or kPa(g)")
+    assert captured.err == "1 of 10 roles have problems.\n"
+
+
+def test_check_no_data_stale_flat_out_of_range(tmp_path, capsys):
+    frame = plant_frame(END - pd.Timedelta("24h"), 1440)
+    frame.loc[frame.index >= END - pd.Timedelta("3h"), "throttle_t"] = np.nan  # stale 3 h
+    frame["cold_reheat_t"] = 330.0  # flat
+    frame.iloc[100:105, frame.columns.get_loc("condenser_p")] = 99.0  # above range [0, 12.5]
+    frame["crossover_t"] = np.nan  # no data
+    path = store_with_day(tmp_path, frame=frame)
+    rc = cli.main(["check", "-c", str(path), "--end", END.isoformat()])
+    out = capsys.readouterr().out
+    assert rc == 1
+    verdict = {line.split()[0]: line for line in out.splitlines()[3:13]}
+    assert verdict["throttle_t"].endswith("PROBLEM: stale: last sample 3.0 h before the end")
+    assert verdict["cold_reheat_t"].endswith("PROBLEM: flat: every sample the same")
+    assert verdict["condenser_p"].endswith("PROBLEM: 5 outside range [0, 12.5]")
+    assert verdict["crossover_t"].endswith("PROBLEM: no data")
+    assert verdict["throttle_p"].endswith(" ok")
+
+
+def test_check_offline_unit_is_not_judged_on_units(tmp_path, capsys):
+    frame = plant_frame(END - pd.Timedelta("24h"), 1440)
+    frame["gross_output"] = 0.0 + 0.01 * np.arange(1440) % 1.0
+    frame["throttle_p"] = 0.2 + 0.001 * (np.arange(1440) % 7)  # depressurised
+    path = store_with_day(tmp_path, frame=frame)
+    cli.main(["check", "-c", str(path), "--end", END.isoformat()])
+    out = capsys.readouterr().out
+    row = next(line for line in out.splitlines() if line.startswith("throttle_p"))
+    assert row.endswith("unit offline: unit not judged")
+
+
+def test_check_unreachable_store_exits_3(tmp_path, capsys):
+    pytest.importorskip("isentrope.daemon.stores.influx2", reason="InfluxDB v2 store not built yet")
+    sock = socket.socket()
+    sock.bind(("127.0.0.1", 0))
+    port = sock.getsockname()[1]
+    sock.close()  # a closed port: connection refused
+    store = (f'[store]\nkind = "influx2"\nurl = "http://127.0.0.1:{port}"\norg = "o"\nbucket = "b"\n'
+             'token = "${ISEN_CHECK_TOKEN}"\ntimeout = "2s"\n')
+    path = write_config(tmp_path, store=store)
+    import os
+    os.environ["ISEN_CHECK_TOKEN"] = "t"
+    try:
+        rc = cli.main(["check", "-c", str(path), "--end", END.isoformat()])
+    finally:
+        del os.environ["ISEN_CHECK_TOKEN"]
+    assert rc == 3
+    assert capsys.readouterr().err.startswith("isentrope: store unreachable: ")
+
+
+def test_check_bad_since(tmp_path, capsys):
+    path = write_config(tmp_path)
+    assert cli.main(["check", "-c", str(path), "--since", "yesterday"]) == 1
+    assert capsys.readouterr().err.startswith("isentrope: error: --since: expected a duration")
+
+
+# --- import-csv --------------------------------------------------------------------------
+def test_layout_detection():
+    assert detect_layout(["time", "tag", "value"]) == "long"
+    assert detect_layout(["Timestamp", "TagName", "Value"]) == "long"
+    assert detect_layout(["time", "U7-MS-P", "U7-MS-T"]) == "wide"
+    assert detect_layout(["time", "value"]) == "wide"
+
+
+def _times(strings, zone="Europe/Berlin", **kw):
+    t, why = parse_times(pd.Series(strings), ZoneInfo(zone), **kw)
+    return [x.isoformat() if pd.notna(x) else None for x in t], list(why)
+
+
+def test_naive_times_in_a_zone_with_daylight_saving():
+    # CET = UTC+1, CEST = UTC+2 (EU rule; change at 01:00 UTC on 29 March / 25 October 2026)
+    t, why = _times(["2026-01-15 12:00", "2026-07-15 12:00", "2026-07-15T12:00:00Z", "2026-07-15T12:00:00-04:00"])
+    assert t == ["2026-01-15T11:00:00+00:00", "2026-07-15T10:00:00+00:00",
+                 "2026-07-15T12:00:00+00:00", "2026-07-15T16:00:00+00:00"]
+    assert why == ["", "", "", ""]
+
+
+def test_repeated_hour_is_rejected_or_resolved_explicitly():
+    s = ["2026-10-25 02:15", "2026-10-25 02:45", "2026-10-25 02:15", "2026-10-25 02:45", "2026-10-25 03:15"]
+    t, why = _times(s)
+    assert t == [None, None, None, None, "2026-10-25T02:15:00+00:00"]
+    assert why[:4] == ["ambiguous local time in Europe/Berlin"] * 4
+    assert _times(s, ambiguous="earlier")[0][:2] == ["2026-10-25T00:15:00+00:00", "2026-10-25T00:45:00+00:00"]
+    assert _times(s, ambiguous="later")[0][:2] == ["2026-10-25T01:15:00+00:00", "2026-10-25T01:45:00+00:00"]
+    t, why = _times(s + ["2026-10-25 02:15"], ambiguous="file-order")
+    assert t == ["2026-10-25T00:15:00+00:00", "2026-10-25T00:45:00+00:00", "2026-10-25T01:15:00+00:00",
+                 "2026-10-25T01:45:00+00:00", "2026-10-25T02:15:00+00:00", None]
+    assert why[-1] == "ambiguous local time in Europe/Berlin seen more than twice"
+
+
+def test_file_order_counts_per_tag_and_across_chunks():
+    seen = Counter()
+    zone = ZoneInfo("Europe/Berlin")
+    first, _ = parse_times(pd.Series(["2026-10-25 02:30"] * 2), zone, "file-order",
+                           group=pd.Series(["A", "B"]), seen=seen)
+    second, _ = parse_times(pd.Series(["2026-10-25 02:30"] * 2), zone, "file-order",
+                            group=pd.Series(["A", "B"]), seen=seen)
+    assert list(first) == [pd.Timestamp("2026-10-25T00:30Z")] * 2
+    assert list(second) == [pd.Timestamp("2026-10-25T01:30Z")] * 2
+
+
+def test_skipped_hour_is_rejected_or_shifted():
+    t, why = _times(["2026-03-29 02:30", "2026-03-29 03:30"])
+    assert t == [None, "2026-03-29T01:30:00+00:00"] and why[0] == "nonexistent local time in Europe/Berlin"
+    t, _ = _times(["2026-03-29 02:30"], nonexistent="shift-forward")
+    assert t == ["2026-03-29T01:00:00+00:00"]  # 03:00 CEST
+
+
+def test_unreadable_and_dayfirst():
+    t, why = _times(["not a time", "", "03/04/2026 10:00"], zone="UTC")
+    assert why[:2] == ["unreadable time", "empty time"] and t[2] == "2026-03-04T10:00:00+00:00"
+    assert _times(["03/04/2026 10:00"], zone="UTC", dayfirst=True)[0] == ["2026-04-03T10:00:00+00:00"]
+
+
+LONG_CSV = """time,tag,value
+2026-05-04T10:00:00Z,U7-MS-P,16.51
+2026-05-04T10:00:00Z,U7-GEN-MW,480.5
+2026-05-04T10:01:00Z,U7-MS-P,Bad Input
+2026-05-04T10:01:00Z,U7-GEN-MW,481.0
+2026-05-04T10:02:00Z,U7-MS-P,16.40
+2026-05-04T10:02:00Z,U7-MS-P,16.52
+2026-05-04T10:02:00Z,U7-SPARE,1.0
+yesterday noon,U7-MS-P,16.6
+2026-05-04T10:03:00Z,U7-GEN-MW,
+"""
+
+
+def test_import_long_layout(tmp_path, capsys):
+    path = write_config(tmp_path)
+    csv = tmp_path / "long.csv"
+    csv.write_text(LONG_CSV)
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 0
+    out = capsys.readouterr().out.splitlines()
+    assert out[:6] == [
+        "files: 1",
+        "rows read: 9",
+        "rows rejected: 1 (1 unreadable time)",
+        "values not a number (stored as missing): 1",
+        "duplicate (time, tag) values replaced by the later one: 1",
+        "samples written: 4",
+    ]
+    assert "tags not in the configuration, skipped: U7-SPARE (1)" in out
+    with open_store(path) as store:
+        config = load_config(path)
+        got = store.read_raw(list(config.mappings), pd.Timestamp("2026-05-04T09:00Z"), pd.Timestamp("2026-05-04T11:00Z"))
+    got = got[["throttle_p", "gross_output"]].dropna(how="all")
+    assert list(got.index.strftime("%H:%M")) == ["10:00", "10:01", "10:02"]
+    assert got["throttle_p"].tolist()[0] == 16.51 and np.isnan(got["throttle_p"].iloc[1])
+    assert got["throttle_p"].iloc[2] == 16.52  # the later duplicate wins
+    assert got["gross_output"].tolist()[:2] == [480.5, 481.0]
+
+
+def test_import_wide_local_time_and_reimport_replaces(tmp_path, capsys):
+    path = write_config(tmp_path)
+    csv = tmp_path / "wide.csv"
+    csv.write_text(
+        "Timestamp;U7-MS-P;U7-GEN-MW\n"
+        "25.10.2026 02:30;16,5;480\n"
+        "25.10.2026 02:30;16,6;481\n"
+        "25.10.2026 03:30;16,7;I/O Timeout\n"
+    )
+    args = ["import-csv", "-c", str(path), str(csv), "--timezone", "Europe/Berlin", "--ambiguous", "file-order",
+            "--decimal", ",", "--dayfirst"]
+    assert cli.main(args) == 0
+    first = capsys.readouterr().out
+    assert "samples written: 5" in first and "values not a number (stored as missing): 1" in first
+    assert cli.main(args) == 0  # the same file again: replaced, not duplicated
+    capsys.readouterr()
+    config = load_config(path)
+    with config.store.open() as store:
+        got = store.read_raw(list(config.mappings), pd.Timestamp("2026-10-24T00:00Z"), pd.Timestamp("2026-10-26T00:00Z"))
+    got = got[["throttle_p", "gross_output"]].dropna(how="all")
+    assert [t.isoformat() for t in got.index] == [
+        "2026-10-25T00:30:00+00:00", "2026-10-25T01:30:00+00:00", "2026-10-25T02:30:00+00:00"]
+    assert got["throttle_p"].tolist() == [16.5, 16.6, 16.7]
+    assert got["gross_output"].iloc[:2].tolist() == [480.0, 481.0] and np.isnan(got["gross_output"].iloc[2])
+
+
+def test_import_rejects_ambiguous_by_default_and_keeps_stored_data(tmp_path, capsys):
+    path = store_with_day(tmp_path)
+    csv = tmp_path / "dst.csv"
+    csv.write_text("time,U7-MS-P\n2026-10-25 02:30,16.5\n2026-10-25 03:30,16.6\n")
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--timezone", "Europe/Berlin"]) == 0
+    out = capsys.readouterr().out
+    assert "rows rejected: 1 (1 ambiguous local time in Europe/Berlin)" in out
+    config = load_config(path)
+    with config.store.open() as store:
+        day = store.read_raw(list(config.mappings), END - pd.Timedelta("24h"), END)
+    assert day["throttle_p"].notna().sum() == 1440  # what was stored before is still there
+
+
+def test_import_errors(tmp_path, capsys):
+    path = write_config(tmp_path)
+    assert cli.main(["import-csv", "-c", str(path), str(tmp_path / "missing.csv")]) == 1
+    assert capsys.readouterr().err == f"isentrope: error: no such file: {tmp_path / 'missing.csv'}\n"
+    csv = tmp_path / "x.csv"
+    csv.write_text("time,U7-MS-P\n2026-01-01T00:00Z,1\n")
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--timezone", "Mars/Olympus"]) == 1
+    assert "unknown time zone 'Mars/Olympus'" in capsys.readouterr().err
+    bad = tmp_path / "bad.csv"
+    bad.write_text("time,U7-MS-P\n2026-01-01T00:00Z,1,2,3\n")
+    assert cli.main(["import-csv", "-c", str(path), str(bad)]) == 1
+    assert capsys.readouterr().err.startswith(f"isentrope: error: {bad}: malformed CSV: ")
+
+
+def test_import_dry_run_writes_nothing(tmp_path, capsys):
+    path = write_config(tmp_path)
+    csv = tmp_path / "long.csv"
+    csv.write_text(LONG_CSV)
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--dry-run"]) == 0
+    assert "samples that would be written (dry run): 4" in capsys.readouterr().out
+    assert not (tmp_path / "unit7.sqlite").exists()
+
+
+# --- export ------------------------------------------------------------------------------
+def test_export_csv(tmp_path, capsys):
+    path = write_config(tmp_path)
+    index = pd.DatetimeIndex(["2026-05-04T10:00:00Z", "2026-05-04T10:01:00Z", "2026-05-04T10:02:00Z"], name="time")
+    samples = pd.DataFrame({"eta_hp": [0.8626, 0.8611, np.nan], "steady": [True, False, True]}, index=index)
+    windows = pd.DataFrame({"eta_ip": [0.9022]}, index=index[1:2])
+    config = load_config(path)
+    with config.store.open() as store:
+        store.write_results("section_samples", samples, {"unit": "Test Unit 7"})
+        store.write_results("steady_windows", windows, {"unit": "Test Unit 7"})
+        store.write_results("section_samples", samples * 0 + 1, {"unit": "Another unit"})
+    out = tmp_path / "out.csv"
+    rc = cli.main(["export", "-c", str(path), "--start", "2026-05-04T10:00", "--end", "2026-05-04T10:02",
+                   "--format", "csv", "-o", str(out), "--measurement", "section_samples"])
+    assert rc == 0
+    frame = pd.read_csv(out)
+    assert list(frame["time"]) == ["2026-05-04T10:00:00Z", "2026-05-04T10:01:00Z"]  # end exclusive
+    assert frame["eta_hp"].tolist() == [0.8626, 0.8611]
+    assert frame["steady"].astype(str).str.lower().isin(["true", "1", "1.0"]).tolist() == [True, False]
+    capsys.readouterr()
+    rc = cli.main(["export", "-c", str(path), "--start", "2026-05-04", "--end", "2026-05-05",
+                   "--measurement", "section_samples", "--measurement", "steady_windows"])
+    text = capsys.readouterr().out
+    frame = pd.read_csv(__import__("io").StringIO(text))
+    assert set(frame.columns) >= {"time", "section_samples.eta_hp", "steady_windows.eta_ip"}
+    assert frame["steady_windows.eta_ip"].dropna().tolist() == [0.9022]
+    assert len(frame) == 3
+
+
+def test_export_empty_window_and_bad_times(tmp_path, capsys):
+    path = write_config(tmp_path)
+    rc = cli.main(["export", "-c", str(path), "--start", "2020-01-01", "--end", "2020-01-02"])
+    captured = capsys.readouterr()
+    assert rc == 0 and captured.out.startswith("time")
+    assert "no results of section_samples" in captured.err
+    assert cli.main(["export", "-c", str(path), "--start", "2020-01-02", "--end", "2020-01-01"]) == 1
+    assert "must be after --start" in capsys.readouterr().err
+    assert cli.main(["export", "-c", str(path), "--start", "soon", "--end", "2020-01-01"]) == 1
+    assert "--start: expected an ISO 8601 time" in capsys.readouterr().err
+
+
+def test_to_csv_text_formats_times_in_utc():
+    idx = pd.DatetimeIndex(["2026-05-04T12:00:00+02:00"])
+    assert export_cmd.to_csv_text(pd.DataFrame({"a": [1.5]}, index=idx)) == "time,a\n2026-05-04T10:00:00Z,1.5\n"
+
+
+def test_plausible_table_covers_every_role():
+    from isentrope.daemon.roles import ROLES
+
+    assert set(check_cmd.PLAUSIBLE) | set(check_cmd.PLAUSIBLE_PER_RATING) == set(ROLES)
