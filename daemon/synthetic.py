@@ -1,0 +1,829 @@
+"""A synthetic unit history with known degradation, for the demo and for tests.
+
+The scenario is invented: **Greywater Bend Station, Unit 2**, a fictional 530 MW (gross)
+subcritical drum unit with single reheat on a 60 Hz grid (3600 rpm): one HP turbine, one
+IP turbine and two double-flow LP turbines, throttle and hot reheat steam at 538 degC. None
+of its names, tags or numbers belong to a real plant; every figure below is made up for the
+demo unless a comment names a source.
+
+``generate`` returns a wide frame of every role of ``isentrope.daemon.roles`` in internal
+units (MPa absolute, K, MW, kg/s, %) and a JSON-serialisable ``truth`` dict that records
+what was injected: the gradual HP loss, the IP step after the trip, the flatlined
+transmitter, the data gap, the spike burst, every shutdown and start-up, and a summary of
+the true section efficiencies. The steam side is computed with ``isentrope.calc.steam``
+(IAPWS-IF97): outlet temperatures follow from the true section efficiencies,
+``h_out = h_in - eta (h_in - h(p_out, s_in))`` and ``T_out = T(p_out, h_out)``, so a
+correct enthalpy-drop calculation on noise-free readings gives back the true efficiency.
+
+Operating model (all invented, documented so that a reader can check the output):
+
+* Load follows an hourly dispatch: a weekday and a weekend pattern on UTC clock hours with
+  seasonal and day-to-day variation, quantised to 2.5 % of rating and held when the change
+  would be small, so that there are long plateaus; ramps at 1.5 % of rating per minute; a
+  small automatic-generation-control wander on top. Minimum dispatch 35 % of rating.
+* Throttle pressure: constant 16.55 MPa above 80 % load (the control valves throttle),
+  sliding with steam flow below, never under 5 MPa (the valves then close further).
+* Cold reheat, crossover, LP extraction and first-stage pressures are proportional to the
+  steam flow (Stodola's cone law with the flow-pressure ratio held; common practice, no
+  source). The reheater loses 8 % of the cold reheat pressure (REFERENCES.md: 7-10 % is
+  common practice).
+* Condenser pressure: seasonal (about 3.5 kPa in winter to 8.5 kPa in summer), a daily
+  cycle of the cooling water and a load dependence.
+* True efficiencies: a design curve against load fraction (HP 0.862, IP 0.912, LP dry
+  stage group 0.880 at rating, within the typical ranges in REFERENCES.md), the HP losing
+  ``hp_rate`` points per 1000 operating hours (deposits), the IP stepping by ``ip_step``
+  points from the restart after the trip (a rub), the LP dry group constant.
+* The unit holds output: as a section loses efficiency the steam flow rises by the output
+  sensitivities in REFERENCES.md (HP 0.25 %, IP 0.2 % per point; from memory).
+* Offline: output, flow and valve position are zero; pressures and temperatures decay
+  towards ambient and come back during the two hours before a start-up.
+* Sensor noise (standard deviations, common practice, no source): pressure 0.07 % of
+  reading, condenser 0.03 kPa + 0.2 %, temperature 0.4 K, output 0.15 % + 0.05 MW, flow
+  0.5 %, valve position 0.1 %, barometric 0.01 kPa.
+
+Faults: one transmitter holds its last value (flatline), a stretch of rows is absent (data
+gap: the rows are dropped, so a store written from the frame sees no samples there), and a
+burst of samples on one transmitter lies outside its instrument range.
+
+This is demonstration data. Figures computed from it say nothing about any real machine;
+isentrope's results are advisory performance information, not a protective function, and
+the turbine maker's limits, local codes and licensed engineering practice take precedence.
+
+Regenerate from the command line: ``python -m isentrope.daemon.synthetic --days 30 -o DIR``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy.signal import lfilter
+
+from isentrope.daemon.roles import ROLES, RoleMapping
+
+GENERATOR_VERSION = 1
+DEFAULT_SEED = 20250101
+
+# --- the scenario (invented) ---------------------------------------------------------------
+SCENARIO = {
+    "plant": "Greywater Bend Station",
+    "unit": "Unit 2",
+    "description": (
+        "fictional 530 MW subcritical drum unit, single reheat, HP + IP + two double-flow LP "
+        "turbines, 60 Hz, 3600 rpm, throttle and hot reheat 538 degC"
+    ),
+    "rating_mw": 530.0,
+    "online_mw": 30.0,
+    "grid_hz": 60.0,
+}
+
+RATING_MW = 530.0  # gross rating (invented)
+RATED_FLOW_KGS = 440.0  # main steam flow at rating, ~1584 t/h (invented)
+THROTTLE_P_RATED = 16.55  # MPa abs (invented; a usual value for 2400 psig units)
+THROTTLE_P_MIN = 5.0  # MPa abs, sliding-pressure floor (invented)
+SLIDING_BELOW = 0.80  # load fraction below which throttle pressure slides (invented)
+FIRST_STAGE_P_RATED = 12.6  # MPa abs at rated flow (invented)
+COLD_REHEAT_P_RATED = 3.90  # MPa abs at rated flow (invented)
+REHEATER_DROP = 0.08  # fraction of cold reheat pressure (common practice: 7-10 %)
+CROSSOVER_P_RATED = 0.95  # MPa abs at rated flow (invented)
+LP_EXTRACTION_P_RATED = 0.25  # MPa abs at rated flow, still superheated (invented)
+STEAM_T_SET = 538.0 + 273.15  # K, throttle and hot reheat (common practice: 538-566 degC)
+FLOW_AT_ZERO_LOAD = 0.04  # no-load steam flow, fraction of rated (invented)
+
+# Design efficiency at load fraction L: eta = at_rating - droop * (1 - L)**2 (invented;
+# at-rating values inside REFERENCES.md "typical section efficiencies").
+DESIGN_CURVES = {
+    "hp": {"at_rating": 0.862, "droop": 0.060},
+    "ip": {"at_rating": 0.912, "droop": 0.020},
+    "lp": {"at_rating": 0.880, "droop": 0.040},
+}
+HP_RATE_POINTS_PER_1000H = -0.4  # injected deposits (REFERENCES.md: 0.3-0.5 point a year is common)
+IP_STEP_POINTS = -1.0  # injected rub at the trip (REFERENCES.md: 0.5-2 points is common)
+# Output sensitivity per point of section efficiency (REFERENCES.md, from memory): the unit
+# holds output, so the steam flow rises by this fraction per point lost.
+FLOW_PER_POINT = {"hp": 0.0025, "ip": 0.0020}
+
+RAMP_PER_MIN = 0.015  # load ramp, fraction of rating per minute (common practice 1-3 %/min)
+MIN_DISPATCH = 0.35  # minimum dispatched load fraction (invented)
+SYNC_LOAD = 0.08  # load held just after synchronising (invented)
+
+# Standard deviations of the sensor noise (k = 1; common practice, no source).
+NOISE = {
+    "pressure_rel": 0.0007,  # 0.07 % of reading
+    "condenser_abs_mpa": 3e-5,  # 0.03 kPa
+    "condenser_rel": 0.002,
+    "barometric_abs_mpa": 1e-5,  # 0.01 kPa
+    "temperature_k": 0.4,
+    "output_rel": 0.0015,
+    "output_abs_mw": 0.05,
+    "flow_rel": 0.005,
+    "valve_abs": 0.1,
+}
+
+# Hourly load pattern (fraction of rating) on UTC clock hours, before seasonal and random
+# variation (invented).
+WEEKDAY_PATTERN = np.array(
+    [0.55, 0.55, 0.52, 0.52, 0.55, 0.60, 0.72, 0.88, 0.95, 0.95, 0.95, 0.95,
+     0.92, 0.92, 0.95, 0.95, 0.98, 1.00, 1.00, 1.00, 0.95, 0.85, 0.72, 0.62]
+)
+WEEKEND_PATTERN = np.array(
+    [0.48, 0.45, 0.42, 0.40, 0.40, 0.42, 0.48, 0.55, 0.62, 0.65, 0.68, 0.68,
+     0.65, 0.62, 0.62, 0.65, 0.70, 0.78, 0.80, 0.78, 0.72, 0.62, 0.55, 0.50]
+)
+
+# Offline behaviour per role: (ambient, time constant of the decay [min], minutes before a
+# start-up over which the reading returns to its first online value). Ambient None means
+# the barometric pressure.
+OFFLINE = {
+    "throttle_p": (None, 300.0, 120.0),
+    "first_stage_p": (None, 60.0, 120.0),
+    "cold_reheat_p": (None, 60.0, 120.0),
+    "hot_reheat_p": (None, 60.0, 120.0),
+    "crossover_p": (None, 30.0, 120.0),
+    "lp_extraction_p": (None, 30.0, 120.0),
+    "condenser_p": (None, 180.0, 120.0),
+    "throttle_t": (310.0, 1200.0, 120.0),
+    "cold_reheat_t": (310.0, 900.0, 120.0),
+    "hot_reheat_t": (310.0, 1200.0, 120.0),
+    "crossover_t": (310.0, 600.0, 120.0),
+    "lp_extraction_t": (310.0, 400.0, 120.0),
+    "gross_output": (0.0, 0.0, 0.0),
+    "main_steam_flow": (0.0, 0.0, 0.0),
+    "valve_position": (0.0, 0.0, 0.0),
+}
+
+# --- the plant's tag mapping (tag names invented) -------------------------------------------
+#: Role -> [roles.<role>] table of a TOML configuration: plant tag, plant unit, instrument
+#: range in the plant unit, and the instrument's standard uncertainty (pressure: percent of
+#: reading; temperature: K; power, flow: percent; valve position: percent points).
+TAG_MAP: dict[str, dict] = {
+    "throttle_p": {"tag": "GB2-MST-P01", "unit": "bar(g)", "range": [-1.0, 200.0], "uncertainty": 0.1},
+    "throttle_t": {"tag": "GB2-MST-T01", "unit": "degC", "range": [0.0, 650.0], "uncertainty": 0.5},
+    "cold_reheat_p": {"tag": "GB2-CRH-P01", "unit": "bar(g)", "range": [-1.0, 60.0], "uncertainty": 0.1},
+    "cold_reheat_t": {"tag": "GB2-CRH-T01", "unit": "degC", "range": [0.0, 500.0], "uncertainty": 0.5},
+    "hot_reheat_p": {"tag": "GB2-HRH-P01", "unit": "bar(g)", "range": [-1.0, 60.0], "uncertainty": 0.1},
+    "hot_reheat_t": {"tag": "GB2-HRH-T01", "unit": "degC", "range": [0.0, 650.0], "uncertainty": 0.5},
+    "crossover_p": {"tag": "GB2-XOV-P01", "unit": "kPa(a)", "range": [0.0, 1600.0], "uncertainty": 0.1},
+    "crossover_t": {"tag": "GB2-XOV-T01", "unit": "degC", "range": [0.0, 500.0], "uncertainty": 0.5},
+    "lp_extraction_p": {"tag": "GB2-LPX-P05", "unit": "kPa(a)", "range": [0.0, 400.0], "uncertainty": 0.1},
+    "lp_extraction_t": {"tag": "GB2-LPX-T05", "unit": "degC", "range": [0.0, 400.0], "uncertainty": 0.5},
+    "condenser_p": {"tag": "GB2-CND-P01", "unit": "inHgA", "range": [0.0, 31.0], "uncertainty": 0.5},
+    "gross_output": {"tag": "GB2-GEN-MW01", "unit": "MW", "range": [-10.0, 600.0], "uncertainty": 0.2},
+    "main_steam_flow": {"tag": "GB2-MST-F01", "unit": "t/h", "range": [0.0, 2000.0], "uncertainty": 1.0},
+    "first_stage_p": {"tag": "GB2-FST-P01", "unit": "bar(g)", "range": [-1.0, 160.0], "uncertainty": 0.1},
+    "valve_position": {"tag": "GB2-HPV-Z01", "unit": "%", "range": [-5.0, 105.0], "uncertainty": 0.5},
+    "barometric_p": {"tag": "GB2-AMB-P01", "unit": "kPa(a)", "range": [85.0, 110.0], "uncertainty": 0.05},
+}
+
+#: Plain description of each tag, for the demo's tag list.
+TAG_DESCRIPTIONS = {role: ROLES[role][2] for role in TAG_MAP}
+
+# Internal -> plant conversion for the units used in TAG_MAP. Factors: 1 bar = 0.1 MPa and
+# 1 inHg (32 degF) = 3.38638 kPa (NIST SP 811, appendix B); 1 t/h = 1/3.6 kg/s.
+INHG_KPA = 3.38638
+_PLANT_UNITS = ("bar(g)", "kPa(a)", "inHgA", "degC", "MW", "t/h", "%")
+
+
+def internal_to_plant(values, unit: str, barometric_mpa=None):
+    """Convert internal-unit values (MPa abs, K, MW, kg/s, %) to the plant ``unit``.
+
+    Parameters
+    ----------
+    values : array_like
+        Values in internal units [MPa abs, K, MW, kg/s or %].
+    unit : str
+        Plant unit, one of ``bar(g)``, ``kPa(a)``, ``inHgA``, ``degC``, ``MW``, ``t/h``, ``%``.
+    barometric_mpa : array_like, optional
+        Barometric pressure for gauge units [MPa]; default 0.101325 MPa.
+    """
+    v = np.asarray(values, dtype=float)
+    baro = 0.101325 if barometric_mpa is None else np.asarray(barometric_mpa, dtype=float)
+    if unit == "bar(g)":
+        return (v - baro) * 10.0
+    if unit == "kPa(a)":
+        return v * 1000.0
+    if unit == "inHgA":
+        return v * 1000.0 / INHG_KPA
+    if unit == "degC":
+        return v - 273.15
+    if unit == "t/h":
+        return v * 3.6
+    if unit in ("MW", "%"):
+        return v.copy()
+    raise ValueError(f"unit {unit!r} is not one of the synthetic plant's units {_PLANT_UNITS}")
+
+
+def plant_to_internal(values, unit: str, barometric_mpa=None):
+    """Inverse of ``internal_to_plant`` (same parameters, plant unit in, internal unit out)."""
+    v = np.asarray(values, dtype=float)
+    baro = 0.101325 if barometric_mpa is None else np.asarray(barometric_mpa, dtype=float)
+    if unit == "bar(g)":
+        return v / 10.0 + baro
+    if unit == "kPa(a)":
+        return v / 1000.0
+    if unit == "inHgA":
+        return v * INHG_KPA / 1000.0
+    if unit == "degC":
+        return v + 273.15
+    if unit == "t/h":
+        return v / 3.6
+    if unit in ("MW", "%"):
+        return v.copy()
+    raise ValueError(f"unit {unit!r} is not one of the synthetic plant's units {_PLANT_UNITS}")
+
+
+def to_plant_units(frame: pd.DataFrame, tag_map: Mapping[str, Mapping] = TAG_MAP) -> pd.DataFrame:
+    """The role frame from ``generate`` converted to the plant units of ``tag_map``.
+
+    Columns stay role names (what ``Store.write_raw`` takes with ``role_mappings``). Gauge
+    pressures are referred to the frame's own ``barometric_p`` column when it has one.
+
+    Parameters
+    ----------
+    frame : DataFrame
+        Role columns in internal units [MPa abs, K, MW, kg/s, %].
+    tag_map : mapping
+        Role -> table with at least ``unit``; roles missing from it are left out.
+    """
+    baro = frame["barometric_p"].to_numpy() if "barometric_p" in frame else None
+    out = {}
+    for role in frame.columns:
+        if role not in tag_map:
+            continue
+        out[role] = internal_to_plant(frame[role].to_numpy(), tag_map[role]["unit"], baro)
+    return pd.DataFrame(out, index=frame.index)
+
+
+def role_mappings(tag_map: Mapping[str, Mapping] = TAG_MAP, measurement: str = "plant") -> list[RoleMapping]:
+    """``RoleMapping`` objects for ``tag_map`` (for ``Store.write_raw`` / ``Store.read``)."""
+    return [
+        RoleMapping(
+            role=role,
+            tag=entry["tag"],
+            unit=entry["unit"],
+            measurement=measurement,
+            range=tuple(entry["range"]) if entry.get("range") is not None else None,
+        )
+        for role, entry in tag_map.items()
+    ]
+
+
+def tag_map_toml(tag_map: Mapping[str, Mapping] = TAG_MAP) -> str:
+    """``tag_map`` as ``[roles.<role>]`` tables of TOML text (values are plain strings/numbers)."""
+    lines = []
+    for role, entry in tag_map.items():
+        lines.append(f"[roles.{role}]")
+        lines.append(f"# {TAG_DESCRIPTIONS.get(role, ROLES.get(role, ('', '', ''))[2])}")
+        for key, value in entry.items():
+            if isinstance(value, str):
+                lines.append(f"{key} = {json.dumps(value)}")
+            elif isinstance(value, (list, tuple)):
+                lines.append(f"{key} = [{', '.join(repr(float(x)) for x in value)}]")
+            else:
+                lines.append(f"{key} = {value!r}")
+        lines.append("")
+    return "\n".join(lines)
+
+
+# --- helpers --------------------------------------------------------------------------------
+def design_efficiency(section: str, load_fraction):
+    """Design (clean) efficiency of ``section`` ("hp", "ip", "lp") at ``load_fraction`` [-]."""
+    if section not in DESIGN_CURVES:
+        raise ValueError(f"section {section!r} is not one of {sorted(DESIGN_CURVES)}")
+    c = DESIGN_CURVES[section]
+    L = np.clip(np.asarray(load_fraction, dtype=float), 0.0, 1.05)
+    return c["at_rating"] - c["droop"] * (1.0 - L) ** 2
+
+
+def _ar1(rng: np.random.Generator, n: int, sigma: float, tau_steps: float) -> np.ndarray:
+    """First-order autoregressive noise with stationary standard deviation ``sigma``."""
+    a = math.exp(-1.0 / max(tau_steps, 1e-9))
+    w = rng.standard_normal(n)
+    w[1:] *= sigma * math.sqrt(1.0 - a * a)
+    w[0] *= sigma
+    return lfilter([1.0], [1.0, -a], w)
+
+
+def _steam():
+    from isentrope.calc import steam
+
+    return steam
+
+
+def _ts(value, start: pd.Timestamp) -> pd.Timestamp:
+    t = pd.Timestamp(value)
+    return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
+
+
+def _dur(**kwargs) -> pd.Timedelta:
+    """A duration rounded to whole seconds (the index has no finer resolution)."""
+    return pd.Timedelta(**kwargs).round("s")
+
+
+def _iso(t: pd.Timestamp) -> str:
+    return pd.Timestamp(t).tz_convert("UTC").isoformat()
+
+
+def _auto_events(start: pd.Timestamp, days: float) -> dict:
+    """Default event placement: fixed fractions of the span, at set clock times."""
+    def at(frac, hours):
+        return start + pd.Timedelta(days=math.floor(frac * days)) + pd.Timedelta(hours=hours)
+
+    shutdowns = []
+    if days >= 10:
+        shutdowns.append((at(0.10, 22.0), 40.0))  # weekend-style reserve shutdown
+    if days >= 90:
+        shutdowns.append((at(0.27, 21.0), 9 * 24.0 + 7.0))  # planned outage (no turbine work)
+    if days >= 10:
+        shutdowns.append((at(0.88, 23.0), 36.0))
+    return {
+        "shutdowns": shutdowns,
+        "trip_at": at(0.55, 14.6),
+        "flatline_at": at(0.30, 9.25),
+        "gap_at": at(0.70, 12.0),
+        "spike_at": at(0.80, 10.5),
+    }
+
+
+# --- the generator --------------------------------------------------------------------------
+def generate(
+    start="2025-01-01",
+    days: float = 365,
+    freq: str = "1min",
+    seed: int = DEFAULT_SEED,
+    **options,
+) -> tuple[pd.DataFrame, dict]:
+    """A synthetic history of Greywater Bend Unit 2 and the truth injected into it.
+
+    Parameters
+    ----------
+    start : str or Timestamp
+        First sample time (naive means UTC).
+    days : float
+        Length of the history [d].
+    freq : str
+        Sample interval, a pandas frequency between 1 s and 1 h (e.g. "1min").
+    seed : int
+        Seed of the numpy Generator; the same arguments give the same output.
+    **options
+        See ``generate_with_state``.
+
+    Returns
+    -------
+    frame : DataFrame
+        UTC index ``time``, one column per role in internal units (MPa abs, K, MW, kg/s, %).
+        Rows of the data gap are absent.
+    truth : dict
+        JSON-serialisable record of what was injected (see fixtures/README.md).
+    """
+    frame, truth, _ = generate_with_state(start, days, freq, seed, **options)
+    return frame, truth
+
+
+def generate_with_state(
+    start="2025-01-01",
+    days: float = 365,
+    freq: str = "1min",
+    seed: int = DEFAULT_SEED,
+    *,
+    noise: float = 1.0,
+    faults: bool = True,
+    hp_rate: float = HP_RATE_POINTS_PER_1000H,
+    ip_step: float = IP_STEP_POINTS,
+    initial_hours: float = 0.0,
+    shutdowns="auto",
+    trip_at="auto",
+    trip_hours: float = 7.0,
+    flatline_at="auto",
+    flatline_role: str = "cold_reheat_t",
+    flatline_days: float = 2.0,
+    gap_at="auto",
+    gap_hours: float = 12.0,
+    spike_at="auto",
+    spike_role: str = "throttle_p",
+    spike_minutes: int = 15,
+) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
+    """Like ``generate``, and also the noise-free state behind the readings.
+
+    Parameters
+    ----------
+    noise : float
+        Scale of the sensor noise (1 = the levels in ``NOISE``; 0 = none). Process
+        fluctuations (temperature and pressure wander, load-control wander) stay.
+    faults : bool
+        Inject the flatline, the data gap and the spike burst.
+    hp_rate : float
+        HP efficiency change per 1000 operating hours [percentage points].
+    ip_step : float
+        IP efficiency step from the restart after the trip [percentage points].
+    initial_hours : float
+        Operating hours already run at ``start`` with no HP loss counted [h].
+    shutdowns : "auto", None or sequence of (start, hours)
+        Planned or reserve shutdowns: the load ramps down, the unit is offline for
+        ``hours`` [h] and starts up again.
+    trip_at : "auto", None or time
+        A trip from load (offline at once) for ``trip_hours`` [h]; None: no trip, no IP step.
+    flatline_at, gap_at, spike_at : "auto", None or time
+        Start of each fault; None leaves it out.
+    flatline_role, spike_role : str
+        Role whose transmitter flatlines / spikes.
+    flatline_days, gap_hours, spike_minutes : float
+        Durations [d], [h], [min].
+
+    Returns
+    -------
+    frame, truth
+        As ``generate``.
+    state : DataFrame
+        Full index (gap rows included): ``online``, ``load_fraction``, ``operating_hours``
+        [h], ``eta_hp``, ``eta_ip``, ``eta_lp`` (true fractions), ``in_gap`` and
+        ``true_<role>`` for every role (noise-free, fault-free, internal units).
+    """
+    start = _ts(start, None)
+    step = pd.Timedelta(freq)
+    if not pd.Timedelta(seconds=1) <= step <= pd.Timedelta(hours=1):
+        raise ValueError(f"freq {freq!r} is outside the valid range 1s to 1h")
+    if not days > 0:
+        raise ValueError(f"days must be positive, found {days!r}")
+    for role in (flatline_role, spike_role):
+        if role not in TAG_MAP:
+            raise ValueError(f"role {role!r} is not one of {sorted(TAG_MAP)}")
+    step_min = step.total_seconds() / 60.0
+    n = int(round(days * 1440.0 / step_min))
+    index = pd.date_range(start, periods=n, freq=step, name="time")
+    end = start + n * step
+    tmin = np.arange(n) * step_min  # minutes since start
+    rng = np.random.default_rng(seed)
+
+    auto = _auto_events(start, days)
+    def is_auto(value) -> bool:
+        return isinstance(value, str) and value == "auto"
+
+    shutdown_list = auto["shutdowns"] if is_auto(shutdowns) else list(shutdowns or [])
+    trip = auto["trip_at"] if is_auto(trip_at) else trip_at
+    flat = auto["flatline_at"] if is_auto(flatline_at) else flatline_at
+    gap = auto["gap_at"] if is_auto(gap_at) else gap_at
+    spike = auto["spike_at"] if is_auto(spike_at) else spike_at
+    if days < 10:  # short spans: shorten the automatically placed faults so they fit
+        if is_auto(flatline_at):
+            flatline_days = min(flatline_days, 0.2 * days)
+        if is_auto(gap_at):
+            gap_hours = min(gap_hours, 2.4 * days)
+    if not faults:
+        flat = gap = spike = None
+
+    def minute(t) -> float:
+        return (_ts(t, start) - start).total_seconds() / 60.0
+
+    # Outages: (off, on, kind), in minutes since start.
+    outages = [(minute(t), minute(t) + 60.0 * h, "shutdown") for t, h in shutdown_list]
+    if trip is not None:
+        outages.append((minute(trip), minute(trip) + 60.0 * trip_hours, "trip"))
+    outages.sort()
+    for (a0, a1, ka), (b0, b1, kb) in zip(outages, outages[1:]):
+        if b0 < a1 + 240.0:
+            raise ValueError(f"{kb} at minute {b0:.0f} starts before the {ka} ending at minute {a1:.0f} "
+                             "is over (allow 4 h between them)")
+    for off, on, kind in outages:
+        if not 0.0 < off < tmin[-1]:
+            raise ValueError(f"{kind} at {_iso(start + pd.Timedelta(minutes=off))} is outside the "
+                             f"history {_iso(start)} to {_iso(end)}")
+
+    # --- load --------------------------------------------------------------------------------
+    n_hours = int(math.ceil(n * step_min / 60.0)) + 1
+    hours = pd.date_range(start.floor("h"), periods=n_hours, freq="h")
+    doy = hours.day_of_year.to_numpy()
+    weekend = hours.day_of_week.to_numpy() >= 5
+    hod = hours.hour.to_numpy()
+    base = np.where(weekend, WEEKEND_PATTERN[hod], WEEKDAY_PATTERN[hod])
+    summer = np.cos(2 * np.pi * (doy - 200) / 365.25)  # +1 in mid-July
+    day_index = (hours - start.floor("h")).days.to_numpy()
+    day_offset = rng.normal(0.0, 0.03, day_index.max() + 1)[day_index]
+    target = base + 0.04 * summer * (hod >= 8) + day_offset + rng.normal(0.0, 0.015, n_hours)
+    target = np.clip(np.round(target / 0.025) * 0.025, MIN_DISPATCH, 1.0)
+    setpoint = target.copy()
+    for k in range(1, n_hours):  # hold small changes: long plateaus
+        setpoint[k] = setpoint[k - 1] if abs(target[k] - setpoint[k - 1]) < 0.03 else target[k]
+    hour_min = (hours - start).total_seconds().to_numpy() / 60.0
+    ramp = np.abs(np.diff(setpoint)) / RAMP_PER_MIN
+    knot_t = np.empty(2 * n_hours - 1)
+    knot_v = np.empty(2 * n_hours - 1)
+    knot_t[0], knot_v[0] = hour_min[0], setpoint[0]
+    knot_t[1::2], knot_v[1::2] = hour_min[1:], setpoint[:-1]
+    knot_t[2::2], knot_v[2::2] = hour_min[1:] + ramp, setpoint[1:]
+    load = np.interp(tmin, knot_t, knot_v)
+
+    online = np.ones(n, dtype=bool)
+    warm_min = np.full(n, np.inf)  # minutes since the last synchronisation
+    for off, on, kind in outages:
+        if kind == "shutdown":
+            near = (tmin < off) & (tmin > off - 300.0)
+            load[near] = np.minimum(load[near], 0.10 + (off - tmin[near]) * 0.008)
+        online[(tmin >= off) & (tmin < on)] = False
+        after = tmin >= on
+        tau = tmin[after] - on
+        curve = np.where(tau < 30.0, SYNC_LOAD,
+                         np.where(tau < 90.0, SYNC_LOAD + (tau - 30.0) / 60.0 * (MIN_DISPATCH - SYNC_LOAD),
+                                  np.where(tau < 150.0, MIN_DISPATCH, MIN_DISPATCH + (tau - 150.0) * 0.01)))
+        load[after] = np.minimum(load[after], curve)
+        warm_min[after] = np.minimum(warm_min[after], tau)
+    load = np.clip(load + _ar1(rng, n, 0.002, 4.0 / step_min), 0.05, 1.02)
+    load[~online] = 0.0
+
+    # --- operating hours and true efficiencies ------------------------------------------------
+    op_hours = initial_hours + np.cumsum(online) * step_min / 60.0
+    counted = op_hours - initial_hours
+    eta_hp = design_efficiency("hp", load) + hp_rate / 100.0 * counted / 1000.0
+    eta_ip = design_efficiency("ip", load)
+    eta_lp = design_efficiency("lp", load)
+    ip_step_time = None
+    if trip is not None:
+        trip_on = next(on for off, on, kind in outages if kind == "trip")
+        after_rub = tmin >= trip_on
+        eta_ip = eta_ip + np.where(after_rub, ip_step / 100.0, 0.0)
+        if after_rub.any():
+            ip_step_time = index[np.argmax(after_rub & online)]
+    hp_loss_pts = -hp_rate * counted / 1000.0
+    ip_loss_pts = np.where(after_rub, -ip_step, 0.0) if trip is not None else 0.0
+    flow_frac = (FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * load) * (
+        1.0 + FLOW_PER_POINT["hp"] * hp_loss_pts + FLOW_PER_POINT["ip"] * ip_loss_pts)
+
+    # --- pressures (true) --------------------------------------------------------------------
+    baro = 0.1006 + _ar1(rng, n, 0.0007, 2880.0 / step_min)
+    flow_at_slide = FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * SLIDING_BELOW
+    p_slide = THROTTLE_P_RATED * flow_frac / flow_at_slide
+    p_thr = np.clip(p_slide, THROTTLE_P_MIN, THROTTLE_P_RATED)
+    p_thr = p_thr * (1.0 + _ar1(rng, n, 0.001, 10.0 / step_min))
+    valve = np.where(load >= SLIDING_BELOW, 62.0 + (load - SLIDING_BELOW) / (1.0 - SLIDING_BELOW) * 33.0,
+                     62.0 * np.minimum(1.0, p_slide / THROTTLE_P_MIN))
+    p_fs = FIRST_STAGE_P_RATED * flow_frac
+    p_crh = COLD_REHEAT_P_RATED * flow_frac
+    p_hrh = (1.0 - REHEATER_DROP) * p_crh
+    p_xo = CROSSOVER_P_RATED * flow_frac
+    p_ext = LP_EXTRACTION_P_RATED * flow_frac
+    hour_of_day = index.hour.to_numpy() + index.minute.to_numpy() / 60.0
+    doy_min = index.day_of_year.to_numpy() + hour_of_day / 24.0
+    p_cond_kpa = (6.0 + 2.5 * np.cos(2 * np.pi * (doy_min - 205.0) / 365.25)
+                  + 0.3 * np.cos(2 * np.pi * (hour_of_day - 15.0) / 24.0))
+    p_cond_kpa = p_cond_kpa * (0.55 + 0.45 * load) + _ar1(rng, n, 0.1, 360.0 / step_min)
+    p_cond = np.maximum(p_cond_kpa, 2.5) / 1000.0
+
+    # --- temperatures at the inlets (true) ----------------------------------------------------
+    t_thr_set = STEAM_T_SET - np.clip(0.40 - load, 0.0, None) / 0.32 * 40.0
+    t_hrh_set = STEAM_T_SET - np.clip(0.60 - load, 0.0, None) / 0.52 * 50.0
+    t_thr = np.minimum(t_thr_set, 440.0 + 273.15 + 100.0 * warm_min / 240.0)
+    t_hrh = np.minimum(t_hrh_set, 420.0 + 273.15 + 120.0 * warm_min / 240.0)
+    t_thr = t_thr + _ar1(rng, n, 1.0, 20.0 / step_min)
+    t_hrh = t_hrh + _ar1(rng, n, 1.2, 20.0 / step_min)
+
+    # --- the expansion (IF97) on the online rows --------------------------------------------
+    steam = _steam()
+    on = online
+    h1 = steam.h_pt(p_thr[on], t_thr[on])
+    s1 = steam.s_pt(p_thr[on], t_thr[on])
+    h2 = h1 - eta_hp[on] * (h1 - steam.h_ps(p_crh[on], s1))
+    t_crh_on = steam.t_ph(p_crh[on], h2)
+    h3 = steam.h_pt(p_hrh[on], t_hrh[on])
+    s3 = steam.s_pt(p_hrh[on], t_hrh[on])
+    h4 = h3 - eta_ip[on] * (h3 - steam.h_ps(p_xo[on], s3))
+    t_xo_on = steam.t_ph(p_xo[on], h4)
+    s4 = steam.s_ph(p_xo[on], h4)
+    h5 = h4 - eta_lp[on] * (h4 - steam.h_ps(p_ext[on], s4))
+    t_ext_on = steam.t_ph(p_ext[on], h5)
+    for name, arr in (("cold reheat", t_crh_on), ("crossover", t_xo_on), ("LP extraction", t_ext_on)):
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            raise RuntimeError(f"steam properties failed for {bad.sum()} {name} points; "
+                               "the scenario left the range of isentrope.calc.steam")
+    t_crh = np.full(n, np.nan)
+    t_xo = np.full(n, np.nan)
+    t_ext = np.full(n, np.nan)
+    t_crh[on], t_xo[on], t_ext[on] = t_crh_on, t_xo_on, t_ext_on
+
+    true = {
+        "throttle_p": p_thr, "throttle_t": t_thr,
+        "cold_reheat_p": p_crh, "cold_reheat_t": t_crh,
+        "hot_reheat_p": p_hrh, "hot_reheat_t": t_hrh,
+        "crossover_p": p_xo, "crossover_t": t_xo,
+        "lp_extraction_p": p_ext, "lp_extraction_t": t_ext,
+        "condenser_p": p_cond,
+        "gross_output": RATING_MW * load,
+        "main_steam_flow": RATED_FLOW_KGS * flow_frac,
+        "first_stage_p": p_fs,
+        "valve_position": valve,
+        "barometric_p": baro,
+    }
+    _fill_offline(true, online, tmin, baro)
+
+    # --- measured = true + sensor noise ------------------------------------------------------
+    measured = {}
+    for role in TAG_MAP:  # fixed order: the draws stay reproducible
+        x = true[role]
+        quantity = ROLES[role][0]
+        z = rng.standard_normal(n) * noise
+        if role == "condenser_p":
+            sd = NOISE["condenser_abs_mpa"] + NOISE["condenser_rel"] * x
+        elif role == "barometric_p":
+            sd = NOISE["barometric_abs_mpa"]
+        elif quantity == "pressure":
+            sd = NOISE["pressure_rel"] * x
+        elif quantity == "temperature":
+            sd = NOISE["temperature_k"]
+        elif quantity == "power":
+            sd = NOISE["output_abs_mw"] + NOISE["output_rel"] * np.abs(x)
+        elif quantity == "flow":
+            sd = NOISE["flow_rel"] * x
+        else:
+            sd = NOISE["valve_abs"]
+        measured[role] = x + sd * z
+
+    # --- faults (in plant units, so a frozen gauge transmitter stays frozen) ---------------
+    truth_faults = {}
+    if flat is not None:
+        f0, f1 = _ts(flat, start), _ts(flat, start) + _dur(days=flatline_days)
+        i0, i1 = index.searchsorted(f0), index.searchsorted(f1)
+        if not 0 < i0 < i1 <= n:
+            raise ValueError(f"flatline {_iso(f0)} to {_iso(f1)} is outside the history")
+        unit = TAG_MAP[flatline_role]["unit"]
+        plant = internal_to_plant(measured[flatline_role], unit, measured["barometric_p"])
+        held = float(plant[i0 - 1])
+        measured[flatline_role][i0:i1] = plant_to_internal(held, unit, measured["barometric_p"][i0:i1])
+        truth_faults["flatline"] = {"role": flatline_role, "tag": TAG_MAP[flatline_role]["tag"],
+                                    "start": _iso(index[i0]), "end": _iso(f1), "held_value": held,
+                                    "held_unit": unit}
+    if spike is not None:
+        s0 = _ts(spike, start)
+        i0 = index.searchsorted(s0)
+        i1 = min(n, index.searchsorted(s0 + _dur(minutes=spike_minutes)))
+        if not 0 <= i0 < i1:
+            raise ValueError(f"spike burst at {_iso(s0)} is outside the history")
+        unit = TAG_MAP[spike_role]["unit"]
+        lo, hi = TAG_MAP[spike_role]["range"]
+        span = hi - lo
+        k = np.arange(i1 - i0)
+        pattern = np.where(k % 3 == 0, hi + 0.2 * span, np.where(k % 3 == 1, lo - 0.05 * span, np.nan))
+        rows = i0 + k[np.isfinite(pattern)]
+        measured[spike_role][rows] = plant_to_internal(pattern[np.isfinite(pattern)], unit,
+                                                       measured["barometric_p"][rows])
+        truth_faults["spike"] = {"role": spike_role, "tag": TAG_MAP[spike_role]["tag"],
+                                 "start": _iso(index[i0]), "end": _iso(index[i1 - 1] + step),
+                                 "samples": int(len(rows)), "high_value": hi + 0.2 * span,
+                                 "low_value": lo - 0.05 * span, "unit": unit, "range": [lo, hi]}
+    in_gap = np.zeros(n, dtype=bool)
+    if gap is not None:
+        g0, g1 = _ts(gap, start), _ts(gap, start) + _dur(hours=gap_hours)
+        i0, i1 = index.searchsorted(g0), index.searchsorted(g1)
+        if not 0 < i0 < i1 <= n:
+            raise ValueError(f"data gap {_iso(g0)} to {_iso(g1)} is outside the history")
+        in_gap[i0:i1] = True
+        truth_faults["gap"] = {"start": _iso(index[i0]), "end": _iso(g1), "rows": "absent",
+                               "missing_samples": int(i1 - i0)}
+
+    frame = pd.DataFrame({role: measured[role] for role in ROLES}, index=index)
+    if in_gap.any():
+        frame = frame[~in_gap]
+
+    state = pd.DataFrame(
+        {"online": online, "load_fraction": load, "operating_hours": op_hours,
+         "eta_hp": eta_hp, "eta_ip": eta_ip, "eta_lp": eta_lp, "in_gap": in_gap,
+         **{f"true_{role}": true[role] for role in ROLES}},
+        index=index,
+    )
+    truth = _truth(start, days, freq, seed, noise, index, step, online, state, outages, trip,
+                   ip_step_time, hp_rate, ip_step, initial_hours, truth_faults)
+    return frame, truth, state
+
+
+def _fill_offline(true: dict, online: np.ndarray, tmin: np.ndarray, baro: np.ndarray) -> None:
+    """Offline readings: decay from the last online value, return before the next start-up."""
+    if online.all():
+        return
+    n = len(online)
+    idx = np.arange(n)
+    last_on = np.maximum.accumulate(np.where(online, idx, -1))
+    next_on = np.minimum.accumulate(np.where(online, idx, n)[::-1])[::-1]
+    off = ~online
+    lo, nx = last_on[off], next_on[off]
+    t = tmin[off]
+    for role, (ambient, tau, blend_min) in OFFLINE.items():
+        x = true[role]
+        amb = baro[off] if ambient is None else np.full(off.sum(), ambient)
+        v_last = np.where(lo >= 0, x[np.maximum(lo, 0)], amb)
+        dt = t - tmin[np.maximum(lo, 0)]
+        decayed = amb + (v_last - amb) * (np.exp(-dt / tau) if tau > 0 else 0.0)
+        if blend_min > 0:
+            has_next = nx < n
+            v_next = np.where(has_next, x[np.minimum(nx, n - 1)], decayed)
+            to_go = np.where(has_next, tmin[np.minimum(nx, n - 1)] - t, np.inf)
+            w = np.clip(1.0 - to_go / blend_min, 0.0, 1.0)
+            decayed = (1.0 - w) * decayed + w * v_next
+        x[off] = decayed
+
+
+def _truth(start, days, freq, seed, noise, index, step, online, state, outages, trip, ip_step_time,
+           hp_rate, ip_step, initial_hours, faults) -> dict:
+    step_h = step.total_seconds() / 3600.0
+    events = []
+    for off, on, kind in outages:
+        t_off = start + pd.Timedelta(minutes=off)
+        t_on = start + pd.Timedelta(minutes=on)
+        if t_on > index[-1]:
+            t_on = None
+        events.append({"kind": kind, "offline": _iso(t_off), "online": _iso(t_on) if t_on is not None else None,
+                       "hours": round((on - off) / 60.0, 3)})
+    on_state = state[state["online"]]
+    daily = on_state[["eta_hp", "eta_ip", "eta_lp", "load_fraction"]].resample("1D").mean()
+    hours_end = state["operating_hours"].resample("1D").last()
+    at_rating_hp = (DESIGN_CURVES["hp"]["at_rating"]
+                    + hp_rate / 100.0 * (hours_end - initial_hours) / 1000.0)
+
+    def series(s):
+        return [None if not np.isfinite(v) else round(float(v), 6) for v in s.to_numpy()]
+
+    truth = {
+        "scenario": dict(SCENARIO),
+        "generator": {"module": "isentrope.daemon.synthetic", "version": GENERATOR_VERSION,
+                      "start": _iso(start), "end": _iso(index[-1] + step), "days": days, "freq": freq,
+                      "seed": seed, "noise_scale": noise, "samples": int(len(index))},
+        "units": "internal: MPa absolute, K, MW, kg/s, percent; efficiencies as fractions; "
+                 "efficiency changes in percentage points",
+        "design_curves": {k: dict(v, form="at_rating - droop * (1 - load_fraction)**2")
+                          for k, v in DESIGN_CURVES.items()},
+        "hp": {"rate_points_per_1000h": hp_rate, "initial_hours": initial_hours,
+               "form": "design_hp(load) + rate/100 * (operating_hours - initial_hours)/1000",
+               "at_rating_start": round(float(at_rating_hp.iloc[0]), 6),
+               "at_rating_end": round(float(at_rating_hp.iloc[-1]), 6)},
+        "ip": {"step_points": ip_step if trip is not None else 0.0,
+               "step_time": _iso(ip_step_time) if ip_step_time is not None else None,
+               "cause": "rub at the trip; applies from the restart after the trip"},
+        "lp": {"form": "design_lp(load), no change over the history"},
+        "trip": ({"time": _iso(_ts(trip, start)),
+                  "restart": next(e["online"] for e in events if e["kind"] == "trip")}
+                 if trip is not None else None),
+        "outages": events,
+        "startups": [e["online"] for e in events if e["online"] is not None],
+        "shutdowns": [e["offline"] for e in events],
+        "flatline": faults.get("flatline"),
+        "gap": faults.get("gap"),
+        "spike": faults.get("spike"),
+        "operating_hours": round(float(online.sum() * step_h), 3),
+        "online_fraction": round(float(online.mean()), 6),
+        "noise_sd": dict(NOISE),
+        "efficiency_daily": {
+            "date": [d.strftime("%Y-%m-%d") for d in daily.index],
+            "eta_hp_mean": series(daily["eta_hp"]),
+            "eta_ip_mean": series(daily["eta_ip"]),
+            "eta_lp_mean": series(daily["eta_lp"]),
+            "load_fraction_mean": series(daily["load_fraction"]),
+            "eta_hp_at_rating_end_of_day": series(at_rating_hp.reindex(daily.index)),
+        },
+        "caution": "invented demonstration data for a fictional unit; advisory performance "
+                   "information only, not a protective function",
+    }
+    return truth
+
+
+def write_truth(truth: Mapping, path) -> Path:
+    """Write ``truth`` as indented JSON to ``path``; returns the path."""
+    path = Path(path)
+    path.write_text(json.dumps(truth, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+    return path
+
+
+def read_truth(path) -> dict:
+    """Read a truth file written by ``write_truth``."""
+    return json.loads(Path(path).read_text(encoding="utf-8"))
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Write a synthetic history (CSV in plant units or internal units) and its truth file."""
+    parser = argparse.ArgumentParser(prog="python -m isentrope.daemon.synthetic",
+                                     description="Write the synthetic Greywater Bend Unit 2 history.")
+    parser.add_argument("-o", "--out", required=True, help="output folder (created)")
+    parser.add_argument("--start", default="2025-01-01")
+    parser.add_argument("--days", type=float, default=30.0)
+    parser.add_argument("--freq", default="1min")
+    parser.add_argument("--seed", type=int, default=DEFAULT_SEED)
+    parser.add_argument("--internal", action="store_true",
+                        help="write internal units (MPa abs, K, ...) instead of the plant units")
+    args = parser.parse_args(argv)
+    out = Path(args.out)
+    out.mkdir(parents=True, exist_ok=True)
+    frame, truth = generate(args.start, args.days, args.freq, args.seed)
+    data = frame if args.internal else to_plant_units(frame)
+    if not args.internal:
+        data = data.rename(columns={role: TAG_MAP[role]["tag"] for role in data.columns})
+    data.to_csv(out / "history.csv", float_format="%.6g", date_format="%Y-%m-%dT%H:%M:%SZ")
+    write_truth(truth, out / "truth.json")
+    (out / "tags.toml").write_text(tag_map_toml(), encoding="utf-8")
+    print(f"wrote {len(frame)} rows to {out / 'history.csv'}, truth to {out / 'truth.json'}")
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
