@@ -302,14 +302,36 @@ class Worker:
         self.sleep = sleep
         self.rng = rng or random.Random()
         self.stop_event = threading.Event()
+        self.config = None  # set by from_config; gives the baseline period
+        self._models: dict | None = None
         self.pending: Batch | None = None
         self.last_report: CycleReport | None = None
         self._lock = threading.Lock()
+
+    @classmethod
+    def from_config(cls, config, store: Store, **overrides) -> "Worker":
+        """A worker for ``config`` (``isentrope.daemon.config.Config``); keyword arguments
+        override the ``[schedule]`` values and the other constructor arguments."""
+        from isentrope.daemon.pipeline import Pipeline
+
+        sch = config.schedule
+        kwargs = dict(settle=sch.settle, lookback=sch.lookback, chunk=sch.chunk, retries=sch.retries,
+                      backoff=sch.backoff, backoff_max=sch.backoff_max,
+                      barometric_kpa=config.screening.barometric_kpa)
+        kwargs.update(overrides)
+        pipeline = kwargs.pop("pipeline", None) or Pipeline(config)
+        worker = cls(store, pipeline, config.mappings, config.unit.name, **kwargs)
+        worker.config = config
+        return worker
 
     # --- names of the saved state ---------------------------------------------------------
     @property
     def alarm_state_name(self) -> str:
         return f"alarms/{self.checkpoint_name}"
+
+    @property
+    def baseline_state_name(self) -> str:
+        return f"baseline/{self.unit}"
 
     @property
     def tags(self) -> dict[str, str]:
@@ -335,9 +357,7 @@ class Worker:
         now = self.clock() if now is None else now
         checkpoint = self._retry(lambda: self.store.get_checkpoint(self.checkpoint_name),
                                  f"reading checkpoint {self.checkpoint_name!r}")
-        _, after = self.pipeline.margins
-        windows = plan_windows(checkpoint, now, self.settle + after, self.lookback, self.chunk,
-                               self.start_default)
+        windows = plan_windows(checkpoint, now, self.settle, self.lookback, self.chunk, self.start_default)
         if until is not None:
             until = _utc(until)
             windows = [(s, min(e, until)) for s, e in windows if s < until]
@@ -365,16 +385,23 @@ class Worker:
                 report.checkpoint = self.pending.end
                 self.pending = None
             windows = self.plan(now, until)
+            period = self._baseline_period()
+            if period is not None:  # the chunk after the reference period sees the fitted model
+                windows = [w for s, e in windows
+                           for w in (((s, period[1]), (period[1], e)) if s < period[1] < e else ((s, e),))]
             report.windows = windows
+            data_end = now - self.settle  # nothing later is in the store yet
+            checkpoint = self._retry(lambda: self.store.get_checkpoint(self.checkpoint_name),
+                                     f"reading checkpoint {self.checkpoint_name!r}") if windows else None
             for start, end in windows:
                 if self.stopping:
                     report.stopped = True
                     break
-                rows_read, rows_flagged = self._process(start, end)
+                rows_read, rows_flagged, checkpoint = self._process(start, end, data_end, checkpoint)
                 report.rows_read += rows_read
                 report.rows_flagged += rows_flagged
                 report.chunks_done += 1
-                report.checkpoint = end
+                report.checkpoint = checkpoint
                 if progress is not None:
                     progress(start, end)
         except TemporaryStoreError as exc:
@@ -395,21 +422,78 @@ class Worker:
         self._heartbeat(report)
         return report
 
-    def _process(self, start: pd.Timestamp, end: pd.Timestamp) -> tuple[int, int]:
+    def _process(self, start: pd.Timestamp, end: pd.Timestamp, data_end: pd.Timestamp,
+                 checkpoint: pd.Timestamp | None) -> tuple[int, int, pd.Timestamp]:
+        """One chunk: read with margins, compute, write, save state, advance the checkpoint.
+
+        Results are final up to ``final_end = min(end, data_end - after margin)``; the
+        checkpoint moves there (never backwards). Per-sample rows after it are written as
+        provisional and replaced by a later cycle, which starts at most a look-back before.
+        """
         before, after = self.pipeline.margins
         read_start, read_end = start - before, end + after
+        final_end = min(end, data_end - after)
         frame = self._retry(
             lambda: self.store.read(self.mappings, read_start, read_end, barometric_kpa=self.barometric_kpa),
             f"reading unit {self.unit} from {read_start.isoformat()} to {read_end.isoformat()}")
         state = self._retry(lambda: self.store.load_state(self.alarm_state_name),
                             f"loading state {self.alarm_state_name!r}")
-        results = self.pipeline.process(frame, start, end, alarm_state=state or None)
-        batch = Batch(start=start, end=end, writes=results.writes(self.tags),
+        baselines = self._baselines(start)
+        results = self.pipeline.process(frame, start, end, final_end=final_end,
+                                        alarm_state=state or None, baselines=baselines)
+        new_checkpoint = final_end if checkpoint is None else max(checkpoint, final_end)
+        batch = Batch(start=start, end=new_checkpoint, writes=results.writes(self.tags),
                       alarm_state=results.alarm_state)
         self.pending = batch
         self._flush(batch)
         self.pending = None
-        return results.counts["rows_in_window"], results.counts["rows_flagged"]
+        return results.counts["rows_in_window"], results.counts["rows_flagged"], new_checkpoint
+
+    def _baseline_period(self):
+        cfg = getattr(self.config, "baseline", None)
+        if cfg is None or cfg.start is None or cfg.end is None:
+            return None
+        return _utc(cfg.start), _utc(cfg.end)
+
+    def _baselines(self, chunk_start: pd.Timestamp) -> dict:
+        """Baseline models for a chunk starting at ``chunk_start`` (section -> model).
+
+        A model saved in the store (state ``baseline/<unit>``) is used as it is. Otherwise,
+        once the reference period ``[baseline] start..end`` has been processed (the chunk
+        starts at or after its end), the models are fitted on the steady windows written for
+        that period and saved. Windows of the reference period itself get no deviation (see
+        ``Pipeline``), so the results do not depend on the cycle in which the fit happened.
+        """
+        if self._models:
+            return self._models
+        saved = self._retry(lambda: self.store.load_state(self.baseline_state_name),
+                            f"loading state {self.baseline_state_name!r}")
+        if saved and saved.get("models"):
+            from isentrope.calc.baseline import BaselineModel
+
+            self._models = {sec: BaselineModel.from_json(text) for sec, text in sorted(saved["models"].items())}
+            return self._models
+        period = self._baseline_period()
+        if period is None or chunk_start < period[1]:
+            return {}
+        from isentrope.daemon.pipeline import WINDOWS_MEASUREMENT
+
+        ref_start, ref_end = period
+        windows = self._retry(lambda: self.store.read_results(WINDOWS_MEASUREMENT, ref_start, ref_end, self.tags),
+                              f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}")
+        models, problems = self.pipeline.fit_baselines(windows)
+        for line in problems:
+            logger.warning("unit %s: baseline over %s to %s not fitted for section %s", self.unit,
+                           ref_start.isoformat(), ref_end.isoformat(), line)
+        if models:
+            state = {"models": {sec: m.to_json() for sec, m in sorted(models.items())},
+                     "reference_start": ref_start.isoformat(), "reference_end": ref_end.isoformat()}
+            self._retry(lambda: self.store.save_state(self.baseline_state_name, state),
+                        f"saving state {self.baseline_state_name!r}")
+            logger.info("unit %s: baseline fitted on %d steady windows (%s to %s) for %s", self.unit,
+                        len(windows), ref_start.isoformat(), ref_end.isoformat(), ", ".join(sorted(models)))
+            self._models = models
+        return models
 
     def _flush(self, batch: Batch) -> None:
         """Write what is left of ``batch``, save its state, then advance the checkpoint."""

@@ -1,0 +1,99 @@
+"""`isentrope run -c FILE [--once]`: the scheduled worker of one unit.
+
+Every ``[schedule] interval`` the worker processes the data from its checkpoint (minus the
+look-back) to now minus the settle delay, in chunks, and writes the results and a heartbeat
+(``worker_status``). ``--once`` runs a single cycle and exits (for cron or a systemd timer).
+SIGTERM and SIGINT stop it cleanly after the chunk in progress. Results are advisory
+performance information, not a protective function.
+"""
+
+from __future__ import annotations
+
+import logging
+import signal
+import threading
+
+from isentrope.daemon.errors import EXIT_OK, EXIT_UNREACHABLE
+
+NAME = "run"
+HELP = ("run the worker: every interval, process new data from the checkpoint and write the "
+        "results (advisory performance information, not a protective function)")
+
+logger = logging.getLogger("isentrope.run")
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("-c", "--config", required=True, metavar="FILE", help="the unit's TOML configuration")
+    parser.add_argument("--once", action="store_true", help="run one cycle and exit")
+
+
+def _install_signal_handlers(on_signal) -> dict:
+    previous = {}
+    if threading.current_thread() is not threading.main_thread():
+        return previous
+    for signum in (signal.SIGTERM, signal.SIGINT):
+        previous[signum] = signal.signal(signum, on_signal)
+    return previous
+
+
+def _restore(previous: dict) -> None:
+    for signum, handler in previous.items():
+        signal.signal(signum, handler)
+
+
+def run(args) -> int:
+    from isentrope.daemon.config import load_config
+    from isentrope.daemon.stores import open_store
+    from isentrope.daemon.worker import Worker
+
+    config = load_config(args.config)  # ConfigError before any connection is made
+    store = open_store(config.store.kind, **config.store.open_options())
+    try:
+        worker = Worker.from_config(config, store)
+        if args.once:
+            report = worker.run_cycle()
+            return EXIT_OK if report.ok else EXIT_UNREACHABLE
+        return _serve(worker, config)
+    finally:
+        store.close()
+
+
+def _serve(worker, config) -> int:
+    from apscheduler.schedulers.background import BackgroundScheduler
+    from apscheduler.triggers.interval import IntervalTrigger
+
+    stop = threading.Event()
+    received: list[int] = []
+
+    def on_signal(signum, _frame):
+        received.append(signum)
+        worker.stop()  # the cycle in progress ends after its current chunk
+        stop.set()
+
+    previous = _install_signal_handlers(on_signal)
+    scheduler = BackgroundScheduler(timezone="UTC")
+    interval = config.schedule.interval.total_seconds()
+    scheduler.add_job(
+        worker.run_cycle,
+        IntervalTrigger(seconds=interval, timezone="UTC"),
+        id=f"cycle/{config.unit.name}",
+        max_instances=1,  # never two cycles of one unit at once
+        coalesce=True,  # cycles missed while one ran long are run once, not many times
+        misfire_grace_time=None,
+        next_run_time=worker.clock().to_pydatetime(),
+    )
+    logger.info("unit %s: worker started, a cycle every %.0f s (settle %s, look-back %s, chunk %s)",
+                config.unit.name, interval, config.schedule.settle, config.schedule.lookback,
+                config.schedule.chunk)
+    scheduler.start()
+    try:
+        while not stop.wait(1.0):
+            pass
+    finally:
+        scheduler.shutdown(wait=True)  # waits for the cycle in progress (it stops between chunks)
+        _restore(previous)
+    logger.info("unit %s: worker stopped on signal %s; checkpoint at %s", config.unit.name,
+                received[0] if received else "?",
+                worker.last_report.checkpoint.isoformat()
+                if worker.last_report is not None and worker.last_report.checkpoint is not None else "unchanged")
+    return EXIT_OK

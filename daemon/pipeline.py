@@ -1,0 +1,509 @@
+"""The pipeline: calc/ composed in the fixed order of DESIGN.md, one results object out, no I/O.
+
+``Pipeline(config).process(frame, start, end, alarm_state=..., baselines=...)`` takes a frame
+of plant readings in internal units (what ``Store.read`` returns) that covers the window
+``[start, end)`` *plus* the margins ``Pipeline.margins`` before and after it, and returns a
+``CycleResults`` for the window only:
+
+1. ``calc.quality.screen``: per-sample reason flags; a flagged sample is never steady.
+2. ``calc.steady.tag_steady``: steady flag per sample.
+3. Steady windows, aligned here (see ``align_steady_windows``): runs of steady samples cut at
+   fixed clock boundaries (multiples of ``[steady] max_length`` from the Unix epoch), at gaps
+   longer than ``max_gap`` and at every non-steady sample; shorter than ``min_length`` dropped.
+   A window belongs to the chunk in which its clock bucket *ends*, so however time is cut into
+   chunks, every window is produced once and with the same samples. (calc.steady's own
+   windows split long plateaus counting from the start of the run, which depends on where the
+   frame starts; the worker would then give different windows after a catch-up.)
+4. ``calc.sections.evaluate`` per sample (trends) and per steady window from the window-
+   averaged readings (test practice: average the readings, then compute).
+5. ``calc.baseline.deviation`` per steady window and section, when a baseline model is given;
+   only windows that start after the model's reference period, so that it does not matter when
+   during a run the model was fitted.
+6. ``calc.alarms.evaluate_alarms`` on the windows not yet seen by the saved alarm state.
+
+Determinism: the same frame, window and state give identical results; the results inside the
+window depend only on the samples in the window and its margins, so re-processing any window
+(after an outage, a kill, or from a look-back) gives the same numbers.
+
+Results are advisory performance information, not a protective function; the turbine maker's
+limits, local codes and licensed engineering practice take precedence.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as dt
+import json
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon.roles import ROLES
+
+#: Result series (measurement names); DEVELOPERS.md "Result series" documents every field.
+SAMPLES_MEASUREMENT = "section_samples"
+WINDOWS_MEASUREMENT = "steady_windows"
+DEVIATION_MEASUREMENT = "deviation"
+ALARMS_MEASUREMENT = "alarm_events"
+
+_EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
+
+
+def _td(value) -> pd.Timedelta:
+    return pd.Timedelta(value) if not isinstance(value, pd.Timedelta) else value
+
+
+@dataclass
+class CycleResults:
+    """Everything the pipeline computed for one window ``[start, end)``.
+
+    Attributes
+    ----------
+    start, end : pandas.Timestamp
+        The window (UTC); results outside it are not included.
+    final_end : pandas.Timestamp
+        Results before this time are final; per-sample rows after it are provisional.
+    samples : pandas.DataFrame
+        One row per sample in the window (UTC index ``time``): the section figures of
+        ``calc.sections`` (efficiencies [fraction], enthalpies and drops [kJ/kg], moisture
+        [fraction], ``*_u`` standard uncertainties (k = 1) in the same unit), ``quality_flags``
+        (int bit mask of ``calc.quality`` reason codes), ``ok`` (bool: passed screening) and
+        ``steady`` (bool).
+    windows : pandas.DataFrame
+        One row per steady window, index = time of its first sample (UTC): ``end`` (time of
+        its last sample), ``duration_s`` [s], ``n_samples`` [-], the mean of every mapped role
+        over the window (internal units: MPa abs, K, MW, kg/s, %) and the section figures
+        computed from those means (units as in ``samples``).
+    deviation : pandas.DataFrame
+        One row per (steady window, section) with a baseline model: columns ``section``,
+        ``efficiency`` [fraction], ``expected`` [fraction], ``expected_u`` [fraction],
+        ``deviation`` [percentage points, actual minus expected], ``deviation_u`` [points],
+        ``extrapolated`` (bool; deviation NaN there), ``model_id`` (str). Empty without models.
+    alarm_events : pandas.DataFrame
+        Alarm transitions from ``calc.alarms`` (time, section, rule, kind, value, threshold,
+        message). Empty when nothing changed.
+    alarm_state : dict or None
+        JSON-serialisable alarm state after this window (None when alarms are not evaluated).
+    counts : dict
+        ``rows_read`` (frame rows incl. margins), ``rows_in_window``, ``rows_flagged``
+        (samples in the window failing screening), ``steady_samples``, ``windows``,
+        ``deviations``, ``alarm_events``.
+    notes : list of str
+        What was switched off and why (missing optional roles, no baseline model, ...).
+    """
+
+    start: pd.Timestamp
+    end: pd.Timestamp
+    final_end: pd.Timestamp
+    samples: pd.DataFrame
+    windows: pd.DataFrame
+    deviation: pd.DataFrame
+    alarm_events: pd.DataFrame
+    alarm_state: dict | None
+    counts: dict
+    notes: list = field(default_factory=list)
+
+    def writes(self, tags: dict[str, str]) -> list[tuple[str, pd.DataFrame, dict[str, str]]]:
+        """The result series as ``(measurement, frame, tags)`` for ``Store.write_results``.
+
+        Only numeric and bool columns are written (the store contract); string columns such as
+        ``lp_mode`` and ``model_id`` are carried as tags where they identify a series.
+        """
+        out: list[tuple[str, pd.DataFrame, dict[str, str]]] = []
+        if len(self.samples):
+            out.append((SAMPLES_MEASUREMENT, _numeric(self.samples), dict(tags)))
+        if len(self.windows):
+            w = self.windows.drop(columns=["end"], errors="ignore")
+            out.append((WINDOWS_MEASUREMENT, _numeric(w), dict(tags)))
+        if len(self.deviation):
+            for (section, model_id), part in self.deviation.groupby(["section", "model_id"], sort=True):
+                frame = _numeric(part.drop(columns=["section", "model_id"]))
+                out.append((DEVIATION_MEASUREMENT, frame, {**tags, "section": str(section),
+                                                           "model": str(model_id)}))
+        if len(self.alarm_events):
+            ev = self.alarm_events
+            for (section, rule), part in ev.groupby(["section", "rule"], sort=True):
+                frame = pd.DataFrame(
+                    {
+                        "raised": (part["kind"] == "raised").to_numpy(dtype=bool),
+                        "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
+                        "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float),
+                    },
+                    index=pd.DatetimeIndex(part["time"], name="time"),
+                )
+                out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
+        return out
+
+
+def _numeric(frame: pd.DataFrame) -> pd.DataFrame:
+    keep = [c for c in frame.columns
+            if pd.api.types.is_bool_dtype(frame[c]) or pd.api.types.is_numeric_dtype(frame[c])]
+    out = frame[keep].copy()
+    for c in keep:
+        if pd.api.types.is_integer_dtype(out[c]):
+            out[c] = out[c].astype(float)
+    out.index.name = "time"
+    return out
+
+
+# --------------------------------------------------------------------------------------
+# steady windows on fixed clock boundaries
+# --------------------------------------------------------------------------------------
+def align_steady_windows(
+    frame: pd.DataFrame,
+    steady: pd.Series,
+    *,
+    max_length,
+    max_gap,
+    min_length,
+    start: pd.Timestamp | None = None,
+    end: pd.Timestamp | None = None,
+    columns=None,
+) -> pd.DataFrame:
+    """Steady windows cut at fixed clock boundaries, with the mean of ``columns``.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Readings, UTC index (internal units).
+    steady : pandas.Series of bool
+        Steady flag per sample, same index.
+    max_length : str or Timedelta
+        Windows never cross a multiple of this from the Unix epoch.
+    max_gap : str or Timedelta
+        A longer gap between two steady samples ends a window.
+    min_length : str or Timedelta
+        Shorter windows (first to last sample, plus one sample spacing) are dropped.
+    start, end : Timestamp or None
+        Keep only windows whose clock bucket ends in ``(start, end]``; None keeps all.
+    columns : list of str or None
+        Columns averaged over each window; None means every column of ``frame``.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Index = first sample time (``time``); ``end`` (last sample time), ``duration_s`` [s],
+        ``n_samples`` [-] and the mean of each column, in its own unit.
+    """
+    max_length, max_gap, min_length = _td(max_length), _td(max_gap), _td(min_length)
+    if max_length <= pd.Timedelta(0):
+        raise ValueError(f"max_length must be positive, found {max_length}")
+    columns = list(frame.columns) if columns is None else list(columns)
+    empty = pd.DataFrame(columns=["end", "duration_s", "n_samples", *columns],
+                         index=pd.DatetimeIndex([], tz="UTC", name="time"))
+    flags = steady.reindex(frame.index).fillna(False).to_numpy(dtype=bool)
+    if not flags.any():
+        return empty.astype({c: float for c in ["duration_s", "n_samples", *columns]})
+    idx = frame.index
+    spacing = pd.Series(idx).diff().median() if len(idx) > 1 else pd.Timedelta(0)
+    spacing = pd.Timedelta(0) if pd.isna(spacing) else spacing
+    # run ids: a new run after every non-steady sample, gap or clock boundary
+    broken = np.cumsum(~flags)
+    times = idx[flags]
+    bucket = times.floor(max_length) if max_length.total_seconds() >= 1 else times
+    brk = broken[flags]
+    new = np.ones(len(times), dtype=bool)
+    if len(times) > 1:
+        gap = np.asarray((times[1:] - times[:-1]) > max_gap, dtype=bool)
+        new[1:] = gap | (np.diff(brk) != 0) | (bucket.asi8[1:] != bucket.asi8[:-1])
+    run = np.cumsum(new)
+    sub = frame.loc[flags, columns].astype(float)
+    sub.index = times
+    grouped = sub.groupby(run, sort=True)
+    means = grouped.mean()
+    first = pd.Series(times).groupby(run).first()
+    last = pd.Series(times).groupby(run).last()
+    n = grouped.size()
+    buckets = pd.Series(bucket).groupby(run).first()
+    duration = (last - first) + spacing
+    keep = np.array(duration >= min_length, dtype=bool)
+    if start is not None or end is not None:
+        bucket_end = buckets + max_length
+        inside = np.ones(len(buckets), dtype=bool)
+        if start is not None:
+            inside &= (bucket_end > start).to_numpy()
+        if end is not None:
+            inside &= (bucket_end <= end).to_numpy()
+        keep &= inside
+    out = means.loc[keep].copy()
+    out.insert(0, "n_samples", n.loc[keep].astype(float).to_numpy())
+    out.insert(0, "duration_s", duration.loc[keep].dt.total_seconds().to_numpy())
+    out.insert(0, "end", pd.DatetimeIndex(last.loc[keep]))
+    out.index = pd.DatetimeIndex(first.loc[keep], name="time")
+    return out
+
+
+# --------------------------------------------------------------------------------------
+# the pipeline
+# --------------------------------------------------------------------------------------
+#: Section -> efficiency column of calc.sections that its baseline model is fitted to.
+BASELINE_COLUMNS = {"hp": "hp_efficiency", "ip": "ip_efficiency", "lp": "lp_dry_efficiency"}
+
+
+class Pipeline:
+    """calc/ composed in the fixed order of DESIGN.md for one unit's configuration.
+
+    Parameters
+    ----------
+    config : isentrope.daemon.config.Config
+        The unit's validated configuration.
+
+    Attributes
+    ----------
+    margins : (Timedelta, Timedelta)
+        How much data before and after a window ``process`` needs so that the results inside
+        the window do not depend on where the window starts or ends.
+    """
+
+    def __init__(self, config):
+        from isentrope.calc import units
+
+        self.config = config
+        self.roles = [r for r in ROLES if r in config.roles]
+        baro = config.screening.barometric_kpa
+        if baro is None:
+            baro = units.STANDARD_ATMOSPHERE_KPA
+        self.ranges: dict[str, tuple[float, float]] = {}
+        for role, m in config.roles.items():
+            if m.range is None:
+                continue
+            internal = units.INTERNAL_UNIT[units.quantity(m.unit)]
+            lo, hi = (float(units.convert(float(v), m.unit, internal, barometric_kpa=baro)) for v in m.range)
+            self.ranges[role] = (min(lo, hi), max(lo, hi))
+        st, sc = config.steady, config.screening
+        # calc.quality's flatline flags a whole flat stretch once it has lasted ``flatline``,
+        # and its Hampel spike window is centred: both look ahead as well as back. calc.steady
+        # marks a sample steady when a trailing ``window`` that *covers* it passes, so it looks
+        # ahead by one window too. A window's results are final once this much data before
+        # and after it has been seen (the steady-window clock bucket and a gap added before).
+        look = _td(st.window) + _td(sc.flatline) + _td(sc.spike_window)
+        self._before = look + _td(st.max_length) + _td(st.max_gap)
+        self._after = look
+
+    @property
+    def margins(self) -> tuple[pd.Timedelta, pd.Timedelta]:
+        """(before, after): data needed around a window for final results there."""
+        return self._before, self._after
+
+    # --- calc arguments from the configuration -------------------------------------------
+    def _section_kwargs(self) -> dict:
+        from isentrope.calc import sections
+
+        sc, unit = self.config.sections, self.config.unit
+        kwargs: dict = dict(eta_lp_design=sc.eta_lp_design, baumann=sc.baumann, lp_mode=sc.lp_mode)
+        if sc.annulus_area_m2 is not None:
+            kwargs["annulus_area"] = sc.annulus_area_m2
+        if sc.exhaust_loss_curve is not None:
+            kwargs["exhaust_loss_curve"] = [tuple(p) for p in sc.exhaust_loss_curve]
+        if sc.lp_exhaust_flow_fraction is not None:
+            kwargs["lp_exhaust_flow_fraction"] = sc.lp_exhaust_flow_fraction
+        if sc.reheat_flow_fraction is not None and sc.crossover_flow_fraction is not None:
+            # HP: all of main steam flow; IP: hot reheat flow; LP: LP inlet (crossover) flow
+            kwargs["flow_fractions"] = {"hp": 1.0, "ip": sc.reheat_flow_fraction,
+                                        "lp": sc.crossover_flow_fraction}
+            # generator losses taken at rating: a constant of the energy balance [MW]
+            kwargs["losses_mw"] = sc.mechanical_losses_mw + (1.0 - sc.generator_efficiency) * unit.rating_mw
+        unc = {}
+        for role, u in self.config.uncertainties.items():
+            if role not in sections.ROLE_QUANTITY:
+                continue
+            if u.basis == "percent_of_reading":
+                unc[role] = sections.InstrumentUncertainty(0.0, u.value / 100.0)
+            else:  # kelvin: absolute in K, the internal unit
+                unc[role] = sections.InstrumentUncertainty(float(u.value), 0.0)
+        kwargs["uncertainty"] = unc
+        return kwargs
+
+    def _screen_kwargs(self, frame: pd.DataFrame) -> dict:
+        sc = self.config.screening
+        return dict(ranges=self.ranges, flatline=_td(sc.flatline),
+                    spike=spike_samples(frame.index, sc.spike_window),
+                    spike_threshold=float(sc.spike_threshold), efficiency_band=tuple(sc.efficiency_band))
+
+    def _steady_kwargs(self) -> dict:
+        st, unit = self.config.steady, self.config.unit
+        limits = {
+            "throttle_p": (st.throttle_p_percent / 100.0, st.throttle_p_kpa / 1000.0),  # [-], [MPa]
+            "throttle_t": (0.0, st.temperature_k),  # [K]
+            "hot_reheat_t": (0.0, st.temperature_k),  # [K]
+            "condenser_p": (st.exhaust_p_percent / 100.0, st.exhaust_p_kpa / 1000.0),  # [-], [MPa]
+            "gross_output": (st.load_band_percent / 100.0, 0.0),  # fraction of rating
+        }
+        return dict(method=st.method, window=_td(st.window), min_length=_td(st.min_length),
+                    max_gap=_td(st.max_gap), limits=limits, offline_mw=unit.online_mw or None,
+                    rating_mw=unit.rating_mw or None, max_length=_td(st.max_length),
+                    r_critical=float(st.r_critical), r_lambdas=tuple(st.r_filter))
+
+    # --- the chain ------------------------------------------------------------------------
+    def process(self, frame: pd.DataFrame, start, end, *, final_end=None, alarm_state: dict | None = None,
+                baselines: dict | None = None) -> CycleResults:
+        """Compute every result for the window ``[start, end)``.
+
+        Parameters
+        ----------
+        frame : pandas.DataFrame
+            Readings in internal units (UTC index, one column per mapped role) covering
+            ``[start - margins[0], end + margins[1])``; may hold NaN, gaps and rows out of
+            range: they are flagged, never an error.
+        start, end : Timestamp
+            The window whose per-sample results are returned (UTC).
+        final_end : Timestamp or None
+            Results before this time are final (the frame holds the full after-margin past
+            it); steady windows, deviations and alarms are produced only up to it. None means
+            ``end`` (the frame reaches ``end + margins[1]``). Per-sample rows after it are
+            provisional: the worker writes them for fresh dashboards and replaces them later.
+        alarm_state : dict or None
+            Saved alarm state; windows at or before its ``until`` time are not fed again.
+        baselines : dict or None
+            Section -> ``calc.baseline.BaselineModel``; without, no deviation is computed.
+
+        Returns
+        -------
+        CycleResults
+        """
+        from isentrope.calc import quality, sections, steady
+
+        start, end = pd.Timestamp(start), pd.Timestamp(end)
+        final_end = end if final_end is None else min(pd.Timestamp(final_end), end)
+        notes: list[str] = []
+        frame = _clean(frame, self.roles)
+        inside = (frame.index >= start) & (frame.index < end)
+
+        screen = quality.screen(frame, **self._screen_kwargs(frame))
+        ok = screen.ok.reindex(frame.index).fillna(False).astype(bool)
+        st = steady.tag_steady(frame, ok=ok, **self._steady_kwargs())
+        steady_flag = st.steady.reindex(frame.index).fillna(False).astype(bool) & ok
+
+        kwargs = self._section_kwargs()
+        in_frame = frame.loc[inside]
+        per_sample = sections.evaluate(in_frame, **kwargs)
+        notes.extend(per_sample.notes)
+        samples = per_sample.to_frame()
+        samples["quality_flags"] = screen.row_flags.reindex(in_frame.index).fillna(0).astype("int64")
+        samples["ok"] = ok.loc[inside].to_numpy()
+        samples["steady"] = steady_flag.loc[inside].to_numpy()
+        samples.index.name = "time"
+
+        st_cfg = self.config.steady
+        windows = align_steady_windows(frame, steady_flag, max_length=st_cfg.max_length,
+                                       max_gap=st_cfg.max_gap, min_length=st_cfg.min_length,
+                                       start=start, end=final_end, columns=self.roles)
+        if len(windows):
+            figures = sections.evaluate(windows[self.roles], **kwargs).to_frame()
+            windows = windows.join(figures)
+
+        deviation = self._deviation(windows, baselines or {}, notes)
+        events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes)
+
+        counts = {
+            "rows_read": int(len(frame)),
+            "rows_in_window": int(inside.sum()),
+            "rows_flagged": int((~ok.loc[inside]).sum()),
+            "steady_samples": int(steady_flag.loc[inside].sum()),
+            "windows": int(len(windows)),
+            "deviations": int(len(deviation)),
+            "alarm_events": int(len(events)),
+        }
+        return CycleResults(start=start, end=end, final_end=final_end, samples=samples, windows=windows, deviation=deviation,
+                            alarm_events=events, alarm_state=new_state, counts=counts,
+                            notes=sorted(set(notes)))
+
+    # --- baseline ---------------------------------------------------------------------------
+    def fit_baselines(self, windows: pd.DataFrame) -> tuple[dict, list[str]]:
+        """Fit one baseline model per section on the reference-period steady windows.
+
+        Returns ``(models, problems)``: section -> ``BaselineModel``, and one line per section
+        that could not be fitted (too few windows, missing figures).
+        """
+        from isentrope.calc import baseline
+
+        cfg = self.config.baseline
+        models, problems = {}, []
+        for section, col in BASELINE_COLUMNS.items():
+            if col not in windows.columns or not np.isfinite(windows[col].to_numpy(dtype=float)).any():
+                continue
+            try:
+                models[section] = baseline.fit_baseline(
+                    windows, section, efficiency_col=col, load_col="gross_output",
+                    rating_mw=float(self.config.unit.rating_mw), degree=int(cfg.degree),
+                    reference_period=(cfg.start, cfg.end), load_margin=float(cfg.margin_percent) / 100.0)
+            except ValueError as exc:
+                problems.append(f"{section}: {exc}")
+        return models, problems
+
+    def _deviation(self, windows: pd.DataFrame, baselines: dict, notes: list) -> pd.DataFrame:
+        from isentrope.calc import baseline
+
+        cols = ["section", "efficiency", "expected", "expected_u", "deviation", "deviation_u",
+                "extrapolated", "model_id"]
+        empty = pd.DataFrame(columns=cols, index=pd.DatetimeIndex([], tz="UTC", name="time"))
+        if not baselines:
+            notes.append("no baseline model yet: deviation not computed")
+            return empty
+        parts = []
+        for section in sorted(baselines):
+            model = baselines[section]
+            col = BASELINE_COLUMNS.get(section, model.efficiency_col)
+            if not len(windows) or col not in windows.columns:
+                continue
+            # only windows after the reference period: whether a model existed when a reference
+            # window was processed depends on the cycle, so those windows get no deviation at all
+            ref_end = self.config.baseline.end or model.reference_end
+            after_reference = (windows.index >= pd.Timestamp(ref_end)) if ref_end is not None \
+                else np.ones(len(windows), dtype=bool)
+            w = windows.loc[after_reference]
+            if not len(w):
+                continue
+            u_col = f"{col}_u" if f"{col}_u" in w.columns else None
+            dev = baseline.deviation(model, w, efficiency_col=col, efficiency_u_col=u_col)
+            dev.insert(0, "efficiency", w[col].to_numpy(dtype=float))
+            dev.insert(0, "section", section)
+            parts.append(dev)
+        if not parts:
+            return empty
+        out = pd.concat(parts)
+        out.index.name = "time"
+        return out
+
+    # --- alarms -----------------------------------------------------------------------------
+    def _alarms(self, windows, deviation, state, end, notes):
+        return _no_events(), state
+
+
+def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
+    """The Hampel window of ``calc.quality.screen`` in samples: ``spike_window`` divided by the
+    typical sample spacing (median, whole seconds), odd, at least 3."""
+    spacing = pd.Timedelta(seconds=60)
+    if len(index) > 2:
+        d = pd.Series(index).diff().median()
+        if pd.notna(d) and d > pd.Timedelta(0):
+            spacing = max(pd.Timedelta(seconds=1), d.round("1s"))
+    n = int(round(_td(spike_window) / spacing))
+    n = max(3, n)
+    return n if n % 2 == 1 else n + 1
+
+
+def _no_events() -> pd.DataFrame:
+    return pd.DataFrame({"time": pd.DatetimeIndex([], tz="UTC"), "section": [], "rule": [], "kind": [],
+                         "value": [], "threshold": [], "message": []})
+
+
+def _clean(frame: pd.DataFrame, roles: list[str]) -> pd.DataFrame:
+    """Sorted unique UTC index, one float column per mapped role (absent ones all NaN).
+
+    Strings and other non-numbers become NaN (screening flags them as missing); duplicate
+    times keep the last sample, as the store contract does.
+    """
+    out = frame.copy()
+    if not isinstance(out.index, pd.DatetimeIndex):
+        raise ValueError(f"readings need a DatetimeIndex (UTC), found {type(out.index).__name__}")
+    if out.index.tz is None:
+        raise ValueError("readings need a UTC index; found times without a time zone")
+    out.index = out.index.tz_convert("UTC")
+    out = out[~out.index.duplicated(keep="last")].sort_index()
+    data = {r: pd.to_numeric(out[r], errors="coerce").astype(float) if r in out.columns
+            else pd.Series(np.nan, index=out.index) for r in roles}
+    result = pd.DataFrame(data, index=out.index)
+    result.index.name = "time"
+    return result
