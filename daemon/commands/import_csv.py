@@ -26,6 +26,7 @@ import argparse
 import csv
 import logging
 import re
+import warnings
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -227,6 +228,14 @@ def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str = "reject", none
 def _numbers(values: pd.Series, decimal: str = ".") -> tuple[pd.Series, int]:
     """Strings -> floats (NaN where not a finite number); also how many non-empty cells were
     not numbers. ``decimal`` "," reads 165,2 as 165.2."""
+    if pd.api.types.is_numeric_dtype(values) and not pd.api.types.is_bool_dtype(values):
+        # The CSV parser already read the whole column as numbers (the common case, fast);
+        # only infinities remain to be refused.
+        nums = values.astype(float)
+        finite = np.isfinite(nums.to_numpy())
+        bad = int((~finite & nums.notna().to_numpy()).sum())
+        nums[~finite] = np.nan
+        return nums, bad
     s = values.astype(object).where(values.notna(), "").astype(str).str.strip()
     if decimal == ",":
         s = s.str.replace(",", ".", regex=False)
@@ -326,15 +335,27 @@ def import_files(config: Config, paths: list[Path], store, options: ImportOption
             cols = (header[0], "", "")
         report.files += 1
         log.info("importing %s (%s layout, times without offset in %s)", path, kind, options.timezone)
-        # Every cell as text: "Bad", "I/O Timeout", "NaN" are counted as not-a-number below.
-        reader = pd.read_csv(path, sep=sep, dtype=str, keep_default_na=False, na_values=[],
-                             chunksize=CHUNK_ROWS, encoding="utf-8-sig", skipinitialspace=True)
+        # Only empty cells are missing; a column the parser cannot read as numbers stays text
+        # and goes through _numbers, which counts "Bad", "I/O Timeout" and the like.
+        # (Reading every cell as text and converting took 2.5x as long: 20.7 s against 8.3 s for a
+        # year of one-minute rows of 10 tags, measured on the 2-core development machine.)
+        text_cols = [c for c in cols if c][: 2 if kind == "long" else 1]
         seen: Counter = Counter()  # file-order occurrences of ambiguous local times
         try:
-            for chunk in reader:
-                _import_chunk(chunk, kind, cols, zone, options, seen, tag_role, config, store, dry_run, report)
+            with warnings.catch_warnings():
+                # a row with more fields than the header: an error with its line, not a shift
+                warnings.simplefilter("error", pd.errors.ParserWarning)
+                with pd.read_csv(path, sep=sep, dtype={c: str for c in text_cols}, keep_default_na=False,
+                                 na_values=[""], decimal=options.decimal, chunksize=CHUNK_ROWS,
+                                 encoding="utf-8-sig", skipinitialspace=True, index_col=False) as reader:
+                    for chunk in reader:
+                        _import_chunk(chunk, kind, cols, zone, options, seen, tag_role, config, store,
+                                      dry_run, report)
+        except pd.errors.ParserWarning:
+            raise ValueError(f"{path}: malformed CSV: a row has more fields than the header's "
+                             f"{len(header)} (rows before it were imported)") from None
         except pd.errors.ParserError as exc:
-            raise ValueError(f"{path}: malformed CSV: {exc}") from None
+            raise ValueError(f"{path}: malformed CSV: {str(exc).strip()} (rows before it were imported)") from None
     return report
 
 

@@ -104,7 +104,7 @@ def test_check_finds_a_pressure_in_the_wrong_unit(tmp_path, capsys):
     captured = capsys.readouterr()
     assert rc == 1
     row = next(line for line in captured.out.splitlines() if line.startswith("throttle_p"))
-    assert row.endswith("PROBLEM: median 16500.5 psig = 113.9 MPa(a), implausible (expected 2-35 MPa(a)); "
+    assert row.endswith("PROBLEM: 1440 outside range [0, 41.25]; median 16500.5 psig = 113.9 MPa(a), implausible (expected 2-35 MPa(a)); "
                         "looks like kPa(a) or kPa(g)")
     assert captured.err == "1 of 10 roles have problems.\n"
 
@@ -309,7 +309,12 @@ def test_import_errors(tmp_path, capsys):
     bad = tmp_path / "bad.csv"
     bad.write_text("time,U7-MS-P\n2026-01-01T00:00Z,1,2,3\n")
     assert cli.main(["import-csv", "-c", str(path), str(bad)]) == 1
-    assert capsys.readouterr().err.startswith(f"isentrope: error: {bad}: malformed CSV: ")
+    assert capsys.readouterr().err == (f"isentrope: error: {bad}: malformed CSV: a row has more fields than "
+                                       "the header's 2 (rows before it were imported)\n")
+    bad.write_text("time,U7-MS-P\n2026-01-01T00:00Z,1\n2026-01-01T00:01Z,1,2,3\n")
+    assert cli.main(["import-csv", "-c", str(path), str(bad)]) == 1
+    assert capsys.readouterr().err == (f"isentrope: error: {bad}: malformed CSV: Error tokenizing data. C error: "
+                                       "Expected 2 fields in line 3, saw 4 (rows before it were imported)\n")
 
 
 def test_import_dry_run_writes_nothing(tmp_path, capsys):
