@@ -1,0 +1,1512 @@
+"""IAPWS-IF97 steam properties, vectorised over numpy arrays.
+
+Regions 1 (compressed liquid), 2 (superheated vapour) and 4 (the saturation line, for
+p <= 16.529 MPa) are evaluated here with pure numpy; the rare point in region 3 (near the
+critical point, above 16.529 MPa and 623.15 K) or region 5 (above 1073.15 K) is sent to the
+``iapws`` package point by point, which is correct but slower, and counted.
+
+Units are IF97's own: pressure MPa (absolute), temperature K, specific enthalpy kJ/kg,
+specific entropy kJ/(kg K), specific volume m3/kg.
+
+Every public function accepts scalars, numpy arrays (broadcast against each other) or pandas
+Series (the result is a Series with the same index). A scalar call whose point lies outside
+IF97's validity raises ValueError naming the valid range; in arrays such a point becomes NaN
+and carries a reason code, available with ``return_details=True``:
+
+>>> h, details = h_pt(np.array([16.55, 120.0]), 811.15, return_details=True)
+>>> details.reason          # doctest: +SKIP
+array([0, 1])               # OK, OUT_OF_RANGE_P
+
+How the sums are evaluated: each IF97 equation is a sum of n_k x^I_k y^J_k. The distinct
+powers of x and of y are built by repeated multiplication (no ``pow`` per term), the
+coefficients are arranged in a matrix C[J, I], and the sum for a block of points is
+``sum_j y^J_j * (C @ x^I)_j``; derivatives in y weight the same products by J and J(J-1).
+A block of a few thousand points at a time keeps the work in cache.
+
+Results are advisory performance information, not a protective function; they do not replace
+the turbine maker's limits, local codes or licensed engineering practice.
+
+References
+----------
+IAPWS R7-97(2012), Revised Release on the IAPWS Industrial Formulation 1997 for the
+Thermodynamic Properties of Water and Steam (equation and table numbers below refer to it).
+"""
+
+from __future__ import annotations
+
+import math
+import types
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+__all__ = [
+    "h_pt", "s_pt", "v_pt", "cp_pt", "region",
+    "p_sat", "t_sat",
+    "h_sat_liquid", "h_sat_vapour", "s_sat_liquid", "s_sat_vapour",
+    "v_sat_liquid", "v_sat_vapour",
+    "h_ps", "t_ps", "x_ps",
+    "t_ph", "x_ph", "s_ph", "v_ph",
+    "PropertyDetails",
+    "OK", "OUT_OF_RANGE_P", "OUT_OF_RANGE_T", "OUT_OF_RANGE_H", "OUT_OF_RANGE_S",
+    "NOT_FINITE", "NO_CONVERGENCE", "FALLBACK_FAILED", "SINGLE_PHASE", "REASON_TEXT",
+]
+
+# --------------------------------------------------------------------------------------------
+# Reason codes (details.reason). 0 means the value is good.
+OK = 0
+OUT_OF_RANGE_P = 1
+OUT_OF_RANGE_T = 2
+OUT_OF_RANGE_H = 3
+OUT_OF_RANGE_S = 4
+NOT_FINITE = 5
+NO_CONVERGENCE = 6
+FALLBACK_FAILED = 7
+#: x_ph / x_ps only: the state is single-phase, so quality is NaN by definition (not an error).
+SINGLE_PHASE = 8
+
+REASON_TEXT = types.MappingProxyType({
+    OK: "ok",
+    OUT_OF_RANGE_P: "pressure outside IF97 validity",
+    OUT_OF_RANGE_T: "temperature outside IF97 validity",
+    OUT_OF_RANGE_H: "enthalpy outside IF97 validity at this pressure",
+    OUT_OF_RANGE_S: "entropy outside IF97 validity at this pressure",
+    NOT_FINITE: "input is NaN or infinite",
+    NO_CONVERGENCE: "Newton iteration did not converge",
+    FALLBACK_FAILED: "region 3/5 point: the iapws package could not evaluate it",
+    SINGLE_PHASE: "single-phase state: quality undefined",
+})
+
+# --------------------------------------------------------------------------------------------
+# Constants of the formulation.
+R = 0.461526          # specific gas constant of water [kJ/(kg K)], R7-97(2012) eq. (1)
+T_CRIT = 647.096      # critical temperature [K], R7-97(2012) eq. (2)
+P_CRIT = 22.064       # critical pressure [MPa], R7-97(2012) eq. (3)
+T_MIN = 273.15        # lower temperature limit of IF97 [K], R7-97(2012) section 4
+T_MAX_2 = 1073.15     # upper temperature limit of regions 1-3 [K]
+T_MAX_5 = 2273.15     # upper temperature limit of region 5 [K]
+P_MAX = 100.0         # upper pressure limit of regions 1-3 [MPa]
+P_MAX_5 = 50.0        # upper pressure limit of region 5 [MPa]
+T_13 = 623.15         # boundary between regions 1 and 3 [K]
+#: p_sat(273.15 K), eq. (30): the lowest pressure at which a liquid exists [MPa].
+P_MIN = 0.000611212677444
+#: p_sat(623.15 K), eq. (30): above it the saturation line lies in region 3 [MPa].
+P_SAT_623 = 16.5291642526
+
+# Limits of the (p,T) validity, for messages.
+_RANGE_PT = ("0 < p <= 100 MPa for 273.15 <= T <= 1073.15 K, "
+             "and 0 < p <= 50 MPa for 1073.15 < T <= 2273.15 K")
+_RANGE_PS = ("0.000611213 <= p <= 100 MPa, s between the IF97 limits at that pressure "
+             "(T from 273.15 to 1073.15 K, to 2273.15 K at p <= 50 MPa)")
+_RANGE_PH = ("0.000611213 <= p <= 100 MPa, h between the IF97 limits at that pressure "
+             "(T from 273.15 to 1073.15 K, to 2273.15 K at p <= 50 MPa)")
+
+# Table 34 (R7-97(2012)): coefficients of the saturation-pressure equations (29)-(31).
+_SAT_N = (
+    0.0, 0.11670521452767e4, -0.72421316703206e6, -0.17073846940092e2, 0.12020824702470e5,
+    -0.32325550322333e7, 0.14915108613530e2, -0.48232657361591e4, 0.40511340542057e6,
+    -0.23855557567849, 0.65017534844798e3,
+)
+# Table 1 (R7-97(2012)): coefficients of the B23 boundary equations (5) and (6).
+_B23_N = (0.0, 0.34805185628969e3, -0.11671859879975e1, 0.10192970039326e-2,
+          0.57254459862746e3, 0.13918839778870e2)
+# Table 19 (R7-97(2012)): coefficients of the B2bc boundary equations (20) and (21).
+_B2BC_N = (0.0, 0.90584278514723e3, -0.67955786399241, 0.12809002730136e-3,
+           0.26526571908428e4, 0.45257578905948e1)
+
+# IAPWS R7-97(2012) Table 2: region 1, dimensionless Gibbs free energy, eq. (7).
+_R1_I = (
+    0, 0, 0, 0, 0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 2, 2, 2, 2, 2, 3, 3, 3, 4, 4, 4, 5, 8, 8, 21,
+    23, 29, 30, 31, 32,
+)
+_R1_J = (
+    -2, -1, 0, 1, 2, 3, 4, 5, -9, -7, -1, 0, 1, 3, -3, 0, 1, 3, 17, -4, 0, 6, -5, -2, 10, -8,
+    -11, -6, -29, -31, -38, -39, -40, -41,
+)
+_R1_N = (
+    1.4632971213167e-01, -8.4548187169114e-01, -3.7563603672040e+00, 3.3855169168385e+00,
+    -9.5791963387872e-01, 1.5772038513228e-01, -1.6616417199501e-02, 8.1214629983568e-04,
+    2.8319080123804e-04, -6.0706301565874e-04, -1.8990068218419e-02, -3.2529748770505e-02,
+    -2.1841717175414e-02, -5.2838357969930e-05, -4.7184321073267e-04, -3.0001780793026e-04,
+    4.7661393906987e-05, -4.4141845330846e-06, -7.2694996297594e-16, -3.1679644845054e-05,
+    -2.8270797985312e-06, -8.5205128120103e-10, -2.2425281908000e-06, -6.5171222895601e-07,
+    -1.4341729937924e-13, -4.0516996860117e-07, -1.2734301741641e-09, -1.7424871230634e-10,
+    -6.8762131295531e-19, 1.4478307828521e-20, 2.6335781662795e-23, -1.1947622640071e-23,
+    1.8228094581404e-24, -9.3537087292458e-26,
+)
+
+# IAPWS R7-97(2012) Table 11: region 2 residual part, eq. (17).
+_R2_I = (
+    1, 1, 1, 1, 1, 2, 2, 2, 2, 2, 3, 3, 3, 3, 3, 4, 4, 4, 5, 6, 6, 6, 7, 7, 7, 8, 8, 9, 10,
+    10, 10, 16, 16, 18, 20, 20, 20, 21, 22, 23, 24, 24, 24,
+)
+_R2_J = (
+    0, 1, 2, 3, 6, 1, 2, 4, 7, 36, 0, 1, 3, 6, 35, 1, 2, 3, 7, 3, 16, 35, 0, 11, 25, 8, 36,
+    13, 4, 10, 14, 29, 50, 57, 20, 35, 48, 21, 53, 39, 26, 40, 58,
+)
+_R2_N = (
+    -1.7731742473213e-03, -1.7834862292358e-02, -4.5996013696365e-02, -5.7581259083432e-02,
+    -5.0325278727930e-02, -3.3032641670203e-05, -1.8948987516315e-04, -3.9392777243355e-03,
+    -4.3797295650573e-02, -2.6674547914087e-05, 2.0481737692309e-08, 4.3870667284435e-07,
+    -3.2277677238570e-05, -1.5033924542148e-03, -4.0668253562649e-02, -7.8847309559367e-10,
+    1.2790717852285e-08, 4.8225372718507e-07, 2.2922076337661e-06, -1.6714766451061e-11,
+    -2.1171472321355e-03, -2.3895741934104e+01, -5.9059564324270e-18, -1.2621808899101e-06,
+    -3.8946842435739e-02, 1.1256211360459e-11, -8.2311340897998e+00, 1.9809712802088e-08,
+    1.0406965210174e-19, -1.0234747095929e-13, -1.0018179379511e-09, -8.0882908646985e-11,
+    1.0693031879409e-01, -3.3662250574171e-01, 8.9185845355421e-25, 3.0629316876232e-13,
+    -4.2002467698208e-06, -5.9056029685639e-26, 3.7826947613457e-06, -1.2768608934681e-15,
+    7.3087610595061e-29, 5.5414715350778e-17, -9.4369707241210e-07,
+)
+
+# IAPWS R7-97(2012) Table 6: backward T(p,h) region 1, eq. (11).
+_T1PH_I = (
+    0, 0, 0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 1, 2, 2, 3, 3, 4, 5, 6,
+)
+_T1PH_J = (
+    0, 1, 2, 6, 22, 32, 0, 1, 2, 3, 4, 10, 32, 10, 32, 10, 32, 32, 32, 32,
+)
+_T1PH_N = (
+    -2.3872489924521e+02, 4.0421188637945e+02, 1.1349746881718e+02, -5.8457616048039e+00,
+    -1.5285482413140e-04, -1.0866707695377e-06, -1.3391744872602e+01, 4.3211039183559e+01,
+    -5.4010067170506e+01, 3.0535892203916e+01, -6.5964749423638e+00, 9.3965400878363e-03,
+    1.1573647505340e-07, -2.5858641282073e-05, -4.0644363084799e-09, 6.6456186191635e-08,
+    8.0670734103027e-11, -9.3477771213947e-13, 5.8265442020601e-15, -1.5020185953503e-17,
+)
+
+# IAPWS R7-97(2012) Table 8: backward T(p,s) region 1, eq. (13).
+_T1PS_I = (
+    0, 0, 0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 2, 2, 2, 2, 2, 3, 3, 4,
+)
+_T1PS_J = (
+    0, 1, 2, 3, 11, 31, 0, 1, 2, 3, 12, 31, 0, 1, 2, 9, 31, 10, 32, 32,
+)
+_T1PS_N = (
+    1.7478268058307e+02, 3.4806930892873e+01, 6.5292584978455e+00, 3.3039981775489e-01,
+    -1.9281382923196e-07, -2.4909197244573e-23, -2.6107636489332e-01, 2.2592965981586e-01,
+    -6.4256463395226e-02, 7.8876289270526e-03, 3.5672110607366e-10, 1.7332496994895e-24,
+    5.6608900654837e-04, -3.2635483139717e-04, 4.4778286690632e-05, -5.1322156908507e-10,
+    -4.2522657042207e-26, 2.6400441360689e-13, 7.8124600459723e-29, -3.0732199903668e-31,
+)
+
+# IAPWS R7-97(2012) Table 20: backward T(p,h) subregion 2a, eq. (22).
+_T2APH_I = (
+    0, 0, 0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 1, 1, 1, 2, 2, 2, 2, 2, 2, 2, 2, 3, 3, 4, 4, 4, 5, 5,
+    5, 6, 6, 7,
+)
+_T2APH_J = (
+    0, 1, 2, 3, 7, 20, 0, 1, 2, 3, 7, 9, 11, 18, 44, 0, 2, 7, 36, 38, 40, 42, 44, 24, 44, 12,
+    32, 44, 32, 36, 42, 34, 44, 28,
+)
+_T2APH_N = (
+    1.0898952318288e+03, 8.4951654495535e+02, -1.0781748091826e+02, 3.3153654801263e+01,
+    -7.4232016790248e+00, 1.1765048724356e+01, 1.8445749355790e+00, -4.1792700549624e+00,
+    6.2478196935812e+00, -1.7344563108114e+01, -2.0058176862096e+02, 2.7196065473796e+02,
+    -4.5511318285818e+02, 3.0919688604755e+03, 2.5226640357872e+05, -6.1707422868339e-03,
+    -3.1078046629583e-01, 1.1670873077107e+01, 1.2812798404046e+08, -9.8554909623276e+08,
+    2.8224546973002e+09, -3.5948971410703e+09, 1.7227349913197e+09, -1.3551334240775e+04,
+    1.2848734664650e+07, 1.3865724283226e+00, 2.3598832556514e+05, -1.3105236545054e+07,
+    7.3999835474766e+03, -5.5196697030060e+05, 3.7154085996233e+06, 1.9127729239660e+04,
+    -4.1535164835634e+05, -6.2459855192507e+01,
+)
+
+# IAPWS R7-97(2012) Table 21: backward T(p,h) subregion 2b, eq. (23).
+_T2BPH_I = (
+    0, 0, 0, 0, 0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 1, 1, 2, 2, 2, 2, 3, 3, 3, 3, 4, 4, 4, 4, 4, 4,
+    5, 5, 5, 6, 7, 7, 9, 9,
+)
+_T2BPH_J = (
+    0, 1, 2, 12, 18, 24, 28, 40, 0, 2, 6, 12, 18, 24, 28, 40, 2, 8, 18, 40, 1, 2, 12, 24, 2,
+    12, 18, 24, 28, 40, 18, 24, 40, 28, 2, 28, 1, 40,
+)
+_T2BPH_N = (
+    1.4895041079516e+03, 7.4307798314034e+02, -9.7708318797837e+01, 2.4742464705674e+00,
+    -6.3281320016026e-01, 1.1385952129658e+00, -4.7811863648625e-01, 8.5208123431544e-03,
+    9.3747147377932e-01, 3.3593118604916e+00, 3.3809355601454e+00, 1.6844539671904e-01,
+    7.3875745236695e-01, -4.7128737436186e-01, 1.5020273139707e-01, -2.1764114219750e-03,
+    -2.1810755324761e-02, -1.0829784403677e-01, -4.6333324635812e-02, 7.1280351959551e-05,
+    1.1032831789999e-04, 1.8955248387902e-04, 3.0891541160537e-03, 1.3555504554949e-03,
+    2.8640237477456e-07, -1.0779857357512e-05, -7.6462712454814e-05, 1.4052392818316e-05,
+    -3.1083814331434e-05, -1.0302738212103e-06, 2.8217281635040e-07, 1.2704902271945e-06,
+    7.3803353468292e-08, -1.1030139238909e-08, -8.1456365207833e-14, -2.5180545682962e-11,
+    -1.7565233969407e-18, 8.6934156344163e-15,
+)
+
+# IAPWS R7-97(2012) Table 22: backward T(p,h) subregion 2c, eq. (24).
+_T2CPH_I = (
+    -7, -7, -6, -6, -5, -5, -2, -2, -1, -1, 0, 0, 1, 1, 2, 6, 6, 6, 6, 6, 6, 6, 6,
+)
+_T2CPH_J = (
+    0, 4, 0, 2, 0, 2, 0, 1, 0, 2, 0, 1, 4, 8, 4, 0, 1, 4, 10, 12, 16, 20, 22,
+)
+_T2CPH_N = (
+    -3.2368398555242e+12, 7.3263350902181e+12, 3.5825089945447e+11, -5.8340131851590e+11,
+    -1.0783068217470e+10, 2.0825544563171e+10, 6.1074783564516e+05, 8.5977722535580e+05,
+    -2.5745723604170e+04, 3.1081088422714e+04, 1.2082315865936e+03, 4.8219755109255e+02,
+    3.7966001272486e+00, -1.0842984880077e+01, -4.5364172676660e-02, 1.4559115658698e-13,
+    1.1261597407230e-12, -1.7804982240686e-11, 1.2324579690832e-07, -1.1606921130984e-06,
+    2.7846367088554e-05, -5.9270038474176e-04, 1.2918582991878e-03,
+)
+
+# IAPWS R7-97(2012) Table 25: backward T(p,s) subregion 2a, eq. (25).
+_T2APS_I = (
+    -1.5, -1.5, -1.5, -1.5, -1.5, -1.5, -1.25, -1.25, -1.25, -1, -1, -1, -1, -1, -1, -0.75,
+    -0.75, -0.5, -0.5, -0.5, -0.5, -0.25, -0.25, -0.25, -0.25, 0.25, 0.25, 0.25, 0.25, 0.5,
+    0.5, 0.5, 0.5, 0.5, 0.5, 0.5, 0.75, 0.75, 0.75, 0.75, 1, 1, 1.25, 1.25, 1.5, 1.5,
+)
+_T2APS_J = (
+    -24, -23, -19, -13, -11, -10, -19, -15, -6, -26, -21, -17, -16, -9, -8, -15, -14, -26,
+    -13, -9, -7, -27, -25, -11, -6, 1, 4, 8, 11, 0, 1, 5, 6, 10, 14, 16, 0, 4, 9, 17, 7, 18,
+    3, 15, 5, 18,
+)
+_T2APS_N = (
+    -3.9235983861984e+05, 5.1526573827270e+05, 4.0482443161048e+04, -3.2193790923902e+02,
+    9.6961424218694e+01, -2.2867846371773e+01, -4.4942914124357e+05, -5.0118336020166e+03,
+    3.5684463560015e-01, 4.4235335848190e+04, -1.3673388811708e+04, 4.2163260207864e+05,
+    2.2516925837475e+04, 4.7442144865646e+02, -1.4931130797647e+02, -1.9781126320452e+05,
+    -2.3554399470760e+04, -1.9070616302076e+04, 5.5375669883164e+04, 3.8293691437363e+03,
+    -6.0391860580567e+02, 1.9363102620331e+03, 4.2660643698610e+03, -5.9780638872718e+03,
+    -7.0401463926862e+02, 3.3836784107553e+02, 2.0862786635187e+01, 3.3834172656196e-02,
+    -4.3124428414893e-05, 1.6653791356412e+02, -1.3986292055898e+02, -7.8849547999872e-01,
+    7.2132411753872e-02, -5.9754839398283e-03, -1.2141358953904e-05, 2.3227096733871e-07,
+    -1.0538463566194e+01, 2.0718925496502e+00, -7.2193155260427e-02, 2.0749887081120e-07,
+    -1.8340657911379e-02, 2.9036272348696e-07, 2.1037527893619e-01, 2.5681239729999e-04,
+    -1.2799002933781e-02, -8.2198102652018e-06,
+)
+
+# IAPWS R7-97(2012) Table 26: backward T(p,s) subregion 2b, eq. (26).
+_T2BPS_I = (
+    -6, -6, -5, -5, -4, -4, -4, -3, -3, -3, -3, -2, -2, -2, -2, -1, -1, -1, -1, -1, 0, 0, 0,
+    0, 0, 0, 0, 1, 1, 1, 1, 1, 1, 2, 2, 2, 3, 3, 3, 4, 4, 5, 5, 5,
+)
+_T2BPS_J = (
+    0, 11, 0, 11, 0, 1, 11, 0, 1, 11, 12, 0, 1, 6, 10, 0, 1, 5, 8, 9, 0, 1, 2, 4, 5, 6, 9, 0,
+    1, 2, 3, 7, 8, 0, 1, 5, 0, 1, 3, 0, 1, 0, 1, 2,
+)
+_T2BPS_N = (
+    3.1687665083497e+05, 2.0864175881858e+01, -3.9859399803599e+05, -2.1816058518877e+01,
+    2.2369785194242e+05, -2.7841703445817e+03, 9.9207436071480e+00, -7.5197512299157e+04,
+    2.9708605951158e+03, -3.4406878548526e+00, 3.8815564249115e-01, 1.7511295085750e+04,
+    -1.4237112854449e+03, 1.0943803364167e+00, 8.9971619308495e-01, -3.3759740098958e+03,
+    4.7162885818355e+02, -1.9188241993679e+00, 4.1078580492196e-01, -3.3465378172097e-01,
+    1.3870034777505e+03, -4.0663326195838e+02, 4.1727347159610e+01, 2.1932549434532e+00,
+    -1.0320050009077e+00, 3.5882943516703e-01, 5.2511453726066e-03, 1.2838916450705e+01,
+    -2.8642437219381e+00, 5.6912683664855e-01, -9.9962954584931e-02, -3.2632037778459e-03,
+    2.3320922576723e-04, -1.5334809857450e-01, 2.9072288239902e-02, 3.7534702741167e-04,
+    1.7296691702411e-03, -3.8556050844504e-04, -3.5017712292608e-05, -1.4566393631492e-05,
+    5.6420857267269e-06, 4.1286150074605e-08, -2.0684671118824e-08, 1.6409393674725e-09,
+)
+
+# IAPWS R7-97(2012) Table 27: backward T(p,s) subregion 2c, eq. (27).
+_T2CPS_I = (
+    -2, -2, -1, 0, 0, 0, 0, 1, 1, 1, 1, 2, 2, 2, 3, 3, 3, 4, 4, 4, 5, 5, 5, 6, 6, 7, 7, 7, 7,
+    7,
+)
+_T2CPS_J = (
+    0, 1, 0, 0, 1, 2, 3, 0, 1, 3, 4, 0, 1, 2, 0, 1, 5, 0, 1, 4, 0, 1, 2, 0, 1, 0, 1, 3, 4, 5,
+)
+_T2CPS_N = (
+    9.0968501005365e+02, 2.4045667088420e+03, -5.9162326387130e+02, 5.4145404128074e+02,
+    -2.7098308411192e+02, 9.7976525097926e+02, -4.6966772959435e+02, 1.4399274604723e+01,
+    -1.9104204230429e+01, 5.3299167111971e+00, -2.1252975375934e+01, -3.1147334413760e-01,
+    6.0334840894623e-01, -4.2764839702509e-02, 5.8185597255259e-03, -1.4597008284753e-02,
+    5.6631175631027e-03, -7.6155864584577e-05, 2.2440342919332e-04, -1.2561095013413e-05,
+    6.3323132660934e-07, -2.0541989675375e-06, 3.6405370390082e-08, -2.9759897789215e-09,
+    1.0136618529763e-08, 5.9925719692351e-12, -2.0677870105164e-11, -2.0874278181886e-11,
+    1.0162166825089e-10, -1.6429828281347e-10,
+)
+
+# IAPWS R7-97(2012) Table 10: region 2 ideal-gas part, eq. (16).
+_R2_J0 = (
+    0, 1, -5, -4, -3, -2, -1, 2, 3,
+)
+_R2_N0 = (
+    -9.6927686500217e+00, 1.0086655968018e+01, -5.6087911283020e-03, 7.1452738081455e-02,
+    -4.0710498223928e-01, 1.4240819171444e+00, -4.3839511319450e+00, -2.8408632460772e-01,
+    2.1268463753307e-02,
+)
+
+# --------------------------------------------------------------------------------------------
+# Evaluation of the polynomial sums sum_k n_k x^I_k y^J_k.
+
+_BLOCK = 8192  # points per block; keeps the power tables in cache (measured in calc/bench.py)
+
+
+def _frozen(a):
+    a = np.array(a, dtype=float)
+    a.flags.writeable = False
+    return a
+
+
+class _PowerPlan:
+    """How to build x^e for a sorted set of integer exponents e by multiplication only.
+
+    x^e0 is one ``np.power`` call (or 1 / x), each next power is the previous one times
+    x^(e_k - e_(k-1)); the needed steps x^d are built once per block by a short ladder.
+    """
+
+    def __init__(self, exponents):
+        e = np.unique(np.asarray(exponents, dtype=np.int64))
+        self.exponents = e
+        self.first = int(e[0])
+        steps = np.diff(e)
+        self.steps = tuple(int(d) for d in steps)
+        self.max_step = int(steps.max()) if steps.size else 0
+
+    def build(self, x):
+        """Rows x^e for every exponent e, shape (len(exponents), len(x))."""
+        m = x.shape[0]
+        out = np.empty((len(self.exponents), m))
+        first = self.first
+        if first == 0:
+            out[0] = 1.0
+        elif first == 1:
+            out[0] = x
+        elif first == -1:
+            np.divide(1.0, x, out=out[0])
+        else:
+            np.power(x, float(first), out=out[0])
+        if self.max_step:
+            ladder = [None, x]
+            for d in range(2, self.max_step + 1):
+                ladder.append(ladder[d // 2] * ladder[d - d // 2])
+            for k, d in enumerate(self.steps, start=1):
+                np.multiply(out[k - 1], ladder[d], out=out[k])
+        return out
+
+
+class _PowerSum:
+    """sum_k n_k x^I_k y^J_k and its derivatives, for integer exponents I and J.
+
+    The terms are grouped by J: a_j(x) = sum_i n_ij x^I_i is accumulated row by row from the
+    x-power table (two numpy operations per term), then b_j = a_j y^J_j, and the sum and its
+    y-derivatives are weighted row sums of b. No BLAS call: on a loaded two-core machine a
+    threaded matrix product of these small shapes ran 10x slower than this (calc/bench.py).
+    """
+
+    def __init__(self, n, i, j, i_scale=1):
+        # i_scale: the I of the table are multiples of 1/i_scale; the caller passes
+        # x = base**(1/i_scale) (used for the quarter powers of the 2a T(p,s) equation).
+        n = np.asarray(n, dtype=float)
+        i = np.rint(np.asarray(i, dtype=float) * i_scale).astype(np.int64)
+        j = np.asarray(j, dtype=np.int64)
+        self.xplan = _PowerPlan(i)
+        self.yplan = _PowerPlan(j)
+        iu, ju = self.xplan.exponents, self.yplan.exponents
+        rows, rows_di = [], []
+        for jv in ju:
+            sel = np.flatnonzero(j == jv)
+            pos = tuple(int(np.searchsorted(iu, i[k])) for k in sel)
+            rows.append((pos, tuple(float(n[k]) for k in sel)))
+            keep = [k for k in sel if i[k] != 0]
+            rows_di.append((tuple(int(np.searchsorted(iu, i[k])) for k in keep),
+                            tuple(float(n[k] * i[k] / i_scale) for k in keep)))
+        self.rows = tuple(rows)
+        self.rows_di = tuple(rows_di)
+        jf = ju.astype(float)
+        self.w = _frozen(np.vstack([np.ones_like(jf), jf, jf * (jf - 1.0)]))
+
+    @staticmethod
+    def _accumulate(rows, xp, m):
+        a = np.zeros((len(rows), m))
+        tmp = np.empty(m)
+        for r, (pos, coef) in enumerate(rows):
+            if not pos:
+                continue
+            row = a[r]
+            np.multiply(xp[pos[0]], coef[0], out=row)
+            for q, c in zip(pos[1:], coef[1:]):
+                np.multiply(xp[q], c, out=tmp)
+                row += tmp
+        return a
+
+    def value(self, x, y):
+        """The sum itself."""
+        out = np.empty(x.shape[0])
+        for lo in range(0, x.shape[0], _BLOCK):
+            sl = slice(lo, lo + _BLOCK)
+            m = x[sl].shape[0]
+            b = self._accumulate(self.rows, self.xplan.build(x[sl]), m)
+            b *= self.yplan.build(y[sl])
+            out[sl] = b.sum(axis=0)
+        return out
+
+    def derivatives(self, x, y, order_y=2, with_x=False):
+        """g, g_y, g_yy (up to ``order_y``) and, with ``with_x``, g_x.
+
+        Returns an array of shape (order_y + 1 + with_x, len(x)).
+        """
+        m_all = x.shape[0]
+        rows = order_y + 1
+        out = np.empty((rows + int(with_x), m_all))
+        for lo in range(0, m_all, _BLOCK):
+            sl = slice(lo, lo + _BLOCK)
+            m = x[sl].shape[0]
+            xp = self.xplan.build(x[sl])
+            yp = self.yplan.build(y[sl])
+            b = self._accumulate(self.rows, xp, m)
+            b *= yp
+            out[0, sl] = b.sum(axis=0)
+            for r in range(1, rows):
+                out[r, sl] = np.einsum("j,jm->m", self.w[r], b)
+            if with_x:
+                bx = self._accumulate(self.rows_di, xp, m)
+                bx *= yp
+                out[rows, sl] = bx.sum(axis=0)
+        if order_y >= 1:
+            out[1] /= y
+        if order_y >= 2:
+            out[2] /= y * y
+        if with_x:
+            out[rows] /= x
+        return out
+
+
+_G1 = _PowerSum(_R1_N, _R1_I, _R1_J)
+_G2R = _PowerSum(_R2_N, _R2_I, _R2_J)
+_G2I = _PowerSum(_R2_N0, [0] * len(_R2_J0), _R2_J0)
+_B1PH = _PowerSum(_T1PH_N, _T1PH_I, _T1PH_J)
+_B1PS = _PowerSum(_T1PS_N, _T1PS_I, _T1PS_J)
+_B2APH = _PowerSum(_T2APH_N, _T2APH_I, _T2APH_J)
+_B2BPH = _PowerSum(_T2BPH_N, _T2BPH_I, _T2BPH_J)
+_B2CPH = _PowerSum(_T2CPH_N, _T2CPH_I, _T2CPH_J)
+_B2APS = _PowerSum(_T2APS_N, _T2APS_I, _T2APS_J, i_scale=4)
+_B2BPS = _PowerSum(_T2BPS_N, _T2BPS_I, _T2BPS_J)
+_B2CPS = _PowerSum(_T2CPS_N, _T2CPS_I, _T2CPS_J)
+
+
+def _region1(p, t, need):
+    """Region-1 properties from the Gibbs equation (7) with the relations of Table 3.
+
+    ``need`` is a collection of names among "h", "s", "v", "cp"; returns a dict of arrays.
+    """
+    pi = p / 16.53
+    tau = 1386.0 / t
+    order = 2 if "cp" in need else 1
+    with_x = "v" in need
+    d = _G1.derivatives(7.1 - pi, tau - 1.222, order_y=order, with_x=with_x)
+    g, g_t = d[0], d[1]
+    out = {}
+    if "h" in need:
+        out["h"] = R * t * tau * g_t
+    if "s" in need:
+        out["s"] = R * (tau * g_t - g)
+    if "cp" in need:
+        out["cp"] = -R * tau * tau * d[2]
+    if with_x:
+        g_p = -d[-1]  # d/dpi of (7.1 - pi)^I
+        out["v"] = R * t * pi * g_p / p / 1000.0
+    return out
+
+
+def _region2(p, t, need):
+    """Region-2 properties from eq. (15): ideal part (16, Table 10) + residual part (17, Table 11),
+    with the relations of Table 12."""
+    pi = p
+    tau = 540.0 / t
+    order = 2 if "cp" in need else 1
+    with_x = "v" in need
+    d0 = _G2I.derivatives(np.ones_like(tau), tau, order_y=order)
+    dr = _G2R.derivatives(pi, tau - 0.5, order_y=order, with_x=with_x)
+    g_t = d0[1] + dr[1]
+    out = {}
+    if "h" in need:
+        out["h"] = R * t * tau * g_t
+    if "s" in need:
+        out["s"] = R * (tau * g_t - (np.log(pi) + d0[0] + dr[0]))
+    if "cp" in need:
+        out["cp"] = -R * tau * tau * (d0[2] + dr[2])
+    if with_x:
+        out["v"] = R * t * (1.0 + pi * dr[-1]) / p / 1000.0
+    return out
+
+
+_FORWARD = {1: _region1, 2: _region2}
+
+
+def _psat(t):
+    """Saturation pressure p_sat(T) [MPa], eq. (30) with (29); 273.15 <= T <= 647.096 K."""
+    n = _SAT_N
+    th = t + n[9] / (t - n[10])
+    a = th * th + n[1] * th + n[2]
+    b = n[3] * th * th + n[4] * th + n[5]
+    c = n[6] * th * th + n[7] * th + n[8]
+    return (2.0 * c / (-b + np.sqrt(b * b - 4.0 * a * c))) ** 4
+
+
+def _tsat(p):
+    """Saturation temperature T_sat(p) [K], eq. (31); 611.213 Pa <= p <= 22.064 MPa."""
+    n = _SAT_N
+    beta = np.sqrt(np.sqrt(p))
+    e = beta * beta + n[3] * beta + n[6]
+    f = n[1] * beta * beta + n[4] * beta + n[7]
+    g = n[2] * beta * beta + n[5] * beta + n[8]
+    d = 2.0 * g / (-f - np.sqrt(f * f - 4.0 * e * g))
+    return (n[10] + d - np.sqrt((n[10] + d) ** 2 - 4.0 * (n[9] + n[10] * d))) / 2.0
+
+
+def _p_b23(t):
+    """Pressure on the region 2-3 boundary [MPa], eq. (5)."""
+    n = _B23_N
+    return n[1] + n[2] * t + n[3] * t * t
+
+
+def _t_b23(p):
+    """Temperature on the region 2-3 boundary [K], eq. (6)."""
+    n = _B23_N
+    return n[4] + np.sqrt((p - n[5]) / n[3])
+
+
+def _h_b2bc(p):
+    """Enthalpy on the boundary between subregions 2b and 2c [kJ/kg], eq. (21)."""
+    n = _B2BC_N
+    return n[4] + np.sqrt((p - n[5]) / n[3])
+
+
+def _p_b2bc(h):
+    """Pressure on the boundary between subregions 2b and 2c [MPa], eq. (20)."""
+    n = _B2BC_N
+    return n[1] + n[2] * h + n[3] * h * h
+
+
+# Backward equations: start values for the Newton polish, exposed for the verification tests.
+def _t1_ph(p, h):
+    """Backward T(p,h) region 1 [K], eq. (11), Table 6."""
+    return _B1PH.value(p, h / 2500.0 + 1.0)
+
+
+def _t1_ps(p, s):
+    """Backward T(p,s) region 1 [K], eq. (13), Table 8."""
+    return _B1PS.value(p, s + 2.0)
+
+
+def _t2a_ph(p, h):
+    """Backward T(p,h) subregion 2a [K], eq. (22), Table 20."""
+    return _B2APH.value(p, h / 2000.0 - 2.1)
+
+
+def _t2b_ph(p, h):
+    """Backward T(p,h) subregion 2b [K], eq. (23), Table 21."""
+    return _B2BPH.value(p - 2.0, h / 2000.0 - 2.6)
+
+
+def _t2c_ph(p, h):
+    """Backward T(p,h) subregion 2c [K], eq. (24), Table 22."""
+    return _B2CPH.value(p + 25.0, h / 2000.0 - 1.8)
+
+
+def _t2a_ps(p, s):
+    """Backward T(p,s) subregion 2a [K], eq. (25), Table 25 (I in quarters: x = p^(1/4))."""
+    return _B2APS.value(np.sqrt(np.sqrt(p)), s / 2.0 - 2.0)
+
+
+def _t2b_ps(p, s):
+    """Backward T(p,s) subregion 2b [K], eq. (26), Table 26."""
+    return _B2BPS.value(p, 10.0 - s / 0.7853)
+
+
+def _t2c_ps(p, s):
+    """Backward T(p,s) subregion 2c [K], eq. (27), Table 27."""
+    return _B2CPS.value(p, 2.0 - s / 2.9251)
+
+
+def _t2_ph(p, h):
+    """Backward T(p,h) region 2 with the subregion choice of section 6.3.1 (p = 4 MPa, B2bc)."""
+    out = np.empty(p.shape[0])
+    a = p <= 4.0
+    b = ~a & ((p <= 6.546699678) | (h >= _h_b2bc(np.maximum(p, 6.546699678))))
+    c = ~a & ~b
+    for mask, fn in ((a, _t2a_ph), (b, _t2b_ph), (c, _t2c_ph)):
+        if mask.any():
+            out[mask] = fn(p[mask], h[mask])
+    return out
+
+
+def _t2_ps(p, s):
+    """Backward T(p,s) region 2 with the subregion choice of section 6.3.2 (4 MPa, s = 5.85)."""
+    out = np.empty(p.shape[0])
+    a = p <= 4.0
+    b = ~a & (s >= 5.85)
+    c = ~a & ~b
+    for mask, fn in ((a, _t2a_ps), (b, _t2b_ps), (c, _t2c_ps)):
+        if mask.any():
+            out[mask] = fn(p[mask], s[mask])
+    return out
+
+
+_BACKWARD = {(1, "h"): _t1_ph, (1, "s"): _t1_ps, (2, "h"): _t2_ph, (2, "s"): _t2_ps}
+
+
+# --------------------------------------------------------------------------------------------
+# Region of a (p, T) point, R7-97(2012) section 4 (Figure 1).
+
+def _region_pt(p, t):
+    """Region number (1, 2, 3, 5; 0 outside validity) and reason code per point."""
+    reg = np.zeros(p.shape[0], dtype=np.int8)
+    reason = np.zeros(p.shape[0], dtype=np.int8)
+    finite = np.isfinite(p) & np.isfinite(t)
+    reason[~finite] = NOT_FINITE
+    bad_p = finite & ((p <= 0.0) | (p > P_MAX))
+    reason[bad_p] = OUT_OF_RANGE_P
+    bad_t = finite & ~bad_p & ((t < T_MIN) | (t > T_MAX_5))
+    reason[bad_t] = OUT_OF_RANGE_T
+    ok = finite & ~bad_p & ~bad_t
+    hot = ok & (t > T_MAX_2)
+    reason[hot & (p > P_MAX_5)] = OUT_OF_RANGE_P
+    reg[hot & (p <= P_MAX_5)] = 5
+    ok &= ~hot
+    cold = ok & (t <= T_13)
+    ps = _psat(np.where(cold, t, T_13))
+    reg[cold & (p >= ps)] = 1
+    reg[cold & (p < ps)] = 2
+    warm = ok & ~cold
+    is3 = warm & (p > _p_b23(t))
+    reg[is3] = 3
+    reg[warm & ~is3] = 2
+    return reg, reason
+
+
+# --------------------------------------------------------------------------------------------
+# Point-by-point fallback to the iapws package (regions 3 and 5, the saturation line above
+# 16.529 MPa). Correct but slow (~0.2-1 ms per point); counted in details.n_fallback.
+
+def _iapws_points(p, other, key):
+    """Evaluate points with iapws.IAPWS97(P=p, <key>=other).
+
+    Returns a dict of arrays "t", "h", "s", "v", "x" (x NaN when single-phase), the region
+    per point, and a bool array telling which points iapws evaluated.
+    """
+    from iapws import IAPWS97  # imported here: the vectorised path never needs it
+
+    n = p.shape[0]
+    out = {k: np.full(n, np.nan) for k in ("t", "h", "s", "v", "x")}
+    reg = np.zeros(n, dtype=np.int8)
+    ok = np.zeros(n, dtype=bool)
+    for k in range(n):  # fallback only: region 3/5 points are rare in turbine duty
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                st = IAPWS97(**{"P": float(p[k]), key: float(other[k])})
+        except Exception:  # noqa: BLE001 - any failure of the third-party solver flags the point
+            continue
+        if getattr(st, "status", 0) != 1 or st.h is None or not math.isfinite(st.h):
+            continue
+        out["t"][k], out["h"][k], out["s"][k], out["v"][k] = st.T, st.h, st.s, st.v
+        r = int(st.region)
+        reg[k] = r
+        if r == 4 and st.x is not None:
+            out["x"][k] = st.x
+        ok[k] = True
+    return out, reg, ok
+
+
+# --------------------------------------------------------------------------------------------
+# Newton polish of a backward-equation start value.
+
+_MAX_NEWTON = 8
+#: Residual below which the last Newton step is taken and the point is done. With quadratic
+#: convergence the returned T then leaves a residual of order 1e-13 (tests check 1e-9 in s).
+_ACCEPT = {"s": 1e-8, "h": 1e-5}
+
+
+def _newton(region, kind, p, y, t0, t_lo, t_hi, extra):
+    """Solve kind(p, T) = y for T with the forward equation of ``region``.
+
+    Returns (t, converged, props) where props holds "h", "s" and, if asked in ``extra``,
+    "v" at the solution (h or s corrected to first order for the last step: dh = T ds).
+    """
+    fwd = _FORWARD[region]
+    other = "h" if kind == "s" else "s"
+    need = {kind, other, "cp"} | ({"v"} & set(extra))
+    n = p.shape[0]
+    t = np.clip(t0, t_lo, t_hi)
+    t = np.where(np.isfinite(t), t, 0.5 * (t_lo + t_hi))
+    conv = np.zeros(n, dtype=bool)
+    props = {k: np.full(n, np.nan) for k in need - {"cp"}}
+    act = np.arange(n)
+    for _ in range(_MAX_NEWTON):
+        if act.size == 0:
+            break
+        ta = t[act]
+        pr = fwd(p[act], ta, need)
+        r = pr[kind] - y[act]
+        slope = pr["cp"] if kind == "h" else pr["cp"] / ta
+        step = r / slope
+        t_new = ta - step
+        done = (np.abs(r) <= _ACCEPT[kind]) & np.isfinite(t_new)
+        di = act[done]
+        t[di] = t_new[done]
+        conv[di] = True
+        props[kind][di] = y[di]
+        if kind == "s":
+            props["h"][di] = pr["h"][done] - ta[done] * r[done]
+        else:
+            props["s"][di] = pr["s"][done] - r[done] / ta[done]
+        if "v" in props:
+            props["v"][di] = pr["v"][done]
+        keep = ~done & np.isfinite(t_new)
+        act = act[keep]
+        t[act] = np.clip(t_new[keep], t_lo[act], t_hi[act])
+    if "v" in props and conv.any():
+        # v at the polished temperature (the last step moved T by < 1e-5 K).
+        ci = np.flatnonzero(conv)
+        props["v"][ci] = fwd(p[ci], t[ci], {"v"})["v"]
+    return t, conv, props
+
+
+def _solve(kind, p, y, want):
+    """State from (p, s) or (p, h): T and the properties in ``want`` ("t","h","s","v","x").
+
+    Returns (values dict, reason, region, n_fallback).
+    """
+    n = p.shape[0]
+    val = {k: np.full(n, np.nan) for k in want}
+    reason = np.zeros(n, dtype=np.int8)
+    reg = np.zeros(n, dtype=np.int8)
+    bad_range = OUT_OF_RANGE_S if kind == "s" else OUT_OF_RANGE_H
+    finite = np.isfinite(p) & np.isfinite(y)
+    reason[~finite] = NOT_FINITE
+    okp = finite & (p >= P_MIN) & (p <= P_MAX)
+    reason[finite & ~okp] = OUT_OF_RANGE_P
+    n_fallback = 0
+
+    def put(idx, region_no, t, props, x=None):
+        reg[idx] = region_no
+        if "t" in val:
+            val["t"][idx] = t
+        for k in ("h", "s", "v"):
+            if k in val:
+                val[k][idx] = props[k]
+        if "x" in val and x is not None:
+            val["x"][idx] = x
+
+    idx = np.flatnonzero(okp)
+    pp, yy = p[idx], y[idx]
+    high = pp > P_SAT_623
+    t_b = np.where(high, _t_b23(np.maximum(pp, P_SAT_623)), _tsat(np.minimum(pp, P_SAT_623)))
+
+    # 1. Region 2 first (most turbine points): backward start, Newton; a point whose
+    #    converged T lies at or above the region-2 boundary temperature is in region 2
+    #    (s and h rise with T along an isobar, so no other region can hold it).
+    t0 = _BACKWARD[(2, kind)](pp, yy)
+    cand = np.isfinite(t0) & (t0 >= t_b - 20.0)
+    ci = np.flatnonzero(cand)
+    done = np.zeros(idx.size, dtype=bool)
+    to_fallback = np.zeros(idx.size, dtype=bool)
+    if ci.size:
+        lo = np.maximum(t_b[ci] - 30.0, 200.0)
+        hi = np.full(ci.size, 1078.0)
+        t, conv, props = _newton(2, kind, pp[ci], yy[ci], t0[ci], lo, hi, want)
+        acc = conv & (t >= t_b[ci] - 1e-9) & (t <= T_MAX_2 + 1e-9)
+        # Keep T inside region 2 when rounding put it a hair outside (|dT| <= 1e-9 K).
+        t = np.clip(t, t_b[ci], T_MAX_2)
+        put(idx[ci[acc]], 2, t[acc], {k: v[acc] for k, v in props.items()})
+        done[ci[acc]] = True
+        above = conv & (t > T_MAX_2 + 1e-9)
+        to_fallback[ci[above]] = True  # region 5 (or beyond; iapws decides)
+
+    # 2. The rest at p <= 16.529 MPa: liquid, wet or a region-2 point Newton missed.
+    rest = ~done & ~to_fallback
+    liquid = np.zeros(idx.size, dtype=bool)
+    lo_i = np.flatnonzero(rest & ~high)
+    if lo_i.size:
+        pl, yl = pp[lo_i], yy[lo_i]
+        ts = _tsat(pl)
+        need = {"h", "s", "v"} & (set(want) | {kind})
+        need.add(kind)
+        sat1 = _region1(pl, ts, need)
+        sat2 = _region2(pl, ts, need)
+        y1, y2 = sat1[kind], sat2[kind]
+        liq = yl <= y1
+        wet = ~liq & (yl < y2)
+        vap = ~liq & ~wet
+        liquid[lo_i[liq]] = True
+        if wet.any():
+            x = (yl[wet] - y1[wet]) / (y2[wet] - y1[wet])
+            props = {k: sat1[k][wet] + x * (sat2[k][wet] - sat1[k][wet]) for k in need}
+            put(idx[lo_i[wet]], 4, ts[wet], props, x)
+        if vap.any():
+            vi = lo_i[vap]
+            pv, yv = pp[vi], yy[vi]
+            y25 = _region2(pv, np.full(vi.size, T_MAX_2), {kind})[kind]
+            beyond = yv > y25
+            to_fallback[vi[beyond]] = True
+            wi = np.flatnonzero(~beyond)
+            if wi.size:
+                tsv = ts[vap][wi]
+                frac = (yv[wi] - y2[vap][wi]) / (y25[wi] - y2[vap][wi])
+                t_start = tsv + frac * (T_MAX_2 - tsv)
+                t, conv, props = _newton(2, kind, pv[wi], yv[wi], t_start, tsv - 1.0,
+                                         np.full(wi.size, T_MAX_2 + 1.0), want)
+                gi = vi[wi[conv]]
+                t = np.clip(t, tsv, T_MAX_2)
+                put(idx[gi], 2, t[conv], {k: v[conv] for k, v in props.items()})
+                reason[idx[vi[wi[~conv]]]] = NO_CONVERGENCE
+
+    # 3. The rest above 16.529 MPa: region 1 below 623.15 K, otherwise iapws (region 3).
+    hi_i = np.flatnonzero(rest & high)
+    if hi_i.size:
+        y13 = _region1(pp[hi_i], np.full(hi_i.size, T_13), {kind})[kind]
+        liq = yy[hi_i] <= y13
+        liquid[hi_i[liq]] = True
+        to_fallback[hi_i[~liq]] = True
+
+    # 4. Region 1: backward start, Newton, then the 273.15 K limit.
+    li = np.flatnonzero(liquid)
+    if li.size:
+        pl, yl = pp[li], yy[li]
+        t0 = _BACKWARD[(1, kind)](pl, yl)
+        t_top = np.where(pl > P_SAT_623, T_13, _tsat(np.minimum(pl, P_SAT_623)))
+        t, conv, props = _newton(1, kind, pl, yl, t0, np.full(li.size, 250.0), t_top + 1.0, want)
+        inside = conv & (t >= T_MIN - 1e-9)
+        t = np.clip(t, T_MIN, t_top)
+        put(idx[li[inside]], 1, t[inside], {k: v[inside] for k, v in props.items()})
+        reason[idx[li[conv & ~inside]]] = bad_range
+        nc = li[~conv]
+        if nc.size:
+            y_min = _region1(pp[nc], np.full(nc.size, T_MIN), {kind})[kind]
+            reason[idx[nc]] = np.where(yy[nc] < y_min, bad_range, NO_CONVERGENCE)
+
+    # 5. Fallback points (region 3, region 5, wet states above 16.529 MPa).
+    fi = np.flatnonzero(to_fallback)
+    if fi.size:
+        n_fallback = int(fi.size)
+        out, freg, fok = _iapws_points(pp[fi], yy[fi], kind)
+        g = fi[fok]
+        reg[idx[g]] = freg[fok]
+        for k in want:
+            val[k][idx[g]] = out[k][fok]
+        failed = fi[~fok]
+        reason[idx[failed]] = np.where(pp[failed] > P_MAX_5, bad_range, FALLBACK_FAILED)
+    return val, reason, reg, n_fallback
+
+
+# --------------------------------------------------------------------------------------------
+# Cores of the public functions: flat float arrays in, (value, reason, region, n_fallback) out.
+
+def _core_pt(prop):
+    def core(p, t):
+        reg, reason = _region_pt(p, t)
+        out = np.full(p.shape[0], np.nan)
+        for r in (1, 2):
+            m = reg == r
+            if m.any():
+                out[m] = _FORWARD[r](p[m], t[m], {prop})[prop]
+        fb = np.flatnonzero((reg == 3) | (reg == 5))
+        if fb.size:
+            key = "cp" if prop == "cp" else prop
+            vals, _, ok = _iapws_points_pt(p[fb], t[fb], key)
+            out[fb[ok]] = vals[ok]
+            reason[fb[~ok]] = FALLBACK_FAILED
+            reg[fb[~ok]] = 0
+        return out, reason, reg, int(fb.size)
+    return core
+
+
+def _iapws_points_pt(p, t, prop):
+    """iapws.IAPWS97(P=, T=) point by point for region 3/5 points; returns (values, regions, ok)."""
+    from iapws import IAPWS97
+
+    n = p.shape[0]
+    vals = np.full(n, np.nan)
+    reg = np.zeros(n, dtype=np.int8)
+    ok = np.zeros(n, dtype=bool)
+    for k in range(n):  # fallback only
+        try:
+            with warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                st = IAPWS97(P=float(p[k]), T=float(t[k]))
+            v = float(getattr(st, prop))
+        except Exception:  # noqa: BLE001 - any failure of the third-party solver flags the point
+            continue
+        if getattr(st, "status", 0) == 1 and math.isfinite(v):
+            vals[k], reg[k], ok[k] = v, int(st.region), True
+    return vals, reg, ok
+
+
+def _core_region(p, t):
+    reg, reason = _region_pt(p, t)
+    return reg.astype(np.int64), reason, reg, 0
+
+
+def _core_psat(t):
+    n = t.shape[0]
+    reason = np.zeros(n, dtype=np.int8)
+    finite = np.isfinite(t)
+    reason[~finite] = NOT_FINITE
+    ok = finite & (t >= T_MIN) & (t <= T_CRIT)
+    reason[finite & ~ok] = OUT_OF_RANGE_T
+    out = np.full(n, np.nan)
+    out[ok] = _psat(t[ok])
+    return out, reason, np.where(ok, 4, 0).astype(np.int8), 0
+
+
+def _core_tsat(p):
+    n = p.shape[0]
+    reason = np.zeros(n, dtype=np.int8)
+    finite = np.isfinite(p)
+    reason[~finite] = NOT_FINITE
+    ok = finite & (p >= P_MIN) & (p <= P_CRIT)
+    reason[finite & ~ok] = OUT_OF_RANGE_P
+    out = np.full(n, np.nan)
+    out[ok] = _tsat(p[ok])
+    return out, reason, np.where(ok, 4, 0).astype(np.int8), 0
+
+
+def _core_sat(prop, quality):
+    def core(p):
+        n = p.shape[0]
+        reason = np.zeros(n, dtype=np.int8)
+        finite = np.isfinite(p)
+        reason[~finite] = NOT_FINITE
+        ok = finite & (p >= P_MIN) & (p <= P_CRIT)
+        reason[finite & ~ok] = OUT_OF_RANGE_P
+        out = np.full(n, np.nan)
+        reg = np.where(ok, 4, 0).astype(np.int8)
+        low = np.flatnonzero(ok & (p <= P_SAT_623))
+        if low.size:
+            fwd = _region1 if quality == 0 else _region2
+            out[low] = fwd(p[low], _tsat(p[low]), {prop})[prop]
+        fb = np.flatnonzero(ok & (p > P_SAT_623))
+        if fb.size:
+            vals, _, fok = _iapws_points(p[fb], np.full(fb.size, float(quality)), "x")
+            out[fb[fok]] = vals[{"h": "h", "s": "s", "v": "v"}[prop]][fok]
+            reason[fb[~fok]] = FALLBACK_FAILED
+        return out, reason, reg, int(fb.size)
+    return core
+
+
+def _core_solve(kind, prop):
+    def core(p, y):
+        val, reason, reg, nfb = _solve(kind, p, y, (prop,))
+        out = val[prop]
+        if prop == "x":
+            single = (reason == OK) & (reg != 4)
+            reason = reason.copy()
+            reason[single] = SINGLE_PHASE
+            out[single] = np.nan
+        return out, reason, reg, nfb
+    return core
+
+
+# --------------------------------------------------------------------------------------------
+# Public layer: input handling (scalar / ndarray / Series), details, errors.
+
+@dataclass(frozen=True)
+class PropertyDetails:
+    """Diagnostics of one call (``return_details=True``).
+
+    Attributes
+    ----------
+    reason : numpy.ndarray of int
+        Per point: 0 (``OK``) or one of the reason codes of this module (``REASON_TEXT``).
+        Same shape as the result.
+    region : numpy.ndarray of int
+        IF97 region used per point (1, 2, 3, 4 = wet/saturation, 5; 0 = not evaluated).
+    n_fallback : int
+        Number of points sent to the iapws package (regions 3 and 5).
+    """
+
+    reason: np.ndarray
+    region: np.ndarray
+    n_fallback: int
+
+
+def _to_array(name, a):
+    if isinstance(a, pd.Series):
+        try:
+            return a.to_numpy(dtype=float, na_value=np.nan)
+        except (TypeError, ValueError) as exc:
+            raise ValueError(f"{name}: expected numbers, found Series of dtype {a.dtype}: {exc}") from None
+    try:
+        return np.asarray(a, dtype=float)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"{name}: expected numbers, found {type(a).__name__}: {exc}") from None
+
+
+def _run_blocks(core, flat):
+    """Run a core over blocks of points so that every temporary stays in cache."""
+    n = flat[0].shape[0]
+    if n <= _BLOCK:
+        with np.errstate(all="ignore"):
+            return core(*flat)
+    value = None
+    reason = np.empty(n, dtype=np.int8)
+    reg = np.empty(n, dtype=np.int8)
+    n_fallback = 0
+    with np.errstate(all="ignore"):
+        for lo in range(0, n, _BLOCK):
+            sl = slice(lo, lo + _BLOCK)
+            v, r, g, nf = core(*(a[sl] for a in flat))
+            if value is None:
+                value = np.empty(n, dtype=v.dtype)
+            value[sl], reason[sl], reg[sl] = v, r, g
+            n_fallback += nf
+    return value, reason, reg, n_fallback
+
+
+def _call(fname, core, names, args, return_details, valid):
+    index = None
+    for a in args:
+        if isinstance(a, pd.Series):
+            if index is None:
+                index = a.index
+            elif not a.index.equals(index):
+                raise ValueError(f"{fname}: Series arguments must share one index")
+    arrays = [_to_array(n, a) for n, a in zip(names, args)]
+    scalar = index is None and all(a.ndim == 0 for a in arrays)
+    try:
+        bcast = np.broadcast_arrays(*arrays)
+    except ValueError:
+        shapes = ", ".join(f"{n} {a.shape}" for n, a in zip(names, arrays))
+        raise ValueError(f"{fname}: argument shapes do not broadcast: {shapes}") from None
+    shape = bcast[0].shape
+    flat = [np.ascontiguousarray(b, dtype=float).reshape(-1) for b in bcast]
+    value, reason, reg, n_fallback = _run_blocks(core, flat)
+    if scalar:
+        code = int(reason[0])
+        if code not in (OK, SINGLE_PHASE):
+            found = ", ".join(f"{n} = {float(a):g}" for n, a in zip(names, arrays))
+            raise ValueError(f"{fname}({found}): {REASON_TEXT[code]}; valid: {valid}")
+        result = value[0].item()
+    else:
+        result = value.reshape(shape)
+        if index is not None:
+            result = pd.Series(result, index=index)
+    if not return_details:
+        return result
+    details = PropertyDetails(reason=reason.astype(np.int64).reshape(shape),
+                              region=reg.astype(np.int64).reshape(shape),
+                              n_fallback=int(n_fallback))
+    return result, details
+
+
+_CORE_H_PT = _core_pt("h")
+_CORE_S_PT = _core_pt("s")
+_CORE_V_PT = _core_pt("v")
+_CORE_CP_PT = _core_pt("cp")
+
+
+def h_pt(p, t, return_details=False):
+    """Specific enthalpy from pressure and temperature.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    t : array_like
+        Temperature [K]
+    return_details : bool
+        Also return a ``PropertyDetails`` (reason codes, regions, fallback count).
+
+    Returns
+    -------
+    h : float, ndarray or Series
+        Specific enthalpy [kJ/kg]; NaN where the point is outside IF97 (array input).
+
+    Raises
+    ------
+    ValueError
+        Scalar input outside IF97's validity.
+
+    References
+    ----------
+    IAPWS R7-97(2012): region 1 eq. (7), region 2 eq. (15), boundaries eqs. (5) and (30);
+    region 3/5 points through the iapws package.
+    """
+    return _call("h_pt", _CORE_H_PT, ("p", "t"), (p, t), return_details, _RANGE_PT)
+
+
+def s_pt(p, t, return_details=False):
+    """Specific entropy from pressure and temperature.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    t : array_like
+        Temperature [K]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    s : float, ndarray or Series
+        Specific entropy [kJ/(kg K)]
+
+    References
+    ----------
+    IAPWS R7-97(2012): region 1 eq. (7) and Table 3, region 2 eq. (15) and Table 12.
+    """
+    return _call("s_pt", _CORE_S_PT, ("p", "t"), (p, t), return_details, _RANGE_PT)
+
+
+def v_pt(p, t, return_details=False):
+    """Specific volume from pressure and temperature.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    t : array_like
+        Temperature [K]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    v : float, ndarray or Series
+        Specific volume [m3/kg]
+
+    References
+    ----------
+    IAPWS R7-97(2012): region 1 eq. (7) and Table 3, region 2 eq. (15) and Table 12.
+    """
+    return _call("v_pt", _CORE_V_PT, ("p", "t"), (p, t), return_details, _RANGE_PT)
+
+
+def cp_pt(p, t, return_details=False):
+    """Specific isobaric heat capacity from pressure and temperature.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    t : array_like
+        Temperature [K]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    cp : float, ndarray or Series
+        Specific isobaric heat capacity [kJ/(kg K)]
+
+    References
+    ----------
+    IAPWS R7-97(2012): region 1 Table 3, region 2 Table 12.
+    """
+    return _call("cp_pt", _CORE_CP_PT, ("p", "t"), (p, t), return_details, _RANGE_PT)
+
+
+def region(p, t, return_details=False):
+    """IF97 region of each (p, T) point.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    t : array_like
+        Temperature [K]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    region : int, ndarray of int or Series
+        1 (compressed liquid, up to and including the saturation line), 2 (vapour), 3, 5,
+        or 0 outside validity (array input; scalar input raises ValueError).
+
+    References
+    ----------
+    IAPWS R7-97(2012) section 4 and Figure 1; boundaries eq. (5) (B23) and eq. (30).
+    """
+    return _call("region", _core_region, ("p", "t"), (p, t), return_details, _RANGE_PT)
+
+
+def p_sat(t, return_details=False):
+    """Saturation pressure.
+
+    Parameters
+    ----------
+    t : array_like
+        Temperature, 273.15 to 647.096 [K]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    p : float, ndarray or Series
+        Saturation pressure, absolute [MPa]
+
+    References
+    ----------
+    IAPWS R7-97(2012) eq. (30), Table 34.
+    """
+    return _call("p_sat", _core_psat, ("t",), (t,), return_details,
+                 "273.15 <= T <= 647.096 K")
+
+
+def t_sat(p, return_details=False):
+    """Saturation temperature.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute, 0.000611213 to 22.064 [MPa]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    t : float, ndarray or Series
+        Saturation temperature [K]
+
+    References
+    ----------
+    IAPWS R7-97(2012) eq. (31), Table 34.
+    """
+    return _call("t_sat", _core_tsat, ("p",), (p,), return_details,
+                 "0.000611213 <= p <= 22.064 MPa")
+
+
+_RANGE_SAT = "0.000611213 <= p <= 22.064 MPa"
+
+
+def _sat_doc(prop, phase, unit):
+    return f"""Specific {prop} of saturated {phase} at a pressure.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute, 0.000611213 to 22.064 [MPa]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    value : float, ndarray or Series
+        Specific {prop} [{unit}]
+
+    References
+    ----------
+    IAPWS R7-97(2012): T_sat from eq. (31), then region 1 (liquid) or region 2 (vapour);
+    above 16.529 MPa the saturation line lies in region 3 and the iapws package is used.
+    """
+
+
+def _make_sat(name, prop, quality, phase, unit):
+    core = _core_sat(prop, quality)
+
+    def fn(p, return_details=False):
+        return _call(name, core, ("p",), (p,), return_details, _RANGE_SAT)
+
+    fn.__name__ = fn.__qualname__ = name
+    fn.__doc__ = _sat_doc({"h": "enthalpy", "s": "entropy", "v": "volume"}[prop], phase, unit)
+    return fn
+
+
+h_sat_liquid = _make_sat("h_sat_liquid", "h", 0, "liquid", "kJ/kg")
+h_sat_vapour = _make_sat("h_sat_vapour", "h", 1, "vapour", "kJ/kg")
+s_sat_liquid = _make_sat("s_sat_liquid", "s", 0, "liquid", "kJ/(kg K)")
+s_sat_vapour = _make_sat("s_sat_vapour", "s", 1, "vapour", "kJ/(kg K)")
+v_sat_liquid = _make_sat("v_sat_liquid", "v", 0, "liquid", "m3/kg")
+v_sat_vapour = _make_sat("v_sat_vapour", "v", 1, "vapour", "m3/kg")
+
+_CORE_H_PS = _core_solve("s", "h")
+_CORE_T_PS = _core_solve("s", "t")
+_CORE_X_PS = _core_solve("s", "x")
+_CORE_T_PH = _core_solve("h", "t")
+_CORE_X_PH = _core_solve("h", "x")
+_CORE_S_PH = _core_solve("h", "s")
+_CORE_V_PH = _core_solve("h", "v")
+
+_PS_NOTES = """
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,s)
+    (region 1 eq. (13); subregions 2a, 2b, 2c eqs. (25)-(27)) and are polished with Newton
+    steps on the forward equation until s_pt(p, T) matches s (to about 1e-12 kJ/(kg K)).
+    Wet points (s between the saturated-liquid and saturated-vapour entropies) are a mixture
+    of the saturation states with the quality given by s."""
+
+_PH_NOTES = """
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,h)
+    (region 1 eq. (11); subregions 2a, 2b, 2c eqs. (22)-(24), split by p = 4 MPa and the
+    B2bc line eq. (21)) and are polished with Newton steps on the forward equation until
+    h_pt(p, T) matches h (to about 1e-10 kJ/kg). Wet points are a mixture of the saturation
+    states with the quality given by h."""
+
+
+def h_ps(p, s, return_details=False):
+    """Specific enthalpy from pressure and entropy: the isentropic end point.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    s : array_like
+        Specific entropy [kJ/(kg K)]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    h : float, ndarray or Series
+        Specific enthalpy [kJ/kg]
+
+    Notes
+    -----""" + _PS_NOTES + """
+
+    References
+    ----------
+    IAPWS R7-97(2012) sections 5.2.2 and 6.3.2; region 3/5 points through the iapws package.
+    """
+    return _call("h_ps", _CORE_H_PS, ("p", "s"), (p, s), return_details, _RANGE_PS)
+
+
+def t_ps(p, s, return_details=False):
+    """Temperature from pressure and entropy.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    s : array_like
+        Specific entropy [kJ/(kg K)]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    t : float, ndarray or Series
+        Temperature [K] (the saturation temperature for a wet point)
+
+    Notes
+    -----""" + _PS_NOTES + """
+
+    References
+    ----------
+    IAPWS R7-97(2012) sections 5.2.2 and 6.3.2.
+    """
+    return _call("t_ps", _CORE_T_PS, ("p", "s"), (p, s), return_details, _RANGE_PS)
+
+
+def x_ps(p, s, return_details=False):
+    """Vapour quality (dryness fraction) from pressure and entropy.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    s : array_like
+        Specific entropy [kJ/(kg K)]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    x : float, ndarray or Series
+        Quality [-], 0 to 1 in the wet region; NaN for a single-phase state (reason
+        ``SINGLE_PHASE``, not an error: a scalar call returns NaN).
+
+    References
+    ----------
+    IAPWS R7-97(2012) section 8 (saturation line) with regions 1 and 2.
+    """
+    return _call("x_ps", _CORE_X_PS, ("p", "s"), (p, s), return_details, _RANGE_PS)
+
+
+def t_ph(p, h, return_details=False):
+    """Temperature from pressure and enthalpy.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    h : array_like
+        Specific enthalpy [kJ/kg]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    t : float, ndarray or Series
+        Temperature [K] (the saturation temperature for a wet point)
+
+    Notes
+    -----""" + _PH_NOTES + """
+
+    References
+    ----------
+    IAPWS R7-97(2012) sections 5.2.1 and 6.3.1; region 3/5 points through the iapws package.
+    """
+    return _call("t_ph", _CORE_T_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)
+
+
+def x_ph(p, h, return_details=False):
+    """Vapour quality (dryness fraction) from pressure and enthalpy.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    h : array_like
+        Specific enthalpy [kJ/kg]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    x : float, ndarray or Series
+        Quality [-], 0 to 1 in the wet region; NaN for a single-phase state (reason
+        ``SINGLE_PHASE``, not an error: a scalar call returns NaN). Moisture is 1 - x.
+
+    References
+    ----------
+    IAPWS R7-97(2012) section 8 (saturation line) with regions 1 and 2.
+    """
+    return _call("x_ph", _CORE_X_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)
+
+
+def s_ph(p, h, return_details=False):
+    """Specific entropy from pressure and enthalpy.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    h : array_like
+        Specific enthalpy [kJ/kg]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    s : float, ndarray or Series
+        Specific entropy [kJ/(kg K)] (wet: mixture by quality)
+
+    Notes
+    -----""" + _PH_NOTES + """
+
+    References
+    ----------
+    IAPWS R7-97(2012) sections 5.2.1 and 6.3.1.
+    """
+    return _call("s_ph", _CORE_S_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)
+
+
+def v_ph(p, h, return_details=False):
+    """Specific volume from pressure and enthalpy.
+
+    Parameters
+    ----------
+    p : array_like
+        Pressure, absolute [MPa]
+    h : array_like
+        Specific enthalpy [kJ/kg]
+    return_details : bool
+        Also return a ``PropertyDetails``.
+
+    Returns
+    -------
+    v : float, ndarray or Series
+        Specific volume [m3/kg] (wet: mixture by quality)
+
+    Notes
+    -----""" + _PH_NOTES + """
+
+    References
+    ----------
+    IAPWS R7-97(2012) sections 5.2.1 and 6.3.1.
+    """
+    return _call("v_ph", _CORE_V_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)

@@ -1,0 +1,441 @@
+"""Checks of isentrope.calc.steam against IAPWS R7-97(2012) and the iapws package.
+
+Sources: "R7-97(2012) Table N" values are the verification values printed in the IAPWS
+release, recalled from memory and each cross-checked against the iapws package (they agree
+to all nine printed digits); "iapws" means the iapws package (IAPWS97 class) computed in
+the test itself.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pandas as pd
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from iapws import IAPWS97
+
+from isentrope.calc import steam
+
+REL = 1e-8  # tolerance on the printed verification values (they carry nine digits)
+
+# ------------------------------------------------------------------------------------------
+# Verification values of the release.
+
+# R7-97(2012) Table 5, from memory (cross-checked against iapws): region 1 at (T, p).
+TABLE5 = [
+    # T [K], p [MPa], v [m3/kg], h [kJ/kg], s [kJ/(kg K)], cp [kJ/(kg K)]
+    (300.0, 3.0, 0.100215168e-2, 0.115331273e3, 0.392294792, 0.417301218e1),
+    (300.0, 80.0, 0.971180894e-3, 0.184142828e3, 0.368563852, 0.401008987e1),
+    (500.0, 3.0, 0.120241800e-2, 0.975542239e3, 0.258041912e1, 0.465580682e1),
+]
+
+# R7-97(2012) Table 15, from memory (cross-checked against iapws): region 2 at (T, p).
+TABLE15 = [
+    (300.0, 0.0035, 0.394913866e2, 0.254991145e4, 0.852238967e1, 0.191300162e1),
+    (700.0, 0.0035, 0.923015898e2, 0.333568375e4, 0.101749996e2, 0.208141274e1),
+    (700.0, 30.0, 0.542946619e-2, 0.263149474e4, 0.517540298e1, 0.103505092e2),
+]
+
+# R7-97(2012) Table 35 (p_sat) and Table 36 (T_sat); also in shared/REFERENCES.md.
+TABLE35 = [(300.0, 0.353658941e-2), (500.0, 0.263889776e1), (600.0, 0.123443146e2)]
+TABLE36 = [(0.1, 0.372755919e3), (1.0, 0.453035632e3), (10.0, 0.584149488e3)]
+
+# R7-97(2012) Table 7, from memory (cross-checked against iapws): backward T(p,h), region 1.
+TABLE7 = [(3.0, 500.0, 0.391798509e3), (80.0, 500.0, 0.378108626e3), (80.0, 1500.0, 0.611041229e3)]
+
+# R7-97(2012) Table 9, from memory (cross-checked against iapws): backward T(p,s), region 1.
+TABLE9 = [(3.0, 0.5, 0.307842258e3), (80.0, 0.5, 0.309979785e3), (80.0, 3.0, 0.565899909e3)]
+
+# R7-97(2012) Table 24, from memory (cross-checked against iapws): backward T(p,h), region 2.
+TABLE24 = [
+    ("_t2a_ph", 0.001, 3000.0, 0.534433241e3),
+    ("_t2a_ph", 3.0, 3000.0, 0.575373370e3),
+    ("_t2a_ph", 3.0, 4000.0, 0.101077577e4),
+    ("_t2b_ph", 5.0, 3500.0, 0.801299102e3),
+    ("_t2b_ph", 5.0, 4000.0, 0.101531583e4),
+    ("_t2b_ph", 25.0, 3500.0, 0.875279054e3),
+    ("_t2c_ph", 40.0, 2700.0, 0.743056411e3),
+    ("_t2c_ph", 60.0, 2700.0, 0.791137067e3),
+    ("_t2c_ph", 60.0, 3200.0, 0.882756860e3),
+]
+
+# R7-97(2012) Table 29, from memory (cross-checked against iapws): backward T(p,s), region 2.
+TABLE29 = [
+    ("_t2a_ps", 0.1, 7.5, 0.399517097e3),
+    ("_t2a_ps", 0.1, 8.0, 0.514127081e3),
+    ("_t2a_ps", 2.5, 8.0, 0.103984917e4),
+    ("_t2b_ps", 8.0, 6.0, 0.600484040e3),
+    ("_t2b_ps", 8.0, 7.5, 0.106495556e4),
+    ("_t2b_ps", 90.0, 6.0, 0.103801126e4),
+    ("_t2c_ps", 20.0, 5.75, 0.697992849e3),
+    ("_t2c_ps", 80.0, 5.25, 0.854011484e3),
+    ("_t2c_ps", 80.0, 5.75, 0.949017998e3),
+]
+
+
+@pytest.mark.parametrize("t, p, v, h, s, cp", TABLE5 + TABLE15)
+def test_forward_verification_values(t, p, v, h, s, cp):
+    assert steam.h_pt(p, t) == pytest.approx(h, rel=REL)
+    assert steam.s_pt(p, t) == pytest.approx(s, rel=REL)
+    assert steam.v_pt(p, t) == pytest.approx(v, rel=REL)
+    assert steam.cp_pt(p, t) == pytest.approx(cp, rel=REL)
+
+
+@pytest.mark.parametrize("t, p", [(t, p) for t, p in TABLE35])
+def test_saturation_pressure_table35(t, p):
+    assert steam.p_sat(t) == pytest.approx(p, rel=REL)
+
+
+@pytest.mark.parametrize("p, t", TABLE36)
+def test_saturation_temperature_table36(p, t):
+    assert steam.t_sat(p) == pytest.approx(t, rel=REL)
+
+
+def test_b23_boundary():
+    # R7-97(2012) section 4, check of eqs. (5)/(6), from memory (iapws _P23_T agrees):
+    # T = 623.15 K <-> p = 0.165291643e2 MPa.
+    assert steam._p_b23(623.15) == pytest.approx(0.165291643e2, rel=REL)
+    assert steam._t_b23(0.165291643e2) == pytest.approx(623.15, rel=REL)
+
+
+def test_b2bc_boundary():
+    # R7-97(2012) section 6.3.1, check of eqs. (20)/(21), from memory (iapws _P_2bc agrees):
+    # h = 0.3516004323e4 kJ/kg <-> p = 0.100e3 MPa.
+    assert steam._p_b2bc(0.3516004323e4) == pytest.approx(100.0, rel=REL)
+    assert steam._h_b2bc(100.0) == pytest.approx(0.3516004323e4, rel=REL)
+
+
+@pytest.mark.parametrize("p, h, t", TABLE7)
+def test_backward_t_ph_region1_table7(p, h, t):
+    assert steam._t1_ph(np.array([p]), np.array([h]))[0] == pytest.approx(t, rel=REL)
+
+
+@pytest.mark.parametrize("p, s, t", TABLE9)
+def test_backward_t_ps_region1_table9(p, s, t):
+    assert steam._t1_ps(np.array([p]), np.array([s]))[0] == pytest.approx(t, rel=REL)
+
+
+@pytest.mark.parametrize("fn, p, h, t", TABLE24)
+def test_backward_t_ph_region2_table24(fn, p, h, t):
+    assert getattr(steam, fn)(np.array([p]), np.array([h]))[0] == pytest.approx(t, rel=REL)
+    # The subregion choice of the combined start-value function picks the same equation.
+    assert steam._t2_ph(np.array([p]), np.array([h]))[0] == pytest.approx(t, rel=REL)
+
+
+@pytest.mark.parametrize("fn, p, s, t", TABLE29)
+def test_backward_t_ps_region2_table29(fn, p, s, t):
+    assert getattr(steam, fn)(np.array([p]), np.array([s]))[0] == pytest.approx(t, rel=REL)
+    assert steam._t2_ps(np.array([p]), np.array([s]))[0] == pytest.approx(t, rel=REL)
+
+
+@pytest.mark.parametrize("t, p", [(300.0, 3.0), (500.0, 3.0), (300.0, 80.0)])
+def test_polished_inverse_at_table5_points(t, p):
+    # Newton polish: t_ph and t_ps return the temperature of the forward equation exactly.
+    h = steam.h_pt(p, t)
+    s = steam.s_pt(p, t)
+    assert steam.t_ph(p, h) == pytest.approx(t, abs=1e-9)
+    assert steam.t_ps(p, s) == pytest.approx(t, abs=1e-9)
+    assert abs(steam.s_pt(p, steam.t_ps(p, s)) - s) <= 1e-9
+
+
+# ------------------------------------------------------------------------------------------
+# Against the iapws package on a dense grid of turbine duty.
+
+def _grid_pt():
+    p = np.geomspace(0.001, 35.0, 36)
+    t = np.linspace(273.16, 1073.15, 50)
+    pp, tt = (a.ravel() for a in np.meshgrid(p, t))
+    # Both sides of the saturation line and of the B23 line.
+    ps = np.geomspace(0.001, 16.0, 30)
+    ts = steam.t_sat(ps)
+    pb = np.linspace(16.6, 35.0, 12)
+    tb = steam._t_b23(pb)
+    extra_p = np.concatenate([ps] * 4 + [pb] * 2)
+    extra_t = np.concatenate([ts - 0.5, ts - 1e-3, ts + 1e-3, ts + 0.5, tb + 1e-3, tb + 0.5])
+    return np.concatenate([pp, extra_p]), np.concatenate([tt, extra_t])
+
+
+def _iapws_pt(p, t):
+    h = np.empty(p.size)
+    s = np.empty(p.size)
+    for k, (a, b) in enumerate(zip(p, t)):
+        w = IAPWS97(P=float(a), T=float(b))
+        h[k], s[k] = w.h, w.s
+    return h, s
+
+
+def test_h_s_against_iapws_dense_grid():
+    p, t = _grid_pt()
+    reg = steam.region(p, t)
+    keep = (reg == 1) | (reg == 2)  # region 3 points would be iapws against itself
+    p, t = p[keep], t[keep]
+    h, dh = steam.h_pt(p, t, return_details=True)
+    s = steam.s_pt(p, t)
+    h_ref, s_ref = _iapws_pt(p, t)
+    assert dh.n_fallback == 0
+    assert np.all(dh.reason == steam.OK)
+    # h and s pass through zero near the triple point (273.16 K): relative difference where
+    # they exceed 1 kJ/kg and 0.01 kJ/(kg K), absolute difference below that.
+    big = np.abs(h_ref) > 1.0
+    assert np.max(np.abs(h[big] / h_ref[big] - 1.0)) <= 1e-9
+    assert np.max(np.abs(h[~big] - h_ref[~big])) <= 1e-9
+    big = np.abs(s_ref) > 0.01
+    assert np.max(np.abs(s[big] / s_ref[big] - 1.0)) <= 1e-9
+    assert np.max(np.abs(s[~big] - s_ref[~big])) <= 1e-11
+
+
+def test_region_against_iapws_dense_grid():
+    p, t = _grid_pt()
+    reg = steam.region(p, t)
+    ref = np.array([IAPWS97(P=float(a), T=float(b)).region for a, b in zip(p[::7], t[::7])])
+    assert np.array_equal(reg[::7], ref)
+
+
+def _grid_ps():
+    # Pressures of turbine duty, entropies from compressed liquid through wet to superheated.
+    p = np.geomspace(0.001, 35.0, 30)
+    s = np.linspace(0.05, 9.6, 45)
+    pp, ss = (a.ravel() for a in np.meshgrid(p, s))
+    return pp, ss
+
+
+def test_h_ps_against_iapws_dense_grid():
+    p, s = _grid_ps()
+    h, d = steam.h_ps(p, s, return_details=True)
+    ref = np.full(p.size, np.nan)
+    for k, (a, b) in enumerate(zip(p, s)):
+        if d.region[k] in (3, 5):
+            continue  # sent to iapws: nothing independent to compare
+        try:
+            w = IAPWS97(P=float(a), s=float(b))
+        except NotImplementedError:
+            continue
+        if w.status:
+            ref[k] = w.h
+    both = np.isfinite(ref) & np.isfinite(h)
+    assert both.sum() > 900
+    assert np.max(np.abs(h[both] - ref[both])) <= 1e-6
+    # A point iapws evaluates in regions 1, 2 or 4 is never NaN here.
+    assert not np.any(np.isfinite(ref) & ~np.isfinite(h))
+    wet = both & (d.region == 4)
+    assert wet.sum() > 150
+
+
+def test_t_ph_and_x_ph_against_iapws():
+    p = np.geomspace(0.002, 30.0, 25)
+    h = np.linspace(100.0, 4000.0, 40)
+    pp, hh = (a.ravel() for a in np.meshgrid(p, h))
+    t, d = steam.t_ph(pp, hh, return_details=True)
+    x = steam.x_ph(pp, hh)
+    s = steam.s_ph(pp, hh)
+    v = steam.v_ph(pp, hh)
+    for k in range(0, pp.size, 3):
+        if d.region[k] not in (1, 2, 4):
+            continue
+        w = IAPWS97(P=float(pp[k]), h=float(hh[k]))
+        assert t[k] == pytest.approx(w.T, rel=1e-9, abs=1e-7)
+        assert s[k] == pytest.approx(w.s, rel=1e-9, abs=1e-10)
+        assert v[k] == pytest.approx(w.v, rel=1e-8)
+        if w.region == 4:
+            assert x[k] == pytest.approx(w.x, abs=1e-9)
+        else:
+            assert math.isnan(x[k])
+
+
+# ------------------------------------------------------------------------------------------
+# Worked cross-checks (shared/REFERENCES.md, IF97 figures computed with iapws).
+
+def test_turbine_end_points_references_md():
+    # Large reheat unit, HP section: 16.55 MPa / 538 degC -> 3.9 MPa: h_s 2988.58 kJ/kg.
+    s_in = steam.s_pt(16.55, 538.0 + 273.15)
+    assert steam.h_pt(16.55, 811.15) == pytest.approx(3400.32, abs=0.01)
+    assert steam.h_ps(3.9, s_in) == pytest.approx(2988.58, abs=0.01)
+    # LP: 0.95 MPa / 350 degC -> 5 kPa: h_s 2234.47 kJ/kg, x 0.8653 (wet end point).
+    s_lp = steam.s_pt(0.95, 623.15)
+    assert steam.h_ps(0.005, s_lp) == pytest.approx(2234.47, abs=0.01)
+    assert steam.x_ps(0.005, s_lp) == pytest.approx(0.8653, abs=1e-4)
+    # Textbook adiabatic turbine, 3 MPa / 400 degC -> 50 kPa: h2s 2407.82 kJ/kg (iapws).
+    assert steam.h_ps(0.05, steam.s_pt(3.0, 673.15)) == pytest.approx(2407.82, abs=0.01)
+
+
+def test_wet_end_point_matches_iapws_exactly():
+    s = steam.s_pt(0.95, 623.15)
+    ref = IAPWS97(P=0.005, s=s)
+    assert steam.h_ps(0.005, s) == pytest.approx(ref.h, abs=1e-6)
+    assert steam.x_ps(0.005, s) == pytest.approx(ref.x, abs=1e-10)
+    assert steam.t_ps(0.005, s) == pytest.approx(ref.T, abs=1e-8)
+    h = steam.h_ps(0.005, s)
+    assert steam.x_ph(0.005, h) == pytest.approx(ref.x, abs=1e-9)
+
+
+def test_saturation_properties_against_iapws():
+    p = np.array([0.001, 0.005, 0.1, 1.0, 5.0, 10.0, 16.0, 18.0, 21.0])
+    out = {f: getattr(steam, f)(p) for f in (
+        "h_sat_liquid", "h_sat_vapour", "s_sat_liquid", "s_sat_vapour",
+        "v_sat_liquid", "v_sat_vapour")}
+    for k, pk in enumerate(p):
+        liq, vap = IAPWS97(P=float(pk), x=0.0), IAPWS97(P=float(pk), x=1.0)
+        assert out["h_sat_liquid"][k] == pytest.approx(liq.h, rel=1e-9)
+        assert out["h_sat_vapour"][k] == pytest.approx(vap.h, rel=1e-9)
+        assert out["s_sat_liquid"][k] == pytest.approx(liq.s, rel=1e-9)
+        assert out["s_sat_vapour"][k] == pytest.approx(vap.s, rel=1e-9)
+        assert out["v_sat_liquid"][k] == pytest.approx(liq.v, rel=1e-9)
+        assert out["v_sat_vapour"][k] == pytest.approx(vap.v, rel=1e-9)
+    _, d = steam.h_sat_vapour(p, return_details=True)
+    assert d.n_fallback == 2  # 18 and 21 MPa lie in region 3
+    assert np.array_equal(d.reason, np.zeros(p.size, dtype=np.int64))
+
+
+def test_region3_and_region5_fall_back_to_iapws():
+    p = np.array([25.0, 30.0, 5.0])
+    t = np.array([650.0, 680.0, 1200.0])  # region 3, region 3, region 5
+    h, d = steam.h_pt(p, t, return_details=True)
+    assert d.region.tolist() == [3, 3, 5]
+    assert d.n_fallback == 3
+    for k in range(3):
+        assert h[k] == pytest.approx(IAPWS97(P=float(p[k]), T=float(t[k])).h, rel=1e-12)
+    hs, ds = steam.h_ps(np.array([25.0]), steam.s_pt(25.0, 650.0), return_details=True)
+    assert ds.n_fallback == 1
+    assert hs[0] == pytest.approx(h[0], abs=1e-5)
+
+
+# ------------------------------------------------------------------------------------------
+# Properties (hypothesis).
+
+pressures = st.floats(min_value=0.001, max_value=35.0)
+temperatures = st.floats(min_value=273.16, max_value=1073.15)
+
+
+def _in_12(p, t):
+    return int(steam.region(p, t)) in (1, 2)
+
+
+@settings(max_examples=80, deadline=None)
+@given(pressures, temperatures)
+def test_h_ps_inverts_s_pt(p, t):
+    if not _in_12(p, t):
+        return
+    s = steam.s_pt(p, t)
+    h = steam.h_pt(p, t)
+    assert steam.h_ps(p, s) == pytest.approx(h, rel=1e-11, abs=1e-7)
+    assert abs(steam.s_pt(p, steam.t_ps(p, s)) - s) <= 1e-9
+
+
+@settings(max_examples=80, deadline=None)
+@given(pressures, temperatures)
+def test_t_ph_inverts_h_pt(p, t):
+    if not _in_12(p, t):
+        return
+    assert steam.t_ph(p, steam.h_pt(p, t)) == pytest.approx(t, abs=1e-7)
+
+
+@settings(max_examples=80, deadline=None)
+@given(pressures, temperatures, temperatures)
+def test_h_rises_with_t(p, t1, t2):
+    lo, hi = min(t1, t2), max(t1, t2)
+    if hi - lo < 1e-6 or not (_in_12(p, lo) and _in_12(p, hi)):
+        return
+    assert steam.h_pt(p, hi) > steam.h_pt(p, lo)
+
+
+# ------------------------------------------------------------------------------------------
+# Input types, errors, reason codes.
+
+def test_scalar_in_float_out():
+    h = steam.h_pt(3.0, 300.0)
+    assert type(h) is float
+    assert type(steam.h_ps(1.0, 6.5)) is float
+    assert type(steam.region(3.0, 300.0)) is int
+
+
+def test_ndarray_broadcasting_keeps_shape():
+    p = np.array([[1.0], [10.0]])
+    t = np.array([400.0, 500.0, 800.0])
+    h = steam.h_pt(p, t)
+    assert h.shape == (2, 3)
+    assert h[1, 2] == pytest.approx(steam.h_pt(10.0, 800.0), rel=1e-15)
+    h2, d = steam.h_ps(p, np.array([1.0, 6.0, 7.0]), return_details=True)
+    assert h2.shape == d.reason.shape == d.region.shape == (2, 3)
+
+
+def test_series_in_series_out_same_index():
+    idx = pd.date_range("2026-01-01", periods=4, freq="1min", tz="UTC", name="time")
+    p = pd.Series([16.5, 16.6, 16.4, 16.55], index=idx)
+    t = pd.Series([811.0, 812.0, 810.0, 811.5], index=idx)
+    h = steam.h_pt(p, t)
+    assert isinstance(h, pd.Series)
+    assert h.index.equals(idx)
+    s = steam.s_pt(p, t)
+    h_end = steam.h_ps(3.9, s)
+    assert isinstance(h_end, pd.Series) and h_end.index.equals(idx)
+    assert h_end.iloc[0] == pytest.approx(steam.h_ps(3.9, steam.s_pt(16.5, 811.0)), rel=1e-14)
+
+
+def test_series_with_different_index_is_an_error():
+    a = pd.Series([1.0, 2.0], index=[0, 1])
+    b = pd.Series([400.0, 500.0], index=[1, 2])
+    with pytest.raises(ValueError, match="share one index"):
+        steam.h_pt(a, b)
+
+
+@pytest.mark.parametrize("fn, args, code", [
+    (steam.h_pt, (120.0, 500.0), steam.OUT_OF_RANGE_P),
+    (steam.h_pt, (1.0, 200.0), steam.OUT_OF_RANGE_T),
+    (steam.h_pt, (60.0, 1500.0), steam.OUT_OF_RANGE_P),
+    (steam.h_pt, (-1.0, 500.0), steam.OUT_OF_RANGE_P),
+    (steam.s_pt, (float("nan"), 500.0), steam.NOT_FINITE),
+    (steam.t_sat, (30.0,), steam.OUT_OF_RANGE_P),
+    (steam.p_sat, (700.0,), steam.OUT_OF_RANGE_T),
+    (steam.h_ps, (1.0, -3.0), steam.OUT_OF_RANGE_S),
+    (steam.h_ps, (0.0001, 7.0), steam.OUT_OF_RANGE_P),
+    (steam.t_ph, (1.0, -500.0), steam.OUT_OF_RANGE_H),
+    (steam.h_sat_liquid, (23.0,), steam.OUT_OF_RANGE_P),
+])
+def test_out_of_range_scalar_raises_array_flags(fn, args, code):
+    with pytest.raises(ValueError, match="valid"):
+        fn(*args)
+    arrays = [np.array([a, a]) for a in args]
+    value, d = fn(*arrays, return_details=True)
+    assert np.all(np.isnan(value))
+    assert np.all(d.reason == code)
+
+
+def test_bad_point_does_not_spoil_its_neighbours():
+    p = np.array([16.55, 120.0, np.nan, 3.9])
+    t = np.array([811.15, 800.0, 800.0, 603.15])
+    h, d = steam.h_pt(p, t, return_details=True)
+    assert d.reason.tolist() == [steam.OK, steam.OUT_OF_RANGE_P, steam.NOT_FINITE, steam.OK]
+    assert h[0] == pytest.approx(steam.h_pt(16.55, 811.15), rel=1e-15)
+    assert h[3] == pytest.approx(steam.h_pt(3.9, 603.15), rel=1e-15)
+    assert np.isnan(h[1]) and np.isnan(h[2])
+
+
+def test_x_is_nan_for_single_phase_not_an_error():
+    assert math.isnan(steam.x_ph(1.0, 3000.0))
+    x, d = steam.x_ph(np.array([1.0, 1.0]), np.array([3000.0, 2000.0]), return_details=True)
+    assert math.isnan(x[0]) and 0.0 < x[1] < 1.0
+    assert d.reason.tolist() == [steam.SINGLE_PHASE, steam.OK]
+
+
+def test_non_numeric_input_is_a_clear_error():
+    with pytest.raises(ValueError, match="expected numbers"):
+        steam.h_pt("hot", 500.0)
+
+
+def test_every_reason_has_a_text():
+    for code in (steam.OK, steam.OUT_OF_RANGE_P, steam.OUT_OF_RANGE_T, steam.OUT_OF_RANGE_H,
+                 steam.OUT_OF_RANGE_S, steam.NOT_FINITE, steam.NO_CONVERGENCE,
+                 steam.FALLBACK_FAILED, steam.SINGLE_PHASE):
+        assert steam.REASON_TEXT[code]
+
+
+def test_large_input_is_evaluated_in_blocks_consistently():
+    n = 3 * steam._BLOCK + 17
+    p = np.full(n, 0.5)
+    t = np.linspace(300.0, 1000.0, n)
+    h = steam.h_pt(p, t)
+    assert h[-1] == pytest.approx(steam.h_pt(0.5, 1000.0), rel=1e-15)
+    assert h[steam._BLOCK] == pytest.approx(steam.h_pt(0.5, float(t[steam._BLOCK])), rel=1e-15)
