@@ -381,3 +381,32 @@ def test_single_problem_message(tmp_path, capsys):
     assert capsys.readouterr().err == (
         f"isentrope: configuration error: {path}:{line_of(text, 'hysteresis')}: alarms.hysteresis: "
         "expected a value >= 0, found -1.0\n")
+
+
+TABLE_KEYS = {
+    "screening": ["flatline", "spike_window", "spike_threshold"],
+    "steady": ["window", "min_length", "max_gap", "temperature_k"],
+    "alarms": ["persistence", "hysteresis", "cusum_k"],
+    "schedule": ["interval", "settle", "lookback", "retries"],
+}
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from(sorted(TABLE_KEYS)), st.integers(0, 3), st.integers(0, 4)),
+                min_size=1, max_size=4, unique_by=lambda t: t[0]))
+def test_reported_lines_point_at_the_misspelt_key(picks):
+    """Whatever tables hold misspelt keys, and wherever, each message names the right line."""
+    extra, expected = [], {}
+    for table, which, blank_lines in picks:
+        good = TABLE_KEYS[table][which % len(TABLE_KEYS[table])]
+        typo = good[:-1] + "q" + good[-1]  # one letter inserted: close enough to suggest
+        extra.append(f"[{table}]" + "\n" * (blank_lines + 1) + f"{typo} = 1\n")
+        expected[f"{table}.{typo}"] = good
+    text = minimal("\n".join(extra))
+    got = problems(text)
+    assert len(got) == len(expected)
+    for message in got:
+        where, key, rest = message.split(": ", 2)
+        line = next(n for n, t in enumerate(text.splitlines(), 1) if t.startswith(key.split(".")[1] + " = 1"))
+        assert where == f"unit.toml:{line}"
+        assert rest == f"unknown key; did you mean '{expected[key]}'?"
