@@ -339,6 +339,21 @@ def _frozen(a):
     return a
 
 
+def _ipow(x, k):
+    """x**k for an integer k by repeated squaring (a libm pow per point is several times
+    slower than these few multiplications)."""
+    base = 1.0 / x if k < 0 else x
+    k = abs(k)
+    result = None
+    while k:
+        if k & 1:
+            result = base.copy() if result is None else result * base
+        k >>= 1
+        if k:
+            base = base * base
+    return np.ones_like(x) if result is None else result
+
+
 class _PowerPlan:
     """How to build x^e for a sorted set of integer exponents e by multiplication only.
 
@@ -363,10 +378,8 @@ class _PowerPlan:
             out[0] = 1.0
         elif first == 1:
             out[0] = x
-        elif first == -1:
-            np.divide(1.0, x, out=out[0])
         else:
-            np.power(x, float(first), out=out[0])
+            out[0] = _ipow(x, first)
         if self.max_step:
             ladder = [None, x]
             for d in range(2, self.max_step + 1):
@@ -409,12 +422,13 @@ class _PowerSum:
 
     @staticmethod
     def _accumulate(rows, xp, m):
-        a = np.zeros((len(rows), m))
+        a = np.empty((len(rows), m))
         tmp = np.empty(m)
         for r, (pos, coef) in enumerate(rows):
-            if not pos:
-                continue
             row = a[r]
+            if not pos:
+                row[:] = 0.0
+                continue
             np.multiply(xp[pos[0]], coef[0], out=row)
             for q, c in zip(pos[1:], coef[1:]):
                 np.multiply(xp[q], c, out=tmp)
@@ -710,9 +724,11 @@ _MAX_NEWTON = 8
 _ACCEPT = {"s": 1e-8, "h": 1e-5}
 
 
-def _newton(region, kind, p, y, t0, t_lo, t_hi, extra):
+def _newton(region, kind, p, y, t0, t_lo, t_hi, extra, exit_lo=False):
     """Solve kind(p, T) = y for T with the forward equation of ``region``.
 
+    Iterates stay within [t_lo, t_hi]; with ``exit_lo`` a point whose iterate falls below
+    t_lo leaves instead (not converged): used when trying region 2 first.
     Returns (t, converged, props) where props holds "h", "s" and, if asked in ``extra``,
     "v" at the solution (h or s corrected to first order for the last step: dh = T ds).
     """
@@ -746,6 +762,8 @@ def _newton(region, kind, p, y, t0, t_lo, t_hi, extra):
         if "v" in props:
             props["v"][di] = pr["v"][done]
         keep = ~done & np.isfinite(t_new)
+        if exit_lo:
+            keep &= t_new >= t_lo[act]
         act = act[keep]
         t[act] = np.clip(t_new[keep], t_lo[act], t_hi[act])
     if "v" in props and conv.any():
@@ -790,14 +808,16 @@ def _solve(kind, p, y, want):
     #    converged T lies at or above the region-2 boundary temperature is in region 2
     #    (s and h rise with T along an isobar, so no other region can hold it).
     t0 = _BACKWARD[(2, kind)](pp, yy)
-    cand = np.isfinite(t0) & (t0 >= t_b - 20.0)
+    #    The backward equations are within about 0.03 K of the solution inside region 2,
+    #    so a start value more than 2 K below the boundary is a wet or liquid point.
+    cand = np.isfinite(t0) & (t0 >= t_b - 2.0)
     ci = np.flatnonzero(cand)
     done = np.zeros(idx.size, dtype=bool)
     to_fallback = np.zeros(idx.size, dtype=bool)
     if ci.size:
-        lo = np.maximum(t_b[ci] - 30.0, 200.0)
+        lo = t_b[ci] - 2.0
         hi = np.full(ci.size, 1078.0)
-        t, conv, props = _newton(2, kind, pp[ci], yy[ci], t0[ci], lo, hi, want)
+        t, conv, props = _newton(2, kind, pp[ci], yy[ci], t0[ci], lo, hi, want, exit_lo=True)
         acc = conv & (t >= t_b[ci] - 1e-9) & (t <= T_MAX_2 + 1e-9)
         # Keep T inside region 2 when rounding put it a hair outside (|dT| <= 1e-9 K).
         t = np.clip(t, t_b[ci], T_MAX_2)
