@@ -370,7 +370,8 @@ def fit_baseline(
     degree : int
         1 (straight line) or 2 (quadratic, default) in load fraction [-].
     reference_period : (start, end) or None
-        Keep only windows with ``start <= time <= end`` [UTC timestamps]; None uses all.
+        Keep only windows with ``start <= time <= end`` [UTC timestamps]; None uses all,
+        and a None end leaves that side open.
     load_margin : float
         Allowed excursion beyond the covered load fraction range when predicting
         [load fraction].
@@ -407,8 +408,13 @@ def fit_baseline(
     if reference_period is not None:
         if not isinstance(frame.index, pd.DatetimeIndex):
             raise ValueError("reference_period needs windows indexed by a DatetimeIndex")
-        start, end = (pd.Timestamp(t) for t in reference_period)
-        frame = frame[(frame.index >= start) & (frame.index <= end)]
+        start, end = reference_period
+        keep = np.ones(len(frame), dtype=bool)
+        if start is not None:
+            keep &= frame.index >= pd.Timestamp(start)
+        if end is not None:
+            keep &= frame.index <= pd.Timestamp(end)
+        frame = frame[keep]
     data = frame[needed].astype(float)
     data = data[np.isfinite(data.to_numpy()).all(axis=1)]
     n_params = 1 + degree + len(extra_cols)

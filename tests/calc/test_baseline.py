@@ -149,6 +149,11 @@ def test_reference_period_selects_windows():
                      reference_period=(w.index[0], w.index[39]))
     assert m.n_windows == 40
     assert m.reference_end == w.index[39].isoformat()
+    open_start = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING,
+                              reference_period=(None, w.index[29]))
+    assert open_start.n_windows == 30
+    assert fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING,
+                        reference_period=(None, None)).n_windows == 80
 
 
 def test_deviation_points_and_uncertainty():
