@@ -39,7 +39,7 @@ Operating model (all invented, documented so that a reader can check the output)
   towards ambient and come back during the two hours before a start-up.
 * Sensor noise (standard deviations, common practice, no source): pressure 0.07 % of
   reading, condenser 0.03 kPa + 0.2 %, temperature 0.4 K, output 0.15 % + 0.05 MW, flow
-  0.5 %, valve position 0.1 %, barometric 0.01 kPa.
+  0.5 % + 0.5 kg/s, valve position 0.1 %, barometric 0.01 kPa.
 
 Faults: one transmitter holds its last value (flatline), a stretch of rows is absent (data
 gap: the rows are dropped, so a store written from the frame sees no samples there), and a
@@ -122,6 +122,7 @@ NOISE = {
     "output_rel": 0.0015,
     "output_abs_mw": 0.05,
     "flow_rel": 0.005,
+    "flow_abs_kgs": 0.5,
     "valve_abs": 0.1,
 }
 
@@ -174,7 +175,7 @@ TAG_MAP: dict[str, dict] = {
     "lp_extraction_t": {"tag": "GB2-LPX-T05", "unit": "degC", "range": [0.0, 400.0], "uncertainty": 0.5},
     "condenser_p": {"tag": "GB2-CND-P01", "unit": "inHgA", "range": [0.0, 31.0], "uncertainty": 0.5},
     "gross_output": {"tag": "GB2-GEN-MW01", "unit": "MW", "range": [-10.0, 600.0], "uncertainty": 0.2},
-    "main_steam_flow": {"tag": "GB2-MST-F01", "unit": "t/h", "range": [0.0, 2000.0], "uncertainty": 1.0},
+    "main_steam_flow": {"tag": "GB2-MST-F01", "unit": "t/h", "range": [-50.0, 2000.0], "uncertainty": 1.0},
     "first_stage_p": {"tag": "GB2-FST-P01", "unit": "bar(g)", "range": [-1.0, 160.0], "uncertainty": 0.1},
     "valve_position": {"tag": "GB2-HPV-Z01", "unit": "%", "range": [-5.0, 105.0], "uncertainty": 0.5},
     "barometric_p": {"tag": "GB2-AMB-P01", "unit": "kPa(a)", "range": [85.0, 110.0], "uncertainty": 0.05},
@@ -290,6 +291,31 @@ def tag_map_toml(tag_map: Mapping[str, Mapping] = TAG_MAP) -> str:
     return "\n".join(lines)
 
 
+def config_toml(store_path: str = "greywater2.sqlite", tag_map: Mapping[str, Mapping] = TAG_MAP) -> str:
+    """A complete configuration of the synthetic unit (``[unit]``, SQLite ``[store]``, roles).
+
+    Every option not written here takes its documented default (deploy/example.toml).
+    """
+    head = [
+        "# Greywater Bend Station, Unit 2: a fictional unit (isentrope.daemon.synthetic).",
+        "# Demonstration data only. isentrope gives advisory performance information, not a",
+        "# protective function; the turbine maker's limits, local codes and licensed",
+        "# engineering practice take precedence.",
+        "",
+        "[unit]",
+        f"name = {json.dumps(SCENARIO['plant'].replace(' Station', '') + ' ' + SCENARIO['unit'].split()[-1])}",
+        f"plant = {json.dumps(SCENARIO['plant'])}",
+        f"rating_mw = {SCENARIO['rating_mw']!r}",
+        f"online_mw = {SCENARIO['online_mw']!r}",
+        "",
+        "[store]",
+        'kind = "sqlite"',
+        f"path = {json.dumps(store_path)}",
+        "",
+    ]
+    return "\n".join(head) + "\n" + tag_map_toml(tag_map)
+
+
 # --- helpers --------------------------------------------------------------------------------
 def design_efficiency(section: str, load_fraction):
     """Design (clean) efficiency of ``section`` ("hp", "ip", "lp") at ``load_fraction`` [-]."""
@@ -330,17 +356,25 @@ def _iso(t: pd.Timestamp) -> str:
 
 
 def _auto_events(start: pd.Timestamp, days: float) -> dict:
-    """Default event placement: fixed fractions of the span, at set clock times."""
+    """Default event placement: fixed fractions of the span, at set clock times.
+
+    Spans shorter than 10 days get no shutdowns and place the trip and the faults at plain
+    fractions of the span so that they do not overlap.
+    """
+    if days < 10:
+        def frac_of_span(frac):
+            return start + pd.Timedelta(minutes=round(frac * days * 1440.0))
+
+        return {"shutdowns": [], "trip_at": frac_of_span(0.45), "flatline_at": frac_of_span(0.15),
+                "gap_at": frac_of_span(0.80), "spike_at": frac_of_span(0.93)}
+
     def at(frac, hours):
         return start + pd.Timedelta(days=math.floor(frac * days)) + pd.Timedelta(hours=hours)
 
-    shutdowns = []
-    if days >= 10:
-        shutdowns.append((at(0.10, 22.0), 40.0))  # weekend-style reserve shutdown
+    shutdowns = [(at(0.10, 22.0), 40.0)]  # weekend-style reserve shutdown
     if days >= 90:
         shutdowns.append((at(0.27, 21.0), 9 * 24.0 + 7.0))  # planned outage (no turbine work)
-    if days >= 10:
-        shutdowns.append((at(0.88, 23.0), 36.0))
+    shutdowns.append((at(0.88, 23.0), 36.0))
     return {
         "shutdowns": shutdowns,
         "trip_at": at(0.55, 14.6),
@@ -637,7 +671,7 @@ def generate_with_state(
         elif quantity == "power":
             sd = NOISE["output_abs_mw"] + NOISE["output_rel"] * np.abs(x)
         elif quantity == "flow":
-            sd = NOISE["flow_rel"] * x
+            sd = NOISE["flow_abs_kgs"] + NOISE["flow_rel"] * x
         else:
             sd = NOISE["valve_abs"]
         measured[role] = x + sd * z
@@ -801,7 +835,8 @@ def read_truth(path) -> dict:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Write a synthetic history (CSV in plant units or internal units) and its truth file."""
+    """Write a synthetic history (wide CSV: time, then one column per plant tag, plant units;
+    or role columns in internal units with ``--internal``), its truth file and a configuration."""
     parser = argparse.ArgumentParser(prog="python -m isentrope.daemon.synthetic",
                                      description="Write the synthetic Greywater Bend Unit 2 history.")
     parser.add_argument("-o", "--out", required=True, help="output folder (created)")
@@ -820,8 +855,9 @@ def main(argv: Sequence[str] | None = None) -> int:
         data = data.rename(columns={role: TAG_MAP[role]["tag"] for role in data.columns})
     data.to_csv(out / "history.csv", float_format="%.6g", date_format="%Y-%m-%dT%H:%M:%SZ")
     write_truth(truth, out / "truth.json")
-    (out / "tags.toml").write_text(tag_map_toml(), encoding="utf-8")
-    print(f"wrote {len(frame)} rows to {out / 'history.csv'}, truth to {out / 'truth.json'}")
+    (out / "config.toml").write_text(config_toml(), encoding="utf-8")
+    print(f"wrote {len(frame)} rows to {out / 'history.csv'}, truth to {out / 'truth.json'}, "
+          f"configuration to {out / 'config.toml'}")
     return 0
 
 

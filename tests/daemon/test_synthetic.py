@@ -412,11 +412,52 @@ def test_tag_map_toml_and_role_mappings():
         syn.internal_to_plant(1.0, "furlongs")
 
 
-def test_command_line_writes_history_truth_and_tags(tmp_path):
+def test_command_line_writes_history_truth_and_config(tmp_path):
     assert syn.main(["-o", str(tmp_path), "--days", "1", "--freq", "5min", "--seed", "2"]) == 0
     data = pd.read_csv(tmp_path / "history.csv", index_col=0)
     truth = json.loads((tmp_path / "truth.json").read_text())
     assert len(data) == 288 - truth["gap"]["missing_samples"]
     assert "GB2-MST-P01" in data.columns
-    assert tomllib.loads((tmp_path / "tags.toml").read_text())["roles"]["throttle_p"]["unit"] == "bar(g)"
+    assert tomllib.loads((tmp_path / "config.toml").read_text())["roles"]["throttle_p"]["unit"] == "bar(g)"
     assert not math.isnan(data["GB2-GEN-MW01"].max())
+
+
+# --- the golden case ------------------------------------------------------------------------
+CASE = __import__("pathlib").Path(__file__).resolve().parents[2] / "fixtures" / "cases" / "greywater_u2_2day"
+
+
+def _approx_equal(a, b, path="truth"):
+    if isinstance(a, dict):
+        assert isinstance(b, dict) and a.keys() == b.keys(), path
+        for k in a:
+            _approx_equal(a[k], b[k], f"{path}.{k}")
+    elif isinstance(a, list):
+        assert isinstance(b, list) and len(a) == len(b), path
+        for i, (x, y) in enumerate(zip(a, b)):
+            _approx_equal(x, y, f"{path}[{i}]")
+    elif isinstance(a, float) and isinstance(b, float):
+        assert a == pytest.approx(b, rel=1e-7, abs=1e-9), path
+    else:
+        assert a == b, path
+
+
+def test_golden_case_regenerates_identically(tmp_path):
+    """fixtures/cases/greywater_u2_2day is what the generator writes today."""
+    assert syn.main(["-o", str(tmp_path), "--days", "2", "--freq", "5min", "--seed", "20250101"]) == 0
+    new = pd.read_csv(tmp_path / "history.csv", index_col="time")
+    old = pd.read_csv(CASE / "history.csv", index_col="time")
+    assert list(new.index) == list(old.index) and list(new.columns) == list(old.columns)
+    # the CSV keeps 6 significant digits
+    np.testing.assert_allclose(new.to_numpy(), old.to_numpy(), rtol=2e-6, atol=1e-9)
+    _approx_equal(json.loads((tmp_path / "truth.json").read_text()),
+                  json.loads((CASE / "truth.json").read_text()))
+    assert (tmp_path / "config.toml").read_text() == (CASE / "config.toml").read_text()
+
+
+def test_golden_case_config_loads_and_maps_every_column():
+    config = pytest.importorskip("isentrope.daemon.config")
+    cfg = config.load_config(CASE / "config.toml")
+    assert cfg.unit.rating_mw == 530.0 and cfg.store.kind == "sqlite"
+    header = (CASE / "history.csv").read_text().splitlines()[0].split(",")
+    assert header[0] == "time"
+    assert sorted(header[1:]) == sorted(e["tag"] for e in syn.TAG_MAP.values())
