@@ -81,8 +81,9 @@ class CycleResults:
         ``deviation`` [percentage points, actual minus expected], ``deviation_u`` [points],
         ``extrapolated`` (bool; deviation NaN there), ``model_id`` (str). Empty without models.
     alarm_events : pandas.DataFrame
-        Alarm transitions from ``calc.alarms`` (time, section, rule, kind, value, threshold,
-        message). Empty when nothing changed.
+        Alarm transitions from ``calc.alarms.evaluate_alarms`` (UTC index ``time``; columns
+        section, rule, kind "raised"/"cleared", value, threshold, message). Empty when
+        nothing changed.
     alarm_state : dict or None
         JSON-serialisable alarm state after this window (None when alarms are not evaluated).
     counts : dict
@@ -130,7 +131,7 @@ class CycleResults:
                         "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
                         "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float),
                     },
-                    index=pd.DatetimeIndex(part["time"], name="time"),
+                    index=pd.DatetimeIndex(part.index, name="time"),
                 )
                 out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
         return out
@@ -394,7 +395,8 @@ class Pipeline:
             windows = windows.join(figures)
 
         deviation = self._deviation(windows, baselines or {}, notes)
-        events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes)
+        events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes, screen=screen,
+                                         start=start)
 
         counts = {
             "rows_read": int(len(frame)),
@@ -467,8 +469,68 @@ class Pipeline:
         return out
 
     # --- alarms -----------------------------------------------------------------------------
-    def _alarms(self, windows, deviation, state, end, notes):
-        return _no_events(), state
+    def alarm_rules(self) -> list:
+        """``calc.alarms.Rule`` objects from ``[alarms]``.
+
+        Deviation warning and alarm per section (persistence in steady windows, hysteresis in
+        points), LP exhaust moisture on the steady windows, and data quality per mapped tag
+        (bad for longer than ``data_quality_limit``). Degradation-rate and step rules need the
+        deviation history over months; they belong to the trend report, not to one cycle.
+        """
+        from isentrope.calc import alarms
+
+        a = self.config.alarms
+        n = int(a.persistence)
+        limit = a.moisture_limit_percent / 100.0
+        return [
+            alarms.Rule("deviation_warning", alarms.QUANTITY_DEVIATION, "below", float(a.deviation_warning),
+                        float(a.deviation_warning) + float(a.hysteresis), n, n, steady_only=True,
+                        unit="points", label="efficiency deviation warning"),
+            alarms.Rule("deviation_alarm", alarms.QUANTITY_DEVIATION, "below", float(a.deviation_alarm),
+                        float(a.deviation_alarm) + float(a.hysteresis), n, n, steady_only=True,
+                        unit="points", label="efficiency deviation alarm"),
+            # cleared half a point of moisture below the limit (project choice, no source)
+            alarms.Rule("exhaust_moisture", alarms.QUANTITY_MOISTURE, "above", limit, limit - 0.005, n, n,
+                        sections=("lp",), label="LP exhaust moisture"),
+            alarms.Rule("data_quality", alarms.QUANTITY_TAG_BAD, "above", 0.5, 0.5,
+                        raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
+                        label="tag missing, flatlined or out of range"),
+        ]
+
+    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None):
+        """Alarm events from the final results (before ``final_end``) only.
+
+        The state machines of ``calc.alarms`` skip observations at or before the last one
+        they consumed, so the look-back overlap of consecutive cycles raises nothing twice.
+        """
+        from isentrope.calc import alarms
+
+        parts = []
+        if len(deviation):
+            parts.append(pd.DataFrame({"time": deviation.index, "section": deviation["section"].to_numpy(),
+                                       "quantity": alarms.QUANTITY_DEVIATION,
+                                       "value": deviation["deviation"].to_numpy(dtype=float),
+                                       "steady": True}))
+        if len(windows) and "lp_moisture" in windows.columns:
+            parts.append(pd.DataFrame({"time": windows.index, "section": "lp",
+                                       "quantity": alarms.QUANTITY_MOISTURE,
+                                       "value": windows["lp_moisture"].to_numpy(dtype=float), "steady": True}))
+        if screen is not None:
+            flags = screen.flags
+            sel = (flags.index >= start) & (flags.index < final_end)
+            roles = [r for r in self.roles if r in flags.columns]
+            if sel.any() and roles:
+                bad = (flags.loc[sel, roles].to_numpy() != 0).astype(float)
+                times = flags.index[sel]
+                for j, role in enumerate(roles):
+                    parts.append(pd.DataFrame({"time": times, "section": role,
+                                               "quantity": alarms.QUANTITY_TAG_BAD, "value": bad[:, j],
+                                               "steady": True}))
+        if not parts:
+            return _no_events(), (dict(state) if state else None)
+        obs = pd.concat(parts, ignore_index=True)
+        new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
+        return events, new_state
 
 
 def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
@@ -485,8 +547,9 @@ def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
 
 
 def _no_events() -> pd.DataFrame:
-    return pd.DataFrame({"time": pd.DatetimeIndex([], tz="UTC"), "section": [], "rule": [], "kind": [],
-                         "value": [], "threshold": [], "message": []})
+    return pd.DataFrame({c: np.array([], dtype=float if c in ("value", "threshold") else object)
+                         for c in ("section", "rule", "kind", "value", "threshold", "message")},
+                        index=pd.DatetimeIndex([], tz="UTC", name="time"))
 
 
 def _clean(frame: pd.DataFrame, roles: list[str]) -> pd.DataFrame:

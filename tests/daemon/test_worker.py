@@ -133,3 +133,168 @@ def test_jitter_spreads_workers_apart():
     a = backoff_delays(4, "2s", "60s", random.Random(1))
     b = backoff_delays(4, "2s", "60s", random.Random(2))
     assert a != b
+
+
+# --- the worker over a store, with a fake clock and a fake sleep ------------------------------
+
+import logging  # noqa: E402
+
+import worker_support as ws  # noqa: E402
+
+from isentrope.daemon.config import load_config  # noqa: E402
+from isentrope.daemon.pipeline import Pipeline  # noqa: E402
+from isentrope.daemon.worker import STATUS_MEASUREMENT, Worker  # noqa: E402
+
+FIRST = ws.START + pd.Timedelta("5h")  # leaves the pipeline its 3h50 of history before
+
+
+@pytest.fixture(scope="module")
+def config(tmp_path_factory):
+    path = ws.write_config(tmp_path_factory.mktemp("cfg") / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"))
+    return load_config(path)
+
+
+@pytest.fixture(scope="module")
+def pipeline(config):
+    return Pipeline(config)
+
+
+@pytest.fixture(scope="module")
+def raw():
+    return ws.plant_history(1.0, freq="5min")
+
+
+def make_worker(config, pipeline, store, clock, slept=None, **kw):
+    return Worker.from_config(config, store, pipeline=pipeline, start_default=FIRST, clock=clock,
+                              sleep=(slept.append if slept is not None else (lambda s: None)),
+                              rng=random.Random(3), **kw)
+
+
+def results_of(store):
+    return {m: store.read_results(m, ws.START, ws.START + pd.Timedelta(days=2), {"unit": "Greywater Bend 2"})
+            for m in ws.RESULT_MEASUREMENTS}
+
+
+def run_cycles(worker, clock, times):
+    reports = []
+    for t in times:
+        clock.now = t
+        reports.append(worker.run_cycle())
+    return reports
+
+
+def test_the_checkpoint_trails_now_by_settle_and_look_ahead_and_results_are_written(config, pipeline, raw):
+    clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    store = ws.MemoryStore(raw, clock=clock)
+    worker = make_worker(config, pipeline, store, clock)
+    report = worker.run_cycle()
+    assert report.ok and report.chunks_done == 2  # 05:00-06:00 and 06:00-09:58 (6h chunks)
+    _, after = pipeline.margins
+    assert store.checkpoints[worker.checkpoint_name] == clock.now - pd.Timedelta("2min") - after
+    samples = results_of(store)["section_samples"]
+    assert samples.index.min() == FIRST and samples.index.max() < clock.now - pd.Timedelta("2min")
+    status = store.read_results(STATUS_MEASUREMENT, ws.START, ws.START + pd.Timedelta(days=1),
+                                {"unit": "Greywater Bend 2"})
+    assert len(status) == 1
+    row = status.iloc[0]
+    assert row["lag_s"] == (pd.Timedelta("2min") + after).total_seconds()
+    assert row["rows_read"] == report.rows_read > 0 and row["ok"] == 1.0
+
+
+def test_catch_up_after_an_outage_gives_the_results_of_an_uninterrupted_run(config, pipeline, raw):
+    times = [ws.START + pd.Timedelta("9h") + k * pd.Timedelta("1h") for k in range(7)]
+    clock_a = ws.FakeClock(times[0])
+    a = ws.MemoryStore(raw, clock=clock_a)
+    run_cycles(make_worker(config, pipeline, a, clock_a), clock_a, times)
+    # The same unit, but the worker was away from the third to the sixth cycle.
+    clock_b = ws.FakeClock(times[0])
+    b = ws.MemoryStore(raw, clock=clock_b)
+    reports = run_cycles(make_worker(config, pipeline, b, clock_b), clock_b, times[:2] + times[6:])
+    assert reports[2].chunks_done >= 2  # caught up in chunks
+    assert a.checkpoints == b.checkpoints
+    ra, rb = results_of(a), results_of(b)
+    for m in ws.RESULT_MEASUREMENTS:
+        if len(ra[m]) or len(rb[m]):
+            ws.assert_same_results(ra[m], rb[m])
+    assert len(ra["section_samples"]) > 100 and len(ra["steady_windows"]) >= 2
+
+
+def test_temporary_store_errors_are_retried_within_the_cycle(config, pipeline, raw):
+    clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    slept: list[float] = []
+    store = ws.FailingStore(ws.MemoryStore(raw, clock=clock), read_raw=1, write_results=2)
+    worker = make_worker(config, pipeline, store, clock, slept=slept)
+    report = worker.run_cycle()
+    assert report.ok and store.failures == 3 and len(slept) == 3
+    assert all(0.5 <= s <= 2.0 for s in slept)  # backoff 1s doubling, capped at 2s, with jitter
+
+
+def test_a_failed_write_keeps_its_batch_and_the_checkpoint_stays(config, pipeline, raw, caplog):
+    clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    inner = ws.MemoryStore(raw, clock=clock)
+    store = ws.FailingStore(inner, write_results=0)
+    worker = make_worker(config, pipeline, store, clock)
+    worker.run_cycle()  # a first good cycle
+    checkpoint = inner.checkpoints[worker.checkpoint_name]
+    clock.advance("1h")
+    store.fail["write_results"] = 100  # the database goes away for writes
+    with caplog.at_level(logging.WARNING, logger="isentrope.worker"):
+        report = worker.run_cycle()
+    assert not report.ok and "store unreachable" in report.error
+    assert inner.checkpoints[worker.checkpoint_name] == checkpoint  # not past unwritten results
+    assert worker.pending is not None and worker.pending.written == 0
+    lines = [r for r in caplog.records if "cycle ended" in r.getMessage()]
+    assert len(lines) == 1 and "writes kept for the next cycle" in lines[0].getMessage()
+    # it comes back: the kept batch is written first, then the cycle goes on
+    store.fail["write_results"] = 0
+    clock.advance("30min")
+    report = worker.run_cycle()
+    assert report.ok and worker.pending is None
+    assert inner.checkpoints[worker.checkpoint_name] > checkpoint
+    # ... and what is in the store equals a run that never failed
+    clock_ref = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    ref = ws.MemoryStore(raw, clock=clock_ref)
+    run_cycles(make_worker(config, pipeline, ref, clock_ref), clock_ref,
+               [ws.START + pd.Timedelta("10h"), ws.START + pd.Timedelta("11h30min")])
+    ra, rb = results_of(ref), results_of(inner)
+    for m in ws.RESULT_MEASUREMENTS:
+        if len(ra[m]) or len(rb[m]):
+            ws.assert_same_results(ra[m], rb[m])
+
+
+def test_a_failing_checkpoint_write_leaves_the_checkpoint_behind_the_results(config, pipeline, raw):
+    clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    inner = ws.MemoryStore(raw, clock=clock)
+    store = ws.FailingStore(inner, set_checkpoint=100)
+    worker = make_worker(config, pipeline, store, clock)
+    report = worker.run_cycle()
+    assert not report.ok and worker.checkpoint_name not in inner.checkpoints
+    assert len(results_of(inner)["section_samples"]) > 0  # written; the next cycle redoes them
+
+
+def test_fatal_errors_end_the_cycle_and_propagate(config, pipeline, raw):
+    from isentrope.daemon.stores.base import FatalStoreError as Fatal
+
+    class Broken(ws.MemoryStore):
+        def read_raw(self, mappings, start, end):
+            raise Fatal("database 'unit2' not found")
+
+    clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    worker = make_worker(config, pipeline, Broken(raw), clock)
+    with pytest.raises(Fatal):
+        worker.run_cycle()
+
+
+def test_stop_ends_the_work_between_chunks(config, pipeline, raw):
+    clock = ws.FakeClock(ws.START + pd.Timedelta("23h"))
+    store = ws.MemoryStore(raw, clock=clock)
+    worker = make_worker(config, pipeline, store, clock, chunk="2h")
+    done = []
+
+    def progress(s, e):
+        done.append((s, e))
+        worker.stop()  # e.g. SIGTERM arrived while this chunk was being processed
+
+    report = worker.run_cycle(progress=progress)
+    assert report.stopped and report.chunks_done == 1 and len(done) == 1
+    assert store.checkpoints[worker.checkpoint_name] == done[0][1]
