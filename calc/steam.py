@@ -363,6 +363,7 @@ class _PowerPlan:
 
     def __init__(self, exponents):
         e = np.unique(np.asarray(exponents, dtype=np.int64))
+        e.flags.writeable = False
         self.exponents = e
         self.first = int(e[0])
         steps = np.diff(e)
@@ -814,6 +815,7 @@ def _solve(kind, p, y, want):
     ci = np.flatnonzero(cand)
     done = np.zeros(idx.size, dtype=bool)
     to_fallback = np.zeros(idx.size, dtype=bool)
+    hot = np.zeros(idx.size, dtype=bool)  # above region 2: region 5 or beyond IF97
     if ci.size:
         lo = t_b[ci] - 2.0
         hi = np.full(ci.size, 1078.0)
@@ -824,7 +826,7 @@ def _solve(kind, p, y, want):
         put(idx[ci[acc]], 2, t[acc], {k: v[acc] for k, v in props.items()})
         done[ci[acc]] = True
         above = conv & (t > T_MAX_2 + 1e-9)
-        to_fallback[ci[above]] = True  # region 5 (or beyond; iapws decides)
+        hot[ci[above]] = True
 
     # 2. The rest at p <= 16.529 MPa: liquid, wet or a region-2 point Newton missed.
     rest = ~done & ~to_fallback
@@ -851,7 +853,7 @@ def _solve(kind, p, y, want):
             pv, yv = pp[vi], yy[vi]
             y25 = _region2(pv, np.full(vi.size, T_MAX_2), {kind})[kind]
             beyond = yv > y25
-            to_fallback[vi[beyond]] = True
+            hot[vi[beyond]] = True
             wi = np.flatnonzero(~beyond)
             if wi.size:
                 tsv = ts[vap][wi]
@@ -870,7 +872,11 @@ def _solve(kind, p, y, want):
         y13 = _region1(pp[hi_i], np.full(hi_i.size, T_13), {kind})[kind]
         liq = yy[hi_i] <= y13
         liquid[hi_i[liq]] = True
-        to_fallback[hi_i[~liq]] = True
+        other = hi_i[~liq]
+        if other.size:
+            y25 = _region2(pp[other], np.full(other.size, T_MAX_2), {kind})[kind]
+            hot[other[yy[other] > y25]] = True
+            to_fallback[other[yy[other] <= y25]] = True
 
     # 4. Region 1: backward start, Newton, then the 273.15 K limit.
     li = np.flatnonzero(liquid)
@@ -888,7 +894,10 @@ def _solve(kind, p, y, want):
             y_min = _region1(pp[nc], np.full(nc.size, T_MIN), {kind})[kind]
             reason[idx[nc]] = np.where(yy[nc] < y_min, bad_range, NO_CONVERGENCE)
 
-    # 5. Fallback points (region 3, region 5, wet states above 16.529 MPa).
+    # 5. Fallback points (region 3, region 5, wet states above 16.529 MPa). Region 5 ends at
+    #    50 MPa and 2273.15 K.
+    reason[idx[hot & (pp > P_MAX_5)]] = bad_range
+    to_fallback |= hot & (pp <= P_MAX_5)
     fi = np.flatnonzero(to_fallback)
     if fi.size:
         n_fallback = int(fi.size)
@@ -898,7 +907,11 @@ def _solve(kind, p, y, want):
         for k in want:
             val[k][idx[g]] = out[k][fok]
         failed = fi[~fok]
-        reason[idx[failed]] = np.where(pp[failed] > P_MAX_5, bad_range, FALLBACK_FAILED)
+        reason[idx[failed]] = FALLBACK_FAILED
+        beyond = failed[hot[failed]]
+        if beyond.size:  # above the region-5 limit 2273.15 K, or iapws trouble?
+            top, _, tok = _iapws_points_pt(pp[beyond], np.full(beyond.size, T_MAX_5), kind)
+            reason[idx[beyond[tok & (yy[beyond] > top)]]] = bad_range
     return val, reason, reg, n_fallback
 
 

@@ -439,3 +439,51 @@ def test_large_input_is_evaluated_in_blocks_consistently():
     h = steam.h_pt(p, t)
     assert h[-1] == pytest.approx(steam.h_pt(0.5, 1000.0), rel=1e-15)
     assert h[steam._BLOCK] == pytest.approx(steam.h_pt(0.5, float(t[steam._BLOCK])), rel=1e-15)
+
+
+def test_above_region2_goes_to_region5_or_is_out_of_range():
+    # Region 5 (1073.15-2273.15 K, p <= 50 MPa) through iapws; beyond it, or above 50 MPa,
+    # the point is out of range (R7-97(2012) section 4).
+    p = np.array([1.0, 40.0, 1.0, 60.0])
+    s = np.array([9.0, 7.0, 12.0, 8.0])
+    h, d = steam.h_ps(p, s, return_details=True)
+    assert d.region[:2].tolist() == [5, 5]
+    assert h[0] == pytest.approx(IAPWS97(P=1.0, s=9.0).h, abs=1e-6)
+    assert h[1] == pytest.approx(IAPWS97(P=40.0, s=7.0).h, abs=1e-6)
+    assert d.reason.tolist() == [steam.OK, steam.OK, steam.OUT_OF_RANGE_S, steam.OUT_OF_RANGE_S]
+    t, d = steam.t_ph(np.array([1.0, 60.0]), np.array([5000.0, 4500.0]), return_details=True)
+    assert t[0] == pytest.approx(IAPWS97(P=1.0, h=5000.0).T, abs=1e-6)
+    assert d.reason.tolist() == [steam.OK, steam.OUT_OF_RANGE_H]
+
+
+def test_wet_states_above_16_5_mpa_fall_back_to_iapws():
+    # Between 16.529 and 22.064 MPa the saturation line lies in region 3.
+    p = 20.0
+    s_mid = 0.5 * (steam.s_sat_liquid(p) + steam.s_sat_vapour(p))
+    h, d = steam.h_ps(np.array([p]), np.array([s_mid]), return_details=True)
+    ref = IAPWS97(P=p, s=s_mid)
+    assert d.n_fallback == 1 and d.region[0] == 4
+    assert h[0] == pytest.approx(ref.h, abs=1e-6)
+    assert steam.x_ps(p, s_mid) == pytest.approx(ref.x, abs=1e-9)
+
+
+def test_newton_that_cannot_converge_is_flagged_not_returned():
+    # An entropy no region-1 temperature between the bounds reaches: not converged, no value.
+    p = np.array([1.0])
+    t, conv, props = steam._newton(1, "s", p, np.array([5.0]), np.array([300.0]),
+                                   np.array([250.0]), np.array([400.0]), ("h",))
+    assert not conv[0]
+    assert np.isnan(props["h"][0])
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.floats(min_value=0.002, max_value=16.0), st.floats(min_value=0.0, max_value=1.0))
+def test_wet_quality_round_trip(p, x):
+    s = steam.s_sat_liquid(p) + x * (steam.s_sat_vapour(p) - steam.s_sat_liquid(p))
+    h = steam.h_ps(p, s)
+    h_mix = steam.h_sat_liquid(p) + x * (steam.h_sat_vapour(p) - steam.h_sat_liquid(p))
+    assert h == pytest.approx(h_mix, rel=1e-12, abs=1e-9)
+    if 1e-9 < x < 1.0 - 1e-9:
+        assert steam.x_ps(p, s) == pytest.approx(x, abs=1e-9)
+        assert steam.x_ph(p, h) == pytest.approx(x, abs=1e-9)
+        assert steam.t_ph(p, h) == pytest.approx(steam.t_sat(p), rel=1e-14)
