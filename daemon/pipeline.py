@@ -376,23 +376,26 @@ class Pipeline:
         st = steady.tag_steady(frame, ok=ok, **self._steady_kwargs())
         steady_flag = st.steady.reindex(frame.index).fillna(False).astype(bool) & ok
 
-        kwargs = self._section_kwargs()
         in_frame = frame.loc[inside]
-        per_sample = sections.evaluate(in_frame, **kwargs)
-        notes.extend(per_sample.notes)
-        samples = per_sample.to_frame()
-        samples["quality_flags"] = screen.row_flags.reindex(in_frame.index).fillna(0).astype("int64")
-        samples["ok"] = ok.loc[inside].to_numpy()
-        samples["steady"] = steady_flag.loc[inside].to_numpy()
-        samples.index.name = "time"
-
         st_cfg = self.config.steady
         windows = align_steady_windows(frame, steady_flag, max_length=st_cfg.max_length,
                                        max_gap=st_cfg.max_gap, min_length=st_cfg.min_length,
                                        start=start, end=final_end, columns=self.roles)
+        # One call for the samples and the window means: calc.sections has a fixed cost per
+        # call (uncertainty propagation runs each solver once per input), which dominates for
+        # the few rows of a live cycle (measured: about 0.7 s of 0.8 s for 15 rows).
+        n = len(in_frame)
+        rows = pd.concat([in_frame[self.roles], windows[self.roles]], ignore_index=True)
+        evaluated = sections.evaluate(rows, **self._section_kwargs())
+        notes.extend(evaluated.notes)
+        figures = evaluated.to_frame()
+        samples = figures.iloc[:n].set_axis(in_frame.index, axis=0)
+        samples["quality_flags"] = screen.row_flags.reindex(in_frame.index).fillna(0).astype("int64")
+        samples["ok"] = ok.loc[inside].to_numpy()
+        samples["steady"] = steady_flag.loc[inside].to_numpy()
+        samples.index.name = "time"
         if len(windows):
-            figures = sections.evaluate(windows[self.roles], **kwargs).to_frame()
-            windows = windows.join(figures)
+            windows = windows.join(figures.iloc[n:].set_axis(windows.index, axis=0))
 
         deviation = self._deviation(windows, baselines or {}, notes)
         events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes, screen=screen,
