@@ -5,7 +5,8 @@ Reads result series with ``Store.read_results`` over ``[start, end)`` and writes
 ``--measurement`` the columns are the field names; with several they are
 ``<measurement>.<field>``, joined on time. The series are selected by the tags the worker
 writes: ``unit = <[unit] name>`` plus any ``--tag key=value`` (e.g. ``--tag section=hp`` for
-the deviation series). Default measurement: the per-sample section figures. The output file is
+the deviation series, which must be given for the deviation and alarm series, since they hold
+one series per section, and per rule). Default measurement: the per-sample section figures. The output file is
 written to a temporary name and renamed, so an interrupted export never leaves half a file in
 place of a good one.
 """
@@ -36,6 +37,20 @@ def _default_measurement() -> str:
     except ImportError:
         return _FALLBACK_MEASUREMENT
     return getattr(pipeline, "SAMPLES_MEASUREMENT", _FALLBACK_MEASUREMENT)
+
+
+def _series_tags() -> dict[str, tuple[str, ...]]:
+    """Measurement -> tag keys besides ``unit`` that tell its series apart (see pipeline)."""
+    try:
+        from isentrope.daemon import pipeline
+    except ImportError:
+        return {}
+    out = {}
+    if hasattr(pipeline, "DEVIATION_MEASUREMENT"):
+        out[pipeline.DEVIATION_MEASUREMENT] = ("section",)
+    if hasattr(pipeline, "ALARMS_MEASUREMENT"):
+        out[pipeline.ALARMS_MEASUREMENT] = ("section", "rule")
+    return out
 
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
@@ -75,8 +90,20 @@ def collect(store, measurements: list[str], start: pd.Timestamp, end: pd.Timesta
             tags: dict[str, str]) -> pd.DataFrame:
     """The requested series joined on time; columns prefixed by measurement when several."""
     frames = []
+    needed = _series_tags()
     for name in measurements:
+        # A store returns one value per time and field: series that differ by a tag left out
+        # would be mixed (or refused), so such tags must be given.
+        missing = [k for k in needed.get(name, ()) if k not in tags]
+        if missing:
+            example = " ".join(f"--tag {k}={'hp' if k == 'section' else '...'}" for k in missing)
+            raise ValueError(f"{name} holds one series per {' and '.join(missing)}; choose one with "
+                             f"--tag, e.g. {example}")
         frame = store.read_results(name, start, end, tags)
+        if frame.index.has_duplicates:
+            raise ValueError(
+                f"several {name} series match the tags {tags} (they differ by another tag, such as "
+                f"section or rule); choose one with --tag, e.g. --tag section=hp")
         if len(measurements) > 1:
             frame = frame.add_prefix(f"{name}.")
         frames.append(frame)

@@ -355,6 +355,22 @@ def test_export_csv(tmp_path, capsys):
     assert len(frame) == 3
 
 
+def test_export_needs_a_tag_when_several_series_match(tmp_path, capsys):
+    path = write_config(tmp_path)
+    index = pd.DatetimeIndex(["2026-05-04T10:00:00Z"], name="time")
+    config = load_config(path)
+    with config.store.open() as store:
+        for section, value in (("hp", -0.4), ("ip", -1.1)):
+            store.write_results("deviation", pd.DataFrame({"deviation": [value]}, index=index),
+                                {"unit": "Test Unit 7", "section": section})
+    args = ["export", "-c", str(path), "--start", "2026-05-04", "--end", "2026-05-05", "--measurement", "deviation"]
+    assert cli.main(args) == 1
+    assert capsys.readouterr().err == ("isentrope: error: deviation holds one series per section; choose one "
+                                       "with --tag, e.g. --tag section=hp\n")
+    assert cli.main(args + ["--tag", "section=ip"]) == 0
+    assert capsys.readouterr().out == "time,deviation\n2026-05-04T10:00:00Z,-1.1\n"
+
+
 def test_export_empty_window_and_bad_times(tmp_path, capsys):
     path = write_config(tmp_path)
     rc = cli.main(["export", "-c", str(path), "--start", "2020-01-01", "--end", "2020-01-02"])
