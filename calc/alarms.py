@@ -229,6 +229,58 @@ def to_observations(frame: pd.DataFrame, columns: Mapping[str, tuple[str, str]],
     return pd.concat(parts, ignore_index=True)
 
 
+def step_observations(steps, section: str) -> pd.DataFrame:
+    """Observations of the step rule from ``isentrope.calc.trend.detect_steps``.
+
+    Parameters
+    ----------
+    steps : sequence of trend.Step
+        Steps found on a deviation series with a UTC DatetimeIndex as ``time``.
+    section : str
+        Section the steps belong to.
+
+    Returns
+    -------
+    pandas.DataFrame
+        One row per step: ``time`` = the step's ``detected_at`` (when it became known, so a
+        later run never reports it at an earlier time than one already consumed),
+        ``section``, ``quantity`` = ``"step_size"``, ``value`` = its size [points].
+    """
+    return pd.DataFrame({
+        "time": pd.to_datetime([pd.Timestamp(s.detected_at) for s in steps], utc=True),
+        "section": section,
+        "quantity": QUANTITY_STEP,
+        "value": np.array([float(s.size) for s in steps], dtype=float),
+    })
+
+
+def rate_observation(time, section: str, rate) -> pd.DataFrame:
+    """Observation of the degradation-rate rule from a ``trend.RateResult``.
+
+    Parameters
+    ----------
+    time : timestamp
+        Time the rate refers to, e.g. the last point used [UTC].
+    section : str
+        Section name.
+    rate : trend.RateResult
+        The rate; a status other than "ok" gives no observation (an empty frame).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Zero or one row with ``quantity`` = ``"rate_per_1000h"`` and ``value`` [points per
+        1000 operating hours].
+    """
+    ok = rate.status == "ok" and math.isfinite(rate.slope_per_1000h)
+    return pd.DataFrame({
+        "time": pd.to_datetime([pd.Timestamp(time)] if ok else [], utc=True),
+        "section": section,
+        "quantity": QUANTITY_RATE,
+        "value": np.array([rate.slope_per_1000h] if ok else [], dtype=float),
+    })
+
+
 def _iso(ts: pd.Timestamp) -> str:
     return ts.isoformat()
 
@@ -416,6 +468,6 @@ def active(state: Mapping) -> list[tuple[str, str]]:
 
 
 __all__ = [
-    "Rule", "default_rules", "evaluate_alarms", "to_observations", "active",
+    "Rule", "default_rules", "evaluate_alarms", "to_observations", "step_observations", "rate_observation", "active",
     "DEFAULT_MOISTURE_LIMIT", "NORMAL", "RAISED",
 ]

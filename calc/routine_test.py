@@ -70,8 +70,10 @@ class RoutineTestResult:
         One row per sub-period (index: its start): ``end``, ``n_samples``, ``passed``
         [bool], ``reason`` (empty when passed), ``<role>_fluctuation`` (largest deviation
         of a reading from the sub-period mean over the permissible fluctuation [-]; > 1
-        fails), the averaged readings [internal units] and the section figures with their
-        ``_u`` [figure units].
+        fails), ``steady_fraction`` (share of the sub-period's samples that the trending
+        detector ``steady.tag_steady(method="ptc6")`` tags steady, for information; it does
+        not decide ``passed``) [-], the averaged readings [internal units] and the section
+        figures with their ``_u`` [figure units].
     result : pandas.DataFrame
         One row per figure (index: figure name, e.g. ``hp_efficiency``): ``mean``,
         ``spread_std`` (between sub-periods), ``n`` (sub-periods used), ``u_spread``
@@ -228,6 +230,17 @@ def evaluate_test(
     needed = [r for r in sections.ROLE_QUANTITY if r in numeric]
     limited = [r for r in limits if r in numeric]
 
+    # Per-sample steady flags of the trending detector, for information beside the
+    # sub-period check (a sub-period can pass while a trailing window inside it did not).
+    steady_flag = None
+    if "gross_output" in numeric and len(data):
+        try:
+            window = min(sp, pd.Timedelta(steady.DEFAULT_WINDOW))
+            steady_flag = steady.tag_steady(data[numeric], method="ptc6", window=window, limits=steady_limits,
+                                            rating_mw=rating_mw).steady
+        except ValueError as exc:
+            notes.append(f"steady tagging off: {exc}")
+
     rows = []
     for j in range(n_sub):
         a = run_start + j * sp
@@ -257,6 +270,9 @@ def evaluate_test(
             row[f"{role}_fluctuation"] = ratio
             if ratio > 1.0:
                 reasons.append(f"{role} fluctuates {ratio:.2f} x the permissible limit")
+        if steady_flag is not None:
+            flags = steady_flag[(steady_flag.index >= a) & (steady_flag.index < b)]
+            row["steady_fraction"] = float(flags.mean()) if len(flags) else np.nan
         row["passed"] = not reasons
         row["reason"] = "; ".join(reasons)
         for c in numeric:

@@ -194,3 +194,21 @@ def test_bad_inputs():
         evaluate_alarms({}, obs([0.0]).drop(columns="quantity"))
     with pytest.raises(ValueError, match="unique"):
         evaluate_alarms({}, obs([0.0]), WARN + WARN)
+
+
+def test_step_and_rate_observations_from_trend():
+    from isentrope.calc import trend
+
+    t = pd.date_range(T0, periods=300, freq="8h", tz="UTC")
+    d = np.random.default_rng(3).normal(0.0, 0.2, 300)  # invented series, a -1 point step at 150
+    d[150:] -= 1.0
+    steps = trend.detect_steps(t, d)
+    o = alarms.step_observations(steps, "hp")
+    assert len(o) == 1 and o["time"].iloc[0] == steps[0].detected_at
+    rate = trend.degradation_rate(np.arange(300) * 8.0, d, breaks=[steps[0].index * 8.0])
+    r = alarms.rate_observation(t[-1], "hp", rate)
+    assert len(r) == 1 and r["value"].iloc[0] == rate.slope_per_1000h
+    _, ev = evaluate_alarms({}, pd.concat([o, r]), [x for x in default_rules() if x.name in ("step", "degradation_rate")])
+    assert kinds(ev) == [("step", "raised")]  # the step, blocked out of the rate, raises only itself
+    short = trend.degradation_rate(np.arange(3.0), np.zeros(3))
+    assert len(alarms.rate_observation(t[-1], "hp", short)) == 0

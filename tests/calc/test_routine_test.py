@@ -43,6 +43,7 @@ def test_clean_test_gives_reference_efficiencies():
     assert r.run_start == START + pd.Timedelta(hours=1) and r.run_end == START + pd.Timedelta(hours=4)
     assert len(r.sub_periods) == 3 and r.sub_periods["passed"].all()
     assert (r.sub_periods["n_samples"] == 60).all()
+    assert (r.sub_periods["steady_fraction"] == 1.0).all()
     hp = r.result.loc["hp_efficiency"]
     ip = r.result.loc["ip_efficiency"]
     assert hp["mean"] == pytest.approx(0.8626, abs=0.001)  # REFERENCES.md, computed with iapws
@@ -62,6 +63,8 @@ def test_unsteady_sub_period_fails_and_is_left_out():
     f.loc[sel, "throttle_t"] += 6.0
     r = evaluate_test(f, START, START + pd.Timedelta(hours=4), rating_mw=600.0)
     assert r.sub_periods["passed"].tolist() == [True, False, True]
+    # the trending detector sees a 20 min plateau as steady on either side of its edges
+    assert r.sub_periods["steady_fraction"].iloc[1] == 1.0
     reason = r.sub_periods["reason"].iloc[1]
     assert "throttle_t" in reason
     sub = f[(f.index >= START + pd.Timedelta(hours=2)) & (f.index < START + pd.Timedelta(hours=3))]["throttle_t"]
@@ -139,6 +142,7 @@ def test_no_valid_sub_period():
     f["hot_reheat_t"] += np.where(np.arange(len(f)) % 2 == 0, 5.0, -5.0)
     r = evaluate_test(f, START, START + pd.Timedelta(hours=4))
     assert r.status == "no valid sub-period"
+    assert (r.sub_periods["steady_fraction"] == 0.0).all()
     assert math.isnan(r.result.loc["hp_efficiency", "mean"]) and r.result.loc["hp_efficiency", "n"] == 0
 
 
