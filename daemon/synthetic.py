@@ -415,7 +415,7 @@ def generate(
     truth : dict
         JSON-serialisable record of what was injected (see fixtures/README.md).
     """
-    frame, truth, _ = generate_with_state(start, days, freq, seed, **options)
+    frame, truth, _ = generate_with_state(start, days, freq, seed, **options, _full_state=False)
     return frame, truth
 
 
@@ -441,6 +441,7 @@ def generate_with_state(
     spike_at="auto",
     spike_role: str = "throttle_p",
     spike_minutes: int = 15,
+    _full_state: bool = True,
 ) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
     """Like ``generate``, and also the noise-free state behind the readings.
 
@@ -626,7 +627,7 @@ def generate_with_state(
     s3 = steam.s_pt(p_hrh[on], t_hrh[on])
     h4 = h3 - eta_ip[on] * (h3 - steam.h_ps(p_xo[on], s3))
     t_xo_on = steam.t_ph(p_xo[on], h4)
-    s4 = steam.s_ph(p_xo[on], h4)
+    s4 = steam.s_pt(p_xo[on], t_xo_on)
     h5 = h4 - eta_lp[on] * (h4 - steam.h_ps(p_ext[on], s4))
     t_ext_on = steam.t_ph(p_ext[on], h5)
     for name, arr in (("cold reheat", t_crh_on), ("crossover", t_xo_on), ("LP extraction", t_ext_on)):
@@ -718,16 +719,17 @@ def generate_with_state(
         truth_faults["gap"] = {"start": _iso(index[i0]), "end": _iso(g1), "rows": "absent",
                                "missing_samples": int(i1 - i0)}
 
-    frame = pd.DataFrame({role: measured[role] for role in ROLES}, index=index)
-    if in_gap.any():
-        frame = frame[~in_gap]
+    keep = ~in_gap
+    if keep.all():
+        frame = pd.DataFrame({role: measured[role] for role in ROLES}, index=index)
+    else:
+        frame = pd.DataFrame({role: measured[role][keep] for role in ROLES}, index=index[keep])
 
-    state = pd.DataFrame(
-        {"online": online, "load_fraction": load, "operating_hours": op_hours,
-         "eta_hp": eta_hp, "eta_ip": eta_ip, "eta_lp": eta_lp, "in_gap": in_gap,
-         **{f"true_{role}": true[role] for role in ROLES}},
-        index=index,
-    )
+    columns = {"online": online, "load_fraction": load, "operating_hours": op_hours,
+               "eta_hp": eta_hp, "eta_ip": eta_ip, "eta_lp": eta_lp, "in_gap": in_gap}
+    if _full_state:
+        columns.update({f"true_{role}": true[role] for role in ROLES})
+    state = pd.DataFrame(columns, index=index)
     truth = _truth(start, days, freq, seed, noise, index, step, online, state, outages, trip,
                    ip_step_time, hp_rate, ip_step, initial_hours, truth_faults)
     return frame, truth, state
@@ -770,8 +772,8 @@ def _truth(start, days, freq, seed, noise, index, step, online, state, outages, 
             t_on = None
         events.append({"kind": kind, "offline": _iso(t_off), "online": _iso(t_on) if t_on is not None else None,
                        "hours": round((on - off) / 60.0, 3)})
-    on_state = state[state["online"]]
-    daily = on_state[["eta_hp", "eta_ip", "eta_lp", "load_fraction"]].resample("1D").mean()
+    part = state[["eta_hp", "eta_ip", "eta_lp", "load_fraction"]]
+    daily = part[state["online"].to_numpy()].resample("1D").mean()
     hours_end = state["operating_hours"].resample("1D").last()
     at_rating_hp = (DESIGN_CURVES["hp"]["at_rating"]
                     + hp_rate / 100.0 * (hours_end - initial_hours) / 1000.0)
@@ -820,6 +822,30 @@ def _truth(start, days, freq, seed, noise, index, step, online, state, outages, 
                    "information only, not a protective function",
     }
     return truth
+
+
+def events_table(truth: Mapping) -> pd.DataFrame:
+    """Every injected event of ``truth`` as rows (kind, start, end, role), sorted by start.
+
+    Kinds: ``shutdown`` and ``trip`` (unit offline), ``ip_step`` (start = end = the step),
+    ``flatline``, ``gap``, ``spike``. Times are UTC Timestamps; ``end`` is exclusive. What lies
+    outside these rows (and outside a settling margin the caller chooses) is a clean stretch,
+    where only the gradual HP loss is present.
+    """
+    rows = []
+    for e in truth.get("outages", []):
+        end = pd.Timestamp(e["online"]) if e["online"] else pd.Timestamp(truth["generator"]["end"])
+        rows.append((e["kind"], pd.Timestamp(e["offline"]), end, None))
+    ip = truth.get("ip") or {}
+    if ip.get("step_time"):
+        t = pd.Timestamp(ip["step_time"])
+        rows.append(("ip_step", t, t, None))
+    for kind in ("flatline", "gap", "spike"):
+        e = truth.get(kind)
+        if e:
+            rows.append((kind, pd.Timestamp(e["start"]), pd.Timestamp(e["end"]), e.get("role")))
+    table = pd.DataFrame(rows, columns=["kind", "start", "end", "role"])
+    return table.sort_values("start", kind="stable").reset_index(drop=True)
 
 
 def write_truth(truth: Mapping, path) -> Path:
