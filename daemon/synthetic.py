@@ -341,7 +341,7 @@ def _steam():
     return steam
 
 
-def _ts(value, start: pd.Timestamp) -> pd.Timestamp:
+def _ts(value) -> pd.Timestamp:
     t = pd.Timestamp(value)
     return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
 
@@ -479,7 +479,7 @@ def generate_with_state(
         [h], ``eta_hp``, ``eta_ip``, ``eta_lp`` (true fractions), ``in_gap`` and
         ``true_<role>`` for every role (noise-free, fault-free, internal units).
     """
-    start = _ts(start, None)
+    start = _ts(start)
     step = pd.Timedelta(freq)
     if not pd.Timedelta(seconds=1) <= step <= pd.Timedelta(hours=1):
         raise ValueError(f"freq {freq!r} is outside the valid range 1s to 1h")
@@ -513,7 +513,7 @@ def generate_with_state(
         flat = gap = spike = None
 
     def minute(t) -> float:
-        return (_ts(t, start) - start).total_seconds() / 60.0
+        return (_ts(t) - start).total_seconds() / 60.0
 
     # Outages: (off, on, kind), in minutes since start.
     outages = [(minute(t), minute(t) + 60.0 * h, "shutdown") for t, h in shutdown_list]
@@ -680,7 +680,7 @@ def generate_with_state(
     # --- faults (in plant units, so a frozen gauge transmitter stays frozen) ---------------
     truth_faults = {}
     if flat is not None:
-        f0, f1 = _ts(flat, start), _ts(flat, start) + _dur(days=flatline_days)
+        f0, f1 = _ts(flat), _ts(flat) + _dur(days=flatline_days)
         i0, i1 = index.searchsorted(f0), index.searchsorted(f1)
         if not 0 < i0 < i1 <= n:
             raise ValueError(f"flatline {_iso(f0)} to {_iso(f1)} is outside the history")
@@ -692,7 +692,7 @@ def generate_with_state(
                                     "start": _iso(index[i0]), "end": _iso(f1), "held_value": held,
                                     "held_unit": unit}
     if spike is not None:
-        s0 = _ts(spike, start)
+        s0 = _ts(spike)
         i0 = index.searchsorted(s0)
         i1 = min(n, index.searchsorted(s0 + _dur(minutes=spike_minutes)))
         if not 0 <= i0 < i1:
@@ -711,11 +711,16 @@ def generate_with_state(
                                  "low_value": lo - 0.05 * span, "unit": unit, "range": [lo, hi]}
     in_gap = np.zeros(n, dtype=bool)
     if gap is not None:
-        g0, g1 = _ts(gap, start), _ts(gap, start) + _dur(hours=gap_hours)
+        g0, g1 = _ts(gap), _ts(gap) + _dur(hours=gap_hours)
         i0, i1 = index.searchsorted(g0), index.searchsorted(g1)
         if not 0 < i0 < i1 <= n:
             raise ValueError(f"data gap {_iso(g0)} to {_iso(g1)} is outside the history")
         in_gap[i0:i1] = True
+        for kind in ("flatline", "spike"):
+            fault = truth_faults.get(kind)
+            if fault and pd.Timestamp(fault["start"]) < g1 and g0 < pd.Timestamp(fault["end"]):
+                raise ValueError(f"data gap {_iso(g0)} to {_iso(g1)} overlaps the {kind} "
+                                 f"{fault['start']} to {fault['end']}; place them apart")
         truth_faults["gap"] = {"start": _iso(index[i0]), "end": _iso(g1), "rows": "absent",
                                "missing_samples": int(i1 - i0)}
 
@@ -798,7 +803,7 @@ def _truth(start, days, freq, seed, noise, index, step, online, state, outages, 
                "step_time": _iso(ip_step_time) if ip_step_time is not None else None,
                "cause": "rub at the trip; applies from the restart after the trip"},
         "lp": {"form": "design_lp(load), no change over the history"},
-        "trip": ({"time": _iso(_ts(trip, start)),
+        "trip": ({"time": _iso(_ts(trip)),
                   "restart": next(e["online"] for e in events if e["kind"] == "trip")}
                  if trip is not None else None),
         "outages": events,

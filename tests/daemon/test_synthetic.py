@@ -356,6 +356,7 @@ def test_faults_can_be_placed_and_switched_off():
     (dict(trip_at="2024-12-01"), "outside"),
     (dict(shutdowns=[("2025-01-02", 10)], trip_at="2025-01-02 05:00"), "starts before"),
     (dict(gap_at="2026-01-01"), "outside"),
+    (dict(gap_at="2025-01-01 22:00", flatline_at="2025-01-02", flatline_days=1), "overlaps the flatline"),
 ])
 def test_bad_arguments_raise_clear_errors(kwargs, message):
     args = dict(start="2025-01-01", days=5, seed=1)
