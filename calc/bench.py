@@ -97,6 +97,7 @@ def main(argv=None):
                     help="(p, s) points timed with CoolProp (default 50000)")
     ap.add_argument("--repeat", type=int, default=3, help="repeats of each timing, best kept")
     ap.add_argument("--seed", type=int, default=97)
+    ap.add_argument("--no-coolprop", action="store_true", help="skip CoolProp (its import is slow)")
     args = ap.parse_args(argv)
     if args.n < 1 or args.sample < 1 or args.repeat < 1:
         ap.error("--n, --sample and --repeat must be positive")
@@ -119,7 +120,7 @@ def main(argv=None):
 
     ref_cp = {}
     agree = {}
-    props = coolprop()
+    props = None if args.no_coolprop else coolprop()
     if props is not None:
         bk = "IF97::Water"
         ref_cp["h_pt"] = best_time(lambda: props("H", "P", p * 1e6, "T", t, bk), 1) / args.n
@@ -153,7 +154,9 @@ def main(argv=None):
             if want_cp is not None and r_cp < want_cp:
                 missed.append(f"{name} vs CoolProp {r_cp:.2f}x < {want_cp:.0f}x")
         out.write(line + "\n")
-    if props is None:
+    if args.no_coolprop:
+        out.write("CoolProp skipped (--no-coolprop)\n")
+    elif props is None:
         out.write("CoolProp not installed (pip install 'isentrope[bench]'): no CoolProp column\n")
     else:
         out.write(f"CoolProp h(p, s) timed on {min(args.coolprop_ps_sample, args.n)} points; "

@@ -487,3 +487,15 @@ def test_wet_quality_round_trip(p, x):
         assert steam.x_ps(p, s) == pytest.approx(x, abs=1e-9)
         assert steam.x_ph(p, h) == pytest.approx(x, abs=1e-9)
         assert steam.t_ph(p, h) == pytest.approx(steam.t_sat(p), rel=1e-14)
+
+
+def test_benchmark_script_runs_and_reports_every_function(capsys):
+    # A smoke run on tiny arrays: the script works and prints its table (no timing asserted).
+    from isentrope.calc import bench
+
+    assert bench.main(["--n", "3000", "--sample", "10", "--repeat", "1",
+                       "--no-coolprop"]) == 0
+    out = capsys.readouterr().out
+    for name in ("h_pt", "s_pt", "h_ps"):
+        assert any(line.startswith(name) for line in out.splitlines())
+    assert "targets" in out
