@@ -47,6 +47,11 @@ DEFAULT_MIN_POINTS = 10
 #: three weeks online a slope of a few tenths of a point per 1000 h drowns in the scatter).
 DEFAULT_MIN_SPAN_H = 500.0
 
+#: Most points fed to the Theil-Sen estimator before consecutive points are grouped into
+#: medians (project choice: scipy.stats.theilslopes builds n x n pair matrices; measured on
+#: 2000 points: 0.3 s and a 100 MB peak on the shared 2-core machine).
+DEFAULT_MAX_POINTS = 2000
+
 #: CUSUM reference value k, in standard deviations: half the smallest shift worth finding
 #: quickly, here 1 sigma (Montgomery, from memory: k = 0.5 is the usual choice).
 DEFAULT_CUSUM_K = 0.5
@@ -94,6 +99,9 @@ class RateResult:
         Operating hours spanned by the valid points [h].
     reason : str
         Why the status is not "ok" (empty when ok).
+    n_used : int
+        Points the estimator saw: ``n``, or the number of group medians when ``n`` exceeded
+        ``max_points`` [-].
     """
 
     status: str
@@ -107,6 +115,7 @@ class RateResult:
     n: int
     span_h: float
     reason: str = ""
+    n_used: int = 0
 
     def to_dict(self) -> dict:
         """Plain dict (NaN as None) for stores and reports."""
@@ -126,6 +135,7 @@ def degradation_rate(
     min_span_h: float = DEFAULT_MIN_SPAN_H,
     confidence: float = 0.95,
     breaks=None,
+    max_points: int = DEFAULT_MAX_POINTS,
 ) -> RateResult:
     """Theil-Sen degradation rate of a deviation series against operating hours.
 
@@ -147,6 +157,13 @@ def degradation_rate(
         the median of the pairwise slopes *within* blocks only, so a step does not pass for a
         slope, and ``intercept`` is the last block's. None: one block, computed by
         ``scipy.stats.theilslopes``.
+    max_points : int
+        Theil-Sen compares every pair of points, so time and memory grow with the square of
+        their number. Above ``max_points`` valid points, consecutive groups of points (in
+        operating-hour order, never across a break) are replaced by their median hours and
+        median deviation, and the estimate and its interval come from those medians
+        (``RateResult.n_used``). Grouping also tames the positive correlation of
+        neighbouring windows [-].
 
     Returns
     -------
@@ -176,16 +193,36 @@ def degradation_rate(
         return _insufficient(n, span, f"{n} valid points, at least {min_points} needed")
     if span < min_span_h:
         return _insufficient(n, span, f"{span:.0f} operating hours spanned, at least {min_span_h:.0f} needed")
-    if breaks is None or len(np.atleast_1d(breaks)) == 0:
+    if max_points < min_points:
+        raise ValueError(f"max_points ({max_points}) must be >= min_points ({min_points})")
+    blocked = breaks is not None and len(np.atleast_1d(breaks)) > 0
+    block = (np.searchsorted(np.sort(np.asarray(breaks, dtype=float)), h, side="right") if blocked
+             else np.zeros(n, dtype=int))
+    n_used = n
+    if n > max_points:
+        h, d, block = _group_medians(h, d, block, max_points)
+        n_used = int(h.size)
+    if not blocked:
         res = stats.theilslopes(d, h / 1000.0, alpha=confidence)
         slope, intercept, low, high = (float(v) for v in (res.slope, res.intercept, res.low_slope, res.high_slope))
     else:
-        block = np.searchsorted(np.sort(np.asarray(breaks, dtype=float)), h, side="right")
         slope, intercept, low, high = _blocked_theil_sen(h / 1000.0, d, block, confidence)
         if not math.isfinite(slope):
             return _insufficient(n, span, "no block between breaks holds two points at distinct hours")
     f = HOURS_PER_MONTH / 1000.0
-    return RateResult("ok", slope, low, high, slope * f, low * f, high * f, intercept, n, span)
+    return RateResult("ok", slope, low, high, slope * f, low * f, high * f, intercept, n, span, n_used=n_used)
+
+
+def _group_medians(h: np.ndarray, d: np.ndarray, block: np.ndarray, max_points: int):
+    """Medians of consecutive groups of points (in hour order, never across a break)."""
+    order = np.argsort(h, kind="stable")
+    h, d, block = h[order], d[order], block[order]
+    size = int(math.ceil(h.size / max_points))
+    first = np.searchsorted(block, block, side="left")  # blocks are ascending with h
+    group = block.astype(np.int64) * (h.size + 1) + (np.arange(h.size) - first) // size
+    frame = pd.DataFrame({"g": group, "h": h, "d": d, "b": block}).groupby("g", sort=True)
+    med = frame[["h", "d"]].median()
+    return med["h"].to_numpy(), med["d"].to_numpy(), frame["b"].first().to_numpy()
 
 
 def _tie_term(v: np.ndarray) -> float:

@@ -195,3 +195,20 @@ def test_project_hand_worked():
     assert q.status == "insufficient data" and math.isnan(q.value)
     with pytest.raises(ValueError, match="hours_to_date"):
         project(r, -1.0, -5.0)
+
+
+def test_many_points_are_grouped_into_medians():
+    rng = np.random.default_rng(21)
+    h = np.sort(rng.uniform(0.0, 20000.0, 6000))
+    d = -0.3 * h / 1000.0 + rng.normal(0.0, 0.3, h.size)
+    r = degradation_rate(h, d, max_points=500)
+    assert r.n == 6000 and r.n_used == 500
+    assert r.low < -0.3 < r.high
+    d2 = d.copy()
+    d2[h >= 10000.0] -= 1.5  # a step: groups never straddle the break
+    rb = degradation_rate(h, d2, breaks=[10000.0], max_points=500)
+    assert rb.n_used <= 502 and rb.low < -0.3 < rb.high
+    small = degradation_rate(h[:800], d[:800])
+    assert small.n_used == 800
+    with pytest.raises(ValueError, match="max_points"):
+        degradation_rate(h, d, max_points=5)
