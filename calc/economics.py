@@ -229,6 +229,8 @@ def daily_losses(
     covered = filled_dev.notna()
     days = daily.index
     if isinstance(output_mw, pd.Series):
+        if not isinstance(output_mw.index, pd.DatetimeIndex) or output_mw.index.tz is None:
+            raise ValueError("output_mw as a Series needs a timezone-aware (UTC) DatetimeIndex")
         out = output_mw.astype(float).tz_convert("UTC").resample("1D").mean().reindex(days)
     else:
         out = pd.Series(float(output_mw), index=days)

@@ -67,6 +67,20 @@ def test_daily_losses_fill_and_online_hours():
         ec.daily_losses(dev, "hp", output_mw=500.0, basis=BASIS, online_hours=hours.iloc[:3])
 
 
+def test_daily_losses_output_series():
+    idx = pd.date_range("2026-09-01", periods=12, freq="4h", tz="UTC")
+    dev = pd.Series(-2.0, index=idx)
+    out = pd.Series([400.0] * 6 + [500.0] * 6, index=idx)  # daily means 400 and 500 MW
+    d = ec.daily_losses(dev, "hp", output_mw=out, basis=BASIS)
+    assert d["lost_mwh"].tolist() == pytest.approx([2.2 * 24, 2.75 * 24])  # 0.55 % of 400, of 500 MW
+    with pytest.raises(ValueError, match="timezone-aware"):
+        ec.daily_losses(dev, "hp", output_mw=out.tz_localize(None), basis=BASIS)
+    with pytest.raises(ValueError, match="timezone-aware"):
+        ec.daily_losses(dev.tz_localize(None), "hp", output_mw=500.0, basis=BASIS)
+    empty = ec.daily_losses(dev.iloc[:0], "hp", output_mw=500.0, basis=BASIS)
+    assert len(empty) == 0 and "cumulative_fuel_cost" in empty.columns
+
+
 def test_gain_has_opposite_sign_and_coefficient_override():
     assert ec.heat_rate_change(1.0, "lp") == pytest.approx(-0.45)
     assert ec.heat_rate_change(-1.0, "lp", coefficients={"lp": 0.6}) == pytest.approx(0.6)
