@@ -2,4 +2,22 @@
 
 from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
 
-__all__ = ["Store", "TemporaryStoreError", "FatalStoreError"]
+#: ``[store] kind`` -> "module:class" of the implementation (imported on first use).
+STORE_KINDS = {
+    "sqlite": "isentrope.daemon.stores.sqlite:SqliteStore",
+    "influx2": "isentrope.daemon.stores.influx2:Influx2Store",
+    "influx1": "isentrope.daemon.stores.influx1:Influx1Store",
+}
+
+
+def open_store(kind: str, **options) -> Store:
+    """Open a store by kind ("sqlite", "influx2", "influx1") with its constructor's options."""
+    import importlib
+
+    if kind not in STORE_KINDS:
+        raise ValueError(f"unknown store kind {kind!r}; valid kinds: {', '.join(STORE_KINDS)}")
+    module, cls = STORE_KINDS[kind].split(":")
+    return getattr(importlib.import_module(module), cls)(**options)
+
+
+__all__ = ["Store", "TemporaryStoreError", "FatalStoreError", "open_store", "STORE_KINDS"]
