@@ -422,11 +422,12 @@ def detect_steps(
     shift. The standardised residuals ``z`` feed ``S+ = max(0, S+ + z - k)`` and
     ``S- = max(0, S- - z - k)``; a step is declared when either exceeds ``h``. Its time is
     the point after the last zero of the alarming sum; the scheme restarts, with a fresh
-    fit, at the point after the alarm. The
-    size comes from one least-squares fit over the two segments either side of the step
-    (from the previous step, or the start, to the next step, or the end): a common level
-    and slope (``drift``) or a common level, plus an offset from the step on; the offset
-    is the size.
+    fit, at the point after the alarm. The size comes from one least-squares fit over the
+    two segments either side of the step (from the previous step, or the start, to the
+    next step, or the end): a common level and slope (``drift``) or a common level, plus
+    an offset from the step on; the offset is the size (without drift, the difference of
+    the two segment means). A step inside the first ``warmup_points`` of a segment is
+    absorbed into its fit and not reported.
     """
     d = np.asarray(deviation, dtype=float).ravel()
     t_in = time if isinstance(time, pd.DatetimeIndex) else np.asarray(time).ravel()
@@ -464,7 +465,8 @@ def detect_steps(
     while start < n - 1:
         z = _recursive_residuals(x[start:], d[start:], drift) / sigma
         s_hi = s_lo = 0.0
-        zero_hi = zero_lo = start  # index of the last zero of each sum
+        # index of the last zero of each sum: the sums start at zero after the warm-up
+        zero_hi = zero_lo = start + warmup_points - 1
         found = None
         for j in range(warmup_points, z.size):
             zj = z[j]
