@@ -370,6 +370,8 @@ class Pipeline:
         notes: list[str] = []
         frame = _clean(frame, self.roles)
         inside = (frame.index >= start) & (frame.index < end)
+        if not len(frame):
+            return self._nothing(start, end, final_end, alarm_state)
 
         screen = quality.screen(frame, **self._screen_kwargs(frame))
         ok = screen.ok.reindex(frame.index).fillna(False).astype(bool)
@@ -413,6 +415,16 @@ class Pipeline:
         return CycleResults(start=start, end=end, final_end=final_end, samples=samples, windows=windows, deviation=deviation,
                             alarm_events=events, alarm_state=new_state, counts=counts,
                             notes=sorted(set(notes)))
+
+    def _nothing(self, start, end, final_end, alarm_state) -> CycleResults:
+        """Results of a window without a single sample (an outage of the plant historian)."""
+        empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
+        counts = dict.fromkeys(("rows_read", "rows_in_window", "rows_flagged", "steady_samples", "windows",
+                                "deviations", "alarm_events"), 0)
+        return CycleResults(start=start, end=end, final_end=final_end, samples=empty, windows=empty.copy(),
+                            deviation=empty.copy(), alarm_events=_no_events(),
+                            alarm_state=dict(alarm_state) if alarm_state else None, counts=counts,
+                            notes=["no samples in the window"])
 
     # --- baseline ---------------------------------------------------------------------------
     def fit_baselines(self, windows: pd.DataFrame) -> tuple[dict, list[str]]:

@@ -447,7 +447,7 @@ class Worker:
         self.pending = batch
         self._flush(batch)
         self.pending = None
-        return results.counts["rows_in_window"], results.counts["rows_flagged"], new_checkpoint
+        return results.counts["rows_read"], results.counts["rows_flagged"], new_checkpoint
 
     def _baseline_period(self):
         cfg = getattr(self.config, "baseline", None)

@@ -223,3 +223,12 @@ class FakeClock:
 
 
 RESULT_MEASUREMENTS = ("section_samples", "steady_windows", "deviation", "alarm_events")
+
+
+def free_port() -> int:
+    """A TCP port on 127.0.0.1 that nothing listens on (for an unreachable store)."""
+    import socket
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
