@@ -392,7 +392,11 @@ def fit_baseline(
         Missing columns, a non-positive rating, an unsupported degree, or too few valid
         windows (rows with NaN in any used column are dropped first).
     """
-    if not (isinstance(rating_mw, (int, float)) and math.isfinite(rating_mw) and rating_mw > 0):
+    try:
+        rating_ok = math.isfinite(float(rating_mw)) and float(rating_mw) > 0
+    except (TypeError, ValueError):
+        rating_ok = False
+    if not rating_ok:
         raise ValueError(f"rating_mw must be a positive number of MW; found {rating_mw!r}")
     if degree not in (1, 2):
         raise ValueError(f"degree must be 1 or 2; found {degree!r}")
@@ -410,10 +414,18 @@ def fit_baseline(
             raise ValueError("reference_period needs windows indexed by a DatetimeIndex")
         start, end = reference_period
         keep = np.ones(len(frame), dtype=bool)
+        tz = frame.index.tz
+
+        def _bound(t):
+            ts = pd.Timestamp(t)
+            if tz is not None and ts.tzinfo is None:
+                ts = ts.tz_localize("UTC")  # naive bounds are UTC
+            return ts
+
         if start is not None:
-            keep &= frame.index >= pd.Timestamp(start)
+            keep &= frame.index >= _bound(start)
         if end is not None:
-            keep &= frame.index <= pd.Timestamp(end)
+            keep &= frame.index <= _bound(end)
         frame = frame[keep]
     data = frame[needed].astype(float)
     data = data[np.isfinite(data.to_numpy()).all(axis=1)]
@@ -425,6 +437,12 @@ def fit_baseline(
         )
 
     y = data[efficiency_col].to_numpy()
+    if not 0.0 < float(np.median(y)) <= 1.5:
+        raise ValueError(
+            f"fit_baseline({section}): {efficiency_col!r} has median {float(np.median(y)):.4g}; "
+            "efficiencies are fractions (0.86, not 86)"
+        )
+    rating_mw = float(rating_mw)
     x = data[load_col].to_numpy() / rating_mw
     raw_z = [data[c].to_numpy() for c in extra_cols]
     center = tuple(float(np.mean(v)) for v in raw_z)

@@ -190,6 +190,16 @@ def test_bad_arguments(kwargs, match):
         fit_baseline(make_windows(), "hp", **kw)
 
 
+def test_percent_efficiency_and_naive_bounds():
+    w = make_windows()
+    pct = w.assign(hp_efficiency=w["hp_efficiency"] * 100)
+    with pytest.raises(ValueError, match="fractions"):
+        fit_baseline(pct, "hp", efficiency_col="hp_efficiency", rating_mw=RATING)
+    m = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=np.int64(600),
+                     reference_period=("2026-03-01", "2026-03-05 23:00"))  # naive bounds: UTC
+    assert m.n_windows == 20 and m.rating_mw == 600.0
+
+
 def test_single_load_cannot_fit_quadratic():
     w = make_windows()
     w["gross_output"] = 500.0
