@@ -107,18 +107,24 @@ def next_valid(valid: np.ndarray) -> np.ndarray:
     return np.minimum.accumulate(idx[::-1])[::-1]
 
 
-def covered(end_ok: np.ndarray, start: np.ndarray) -> np.ndarray:
-    """Samples lying inside at least one qualifying window.
+def reach(end_ok: np.ndarray, start: np.ndarray) -> np.ndarray:
+    """For each sample j, the earliest start of a qualifying window ending at or after j.
 
-    ``end_ok[e]`` says the window ``[start[e], e]`` qualifies. Sample i is covered when some
-    qualifying e >= i has start[e] <= i; since start is non-decreasing the first qualifying
-    e at or after i decides.
+    ``end_ok[e]`` says the window ``[start[e], e]`` qualifies. Since start is non-decreasing,
+    the first qualifying e >= j gives the earliest start; ``len(end_ok)`` where there is none.
+    Sample j lies in a qualifying window iff ``reach[j] <= j``; samples i < j share one iff
+    ``reach[j] <= i``.
     """
     n = len(end_ok)
     ends = np.flatnonzero(end_ok)
     if len(ends) == 0:
-        return np.zeros(n, dtype=bool)
+        return np.full(n, n, dtype=np.int64)
     pos = np.searchsorted(ends, np.arange(n), side="left")
     has = pos < len(ends)
     e = ends[np.minimum(pos, len(ends) - 1)]
-    return has & (start[e] <= np.arange(n))
+    return np.where(has, start[e], n)
+
+
+def covered(end_ok: np.ndarray, start: np.ndarray) -> np.ndarray:
+    """Samples lying inside at least one qualifying window (see ``reach``)."""
+    return reach(end_ok, start) <= np.arange(len(end_ok))
