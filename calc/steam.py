@@ -92,8 +92,9 @@ P_MAX_5 = 50.0        # upper pressure limit of region 5 [MPa]
 T_13 = 623.15         # boundary between regions 1 and 3 [K]
 #: p_sat(273.15 K), eq. (30): the lowest pressure at which a liquid exists [MPa].
 P_MIN = 0.000611212677444
-#: p_sat(623.15 K), eq. (30): above it the saturation line lies in region 3 [MPa].
-P_SAT_623 = 16.5291642526
+#: p_sat(623.15 K), eq. (30) evaluated here (all digits kept so that the region boundary
+#: agrees with _psat): above it the saturation line lies in region 3 [MPa].
+P_SAT_623 = 16.529164252604478
 
 # Limits of the (p,T) validity, for messages.
 _RANGE_PT = ("0 < p <= 100 MPa for 273.15 <= T <= 1073.15 K, "
@@ -537,7 +538,7 @@ def _region2(p, t, need):
     return out
 
 
-_FORWARD = {1: _region1, 2: _region2}
+_FORWARD = types.MappingProxyType({1: _region1, 2: _region2})
 
 
 def _psat(t):
@@ -650,7 +651,8 @@ def _t2_ps(p, s):
     return out
 
 
-_BACKWARD = {(1, "h"): _t1_ph, (1, "s"): _t1_ps, (2, "h"): _t2_ph, (2, "s"): _t2_ps}
+_BACKWARD = types.MappingProxyType(
+    {(1, "h"): _t1_ph, (1, "s"): _t1_ps, (2, "h"): _t2_ph, (2, "s"): _t2_ps})
 
 
 # --------------------------------------------------------------------------------------------
@@ -722,7 +724,7 @@ def _iapws_points(p, other, key):
 _MAX_NEWTON = 8
 #: Residual below which the last Newton step is taken and the point is done. With quadratic
 #: convergence the returned T then leaves a residual of order 1e-13 (tests check 1e-9 in s).
-_ACCEPT = {"s": 1e-8, "h": 1e-5}
+_ACCEPT = types.MappingProxyType({"s": 1e-8, "h": 1e-5})
 
 
 def _newton(region, kind, p, y, t0, t_lo, t_hi, extra, exit_lo=False):
