@@ -480,3 +480,14 @@ def test_events_table_lists_every_injection(history):
         mask &= ~((state.index >= row["start"]) & (state.index < row["end"]))
     assert state.loc[mask, "online"].all()
     assert table.loc[table["kind"] == "flatline", "role"].item() == "cold_reheat_t"
+
+
+def test_generate_matches_generate_with_state_and_bench_runs(capsys):
+    a, ta = syn.generate(start="2025-08-01", days=2, freq="10min", seed=4)
+    b, tb, state = syn.generate_with_state(start="2025-08-01", days=2, freq="10min", seed=4)
+    pd.testing.assert_frame_equal(a, b)
+    assert ta == tb
+    assert "true_throttle_p" in state.columns
+    assert syn.main(["--bench", "--days", "2", "--freq", "10min"]) == 0
+    figures = dict(item.split("=") for item in capsys.readouterr().out.split())
+    assert int(figures["rows"]) == 288 and float(figures["steam_reference_s"]) > 0  # no timed assertion
