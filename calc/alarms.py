@@ -336,6 +336,10 @@ def _prepare(observations: pd.DataFrame) -> pd.DataFrame:
     if missing:
         raise ValueError(f"observations lack columns {missing}; found {list(obs.columns)}")
     obs = obs.copy()
+    if len(obs) == 0:
+        obs["time"] = pd.to_datetime(obs["time"], utc=True)
+        obs["value"] = obs["value"].astype(float)
+        return obs
     t = pd.to_datetime(obs["time"])
     if t.dt.tz is None:
         raise ValueError("observation times must be timezone-aware (UTC)")

@@ -150,6 +150,15 @@ def test_no_events_frame_shape():
     json.dumps(state)
 
 
+def test_empty_observations_keep_the_state():
+    state, _ = evaluate_alarms({}, obs([-1.5, -1.5, -1.5]), WARN)
+    empty = pd.DataFrame(columns=["time", "section", "quantity", "value"])
+    s2, ev = evaluate_alarms(state, empty, WARN)
+    assert s2 == state and len(ev) == 0
+    s3, ev = evaluate_alarms(state, to_observations(pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC")), {}), WARN)
+    assert s3 == state and len(ev) == 0
+
+
 def test_to_observations():
     idx = pd.date_range(T0, periods=3, freq="1h", tz="UTC", name="time")
     wide = pd.DataFrame({"hp_deviation": [-1.5, -1.5, -1.5], "steady": [True, True, True]}, index=idx)
