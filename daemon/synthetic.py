@@ -67,6 +67,7 @@ from scipy.signal import lfilter
 from isentrope.daemon.roles import ROLES, RoleMapping
 
 GENERATOR_VERSION = 1
+MAX_ROWS = 6_000_000  # about 11 years at one minute; guards against runaway memory use
 DEFAULT_SEED = 20250101
 
 # --- the scenario (invented) ---------------------------------------------------------------
@@ -490,6 +491,9 @@ def generate_with_state(
             raise ValueError(f"role {role!r} is not one of {sorted(TAG_MAP)}")
     step_min = step.total_seconds() / 60.0
     n = int(round(days * 1440.0 / step_min))
+    if not 2 <= n <= MAX_ROWS:
+        raise ValueError(f"days={days!r} at freq={freq!r} gives {n} rows; valid: 2 to {MAX_ROWS} "
+                         "(use a coarser freq or a shorter span)")
     index = pd.date_range(start, periods=n, freq=step, name="time")
     end = start + n * step
     tmin = np.arange(n) * step_min  # minutes since start

@@ -352,6 +352,7 @@ def test_faults_can_be_placed_and_switched_off():
 @pytest.mark.parametrize("kwargs, message", [
     (dict(freq="2h"), "freq"),
     (dict(days=0), "days"),
+    (dict(days=400, freq="1s"), "rows"),
     (dict(flatline_role="boiler_drum_level"), "boiler_drum_level"),
     (dict(trip_at="2024-12-01"), "outside"),
     (dict(shutdowns=[("2025-01-02", 10)], trip_at="2025-01-02 05:00"), "starts before"),
