@@ -269,6 +269,29 @@ def daily_losses(
     return frame
 
 
+def operating_hours_until(now, date, *, online_fraction: float = 1.0) -> float:
+    """Expected operating hours from ``now`` to ``date`` (e.g. the planned outage).
+
+    Parameters
+    ----------
+    now, date : timestamp
+        Start and end [UTC; naive times are taken as UTC].
+    online_fraction : float
+        Expected share of the calendar time online [fraction, 0-1].
+
+    Returns
+    -------
+    float
+        Calendar hours times ``online_fraction`` [h]; 0 when ``date`` is not after ``now``.
+    """
+    if not 0.0 <= online_fraction <= 1.0:
+        raise ValueError(f"online_fraction must lie in [0, 1]; found {online_fraction!r}")
+    a, b = pd.Timestamp(now), pd.Timestamp(date)
+    a = a.tz_localize("UTC") if a.tzinfo is None else a
+    b = b.tz_localize("UTC") if b.tzinfo is None else b
+    return max(0.0, (b - a) / pd.Timedelta(hours=1)) * online_fraction
+
+
 @dataclass(frozen=True)
 class ProjectedLoss:
     """Loss from now to a date, with the deviation following the degradation rate.

@@ -110,6 +110,14 @@ def test_projected_loss_hand_worked():
     assert ec.projected_loss(bad, -2.0, 100.0, "hp", output_mw=500.0, basis=BASIS).status == "insufficient data"
 
 
+def test_operating_hours_until():
+    # 2026-12-01 to 2027-03-01: 31 + 31 + 28 = 90 days = 2160 h; 85 % online -> 1836 h
+    assert ec.operating_hours_until("2026-12-01", "2027-03-01", online_fraction=0.85) == pytest.approx(1836.0)
+    assert ec.operating_hours_until("2027-03-01", "2026-12-01") == 0.0
+    with pytest.raises(ValueError, match="online_fraction"):
+        ec.operating_hours_until("2026-12-01", "2027-03-01", online_fraction=1.2)
+
+
 def test_overhaul_case_hand_worked():
     # recover 3 HP points: 0.60 % heat rate -> 81.818182 per operating hour
     # payback 1 500 000 / 81.818182 = 18 333.33 h; at 7500 h/year 2.444444 years
