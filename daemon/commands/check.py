@@ -210,6 +210,8 @@ def run(args: argparse.Namespace) -> int:
         since = parse_duration(args.since)
     except ValueError as exc:
         raise ValueError(f"--since: {exc}") from None
+    if since.total_seconds() <= 0:
+        raise ValueError(f"--since: expected a positive duration, found {args.since!r}")
     end = _end_time(args.end)
     start = end - pd.Timedelta(since)
     with config.store.open() as store:

@@ -138,23 +138,23 @@ def test_check_offline_unit_is_not_judged_on_units(tmp_path, capsys):
     assert row.endswith("unit offline: unit not judged")
 
 
-def test_check_unreachable_store_exits_3(tmp_path, capsys):
-    pytest.importorskip("isentrope.daemon.stores.influx2", reason="InfluxDB v2 store not built yet")
+@pytest.mark.parametrize("kind, body", [
+    ("influx2", 'org = "o"\nbucket = "b"\ntoken = "${ISEN_CHECK_TOKEN}"\n'),
+    ("influx1", 'database = "d"\ntoken = "${ISEN_CHECK_TOKEN}"\n'),
+])
+def test_check_unreachable_store_exits_3(tmp_path, capsys, monkeypatch, kind, body):
+    pytest.importorskip(f"isentrope.daemon.stores.{kind}", reason=f"{kind} store not built yet")
     sock = socket.socket()
     sock.bind(("127.0.0.1", 0))
     port = sock.getsockname()[1]
     sock.close()  # a closed port: connection refused
-    store = (f'[store]\nkind = "influx2"\nurl = "http://127.0.0.1:{port}"\norg = "o"\nbucket = "b"\n'
-             'token = "${ISEN_CHECK_TOKEN}"\ntimeout = "2s"\n')
+    store = f'[store]\nkind = "{kind}"\nurl = "http://127.0.0.1:{port}"\n{body}timeout = "2s"\n'
     path = write_config(tmp_path, store=store)
-    import os
-    os.environ["ISEN_CHECK_TOKEN"] = "t"
-    try:
-        rc = cli.main(["check", "-c", str(path), "--end", END.isoformat()])
-    finally:
-        del os.environ["ISEN_CHECK_TOKEN"]
-    assert rc == 3
-    assert capsys.readouterr().err.startswith("isentrope: store unreachable: ")
+    monkeypatch.setenv("ISEN_CHECK_TOKEN", "t")
+    rc = cli.main(["check", "-c", str(path), "--end", END.isoformat()])
+    err = capsys.readouterr().err
+    assert rc == 3, err
+    assert err.startswith("isentrope: store unreachable: ")
 
 
 def test_check_bad_since(tmp_path, capsys):
