@@ -196,8 +196,8 @@ def test_region_against_iapws_dense_grid():
 
 def _grid_ps():
     # Pressures of turbine duty, entropies from compressed liquid through wet to superheated.
-    p = np.geomspace(0.001, 35.0, 30)
-    s = np.linspace(0.05, 9.6, 45)
+    p = np.geomspace(0.001, 35.0, 26)
+    s = np.linspace(0.05, 9.6, 40)
     pp, ss = (a.ravel() for a in np.meshgrid(p, s))
     return pp, ss
 
@@ -216,12 +216,12 @@ def test_h_ps_against_iapws_dense_grid():
         if w.status:
             ref[k] = w.h
     both = np.isfinite(ref) & np.isfinite(h)
-    assert both.sum() > 900
+    assert both.sum() > 700
     assert np.max(np.abs(h[both] - ref[both])) <= 1e-6
     # A point iapws evaluates in regions 1, 2 or 4 is never NaN here.
     assert not np.any(np.isfinite(ref) & ~np.isfinite(h))
     wet = both & (d.region == 4)
-    assert wet.sum() > 150
+    assert wet.sum() > 120
 
 
 def test_t_ph_and_x_ph_against_iapws():
@@ -232,7 +232,7 @@ def test_t_ph_and_x_ph_against_iapws():
     x = steam.x_ph(pp, hh)
     s = steam.s_ph(pp, hh)
     v = steam.v_ph(pp, hh)
-    for k in range(0, pp.size, 3):
+    for k in range(0, pp.size, 4):
         if d.region[k] not in (1, 2, 4):
             continue
         w = IAPWS97(P=float(pp[k]), h=float(hh[k]))
@@ -313,7 +313,7 @@ def _in_12(p, t):
     return int(steam.region(p, t)) in (1, 2)
 
 
-@settings(max_examples=80, deadline=None)
+@settings(max_examples=40, deadline=None)
 @given(pressures, temperatures)
 def test_h_ps_inverts_s_pt(p, t):
     if not _in_12(p, t):
@@ -324,7 +324,7 @@ def test_h_ps_inverts_s_pt(p, t):
     assert abs(steam.s_pt(p, steam.t_ps(p, s)) - s) <= 1e-9
 
 
-@settings(max_examples=80, deadline=None)
+@settings(max_examples=40, deadline=None)
 @given(pressures, temperatures)
 def test_t_ph_inverts_h_pt(p, t):
     if not _in_12(p, t):
@@ -332,7 +332,7 @@ def test_t_ph_inverts_h_pt(p, t):
     assert steam.t_ph(p, steam.h_pt(p, t)) == pytest.approx(t, abs=1e-7)
 
 
-@settings(max_examples=80, deadline=None)
+@settings(max_examples=40, deadline=None)
 @given(pressures, temperatures, temperatures)
 def test_h_rises_with_t(p, t1, t2):
     lo, hi = min(t1, t2), max(t1, t2)
@@ -476,7 +476,7 @@ def test_newton_that_cannot_converge_is_flagged_not_returned():
     assert np.isnan(props["h"][0])
 
 
-@settings(max_examples=60, deadline=None)
+@settings(max_examples=30, deadline=None)
 @given(st.floats(min_value=0.002, max_value=16.0), st.floats(min_value=0.0, max_value=1.0))
 def test_wet_quality_round_trip(p, x):
     s = steam.s_sat_liquid(p) + x * (steam.s_sat_vapour(p) - steam.s_sat_liquid(p))
