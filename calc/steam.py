@@ -18,10 +18,11 @@ and carries a reason code, available with ``return_details=True``:
 array([0, 1])               # OK, OUT_OF_RANGE_P
 
 How the sums are evaluated: each IF97 equation is a sum of n_k x^I_k y^J_k. The distinct
-powers of x and of y are built by repeated multiplication (no ``pow`` per term), the
-coefficients are arranged in a matrix C[J, I], and the sum for a block of points is
-``sum_j y^J_j * (C @ x^I)_j``; derivatives in y weight the same products by J and J(J-1).
-A block of a few thousand points at a time keeps the work in cache.
+powers of x and of y are built by repeated multiplication (no ``pow`` per term); the terms
+are grouped by J, a_j = sum_i n_ij x^I_i is accumulated from the x powers, and the sum is
+``sum_j a_j y^J_j``; derivatives in y weight the same products by J and J(J-1). Blocks of
+8192 points at a time keep the work in cache. No Python loop runs over points (only over
+terms and blocks), except for the iapws fallback.
 
 Results are advisory performance information, not a protective function; they do not replace
 the turbine maker's limits, local codes or licensed engineering practice.
@@ -358,8 +359,9 @@ def _ipow(x, k):
 class _PowerPlan:
     """How to build x^e for a sorted set of integer exponents e by multiplication only.
 
-    x^e0 is one ``np.power`` call (or 1 / x), each next power is the previous one times
-    x^(e_k - e_(k-1)); the needed steps x^d are built once per block by a short ladder.
+    x^e0 comes from repeated squaring (of 1 / x for a negative e0), each next power is the
+    previous one times x^(e_k - e_(k-1)); the needed steps x^d are built once per block by a
+    short ladder.
     """
 
     def __init__(self, exponents):
@@ -396,8 +398,10 @@ class _PowerSum:
 
     The terms are grouped by J: a_j(x) = sum_i n_ij x^I_i is accumulated row by row from the
     x-power table (two numpy operations per term), then b_j = a_j y^J_j, and the sum and its
-    y-derivatives are weighted row sums of b. No BLAS call: on a loaded two-core machine a
-    threaded matrix product of these small shapes ran 10x slower than this (calc/bench.py).
+    y-derivatives are weighted row sums of b. No BLAS matrix product: measured while writing
+    this module on the shared two-core machine, a (27 x 17) @ (17 x 8192) product took
+    1.3 ms single-threaded and 12 ms with OpenBLAS threads under load, against 0.8 ms for
+    this row accumulation (which also skips the zero entries).
     """
 
     def __init__(self, n, i, j, i_scale=1):
