@@ -499,3 +499,13 @@ def test_benchmark_script_runs_and_reports_every_function(capsys):
     for name in ("h_pt", "s_pt", "h_ps"):
         assert any(line.startswith(name) for line in out.splitlines())
     assert "targets" in out
+
+
+def test_empty_and_nullable_inputs():
+    assert steam.h_ps(np.array([]), np.array([])).shape == (0,)
+    assert steam.x_ph(np.empty((0, 3)), 1.0).shape == (0, 3)
+    s = pd.Series([1.0, None, 3.0], dtype="Float64")
+    h, d = steam.h_pt(s, 600.0, return_details=True)
+    assert isinstance(h, pd.Series) and np.isnan(h.iloc[1])
+    assert d.reason.tolist() == [steam.OK, steam.NOT_FINITE, steam.OK]
+    assert h.iloc[0] == pytest.approx(steam.h_pt(1.0, 600.0), rel=1e-15)
