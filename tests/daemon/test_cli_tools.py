@@ -392,3 +392,33 @@ def test_plausible_table_covers_every_role():
     from isentrope.daemon.roles import ROLES
 
     assert set(check_cmd.PLAUSIBLE) | set(check_cmd.PLAUSIBLE_PER_RATING) == set(ROLES)
+
+
+# --- the same commands against real InfluxDB servers ---------------------------------------
+@pytest.mark.influx
+@pytest.mark.parametrize("api", ["influx1", "influx2"])
+def test_import_then_check_against_a_real_server(request, tmp_path, capsys, monkeypatch, api):
+    server = request.getfixturevalue("influxdb_v1" if api == "influx1" else "influxdb_v2")
+    db = server.new_database("clitools")
+    if api == "influx1":
+        store = f'[store]\nkind = "influx1"\nurl = "{server.url}"\ndatabase = "{db}"\n'
+    else:  # influxd 1.8: org ignored, bucket "db/rp", token empty with auth off (see conftest)
+        monkeypatch.setenv("ISEN_V2_TOKEN", "-")
+        store = (f'[store]\nkind = "influx2"\nurl = "{server.url}"\norg = "any"\n'
+                 f'bucket = "{server.bucket(db)}"\ntoken = "${{ISEN_V2_TOKEN}}"\n')
+    path = write_config(tmp_path, store=store)
+    frame = plant_frame(END - pd.Timedelta("6h"), 360)
+    csv = tmp_path / "six_hours.csv"
+    wide = frame.rename(columns={role: PLANT[role][0] for role in PLANT}).astype(object)
+    wide.index = wide.index.strftime("%Y-%m-%dT%H:%M:%SZ")
+    wide.iloc[10, 0] = "Bad"  # a historian status string: stored as missing, counted
+    wide.to_csv(csv)
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 0
+    out = capsys.readouterr().out
+    assert "rows read: 360" in out and "samples written: 3599" in out
+    assert "values not a number (stored as missing): 1" in out
+    rc = cli.main(["check", "-c", str(path), "--end", END.isoformat(), "--since", "6h"])
+    out = capsys.readouterr().out
+    assert rc == 0, out
+    row = next(line for line in out.splitlines() if line.startswith("throttle_p"))
+    assert row.split()[3] == "359" and row.endswith(" ok")
