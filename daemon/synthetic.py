@@ -729,10 +729,11 @@ def generate_with_state(
                                "missing_samples": int(i1 - i0)}
 
     keep = ~in_gap
-    if keep.all():
-        frame = pd.DataFrame({role: measured[role] for role in ROLES}, index=index)
-    else:
-        frame = pd.DataFrame({role: measured[role][keep] for role in ROLES}, index=index[keep])
+    kept = np.flatnonzero(keep)
+    values = np.empty((len(kept), len(ROLES)))  # one block: no copy when the frame is built
+    for j, role in enumerate(ROLES):
+        np.take(measured[role], kept, out=values[:, j])
+    frame = pd.DataFrame(values, index=index[kept], columns=list(ROLES), copy=False)
 
     columns = {"online": online, "load_fraction": load, "operating_hours": op_hours,
                "eta_hp": eta_hp, "eta_ip": eta_ip, "eta_lp": eta_lp, "in_gap": in_gap}
