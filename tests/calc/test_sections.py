@@ -557,3 +557,23 @@ def test_uncertainty_off_gives_nan_u_and_a_note():
     o = r.to_frame().iloc[0]
     assert math.isnan(o.hp_efficiency_u) and np.isfinite(o.hp_efficiency)
     assert any("uncertainty" in n for n in r.notes)
+
+
+def test_fast_section_uncertainty_matches_whole_chain_propagation():
+    # The per-property differences of _section_uncertainty against the generic law applied to
+    # the whole section function (JCGM 100:2008 Eq. (10), numerical sensitivities), including
+    # outlets within 1 K of saturation where one side of a difference is not superheated.
+    rng = np.random.default_rng(11)
+    cases = _random_sections(rng, 10, (10.0, 18.0), (780.0, 830.0), (0.2, 0.3))
+    near = cases[:2].copy()
+    near[:, 3] = np.array([IAPWS97(P=p, x=1).T for p in near[:, 2]]) + 0.6
+    cases = np.vstack([cases, near])
+    names = ("p_in", "t_in", "p_out", "t_out")
+    inputs = {k: cases[:, i].copy() for i, k in enumerate(names)}
+    u = {"p_in": 0.0025 * inputs["p_in"], "t_in": np.full(len(cases), 1.0),
+         "p_out": 0.0025 * inputs["p_out"], "t_out": np.full(len(cases), 1.0)}
+    base = S._section_core(*(inputs[k] for k in names))
+    fast = S._section_uncertainty(*(inputs[k] for k in names), base, u, u)
+    slow = S.propagate_uncertainty(lambda d: {"e": S._section_core(*(d[k] for k in names))["efficiency"]},
+                                   inputs, u, ("e",), base={"e": base["efficiency"]})["e"]
+    np.testing.assert_allclose(fast, slow, rtol=2e-3)
