@@ -289,6 +289,8 @@ class _Grid:
 def _flatline(values: np.ndarray, grid: _Grid, tol: float) -> np.ndarray:
     """Samples inside a stretch of at least the window whose finite values span <= tol."""
     n = len(values)
+    if n < 2:
+        return np.zeros(n, dtype=bool)
     valid = np.isfinite(values)
     dense = bool(valid.all())
     # Cheap pre-check: a window can only be flat if no step between successive finite
@@ -437,7 +439,7 @@ def _physics(frame_values, roles, band, margin):
     sel = None if finite.all() else np.flatnonzero(finite)
     codes = np.zeros(n, dtype=np.int64)
     eff = np.full(n, np.nan) if with_eff else None
-    if sel is not None and len(sel) == 0:
+    if n == 0 or (sel is not None and len(sel) == 0):
         return codes, eff
     p_in, t_in, p_out = (_subset(a, sel) for a in arrays[:3])
     t_out = _subset(arrays[3], sel) if t_out_r else None

@@ -251,13 +251,14 @@ def _build_windows(frame, t, steady, usable, max_gap_ns, max_length_ns, min_leng
     run = np.cumsum(new_run) - 1
     run_start = ts[new_run][run]
     chunk = (ts - run_start) // max_length_ns
-    key = run * (int((ts[-1] - ts[0]) // max_length_ns) + 2) + chunk
-    _, group = np.unique(key, return_inverse=True)
-    n_groups = int(group.max()) + 1
-    first = np.full(n_groups, np.iinfo(np.int64).max)
-    last = np.full(n_groups, np.iinfo(np.int64).min)
-    np.minimum.at(first, group, ts)
-    np.maximum.at(last, group, ts)
+    # run and chunk only grow along the steady samples, so groups are consecutive stretches
+    change = np.ones(len(idx), dtype=bool)
+    change[1:] = (run[1:] != run[:-1]) | (chunk[1:] != chunk[:-1])
+    group = np.cumsum(change) - 1
+    n_groups = int(group[-1]) + 1
+    heads = np.flatnonzero(change)
+    first = ts[heads]
+    last = ts[np.append(heads[1:] - 1, len(idx) - 1)]
     keep = (last - first) >= min_length_ns
     if check is not None and keep.any():
         keep &= check(group, idx)
@@ -268,19 +269,24 @@ def _build_windows(frame, t, steady, usable, max_gap_ns, max_length_ns, min_leng
     inside = wid >= 0
     if not inside.any():
         return window_id, _empty_windows(frame, columns)
-    sub = frame.iloc[idx[inside]].apply(pd.to_numeric, errors="coerce")
-    g = sub.groupby(wid[inside])
-    means = g.mean()
+    # Means by bincount over the steady samples of each window (finite values only).
+    k = int(keep.sum())
+    rows, w = idx[inside], wid[inside]
     tz = frame.index.tz
     table = pd.DataFrame(
         {
             "start": pd.to_datetime(first[keep], utc=True).tz_convert(tz) if tz else pd.to_datetime(first[keep]),
             "end": pd.to_datetime(last[keep], utc=True).tz_convert(tz) if tz else pd.to_datetime(last[keep]),
-            "n_samples": g.size().to_numpy(),
+            "n_samples": np.bincount(w, minlength=k),
         }
     )
     for c in frame.columns:
-        table[c] = means[c].to_numpy()
+        v = pd.to_numeric(frame[c], errors="coerce").to_numpy(dtype=float, na_value=np.nan)[rows]
+        fin = np.isfinite(v)
+        total = np.bincount(w[fin], weights=v[fin], minlength=k)
+        count = np.bincount(w[fin], minlength=k)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            table[c] = np.where(count > 0, total / np.maximum(count, 1), np.nan)
     return window_id, table[columns]
 
 

@@ -373,3 +373,12 @@ def test_missing_exactly_where_nan(holes):
     res = screen(f)
     assert ((res.flags["throttle_t"].to_numpy() & int(Reason.MISSING)) != 0).tolist() == holes
     assert (~res.ok).tolist() == holes
+
+
+def test_empty_and_single_row_frames():
+    empty = _plant(n=0)
+    res = screen(empty)
+    assert res.ok.empty and res.flags.shape == (0, len(STATE))
+    assert (res.summary()["samples"] == 0).all()
+    one = _plant(n=1, noise=False)
+    assert screen(one).ok.tolist() == [True]

@@ -283,3 +283,12 @@ def test_window_invariants(levels, lengths, holes, method):
             assert dev["gross_output"] <= 0.01 * RATING + 1e-9
             assert dev["throttle_t"] <= 4.0 + 1e-9
             assert dev["throttle_p"] <= max(0.0025 * members["throttle_p"].mean(), 0.0345) + 1e-12
+
+
+@pytest.mark.parametrize("method", ["ptc6", "r_statistic"])
+def test_empty_and_single_row_frames(method):
+    empty = _history(np.zeros(0))
+    res = tag_steady(empty, method=method)
+    assert res.steady.empty and res.windows.empty
+    one = _history(np.full(1, 450.0))
+    assert tag_steady(one, method=method).steady.tolist() == [False]
