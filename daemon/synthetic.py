@@ -85,7 +85,7 @@ SCENARIO = {
 
 RATING_MW = 530.0  # gross rating (invented)
 RATED_FLOW_KGS = 440.0  # main steam flow at rating, ~1584 t/h (invented)
-THROTTLE_P_RATED = 16.55  # MPa abs (invented; a usual value for 2400 psig units)
+THROTTLE_P_RATED = 16.55  # MPa abs, 2400 psia (invented; a usual throttle pressure for this class)
 THROTTLE_P_MIN = 5.0  # MPa abs, sliding-pressure floor (invented)
 SLIDING_BELOW = 0.80  # load fraction below which throttle pressure slides (invented)
 FIRST_STAGE_P_RATED = 12.6  # MPa abs at rated flow (invented)
