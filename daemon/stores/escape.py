@@ -1,0 +1,130 @@
+"""Quoting for Flux, InfluxQL and line protocol.
+
+Measurement, field and tag names come from a plant's configuration and may hold quotes,
+spaces, commas, equals signs or backslashes. Every name goes through one of these functions
+before it reaches a query or a line, so that it round-trips and can never change what the
+query means (a field named ``x") |> drop(`` stays a field name).
+
+Names holding a newline, a carriage return or a NUL are rejected with ``ValueError``: line
+protocol cannot carry them (a newline ends a line), and a name like that in a plant
+configuration is a mistake worth an error.
+
+Line protocol escaping follows the InfluxDB 1.x/2.x line protocol reference: in measurements
+a comma and a space are escaped with a backslash; in tag keys, tag values and field keys a
+comma, an equals sign and a space; in string field values a double quote and a backslash. A
+backslash elsewhere is literal. Because of that, a name that *ends* with a backslash, or has
+a backslash right before a character that needs escaping, cannot be written unambiguously,
+and is rejected too.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+
+_FORBIDDEN = re.compile(r"[\n\r\x00]")
+
+
+def check_name(name: str, what: str = "name") -> str:
+    """Return ``name`` if it can be used as a measurement, tag or field name; else ValueError."""
+    if not isinstance(name, str):
+        raise ValueError(f"{what} must be a string, found {type(name).__name__} {name!r}")
+    if name == "":
+        raise ValueError(f"{what} is empty; give a non-empty name")
+    m = _FORBIDDEN.search(name)
+    if m:
+        raise ValueError(
+            f"{what} {name!r} holds a {'newline' if m.group() == chr(10) else 'control character'}; "
+            "names may not contain newlines, carriage returns or NUL"
+        )
+    return name
+
+
+# --- Flux -------------------------------------------------------------------------------------
+def flux_string(value: str) -> str:
+    """A Flux string literal holding ``value`` exactly: ``"..."`` with ``\\``, ``"`` escaped.
+
+    ``${`` is escaped as ``\\${`` so that it is never read as string interpolation.
+    """
+    if not isinstance(value, str):
+        raise ValueError(f"Flux string must be a string, found {type(value).__name__} {value!r}")
+    if _FORBIDDEN.search(value):
+        raise ValueError(f"Flux string {value!r} holds a newline, carriage return or NUL")
+    out = value.replace("\\", "\\\\").replace('"', '\\"').replace("${", "\\${")
+    return f'"{out}"'
+
+
+# --- InfluxQL ---------------------------------------------------------------------------------
+def influxql_identifier(name: str, what: str = "identifier") -> str:
+    """A double-quoted InfluxQL identifier (measurement, field, tag key, database, RP)."""
+    check_name(name, what)
+    return '"' + name.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def influxql_string(value: str) -> str:
+    """A single-quoted InfluxQL string literal (tag values in WHERE)."""
+    if not isinstance(value, str):
+        raise ValueError(f"InfluxQL string must be a string, found {type(value).__name__} {value!r}")
+    if _FORBIDDEN.search(value):
+        raise ValueError(f"InfluxQL string {value!r} holds a newline, carriage return or NUL")
+    return "'" + value.replace("\\", "\\\\").replace("'", "\\'") + "'"
+
+
+# --- line protocol ----------------------------------------------------------------------------
+def _lp_escape(name: str, specials: str, what: str) -> str:
+    check_name(name, what)
+    if name.endswith("\\") or any(f"\\{c}" in name for c in specials):
+        raise ValueError(
+            f"{what} {name!r} has a backslash at the end or before one of {specials!r}; "
+            "line protocol cannot write that name unambiguously"
+        )
+    for c in specials:
+        name = name.replace(c, "\\" + c)
+    return name
+
+
+def lp_measurement(name: str) -> str:
+    """Escape a measurement name for line protocol (comma, space)."""
+    if name.startswith("#"):
+        raise ValueError(f"measurement {name!r} starts with '#', which line protocol reads as a comment")
+    return _lp_escape(name, ", ", "measurement")
+
+
+def lp_tag_key(name: str) -> str:
+    """Escape a tag key for line protocol (comma, equals sign, space)."""
+    return _lp_escape(name, ",= ", "tag key")
+
+
+def lp_tag_value(value: str) -> str:
+    """Escape a tag value for line protocol (comma, equals sign, space)."""
+    return _lp_escape(value, ",= ", "tag value")
+
+
+def lp_field_key(name: str) -> str:
+    """Escape a field key for line protocol (comma, equals sign, space)."""
+    return _lp_escape(name, ",= ", "field key")
+
+
+def lp_string_value(value: str) -> str:
+    """A double-quoted line protocol string field value (backslash, double quote escaped)."""
+    if not isinstance(value, str):
+        raise ValueError(f"string field value must be a string, found {type(value).__name__}")
+    if _FORBIDDEN.search(value):
+        raise ValueError(f"string field value {value[:40]!r}... holds a newline, carriage return or NUL")
+    return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def lp_float(value: float) -> str:
+    """A float field value; NaN and infinities have no line protocol form (ValueError)."""
+    v = float(value)
+    if not math.isfinite(v):
+        raise ValueError(f"float field value {v} cannot be written in line protocol")
+    return repr(v)
+
+
+def lp_series_key(measurement: str, tags: dict[str, str]) -> str:
+    """``measurement,tag=value,...`` with tags sorted by key (the order InfluxDB prefers)."""
+    parts = [lp_measurement(measurement)]
+    for key in sorted(tags):
+        parts.append(f"{lp_tag_key(key)}={lp_tag_value(str(tags[key]))}")
+    return ",".join(parts)

@@ -1,0 +1,295 @@
+"""InfluxDB through its v1 HTTP API: InfluxQL on /query (CSV responses), line protocol on /write.
+
+Works with InfluxDB 1.x (tested with 1.6.7 and 1.8.10) and with the v1-compatible endpoints of
+later servers (give ``token``, and a database/retention policy mapped onto a bucket).
+
+Reads: one InfluxQL statement per group of roles that share a measurement and tag filters,
+``SELECT "<field>"::field AS "<role>" ... FROM "<rp>"."<measurement>" WHERE "<tag>"::tag =
+'<value>' AND time >= <start> AND time < <end>``, every name quoted by
+``isentrope.daemon.stores.escape``; the window is split into ``read_chunk`` pieces. A CSV
+response hides "database not found", so the database is checked once (and again when a read
+comes back empty) with a JSON ``SHOW RETENTION POLICIES``.
+
+Writes: line protocol in batches of ``batch_size`` lines, ``precision=ns``. A failed batch
+raises ``TemporaryStoreError`` or ``FatalStoreError``; the lines not yet written (that batch and
+the rest) are kept in ``pending`` and written first by the next write call, so nothing is
+lost; writing them again is harmless because writes are idempotent.
+
+Checkpoints and state are points of the measurement ``isentrope_worker`` (see
+``influx_common.STATE_MEASUREMENT``).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from collections.abc import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+import requests
+
+from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores import common, escape
+from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.influx_common import (
+    STATE_MEASUREMENT,
+    StateClock,
+    batches,
+    classify_http,
+    raw_lines,
+    result_lines,
+    state_line,
+    time_windows,
+)
+
+
+class Influx1Store(Store):
+    """Store on an InfluxDB v1 HTTP API.
+
+    Parameters
+    ----------
+    url : str
+        Server URL, e.g. ``http://127.0.0.1:8086``.
+    database : str
+        Database holding raw samples and receiving results.
+    retention_policy : str, optional
+        Retention policy to read and write; empty means the database's default.
+    username, password : str, optional
+        Credentials (HTTP basic auth) when the server has auth enabled.
+    token : str, optional
+        Instead of username/password: sent as ``Authorization: Token <token>`` (v1-compatible
+        endpoints of 2.x servers).
+    timeout : float
+        Seconds per HTTP request [s].
+    batch_size : int
+        Lines per write request.
+    verify_ssl : bool
+        Verify the server's TLS certificate (https URLs).
+    read_chunk : str or Timedelta
+        Longest time span per read request.
+    """
+
+    kind = "influx1"
+
+    def __init__(
+        self,
+        url: str,
+        database: str,
+        retention_policy: str = "",
+        username: str = "",
+        password: str = "",
+        token: str = "",
+        timeout: float = 30.0,
+        batch_size: int = 5000,
+        verify_ssl: bool = True,
+        read_chunk: str | pd.Timedelta = "31D",
+    ):
+        if not url.startswith(("http://", "https://")):
+            raise ValueError(f"url {url!r} must start with http:// or https://")
+        escape.check_name(database, "database")
+        if retention_policy:
+            escape.check_name(retention_policy, "retention policy")
+        if batch_size < 1:
+            raise ValueError(f"batch_size must be at least 1, found {batch_size}")
+        self.url = url.rstrip("/")
+        self.database = database
+        self.retention_policy = retention_policy
+        self.timeout = float(timeout)
+        self.batch_size = int(batch_size)
+        self.read_chunk = pd.Timedelta(read_chunk)
+        self.pending: list[str] = []
+        self._clock = StateClock()
+        self._db_checked = False
+        self._session = requests.Session()
+        self._session.verify = verify_ssl
+        self._session.headers["User-Agent"] = "isentrope"
+        if token:
+            self._session.headers["Authorization"] = f"Token {token}"
+        elif username:
+            self._session.auth = (username, password)
+
+    def __repr__(self) -> str:  # never the password or token
+        return f"Influx1Store(url={self.url!r}, database={self.database!r}, retention_policy={self.retention_policy!r})"
+
+    # --- HTTP ----------------------------------------------------------------------------
+    def _request(self, method: str, path: str, what: str, **kw) -> requests.Response:
+        try:
+            resp = self._session.request(method, self.url + path, timeout=self.timeout, **kw)
+        except (requests.ConnectionError, requests.Timeout) as exc:
+            raise TemporaryStoreError(f"{what}: {self.url} unreachable: {type(exc).__name__}") from None
+        except requests.RequestException as exc:
+            raise FatalStoreError(f"{what}: {self.url}: {exc}") from None
+        if resp.status_code >= 300:
+            raise classify_http(resp.status_code, resp.text, f"{what} ({self.url}, database {self.database!r})")
+        return resp
+
+    def _from(self, measurement: str) -> str:
+        m = escape.influxql_identifier(measurement, "measurement")
+        if self.retention_policy:
+            return f"{escape.influxql_identifier(self.retention_policy, 'retention policy')}.{m}"
+        return m
+
+    def _check_database(self) -> None:
+        """FatalStoreError when the database (or retention policy) does not exist."""
+        q = f"SHOW RETENTION POLICIES ON {escape.influxql_identifier(self.database, 'database')}"
+        body = self._request("POST", "/query", "check database", data={"q": q}).json()
+        result = body.get("results", [{}])[0]
+        if "error" in result:
+            raise FatalStoreError(f"database {self.database!r} on {self.url}: {result['error']}")
+        if self.retention_policy:
+            names = [row[0] for s in result.get("series", []) for row in s.get("values", [])]
+            if self.retention_policy not in names:
+                raise FatalStoreError(
+                    f"retention policy {self.retention_policy!r} not found in database {self.database!r}; found {names}"
+                )
+        self._db_checked = True
+
+    def query_csv(self, q: str, what: str = "query") -> list[pd.DataFrame]:
+        """Run InfluxQL; one DataFrame per statement result block (CSV columns name, tags, time, ...)."""
+        params = {"db": self.database, "epoch": "ns"}
+        if self.retention_policy:
+            params["rp"] = self.retention_policy
+        resp = self._request("POST", "/query", what, params=params, data={"q": q}, headers={"Accept": "application/csv"})
+        text = resp.content.decode("utf-8")  # text/csv without a charset: requests would guess latin-1
+        if text.startswith("error"):
+            raise FatalStoreError(f"{what}: {text.strip()}")
+        blocks = []
+        for block in text.split("\n\n"):
+            if block.strip():
+                blocks.append(pd.read_csv(io.StringIO(block), dtype={"name": str, "tags": str}))
+        return blocks
+
+    # --- raw samples ---------------------------------------------------------------------
+    def _where(self, tags: Mapping[str, str], start: pd.Timestamp, end: pd.Timestamp) -> str:
+        conds = [f"{escape.influxql_identifier(k, 'tag key')}::tag = {escape.influxql_string(v)}" for k, v in tags.items()]
+        conds += [f"time >= {start.value}", f"time < {end.value}"]
+        return " AND ".join(conds)
+
+    def read_raw(self, mappings: Sequence[RoleMapping], start, end) -> pd.DataFrame:
+        mappings = common.check_mappings(mappings)
+        start, end = common.window(start, end)
+        groups: dict[tuple, list[RoleMapping]] = {}
+        for m in mappings:
+            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        if not self._db_checked:
+            self._check_database()
+        parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}
+        got_any = False
+        for lo, hi in time_windows(start, end, self.read_chunk):
+            statements, order = [], []
+            for g, ((measurement, tags), ms) in enumerate(groups.items()):
+                # One column per distinct field (several roles may read the same field), aliased
+                # s<statement>f<field> so that each CSV block names its statement.
+                fields = list(dict.fromkeys(m.field_name for m in ms))
+                select = ", ".join(
+                    f"{escape.influxql_identifier(f, 'field')}::field AS \"s{g}f{i}\"" for i, f in enumerate(fields)
+                )
+                statements.append(f"SELECT {select} FROM {self._from(measurement)} WHERE {self._where(dict(tags), lo, hi)}")
+                order.append((fields, ms))
+            for block in self.query_csv("; ".join(statements), "read_raw"):
+                if not len(block):
+                    continue
+                fcols = [c for c in block.columns[3:] if str(c).startswith("s")]
+                if not fcols:
+                    continue
+                g = int(str(fcols[0])[1:].split("f")[0])
+                fields, ms = order[g]
+                got_any = True
+                idx = pd.to_datetime(block["time"].to_numpy(dtype=np.int64), unit="ns", utc=True)
+                for m in ms:
+                    col = f"s{g}f{fields.index(m.field_name)}"
+                    if col in block.columns:
+                        parts[m.role].append(pd.Series(pd.to_numeric(block[col], errors="coerce").to_numpy(), index=idx))
+        if not got_any:
+            self._check_database()  # an empty answer may be a dropped database
+        series = {role: (pd.concat(ps) if ps else None) for role, ps in parts.items()}
+        return common.role_frame(mappings, {k: v for k, v in series.items() if v is not None})
+
+    def write_raw(self, mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> int:
+        lines, samples = raw_lines(mappings, frame)
+        self._write(lines, "write_raw")
+        return samples
+
+    def _write(self, lines: list[str], what: str) -> None:
+        params = {"db": self.database, "precision": "ns"}
+        if self.retention_policy:
+            params["rp"] = self.retention_policy
+        todo = self.pending + list(lines)
+        self.pending = []
+        for i in range(0, len(todo), self.batch_size):
+            batch = todo[i : i + self.batch_size]
+            try:
+                self._request("POST", "/write", what, params=params, data="\n".join(batch).encode())
+            except (TemporaryStoreError, FatalStoreError):
+                self.pending = todo[i:]
+                raise
+
+    # --- results -------------------------------------------------------------------------
+    def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:
+        escape.check_name(measurement, "measurement")
+        lines, n = result_lines(measurement, frame, tags)
+        self._write(lines, f"write_results {measurement}")
+        return n
+
+    def read_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> pd.DataFrame:
+        escape.check_name(measurement, "measurement")
+        tags = common.check_tags(tags)
+        start, end = common.window(start, end)
+        if not self._db_checked:
+            self._check_database()
+        frames = []
+        for lo, hi in time_windows(start, end, self.read_chunk):
+            q = f"SELECT *::field FROM {self._from(measurement)} WHERE {self._where(tags, lo, hi)}"
+            for b in self.query_csv(q, f"read_results {measurement}"):
+                if len(b):
+                    b = b.set_index(pd.to_datetime(b["time"].to_numpy(dtype=np.int64), unit="ns", utc=True))
+                    frames.append(b.drop(columns=["name", "tags", "time"]))
+        if not frames:
+            return common.results_frame({}, np.array([], dtype=np.int64))
+        return common.results_frame(pd.concat(frames))
+
+    # --- worker state --------------------------------------------------------------------
+    def _last_state(self, kind: str, name: str) -> str | None:
+        escape.check_name(name, f"{kind} name")
+        q = (
+            f"SELECT last(\"value\") FROM {self._from(STATE_MEASUREMENT)} WHERE "
+            f"\"kind\"::tag = {escape.influxql_string(kind)} AND \"name\"::tag = {escape.influxql_string(name)}"
+        )
+        params = {"db": self.database, "epoch": "ns", "q": q}
+        if self.retention_policy:
+            params["rp"] = self.retention_policy
+        # CSV for the value: csv module (the value is JSON, quoted by the server).
+        text = self._request("POST", "/query", f"load {kind}", data=params, headers={"Accept": "application/csv"}).content.decode("utf-8")
+        rows = list(csv.reader(io.StringIO(text)))
+        if len(rows) < 2:
+            if not self._db_checked:
+                self._check_database()
+            return None
+        header, row = rows[0], rows[1]
+        return row[header.index("last")]
+
+    def _save_state(self, kind: str, name: str, value: str) -> None:
+        line = state_line(kind, name, value, self._clock.next())
+        self._write([line], f"save {kind} {name!r}")
+
+    def get_checkpoint(self, name: str) -> pd.Timestamp | None:
+        v = self._last_state("checkpoint", name)
+        return None if v is None else common.utc(v, f"checkpoint {name!r}")
+
+    def set_checkpoint(self, name: str, time) -> None:
+        t = common.utc(time, "checkpoint time")
+        self._save_state("checkpoint", name, t.isoformat())
+
+    def load_state(self, name: str) -> dict:
+        v = self._last_state("state", name)
+        return {} if v is None else json.loads(v)
+
+    def save_state(self, name: str, state: Mapping) -> None:
+        if not isinstance(state, Mapping):
+            raise ValueError(f"state {name!r} must be a mapping, found {type(state).__name__}")
+        self._save_state("state", name, json.dumps(dict(state), allow_nan=False, sort_keys=True))
+
+    def close(self) -> None:
+        self._session.close()

@@ -1,0 +1,129 @@
+"""What the two InfluxDB stores share: line protocol building, error classes, worker state."""
+
+from __future__ import annotations
+
+import threading
+import time
+from collections.abc import Iterator, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores import common, escape
+from isentrope.daemon.stores.base import FatalStoreError, TemporaryStoreError
+
+#: Measurement holding checkpoints and saved state: tags ``kind`` ("checkpoint" or "state")
+#: and ``name``; one string field ``value`` (ISO time or JSON). Each save is a new point at the
+#: time of saving; reads take the last one.
+STATE_MEASUREMENT = "isentrope_worker"
+
+#: 1.x refuses string fields longer than this (64 KiB) [bytes].
+MAX_STRING_FIELD = 64 * 1024
+
+_TEMPORARY_STATUS = {408, 429, 500, 502, 503, 504}
+#: Bodies of a 5xx that mean the target does not exist, which no retry fixes.
+_FATAL_BODY = ("database not found", "no database", "bucket not found", "retention policy not found")
+
+
+def classify_http(status: int, body: str, what: str) -> Exception:
+    """TemporaryStoreError for 408/429/5xx, FatalStoreError for the rest (401, 403, 404, 400...)."""
+    body = (body or "").strip().replace("\n", " ")[:300]
+    msg = f"{what}: HTTP {status}: {body}"
+    if status in _TEMPORARY_STATUS or status >= 500:
+        if any(s in body.lower() for s in _FATAL_BODY):
+            return FatalStoreError(msg)
+        return TemporaryStoreError(msg)
+    return FatalStoreError(msg)
+
+
+def _format_column(values: np.ndarray) -> list[str | None]:
+    """repr() of each finite value (shortest exact form), None for NaN."""
+    return [repr(v) if v == v else None for v in values.tolist()]
+
+
+def raw_lines(mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> tuple[list[str], int]:
+    """Line protocol for a wide role frame: one line per (series, time) with that series' fields.
+
+    Roles that share a measurement and tag set share a line. NaN/inf samples are left out.
+    Returns (lines, samples).
+    """
+    mappings = common.check_mappings(mappings)
+    idx = common.utc_index(frame, "raw frame")
+    frame = frame.set_axis(idx, axis=0)
+    by_role = {m.role: m for m in mappings}
+    columns = common.wide_to_role_columns(mappings, frame)
+    groups: dict[str, list[tuple[str, str]]] = {}
+    for role in columns:
+        m = by_role[role]
+        key = escape.lp_series_key(m.measurement, common.check_tags(m.tags))
+        groups.setdefault(key, []).append((escape.lp_field_key(m.field_name), role))
+    lines: list[str] = []
+    samples = 0
+    for key, fields in groups.items():
+        sub = pd.DataFrame({role: frame[role] for _, role in fields}).apply(pd.to_numeric, errors="coerce")
+        sub = sub.astype("float64")
+        lines_added, n = _lines(key, [f for f, _ in fields], sub.to_numpy(), common.epoch_ns(idx))
+        lines += lines_added
+        samples += n
+    return lines, samples
+
+
+def _lines(series_key: str, field_keys: Sequence[str], values: np.ndarray, times: np.ndarray) -> tuple[list[str], int]:
+    values = values.copy()
+    values[~np.isfinite(values)] = np.nan
+    cols = [[None if s is None else f"{k}={s}" for s in _format_column(values[:, j])] for j, k in enumerate(field_keys)]
+    prefix = series_key + " "
+    lines = []
+    for i, t in enumerate(times.tolist()):
+        parts = [c[i] for c in cols if c[i] is not None]
+        if parts:
+            lines.append(f"{prefix}{','.join(parts)} {t}")
+    return lines, int(np.count_nonzero(~np.isnan(values)))
+
+
+def result_lines(measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> tuple[list[str], int]:
+    """Line protocol for ``write_results``: numeric/bool columns as float fields; NaN left out."""
+    if measurement == STATE_MEASUREMENT:
+        raise ValueError(f"measurement {measurement!r} is reserved for the worker's checkpoint and state")
+    key = escape.lp_series_key(measurement, common.check_tags(tags))
+    idx = common.utc_index(frame, f"{measurement} results")
+    fields = common.result_columns(frame, reserved=("time",))
+    if not fields or len(frame) == 0:
+        return [], 0
+    return _lines(key, [escape.lp_field_key(f) for f in fields], common.results_matrix(frame, fields), common.epoch_ns(idx))
+
+
+def batches(lines: Sequence[str], size: int) -> Iterator[Sequence[str]]:
+    for i in range(0, len(lines), size):
+        yield lines[i : i + size]
+
+
+class StateClock:
+    """Strictly increasing ns timestamps for state points (so the latest save is the last point)."""
+
+    def __init__(self):
+        self._last = 0
+        self._lock = threading.Lock()
+
+    def next(self) -> int:
+        with self._lock:
+            self._last = max(time.time_ns(), self._last + 1)
+            return self._last
+
+
+def state_line(kind: str, name: str, value: str, t_ns: int) -> str:
+    escape.check_name(name, f"{kind} name")
+    if len(value.encode()) > MAX_STRING_FIELD - 16:
+        raise ValueError(f"{kind} {name!r} is {len(value.encode())} bytes; InfluxDB keeps string fields under 64 KiB")
+    key = escape.lp_series_key(STATE_MEASUREMENT, {"kind": kind, "name": name})
+    return f"{key} value={escape.lp_string_value(value)} {t_ns}"
+
+
+def time_windows(start: pd.Timestamp, end: pd.Timestamp, chunk: pd.Timedelta) -> Iterator[tuple[pd.Timestamp, pd.Timestamp]]:
+    """Split [start, end) into pieces no longer than ``chunk`` (bounded memory per request)."""
+    t = start
+    while t < end:
+        u = min(t + chunk, end)
+        yield t, u
+        t = u

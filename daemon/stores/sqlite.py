@@ -1,0 +1,349 @@
+"""The embedded store: one SQLite file in WAL mode, readable with plain SQL.
+
+Schema (times are integers since 1970-01-01 UTC; ``*_utc`` columns are ISO text for people)::
+
+    -- raw plant samples, long format: one row per (tag, time)
+    CREATE TABLE samples (
+        tag   TEXT    NOT NULL,          -- plant tag name (RoleMapping.tag)
+        time  INTEGER NOT NULL,          -- epoch milliseconds, UTC
+        value REAL,                      -- plant unit of the tag
+        PRIMARY KEY (tag, time)
+    ) WITHOUT ROWID;
+
+    -- one wide table per result measurement, e.g. "sections":
+    CREATE TABLE "<measurement>" (
+        "<tag key>" TEXT NOT NULL DEFAULT '',   -- one column per tag key (unit, ...)
+        time        INTEGER NOT NULL,           -- epoch milliseconds, UTC
+        time_utc    TEXT GENERATED ALWAYS AS (strftime('%Y-%m-%dT%H:%M:%fZ', time / 1000.0, 'unixepoch')) VIRTUAL,
+        "<field>"   REAL,                       -- one column per field, added as fields appear
+        PRIMARY KEY ("<tag key>", ..., time)
+    ) WITHOUT ROWID;
+
+    CREATE TABLE isentrope_results    (measurement TEXT PRIMARY KEY, tag_keys TEXT NOT NULL);  -- JSON list
+    CREATE TABLE isentrope_checkpoint (name TEXT PRIMARY KEY, time_ns INTEGER NOT NULL,
+                                       time_utc TEXT NOT NULL, updated_utc TEXT NOT NULL);
+    CREATE TABLE isentrope_state      (name TEXT PRIMARY KEY, state TEXT NOT NULL,   -- JSON object
+                                       updated_utc TEXT NOT NULL);
+
+A dashboard reads results with e.g.
+``SELECT time_utc, hp_efficiency FROM sections WHERE unit = 'U1' ORDER BY time``.
+
+Behaviour worth knowing:
+
+* Times are stored in milliseconds: sub-millisecond parts are dropped (floored), so two
+  samples less than 1 ms apart become one (the later write wins).
+* ``INSERT OR REPLACE`` / upserts make writes idempotent. A NaN (or a non-number) is *no
+  value*: raw NaN samples are not written, and a NaN result field leaves an earlier value of
+  that field in place, the same as the InfluxDB stores, whose line protocol has no NaN.
+* Result bools and integers are stored as REAL (0.0/1.0).
+* A new tag key on an existing measurement rebuilds its table once with the wider key.
+* Table names ``samples`` and those starting with ``isentrope_`` or ``sqlite_`` are reserved.
+"""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+import threading
+from collections.abc import Mapping, Sequence
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores import common
+from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.escape import check_name
+
+_SCHEMA = """
+CREATE TABLE IF NOT EXISTS samples (
+    tag TEXT NOT NULL, time INTEGER NOT NULL, value REAL, PRIMARY KEY (tag, time)
+) WITHOUT ROWID;
+CREATE TABLE IF NOT EXISTS isentrope_results (measurement TEXT PRIMARY KEY, tag_keys TEXT NOT NULL);
+CREATE TABLE IF NOT EXISTS isentrope_checkpoint (
+    name TEXT PRIMARY KEY, time_ns INTEGER NOT NULL, time_utc TEXT NOT NULL, updated_utc TEXT NOT NULL
+);
+CREATE TABLE IF NOT EXISTS isentrope_state (name TEXT PRIMARY KEY, state TEXT NOT NULL, updated_utc TEXT NOT NULL);
+"""
+
+_TIME_UTC = "strftime('%Y-%m-%dT%H:%M:%fZ', time / 1000.0, 'unixepoch')"
+_NS_PER_MS = 1_000_000
+
+
+def _ident(name: str) -> str:
+    """A double-quoted SQL identifier."""
+    return '"' + name.replace('"', '""') + '"'
+
+
+def _now_utc() -> str:
+    return pd.Timestamp.now(tz="UTC").strftime("%Y-%m-%dT%H:%M:%S.%fZ")
+
+
+class SqliteStore(Store):
+    """Store in one SQLite file (created when missing). Thread-safe: one connection, one lock.
+
+    Parameters
+    ----------
+    path : str or Path
+        The database file; ``":memory:"`` for a private in-memory database (tests).
+    timeout : float
+        Seconds to wait for another writer's lock before ``TemporaryStoreError`` [s].
+    """
+
+    kind = "sqlite"
+
+    def __init__(self, path: str | Path, timeout: float = 30.0):
+        self.path = str(path)
+        self._lock = threading.RLock()
+        try:
+            if self.path != ":memory:":
+                parent = Path(self.path).parent
+                if not parent.is_dir():
+                    raise FatalStoreError(f"sqlite store {self.path}: directory {parent} does not exist")
+            self._db = sqlite3.connect(self.path, timeout=timeout, check_same_thread=False, isolation_level=None)
+            self._db.execute(f"PRAGMA busy_timeout = {int(timeout * 1000)}")
+            mode = self._db.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            if self.path != ":memory:" and mode.lower() != "wal":
+                raise FatalStoreError(f"sqlite store {self.path}: could not switch to WAL mode (got {mode})")
+            self._db.execute("PRAGMA synchronous = NORMAL")
+            self._db.executescript(_SCHEMA)
+        except sqlite3.Error as exc:
+            raise self._error(exc, "open") from exc
+        self._closed = False
+
+    def __repr__(self) -> str:
+        return f"SqliteStore({self.path!r})"
+
+    # --- plumbing ------------------------------------------------------------------------
+    def _error(self, exc: Exception, doing: str) -> Exception:
+        msg = f"sqlite store {self.path}: {doing}: {exc}"
+        text = str(exc).lower()
+        if isinstance(exc, sqlite3.OperationalError) and ("locked" in text or "busy" in text or "disk i/o" in text):
+            return TemporaryStoreError(msg)
+        return FatalStoreError(msg)
+
+    def _run(self, doing: str, fn):
+        with self._lock:
+            if getattr(self, "_closed", False):
+                raise FatalStoreError(f"sqlite store {self.path}: {doing}: the store is closed")
+            try:
+                return fn(self._db)
+            except sqlite3.Error as exc:
+                if self._db.in_transaction:
+                    self._db.execute("ROLLBACK")
+                raise self._error(exc, doing) from exc
+
+    # --- raw samples ---------------------------------------------------------------------
+    def read_raw(self, mappings: Sequence[RoleMapping], start, end) -> pd.DataFrame:
+        mappings = common.check_mappings(mappings)
+        for m in mappings:
+            check_name(m.tag, "tag")
+        start, end = common.window(start, end)
+        lo = int(np.floor(start.value / _NS_PER_MS))
+        hi = -(-end.value // _NS_PER_MS)  # ceil: start <= t < end, in ms
+        # typeof() keeps only numbers: text put there by hand reads as a missing sample.
+        sql = (
+            "SELECT time, value FROM samples WHERE tag = ? AND time >= ? AND time < ? "
+            "AND typeof(value) IN ('real', 'integer') ORDER BY time"
+        )
+
+        def go(db):
+            out = {}
+            for m in mappings:
+                rows = db.execute(sql, (m.tag, lo, hi)).fetchall()
+                arr = np.array(rows, dtype=np.float64).reshape(-1, 2) if rows else np.empty((0, 2))
+                times = arr[:, 0].astype(np.int64) * _NS_PER_MS  # ms epochs are exact in float64
+                idx = pd.to_datetime(times, unit="ns", utc=True)
+                s = pd.Series(arr[:, 1], index=idx)
+                out[m.role] = s[(s.index >= start) & (s.index < end)]
+            return out
+
+        return common.role_frame(mappings, self._run("read_raw", go))
+
+    def write_raw(self, mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> int:
+        mappings = common.check_mappings(mappings)
+        for m in mappings:
+            check_name(m.tag, "tag")
+        idx = common.utc_index(frame, "raw frame")
+        frame = frame.set_axis(idx, axis=0)
+        by_role = {m.role: m for m in mappings}
+        columns = common.wide_to_role_columns(mappings, frame)
+
+        def go(db):
+            n = 0
+            db.execute("BEGIN IMMEDIATE")
+            for role, s in columns.items():
+                tag = by_role[role].tag
+                ms = (common.epoch_ns(s.index) // _NS_PER_MS).tolist()
+                db.executemany(
+                    "INSERT OR REPLACE INTO samples (tag, time, value) VALUES (?, ?, ?)",
+                    zip([tag] * len(ms), ms, s.to_numpy().tolist()),
+                )
+                n += len(ms)
+            db.execute("COMMIT")
+            return n
+
+        return self._run("write_raw", go)
+
+    # --- results -------------------------------------------------------------------------
+    @staticmethod
+    def _check_measurement(measurement: str) -> str:
+        check_name(measurement, "measurement")
+        low = measurement.lower()
+        if low == "samples" or low.startswith("isentrope_") or low.startswith("sqlite_"):
+            raise ValueError(f"measurement {measurement!r} is a reserved table name in the sqlite store")
+        return measurement
+
+    def _tag_keys(self, db, measurement: str) -> list[str] | None:
+        row = db.execute("SELECT tag_keys FROM isentrope_results WHERE measurement = ?", (measurement,)).fetchone()
+        return None if row is None else json.loads(row[0])
+
+    def _columns(self, db, measurement: str) -> list[str]:
+        return [r[1] for r in db.execute(f"PRAGMA table_xinfo({_ident(measurement)})")]
+
+    def _create(self, db, table: str, tag_keys: list[str], fields: list[str]) -> None:
+        cols = [f"{_ident(k)} TEXT NOT NULL DEFAULT ''" for k in tag_keys]
+        cols.append("time INTEGER NOT NULL")
+        cols.append(f"time_utc TEXT GENERATED ALWAYS AS ({_TIME_UTC}) VIRTUAL")
+        cols += [f"{_ident(f)} REAL" for f in fields]
+        key = ", ".join([_ident(k) for k in tag_keys] + ["time"])
+        db.execute(f"CREATE TABLE {_ident(table)} ({', '.join(cols)}, PRIMARY KEY ({key})) WITHOUT ROWID")
+
+    def _prepare_table(self, db, measurement: str, tag_keys: list[str], fields: list[str]) -> list[str]:
+        """Create or widen the table; returns its tag keys (a superset of ``tag_keys``)."""
+        known = self._tag_keys(db, measurement)
+        clash = [f for f in fields if f.lower() in {k.lower() for k in tag_keys + (known or [])}]
+        if clash:
+            raise ValueError(f"{measurement}: result fields {clash} have the same name as tag keys")
+        if known is None:
+            self._create(db, measurement, tag_keys, fields)
+            db.execute("INSERT INTO isentrope_results VALUES (?, ?)", (measurement, json.dumps(tag_keys)))
+            return tag_keys
+        existing = self._columns(db, measurement)
+        lowered = {c.lower() for c in existing}
+        clash = [k for k in tag_keys if k not in known and k.lower() in lowered]
+        if clash:
+            raise ValueError(f"{measurement}: tag keys {clash} have the same name as result fields")
+        new_keys = [k for k in tag_keys if k not in known]
+        if new_keys:  # the key widens: rebuild the table once
+            keys = sorted(known + new_keys)
+            old_fields = [c for c in existing if c not in known and c not in ("time", "time_utc")]
+            tmp = f"isentrope_rebuild_{measurement}"
+            self._create(db, tmp, keys, old_fields)
+            cols = ", ".join(_ident(c) for c in known + ["time"] + old_fields)
+            db.execute(f"INSERT INTO {_ident(tmp)} ({cols}) SELECT {cols} FROM {_ident(measurement)}")
+            db.execute(f"DROP TABLE {_ident(measurement)}")
+            db.execute(f"ALTER TABLE {_ident(tmp)} RENAME TO {_ident(measurement)}")
+            db.execute("UPDATE isentrope_results SET tag_keys = ? WHERE measurement = ?", (json.dumps(keys), measurement))
+            known, existing = keys, self._columns(db, measurement)
+            lowered = {c.lower() for c in existing}
+        for f in fields:
+            if f.lower() not in lowered:
+                db.execute(f"ALTER TABLE {_ident(measurement)} ADD COLUMN {_ident(f)} REAL")
+                lowered.add(f.lower())
+        return known
+
+    def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:
+        self._check_measurement(measurement)
+        tags = common.check_tags(tags)
+        idx = common.utc_index(frame, f"{measurement} results")
+        fields = common.result_columns(frame, reserved=("time", "time_utc"))
+        for f in fields:
+            check_name(f, "result field")
+        if not fields or len(frame) == 0:
+            return 0
+        values = common.results_matrix(frame, fields)
+        ms = common.epoch_ns(idx) // _NS_PER_MS
+
+        def go(db):
+            db.execute("BEGIN IMMEDIATE")
+            keys = self._prepare_table(db, measurement, list(tags), fields)
+            key_values = [tags.get(k, "") for k in keys]
+            cols = [_ident(k) for k in keys] + ["time"] + [_ident(f) for f in fields]
+            update = ", ".join(f"{_ident(f)} = COALESCE(excluded.{_ident(f)}, {_ident(f)})" for f in fields)
+            sql = (
+                f"INSERT INTO {_ident(measurement)} ({', '.join(cols)}) VALUES ({', '.join('?' * len(cols))}) "
+                f"ON CONFLICT ({', '.join([_ident(k) for k in keys] + ['time'])}) DO UPDATE SET {update}"
+            )
+            obj = values.astype(object)
+            obj[np.isnan(values)] = None
+            prefix = tuple(key_values)
+            db.executemany(sql, (prefix + (t,) + tuple(row) for t, row in zip(ms.tolist(), obj.tolist())))
+            db.execute("COMMIT")
+            return int(np.count_nonzero(~np.isnan(values)))
+
+        return self._run("write_results", go)
+
+    def read_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> pd.DataFrame:
+        self._check_measurement(measurement)
+        tags = common.check_tags(tags)
+        start, end = common.window(start, end)
+        lo = -(-start.value // _NS_PER_MS)
+        hi = -(-end.value // _NS_PER_MS)
+
+        def go(db):
+            keys = self._tag_keys(db, measurement)
+            if keys is None:
+                return None, []
+            missing = [k for k in tags if k not in keys]
+            if missing:
+                return None, []
+            fields = [c for c in self._columns(db, measurement) if c not in keys and c not in ("time", "time_utc")]
+            where = " AND ".join([f"{_ident(k)} = ?" for k in tags] + ["time >= ?", "time < ?"])
+            sql = (
+                f"SELECT time, {', '.join(_ident(f) for f in fields) or 'NULL'} FROM {_ident(measurement)} "
+                f"WHERE {where} ORDER BY time"
+            )
+            return db.execute(sql, (*tags.values(), lo, hi)).fetchall(), fields
+
+        rows, fields = self._run("read_results", go)
+        if not rows:
+            return common.results_frame({f: np.array([], dtype=float) for f in fields}, np.array([], dtype=np.int64))
+        times = np.array([r[0] for r in rows], dtype=np.int64) * _NS_PER_MS
+        data = np.array([r[1:] for r in rows], dtype=np.float64).reshape(len(rows), -1)
+        return common.results_frame({f: data[:, i] for i, f in enumerate(fields)}, times)
+
+    # --- worker state --------------------------------------------------------------------
+    def get_checkpoint(self, name: str) -> pd.Timestamp | None:
+        check_name(name, "checkpoint name")
+        row = self._run(
+            "get_checkpoint",
+            lambda db: db.execute("SELECT time_ns FROM isentrope_checkpoint WHERE name = ?", (name,)).fetchone(),
+        )
+        return None if row is None else pd.Timestamp(row[0], unit="ns", tz="UTC")
+
+    def set_checkpoint(self, name: str, time) -> None:
+        check_name(name, "checkpoint name")
+        t = common.utc(time, "checkpoint time")
+        self._run(
+            "set_checkpoint",
+            lambda db: db.execute(
+                "INSERT OR REPLACE INTO isentrope_checkpoint VALUES (?, ?, ?, ?)",
+                (name, t.value, t.strftime("%Y-%m-%dT%H:%M:%S.%fZ"), _now_utc()),
+            ),
+        )
+
+    def load_state(self, name: str) -> dict:
+        check_name(name, "state name")
+        row = self._run(
+            "load_state",
+            lambda db: db.execute("SELECT state FROM isentrope_state WHERE name = ?", (name,)).fetchone(),
+        )
+        return {} if row is None else json.loads(row[0])
+
+    def save_state(self, name: str, state: Mapping) -> None:
+        check_name(name, "state name")
+        if not isinstance(state, Mapping):
+            raise ValueError(f"state {name!r} must be a mapping, found {type(state).__name__}")
+        text = json.dumps(dict(state), allow_nan=False, sort_keys=True)
+        self._run(
+            "save_state",
+            lambda db: db.execute("INSERT OR REPLACE INTO isentrope_state VALUES (?, ?, ?)", (name, text, _now_utc())),
+        )
+
+    def close(self) -> None:
+        with self._lock:
+            if not getattr(self, "_closed", True):
+                self._closed = True
+                self._db.close()

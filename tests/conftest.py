@@ -1,0 +1,265 @@
+"""Shared fixtures.
+
+Real InfluxDB servers
+---------------------
+``influxdb_v1``: Debian's influxd 1.6.7 (v1 HTTP API: /query InfluxQL, /write).
+``influxdb_v2``: influxd 1.8.10 built from the Go module with ``flux-enabled = true``; it serves
+the v2 HTTP API (/api/v2/write, Flux on /api/v2/query) as well as the v1 API. For 1.8 the v2
+"org" is ignored, a bucket is ``"database/retention_policy"`` and the token is
+``"user:password"`` (empty when auth is off, as here).
+
+Each is session-scoped: started once on free 127.0.0.1 ports (HTTP and the meta/RPC
+bind-address) in a temporary directory with a generated configuration, waited for on /ping,
+and killed at the end of the session. The yielded ``InfluxServer`` has ``url``, ``binary``,
+``version``, ``port`` and helpers: ``stop()``, ``start()`` (same ports and data, for fault
+tests), ``query(q, db=None)``, ``new_database(prefix)`` and ``bucket(db)``.
+
+Binaries come from ``ISENTROPE_INFLUXD_V1`` (default /usr/bin/influxd) and
+``ISENTROPE_INFLUXD_18`` (default /var/cache/isentrope/influxd-1.8.10/influxd). When one is
+missing the tests that need it skip with a message saying how to get it, unless
+``ISENTROPE_REQUIRE_INFLUX`` is set (CI sets it), in which case they fail.
+"""
+
+from __future__ import annotations
+
+import itertools
+import os
+import shutil
+import signal
+import socket
+import subprocess
+import tempfile
+import time
+import urllib.error
+import urllib.parse
+import urllib.request
+import json
+from pathlib import Path
+
+import pytest
+
+INFLUXD_V1 = os.environ.get("ISENTROPE_INFLUXD_V1", "/usr/bin/influxd")
+INFLUXD_18 = os.environ.get("ISENTROPE_INFLUXD_18", "/var/cache/isentrope/influxd-1.8.10/influxd")
+INFLUX_CLI = os.environ.get("ISENTROPE_INFLUX_CLI", "/usr/bin/influx")
+
+HOW_TO_GET = {
+    "v1": "install Debian's server: `apt-get install influxdb influxdb-client` "
+    "(or set ISENTROPE_INFLUXD_V1 to an influxd 1.x binary)",
+    "v2": "build it: `bash deploy/servers/influxd-1.8.10.sh` "
+    "(or set ISENTROPE_INFLUXD_18 to an influxd 1.8.x binary)",
+}
+
+
+def _require_influx() -> bool:
+    return os.environ.get("ISENTROPE_REQUIRE_INFLUX", "") not in ("", "0", "false", "no")
+
+
+def missing_server(what: str, reason: str):
+    """Skip (developer machine) or fail (CI, ISENTROPE_REQUIRE_INFLUX set) for a missing server."""
+    msg = f"{reason}; {HOW_TO_GET.get(what, what)}"
+    if _require_influx():
+        pytest.fail(f"ISENTROPE_REQUIRE_INFLUX is set but {msg}", pytrace=False)
+    pytest.skip(msg)
+
+
+def free_port() -> int:
+    """A TCP port free on 127.0.0.1 right now (the OS picks it)."""
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def influxd_version(binary: str) -> str:
+    out = subprocess.run([binary, "version"], capture_output=True, text=True, timeout=30).stdout
+    # "InfluxDB v1.6.7~rc0 (git: ...)"
+    for word in out.split():
+        if word.startswith("v") and word[1:2].isdigit():
+            return word[1:]
+    return "unknown"
+
+
+class InfluxServer:
+    """One influxd process on loopback ports, in its own temporary directory."""
+
+    def __init__(self, binary: str, root: Path, *, flux: bool, auth: bool = False):
+        self.binary = binary
+        self.version = influxd_version(binary)
+        self.root = Path(root)
+        self.flux = flux
+        self.auth = auth
+        self.port = free_port()
+        self.rpc_port = free_port()
+        self.url = f"http://127.0.0.1:{self.port}"
+        self.log_path = self.root / "influxd.log"
+        self.config_path = self.root / "influxdb.conf"
+        self._proc: subprocess.Popen | None = None
+        self._names = itertools.count(1)
+        self._write_config()
+
+    def _write_config(self) -> None:
+        r = self.root
+        flux_line = "  flux-enabled = true\n" if self.flux else ""
+        self.config_path.write_text(
+            f"""reporting-disabled = true
+bind-address = "127.0.0.1:{self.rpc_port}"
+[meta]
+  dir = "{r / 'meta'}"
+  logging-enabled = false
+[data]
+  dir = "{r / 'data'}"
+  wal-dir = "{r / 'wal'}"
+  query-log-enabled = false
+  index-version = "inmem"
+[monitor]
+  store-enabled = false
+[continuous_queries]
+  enabled = false
+[retention]
+  enabled = false
+[http]
+  enabled = true
+  bind-address = "127.0.0.1:{self.port}"
+  auth-enabled = {str(self.auth).lower()}
+  log-enabled = false
+  max-body-size = 0
+{flux_line}[logging]
+  level = "warn"
+"""
+        )
+
+    # --- process -------------------------------------------------------------------------
+    @property
+    def running(self) -> bool:
+        return self._proc is not None and self._proc.poll() is None
+
+    def ping(self, timeout: float = 1.0) -> bool:
+        try:
+            with urllib.request.urlopen(self.url + "/ping", timeout=timeout) as resp:
+                return resp.status == 204
+        except (urllib.error.URLError, OSError):
+            return False
+
+    def start(self, timeout: float = 60.0) -> "InfluxServer":
+        """Start (or restart after ``stop()``) on the same ports and data; wait for /ping."""
+        if self.running:
+            return self
+        log = open(self.log_path, "ab")
+        try:
+            self._proc = subprocess.Popen(
+                [self.binary, "run", "-config", str(self.config_path)],
+                stdout=log,
+                stderr=subprocess.STDOUT,
+                stdin=subprocess.DEVNULL,
+                start_new_session=True,
+            )
+        finally:
+            log.close()
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            if self._proc.poll() is not None:
+                raise RuntimeError(f"influxd exited with {self._proc.returncode}:\n{self.log_tail()}")
+            if self.ping():
+                return self
+            time.sleep(0.05)
+        self.kill()
+        raise RuntimeError(f"influxd did not answer /ping on {self.url} within {timeout} s:\n{self.log_tail()}")
+
+    def stop(self, timeout: float = 30.0) -> None:
+        """Stop the server (SIGTERM, then SIGKILL); data stays for ``start()``."""
+        if self._proc is None:
+            return
+        if self._proc.poll() is None:
+            self._proc.send_signal(signal.SIGTERM)
+            try:
+                self._proc.wait(timeout)
+            except subprocess.TimeoutExpired:
+                self._proc.kill()
+                self._proc.wait(timeout)
+        self._proc = None
+
+    def kill(self) -> None:
+        if self._proc is not None and self._proc.poll() is None:
+            self._proc.kill()
+            self._proc.wait(30)
+        self._proc = None
+
+    def log_tail(self, lines: int = 30) -> str:
+        try:
+            return "\n".join(self.log_path.read_text(errors="replace").splitlines()[-lines:])
+        except OSError:
+            return "(no log)"
+
+    # --- helpers -------------------------------------------------------------------------
+    def query(self, q: str, db: str | None = None, auth: tuple[str, str] | None = None) -> dict:
+        """Run InfluxQL through POST /query; returns the decoded JSON (raises on HTTP errors)."""
+        params = {"q": q, "epoch": "ns"}
+        if db:
+            params["db"] = db
+        if auth:
+            params["u"], params["p"] = auth
+        data = urllib.parse.urlencode(params).encode()
+        with urllib.request.urlopen(self.url + "/query", data=data, timeout=30) as resp:
+            body = json.loads(resp.read())
+        for result in body.get("results", []):
+            if "error" in result:
+                raise RuntimeError(f"InfluxQL error for {q!r}: {result['error']}")
+        return body
+
+    def new_database(self, prefix: str = "t") -> str:
+        """Create a fresh database with a unique name; returns the name."""
+        name = f"{prefix}_{os.getpid()}_{next(self._names)}"
+        self.query(f'CREATE DATABASE "{name}"')
+        return name
+
+    @staticmethod
+    def bucket(db: str, rp: str = "autogen") -> str:
+        """The v2 bucket name influxd 1.8 maps onto ``db`` and retention policy ``rp``."""
+        return f"{db}/{rp}"
+
+    def __repr__(self) -> str:
+        return f"InfluxServer({self.version} at {self.url}, running={self.running})"
+
+
+def start_influxd(what: str, binary: str, tmp_root: Path, *, flux: bool, auth: bool = False) -> InfluxServer:
+    """Start a server for a fixture, or skip/fail with instructions when the binary is missing."""
+    if not (os.path.isfile(binary) and os.access(binary, os.X_OK)):
+        missing_server(what, f"no influxd binary at {binary}")
+    server = InfluxServer(binary, tmp_root, flux=flux, auth=auth)
+    if flux and not server.version.startswith("1.8"):
+        missing_server(what, f"{binary} is influxd {server.version}, not 1.8.x (needed for the v2 API)")
+    return server.start()
+
+
+@pytest.fixture(scope="session")
+def _influx_tmp():
+    root = Path(tempfile.mkdtemp(prefix="isentrope-influx-"))
+    yield root
+    shutil.rmtree(root, ignore_errors=True)
+
+
+@pytest.fixture(scope="session")
+def influxdb_v1(_influx_tmp):
+    """Debian's influxd 1.6.7, v1 API only, auth off."""
+    root = _influx_tmp / "v1"
+    root.mkdir()
+    server = start_influxd("v1", INFLUXD_V1, root, flux=False)
+    yield server
+    server.kill()
+
+
+@pytest.fixture(scope="session")
+def influxdb_v2(_influx_tmp):
+    """influxd 1.8.10 with Flux: serves the v2 API (and the v1 API), auth off."""
+    root = _influx_tmp / "v18"
+    root.mkdir()
+    server = start_influxd("v2", INFLUXD_18, root, flux=True)
+    yield server
+    server.kill()
+
+
+@pytest.fixture(scope="session")
+def influx_cli():
+    """Path of Debian's ``influx`` command line client (an independent reader)."""
+    if not (os.path.isfile(INFLUX_CLI) and os.access(INFLUX_CLI, os.X_OK)):
+        missing_server("v1", f"no influx command line client at {INFLUX_CLI}")
+    return INFLUX_CLI

@@ -1,0 +1,381 @@
+"""The store contract (isentrope.daemon.stores.base), run against every implementation.
+
+Cases: SQLite (always); Influx2Store on influxd 1.8.10 (v2 API, Flux); Influx1Store on Debian's
+influxd 1.6.7 and on 1.8.10 (v1 API, InfluxQL). The real-server cases are marked ``influx``
+and need the session servers of tests/conftest.py. Each test gets a fresh database.
+Values are invented test data; the expectations are the contract itself.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores import FatalStoreError, TemporaryStoreError, open_store
+
+CASES = [
+    "sqlite",
+    pytest.param("influx2-1.8", marks=pytest.mark.influx),
+    pytest.param("influx1-1.6", marks=pytest.mark.influx),
+    pytest.param("influx1-1.8", marks=pytest.mark.influx),
+]
+
+T0 = pd.Timestamp("2026-03-01T00:00:00Z")
+
+
+class Case:
+    """A store under test, plus how to make another one on the same server/database."""
+
+    def __init__(self, name, make, server=None):
+        self.name = name
+        self.make = make  # (**overrides) -> Store
+        self.server = server
+        self.store = make()
+
+    def other(self, **overrides):
+        return self.make(**overrides)
+
+
+@pytest.fixture(params=CASES)
+def case(request, tmp_path):
+    name = request.param
+    if name == "sqlite":
+        path = tmp_path / "unit.sqlite"
+        c = Case(name, lambda **o: open_store("sqlite", path=o.get("path", path)))
+    elif name.startswith("influx2"):
+        server = request.getfixturevalue("influxdb_v2")
+        db = server.new_database("contract")
+
+        def make(**o):
+            return open_store("influx2", url=o.get("url", server.url), org="-", bucket=o.get("bucket", server.bucket(db)),
+                              token="", timeout=5, retries=1)
+
+        c = Case(name, make, server)
+    else:
+        server = request.getfixturevalue("influxdb_v1" if name.endswith("1.6") else "influxdb_v2")
+        db = server.new_database("contract")
+
+        def make(**o):
+            return open_store("influx1", url=o.get("url", server.url), database=o.get("database", db),
+                              retention_policy=o.get("retention_policy", "autogen"), timeout=5)
+
+        c = Case(name, make, server)
+    yield c
+    c.store.close()
+
+
+def mappings():
+    return [
+        RoleMapping(role="throttle_p", tag="U7.MS.P", unit="MPa", measurement="plant", tags={"unit": "U7"}),
+        RoleMapping(role="throttle_t", tag="U7.MS.T", unit="degC", measurement="plant", tags={"unit": "U7"}),
+        RoleMapping(role="condenser_p", tag="U7.COND.P", unit="kPa", measurement="condenser", field="pabs",
+                    tags={"unit": "U7", "side": "A"}),
+    ]
+
+
+def raw_frame(n=10, start=T0, seed=1):
+    rng = np.random.default_rng(seed)
+    idx = pd.date_range(start, periods=n, freq="60s", name="time")
+    frame = pd.DataFrame(
+        {
+            "throttle_p": 16.5 + rng.normal(0, 0.01, n),
+            "throttle_t": 538.0 + rng.normal(0, 0.5, n),
+            "condenser_p": 5.0 + rng.normal(0, 0.05, n),
+        },
+        index=idx,
+    )
+    return frame
+
+
+def expected(frame):
+    """What read_raw must give back: float, UTC ns index named time, all-NaN rows absent."""
+    out = frame.astype("float64").dropna(how="all")
+    out.index = pd.DatetimeIndex(out.index).tz_convert("UTC").as_unit("ns").rename("time")
+    return out
+
+
+def assert_same(got, want):
+    pd.testing.assert_frame_equal(got, want, check_freq=False, rtol=0, atol=0)
+
+
+# --- raw samples -----------------------------------------------------------------------------
+def test_raw_round_trip_with_nan(case):
+    frame = raw_frame()
+    frame.iloc[2, 0] = np.nan  # one missing sample
+    frame.iloc[5, :] = np.nan  # a timestamp with nothing at all
+    assert case.store.write_raw(mappings(), frame) == int(frame.notna().sum().sum())
+    got = case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+    assert list(got.columns) == ["throttle_p", "throttle_t", "condenser_p"]
+    assert got.index.name == "time" and str(got.index.tz) == "UTC"
+    assert np.isnan(got["throttle_p"].iloc[2])
+    assert_same(got, expected(frame))
+
+
+def test_raw_empty_window_and_unmapped_role(case):
+    case.store.write_raw(mappings(), raw_frame())
+    got = case.store.read_raw(mappings(), T0 - pd.Timedelta("2h"), T0 - pd.Timedelta("1h"))
+    assert got.empty and list(got.columns) == ["throttle_p", "throttle_t", "condenser_p"]
+    nothing = [RoleMapping(role="gross_output", tag="U7.GEN.MW", unit="MW", tags={"unit": "U7"})]
+    got = case.store.read_raw(mappings() + nothing, T0, T0 + pd.Timedelta("1h"))
+    assert got["gross_output"].isna().all() and len(got) == 10
+
+
+def test_raw_window_is_half_open(case):
+    case.store.write_raw(mappings(), raw_frame(n=10))
+    start, end = T0 + pd.Timedelta("2min"), T0 + pd.Timedelta("5min")
+    got = case.store.read_raw(mappings(), start, end)
+    assert list(got.index) == [start, start + pd.Timedelta("1min"), start + pd.Timedelta("2min")]
+
+
+def test_raw_duplicates_last_wins(case):
+    frame = raw_frame(n=6)
+    case.store.write_raw(mappings(), frame)
+    again = frame.iloc[2:4] + 1.0  # rewrite two timestamps with new values
+    case.store.write_raw(mappings(), again)
+    dup = frame.iloc[[4, 4]].copy()  # the same timestamp twice in one write: the last row wins
+    dup.iloc[1] = [20.0, 540.0, 6.0]
+    case.store.write_raw(mappings(), dup)
+    want = frame.copy()
+    want.iloc[2:4] = again.to_numpy()
+    want.iloc[4] = [20.0, 540.0, 6.0]
+    got = case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+    assert_same(got, expected(want))
+
+
+def test_times_are_utc(case):
+    frame = raw_frame(n=4)
+    local = frame.copy()
+    local.index = frame.index.tz_convert("America/Chicago")
+    case.store.write_raw(mappings(), local)
+    got = case.store.read_raw(mappings(), "2026-02-28T18:00:00-06:00", T0 + pd.Timedelta("1h"))
+    assert_same(got, expected(frame))
+    with pytest.raises(ValueError, match="time zone"):
+        case.store.read_raw(mappings(), pd.Timestamp("2026-03-01"), T0 + pd.Timedelta("1h"))
+    naive = frame.tz_localize(None)
+    with pytest.raises(ValueError, match="time zone"):
+        case.store.write_raw(mappings(), naive)
+
+
+def test_unmapped_column_is_an_error(case):
+    frame = raw_frame(n=2).rename(columns={"throttle_p": "nonsense"})
+    with pytest.raises(ValueError, match="not mapped roles"):
+        case.store.write_raw(mappings(), frame)
+
+
+# --- results ---------------------------------------------------------------------------------
+def results_frame(n=8, seed=2):
+    rng = np.random.default_rng(seed)
+    idx = pd.date_range(T0, periods=n, freq="15min", tz="UTC")
+    return pd.DataFrame(
+        {
+            "hp_efficiency": 0.86 + rng.normal(0, 0.002, n),
+            "ip_efficiency": 0.90 + rng.normal(0, 0.002, n),
+            "steady": np.arange(n) % 2 == 0,  # bools are stored as 0.0 / 1.0
+            "samples": np.arange(n, dtype=np.int64),
+            "note": ["x"] * n,  # not numeric: not written
+        },
+        index=idx,
+    )
+
+
+def expected_results(frame):
+    out = frame.drop(columns=["note"]).astype("float64")
+    out = out.reindex(columns=sorted(out.columns))
+    out.index = out.index.as_unit("ns").rename("time")
+    return out
+
+
+def test_results_round_trip_and_idempotent(case):
+    tags = {"unit": "U7"}
+    frame = results_frame()
+    end = T0 + pd.Timedelta("1D")
+    assert case.store.write_results("sections", frame, tags) == 8 * 4
+    first = case.store.read_results("sections", T0, end, tags)
+    assert_same(first, expected_results(frame))
+    case.store.write_results("sections", frame, tags)  # the same again: no duplicates
+    assert_same(case.store.read_results("sections", T0, end, tags), first)
+    changed = frame.iloc[3:5].copy()
+    changed["hp_efficiency"] = [0.5, 0.6]
+    case.store.write_results("sections", changed, tags)  # replaced, not added
+    want = frame.copy()
+    want.iloc[3:5, 0] = [0.5, 0.6]
+    assert_same(case.store.read_results("sections", T0, end, tags), expected_results(want))
+
+
+def test_results_nan_is_no_value_and_tags_separate_series(case):
+    frame = results_frame(n=4)[["hp_efficiency", "ip_efficiency"]]
+    case.store.write_results("sections", frame, {"unit": "U7"})
+    other = frame * 0 + 0.7
+    case.store.write_results("sections", other, {"unit": "U8"})
+    holes = frame.copy()
+    holes.iloc[1, 0] = np.nan  # NaN does not erase what was written before
+    holes.iloc[2, 1] = 0.1
+    case.store.write_results("sections", holes, {"unit": "U7"})
+    want = frame.copy()
+    want.iloc[2, 1] = 0.1
+    got = case.store.read_results("sections", T0, T0 + pd.Timedelta("1D"), {"unit": "U7"})
+    assert_same(got, expected_results(want.assign(note="x")))
+    got8 = case.store.read_results("sections", T0, T0 + pd.Timedelta("1D"), {"unit": "U8"})
+    assert (got8 == 0.7).all().all() and len(got8) == 4
+
+
+def test_results_window_half_open_and_unknown_measurement(case):
+    frame = results_frame(n=4)
+    case.store.write_results("sections", frame, {"unit": "U7"})
+    got = case.store.read_results("sections", frame.index[1], frame.index[3], {"unit": "U7"})
+    assert list(got.index) == list(frame.index[1:3])
+    empty = case.store.read_results("never_written", T0, T0 + pd.Timedelta("1D"), {"unit": "U7"})
+    assert empty.empty
+
+
+# --- worker state ----------------------------------------------------------------------------
+def test_checkpoint_round_trip(case):
+    assert case.store.get_checkpoint("U7-worker") is None
+    t = pd.Timestamp("2026-03-01T12:34:56.789Z")
+    case.store.set_checkpoint("U7-worker", t)
+    assert case.store.get_checkpoint("U7-worker") == t
+    earlier = t - pd.Timedelta("3h")  # a reprocess may move it back: the latest set wins
+    case.store.set_checkpoint("U7-worker", earlier)
+    assert case.store.get_checkpoint("U7-worker") == earlier
+    assert case.store.get_checkpoint("U8-worker") is None
+    reopened = case.other()
+    assert reopened.get_checkpoint("U7-worker") == earlier
+    reopened.close()
+    with pytest.raises(ValueError, match="time zone"):
+        case.store.set_checkpoint("U7-worker", pd.Timestamp("2026-03-01"))
+
+
+def test_state_round_trip(case):
+    assert case.store.load_state("alarms") == {}
+    state = {"hp": {"state": "raised", "since": "2026-03-01T00:00:00Z", "count": 3}, "text": 'say "hi", \\ ok'}
+    case.store.save_state("alarms", state)
+    assert case.store.load_state("alarms") == state
+    case.store.save_state("alarms", {"hp": {"state": "clear"}})
+    assert case.store.load_state("alarms") == {"hp": {"state": "clear"}}
+    with pytest.raises(ValueError):
+        case.store.save_state("alarms", {"bad": float("nan")})
+    assert case.store.load_state("alarms") == {"hp": {"state": "clear"}}
+
+
+# --- awkward names ---------------------------------------------------------------------------
+AWKWARD = [
+    'with space',
+    'com,ma',
+    'eq=ual',
+    'dq"uote',
+    "sq'uote",
+    'back\\slash',
+    'x") |> drop(columns: ["_value"]) //',
+    "a' OR 1=1 --",
+    'b" OR 1=1 --',
+    "dollar${x}",
+    "ünï-cödé",
+]
+
+
+def test_awkward_names_round_trip(case):
+    maps = [
+        RoleMapping(role=role, tag=f"tag {name}", unit="MPa", measurement=f"m {name}", field=f"f {name}",
+                    tags={f"k {name}": f"v {name}"})
+        for role, name in zip(["throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t", "hot_reheat_p",
+                               "hot_reheat_t", "crossover_p", "crossover_t", "condenser_p", "gross_output",
+                               "main_steam_flow"], AWKWARD)
+    ]
+    idx = pd.date_range(T0, periods=3, freq="1min", tz="UTC")
+    frame = pd.DataFrame({m.role: np.arange(3) + 10.0 * i for i, m in enumerate(maps)}, index=idx)
+    case.store.write_raw(maps, frame)
+    got = case.store.read_raw(maps, T0, T0 + pd.Timedelta("1h"))
+    assert_same(got, expected(frame))
+
+    name = AWKWARD[6]
+    res = pd.DataFrame({f"eff {n}": [0.5 + i / 100] for i, n in enumerate(AWKWARD)}, index=idx[:1])
+    case.store.write_results(f"results {name}", res, {f"unit {AWKWARD[7]}": f"U7 {AWKWARD[8]}"})
+    back = case.store.read_results(f"results {name}", T0, T0 + pd.Timedelta("1h"), {f"unit {AWKWARD[7]}": f"U7 {AWKWARD[8]}"})
+    pd.testing.assert_frame_equal(back, res.reindex(columns=sorted(res.columns)).rename_axis("time")
+                                  .set_axis(idx[:1].as_unit("ns").rename("time")), check_freq=False)
+    case.store.set_checkpoint(name, T0)
+    assert case.store.get_checkpoint(name) == T0
+
+
+def test_names_cannot_change_query_meaning(case):
+    """A name that looks like query syntax selects nothing, never other data."""
+    plain = [RoleMapping(role="throttle_p", tag="a", unit="MPa", field="a", tags={"unit": "U7"})]
+    case.store.write_raw(plain, raw_frame(n=3)[["throttle_p"]])
+    for evil in ["a' OR 1=1 --", 'a" OR 1=1 --', 'a") |> filter(fn: (r) => true) //', "a' OR 'a'='a", 'a" or r._field != "']:
+        probe = [RoleMapping(role="throttle_p", tag=evil, unit="MPa", field=evil, tags={"unit": "U7"})]
+        assert case.store.read_raw(probe, T0, T0 + pd.Timedelta("1h"))["throttle_p"].isna().all(), evil
+        if case.name == "sqlite":
+            continue  # SQLite finds samples by tag name only; tag filters are InfluxDB's
+        probe = [RoleMapping(role="throttle_p", tag="a", unit="MPa", field="a", tags={"unit": evil})]
+        assert case.store.read_raw(probe, T0, T0 + pd.Timedelta("1h"))["throttle_p"].isna().all(), evil
+    assert case.store.read_raw(plain, T0, T0 + pd.Timedelta("1h"))["throttle_p"].notna().sum() == 3
+
+
+def test_newlines_in_names_rejected(case):
+    bad = [RoleMapping(role="throttle_p", tag="a\nb", unit="MPa", field="a\nb")]
+    with pytest.raises(ValueError, match="newline"):
+        case.store.write_raw(bad, raw_frame(n=1)[["throttle_p"]])
+    with pytest.raises(ValueError, match="newline"):
+        case.store.write_results("sections", results_frame(n=1), {"unit": "U7\nx"})
+    with pytest.raises(ValueError, match="newline"):
+        case.store.set_checkpoint("a\nb", T0)
+
+
+# --- errors ----------------------------------------------------------------------------------
+def test_missing_database_is_fatal(case, tmp_path):
+    if case.name == "sqlite":
+        other = tmp_path / "no such dir" / "unit.sqlite"
+        with pytest.raises(FatalStoreError):
+            case.other(path=other)
+        (tmp_path / "garbage.sqlite").write_bytes(b"this is not a database file" * 100)
+        with pytest.raises(FatalStoreError):
+            case.other(path=tmp_path / "garbage.sqlite")
+        return
+    if case.name.startswith("influx2"):
+        wrong = case.other(bucket="no_such_db/autogen")
+    else:
+        wrong = case.other(database="no_such_db")
+    with pytest.raises(FatalStoreError):
+        wrong.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+    with pytest.raises(FatalStoreError):
+        wrong.write_raw(mappings(), raw_frame(n=2))
+    assert len(wrong.pending) == 4  # 2 times x 2 series: the batch is kept, not dropped
+    with pytest.raises(FatalStoreError):
+        wrong.write_results("sections", results_frame(n=2), {"unit": "U7"})
+    if case.name.startswith("influx1"):
+        with pytest.raises(FatalStoreError):
+            case.other(retention_policy="no_such_rp").read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+    wrong.close()
+
+
+def test_stopped_server_is_temporary_and_nothing_is_lost(case):
+    if case.name == "sqlite":
+        pytest.skip("no server to stop")
+    if case.name == "influx1-1.8":
+        # the same 1.8.10 server as the influx2 case, which stops it for real; here a port with
+        # nothing listening (connection refused) keeps the suite fast
+        from conftest import free_port
+
+        gone = case.other(url=f"http://127.0.0.1:{free_port()}")
+        with pytest.raises(TemporaryStoreError):
+            gone.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+        with pytest.raises(TemporaryStoreError):
+            gone.get_checkpoint("x")
+        return
+    frame = raw_frame(n=4)
+    case.server.stop()
+    try:
+        with pytest.raises(TemporaryStoreError):
+            case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+        with pytest.raises(TemporaryStoreError):
+            case.store.write_raw(mappings(), frame)
+        assert case.store.pending, "the failed batch must be kept"
+        with pytest.raises(TemporaryStoreError):
+            case.store.get_checkpoint("U7-worker")
+    finally:
+        case.server.start()
+    case.store.set_checkpoint("U7-worker", T0)  # the next write sends the kept batch first
+    assert not case.store.pending
+    assert_same(case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h")), expected(frame))
