@@ -160,10 +160,17 @@ class StoreConfig:
     timeout: dt.timedelta = dt.timedelta(seconds=10)
     batch_size: int = 5000
 
-    def open(self):
-        """Open the configured store (the first I/O; call only after validation)."""
-        from isentrope.daemon.stores import open_store
+    def open(self, create: bool = True):
+        """Open the configured store (the first I/O; call only after validation).
 
+        ``create=False`` refuses to create a missing SQLite file (``FatalStoreError``), for
+        commands that only read.
+        """
+        from isentrope.daemon.stores import FatalStoreError, open_store
+
+        if self.kind == "sqlite" and not create and not Path(self.path).is_file():
+            raise FatalStoreError(f"no SQLite store at {self.path} (check [store] path; "
+                                  "the file is created by import-csv, run, backfill or demo)")
         return open_store(self.kind, **self.open_options())
 
     def open_options(self) -> dict[str, Any]:

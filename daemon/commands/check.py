@@ -214,7 +214,7 @@ def run(args: argparse.Namespace) -> int:
         raise ValueError(f"--since: expected a positive duration, found {args.since!r}")
     end = _end_time(args.end)
     start = end - pd.Timedelta(since)
-    with config.store.open() as store:
+    with config.store.open(create=False) as store:
         raw = store.read_raw(list(config.mappings), start, end)
     rows = judge(config, raw, end)
     print(f"{config.unit.name}: {config.store.kind} store, {len(rows)} mapped roles, "

@@ -150,7 +150,7 @@ def run(args: argparse.Namespace) -> int:
     measurements = args.measurement or [_default_measurement()]
     if args.output is not None and not Path(args.output).expanduser().parent.is_dir():
         raise ValueError(f"-o: no such directory: {Path(args.output).expanduser().parent}")
-    with config.store.open() as store:
+    with config.store.open(create=False) as store:
         frame = collect(store, measurements, start, end, tags)
     text = to_csv_text(frame)
     if args.output is None:

@@ -157,6 +157,16 @@ def test_check_unreachable_store_exits_3(tmp_path, capsys, monkeypatch, kind, bo
     assert err.startswith("isentrope: store unreachable: ")
 
 
+def test_check_and_export_do_not_create_a_missing_sqlite_file(tmp_path, capsys):
+    path = write_config(tmp_path)
+    assert cli.main(["check", "-c", str(path)]) == 1
+    assert capsys.readouterr().err == (f"isentrope: error: no SQLite store at {tmp_path / 'unit7.sqlite'} "
+                                       "(check [store] path; the file is created by import-csv, run, "
+                                       "backfill or demo)\n")
+    assert cli.main(["export", "-c", str(path), "--start", "2026-01-01", "--end", "2026-01-02"]) == 1
+    assert not (tmp_path / "unit7.sqlite").exists()
+
+
 def test_check_bad_since(tmp_path, capsys):
     path = write_config(tmp_path)
     assert cli.main(["check", "-c", str(path), "--since", "yesterday"]) == 1
@@ -373,6 +383,7 @@ def test_export_needs_a_tag_when_several_series_match(tmp_path, capsys):
 
 def test_export_empty_window_and_bad_times(tmp_path, capsys):
     path = write_config(tmp_path)
+    load_config(path).store.open().close()  # an empty store
     rc = cli.main(["export", "-c", str(path), "--start", "2020-01-01", "--end", "2020-01-02"])
     captured = capsys.readouterr()
     assert rc == 0 and captured.out.startswith("time")
