@@ -65,7 +65,7 @@ def cli(*args: str) -> subprocess.Popen:
 
 def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_results(tmp_path):
     raw = ws.plant_history(1.5, freq="5min")
-    start, end = FIRST, FIRST + pd.Timedelta("14h")
+    start, end = FIRST, FIRST + pd.Timedelta("8h")
     args = ["--start", start.isoformat(), "--end", end.isoformat(), "--chunk", "2h"]
 
     ref_cfg, ref = sqlite_unit(tmp_path, "reference", raw)
@@ -83,8 +83,8 @@ def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_
             killed_at = cp
             break
         time.sleep(0.05)
-    proc.wait(timeout=30)
-    assert proc.returncode == -signal.SIGKILL, proc.stderr.read()
+    _, err = proc.communicate(timeout=30)
+    assert proc.returncode == -signal.SIGKILL, err
     assert killed_at is not None and killed_at < end  # killed in the middle, not after the end
     partial = store.read_results("section_samples", start, end, TAGS)
     assert 0 < len(partial) < len(ref.read_results("section_samples", start, end, TAGS))
@@ -97,7 +97,7 @@ def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_
 
     results = assert_same_store_results(ref, store)
     assert len(results["section_samples"]) == ((raw.index >= start) & (raw.index < end)).sum()
-    assert len(results["steady_windows"]) >= 3
+    assert len(results["steady_windows"]) >= 2
     # no duplicates, asked of the file with plain SQL, not through our store
     with sqlite3.connect(tmp_path / "victim.sqlite") as db:
         for table in ("section_samples", "steady_windows"):
