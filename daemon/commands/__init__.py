@@ -5,10 +5,11 @@ and ``run(args) -> int`` (the exit code). Register a new module in ``COMMAND_MOD
 """
 
 COMMAND_MODULES: list[str] = [
-    # e.g. "isentrope.daemon.commands.run"
     "isentrope.daemon.commands.run",
     "isentrope.daemon.commands.backfill",
     "isentrope.daemon.commands.check",
     "isentrope.daemon.commands.import_csv",
     "isentrope.daemon.commands.export",
+    "isentrope.daemon.commands.demo",
+    "isentrope.daemon.commands.report",
 ]

@@ -1,0 +1,360 @@
+"""Degradation analysis over the stored history: rates, steps, projections, costs, alarms.
+
+The worker's cycles write per-window deviations from the baseline (measurement ``deviation``).
+What a planner needs comes from the whole history of those deviations, not from one cycle:
+the degradation rate with its interval, the step changes, the projection to the planned
+outage, the cost of the lost efficiency and the payback of an overhaul. ``analyse`` computes
+all of it from in-memory inputs (no I/O, deterministic); ``run_analysis`` reads the inputs
+from a store, calls ``analyse`` and writes the results back. Re-running it over the same
+history gives identical rows at identical times, so the writes replace and never duplicate.
+
+Result series (also in DEVELOPERS.md, "Result series"):
+
+* ``degradation`` (tags unit, section): one row per month end (and one at the end of the
+  history): ``rate_per_1000h``, ``rate_low``, ``rate_high`` [points per 1000 operating h],
+  ``rate_per_month`` [points per 730 operating h], ``rate_ok`` (bool: enough data),
+  ``n_windows`` [-], ``operating_hours`` [h since the first deviation], ``deviation_now``
+  and ``deviation_now_u`` [points; median of the last week's windows], ``projected``,
+  ``projected_low``, ``projected_high`` [points at the planned outage; last row only].
+* ``steps`` (tags unit, section): one row per step found: ``size``, ``size_u`` [points].
+* ``losses`` (tags unit, section): one row per UTC day (``calc.economics.daily_losses``):
+  ``deviation`` [points], ``heat_rate_change`` [%], ``output_change_mw`` [MW], ``lost_mwh``
+  [MWh], ``fuel_cost`` [currency], ``cumulative_lost_mwh`` [MWh], ``cumulative_fuel_cost``
+  [currency].
+* ``outlook`` (tags unit, section): one row at the end of the history:
+  ``projected_lost_mwh``, ``projected_fuel_cost`` (to the planned outage, with ``_low`` /
+  ``_high``), ``overhaul_payback_years``, ``overhaul_saving_per_year`` [currency/yr],
+  ``overhaul_break_even_s`` [s since 1970, UTC].
+* ``alarm_events`` rows for the rules ``degradation_rate`` and ``step_change``, evaluated
+  at each month end.
+
+Advisory performance information, not a protective function; the turbine maker's limits,
+local codes and licensed engineering practice take precedence.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon.pipeline import ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT
+
+logger = logging.getLogger(__name__)
+
+DEGRADATION_MEASUREMENT = "degradation"
+STEPS_MEASUREMENT = "steps"
+LOSSES_MEASUREMENT = "losses"
+OUTLOOK_MEASUREMENT = "outlook"
+
+#: Window over which the "current" deviation is the median of the steady windows [days]
+#: (project choice, no source: long enough to average out day-to-day scatter).
+CURRENT_WINDOW_DAYS = 7.0
+
+#: Sections analysed, in report order.
+SECTIONS = ("hp", "ip", "lp")
+
+_EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
+
+
+@dataclass
+class SectionOutlook:
+    """Everything the analysis found for one section.
+
+    Attributes
+    ----------
+    section : str
+        "hp", "ip" or "lp".
+    deviation : pandas.Series
+        Deviation of each steady window after the reference period [points], UTC index.
+    hours : numpy.ndarray
+        Operating hours at each of those windows [h].
+    rate : isentrope.calc.trend.RateResult
+        Degradation rate over the whole history, blocked at the steps found.
+    steps : isentrope.calc.trend.Steps
+        Step changes found.
+    current : float
+        Current deviation: median over the last ``CURRENT_WINDOW_DAYS`` [points].
+    current_u : float
+        Its standard uncertainty (scaled MAD / sqrt(n)) [points].
+    projection : isentrope.calc.trend.Projection or None
+        Deviation at the planned outage, None without a planned outage.
+    monthly : pandas.DataFrame
+        The ``degradation`` rows (see the module docstring).
+    losses : pandas.DataFrame or None
+        Daily losses (``calc.economics.daily_losses``); None without prices.
+    projected_loss : isentrope.calc.economics.ProjectedLoss or None
+    overhaul : isentrope.calc.economics.OverhaulCase or None
+    """
+
+    section: str
+    deviation: pd.Series
+    hours: np.ndarray
+    rate: object
+    steps: object
+    current: float
+    current_u: float
+    projection: object | None
+    monthly: pd.DataFrame
+    losses: pd.DataFrame | None = None
+    projected_loss: object | None = None
+    overhaul: object | None = None
+
+
+@dataclass
+class Analysis:
+    """The result of ``analyse``: one ``SectionOutlook`` per section with a baseline."""
+
+    end: pd.Timestamp
+    sections: dict[str, SectionOutlook]
+    alarm_events: pd.DataFrame
+    availability: float
+    mean_output_mw: float
+    notes: list[str] = field(default_factory=list)
+
+    def writes(self, tags: dict[str, str]) -> list[tuple[str, pd.DataFrame, dict[str, str]]]:
+        """The result series as ``(measurement, frame, tags)`` for ``Store.write_results``."""
+        out = []
+        for name, s in self.sections.items():
+            t = {**tags, "section": name}
+            if len(s.monthly):
+                out.append((DEGRADATION_MEASUREMENT, s.monthly, t))
+            if len(s.steps):
+                steps = pd.DataFrame(
+                    {"size": [float(x.size) for x in s.steps], "size_u": [float(x.size_u) for x in s.steps]},
+                    index=pd.DatetimeIndex([pd.Timestamp(x.time) for x in s.steps], name="time"))
+                out.append((STEPS_MEASUREMENT, steps[~steps.index.duplicated(keep="last")], t))
+            if s.losses is not None and len(s.losses):
+                cols = ["deviation", "heat_rate_change", "output_change_mw", "lost_mwh", "fuel_cost",
+                        "cumulative_lost_mwh", "cumulative_fuel_cost"]
+                out.append((LOSSES_MEASUREMENT, s.losses[cols].astype(float), t))
+            row = _outlook_row(s)
+            if row:
+                out.append((OUTLOOK_MEASUREMENT, pd.DataFrame(row, index=pd.DatetimeIndex([self.end], name="time")), t))
+        ev = self.alarm_events
+        if len(ev):
+            for (section, rule), part in ev.groupby(["section", "rule"], sort=True):
+                frame = pd.DataFrame(
+                    {"raised": (part["kind"] == "raised").to_numpy(dtype=bool),
+                     "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
+                     "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float)},
+                    index=pd.DatetimeIndex(part.index, name="time"))
+                out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
+        return out
+
+
+def _outlook_row(s: SectionOutlook) -> dict:
+    row = {}
+    if s.projected_loss is not None and s.projected_loss.status == "ok":
+        p = s.projected_loss
+        row.update(projected_lost_mwh=[float(p.lost_mwh)], projected_lost_mwh_low=[float(p.lost_mwh_low)],
+                   projected_lost_mwh_high=[float(p.lost_mwh_high)], projected_fuel_cost=[float(p.fuel_cost)],
+                   projected_fuel_cost_low=[float(p.fuel_cost_low)],
+                   projected_fuel_cost_high=[float(p.fuel_cost_high)])
+    if s.overhaul is not None:
+        o = s.overhaul
+        row.update(overhaul_payback_years=[float(o.payback_years)],
+                   overhaul_saving_per_year=[float(o.saving_per_year)],
+                   overhaul_break_even_s=[float((pd.Timestamp(o.break_even) - _EPOCH).total_seconds())
+                                          if o.break_even is not None else math.nan])
+    return row
+
+
+def _hours_at(times: pd.DatetimeIndex, online: pd.Series) -> np.ndarray:
+    """Cumulative operating hours at ``times`` from a per-sample online flag."""
+    from isentrope.calc import trend
+
+    if not len(online):
+        return np.full(len(times), np.nan)
+    cum = trend.operating_hours(online.index, online.to_numpy(dtype=bool))
+    pos = np.searchsorted(online.index.asi8, times.asi8, side="right") - 1
+    vals = cum.to_numpy(dtype=float)
+    out = np.where(pos >= 0, vals[np.clip(pos, 0, len(vals) - 1)], 0.0)
+    return out
+
+
+def _current(dev: pd.Series, end: pd.Timestamp) -> tuple[float, float]:
+    recent = dev[dev.index >= end - pd.Timedelta(days=CURRENT_WINDOW_DAYS)].dropna()
+    if len(recent) < 3:
+        return math.nan, math.nan
+    v = recent.to_numpy(dtype=float)
+    med = float(np.median(v))
+    mad = 1.4826 * float(np.median(np.abs(v - med)))  # normal-consistent MAD (common practice)
+    return med, mad / math.sqrt(len(v))
+
+
+def _month_ends(first: pd.Timestamp, end: pd.Timestamp) -> pd.DatetimeIndex:
+    start = (first + pd.offsets.MonthBegin(1)).normalize()
+    ends = pd.date_range(start, end, freq="MS", tz="UTC")
+    return ends.append(pd.DatetimeIndex([end])).unique().sort_values()
+
+
+def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd.Series, config,
+            end: pd.Timestamp) -> Analysis:
+    """Rates, steps, projections, costs and the slow alarms from a unit's history.
+
+    Parameters
+    ----------
+    deviation : dict of str to pandas.DataFrame
+        Section -> stored ``deviation`` rows (UTC index; columns ``deviation`` and
+        ``deviation_u`` [points], ``extrapolated``) of the steady windows.
+    online : pandas.Series
+        Per-sample bool, True when the unit was online (gross output above
+        ``[unit] online_mw``), UTC index; gives the operating hours.
+    output_mw : pandas.Series
+        Per-sample gross output [MW]; its mean while online is the output the losses apply to.
+    config : isentrope.daemon.config.Config
+    end : pandas.Timestamp
+        End of the history analysed (UTC).
+
+    Returns
+    -------
+    Analysis
+    """
+    from isentrope.calc import alarms, economics, trend
+
+    end = pd.Timestamp(end)
+    notes: list[str] = []
+    on = online.astype(bool)
+    n_on = int(on.sum())
+    availability = n_on / len(on) if len(on) else math.nan
+    mean_output = float(output_mw[on].mean()) if n_on else math.nan
+    econ = config.economics
+    basis = None
+    if econ.fuel_price_per_gj is not None and econ.heat_rate_kj_per_kwh is not None:
+        basis = economics.CostBasis(heat_rate_kj_per_kwh=float(econ.heat_rate_kj_per_kwh),
+                                    boiler_efficiency=float(econ.boiler_efficiency),
+                                    fuel_price_per_gj=float(econ.fuel_price_per_gj), currency=econ.currency)
+    else:
+        notes.append("no fuel price or heat rate in [economics]: costs not computed")
+    outage = pd.Timestamp(econ.planned_outage).tz_localize("UTC") if econ.planned_outage is not None else None
+    if outage is None:
+        notes.append("no planned outage in [economics]: no projection")
+    a = config.alarms
+    sections: dict[str, SectionOutlook] = {}
+    obs_parts = []
+    for name in SECTIONS:
+        frame = deviation.get(name)
+        if frame is None or not len(frame) or "deviation" not in frame:
+            continue
+        frame = frame.sort_index()
+        dev = pd.to_numeric(frame["deviation"], errors="coerce")
+        dev = dev[np.isfinite(dev.to_numpy(dtype=float))]
+        if not len(dev):
+            continue
+        hours = _hours_at(pd.DatetimeIndex(dev.index), on)
+        h0 = hours[0]
+        rel = hours - h0
+        steps = trend.detect_steps(dev.index, dev.to_numpy(dtype=float), hours=rel, k=float(a.cusum_k),
+                                   h=float(a.cusum_h))
+        breaks = [rel[int(s.index)] for s in steps] if len(steps) else None
+        rate = trend.degradation_rate(rel, dev.to_numpy(dtype=float), breaks=breaks)
+        current, current_u = _current(dev, end)
+        projection = None
+        hours_ahead = math.nan
+        if outage is not None and outage > end and math.isfinite(availability):
+            hours_ahead = (outage - end).total_seconds() / 3600.0 * availability
+            if math.isfinite(current):
+                projection = trend.project(rate, current, hours_ahead, current_u=current_u)
+        # the rate as it stood at each month end (expanding history), for the trend chart and
+        # the rate alarm
+        rows = []
+        for t in _month_ends(dev.index[0], end):
+            sel = dev.index <= t
+            if sel.sum() == 0:
+                continue
+            sub_breaks = [b for b, s in zip(breaks or [], steps) if pd.Timestamp(s.time) <= t] or None
+            r = trend.degradation_rate(rel[sel], dev.to_numpy(dtype=float)[sel], breaks=sub_breaks)
+            c, cu = _current(dev[sel], t)
+            rows.append({"time": t, "rate_per_1000h": r.slope_per_1000h, "rate_low": r.low,
+                         "rate_high": r.high, "rate_per_month": r.per_month, "rate_ok": r.status == "ok",
+                         "n_windows": float(r.n), "operating_hours": float(rel[sel][-1]),
+                         "deviation_now": c, "deviation_now_u": cu})
+            step_size = max([abs(float(s.size)) for s in steps
+                             if t - pd.DateOffset(months=1) < pd.Timestamp(s.time) <= t] or [0.0])
+            if r.status == "ok":
+                obs_parts.append({"time": t, "section": name, "quantity": alarms.QUANTITY_RATE,
+                                  "value": float(r.slope_per_1000h), "steady": True})
+            obs_parts.append({"time": t, "section": name, "quantity": alarms.QUANTITY_STEP,
+                              "value": step_size, "steady": True})
+        monthly = pd.DataFrame(rows).set_index("time")
+        monthly.index = pd.DatetimeIndex(monthly.index, name="time")
+        if projection is not None and projection.status == "ok":
+            monthly.loc[monthly.index[-1], ["projected", "projected_low", "projected_high"]] = [
+                projection.value, projection.low, projection.high]
+        out = SectionOutlook(section=name, deviation=dev, hours=rel, rate=rate, steps=steps, current=current,
+                             current_u=current_u, projection=projection, monthly=monthly)
+        if basis is not None and math.isfinite(mean_output):
+            sens = econ.sensitivity.get(name)
+            hr = {name: sens.heat_rate_percent_per_point} if sens else None
+            oc = {name: sens.output_percent_per_point} if sens else None
+            daily_online = on.groupby(on.index.floor("D")).sum() * _sample_hours(on)
+            out.losses = economics.daily_losses(dev, name, output_mw=mean_output, basis=basis,
+                                                online_hours=daily_online, heat_rate_coefficients=hr,
+                                                output_coefficients=oc)
+            if math.isfinite(hours_ahead) and math.isfinite(current):
+                out.projected_loss = economics.projected_loss(rate, current, hours_ahead, name,
+                                                              output_mw=mean_output, basis=basis,
+                                                              heat_rate_coefficients=hr, output_coefficients=oc)
+            case = econ.overhaul.get(name)
+            if case is not None and math.isfinite(availability):
+                out.overhaul = economics.overhaul_case(case.recoverable_points, case.cost, name,
+                                                       output_mw=mean_output, basis=basis,
+                                                       operating_hours_per_year=8760.0 * availability,
+                                                       start=outage or end, heat_rate_coefficients=hr,
+                                                       output_coefficients=oc)
+        sections[name] = out
+    rules = [
+        # a rate is a loss when negative: raised below -limit, cleared at 80 % of it
+        # (project choice, no source)
+        alarms.Rule("degradation_rate", alarms.QUANTITY_RATE, "below", -float(a.rate_limit_per_1000h),
+                    -0.8 * float(a.rate_limit_per_1000h), 1, 1, unit="points/1000 h",
+                    label="degradation rate"),
+        alarms.Rule("step_change", alarms.QUANTITY_STEP, "above", 0.0, 0.0, 1, 1, unit="points",
+                    label="step change in the deviation"),
+    ]
+    if obs_parts:
+        obs = pd.DataFrame(obs_parts).sort_values(["time", "section", "quantity"], kind="stable")
+        _, events = alarms.evaluate_alarms(None, obs.reset_index(drop=True), rules)
+    else:
+        events = pd.DataFrame(columns=["section", "rule", "kind", "value", "threshold", "message"],
+                              index=pd.DatetimeIndex([], tz="UTC", name="time"))
+    return Analysis(end=end, sections=sections, alarm_events=events, availability=availability,
+                    mean_output_mw=mean_output, notes=notes)
+
+
+def _sample_hours(series: pd.Series) -> float:
+    """Typical sample spacing of a per-sample series [h]."""
+    if len(series) < 2:
+        return 0.0
+    return float(np.median(np.diff(series.index.asi8))) / 3.6e12
+
+
+def run_analysis(store, config, start: pd.Timestamp, end: pd.Timestamp) -> Analysis:
+    """Read a unit's deviations and online history from ``store``, analyse, write back.
+
+    The baseline models' ids come from the worker's saved state ``baseline/<unit>``; without a
+    saved baseline there is nothing to analyse and an empty ``Analysis`` is returned.
+    """
+    from isentrope.calc.baseline import BaselineModel
+
+    unit = config.unit.name
+    tags = {"unit": unit}
+    saved = store.load_state(f"baseline/{unit}")
+    models = {sec: BaselineModel.from_json(text) for sec, text in sorted((saved or {}).get("models", {}).items())}
+    deviation = {}
+    for sec, model in models.items():
+        deviation[sec] = store.read_results(DEVIATION_MEASUREMENT, start, end,
+                                            {**tags, "section": sec, "model": model.model_id})
+    gross = [m for m in config.mappings if m.role == "gross_output"]
+    power = store.read(gross, start, end, barometric_kpa=config.screening.barometric_kpa)["gross_output"]
+    online = power > float(config.unit.online_mw)
+    result = analyse(deviation, online, power, config, end)
+    if not models:
+        result.notes.append("no baseline model saved yet: nothing to analyse")
+    for measurement, frame, t in result.writes(tags):
+        store.write_results(measurement, frame, t)
+    return result

@@ -1,0 +1,50 @@
+"""`isentrope report -c FILE --start T --end T -o DIR`: the HTML report for a period.
+
+Runs the degradation analysis over the stored deviations of the period (writing its result
+series back, idempotently), then writes ``DIR/index.html`` with its PNG figures. Advisory
+performance information, not a protective function.
+"""
+
+from __future__ import annotations
+
+import pandas as pd
+
+NAME = "report"
+HELP = "write the HTML performance report for a period (advisory information, not a protective function)"
+
+
+def _time(text: str) -> pd.Timestamp:
+    try:
+        t = pd.Timestamp(text)
+    except (ValueError, TypeError):
+        raise ValueError(f"time {text!r} not understood; expected ISO 8601 such as 2025-01-01T00:00Z") from None
+    return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
+
+
+def add_arguments(parser) -> None:
+    parser.add_argument("-c", "--config", required=True, metavar="FILE", help="the unit's TOML configuration")
+    parser.add_argument("--start", required=True, metavar="T", help="first time, ISO 8601 (naive means UTC)")
+    parser.add_argument("--end", required=True, metavar="T", help="end time (excluded), ISO 8601")
+    parser.add_argument("-o", "--output", required=True, metavar="DIR", help="folder for index.html and figures")
+    parser.add_argument("--hs-window", metavar="T", help="start of the steady window for the h-s diagram")
+
+
+def run(args) -> int:
+    from isentrope.daemon.analysis import run_analysis
+    from isentrope.daemon.config import load_config
+    from isentrope.daemon.report import write_report
+    from isentrope.daemon.stores import open_store
+
+    config = load_config(args.config)
+    start, end = _time(args.start), _time(args.end)
+    if end <= start:
+        raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
+    store = open_store(config.store.kind, **config.store.open_options())
+    try:
+        analysis = run_analysis(store, config, start, end)
+        path = write_report(store, config, start, end, args.output, analysis=analysis,
+                            hs_window=_time(args.hs_window) if args.hs_window else None)
+    finally:
+        store.close()
+    print(path)
+    return 0

@@ -1,0 +1,387 @@
+"""The HTML report: one self-contained page with its PNG figures, for real or demo data.
+
+``write_report(store, config, start, end, out_dir)`` reads the result series the worker and
+the analysis wrote (``section_samples``, ``steady_windows``, ``deviation``, ``alarm_events``,
+``degradation``, ``steps``, ``losses``, ``outlook``), re-screens the raw readings for the
+data-quality table, draws the figures with matplotlib (Agg, no display), and writes
+``index.html`` (figures embedded as data URIs, so the one file can be mailed or printed)
+plus the PNG files beside it.
+
+The page is plain and printable: black text, one accent colour per section chosen here for
+contrast in print, no decoration. Every figure states its units; every number in the
+tables states its unit. The cautions open and close the page.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import math
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from isentrope.daemon import __version__
+
+#: Section colours of this report (our own choice, for print contrast).
+SECTION_COLOURS = {"hp": "#1b4f72", "ip": "#7d3c98", "lp": "#117864"}
+SECTION_TITLES = {"hp": "HP section", "ip": "IP section", "lp": "LP dry stage group"}
+EFFICIENCY_COLUMNS = {"hp": "hp_efficiency", "ip": "ip_efficiency", "lp": "lp_dry_efficiency"}
+
+CAUTION = ("Advisory performance information only. isentrope is not a protective function and is "
+           "not part of any turbine control or protection system. Its figures carry measurement "
+           "uncertainty, stated beside them. The turbine maker's limits and instructions, local codes "
+           "and licensed engineering practice take precedence over anything in this report.")
+
+CSS = """
+body { font-family: Georgia, 'DejaVu Serif', serif; color: #111; max-width: 60rem; margin: 2rem auto;
+       padding: 0 1rem; line-height: 1.45; }
+h1 { font-size: 1.6rem; margin-bottom: 0.2rem; } h2 { font-size: 1.25rem; border-bottom: 1px solid #999;
+     margin-top: 2.2rem; } h3 { font-size: 1.05rem; }
+.caution { border: 2px solid #111; padding: 0.6rem 0.9rem; margin: 1rem 0; font-size: 0.95rem; }
+table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.9rem; }
+th, td { border: 1px solid #bbb; padding: 0.25rem 0.5rem; text-align: right; }
+th { background: #eee; } td.l, th.l { text-align: left; }
+figure { margin: 1rem 0; page-break-inside: avoid; } figure img { width: 100%; height: auto; }
+figcaption { font-size: 0.85rem; color: #333; }
+.meta { color: #444; font-size: 0.9rem; }
+@media print { body { margin: 0; max-width: none; } h2 { page-break-after: avoid; } }
+"""
+
+
+def _plt():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    return plt
+
+
+def _fmt(x, spec=".2f", missing="n/a") -> str:
+    try:
+        v = float(x)
+    except (TypeError, ValueError):
+        return missing
+    return format(v, spec) if math.isfinite(v) else missing
+
+
+class _Figures:
+    """Collects figures as PNG files and data URIs."""
+
+    def __init__(self, out_dir: Path):
+        self.out_dir = out_dir
+        self.items: list[tuple[str, str, str]] = []  # (file name, data uri, caption)
+
+    def add(self, fig, name: str, caption: str) -> str:
+        plt = _plt()
+        buf = io.BytesIO()
+        fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
+        plt.close(fig)
+        data = buf.getvalue()
+        (self.out_dir / f"{name}.png").write_bytes(data)
+        uri = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+        self.items.append((f"{name}.png", uri, caption))
+        return (f'<figure><img src="{uri}" alt="{html.escape(caption)}" data-file="{name}.png">'
+                f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+
+
+def _table(frame: pd.DataFrame, left: tuple = ()) -> str:
+    head = "".join(f'<th class="{"l" if c in left else ""}">{html.escape(str(c))}</th>' for c in frame.columns)
+    rows = []
+    for _, r in frame.iterrows():
+        rows.append("".join(f'<td class="{"l" if c in left else ""}">{html.escape(str(r[c]))}</td>'
+                            for c in frame.columns))
+    body = "".join(f"<tr>{r}</tr>" for r in rows)
+    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
+
+
+def _read(store, measurement, start, end, tags) -> pd.DataFrame:
+    frame = store.read_results(measurement, start, end, tags)
+    return frame.sort_index() if len(frame) else frame
+
+
+def _hs_diagram(fig_ax, window: pd.Series, config):
+    """Expansion of one steady window on an h-s diagram, with the saturation line."""
+    from isentrope.calc import sections, steam
+
+    ax = fig_ax
+    p = np.geomspace(0.001, 22.0, 200)
+    ax.plot(steam.s_sat_liquid(p), steam.h_sat_liquid(p), color="#777", lw=1)
+    ax.plot(steam.s_sat_vapour(p), steam.h_sat_vapour(p), color="#777", lw=1, label="saturation line")
+    pts = []
+    for label, pr, tr in (("throttle", "throttle_p", "throttle_t"), ("cold reheat", "cold_reheat_p", "cold_reheat_t"),
+                          ("hot reheat", "hot_reheat_p", "hot_reheat_t"), ("crossover", "crossover_p", "crossover_t")):
+        if pr in window and tr in window and np.isfinite(window[pr]) and np.isfinite(window[tr]):
+            pts.append((label, float(steam.s_pt(window[pr], window[tr])), float(steam.h_pt(window[pr], window[tr]))))
+    for (l1, s1, h1), (l2, s2, h2), col in ((pts[0], pts[1], SECTION_COLOURS["hp"]),
+                                            (pts[2], pts[3], SECTION_COLOURS["ip"])) if len(pts) == 4 else ():
+        ax.plot([s1, s2], [h1, h2], "-o", color=col, lw=2)
+    for label, s, h in pts:
+        ax.annotate(label, (s, h), textcoords="offset points", xytext=(6, 4), fontsize=8)
+    if len(pts) == 4 and "condenser_p" in window and np.isfinite(window.get("lp_elep", np.nan)):
+        h_e = float(window["lp_elep"])
+        s_e = float(steam.s_ph(window["condenser_p"], h_e))
+        ax.plot([pts[3][1], s_e], [pts[3][2], h_e], "-o", color=SECTION_COLOURS["lp"], lw=2)
+        ax.annotate("ELEP", (s_e, h_e), textcoords="offset points", xytext=(6, -10), fontsize=8)
+        s_lo, s_hi = pts[0][1] - 0.3, s_e + 0.3
+    else:
+        s_lo, s_hi = 5.5, 8.2
+    ax.set_xlim(s_lo, s_hi)
+    ax.set_ylim(2000, 3700)
+    ax.set_xlabel("specific entropy s [kJ/(kg K)]")
+    ax.set_ylabel("specific enthalpy h [kJ/kg]")
+    ax.grid(True, lw=0.3)
+    ax.legend(loc="lower right", fontsize=8)
+
+
+def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window: pd.Timestamp | None = None) -> Path:
+    """Write the report for ``[start, end)`` into ``out_dir``; returns the path of index.html.
+
+    Parameters
+    ----------
+    store : isentrope.daemon.stores.base.Store
+    config : isentrope.daemon.config.Config
+    start, end : pandas.Timestamp
+        Period reported (UTC).
+    out_dir : path
+        Folder for index.html and the PNG files (created).
+    analysis : isentrope.daemon.analysis.Analysis or None
+        A fresh analysis; None reads the stored ``degradation``/``steps``/``losses``/``outlook``
+        series instead (and the planner table then shows what was stored).
+    hs_window : Timestamp or None
+        Start of the steady window drawn on the h-s diagram; None: the highest-load steady
+        window of the last 30 days.
+    """
+    from isentrope.daemon.analysis import (DEGRADATION_MEASUREMENT, LOSSES_MEASUREMENT, OUTLOOK_MEASUREMENT,
+                                           SECTIONS, STEPS_MEASUREMENT)
+    from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
+                                           Pipeline)
+
+    plt = _plt()
+    start, end = pd.Timestamp(start), pd.Timestamp(end)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    figs = _Figures(out)
+    unit = config.unit.name
+    tags = {"unit": unit}
+    cur = config.economics.currency
+    windows = _read(store, WINDOWS_MEASUREMENT, start, end, tags)
+    saved = store.load_state(f"baseline/{unit}") or {}
+    from isentrope.calc.baseline import BaselineModel
+
+    models = {s: BaselineModel.from_json(t) for s, t in sorted(saved.get("models", {}).items())}
+    dev = {s: _read(store, DEVIATION_MEASUREMENT, start, end, {**tags, "section": s, "model": m.model_id})
+           for s, m in models.items()}
+    a = config.alarms
+    parts = [f"<h1>Turbine section performance: {html.escape(config.unit.plant or '')} {html.escape(unit)}</h1>",
+             f'<p class="meta">Period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC; rating '
+             f"{config.unit.rating_mw:g} MW; produced by isentrope {html.escape(__version__)} on "
+             f"{pd.Timestamp.now(tz='UTC'):%Y-%m-%d %H:%M} UTC.</p>",
+             f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>']
+
+    # --- planner table ------------------------------------------------------------------
+    parts.append("<h2>Summary for the planner</h2>")
+    rows = []
+    outage = config.economics.planned_outage
+    for s in SECTIONS:
+        if analysis is not None and s in analysis.sections:
+            o = analysis.sections[s]
+            r = o.rate
+            proj = o.projection
+            pl = o.projected_loss
+            oh = o.overhaul
+            rows.append({
+                "section": SECTION_TITLES[s],
+                "deviation now [pt]": f"{_fmt(o.current, '+.2f')} ± {_fmt(o.current_u, '.2f')}",
+                "rate [pt/1000 h] (95 %)": (f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to "
+                                            f"{_fmt(r.high, '+.2f')})" if r.status == "ok" else r.status),
+                "steps": str(len(o.steps)),
+                f"at outage {outage or 'n/a'} [pt]": (f"{_fmt(proj.value, '+.2f')} ({_fmt(proj.low, '+.2f')} to "
+                                                      f"{_fmt(proj.high, '+.2f')})" if proj is not None and
+                                                      proj.status == "ok" else "n/a"),
+                f"cost to date [{cur}]": _fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
+                if o.losses is not None and len(o.losses) else "n/a",
+                f"cost to outage [{cur}]": _fmt(pl.fuel_cost, ",.0f") if pl is not None else "n/a",
+                "overhaul payback [years]": _fmt(oh.payback_years, ".1f") if oh is not None else "n/a",
+            })
+        elif s in models:
+            d = _read(store, DEGRADATION_MEASUREMENT, start, end, {**tags, "section": s})
+            last = d.iloc[-1] if len(d) else pd.Series(dtype=float)
+            rows.append({"section": SECTION_TITLES[s],
+                         "deviation now [pt]": _fmt(last.get("deviation_now"), "+.2f"),
+                         "rate [pt/1000 h] (95 %)": f"{_fmt(last.get('rate_per_1000h'), '+.2f')} "
+                                                    f"({_fmt(last.get('rate_low'), '+.2f')} to "
+                                                    f"{_fmt(last.get('rate_high'), '+.2f')})",
+                         "steps": str(len(_read(store, STEPS_MEASUREMENT, start, end, {**tags, "section": s}))),
+                         f"at outage {outage or 'n/a'} [pt]": _fmt(last.get("projected"), "+.2f"),
+                         f"cost to date [{cur}]": "see losses", f"cost to outage [{cur}]": "n/a",
+                         "overhaul payback [years]": "n/a"})
+    if rows:
+        parts.append(_table(pd.DataFrame(rows), left=("section",)))
+        parts.append("<p>Deviation is actual minus baseline expectation in percentage points (negative is "
+                     "worse); ± is one standard uncertainty. Rates are Theil-Sen slopes against operating "
+                     "hours; a rate whose interval includes zero is not yet a trend. Costs use the sensitivity "
+                     "coefficients of the configuration: replace them with the unit's own heat balance before "
+                     "using them in a business case.</p>")
+    else:
+        parts.append("<p>No baseline model yet: configure <code>[baseline]</code> and process the reference "
+                     "period first.</p>")
+    if analysis is not None and analysis.notes:
+        parts.append("<ul>" + "".join(f"<li>{html.escape(n)}</li>" for n in analysis.notes) + "</ul>")
+
+    # --- efficiency and deviation per section ----------------------------------------------
+    parts.append("<h2>Section efficiency and deviation</h2>")
+    for s in SECTIONS:
+        col = EFFICIENCY_COLUMNS[s]
+        if not len(windows) or col not in windows.columns or not np.isfinite(windows[col]).any():
+            continue
+        fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
+        ax1.plot(windows.index, 100 * windows[col], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6,
+                 label="steady window")
+        d = dev.get(s)
+        if d is not None and len(d) and "expected" in d:
+            e, eu = 100 * d["expected"], 100 * d.get("expected_u", 0 * d["expected"])
+            ax1.plot(d.index, e, "-", color="#111", lw=0.6, label="baseline expectation")
+            ax1.fill_between(d.index, e - 2 * eu, e + 2 * eu, color="#999", alpha=0.35, lw=0,
+                             label="expectation ± 2 u")
+            ax2.plot(d.index, d["deviation"], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6, label="deviation")
+            ax2.axhline(a.deviation_warning, color="#b9770e", ls="--", lw=1, label="warning level")
+            ax2.axhline(a.deviation_alarm, color="#922b21", ls="--", lw=1, label="alarm level")
+            o = analysis.sections.get(s) if analysis is not None else None
+            if o is not None and o.rate.status == "ok":
+                h = o.hours
+                last_block = o.steps[-1].index if len(o.steps) else 0
+                t = o.deviation.index[last_block:]
+                hh = h[last_block:]
+                line = o.rate.intercept + o.rate.slope_per_1000h * hh / 1000.0
+                ax2.plot(t, line, "-", color="#111", lw=1.2, label="fitted trend")
+                if o.projection is not None and o.projection.status == "ok" and outage is not None:
+                    tp = pd.Timestamp(outage).tz_localize("UTC")
+                    ax2.errorbar([tp], [o.projection.value],
+                                 yerr=[[o.projection.value - o.projection.low], [o.projection.high - o.projection.value]],
+                                 fmt="s", color="#111", capsize=4, label="projection at outage")
+                for st in o.steps:
+                    ax2.axvline(pd.Timestamp(st.time), color="#111", lw=0.8, ls=":")
+                    ax2.annotate(f"step {st.size:+.2f} pt", (pd.Timestamp(st.time), ax2.get_ylim()[0]),
+                                 textcoords="offset points", xytext=(3, 5), fontsize=8)
+        ax1.set_ylabel("efficiency [%]")
+        ax1.grid(True, lw=0.3)
+        ax1.legend(fontsize=8, loc="lower left")
+        ax2.set_ylabel("deviation [points]")
+        ax2.grid(True, lw=0.3)
+        ax2.legend(fontsize=8, loc="lower left", ncol=3)
+        fig.autofmt_xdate()
+        parts.append(f"<h3>{SECTION_TITLES[s]}</h3>")
+        parts.append(figs.add(fig, f"{s}_efficiency", f"{SECTION_TITLES[s]}: efficiency of each steady window "
+                              "with the baseline expectation (top), deviation with alarm levels, fitted trend, "
+                              "projection and steps (bottom)."))
+
+    # --- steady coverage ------------------------------------------------------------------
+    if len(windows) and "duration_s" in windows:
+        weekly = windows["duration_s"].resample("W").sum() / (7 * 86400.0) * 100.0
+        fig, ax = plt.subplots(figsize=(9, 2.6))
+        ax.bar(weekly.index, weekly.to_numpy(), width=5, color="#555")
+        ax.set_ylabel("steady time [% of week]")
+        ax.grid(True, lw=0.3, axis="y")
+        fig.autofmt_xdate()
+        parts.append("<h2>Steady-state coverage</h2>")
+        parts.append(figs.add(fig, "steady_coverage", "Share of each week inside steady windows (the only "
+                              "periods used for trending)."))
+
+    # --- LP exhaust moisture --------------------------------------------------------------
+    if len(windows) and "lp_moisture" in windows and np.isfinite(windows["lp_moisture"]).any():
+        fig, ax = plt.subplots(figsize=(9, 2.8))
+        ax.plot(windows.index, 100 * windows["lp_moisture"], ".", ms=2, color=SECTION_COLOURS["lp"])
+        ax.axhline(a.moisture_limit_percent, color="#922b21", ls="--", lw=1, label="limit")
+        ax.set_ylabel("exhaust moisture [%]")
+        ax.grid(True, lw=0.3)
+        ax.legend(fontsize=8)
+        fig.autofmt_xdate()
+        parts.append("<h2>LP exhaust moisture</h2>")
+        mode = "expansion line from the LP dry efficiency with the Baumann rule, or energy balance"
+        parts.append(figs.add(fig, "lp_moisture", f"LP exhaust moisture per steady window ({mode}) with the "
+                              f"configured limit of {a.moisture_limit_percent:g} %."))
+
+    # --- h-s diagram ----------------------------------------------------------------------
+    if len(windows) and "gross_output" in windows:
+        if hs_window is not None and pd.Timestamp(hs_window) in windows.index:
+            w = windows.loc[pd.Timestamp(hs_window)]
+        else:
+            recent = windows[windows.index >= windows.index[-1] - pd.Timedelta(days=30)]
+            w = recent.loc[recent["gross_output"].idxmax()]
+        fig, ax = plt.subplots(figsize=(7, 5.5))
+        _hs_diagram(ax, w, config)
+        parts.append("<h2>Expansion on the h-s diagram</h2>")
+        parts.append(figs.add(fig, "hs_diagram", f"Expansion of the steady window starting {w.name:%Y-%m-%d %H:%M} "
+                              f"UTC at {w['gross_output']:.0f} MW: HP, IP and the LP expansion line to the ELEP."))
+
+    # --- cost ----------------------------------------------------------------------------
+    if analysis is not None and any(o.losses is not None for o in analysis.sections.values()):
+        fig, ax = plt.subplots(figsize=(9, 3))
+        for s, o in analysis.sections.items():
+            if o.losses is not None and len(o.losses):
+                ax.plot(o.losses.index, o.losses["cumulative_fuel_cost"], color=SECTION_COLOURS[s],
+                        label=SECTION_TITLES[s])
+        ax.set_ylabel(f"cumulative fuel cost [{cur}]")
+        ax.grid(True, lw=0.3)
+        ax.legend(fontsize=8)
+        fig.autofmt_xdate()
+        parts.append("<h2>Cost of lost efficiency</h2>")
+        parts.append(figs.add(fig, "cumulative_cost", "Cumulative extra fuel cost since the baseline, per "
+                              "section, at the configured fuel price and sensitivities."))
+
+    # --- alarms ---------------------------------------------------------------------------
+    ev_rows = []
+    for s in list(SECTIONS) + [m.role for m in config.mappings]:
+        for rule in ("deviation_warning", "deviation_alarm", "exhaust_moisture", "data_quality",
+                     "degradation_rate", "step_change"):
+            e = _read(store, ALARMS_MEASUREMENT, start, end, {**tags, "section": s, "rule": rule})
+            for t, r in e.iterrows():
+                ev_rows.append({"time [UTC]": f"{t:%Y-%m-%d %H:%M}", "section or tag": s, "rule": rule,
+                                "event": "raised" if bool(r.get("raised")) else "cleared",
+                                "value": _fmt(r.get("value"), ".3g"), "threshold": _fmt(r.get("threshold"), ".3g")})
+    parts.append("<h2>Alarm events</h2>")
+    if ev_rows:
+        ev = pd.DataFrame(ev_rows).sort_values("time [UTC]", kind="stable")
+        parts.append(_table(ev.head(200), left=("time [UTC]", "section or tag", "rule", "event")))
+        if len(ev) > 200:
+            parts.append(f"<p>{len(ev) - 200} further events not shown; export them with "
+                         "<code>isentrope export</code>.</p>")
+    else:
+        parts.append("<p>No alarm events in the period.</p>")
+
+    # --- data quality ---------------------------------------------------------------------
+    from isentrope.calc import quality
+
+    raw = store.read(config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa)
+    pipe = Pipeline(config)
+    if len(raw):
+        screen = quality.screen(raw, **pipe._screen_kwargs(raw))
+        summ = screen.summary()
+        tagged = {m.role: m.tag for m in config.mappings}
+        keep = [r for r in summ.index if r in tagged]
+        q = summ.loc[keep].copy()
+        reasons = [c for c in q.columns if c not in ("flagged", "samples") and q[c].sum() > 0]
+        table = pd.DataFrame({"role": keep, "tag": [tagged[r] for r in keep],
+                              "samples": q["samples"].to_numpy(), "flagged": q["flagged"].to_numpy(),
+                              "flagged [%]": [_fmt(100 * f / n if n else math.nan, ".2f") for f, n in
+                                              zip(q["flagged"], q["samples"])]})
+        for c in reasons:
+            table[c.lower()] = q[c].to_numpy()
+        parts.append("<h2>Data quality per tag</h2>")
+        parts.append(_table(table, left=("role", "tag")))
+        expected = int(round((end - start) / pd.Timedelta(minutes=1)))
+        parts.append(f"<p>Samples found: {len(raw):,} rows against {expected:,} one-minute intervals in the "
+                     "period (missing rows are gaps in the store). Flagged samples are excluded from steady "
+                     "windows and trends.</p>")
+
+    parts.append(f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>')
+    page = ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
+            f"<title>Turbine section performance: {html.escape(unit)}</title><style>{CSS}</style></head><body>"
+            + "\n".join(parts) + "</body></html>")
+    path = out / "index.html"
+    path.write_text(page, encoding="utf-8")
+    return path
