@@ -5,7 +5,7 @@ table row: role, tag, unit, samples, last time, min, max, verdict. A verdict is 
 the tag has no data, is stale (no sample within ``alarms.data_quality_limit`` of the end),
 is flat, has samples outside its instrument range, or has values that are implausible in the
 declared unit while another unit of the same quantity would make them plausible (a pressure
-declared psig whose values look like kPa). Exit 0 when every tag is fine, 1 on any problem,
+declared psig whose values look like kPa). ``--config-only`` validates without connecting. Exit 0 when every tag is fine, 1 on any problem,
 2 for an invalid file, 3 when the store cannot be reached.
 """
 
@@ -58,6 +58,8 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
                         help="how far back to look, e.g. 6h, 2d (default: 24h)")
     parser.add_argument("--end", default=None, metavar="TIME",
                         help="end of the look (ISO 8601, naive = UTC; default: now)")
+    parser.add_argument("--config-only", action="store_true",
+                        help="only validate the file; do not connect to the store")
 
 
 def _end_time(text: str | None) -> pd.Timestamp:
@@ -206,6 +208,10 @@ def format_table(rows: list[dict]) -> str:
 
 def run(args: argparse.Namespace) -> int:
     config = load_config(args.config)
+    if args.config_only:
+        print(f"{args.config}: valid configuration of {config.unit.name} ({config.store.kind} store, "
+              f"{len(config.roles)} mapped roles: {', '.join(config.roles)})")
+        return 0
     try:
         since = parse_duration(args.since)
     except ValueError as exc:

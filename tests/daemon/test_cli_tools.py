@@ -167,6 +167,13 @@ def test_check_and_export_do_not_create_a_missing_sqlite_file(tmp_path, capsys):
     assert not (tmp_path / "unit7.sqlite").exists()
 
 
+def test_check_config_only_does_not_connect(tmp_path, capsys):
+    path = write_config(tmp_path)
+    assert cli.main(["check", "-c", str(path), "--config-only"]) == 0
+    assert capsys.readouterr().out.startswith(f"{path}: valid configuration of Test Unit 7 (sqlite store, 10 mapped roles: ")
+    assert not (tmp_path / "unit7.sqlite").exists()
+
+
 def test_check_bad_since(tmp_path, capsys):
     path = write_config(tmp_path)
     assert cli.main(["check", "-c", str(path), "--since", "yesterday"]) == 1
