@@ -382,3 +382,23 @@ def test_empty_and_single_row_frames():
     assert (res.summary()["samples"] == 0).all()
     one = _plant(n=1, noise=False)
     assert screen(one).ok.tolist() == [True]
+
+
+def test_precomputed_efficiencies_are_used():
+    f = _plant(n=40)
+    own = screen(f, return_details=True)
+    given = {"hp": own.details["hp_efficiency"], "ip": own.details["ip_efficiency"].to_numpy()}
+    again = screen(f, efficiencies=given, return_details=True)
+    pd.testing.assert_frame_equal(own.section_flags, again.section_flags)
+    # a given value outside the band is flagged: the given figures are what is tested
+    bad = own.details["hp_efficiency"].copy()
+    bad.iloc[5] = 0.3
+    res = screen(f, efficiencies={"hp": bad})
+    assert np.flatnonzero(~res.ok.to_numpy()).tolist() == [5]
+    assert res.names(res.section_flags["hp"].iloc[5]) == ["EFFICIENCY_IMPLAUSIBLE"]
+    with pytest.raises(ValueError, match="unknown section 'lp'"):
+        screen(f, efficiencies={"lp": bad})
+    with pytest.raises(ValueError, match="one value per row"):
+        screen(f, efficiencies={"hp": bad.to_numpy()[:-1]})
+    with pytest.raises(ValueError, match="same index"):
+        screen(f, efficiencies={"hp": bad.reset_index(drop=True)})
