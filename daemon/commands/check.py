@@ -3,7 +3,8 @@
 For each mapped role it reads the last ``--since`` (default 24 h) of raw samples and prints one
 table row: role, tag, unit, samples, last time, min, max, verdict. A verdict is a problem when
 the tag has no data, is stale (no sample within ``alarms.data_quality_limit`` of the end),
-is flat, has samples outside its instrument range, or has values that are implausible in the
+has a gap longer than that limit, stays flat (within ``screening.flatline_tolerance``) for
+``screening.flatline`` or longer, has samples outside its instrument range, or has values that are implausible in the
 declared unit while another unit of the same quantity would make them plausible (a pressure
 declared psig whose values look like kPa). ``--config-only`` validates without connecting. Exit 0 when every tag is fine, 1 on any problem,
 2 for an invalid file, 3 when the store cannot be reached.
@@ -146,8 +147,12 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
         else:
             if end - row["last"] > stale_after:
                 problems.append(f"stale: last sample {_age(end - row['last'])} before the end")
-            if len(valid) > 1 and row["max"] == row["min"]:
-                problems.append("flat: every sample the same")
+            flat = longest_flat(valid, config.screening.flatline_tolerance)
+            if flat is not None and flat[1] - flat[0] >= config.screening.flatline:
+                problems.append(f"flat for {_age(flat[1] - flat[0])} from {flat[0]:%Y-%m-%d %H:%M}")
+            gap = longest_gap(valid)
+            if gap is not None and gap[1] - gap[0] > stale_after:
+                problems.append(f"gap of {_age(gap[1] - gap[0])} from {gap[0]:%Y-%m-%d %H:%M}")
             if m.range is not None:
                 outside = int(((valid < m.range[0]) | (valid > m.range[1])).sum())
                 if outside:
@@ -175,6 +180,33 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
             row["verdict"] = "PROBLEM: " + row["verdict"]
         rows.append(row)
     return rows
+
+
+def longest_flat(values: pd.Series, tolerance: float) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+    """(first, last) time of the longest run of samples each within ``tolerance`` (relative
+    to the reading [-]) of the one before; None when no two consecutive samples are equal."""
+    if len(values) < 2:
+        return None
+    v = values.to_numpy(dtype=float)
+    t = values.index.asi8
+    same = np.abs(np.diff(v)) <= tolerance * np.maximum(np.abs(v[:-1]), 1e-12)
+    if not same.any():
+        return None
+    # runs of True in ``same``: sample i starts a run where same[i] rises
+    edges = np.diff(np.concatenate(([0], same.astype(np.int8), [0])))
+    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)  # stop: last sample index
+    lengths = t[stops] - t[starts]
+    k = int(np.argmax(lengths))
+    return values.index[starts[k]], values.index[stops[k]]
+
+
+def longest_gap(values: pd.Series) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+    """(last sample before, first sample after) the longest gap between samples."""
+    if len(values) < 2:
+        return None
+    steps = np.diff(values.index.asi8)
+    i = int(np.argmax(steps))
+    return values.index[i], values.index[i + 1]
 
 
 def _age(delta: pd.Timedelta | dt.timedelta) -> str:

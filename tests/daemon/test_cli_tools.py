@@ -121,10 +121,39 @@ def test_check_no_data_stale_flat_out_of_range(tmp_path, capsys):
     assert rc == 1
     verdict = {line.split()[0]: line for line in out.splitlines()[3:13]}
     assert verdict["throttle_t"].endswith("PROBLEM: stale: last sample 3.0 h before the end")
-    assert verdict["cold_reheat_t"].endswith("PROBLEM: flat: every sample the same")
+    assert verdict["cold_reheat_t"].endswith("PROBLEM: flat for 24.0 h from 2026-05-03 12:00")
     assert verdict["condenser_p"].endswith("PROBLEM: 5 outside range [0, 12.5]")
     assert verdict["crossover_t"].endswith("PROBLEM: no data")
     assert verdict["throttle_p"].endswith(" ok")
+
+
+def test_check_finds_what_the_synthetic_case_injected(tmp_path, capsys):
+    """The golden case's truth.json names a flatline, a data gap and an out-of-range burst;
+    importing its history and checking it must report each on the right tag."""
+    import json
+    import shutil
+
+    case = Path(__file__).resolve().parents[2] / "fixtures" / "cases" / "greywater_u2_2day"
+    if not case.is_dir():
+        pytest.skip("golden case greywater_u2_2day not present")
+    truth = json.loads((case / "truth.json").read_text())
+    shutil.copy(case / "config.toml", tmp_path / "config.toml")
+    path = tmp_path / "config.toml"
+    assert cli.main(["import-csv", "-c", str(path), str(case / "history.csv")]) == 0
+    capsys.readouterr()
+    rc = cli.main(["check", "-c", str(path), "--end", "2025-01-03T00:00Z", "--since", "2d"])
+    out = capsys.readouterr().out
+    assert rc == 1
+    verdict = {line.split()[0]: line for line in out.splitlines()[3:]}
+    spike, flat, gap = truth["spike"], truth["flatline"], truth["gap"]
+    lo, hi = spike["range"]
+    assert f"{spike['samples']} outside range [{lo:g}, {hi:g}]" in verdict[spike["role"]]
+    # a hold starts at the last live sample (5-min data): its time is within 5 min of the truth
+    start = pd.Timestamp(flat["start"])
+    found = verdict[flat["role"]].split("flat for ")[1].split(" from ")[1][:16]
+    assert abs(pd.Timestamp(found, tz="UTC") - start) <= pd.Timedelta("5min")
+    gap_from = verdict["gross_output"].split("gap of ")[1].split(" from ")[1][:16]
+    assert abs(pd.Timestamp(gap_from, tz="UTC") - pd.Timestamp(gap["start"])) <= pd.Timedelta("5min")
 
 
 def test_check_offline_unit_is_not_judged_on_units(tmp_path, capsys):
