@@ -274,8 +274,8 @@ def convert(values, from_unit: str, to_unit: str, barometric_kpa: float | None =
     --------
     >>> round(convert(1.0, "psia", "kPa(a)"), 6)
     6.894757
-    >>> convert(32.0, "degF", "degC")
-    0.0
+    >>> round(convert(212.0, "degF", "degC"), 9)
+    100.0
     """
     src = UNITS[canonical_unit(from_unit)]
     dst = UNITS[canonical_unit(to_unit)]
