@@ -17,7 +17,8 @@ For both, samples that failed screening (``ok=False``), samples with a criterion
 and samples with the unit offline (gross output below ``offline_mw``) are never steady.
 Contiguous steady samples form windows; a window ends at a gap longer than ``max_gap``, at a
 non-steady sample, and after ``max_length`` (long plateaus give several windows); windows
-shorter than ``min_length`` are dropped.
+shorter than ``min_length`` are dropped, and with ptc6 so are windows whose own readings break
+the limits about their own mean.
 
 The thresholds are defaults a user can change; they are advisory, and the turbine maker's
 limits, the test code and licensed engineering practice decide what a valid test is.
@@ -376,6 +377,12 @@ def tag_steady(
 
     Notes
     -----
+    Windows are runs of steady samples cut at a gap longer than ``max_gap``, at a usable
+    non-steady sample and after ``max_length``. With ptc6 a run is also cut where no
+    qualifying trailing window holds two neighbouring steady samples (two plateaus at
+    different loads never merge), and a window whose own readings break the limits about
+    its own mean is dropped (its samples stay steady per sample).
+
     The r_statistic method assumes equally spaced samples; its filters restart after a gap
     longer than ``max_gap``.
     """
