@@ -1229,6 +1229,7 @@ _SERIES_FIELDS = (
     ("lp_efficiency", "-", "LP efficiency crossover -> ELEP, wetness losses included"),
     ("lp_efficiency_u", "-", "standard uncertainty of lp_efficiency"),
     ("lp_used_energy_efficiency", "-", "LP efficiency crossover -> UEEP"),
+    ("lp_used_energy_efficiency_u", "-", "standard uncertainty of lp_used_energy_efficiency"),
     ("lp_enthalpy_drop", "kJ/kg", "LP enthalpy drop crossover -> ELEP"),
     ("lp_isentropic_drop", "kJ/kg", "LP isentropic drop crossover -> condenser pressure"),
     ("lp_share", "-", "LP share of the expansion-line enthalpy drop"),
@@ -1257,7 +1258,7 @@ class SectionResults:
     ----------
     hp_efficiency, ip_efficiency, lp_dry_efficiency, lp_efficiency, lp_used_energy_efficiency : Series
         Efficiencies as fractions [-].
-    hp_efficiency_u, ip_efficiency_u, lp_dry_efficiency_u, lp_efficiency_u : Series
+    hp_efficiency_u, ip_efficiency_u, lp_dry_efficiency_u, lp_efficiency_u, lp_used_energy_efficiency_u : Series
         Their standard uncertainties (k = 1) [-]; NaN when uncertainty is off.
     hp_enthalpy_drop, ip_enthalpy_drop, lp_dry_enthalpy_drop, lp_enthalpy_drop : Series
         Actual enthalpy drops [kJ/kg].
@@ -1300,6 +1301,7 @@ class SectionResults:
     lp_efficiency: pd.Series
     lp_efficiency_u: pd.Series
     lp_used_energy_efficiency: pd.Series
+    lp_used_energy_efficiency_u: pd.Series
     lp_enthalpy_drop: pd.Series
     lp_isentropic_drop: pd.Series
     lp_share: pd.Series
@@ -1367,11 +1369,20 @@ def _lp_figures(inp, cfg):
         cache[id(p_exh)] = (p_exh, sat, vols)
     flow = inp["main_steam_flow"] * cfg["lp_exhaust_flow_fraction"] if cfg["lp_exhaust_flow_fraction"] else np.full(n, np.nan)
     if cfg["mode"] == "expansion":
-        if cfg["eta_source"] == "measured":
-            eta = _section_group(inp, _LPD)["efficiency"]
+        # The expansion does not depend on the flow: a re-evaluation that changes only the
+        # main steam flow (its uncertainty) reuses the expansion of the same inputs.
+        key = tuple(inp[k] for k in (_LP_EXP + _LPD[2:]))
+        done = cfg["lp_core_cache"]
+        if done is not None and all(a is b for a, b in zip(done[0], key)):
+            r = done[1]
         else:
-            eta = np.full(n, cfg["eta_lp_design"])
-        r = _lp_core(p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat)
+            if cfg["eta_source"] == "measured":
+                eta = _section_group(inp, _LPD)["efficiency"]
+            else:
+                eta = np.full(n, cfg["eta_lp_design"])
+            r = _lp_core(p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat)
+            if done is None:
+                cfg["lp_core_cache"] = (key, r)
         lp_reason = r["reason"].copy()
         if cfg["eta_source"] == "measured":
             lp_reason[lp_reason == NO_DRY_EFFICIENCY] = UPSTREAM_INVALID
@@ -1651,7 +1662,7 @@ def evaluate(
         "lp_exhaust_loss",
         "lp_annulus_velocity",
     )
-    lp_u_keys = ("lp_efficiency", "lp_elep", "lp_ueep", "lp_moisture")
+    lp_u_keys = ("lp_efficiency", "lp_used_energy_efficiency", "lp_elep", "lp_ueep", "lp_moisture")
     if groups_missing["lp"]:
         codes["lp"] = np.full(n, NOT_MAPPED, dtype=np.int64)
         codes["lp_ueep"] = np.full(n, NOT_MAPPED, dtype=np.int64)
@@ -1669,6 +1680,7 @@ def evaluate(
             "flow_fractions": ff,
             "losses_mw": losses_mw,
             "sat_cache": {},
+            "lp_core_cache": None,
         }
         r = _lp_figures(inp, cfg)
         codes["lp"] = r["lp_reason"]

@@ -321,7 +321,7 @@ def _unit_frame(n=1, **over):
     return pd.DataFrame({k: np.full(n, float(v)) for k, v in values.items()}, index=idx)
 
 
-@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=6, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(st.floats(0.2, 3.0), st.floats(1.2, 4.0))
 def test_uncertainty_grows_with_instrument_uncertainty(u_t, factor):
     f = _unit_frame()
@@ -577,3 +577,19 @@ def test_fast_section_uncertainty_matches_whole_chain_propagation():
     slow = S.propagate_uncertainty(lambda d: {"e": S._section_core(*(d[k] for k in names))["efficiency"]},
                                    inputs, u, ("e",), base={"e": base["efficiency"]})["e"]
     np.testing.assert_allclose(fast, slow, rtol=2e-3)
+
+
+def test_flow_uncertainty_reaches_ueep_only():
+    # Main steam flow enters the annulus velocity, hence the exhaust loss and the UEEP, but not
+    # the expansion line (ELEP, moisture) of the expansion mode.
+    zero = {r: 0.0 for r in S.ROLE_QUANTITY}
+    f = _unit_frame()
+    kw = dict(annulus_area=30.0, lp_exhaust_flow_fraction=0.65, lp_mode="expansion")
+    o = S.evaluate(f, uncertainty={**zero, "main_steam_flow": S.InstrumentUncertainty(relative=0.02)}, **kw)
+    o = o.to_frame().iloc[0]
+    assert o.lp_ueep_u > 0 and o.lp_used_energy_efficiency_u > 0
+    assert o.lp_moisture_u == 0 and o.lp_elep_u == 0
+    # against a direct difference of the UEEP with the flow changed by +/- 2 %
+    hi = S.evaluate(_unit_frame(main_steam_flow=430.0 * 1.02), uncertainty=False, **kw).lp_ueep.iloc[0]
+    lo = S.evaluate(_unit_frame(main_steam_flow=430.0 * 0.98), uncertainty=False, **kw).lp_ueep.iloc[0]
+    assert o.lp_ueep_u == pytest.approx(abs(hi - lo) / 2, rel=1e-9)
