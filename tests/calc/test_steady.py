@@ -292,3 +292,16 @@ def test_empty_and_single_row_frames(method):
     assert res.steady.empty and res.windows.empty
     one = _history(np.full(1, 450.0))
     assert tag_steady(one, method=method).steady.tolist() == [False]
+
+
+def test_two_plateaus_at_different_loads_never_merge():
+    # 40 min at 463 MW then 60 min at 450 MW (invented): each level is steady on its own,
+    # and a 13 MW step exceeds the +/-6 MW band (1 % of 600 MW, common practice).
+    f = _history(np.concatenate([np.full(40, 463.0), np.full(60, 450.0)]))
+    res = tag_steady(f, rating_mw=RATING)
+    step_time = f.index[40]
+    w = res.windows
+    assert len(w) >= 2
+    assert not ((w["start"] < step_time) & (w["end"] >= step_time)).any()
+    assert (w.loc[w["end"] < step_time, "gross_output"].sub(463.0).abs() < 1.0).all()
+    assert (w.loc[w["start"] >= step_time, "gross_output"].sub(450.0).abs() < 1.0).all()
