@@ -159,8 +159,7 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
                     problems.append(f"{outside} outside range [{m.range[0]:g}, {m.range[1]:g}]")
             judged = valid
             if online is not None and m.role not in ALWAYS_ONLINE:
-                mask = pd.Series(online, index=col.index).reindex(valid.index).fillna(False).astype(bool)
-                judged = valid[mask.to_numpy()]
+                judged = valid[pd.Series(online, index=col.index).loc[valid.index].to_numpy(dtype=bool)]
             if not len(judged):
                 notes.append("unit offline: unit not judged")
             else:
