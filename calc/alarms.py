@@ -348,6 +348,77 @@ def _prepare(observations: pd.DataFrame) -> pd.DataFrame:
     return obs.sort_values("time", kind="mergesort")
 
 
+def _time_ns(times: pd.Series) -> np.ndarray:
+    """UTC times as int64 nanoseconds since 1970."""
+    return pd.DatetimeIndex(times).as_unit("ns").asi8
+
+
+def _stamp(ns: int) -> pd.Timestamp:
+    return pd.Timestamp(int(ns), unit="ns", tz="UTC")
+
+
+def _run_machine(m: dict, rule: Rule, r_i: int, section: str, t: np.ndarray, v: np.ndarray,
+                 duration_ns: int | None, records: list) -> None:
+    """Advance one machine ``m`` (in place) over time-ordered observations ``t`` [ns], ``v``.
+
+    Exactly the observation-by-observation machine of the module docstring, taken a run at a
+    time: the observations are classed as beyond ``threshold`` (B), past ``clear_at`` (C) or
+    in the hysteresis band (N), and each run of one class is decided at once. In a B run of a
+    normal machine the streak count and the time since its first B grow together, so the
+    raising observation is the first one where both the count and (when set) the duration
+    are reached (a search in the run); a C run of a raised machine clears at the observation
+    where the clear count is reached; every other run only resets a counter. Measured: the
+    per-observation loop cost about 1.0 s per day of one-minute data (16 roles), nearly all
+    of it on tag-quality series that change class a few times a day.
+    """
+    if rule.direction == "below":
+        beyond, cleared = v < rule.threshold, v >= rule.clear_level
+    else:
+        beyond, cleared = v > rule.threshold, v <= rule.clear_level
+    cls = np.where(beyond, 0, np.where(cleared, 1, 2)).astype(np.int8)  # 0 = B, 1 = C, 2 = N
+    bounds = np.concatenate(([0], np.flatnonzero(np.diff(cls)) + 1, [len(cls)]))
+    for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+        c = int(cls[a])
+        while a < b:
+            if m["state"] == NORMAL:
+                if c != 0:
+                    m.update(count=0, since=None)
+                    break
+                since = _ts(m["since"]).value if m["since"] is not None else int(t[a])
+                if m["since"] is None:
+                    m["since"] = _iso(_stamp(t[a]))
+                # first j in [a, b) with count_before + (j - a + 1) >= raise_after and held
+                j = a + max(0, rule.raise_after - m["count"] - 1)
+                if duration_ns is not None:
+                    j = max(j, a + int(np.searchsorted(t[a:b], since + duration_ns, side="left")))
+                if j >= b:
+                    m["count"] += b - a
+                    break
+                count = m["count"] + (j - a + 1)
+                ts = _stamp(t[j])
+                val = float(v[j])
+                records.append((ts, r_i, section, KIND_RAISED, val, float(rule.threshold),
+                                _message(rule, section, KIND_RAISED, val, rule.threshold, count)))
+                m.update(state=RAISED, count=0, since=None, clear_count=0)
+                a = j + 1  # the rest of this B run keeps the clear count at 0
+            else:
+                if c != 1:
+                    m["clear_count"] = 0
+                    break
+                j = a + max(0, rule.clear_after - m["clear_count"] - 1)
+                if j >= b:
+                    m["clear_count"] += b - a
+                    break
+                count = m["clear_count"] + (j - a + 1)
+                ts = _stamp(t[j])
+                val = float(v[j])
+                records.append((ts, r_i, section, KIND_CLEARED, val, rule.clear_level,
+                                _message(rule, section, KIND_CLEARED, val, rule.clear_level, count)))
+                m.update(state=NORMAL, count=0, since=None, clear_count=0)
+                a = j + 1  # the rest of this C run keeps the streak count at 0
+    m["last_time"] = _iso(_stamp(t[-1]))
+
+
 def evaluate_alarms(
     state: Mapping | None,
     observations: pd.DataFrame,
@@ -393,8 +464,11 @@ def evaluate_alarms(
     has_steady = "steady" in obs.columns
 
     # Plain arrays: pandas selection per rule and section costs far more than the machines.
-    o_time = list(obs["time"])
-    o_sec = obs["section"].astype(str).to_numpy(dtype=object)
+    # Times as int64 ns; a Timestamp is built only for the few observations that make an
+    # event or end up in the state (measured: a list of Timestamps for 16 roles x 1440
+    # samples a day cost more than the machines themselves).
+    o_ns = _time_ns(obs["time"])
+    sec_codes, sec_names = pd.factorize(obs["section"].astype(str), sort=True)
     o_qty = obs["quantity"].astype(str).to_numpy(dtype=object)
     o_val = obs["value"].to_numpy(dtype=float)
     o_steady = obs["steady"].to_numpy(dtype=bool) if has_steady else np.ones(len(obs), dtype=bool)
@@ -404,42 +478,28 @@ def evaluate_alarms(
     for r_i, rule in enumerate(rules):
         sel = finite & (o_qty == rule.quantity)
         if rule.sections is not None:
-            sel &= np.isin(o_sec, np.array(rule.sections, dtype=object))
+            allowed = [k for k, name in enumerate(sec_names) if name in rule.sections]
+            sel &= np.isin(sec_codes, allowed)
         if rule.steady_only:
             sel &= o_steady
         idx = np.flatnonzero(sel)
-        duration = pd.Timedelta(rule.raise_after_duration) if rule.raise_after_duration else None
-        for section in sorted(set(o_sec[idx])):
+        if not len(idx):
+            continue
+        duration_ns = pd.Timedelta(rule.raise_after_duration).value if rule.raise_after_duration else None
+        # group by section, keeping time order inside each group (stable sort of the codes)
+        codes = sec_codes[idx]
+        order = np.argsort(codes, kind="stable")
+        idx, codes = idx[order], codes[order]
+        cuts = np.flatnonzero(np.diff(codes)) + 1
+        for part in np.split(idx, cuts):
+            section = str(sec_names[sec_codes[part[0]]])
             key = f"{rule.name}|{section}"
             m = machines.get(key) or _new_machine()
             last = _ts(m.get("last_time"))
-            for i in idx[o_sec[idx] == section]:
-                t = o_time[i]
-                if last is not None and t <= last:
-                    continue
-                v = float(o_val[i])
-                if m["state"] == NORMAL:
-                    if rule._beyond(v):
-                        m["count"] += 1
-                        if m["since"] is None:
-                            m["since"] = _iso(t)
-                        held = duration is None or t - _ts(m["since"]) >= duration
-                        if m["count"] >= rule.raise_after and held:
-                            records.append((t, r_i, section, KIND_RAISED, v, float(rule.threshold),
-                                            _message(rule, section, KIND_RAISED, v, rule.threshold, m["count"])))
-                            m.update(state=RAISED, count=0, since=None, clear_count=0)
-                    else:
-                        m.update(count=0, since=None)
-                else:
-                    if rule._cleared(v):
-                        m["clear_count"] += 1
-                        if m["clear_count"] >= rule.clear_after:
-                            records.append((t, r_i, section, KIND_CLEARED, v, rule.clear_level,
-                                            _message(rule, section, KIND_CLEARED, v, rule.clear_level, m["clear_count"])))
-                            m.update(state=NORMAL, count=0, since=None, clear_count=0)
-                    else:
-                        m["clear_count"] = 0
-                m["last_time"] = _iso(t)
+            if last is not None:
+                part = part[o_ns[part] > last.value]
+            if len(part):
+                _run_machine(m, rule, r_i, section, o_ns[part], o_val[part], duration_ns, records)
             machines[key] = m
 
     records.sort(key=lambda r: (r[0], r[1], r[2]))

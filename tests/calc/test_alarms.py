@@ -221,3 +221,99 @@ def test_step_and_rate_observations_from_trend():
     assert kinds(ev) == [("step", "raised")]  # the step, blocked out of the rate, raises only itself
     short = trend.degradation_rate(np.arange(3.0), np.zeros(3))
     assert len(alarms.rate_observation(t[-1], "hp", short)) == 0
+
+
+# --- the run-at-a-time machines against the plain observation-by-observation machine -------
+def _stepwise(state, observations, rules):
+    """Reference: the state machine of the calc.alarms docstring, one observation at a time
+    (the original implementation of evaluate_alarms, kept here as the oracle)."""
+    machines = json.loads(json.dumps(state or {"version": 1, "machines": {}}))["machines"]
+    obs_ = observations.sort_values("time", kind="mergesort")
+    records = []
+    for r_i, rule in enumerate(rules):
+        sel = obs_[(obs_["quantity"] == rule.quantity) & np.isfinite(obs_["value"])]
+        if rule.sections is not None:
+            sel = sel[sel["section"].isin(rule.sections)]
+        if rule.steady_only and "steady" in sel.columns:
+            sel = sel[sel["steady"].astype(bool)]
+        duration = pd.Timedelta(rule.raise_after_duration) if rule.raise_after_duration else None
+        for section in sorted(set(sel["section"])):
+            key = f"{rule.name}|{section}"
+            m = machines.get(key) or {"state": "normal", "count": 0, "since": None, "clear_count": 0,
+                                      "last_time": None}
+            last = None if m.get("last_time") is None else pd.Timestamp(m["last_time"])
+            for t, v in zip(sel.loc[sel["section"] == section, "time"], sel.loc[sel["section"] == section, "value"]):
+                if last is not None and t <= last:
+                    continue
+                if m["state"] == "normal":
+                    if rule._beyond(v):
+                        m["count"] += 1
+                        if m["since"] is None:
+                            m["since"] = t.isoformat()
+                        held = duration is None or t - pd.Timestamp(m["since"]) >= duration
+                        if m["count"] >= rule.raise_after and held:
+                            records.append((t, r_i, section, "raised", float(v)))
+                            m.update(state="raised", count=0, since=None, clear_count=0)
+                    else:
+                        m.update(count=0, since=None)
+                else:
+                    if rule._cleared(v):
+                        m["clear_count"] += 1
+                        if m["clear_count"] >= rule.clear_after:
+                            records.append((t, r_i, section, "cleared", float(v)))
+                            m.update(state="normal", count=0, since=None, clear_count=0)
+                    else:
+                        m["clear_count"] = 0
+                m["last_time"] = t.isoformat()
+            machines[key] = m
+    records.sort(key=lambda r: (r[0], r[1], r[2]))
+    return {"version": 1, "machines": machines}, records
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    classes=st.lists(st.lists(st.sampled_from([0, 1, 2, 3]), min_size=0, max_size=60), min_size=1, max_size=3),
+    raise_after=st.integers(1, 4), clear_after=st.integers(1, 4),
+    duration=st.sampled_from([None, "0s", "5min", "17min", "2h"]),
+    cuts=st.lists(st.integers(0, 60), max_size=3),
+    repeat_times=st.booleans(),
+)
+def test_run_at_a_time_equals_observation_by_observation(classes, raise_after, clear_after, duration, cuts,
+                                                          repeat_times):
+    # values below -1.0 (beyond), in the band -1.0..-0.7, above -0.7 (cleared), NaN (skipped)
+    level = {0: -1.5, 1: -0.85, 2: -0.2, 3: np.nan}
+    rules = [Rule("r", "deviation", "below", -1.0, -0.7, raise_after, clear_after, raise_after_duration=duration),
+             Rule("q", "tag_bad", "above", 0.5, 0.5, raise_after=1, raise_after_duration="5min")]
+    parts = []
+    for k, seq in enumerate(classes):
+        freq = "1min" if k % 2 == 0 else "3min"
+        t = pd.date_range(T0, periods=len(seq), freq=freq, tz="UTC")
+        if repeat_times and len(seq) > 2:  # two observations at the same instant
+            t = t.insert(1, t[1]).delete(2)
+        parts.append(pd.DataFrame({"time": t, "section": f"s{k}", "quantity": "deviation",
+                                   "value": [level[c] for c in seq]}))
+        parts.append(pd.DataFrame({"time": t, "section": f"s{k}", "quantity": "tag_bad",
+                                   "value": [float(c == 0) for c in seq]}))
+    allobs = pd.concat(parts, ignore_index=True)
+    # whole batch and split into pieces by time, each against the reference
+    edges = sorted({T0 + pd.Timedelta(minutes=c) for c in cuts})
+    pieces, lo = [], None
+    for e in edges + [None]:
+        sel = np.ones(len(allobs), dtype=bool)
+        if lo is not None:
+            sel &= allobs["time"] >= lo
+        if e is not None:
+            sel &= allobs["time"] < e
+        pieces.append(allobs[sel])
+        lo = e
+    for batches in ([allobs], pieces):
+        state, ref_state = {}, None
+        got, want = [], []
+        for b in batches:
+            state, ev = evaluate_alarms(state, b, rules)
+            ref_state, rec = _stepwise(ref_state, b, rules)
+            got += [(t, r, s, k, v) for t, r, s, k, v in zip(ev.index, ev["rule"], ev["section"], ev["kind"],
+                                                             ev["value"])]
+            want += [(t, rules[ri].name, s, k, v) for t, ri, s, k, v in rec]
+        assert got == want
+        assert state == ref_state
