@@ -38,8 +38,7 @@ ASME PTC 19.1-2013, Test Uncertainty.
 
 from __future__ import annotations
 
-import dataclasses
-from collections.abc import Callable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -1725,7 +1724,25 @@ def evaluate(
 
 
 __all__ = [
+    "OK",
+    "MISSING_INPUT",
+    "OUT_OF_RANGE",
+    "PRESSURE_NOT_FALLING",
+    "INLET_NOT_SUPERHEATED",
+    "OUTLET_NOT_SUPERHEATED",
+    "NO_ENTHALPY_DROP",
+    "NO_CONVERGENCE",
+    "NO_DRY_EFFICIENCY",
+    "NOT_MAPPED",
+    "NO_EXHAUST_DATA",
+    "VELOCITY_OUTSIDE_CURVE",
+    "ENERGY_BALANCE_IMPLAUSIBLE",
+    "UPSTREAM_INVALID",
     "BAUMANN_DEFAULT",
+    "BAUMANN_MAX",
+    "DEFAULT_UNCERTAINTY_BY_QUANTITY",
+    "LP_P_MAX",
+    "ROLE_QUANTITY",
     "DEFAULT_EXHAUST_LOSS_CURVE",
     "DEFAULT_EXHAUST_LOSS_POINTS",
     "ETA_LP_DESIGN_DEFAULT",

@@ -593,3 +593,27 @@ def test_flow_uncertainty_reaches_ueep_only():
     hi = S.evaluate(_unit_frame(main_steam_flow=430.0 * 1.02), uncertainty=False, **kw).lp_ueep.iloc[0]
     lo = S.evaluate(_unit_frame(main_steam_flow=430.0 * 0.98), uncertainty=False, **kw).lp_ueep.iloc[0]
     assert o.lp_ueep_u == pytest.approx(abs(hi - lo) / 2, rel=1e-9)
+
+
+def test_golden_case():
+    # fixtures/cases/sections_reheat_unit: expected values computed with iapws only
+    # (make_expected.py in that folder; independent of isentrope).
+    import tomllib
+    from pathlib import Path
+
+    case = Path(__file__).resolve().parents[2] / "fixtures" / "cases" / "sections_reheat_unit"
+    with open(case / "config.toml", "rb") as fh:
+        kw = tomllib.load(fh)["evaluate"]
+    frame = pd.read_csv(case / "input.csv", index_col="row")
+    expected = pd.read_csv(case / "expected.csv", index_col="row")
+    out = S.evaluate(frame, **kw).to_frame()
+    assert list(out.index) == list(expected.index)
+    for name in ("hp_efficiency", "ip_efficiency", "lp_dry_efficiency"):
+        np.testing.assert_allclose(out[name], expected[name], atol=1e-8, equal_nan=True)
+    np.testing.assert_allclose(out.lp_elep, expected.lp_elep, atol=0.01, equal_nan=True)
+    np.testing.assert_allclose(out.lp_x, expected.lp_x, atol=1e-5, equal_nan=True)
+    np.testing.assert_allclose(out.lp_ueep, expected.lp_ueep, atol=0.01, equal_nan=True)
+    for row, r in out.reason.items():
+        codes = S.decode_reason(r)
+        for group in ("hp", "ip", "lp_dry", "lp"):
+            assert codes[group] == getattr(S, expected.loc[row, f"{group}_reason"]), (row, group)
