@@ -402,3 +402,46 @@ def test_precomputed_efficiencies_are_used():
         screen(f, efficiencies={"hp": bad.to_numpy()[:-1]})
     with pytest.raises(ValueError, match="same index"):
         screen(f, efficiencies={"hp": bad.reset_index(drop=True)})
+
+
+def _noise_oracle(values, index, block="1h"):
+    """Per-sample robust noise level by plain pandas grouping on clock blocks (test oracle)."""
+    s = pd.Series(values, index=index).dropna()
+    key = s.index.floor(block)
+    d = s.diff().abs().where(key == np.roll(key, 1))  # pairs inside one block only
+    d.iloc[0] = np.nan
+    med = d.groupby(key).median() * 1.482602218505602 / np.sqrt(2.0)
+    return pd.Series(med.reindex(key).to_numpy(), index=s.index).reindex(index)
+
+
+@pytest.mark.parametrize("irregular", [False, True])
+def test_noise_level_per_clock_block(irregular):
+    rng = np.random.default_rng(4)
+    idx = pd.date_range("2031-05-04 00:17", periods=400, freq="1min", tz="UTC")
+    v = rng.normal(0, 1, 400) * np.repeat([0.5, 2.0, 1.0, 3.0, 1.0, 1.0, 1.0], 60)[:400]
+    v[[5, 6, 70, 300]] = np.nan
+    if irregular:
+        keep = np.ones(400, dtype=bool)
+        keep[rng.choice(400, 40, replace=False)] = False
+        idx, v = idx[keep], v[keep]
+    t = idx.as_unit("ns").asi8
+    got = quality._noise_scale(v, t, int(pd.Timedelta("1h").value))
+    want = _noise_oracle(v, idx).to_numpy()
+    finite = np.isfinite(v)
+    np.testing.assert_allclose(got[finite], want[finite], rtol=1e-12)
+
+
+@settings(max_examples=15, deadline=None)
+@given(cut=st.integers(1, 300))
+def test_flags_do_not_depend_on_where_the_frame_starts(cut):
+    # A sample's flags depend only on data within the flatline duration, the spike window
+    # and its clock hour; so far from the cut, a frame that starts later gives the same flags.
+    f = _plant(n=900, roles=["throttle_t", "gross_output", "crossover_t"], seed=12)
+    rng = np.random.default_rng(12)
+    rows = rng.choice(900, 40, replace=False)
+    f.iloc[rows, 0] += rng.uniform(1.0, 4.0, 40)  # jumps near the spike threshold
+    f.iloc[400:560, 1] = 480.25  # a stuck load transmitter for 160 min
+    whole = screen(f)
+    part = screen(f.iloc[cut:])
+    safe = f.index >= f.index[cut] + pd.Timedelta("3h")
+    pd.testing.assert_frame_equal(whole.flags.loc[safe], part.flags.loc[safe[cut:]])
