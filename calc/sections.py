@@ -1160,9 +1160,9 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps):
     only the property functions that input enters: h, s at the inlet for p_in and t_in, h at
     the outlet for p_out and t_out. The isentropic end point follows by dh = T ds + v dp at
     constant p_out (dh_s = T_s ds_in) and constant s_in (dh_s = v_s dp_out), exact to the
-    first order. Measured: about 3 times faster than re-running the whole section per input
-    (which re-solves h(p, s) each time); results agree to the finite-difference error
-    (checked in tests).
+    first order. Measured: 2.5-3 times faster than re-running the whole section per input
+    (which re-solves h(p, s) each time): on 100,000 HP rows 1.4-1.6 s against 4.0 s of CPU,
+    results within a relative 3e-6 of each other (checked in tests).
 
     ``u`` and ``steps``: dicts with keys "p_in", "t_in", "p_out", "t_out" (arrays)."""
     ok = base["reason"] == OK
