@@ -384,7 +384,11 @@ def tag_steady(
     its own mean is dropped (its samples stay steady per sample).
 
     The r_statistic method assumes equally spaced samples; its filters restart after a gap
-    longer than ``max_gap``.
+    longer than ``max_gap``. Being recursive, R at a sample depends on all samples since the
+    filters (re)started, with a weight that decays as (1 - lambda)^k after k samples: a caller
+    processing chunks needs a look-back of some 100 samples (0.9^100 = 3e-5) for results that
+    do not depend on where a chunk starts. The ptc6 method depends only on the samples within
+    ``window`` before and after each sample.
     """
     if not isinstance(frame, pd.DataFrame):
         raise ValueError(f"frame must be a pandas DataFrame, found {type(frame).__name__}")
