@@ -305,3 +305,15 @@ def test_two_plateaus_at_different_loads_never_merge():
     assert not ((w["start"] < step_time) & (w["end"] >= step_time)).any()
     assert (w.loc[w["end"] < step_time, "gross_output"].sub(463.0).abs() < 1.0).all()
     assert (w.loc[w["start"] >= step_time, "gross_output"].sub(450.0).abs() < 1.0).all()
+
+
+@settings(max_examples=15, deadline=None)
+@given(cut=st.integers(1, 200))
+def test_ptc6_flags_do_not_depend_on_where_the_frame_starts(cut):
+    f = _history(_ramp_then_plateau())
+    ok = pd.Series(True, index=f.index)
+    ok.iloc[[30, 31, 250, 251, 252]] = False
+    whole = tag_steady(f, rating_mw=RATING, ok=ok).steady
+    part = tag_steady(f.iloc[cut:], rating_mw=RATING, ok=ok.iloc[cut:]).steady
+    safe = f.index >= f.index[cut] + pd.Timedelta("1h")
+    assert (whole[safe] == part[safe[cut:]]).all()
