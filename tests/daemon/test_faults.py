@@ -65,8 +65,8 @@ def cli(*args: str) -> subprocess.Popen:
 
 def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_results(tmp_path):
     raw = ws.plant_history(1.5, freq="5min")
-    start, end = FIRST, FIRST + pd.Timedelta("8h")
-    args = ["--start", start.isoformat(), "--end", end.isoformat(), "--chunk", "2h"]
+    start, end = FIRST, FIRST + pd.Timedelta("9h")
+    args = ["--start", start.isoformat(), "--end", end.isoformat(), "--chunk", "3h"]
 
     ref_cfg, ref = sqlite_unit(tmp_path, "reference", raw)
     assert cli_main(["backfill", "-c", str(ref_cfg), *args, "--no-progress"]) == 0
@@ -78,7 +78,7 @@ def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_
     killed_at = None
     while time.monotonic() < deadline and proc.poll() is None:
         cp = store.get_checkpoint(name)
-        if cp is not None and cp >= start + pd.Timedelta("4h"):  # two chunks are in
+        if cp is not None and cp >= start + pd.Timedelta("3h"):  # the first chunk is in
             os.kill(proc.pid, signal.SIGKILL)
             killed_at = cp
             break
@@ -127,7 +127,7 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
         store.write_raw(config.mappings, raw)
         return config, store
 
-    times = [ws.START + pd.Timedelta("9h") + k * pd.Timedelta("1h") for k in range(5)]
+    times = [ws.START + pd.Timedelta("9h") + k * pd.Timedelta("1h30min") for k in range(3)]
 
     def worker(config, store, clock):
         return Worker.from_config(config, store, pipeline=pipeline, start_default=FIRST, clock=clock,
@@ -148,23 +148,28 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
     try:
         for k, t in enumerate(times):
             clock_b.now = t
+            if k == 1:
+                influxdb_v2.stop()  # the database goes away for a cycle
             if k == 2:
-                influxdb_v2.stop()  # the database goes away for two cycles
-            if k == 4:
                 influxdb_v2.start()
             reports.append(wb.run_cycle())  # never raises for a temporary outage
     finally:
         if not influxdb_v2.running:
             influxdb_v2.start()
-    assert [r.ok for r in reports] == [True, True, False, False, True]
-    assert "store unreachable" in reports[2].error
-    assert reports[4].chunks_done >= 2  # caught up from the checkpoint in chunks
+    assert [r.ok for r in reports] == [True, False, True]
+    assert "store unreachable" in reports[1].error
+    assert reports[2].chunks_done >= 2  # caught up from the checkpoint in chunks
     assert a.get_checkpoint(wa.checkpoint_name) == b.get_checkpoint(wb.checkpoint_name)
     results = assert_same_store_results(a, b)
     assert len(results["section_samples"]) > 50 and len(results["steady_windows"]) >= 2
     status = b.read_results(STATUS_MEASUREMENT, times[0], times[-1] + pd.Timedelta("1h"),
                             {**TAGS, "worker": wb.checkpoint_name})
-    assert len(status) >= 3  # heartbeats of the cycles the server was up for
+    # heartbeats of the cycles the server was up for (the store may deliver the one of the
+    # outage later, from its kept batch: then it says the cycle failed)
+    assert {times[0], times[2]} <= set(status.index)
+    assert status.loc[times[2], "ok"] == 1.0 and status.loc[times[2], "lag_s"] > 0
+    if times[1] in status.index:
+        assert status.loc[times[1], "ok"] == 0.0
     a.close()
     b.close()
 
