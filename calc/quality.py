@@ -375,7 +375,7 @@ def _noise_scale(values: np.ndarray, t: np.ndarray, block_ns: int) -> np.ndarray
         return np.full(n, np.nan)
     factor = MAD_TO_SIGMA / np.sqrt(2.0)
     step = _windows.regular_step(t)
-    if step is not None and block_ns % step == 0 and block_ns // step >= 2 and np.isfinite(values).all():
+    if step is not None and block_ns % step == 0 and block_ns // step >= 2:
         m = block_ns // step
         first_block_end = (t[0] // block_ns + 1) * block_ns
         in_first = int(-(-(first_block_end - t[0]) // step))  # samples of the first block
@@ -384,7 +384,17 @@ def _noise_scale(values: np.ndarray, t: np.ndarray, block_ns: int) -> np.ndarray
         grid = np.full(nb * m, np.nan)
         grid[pad : pad + n] = values
         rows = grid.reshape(nb, m)
-        d = np.abs(np.diff(rows, axis=1))
+        if np.isfinite(values).all():
+            d = np.abs(np.diff(rows, axis=1))
+        else:
+            # pair each finite sample with the previous finite one of its row (block)
+            fin = np.isfinite(rows)
+            col = np.where(fin, np.arange(m), -1)
+            last = np.maximum.accumulate(col, axis=1)
+            prev = last[:, :-1]
+            r_idx = np.arange(nb)[:, None]
+            d = np.abs(rows[:, 1:] - rows[r_idx, np.maximum(prev, 0)])
+            d[(prev < 0) | ~fin[:, 1:]] = np.nan
         d.sort(axis=1)  # NaN last
         c = np.isfinite(d).sum(axis=1)
         r = np.arange(nb)
