@@ -151,11 +151,10 @@ class SqliteStore(Store):
         def go(db):
             out = {}
             for m in mappings:
-                rows = db.execute(sql, (m.tag, lo, hi)).fetchall()
-                arr = np.array(rows, dtype=np.float64).reshape(-1, 2) if rows else np.empty((0, 2))
-                times = arr[:, 0].astype(np.int64) * _NS_PER_MS  # ms epochs are exact in float64
-                idx = pd.to_datetime(times, unit="ns", utc=True)
-                s = pd.Series(arr[:, 1], index=idx)
+                # cursor.fetchall() dominates (about 3/4 of the time, tests/bench/bench_stores.py).
+                got = pd.read_sql_query(sql, db, params=(m.tag, lo, hi), dtype={"time": "int64", "value": "float64"})
+                idx = pd.to_datetime(got["time"].to_numpy() * _NS_PER_MS, unit="ns", utc=True)
+                s = pd.Series(got["value"].to_numpy(), index=idx)
                 out[m.role] = s[(s.index >= start) & (s.index < end)]
             return out
 
