@@ -464,7 +464,7 @@ class Worker:
         that period and saved. Windows of the reference period itself get no deviation (see
         ``Pipeline``), so the results do not depend on the cycle in which the fit happened.
         """
-        if self._models:
+        if self._models is not None:
             return self._models
         saved = self._retry(lambda: self.store.load_state(self.baseline_state_name),
                             f"loading state {self.baseline_state_name!r}")
@@ -483,7 +483,8 @@ class Worker:
                               f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}")
         models, problems = self.pipeline.fit_baselines(windows)
         for line in problems:
-            logger.warning("unit %s: baseline over %s to %s not fitted for section %s", self.unit,
+            logger.warning("unit %s: baseline over %s to %s not fitted for section %s; no deviations "
+                           "for it until the worker restarts with a usable [baseline] period", self.unit,
                            ref_start.isoformat(), ref_end.isoformat(), line)
         if models:
             state = {"models": {sec: m.to_json() for sec, m in sorted(models.items())},
@@ -492,7 +493,7 @@ class Worker:
                         f"saving state {self.baseline_state_name!r}")
             logger.info("unit %s: baseline fitted on %d steady windows (%s to %s) for %s", self.unit,
                         len(windows), ref_start.isoformat(), ref_end.isoformat(), ", ".join(sorted(models)))
-            self._models = models
+        self._models = models  # also when empty: the reference windows are final, one try is enough
         return models
 
     def _flush(self, batch: Batch) -> None:

@@ -200,3 +200,61 @@ def test_spike_window_in_samples_follows_the_sample_spacing():
     idx = pd.date_range(utc("2025-01-01"), periods=10, freq="2min")
     assert spike_samples(idx, pd.Timedelta("15min")) == 9  # 7.5 -> 8 -> odd
     assert spike_samples(idx[:2], pd.Timedelta("15min")) == 15  # too short to tell: 1 min assumed
+
+
+# --- baseline deviation and alarms ----------------------------------------------------------
+
+@pytest.fixture(scope="module")
+def baseline_pipeline(tmp_path_factory):
+    # reference period: the first day of the history
+    extra = f"""
+[baseline]
+start = "{ws.START.isoformat()}"
+end = "{(ws.START + pd.Timedelta(days=1)).isoformat()}"
+"""
+    path = ws.write_config(tmp_path_factory.mktemp("cfgb") / "unit.toml",
+                           ws.store_toml("sqlite", path="unit.sqlite"), extra=extra)
+    return Pipeline(load_config(path))
+
+
+def test_deviation_from_a_fitted_baseline_only_after_the_reference_period(baseline_pipeline):
+    pl = baseline_pipeline
+    frame = ws.history(2.0, freq="5min")
+    ref_end = ws.START + pd.Timedelta(days=1)
+    ref = pl.process(_slice(frame, pl, ws.START, ref_end), ws.START, ref_end)
+    models, problems = pl.fit_baselines(ref.windows)
+    assert {"hp", "ip"} <= set(models), problems
+    s, e = ref_end - pd.Timedelta("3h"), ref_end + pd.Timedelta("12h")
+    r = pl.process(_slice(frame, pl, s, e), s, e, baselines=models)
+    assert len(r.deviation) > 0
+    assert (r.deviation.index >= ref_end).all()  # windows of the reference period get none
+    hp = r.deviation[r.deviation["section"] == "hp"]
+    # one day later the synthetic unit has lost about 0.4 points per 1000 h (its injected
+    # truth): nothing measurable, so the deviation is near zero
+    assert abs(hp["deviation"].median()) < 0.3
+    assert (hp["deviation_u"] > 0).all()
+    writes = {(m, t.get("section")) for m, _, t in r.writes({"unit": "u"})}
+    assert ("deviation", "hp") in writes and ("deviation", "ip") in writes
+
+
+def test_alarm_events_are_not_raised_twice_when_a_window_is_processed_again(pipeline):
+    frame = ws.history(1.0, freq="5min").copy()
+    s, e = ws.START + pd.Timedelta("6h"), ws.START + pd.Timedelta("14h")
+    frame.loc[(frame.index >= s + pd.Timedelta("1h")) & (frame.index < s + pd.Timedelta("3h")), "crossover_t"] = np.nan
+    sub = _slice(frame, pipeline, s, e)
+    first = pipeline.process(sub, s, e, alarm_state=None)
+    ev = first.alarm_events
+    raised = ev[(ev["rule"] == "data_quality") & (ev["section"] == "crossover_t") & (ev["kind"] == "raised")]
+    # the default data-quality limit is 1 h: raised one hour after the tag went missing
+    assert list(raised.index) == [s + pd.Timedelta("2h")]
+    import json
+
+    state = json.loads(json.dumps(first.alarm_state))  # as the store keeps it
+    again = pipeline.process(sub, s, e, alarm_state=state)
+    assert len(again.alarm_events) == 0  # nothing twice
+    # two halves from the saved state give the events of the whole
+    m = s + pd.Timedelta("2h30min")
+    a = pipeline.process(_slice(frame, pipeline, s, m), s, m, alarm_state=None)
+    b = pipeline.process(_slice(frame, pipeline, m, e), m, e, alarm_state=a.alarm_state)
+    both = pd.concat([a.alarm_events, b.alarm_events])
+    pd.testing.assert_frame_equal(both, ev)

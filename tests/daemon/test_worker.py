@@ -298,3 +298,21 @@ def test_stop_ends_the_work_between_chunks(config, pipeline, raw):
     report = worker.run_cycle(progress=progress)
     assert report.stopped and report.chunks_done == 1 and len(done) == 1
     assert store.checkpoints[worker.checkpoint_name] == done[0][1]
+
+
+def test_the_baseline_is_fitted_once_the_reference_period_is_done_and_deviations_follow(tmp_path):
+    first, ref_end = ws.START + pd.Timedelta("4h"), ws.START + pd.Timedelta("30h")
+    extra = f'[baseline]\nstart = "{first.isoformat()}"\nend = "{ref_end.isoformat()}"\n'
+    cfg = load_config(ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"),
+                                      extra=extra))
+    clock = ws.FakeClock(ref_end + pd.Timedelta("9h"))
+    store = ws.MemoryStore(ws.plant_history(2.0, freq="5min"), clock=clock)
+    worker = Worker.from_config(cfg, store, start_default=first, clock=clock, sleep=lambda s: None)
+    report = worker.run_cycle()
+    assert report.ok
+    assert any(e == ref_end for _, e in report.windows)  # a chunk ends exactly at the reference end
+    saved = store.load_state(worker.baseline_state_name)
+    assert {"hp", "ip"} <= set(saved["models"])
+    dev = store.read_results("deviation", ws.START, clock.now, {"unit": "Greywater Bend 2", "section": "hp"})
+    assert len(dev) > 0 and (dev.index >= ref_end).all()
+    assert abs(dev["deviation"].median()) < 0.3  # a day later: no measurable loss yet
