@@ -520,6 +520,22 @@ class Pipeline:
         """
         from isentrope.calc import alarms
 
+        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start)
+        if obs is None:
+            return _no_events(), (dict(state) if state else None)
+        new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
+        return events, new_state
+
+    def alarm_observations(self, windows, deviation, final_end, screen=None, start=None):
+        """The observation frame ``calc.alarms.evaluate_alarms`` reads for one window, or None.
+
+        Deviation per steady window and section, LP exhaust moisture per steady window, and
+        per mapped role 1/0 for a sample in ``[start, final_end)`` flagged bad by screening.
+        (A separate method so that ``isentrope.daemon.fleet`` can run the machines after the
+        partitions, in time order.)
+        """
+        from isentrope.calc import alarms
+
         parts = []
         if len(deviation):
             parts.append(pd.DataFrame({"time": deviation.index, "section": deviation["section"].to_numpy(),
@@ -542,10 +558,8 @@ class Pipeline:
                                                "quantity": alarms.QUANTITY_TAG_BAD, "value": bad[:, j],
                                                "steady": True}))
         if not parts:
-            return _no_events(), (dict(state) if state else None)
-        obs = pd.concat(parts, ignore_index=True)
-        new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
-        return events, new_state
+            return None
+        return pd.concat(parts, ignore_index=True)
 
 
 def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
