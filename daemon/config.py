@@ -298,7 +298,7 @@ class BaselineConfig:
     """Reference period for the expected-efficiency model (UTC); both None: not set yet.
 
     ``margin_percent``: how far outside the fitted load range a prediction is still given
-    [% of the range]; ``degree``: polynomial degree of the fit in load fraction [-].
+    [% of rating]; ``degree``: polynomial degree of the fit in load fraction [-].
     """
 
     start: pd.Timestamp | None = None
@@ -326,7 +326,7 @@ class AlarmsConfig:
     moisture_limit_percent: float = 12.0
     data_quality_limit: dt.timedelta = dt.timedelta(hours=1)
     cusum_k: float = 0.5
-    cusum_h: float = 5.0
+    cusum_h: float = 8.0  # about 7.5 % false steps per 500 windows of pure noise (calc.trend tests)
 
 
 @dataclass(frozen=True)
