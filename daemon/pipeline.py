@@ -51,7 +51,10 @@ _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 
 
 def _td(value) -> pd.Timedelta:
-    return pd.Timedelta(value) if not isinstance(value, pd.Timedelta) else value
+    """A duration: "15m", "2h", "1d", a timedelta or a Timedelta."""
+    from isentrope.daemon.worker import as_timedelta
+
+    return as_timedelta(value)
 
 
 @dataclass
@@ -265,6 +268,9 @@ class Pipeline:
         baro = config.screening.barometric_kpa
         if baro is None:
             baro = units.STANDARD_ATMOSPHERE_KPA
+        # Instrument ranges in internal units for calc.quality. A gauge range is referred to the
+        # configured constant barometric pressure (or the standard atmosphere): a range is a
+        # coarse limit, a few kPa of weather do not matter to it.
         self.ranges: dict[str, tuple[float, float]] = {}
         for role, m in config.roles.items():
             if m.range is None:
