@@ -22,6 +22,7 @@ missing the tests that need it skip with a message saying how to get it, unless
 
 from __future__ import annotations
 
+import base64
 import itertools
 import os
 import shutil
@@ -195,10 +196,10 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         params = {"q": q, "epoch": "ns"}
         if db:
             params["db"] = db
+        req = urllib.request.Request(self.url + "/query", data=urllib.parse.urlencode(params).encode())
         if auth:
-            params["u"], params["p"] = auth
-        data = urllib.parse.urlencode(params).encode()
-        with urllib.request.urlopen(self.url + "/query", data=data, timeout=30) as resp:
+            req.add_header("Authorization", "Basic " + base64.b64encode(f"{auth[0]}:{auth[1]}".encode()).decode())
+        with urllib.request.urlopen(req, timeout=30) as resp:
             body = json.loads(resp.read())
         for result in body.get("results", []):
             if "error" in result:
@@ -227,7 +228,11 @@ def start_influxd(what: str, binary: str, tmp_root: Path, *, flux: bool, auth: b
     server = InfluxServer(binary, tmp_root, flux=flux, auth=auth)
     if flux and not server.version.startswith("1.8"):
         missing_server(what, f"{binary} is influxd {server.version}, not 1.8.x (needed for the v2 API)")
-    return server.start()
+    try:
+        return server.start()
+    except BaseException:
+        server.kill()
+        raise
 
 
 @pytest.fixture(scope="session")

@@ -30,6 +30,7 @@ Token: ``token`` itself, or the name of an environment variable (``token_env``) 
 from __future__ import annotations
 
 import io
+from pathlib import Path
 import json
 import os
 from collections.abc import Mapping, Sequence
@@ -120,7 +121,7 @@ class Influx2Store(Store):
             token = os.environ[token_env]
         if not token and token_file:
             try:
-                token = open(token_file, encoding="utf-8").read().strip()
+                token = Path(token_file).read_text(encoding="utf-8").strip()
             except OSError as exc:
                 raise ValueError(f"token_file {token_file!r} cannot be read: {exc.strerror}") from None
         self.url = url.rstrip("/")
