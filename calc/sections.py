@@ -137,7 +137,7 @@ _ELEP_MAX_ITER = 30
 # integer, four bits per group (see decode_reason).
 # --------------------------------------------------------------------------------------------
 OK = 0
-MISSING_INPUT = 1  #: an input is NaN
+MISSING_INPUT = 1  #: an input is NaN or infinite
 OUT_OF_RANGE = 2  #: outside the steam-property validity, or not positive
 PRESSURE_NOT_FALLING = 3  #: outlet pressure at or above inlet pressure
 INLET_NOT_SUPERHEATED = 4  #: inlet at or below saturation: p and T do not fix its state
@@ -153,7 +153,7 @@ UPSTREAM_INVALID = 13  #: a figure this one is derived from is NaN
 
 REASON_TEXT = {
     OK: "ok",
-    MISSING_INPUT: "an input is missing (NaN)",
+    MISSING_INPUT: "an input is missing (NaN) or infinite",
     OUT_OF_RANGE: "input outside the IF97 validity range or not positive",
     PRESSURE_NOT_FALLING: "outlet pressure not below inlet pressure",
     INLET_NOT_SUPERHEATED: "inlet at or below saturation (pressure and temperature do not fix it)",
@@ -244,7 +244,8 @@ class _Shape:
         if index is not None and len(self.shape) != 1:
             raise ValueError(f"Series arguments broadcast to shape {self.shape}; expected one dimension")
         self.scalar = self.shape == () and index is None
-        self.flat = [np.array(a, dtype=float).ravel() for a in b]
+        # +/-inf is treated like a missing value (NaN, reason MISSING_INPUT).
+        self.flat = [np.where(np.isinf(a), np.nan, a).astype(float).ravel() for a in b]
 
     def restore(self, a):
         a = np.asarray(a)
@@ -1035,7 +1036,8 @@ class InstrumentUncertainty:
     def of(self, reading):
         """Standard uncertainty at ``reading`` [internal unit]."""
         r = np.asarray(reading, dtype=float)
-        return np.hypot(self.absolute, self.relative * np.abs(r))
+        with np.errstate(invalid="ignore", over="ignore"):
+            return np.hypot(self.absolute, self.relative * np.abs(r))
 
 
 def default_uncertainties():
@@ -1340,9 +1342,10 @@ def _column(frame, role, n):
     if role in frame.columns:
         col = frame[role]
         try:
-            return col.to_numpy(dtype=float, na_value=np.nan)
+            a = col.to_numpy(dtype=float, na_value=np.nan)
         except (TypeError, ValueError) as exc:
             raise ValueError(f"frame column {role!r}: expected numbers, found dtype {col.dtype}") from exc
+        return np.where(np.isinf(a), np.nan, a)  # +/-inf counts as missing
     return np.full(n, np.nan)
 
 
