@@ -220,7 +220,7 @@ def evaluate_test(
             f"sub-period of {sp}"
         )
     run_end = run_start + n_sub * sp
-    notes = [f"first {stab} dropped as stabilisation"]
+    notes = [f"first {stab.total_seconds() / 3600.0:g} h dropped as stabilisation"]
     if run_end < t1:
         notes.append(f"last {t1 - run_end} dropped: shorter than one sub-period of {sp}")
 

@@ -12,4 +12,5 @@ COMMAND_MODULES: list[str] = [
     "isentrope.daemon.commands.export",
     "isentrope.daemon.commands.demo",
     "isentrope.daemon.commands.report",
+    "isentrope.daemon.commands.test_eval",
 ]

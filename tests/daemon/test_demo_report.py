@@ -163,3 +163,38 @@ def test_dashboard_is_json_and_names_only_series_the_worker_writes(demo_dir):
         assert not missing, f"{m}: fields {sorted(missing)} are not written (written: {sorted(tables[m])})"
         for tag in re.findall(r'"(unit|section|rule)"\s*(?:=|=~)', q):
             assert tag in tables[m], f"{m} has no tag {tag}"
+
+
+def test_test_eval_on_a_plateau_agrees_with_the_online_trend(demo_dir, capsys):
+    # A five-hour stretch of consecutive steady windows at one load stands in for a routine
+    # test; its sub-period figures are computed from averaged readings and must agree with the
+    # online steady-window trend of the same instruments within the combined U95.
+    con = sqlite3.connect(demo_dir / "greywater2.sqlite")
+    try:
+        w = pd.read_sql("SELECT time, gross_output FROM steady_windows ORDER BY time", con)
+    finally:
+        con.close()
+    w["time"] = pd.to_datetime(w["time"], unit="ms", utc=True)
+    start = None
+    for i in range(len(w) - 5):
+        part = w.iloc[i:i + 6]
+        span = part["time"].iloc[-1] - part["time"].iloc[0]
+        if span <= pd.Timedelta(hours=5, minutes=30) and part["gross_output"].max() - part["gross_output"].min() < 3:
+            start = part["time"].iloc[0].floor("h")
+            break
+    assert start is not None, "no steady plateau of 5 h in the demo history"
+    end = start + pd.Timedelta(hours=5)
+    prefix = demo_dir / "routine"
+    rc = cli.main(["test-eval", "-c", str(demo_dir / "greywater2.toml"), "--start", start.isoformat(),
+                   "--end", end.isoformat(), "-o", str(prefix)])
+    out = capsys.readouterr().out
+    assert "not a protective function" in out
+    result = pd.read_csv(f"{prefix}_result.csv", index_col=0)
+    sub = pd.read_csv(f"{prefix}_sub_periods.csv", index_col=0)
+    assert len(sub) == 4  # 5 h minus the 1 h stabilisation, in 1 h sub-periods
+    if rc == 0:
+        hp = result.loc["hp_efficiency"]
+        assert 0.80 < hp["mean"] < 0.90
+        assert bool(hp["agrees"]) is True
+    else:  # every sub-period failed the PTC 6 fluctuation limits: status says so
+        assert rc == 1 and not sub["passed"].any()
