@@ -154,6 +154,8 @@ def check_tags(tags: Mapping[str, str] | None) -> dict[str, str]:
     out = {}
     for k, v in (tags or {}).items():
         check_name(k, "tag key")
+        if k in ("time", "_measurement", "_field", "_value", "_time", "_start", "_stop"):
+            raise ValueError(f"tag key {k!r} is reserved by InfluxDB; choose another tag key")
         if not isinstance(v, str):
             raise ValueError(f"tag {k!r} value must be a string, found {type(v).__name__} {v!r}")
         check_name(v, f"tag {k!r} value")

@@ -11,9 +11,10 @@ response hides "database not found", so the database is checked once (and again 
 comes back empty) with a JSON ``SHOW RETENTION POLICIES``.
 
 Writes: line protocol in batches of ``batch_size`` lines, ``precision=ns``. A failed batch
-raises ``TemporaryStoreError`` or ``FatalStoreError``; the lines not yet written (that batch and
-the rest) are kept in ``pending`` and written first by the next write call, so nothing is
-lost; writing them again is harmless because writes are idempotent.
+raises ``TemporaryStoreError`` or ``FatalStoreError`` with the lines not yet written (that batch
+and the rest) on ``err.unwritten``; after a temporary failure they are also kept in ``pending``
+and written first by the next write call, so nothing is lost while the server is away (writing
+them again is harmless: writes are idempotent).
 
 Checkpoints and state are points of the measurement ``isentrope_worker`` (see
 ``influx_common.STATE_MEASUREMENT``).
@@ -24,6 +25,7 @@ from __future__ import annotations
 import csv
 import io
 import json
+import threading
 from collections.abc import Mapping, Sequence
 
 import numpy as np
@@ -38,6 +40,7 @@ from isentrope.daemon.stores.influx_common import (
     StateClock,
     batches,
     classify_http,
+    keep_unwritten,
     raw_lines,
     result_lines,
     state_line,
@@ -100,6 +103,7 @@ class Influx1Store(Store):
         self.batch_size = int(batch_size)
         self.read_chunk = pd.Timedelta(read_chunk)
         self.pending: list[str] = []
+        self._write_lock = threading.Lock()
         self._clock = StateClock()
         self._db_checked = False
         self._session = requests.Session()
@@ -213,6 +217,10 @@ class Influx1Store(Store):
         return samples
 
     def _write(self, lines: list[str], what: str) -> None:
+        with self._write_lock:  # the worker may write from scheduler threads
+            self._write_locked(lines, what)
+
+    def _write_locked(self, lines: list[str], what: str) -> None:
         params = {"db": self.database, "precision": "ns"}
         if self.retention_policy:
             params["rp"] = self.retention_policy
@@ -222,8 +230,8 @@ class Influx1Store(Store):
             batch = todo[i : i + self.batch_size]
             try:
                 self._request("POST", "/write", what, params=params, data="\n".join(batch).encode())
-            except (TemporaryStoreError, FatalStoreError):
-                self.pending = todo[i:]
+            except (TemporaryStoreError, FatalStoreError) as err:
+                keep_unwritten(self, err, todo[i:])
                 raise
 
     # --- results -------------------------------------------------------------------------

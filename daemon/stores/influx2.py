@@ -20,8 +20,9 @@ The window is split into ``read_chunk`` pieces.
 
 Writes: the client's synchronous write API, ``batch_size`` lines per request, with the client's
 retry (``WritesRetry``: 429/503 and connection errors, short exponential backoff). A batch that
-still fails raises ``TemporaryStoreError``/``FatalStoreError`` and its lines (with the rest) stay
-in ``pending`` for the next write call.
+still fails raises ``TemporaryStoreError``/``FatalStoreError`` with its lines (and the rest) on
+``err.unwritten``; after a temporary failure they also stay in ``pending`` and go first in the
+next write call.
 
 Token: ``token`` itself, or the name of an environment variable (``token_env``) or a file
 (``token_file``) holding it; it never appears in ``repr`` or an error message.
@@ -32,6 +33,7 @@ from __future__ import annotations
 import io
 from pathlib import Path
 import json
+import threading
 import os
 from collections.abc import Mapping, Sequence
 
@@ -52,6 +54,7 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     StateClock,
     classify_http,
+    keep_unwritten,
     raw_lines,
     result_lines,
     state_line,
@@ -131,6 +134,7 @@ class Influx2Store(Store):
         self.batch_size = int(batch_size)
         self.read_chunk = pd.Timedelta(read_chunk)
         self.pending: list[str] = []
+        self._write_lock = threading.Lock()
         self._clock = StateClock()
         retry = WritesRetry(total=retries, retry_interval=0.2, max_retry_delay=2, max_retry_time=max(5.0, self.timeout),
                             exponential_base=2)
@@ -229,6 +233,10 @@ class Influx2Store(Store):
         return samples
 
     def _write(self, lines: list[str], what: str) -> None:
+        with self._write_lock:  # the worker may write from scheduler threads
+            self._write_locked(lines, what)
+
+    def _write_locked(self, lines: list[str], what: str) -> None:
         todo = self.pending + list(lines)
         self.pending = []
         for i in range(0, len(todo), self.batch_size):
@@ -237,8 +245,9 @@ class Influx2Store(Store):
                 self._write_api.write(bucket=self.bucket, org=self.org or "-", record="\n".join(batch),
                                       write_precision=WritePrecision.NS)
             except self._CAUGHT as exc:
-                self.pending = todo[i:]
-                raise self._error(exc, what) from None
+                err = self._error(exc, what)
+                keep_unwritten(self, err, todo[i:])
+                raise err from None
 
     # --- results -------------------------------------------------------------------------
     def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:

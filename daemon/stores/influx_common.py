@@ -37,6 +37,17 @@ def classify_http(status: int, body: str, what: str) -> Exception:
     return FatalStoreError(msg)
 
 
+def keep_unwritten(store, err: Exception, lines: list[str]) -> None:
+    """After a failed batch: the lines not written (that batch and the rest) go on ``err.unwritten``.
+
+    A temporary failure also keeps them in ``store.pending``, sent first by the next write, so
+    nothing is lost while the server is away. A fatal one does not (the same lines would fail
+    again and block every later write); the caller gets them on the exception.
+    """
+    err.unwritten = list(lines)
+    store.pending = list(lines) if isinstance(err, TemporaryStoreError) else []
+
+
 def _format_column(values: np.ndarray) -> list[str | None]:
     """repr() of each finite value (shortest exact form), None for NaN."""
     return [repr(v) if v == v else None for v in values.tolist()]

@@ -339,9 +339,10 @@ def test_missing_database_is_fatal(case, tmp_path):
         wrong = case.other(database="no_such_db")
     with pytest.raises(FatalStoreError):
         wrong.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
-    with pytest.raises(FatalStoreError):
+    with pytest.raises(FatalStoreError) as err:
         wrong.write_raw(mappings(), raw_frame(n=2))
-    assert len(wrong.pending) == 4  # 2 times x 2 series: the batch is kept, not dropped
+    assert len(err.value.unwritten) == 4  # 2 times x 2 series, handed back to the caller
+    assert not wrong.pending  # not retried: it would fail again and block later writes
     with pytest.raises(FatalStoreError):
         wrong.write_results("sections", results_frame(n=2), {"unit": "U7"})
     if case.name.startswith("influx1"):
@@ -372,6 +373,7 @@ def test_stopped_server_is_temporary_and_nothing_is_lost(case):
         with pytest.raises(TemporaryStoreError):
             case.store.write_raw(mappings(), frame)
         assert case.store.pending, "the failed batch must be kept"
+        assert len(case.store.pending) == 8  # 4 times x 2 series
         with pytest.raises(TemporaryStoreError):
             case.store.get_checkpoint("U7-worker")
     finally:
