@@ -55,6 +55,11 @@ P_CRIT = 22.064
 #: Critical temperature of water [K]. IAPWS R7-97(2012) (Tc = 647.096 K).
 T_CRIT = 647.096
 
+#: Highest temperature accepted at a section boundary [K]: the upper limit of IF97 regions 1-3
+#: (R7-97(2012) section 4). Region 5 (to 2273.15 K) is for gas-turbine temperatures, far above
+#: any steam turbine's, and costs a point-by-point fallback: treated as out of range here.
+T_MAX = 1073.15
+
 #: Default Baumann coefficient ``a`` [-]: wet-stage efficiency = dry efficiency
 #: x (1 - a * mean wetness). Baumann rule, a about 1 (REFERENCES.md, from memory).
 BAUMANN_DEFAULT = 1.0
@@ -325,6 +330,7 @@ def _section_core(p_in, t_in, p_out, t_out):
     _mark(reason, ~finite, MISSING_INPUT)
     with np.errstate(invalid="ignore"):
         _mark(reason, (p_in <= 0) | (p_out <= 0) | (t_in <= 0) | (t_out <= 0), OUT_OF_RANGE)
+        _mark(reason, (t_in > T_MAX) | (t_out > T_MAX), OUT_OF_RANGE)
         _mark(reason, p_out >= p_in, PRESSURE_NOT_FALLING)
     ok = reason == OK
     _mark(reason, ok & ~_superheated(p_in, t_in, ok), INLET_NOT_SUPERHEATED)
@@ -379,7 +385,8 @@ def section_expansion(p_in, t_in, p_out, t_out):
 
     Notes
     -----
-    A point is invalid (NaN, with its reason) when an input is NaN or not positive, when
+    A point is invalid (NaN, with its reason) when an input is NaN, infinite or not positive,
+    when a temperature is above 1073.15 K (``T_MAX``), when
     ``p_out >= p_in``, when the inlet or the outlet is at or below saturation (their p and T
     then do not fix the state), outside IF97 validity, or when the actual or isentropic drop
     is not positive. Efficiencies above 1 (outlet entropy below inlet entropy, usually an
@@ -610,7 +617,7 @@ def _lp_core(p_in, t_in, p_exh, eta, a, exhaust_sat=None):
     finite = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_exh)
     _mark(reason, ~finite, MISSING_INPUT)
     with np.errstate(invalid="ignore"):
-        _mark(reason, (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (p_in > LP_P_MAX), OUT_OF_RANGE)
+        _mark(reason, (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (t_in > T_MAX) | (p_in > LP_P_MAX), OUT_OF_RANGE)
         _mark(reason, p_exh >= p_in, PRESSURE_NOT_FALLING)
         _mark(reason, ~(np.isfinite(eta) & (eta > 0) & (eta <= 1)), NO_DRY_EFFICIENCY)
     ok = reason == OK
@@ -1404,7 +1411,7 @@ def _lp_figures(inp, cfg):
         fin = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_exh)
         _mark(ue_reason, ~fin, MISSING_INPUT)
         with np.errstate(invalid="ignore"):
-            _mark(ue_reason, (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (p_in >= P_CRIT), OUT_OF_RANGE)
+            _mark(ue_reason, (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (t_in > T_MAX) | (p_in > LP_P_MAX), OUT_OF_RANGE)
             _mark(ue_reason, p_exh >= p_in, PRESSURE_NOT_FALLING)
         ok = ue_reason == OK
         _mark(ue_reason, ok & ~_superheated(p_in, t_in, ok), INLET_NOT_SUPERHEATED)
@@ -1745,6 +1752,7 @@ __all__ = [
     "BAUMANN_MAX",
     "DEFAULT_UNCERTAINTY_BY_QUANTITY",
     "LP_P_MAX",
+    "T_MAX",
     "ROLE_QUANTITY",
     "DEFAULT_EXHAUST_LOSS_CURVE",
     "DEFAULT_EXHAUST_LOSS_POINTS",

@@ -228,6 +228,8 @@ def test_lp_expansion_dry_exhaust():
         ((3.0, 673.15, 0.1, 350.0), S.OUTLET_NOT_SUPERHEATED),  # 0.1 MPa, Tsat 372.76 K (Table 35)
         ((3.0, 673.15, 1.0, 700.0), S.NO_ENTHALPY_DROP),  # outlet hotter than inlet
         ((3.0, 2400.0, 1.0, 700.0), S.OUT_OF_RANGE),  # above 2273.15 K, the IF97 limit (R7-97 section 4)
+        ((3.0, 1200.0, 1.0, 700.0), S.OUT_OF_RANGE),  # region 5: not a steam-turbine state (T_MAX)
+        ((3.0, 673.15, 1.0, np.inf), S.MISSING_INPUT),
     ],
 )
 def test_impossible_expansions_are_nan_with_reason(args, code):
@@ -622,3 +624,24 @@ def test_golden_case():
         codes = S.decode_reason(r)
         for group in ("hp", "ip", "lp_dry", "lp"):
             assert codes[group] == getattr(S, expected.loc[row, f"{group}_reason"]), (row, group)
+
+
+def test_every_nan_figure_has_a_reason_and_no_row_is_lost():
+    # Garbage in (random scale errors, NaN, 0, negative, inf, absurd values): never an
+    # exception or a warning, one output row per input row, and a figure is NaN exactly where
+    # its group's reason code is set.
+    rng = np.random.default_rng(5)
+    n = 200
+    f = _unit_frame(n, lp_extraction_p=0.25, lp_extraction_t=478.15)
+    f = f * np.exp(rng.normal(0.0, 0.6, f.shape))
+    for col in f.columns:
+        m = rng.random(n) < 0.05
+        f.loc[m, col] = rng.choice([np.nan, 0.0, -1.0, np.inf, 1e6], m.sum())
+    kw = dict(annulus_area=30.0, lp_exhaust_flow_fraction=0.65, uncertainty=False)
+    for extra in (dict(lp_mode="expansion"), dict(flow_fractions={"hp": 1.0, "ip": 0.9, "lp": 0.75}, losses_mw=5.0)):
+        out = S.evaluate(f, **kw, **extra).to_frame()
+        assert out.index.equals(f.index)
+        for group, col in (("hp", "hp_efficiency"), ("ip", "ip_efficiency"), ("lp_dry", "lp_dry_efficiency"),
+                           ("lp", "lp_elep"), ("lp_ueep", "lp_ueep")):
+            codes = out.reason.map(lambda v, g=group: S.decode_reason(v)[g])
+            assert ((codes != S.OK) == out[col].isna()).all(), (group, extra)
