@@ -280,11 +280,16 @@ class Pipeline:
             self.ranges[role] = (min(lo, hi), max(lo, hi))
         st, sc = config.steady, config.screening
         # calc.quality's flatline flags a whole flat stretch once it has lasted ``flatline``,
-        # and its Hampel spike window is centred: both look ahead as well as back. calc.steady
-        # marks a sample steady when a trailing ``window`` that *covers* it passes, so it looks
-        # ahead by one window too. A window's results are final once this much data before
-        # and after it has been seen (the steady-window clock bucket and a gap added before).
-        look = _td(st.window) + _td(sc.flatline) + _td(sc.spike_window)
+        # its Hampel spike window is centred and its spike noise level comes from the clock
+        # block (SPIKE_SCALE_BLOCK, 1 h from the epoch) around a sample: each looks ahead as
+        # well as back. calc.steady marks a sample steady when a trailing ``window`` that
+        # *covers* it passes, so it looks ahead by one window too. A window's results are
+        # final once this much data before and after it has been seen (plus, before, one
+        # steady-window clock bucket and a gap).
+        from isentrope.calc import quality
+
+        spike = max(_td(sc.spike_window), _td(getattr(quality, "SPIKE_SCALE_BLOCK", "0s")))
+        look = _td(st.window) + _td(sc.flatline) + spike
         self._before = look + _td(st.max_length) + _td(st.max_gap)
         self._after = look
 

@@ -127,7 +127,7 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
         store.write_raw(config.mappings, raw)
         return config, store
 
-    times = [ws.START + pd.Timedelta("9h") + k * pd.Timedelta("1h30min") for k in range(3)]
+    times = [ws.START + pd.Timedelta("10h") + k * pd.Timedelta("2h") for k in range(3)]
 
     def worker(config, store, clock):
         return Worker.from_config(config, store, pipeline=pipeline, start_default=FIRST, clock=clock,

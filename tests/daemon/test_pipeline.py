@@ -96,9 +96,10 @@ def _slice(frame, pipeline, s, e):
 
 def test_margins_cover_the_look_ahead_and_look_back_of_the_screens(pipeline):
     before, after = pipeline.margins
-    # steady window 30m + flatline 2h + spike window 15m, and one 1h bucket + 5m gap before
-    assert after == pd.Timedelta("2h45min")
-    assert before == pd.Timedelta("3h50min")
+    # steady window 30m + flatline 2h + spike noise block 1h (longer than the 15m spike
+    # window), and before also one 1h steady bucket + a 5m gap
+    assert after == pd.Timedelta("3h30min")
+    assert before == pd.Timedelta("4h35min")
 
 
 def test_results_are_for_the_window_only_and_carry_flags_and_figures(pipeline):
@@ -149,11 +150,6 @@ def test_processing_in_chunks_equals_processing_in_one_go(pipeline):
     assert len(whole.windows) >= 3
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "calc.quality's spike test takes its noise scale over blocks of 60 samples counted from the "
-    "first sample of the frame, so a sample near the spike threshold can be flagged or not "
-    "depending on where the chunk's frame starts (found here: 4 of 422 samples); the fix "
-    "belongs in calc/quality.py (blocks on fixed clock boundaries)"))
 def test_processing_in_chunks_equals_processing_in_one_go_across_faults(pipeline):
     frame = ws.history(2.0, faults=True, freq="5min")  # a trip, a flatline, a data gap, a spike burst
     S, E = ws.START + pd.Timedelta("4h"), ws.START + pd.Timedelta("44h")
