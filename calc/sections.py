@@ -740,6 +740,13 @@ def lp_expansion(p_in, t_in, p_exhaust, eta_dry, baumann=BAUMANN_DEFAULT):
     ValueError
         When ``baumann`` is not one number in [0, 3], or an argument is not numeric.
 
+    Notes
+    -----
+    Invalid points are NaN with a reason code (scalars too): inlet not superheated, exhaust
+    pressure not below inlet pressure, inlet above ``LP_P_MAX`` (16.5 MPa) or ``T_MAX``
+    (1073.15 K), ``eta_dry`` outside (0, 1]. The crossing is found on a saturation table
+    (see ``_SAT_TABLE_N``); everything else uses isentrope.calc.steam directly.
+
     References
     ----------
     Baumann rule (REFERENCES.md, from memory). IAPWS R7-97(2012) for the properties.
