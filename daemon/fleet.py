@@ -1,0 +1,311 @@
+"""Fleet backfill: many units and years, partitioned by (unit, month), executed on Dask.
+
+``run_fleet(client, config_paths, start, end)`` cuts each unit's period into partitions on
+calendar-month boundaries (UTC; ``period`` changes the length) and runs them on a
+``dask.distributed.Client``: a ``LocalCluster`` on one machine, or the address of an existing
+scheduler (``isentrope fleet-backfill --scheduler tcp://host:8786``). Workers share nothing but
+the stores named in the units' configurations; every task opens its own store connection.
+
+How a partition stays independent and idempotent:
+
+* Each partition is a ``Worker`` backfill of ``[start, end)`` under its own checkpoint name
+  ``fleet/<unit>/<start>-<end>``. It reads its period plus the pipeline margins
+  (``Pipeline.margins``) and writes results inside its period only (the pipeline returns
+  results for the window and nothing else), with the stores' idempotent writes.
+* Baseline: deviations need the baseline model, which is fitted on the steady windows of the
+  reference period ``[baseline] start..end``. Partitions are also cut at ``[baseline] end``
+  and run in two phases per unit: the partitions that end at or before it first (they give no
+  deviation, as in a sequential backfill), then one task fits and saves the model (state
+  ``baseline/<unit>``, exactly as ``Worker`` does; a model already saved is used as it is
+  unless ``refit=True``), then every later partition in parallel.
+* Alarms: the state machines of ``calc.alarms`` carry state from one observation to the next
+  (a data-quality streak or a raised deviation alarm crosses month ends), so they cannot run
+  per partition. Each partition returns its alarm observations (``Pipeline.alarm_observations``)
+  instead of evaluating them; one small task per partition then runs the machines in time order,
+  chained per unit (each starts from the state the previous one left), writes the events and
+  saves the state as ``fleet/<unit>/<start>-<end>`` (state name = the partition name). That
+  saved state is the partition's completion record: a re-run skips every partition that has
+  it and starts the chain of a unit from the last one saved. Because ``evaluate_alarms`` gives
+  the same events however a batch is split, the events equal those of a sequential backfill.
+
+The result of a unit equals a plain sequential ``isentrope backfill`` cut at the same instants
+(tests/daemon/test_fleet.py); a different chunking changes at most the last bits of a figure
+(see DEVELOPERS.md "How results stay identical however time is cut").
+
+Results are advisory performance information, not a protective function.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+from dataclasses import dataclass, field
+
+import pandas as pd
+
+from isentrope.daemon.pipeline import Pipeline, _no_events
+
+logger = logging.getLogger("isentrope.fleet")
+
+#: Default partition length: calendar months (pandas offset alias "MS", month starts, UTC).
+DEFAULT_PERIOD = "MS"
+
+
+def _utc(t) -> pd.Timestamp:
+    ts = pd.Timestamp(t)
+    if ts.tzinfo is None:
+        raise ValueError(f"time {t!r} has no time zone; expected a UTC time such as '2025-01-01T00:00Z'")
+    return ts.tz_convert("UTC")
+
+
+@dataclass(frozen=True)
+class Partition:
+    """One unit's period ``[start, end)`` (UTC).
+
+    Attributes
+    ----------
+    config_path : str
+        The unit's configuration file (read again by the task on its worker).
+    unit : str
+        ``[unit] name``.
+    start, end : pandas.Timestamp
+        The period (UTC).
+    phase : int
+        1: ends at or before ``[baseline] end`` (runs before the baseline fit); 2: after.
+    """
+
+    config_path: str
+    unit: str
+    start: pd.Timestamp
+    end: pd.Timestamp
+    phase: int
+
+    @property
+    def name(self) -> str:
+        """Checkpoint and completion-state name of the partition."""
+        return f"fleet/{self.unit}/{self.start:%Y%m%dT%H%M%SZ}-{self.end:%Y%m%dT%H%M%SZ}"
+
+
+def plan_partitions(config_path: str, config, start, end, period=DEFAULT_PERIOD) -> list[Partition]:
+    """Partitions of one unit: ``[start, end)`` cut at every ``period`` boundary and at
+    ``[baseline] end``.
+
+    Parameters
+    ----------
+    config_path : str
+        The unit's configuration file.
+    config : isentrope.daemon.config.Config
+        The same, loaded.
+    start, end : timestamp
+        The period to backfill (UTC).
+    period : str
+        pandas offset alias of the partition boundaries: "MS" (month starts, default), "7D",
+        "1D", ... Fixed offsets are counted from the Unix epoch, so cuts do not depend on
+        ``start``.
+
+    Returns
+    -------
+    list of Partition
+        In time order.
+    """
+    start, end = _utc(start), _utc(end)
+    if end <= start:
+        raise ValueError(f"end ({end.isoformat()}) must be after start ({start.isoformat()})")
+    offset = pd.tseries.frequencies.to_offset(period)
+    if isinstance(offset, pd.offsets.Tick):  # fixed length: boundaries on multiples from the epoch
+        step = pd.Timedelta(offset)
+        epoch = pd.Timestamp("1970-01-01", tz="UTC")
+        first = epoch + ((start - epoch) // step + 1) * step
+        edges = set(pd.date_range(first, end, freq=step, inclusive="left"))
+    else:
+        edges = set(pd.date_range(start, end, freq=offset, inclusive="neither"))
+    ref_end = config.baseline.end
+    ref_end = None if ref_end is None else _utc(ref_end)
+    if ref_end is not None and start < ref_end < end:
+        edges.add(ref_end)
+    cuts = [start, *sorted(t for t in edges if start < t < end), end]
+    return [Partition(str(config_path), config.unit.name, a, b,
+                      1 if ref_end is not None and b <= ref_end else 2)
+            for a, b in zip(cuts[:-1], cuts[1:])]
+
+
+class _ObservingPipeline(Pipeline):
+    """The pipeline with the alarm machines deferred: each window's observations are kept."""
+
+    def __init__(self, config):
+        super().__init__(config)
+        self.observations: list[pd.DataFrame] = []
+
+    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None):
+        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start)
+        if obs is not None:
+            obs["section"] = obs["section"].astype("category")  # smaller between processes
+            obs["quantity"] = obs["quantity"].astype("category")
+            self.observations.append(obs)
+        return _no_events(), None
+
+
+def _open(config_path: str):
+    from isentrope.daemon.config import load_config
+    from isentrope.daemon.stores import open_store
+
+    config = load_config(config_path)
+    return config, open_store(config.store.kind, **config.store.open_options())
+
+
+def compute_partition(part: Partition, chunk=None, *_after) -> dict:
+    """Task: backfill one partition (everything but the alarm machines).
+
+    Returns ``{"skipped": bool, "rows_read": int, "seconds": float, "observations": frame or
+    None}``. A partition whose completion state exists is skipped. ``chunk`` is the worker's
+    chunk inside the partition (default ``[schedule] chunk``); ``_after`` are futures this
+    task waits for (the baseline fit).
+    """
+    from isentrope.daemon.worker import Worker
+
+    t0 = time.perf_counter()
+    config, store = _open(part.config_path)
+    try:
+        if store.load_state(part.name):
+            return {"skipped": True, "rows_read": 0, "seconds": time.perf_counter() - t0, "observations": None}
+        pipeline = _ObservingPipeline(config)
+        # restart the partition from its start: its alarm observations are not stored, so a
+        # partition computed but not completed (killed before its alarm task) runs again whole
+        store.set_checkpoint(part.name, part.start)
+        worker = Worker.from_config(config, store, checkpoint_name=part.name, start_default=part.start,
+                                    lookback="0s", settle="0s", pipeline=pipeline,
+                                    **({} if chunk is None else {"chunk": chunk}))
+        report = worker.run_cycle(until=part.end)
+        if not report.ok:
+            raise RuntimeError(f"partition {part.name}: {report.error}")
+        obs = pd.concat(pipeline.observations, ignore_index=True) if pipeline.observations else None
+        return {"skipped": False, "rows_read": report.rows_read, "seconds": time.perf_counter() - t0,
+                "observations": obs}
+    finally:
+        store.close()
+
+
+def fit_baseline(config_path: str, refit: bool = False, *_after) -> list[str]:
+    """Task: fit and save ``baseline/<unit>`` from the stored reference-period windows, the
+    way ``Worker`` does for a sequential backfill. Returns the sections fitted."""
+    from isentrope.daemon.worker import Worker
+
+    config, store = _open(config_path)
+    try:
+        worker = Worker.from_config(config, store, checkpoint_name=f"fleet/{config.unit.name}/baseline")
+        if refit:
+            store.save_state(worker.baseline_state_name, {})
+        period = worker._baseline_period()
+        if period is None:
+            return []
+        return sorted(worker._baselines(period[1]))
+    finally:
+        store.close()
+
+
+def alarm_partition(part: Partition, previous: dict | None, computed: dict) -> dict:
+    """Task: run the alarm machines over one partition's observations, starting from the
+    state ``previous`` left (None: the state saved by the partition before, or fresh), write the
+    events and save the completion state. Returns the alarm state."""
+    from isentrope.calc import alarms
+    from isentrope.daemon.pipeline import CycleResults
+
+    config, store = _open(part.config_path)
+    try:
+        done = store.load_state(part.name)
+        if done:
+            return done.get("alarms") or {}
+        state = previous or {}
+        obs = computed.get("observations")
+        empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
+        if obs is not None and len(obs):
+            pipeline = Pipeline(config)
+            state, events = alarms.evaluate_alarms(state or None, obs, pipeline.alarm_rules())
+            results = CycleResults(start=part.start, end=part.end, final_end=part.end, samples=empty,
+                                   windows=empty, deviation=empty, alarm_events=events, alarm_state=state,
+                                   counts={})
+            for measurement, frame, tags in results.writes({"unit": config.unit.name}):
+                store.write_results(measurement, frame, tags)
+        store.save_state(part.name, {"alarms": state, "done": True, "start": part.start.isoformat(),
+                                     "end": part.end.isoformat()})
+        return state
+    finally:
+        store.close()
+
+
+@dataclass
+class FleetReport:
+    """What ``run_fleet`` did."""
+
+    partitions: int = 0
+    skipped: int = 0
+    rows_read: int = 0
+    seconds: float = 0.0
+    task_seconds: float = 0.0  # sum of the partition tasks' own wall time (worker time)
+    baselines: dict = field(default_factory=dict)  # unit -> sections fitted
+
+
+def run_fleet(client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=None, refit=False) -> FleetReport:
+    """Backfill every unit of ``config_paths`` over ``[start, end)`` on a Dask client.
+
+    Parameters
+    ----------
+    client : dask.distributed.Client
+        A client of a ``LocalCluster`` or of a running scheduler.
+    config_paths : sequence of str
+        One configuration file per unit (unit names must differ).
+    start, end : timestamp
+        The period (UTC).
+    period : str
+        Partition length (pandas offset alias, default "MS": calendar months).
+    chunk : str or Timedelta or None
+        Worker chunk inside a partition (default ``[schedule] chunk`` of each unit).
+    refit : bool
+        Fit the baseline again even when one is saved (after changing the reference period).
+
+    Returns
+    -------
+    FleetReport
+    """
+    from isentrope.daemon.config import load_config
+
+    t0 = time.perf_counter()
+    plans = []
+    for path in config_paths:
+        config = load_config(path)  # ConfigError before any task is sent
+        plans.append((str(path), config.unit.name, plan_partitions(str(path), config, start, end, period)))
+    units = [u for _, u, _ in plans]
+    if len(set(units)) != len(units):
+        raise ValueError(f"unit names must differ between configurations; found {units}")
+    report = FleetReport()
+    ends, computes = [], []
+    for path, unit, parts in plans:
+        phase1 = [client.submit(compute_partition, p, chunk, pure=False) for p in parts if p.phase == 1]
+        fit = client.submit(fit_baseline, path, refit, *phase1, pure=False)
+        computed = {p: f for p, f in zip([p for p in parts if p.phase == 1], phase1)}
+        for p in parts:
+            if p.phase == 2:
+                computed[p] = client.submit(compute_partition, p, chunk, fit, pure=False)
+        state = None
+        for p in parts:  # the alarm chain of the unit, in time order
+            state = client.submit(alarm_partition, p, state, computed[p], pure=False)
+        ends.append((unit, state, fit))
+        computes += list(computed.values())
+        report.partitions += len(parts)
+    for unit, state, fit in ends:
+        state.result()
+        report.baselines[unit] = fit.result()
+    for f in computes:
+        r = f.result()
+        report.skipped += int(r["skipped"])
+        report.rows_read += int(r["rows_read"])
+        report.task_seconds += float(r["seconds"])
+    report.seconds = time.perf_counter() - t0
+    logger.info("fleet backfill of %d unit(s) from %s to %s: %d partitions (%d already done) in %.1f s",
+                len(plans), _utc(start).isoformat(), _utc(end).isoformat(), report.partitions,
+                report.skipped, report.seconds)
+    return report
+
+
+__all__ = ["Partition", "plan_partitions", "run_fleet", "FleetReport", "compute_partition", "fit_baseline",
+           "alarm_partition", "DEFAULT_PERIOD"]
