@@ -7,6 +7,7 @@ and ``run(args) -> int`` (the exit code). Register a new module in ``COMMAND_MOD
 COMMAND_MODULES: list[str] = [
     "isentrope.daemon.commands.run",
     "isentrope.daemon.commands.backfill",
+    "isentrope.daemon.commands.fleet",
     "isentrope.daemon.commands.check",
     "isentrope.daemon.commands.import_csv",
     "isentrope.daemon.commands.export",
