@@ -13,7 +13,7 @@ import logging
 import signal
 import threading
 
-from isentrope.daemon.errors import EXIT_OK, EXIT_UNREACHABLE
+from isentrope.daemon.errors import EXIT_OK, EXIT_OTHER, EXIT_UNREACHABLE, FatalStoreError
 
 NAME = "run"
 HELP = ("run the worker: every interval, process new data from the checkpoint and write the "
@@ -70,11 +70,21 @@ def _serve(worker, config) -> int:
         worker.stop()  # the cycle in progress ends after its current chunk
         stop.set()
 
+    exit_code = [EXIT_OK]
+
+    def cycle():
+        try:
+            worker.run_cycle()  # temporary store trouble is handled (logged) inside
+        except FatalStoreError as exc:  # retrying will not help: stop with exit 1
+            logger.error("unit %s: stopping the worker: %s", config.unit.name, exc)
+            exit_code[0] = EXIT_OTHER
+            stop.set()
+
     previous = _install_signal_handlers(on_signal)
     scheduler = BackgroundScheduler(timezone="UTC")
     interval = config.schedule.interval.total_seconds()
     scheduler.add_job(
-        worker.run_cycle,
+        cycle,
         IntervalTrigger(seconds=interval, timezone="UTC"),
         id=f"cycle/{config.unit.name}",
         max_instances=1,  # never two cycles of one unit at once
@@ -92,8 +102,9 @@ def _serve(worker, config) -> int:
     finally:
         scheduler.shutdown(wait=True)  # waits for the cycle in progress (it stops between chunks)
         _restore(previous)
-    logger.info("unit %s: worker stopped on signal %s; checkpoint at %s", config.unit.name,
-                received[0] if received else "?",
-                worker.last_report.checkpoint.isoformat()
-                if worker.last_report is not None and worker.last_report.checkpoint is not None else "unchanged")
-    return EXIT_OK
+    if received:
+        logger.info("unit %s: worker stopped on signal %d; checkpoint at %s", config.unit.name, received[0],
+                    worker.last_report.checkpoint.isoformat()
+                    if worker.last_report is not None and worker.last_report.checkpoint is not None
+                    else "its last value")
+    return exit_code[0]

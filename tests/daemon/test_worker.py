@@ -316,3 +316,18 @@ def test_the_baseline_is_fitted_once_the_reference_period_is_done_and_deviations
     dev = store.read_results("deviation", ws.START, clock.now, {"unit": "Greywater Bend 2", "section": "hp"})
     assert len(dev) > 0 and (dev.index >= ref_end).all()
     assert abs(dev["deviation"].median()) < 0.3  # a day later: no measurable loss yet
+
+
+def test_the_daemon_stops_with_exit_1_on_a_fatal_store_error(config, pipeline, raw, caplog):
+    from isentrope.daemon.commands.run import _serve
+    from isentrope.daemon.stores.base import FatalStoreError as Fatal
+
+    class Gone(ws.MemoryStore):
+        def get_checkpoint(self, name):
+            raise Fatal("bucket 'unit2' not found")
+
+    worker = Worker.from_config(config, Gone(raw), pipeline=pipeline, sleep=lambda s: None)
+    with caplog.at_level(logging.ERROR, logger="isentrope.run"):
+        assert _serve(worker, config) == 1
+    lines = [r.getMessage() for r in caplog.records if r.name == "isentrope.run"]
+    assert lines == ["unit Greywater Bend 2: stopping the worker: bucket 'unit2' not found"]
