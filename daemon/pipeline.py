@@ -31,9 +31,6 @@ limits, local codes and licensed engineering practice take precedence.
 
 from __future__ import annotations
 
-import dataclasses
-import datetime as dt
-import json
 from dataclasses import dataclass, field
 
 import numpy as np

@@ -368,9 +368,9 @@ class Worker:
 
         Never raises for store trouble: a ``TemporaryStoreError`` that outlives its retries
         ends the cycle with one log line and ``report.error`` set; the next cycle resumes from
-        the checkpoint. ``FatalStoreError`` is re-raised at once, not logged here (retrying will
-        not help; the caller reports it and exits non-zero). ``progress(start, end)`` is called after each
-        chunk is committed.
+        the checkpoint. ``FatalStoreError`` is re-raised at once, not logged here (retrying
+        will not help; the caller reports it and exits non-zero). ``progress(start, end)`` is
+        called after each chunk is committed.
         """
         with self._lock:
             return self._run_cycle(until, progress)
