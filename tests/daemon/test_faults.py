@@ -62,6 +62,7 @@ def cli(*args: str) -> subprocess.Popen:
 
 # --- SIGKILL in the middle of a backfill ------------------------------------------------------
 
+@pytest.mark.slow
 def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_results(tmp_path):
     raw = ws.plant_history(1.5, freq="5min")
     start, end = FIRST, FIRST + pd.Timedelta("9h")
@@ -110,6 +111,7 @@ def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_
 # --- the InfluxDB server stopped part-way through a run of cycles ----------------------------
 
 @pytest.mark.influx
+@pytest.mark.slow
 def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_up(influxdb_v2, tmp_path):
     from isentrope.daemon.stores import open_store
 
@@ -228,6 +230,7 @@ def test_strings_nan_out_of_range_duplicates_and_gaps_are_flagged_and_nothing_st
 
 # --- the daemon: APScheduler, heartbeat, SIGTERM ----------------------------------------------
 
+@pytest.mark.slow
 def test_run_serves_cycles_and_stops_cleanly_on_sigterm(tmp_path):
     now = pd.Timestamp.now(tz="UTC").floor("5min")
     idx = pd.date_range(now - pd.Timedelta("6h"), now, freq="5min", name="time")

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import random
 
+import numpy as np
 import pandas as pd
 import pytest
 
@@ -331,3 +332,21 @@ def test_the_daemon_stops_with_exit_1_on_a_fatal_store_error(config, pipeline, r
         assert _serve(worker, config) == 1
     lines = [r.getMessage() for r in caplog.records if r.name == "isentrope.run"]
     assert lines == ["unit Greywater Bend 2: stopping the worker: bucket 'unit2' not found"]
+
+
+def test_a_late_sample_inside_the_lookback_is_picked_up_by_the_next_cycle(config, pipeline, raw):
+    clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
+    _, after = pipeline.margins
+    checkpoint = clock.now - pd.Timedelta("2min") - after
+    late = (checkpoint - pd.Timedelta("10min")).floor("5min")
+    store = ws.MemoryStore(raw.drop(index=[late]), clock=clock)  # not there yet
+    worker = make_worker(config, pipeline, store, clock)
+    assert worker.run_cycle().ok
+    assert store.checkpoints[worker.checkpoint_name] == checkpoint
+    samples = results_of(store)["section_samples"]
+    assert late not in samples.index
+    store.write_raw(ws.mappings(), raw.loc[[late]])  # it arrives late
+    clock.advance("5min")
+    assert worker.run_cycle().ok
+    samples = results_of(store)["section_samples"]
+    assert late in samples.index and np.isfinite(samples.loc[late, "hp_efficiency"])
