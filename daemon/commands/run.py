@@ -3,6 +3,8 @@
 Every ``[schedule] interval`` the worker processes the data from its checkpoint (minus the
 look-back) to now minus the settle delay, in chunks, and writes the results and a heartbeat
 (``worker_status``). ``--once`` runs a single cycle and exits (for cron or a systemd timer).
+Without a checkpoint (first start) it processes only the last look-back; process the history
+before that with ``isentrope backfill``.
 SIGTERM and SIGINT stop it cleanly after the chunk in progress. Results are advisory
 performance information, not a protective function.
 """
