@@ -265,3 +265,24 @@ def test_run_once_exits_3_when_the_store_stays_unreachable(tmp_path):
                           capture_output=True, text=True, env=env, timeout=120)
     assert proc.returncode == 3, proc.stderr
     assert "Traceback" not in proc.stderr
+
+
+@pytest.mark.parametrize("command", [["run", "--once"], ["backfill", "--start", "2025-03-03", "--end", "2025-03-04"]])
+def test_a_bad_configuration_exits_2_before_any_connection(tmp_path, capsys, command):
+    import socket
+
+    with socket.socket() as listener:  # a port that would notice a connection attempt
+        listener.bind(("127.0.0.1", 0))
+        listener.listen(1)
+        listener.settimeout(0.2)
+        port = listener.getsockname()[1]
+        text = ws.store_toml("influx1", url=f"http://127.0.0.1:{port}", database="unit2", username="u",
+                             password="${ISENTROPE_TEST_PASSWORD}")
+        cfg = ws.write_config(tmp_path / "bad.toml", text)
+        cfg.write_text(cfg.read_text().replace('lookback = "30m"', 'look_back = "30m"'))
+        code = cli_main([command[0], "-c", str(cfg), *command[1:]])
+        with pytest.raises(socket.timeout):
+            listener.accept()  # nobody knocked
+    err = capsys.readouterr().err
+    assert code == 2
+    assert "configuration error" in err and "look_back" in err and "lookback" in err
