@@ -111,13 +111,18 @@ def plan_partitions(config_path: str, config, start, end, period=DEFAULT_PERIOD)
     start, end = _utc(start), _utc(end)
     if end <= start:
         raise ValueError(f"end ({end.isoformat()}) must be after start ({start.isoformat()})")
-    offset = pd.tseries.frequencies.to_offset(period)
-    if isinstance(offset, pd.offsets.Tick):  # fixed length: boundaries on multiples from the epoch
-        step = pd.Timedelta(offset)
+    try:  # a fixed length ("7D", "12h"): boundaries on its multiples from the epoch
+        step = pd.Timedelta(period)
+    except ValueError:  # a calendar offset ("MS", "QS", "YS")
+        step = None
+    if step is not None:
+        if step <= pd.Timedelta(0):
+            raise ValueError(f"period must be positive, found {period!r}")
         epoch = pd.Timestamp("1970-01-01", tz="UTC")
         first = epoch + ((start - epoch) // step + 1) * step
         edges = set(pd.date_range(first, end, freq=step, inclusive="left"))
     else:
+        offset = pd.tseries.frequencies.to_offset(period)
         edges = set(pd.date_range(start, end, freq=offset, inclusive="neither"))
     ref_end = config.baseline.end
     ref_end = None if ref_end is None else _utc(ref_end)

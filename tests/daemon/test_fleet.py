@@ -116,3 +116,25 @@ def test_fleet_on_two_processes_equals_a_sequential_backfill(tmp_path, raw):
     # raised before the baseline end after 30 min bad, cleared after it: across partitions and phases
     assert list(dq["raised"]) == [1.0, 0.0]
     assert dq.index[0] < BASE_END <= dq.index[1]
+
+
+def test_partitions_are_calendar_months_cut_at_the_baseline_end(tmp_path):
+    config = load_config(_config(tmp_path, "plan"))  # baseline 2025-03-01 .. 2025-03-03
+    parts = fleet.plan_partitions("plan.toml", config, "2025-02-10T00:00Z", "2025-05-01T00:00Z")
+    assert [(p.start, p.end, p.phase) for p in parts] == [
+        (pd.Timestamp("2025-02-10", tz="UTC"), pd.Timestamp("2025-03-01", tz="UTC"), 1),
+        (pd.Timestamp("2025-03-01", tz="UTC"), BASE_END, 1),
+        (BASE_END, pd.Timestamp("2025-04-01", tz="UTC"), 2),
+        (pd.Timestamp("2025-04-01", tz="UTC"), pd.Timestamp("2025-05-01", tz="UTC"), 2),
+    ]
+    assert len({p.name for p in parts}) == len(parts)
+    # a fixed length cuts on its multiples from the epoch, whatever the start
+    a = fleet.plan_partitions("plan.toml", config, "2025-03-10T05:00Z", "2025-04-10T00:00Z", period="7D")
+    b = fleet.plan_partitions("plan.toml", config, "2025-03-12T00:00Z", "2025-04-10T00:00Z", period="7D")
+    assert {p.end for p in b} <= {p.end for p in a}
+    assert all((p.end - pd.Timestamp("1970-01-01", tz="UTC")) % pd.Timedelta(days=7) == pd.Timedelta(0)
+               for p in a[:-1])
+    with pytest.raises(ValueError, match="must be after"):
+        fleet.plan_partitions("plan.toml", config, "2025-03-10T00:00Z", "2025-03-01T00:00Z")
+    with pytest.raises(ValueError, match="time zone"):
+        fleet.plan_partitions("plan.toml", config, "2025-03-10", "2025-04-01T00:00Z")
