@@ -122,6 +122,14 @@ def result_columns(frame: pd.DataFrame, reserved: Sequence[str] = ("time",)) -> 
     return cols
 
 
+def check_fields_vs_tags(fields: Sequence[str], tags: Mapping[str, str], measurement: str) -> None:
+    """A result field may not share its name with a tag key (ambiguous in InfluxQL, a clash in SQLite)."""
+    keys = {k.lower() for k in tags}
+    clash = [f for f in fields if f.lower() in keys]
+    if clash:
+        raise ValueError(f"{measurement}: result fields {clash} have the same name as tag keys {sorted(tags)}")
+
+
 def results_matrix(frame: pd.DataFrame, cols: Sequence[str]) -> np.ndarray:
     """Float matrix of the result columns; bools as 0.0/1.0, non-finite as NaN."""
     if not cols:

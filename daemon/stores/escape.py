@@ -5,9 +5,9 @@ spaces, commas, equals signs or backslashes. Every name goes through one of thes
 before it reaches a query or a line, so that it round-trips and can never change what the
 query means (a field named ``x") |> drop(`` stays a field name).
 
-Names holding a newline, a carriage return or a NUL are rejected with ``ValueError``: line
-protocol cannot carry them (a newline ends a line), and a name like that in a plant
-configuration is a mistake worth an error.
+Names holding a control character (newline, carriage return, tab, NUL, ...) are rejected
+with ``ValueError``: line protocol cannot carry them (a newline ends a line, a tab separates),
+and a name like that in a plant configuration is a mistake worth an error.
 
 Line protocol escaping follows the InfluxDB 1.x/2.x line protocol reference: in measurements
 a comma and a space are escaped with a backslash; in tag keys, tag values and field keys a
@@ -22,7 +22,8 @@ from __future__ import annotations
 import math
 import re
 
-_FORBIDDEN = re.compile(r"[\n\r\x00]")
+# Control characters: a newline ends a line; a tab is whitespace to the 1.x line parser.
+_FORBIDDEN = re.compile(r"[\x00-\x1f\x7f-\x9f]")
 
 
 def check_name(name: str, what: str = "name") -> str:
@@ -35,7 +36,7 @@ def check_name(name: str, what: str = "name") -> str:
     if m:
         raise ValueError(
             f"{what} {name!r} holds a {'newline' if m.group() == chr(10) else 'control character'}; "
-            "names may not contain newlines, carriage returns or NUL"
+            "names may not contain newlines, tabs or other control characters"
         )
     return name
 
@@ -49,7 +50,7 @@ def flux_string(value: str) -> str:
     if not isinstance(value, str):
         raise ValueError(f"Flux string must be a string, found {type(value).__name__} {value!r}")
     if _FORBIDDEN.search(value):
-        raise ValueError(f"Flux string {value!r} holds a newline, carriage return or NUL")
+        raise ValueError(f"Flux string {value!r} holds a newline or another control character")
     out = value.replace("\\", "\\\\").replace('"', '\\"').replace("${", "\\${")
     return f'"{out}"'
 
@@ -66,7 +67,7 @@ def influxql_string(value: str) -> str:
     if not isinstance(value, str):
         raise ValueError(f"InfluxQL string must be a string, found {type(value).__name__} {value!r}")
     if _FORBIDDEN.search(value):
-        raise ValueError(f"InfluxQL string {value!r} holds a newline, carriage return or NUL")
+        raise ValueError(f"InfluxQL string {value!r} holds a newline or another control character")
     return "'" + value.replace("\\", "\\\\").replace("'", "\\'") + "'"
 
 
@@ -110,7 +111,7 @@ def lp_string_value(value: str) -> str:
     if not isinstance(value, str):
         raise ValueError(f"string field value must be a string, found {type(value).__name__}")
     if _FORBIDDEN.search(value):
-        raise ValueError(f"string field value {value[:40]!r}... holds a newline, carriage return or NUL")
+        raise ValueError(f"string field value {value[:40]!r}... holds a newline or another control character")
     return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 

@@ -100,6 +100,7 @@ def result_lines(measurement: str, frame: pd.DataFrame, tags: Mapping[str, str])
     key = escape.lp_series_key(measurement, common.check_tags(tags))
     idx = common.utc_index(frame, f"{measurement} results")
     fields = common.result_columns(frame, reserved=("time",))
+    common.check_fields_vs_tags(fields, tags, measurement)
     if not fields or len(frame) == 0:
         return [], 0
     return _lines(key, [escape.lp_field_key(f) for f in fields], common.results_matrix(frame, fields), common.epoch_ns(idx))

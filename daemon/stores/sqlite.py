@@ -130,9 +130,15 @@ class SqliteStore(Store):
             try:
                 return fn(self._db)
             except sqlite3.Error as exc:
-                if self._db.in_transaction:
-                    self._db.execute("ROLLBACK")
+                self._rollback()
                 raise self._error(exc, doing) from exc
+            except BaseException:  # a ValueError half-way must not leave the transaction open
+                self._rollback()
+                raise
+
+    def _rollback(self) -> None:
+        if self._db.in_transaction:
+            self._db.execute("ROLLBACK")
 
     # --- raw samples ---------------------------------------------------------------------
     def read_raw(self, mappings: Sequence[RoleMapping], start, end) -> pd.DataFrame:
@@ -250,6 +256,7 @@ class SqliteStore(Store):
         fields = common.result_columns(frame, reserved=("time", "time_utc"))
         for f in fields:
             check_name(f, "result field")
+        common.check_fields_vs_tags(fields, tags, measurement)
         if not fields or len(frame) == 0:
             return 0
         values = common.results_matrix(frame, fields)

@@ -381,3 +381,17 @@ def test_stopped_server_is_temporary_and_nothing_is_lost(case):
     case.store.set_checkpoint("U7-worker", T0)  # the next write sends the kept batch first
     assert not case.store.pending
     assert_same(case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h")), expected(frame))
+
+
+def test_a_refused_write_leaves_the_store_usable(case):
+    frame = results_frame(n=2)[["hp_efficiency"]]
+    case.store.write_results("sections", frame, {"unit": "U7"})
+    with pytest.raises(ValueError):  # a field named like the tag key
+        case.store.write_results("sections", frame.rename(columns={"hp_efficiency": "time"}), {"unit": "U7"})
+    with pytest.raises(ValueError):
+        case.store.write_results("sections", frame, {"time": "U7"})
+    with pytest.raises(ValueError, match="same name as tag keys"):
+        case.store.write_results("sections", frame.rename(columns={"hp_efficiency": "unit"}), {"unit": "U7"})
+    case.store.write_results("sections", frame + 0.01, {"unit": "U7"})
+    got = case.store.read_results("sections", T0, T0 + pd.Timedelta("1D"), {"unit": "U7"})
+    np.testing.assert_allclose(got["hp_efficiency"].to_numpy(), (frame["hp_efficiency"] + 0.01).to_numpy(), rtol=0, atol=0)
