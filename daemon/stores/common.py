@@ -103,7 +103,11 @@ def wide_to_role_columns(mappings: Sequence[RoleMapping], frame: pd.DataFrame) -
     return out
 
 
-def result_columns(frame: pd.DataFrame, reserved: Sequence[str] = ("time",)) -> list[str]:
+#: Field names no store accepts: the time columns, and the columns Flux adds to its answers.
+RESERVED_FIELDS = ("time", "time_utc", "result", "table", "_time", "_value", "_field", "_measurement", "_start", "_stop")
+
+
+def result_columns(frame: pd.DataFrame, reserved: Sequence[str] = RESERVED_FIELDS) -> list[str]:
     """The numeric and bool columns of a results frame (the ones ``write_results`` writes)."""
     cols = []
     lowered = {}

@@ -99,7 +99,7 @@ def result_lines(measurement: str, frame: pd.DataFrame, tags: Mapping[str, str])
         raise ValueError(f"measurement {measurement!r} is reserved for the worker's checkpoint and state")
     key = escape.lp_series_key(measurement, common.check_tags(tags))
     idx = common.utc_index(frame, f"{measurement} results")
-    fields = common.result_columns(frame, reserved=("time",))
+    fields = common.result_columns(frame)
     common.check_fields_vs_tags(fields, tags, measurement)
     if not fields or len(frame) == 0:
         return [], 0

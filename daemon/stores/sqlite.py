@@ -253,7 +253,7 @@ class SqliteStore(Store):
         self._check_measurement(measurement)
         tags = common.check_tags(tags)
         idx = common.utc_index(frame, f"{measurement} results")
-        fields = common.result_columns(frame, reserved=("time", "time_utc"))
+        fields = common.result_columns(frame)
         for f in fields:
             check_name(f, "result field")
         common.check_fields_vs_tags(fields, tags, measurement)

@@ -390,6 +390,8 @@ def test_a_refused_write_leaves_the_store_usable(case):
         case.store.write_results("sections", frame.rename(columns={"hp_efficiency": "time"}), {"unit": "U7"})
     with pytest.raises(ValueError):
         case.store.write_results("sections", frame, {"time": "U7"})
+    with pytest.raises(ValueError, match="reserved"):
+        case.store.write_results("sections", frame.rename(columns={"hp_efficiency": "table"}), {"unit": "U7"})
     with pytest.raises(ValueError, match="same name as tag keys"):
         case.store.write_results("sections", frame.rename(columns={"hp_efficiency": "unit"}), {"unit": "U7"})
     case.store.write_results("sections", frame + 0.01, {"unit": "U7"})
