@@ -140,7 +140,7 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         except (urllib.error.URLError, OSError):
             return False
 
-    def start(self, timeout: float = 60.0) -> "InfluxServer":
+    def start(self, timeout: float = 120.0) -> "InfluxServer":
         """Start (or restart after ``stop()``) on the same ports and data; wait for /ping."""
         if self.running:
             return self
