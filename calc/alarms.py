@@ -325,7 +325,15 @@ def _check_state(state: Mapping) -> dict:
     return out
 
 
-def _prepare(observations: pd.DataFrame) -> pd.DataFrame:
+def _prepare(observations: pd.DataFrame):
+    """Checked plain arrays of the observations and their stable time order.
+
+    Returns ``(obs, ns, values, order)``: the frame (with a ``time`` column), times as int64 ns
+    (UTC), values as float (non-numbers and NaT times become NaN: skipped), and the indices
+    that sort them by time, equal times keeping their input order. The frame itself is neither
+    copied nor sorted (measured: sorting a 700,000-row frame with its text columns cost more
+    than the machines).
+    """
     obs = observations
     if "time" not in obs.columns:
         if isinstance(obs.index, pd.DatetimeIndex):
@@ -335,17 +343,16 @@ def _prepare(observations: pd.DataFrame) -> pd.DataFrame:
     missing = [c for c in ("section", "quantity", "value") if c not in obs.columns]
     if missing:
         raise ValueError(f"observations lack columns {missing}; found {list(obs.columns)}")
-    obs = obs.copy()
+    values = pd.to_numeric(obs["value"], errors="coerce").to_numpy(dtype=float, na_value=np.nan)
     if len(obs) == 0:
-        obs["time"] = pd.to_datetime(obs["time"], utc=True)
-        obs["value"] = obs["value"].astype(float)
-        return obs
-    t = pd.to_datetime(obs["time"])
-    if t.dt.tz is None:
+        return obs, np.empty(0, dtype=np.int64), values, np.empty(0, dtype=np.int64)
+    t = pd.DatetimeIndex(pd.to_datetime(obs["time"]))
+    if t.tz is None:
         raise ValueError("observation times must be timezone-aware (UTC)")
-    obs["time"] = t.dt.tz_convert("UTC")
-    obs["value"] = pd.to_numeric(obs["value"], errors="coerce").astype(float)
-    return obs.sort_values("time", kind="mergesort")
+    t = t.tz_convert("UTC").as_unit("ns")
+    values = np.where(t.isna(), np.nan, values)
+    ns = t.asi8
+    return obs, ns, values, np.argsort(ns, kind="stable")
 
 
 def _time_ns(times: pd.Series) -> np.ndarray:
@@ -460,23 +467,26 @@ def evaluate_alarms(
         raise ValueError(f"alarm rule names must be unique; found {names}")
     new_state = _check_state(state or {})
     machines = new_state["machines"]
-    obs = _prepare(observations)
+    obs, ns, values, order = _prepare(observations)
     has_steady = "steady" in obs.columns
 
-    # Plain arrays: pandas selection per rule and section costs far more than the machines.
-    # Times as int64 ns; a Timestamp is built only for the few observations that make an
-    # event or end up in the state (measured: a list of Timestamps for 16 roles x 1440
-    # samples a day cost more than the machines themselves).
-    o_ns = _time_ns(obs["time"])
+    # Plain arrays in time order: pandas selection per rule and section costs far more than
+    # the machines. Times as int64 ns; a Timestamp is built only for the few observations
+    # that make an event or end up in the state (measured: a list of Timestamps for 16 roles x
+    # 1440 samples a day cost more than the machines themselves).
+    o_ns = ns[order]
     sec_codes, sec_names = pd.factorize(obs["section"].astype(str), sort=True)
-    o_qty = obs["quantity"].astype(str).to_numpy(dtype=object)
-    o_val = obs["value"].to_numpy(dtype=float)
-    o_steady = obs["steady"].to_numpy(dtype=bool) if has_steady else np.ones(len(obs), dtype=bool)
+    sec_codes = np.asarray(sec_codes)[order]
+    qty_codes, qty_names = pd.factorize(obs["quantity"].astype(str))
+    qty_codes = np.asarray(qty_codes)[order]
+    qty_index = {str(q): k for k, q in enumerate(qty_names)}
+    o_val = values[order]
+    o_steady = obs["steady"].to_numpy(dtype=bool)[order] if has_steady else np.ones(len(obs), dtype=bool)
     finite = np.isfinite(o_val)
 
     records = []  # (time, rule index, section, kind, value, level, message)
     for r_i, rule in enumerate(rules):
-        sel = finite & (o_qty == rule.quantity)
+        sel = finite & (qty_codes == qty_index.get(rule.quantity, -1))
         if rule.sections is not None:
             allowed = [k for k, name in enumerate(sec_names) if name in rule.sections]
             sel &= np.isin(sec_codes, allowed)
