@@ -190,6 +190,11 @@ def compute_partition(part: Partition, chunk=None, *_after) -> dict:
         store.close()
 
 
+def _summary(computed: dict) -> dict:
+    """Task: a partition's result without its observations (small, for the client)."""
+    return {k: v for k, v in computed.items() if k != "observations"}
+
+
 def fit_baseline(config_path: str, refit: bool = False, *_after) -> list[str]:
     """Task: fit and save ``baseline/<unit>`` from the stored reference-period windows, the
     way ``Worker`` does for a sequential backfill. Returns the sections fitted."""
@@ -283,24 +288,30 @@ def run_fleet(client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=
     if len(set(units)) != len(units):
         raise ValueError(f"unit names must differ between configurations; found {units}")
     report = FleetReport()
-    ends, computes = [], []
+    ends, metas = [], []
     for path, unit, parts in plans:
-        phase1 = [client.submit(compute_partition, p, chunk, pure=False) for p in parts if p.phase == 1]
+        computed = {}
+        for p in parts:
+            if p.phase == 1:
+                computed[p] = client.submit(compute_partition, p, chunk, pure=False)
+        # the fit waits for small summaries of the phase-1 partitions, so their alarm
+        # observations stay where they were computed (Dask runs _summary beside its input)
+        phase1 = [client.submit(_summary, f, pure=False) for f in computed.values()]
         fit = client.submit(fit_baseline, path, refit, *phase1, pure=False)
-        computed = {p: f for p, f in zip([p for p in parts if p.phase == 1], phase1)}
         for p in parts:
             if p.phase == 2:
                 computed[p] = client.submit(compute_partition, p, chunk, fit, pure=False)
         state = None
         for p in parts:  # the alarm chain of the unit, in time order
             state = client.submit(alarm_partition, p, state, computed[p], pure=False)
+        metas += phase1 + [client.submit(_summary, computed[p], pure=False) for p in parts if p.phase == 2]
         ends.append((unit, state, fit))
-        computes += list(computed.values())
         report.partitions += len(parts)
+        del computed  # the client keeps no reference: observations are freed once their alarm task ran
     for unit, state, fit in ends:
         state.result()
         report.baselines[unit] = fit.result()
-    for f in computes:
+    for f in metas:
         r = f.result()
         report.skipped += int(r["skipped"])
         report.rows_read += int(r["rows_read"])
