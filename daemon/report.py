@@ -105,7 +105,7 @@ def _read(store, measurement, start, end, tags) -> pd.DataFrame:
 
 def _hs_diagram(fig_ax, window: pd.Series, config):
     """Expansion of one steady window on an h-s diagram, with the saturation line."""
-    from isentrope.calc import sections, steam
+    from isentrope.calc import steam
 
     ax = fig_ax
     p = np.geomspace(0.001, 22.0, 200)
@@ -155,8 +155,7 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         Start of the steady window drawn on the h-s diagram; None: the highest-load steady
         window of the last 30 days.
     """
-    from isentrope.daemon.analysis import (DEGRADATION_MEASUREMENT, LOSSES_MEASUREMENT, OUTLOOK_MEASUREMENT,
-                                           SECTIONS, STEPS_MEASUREMENT)
+    from isentrope.daemon.analysis import DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT
     from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
                                            Pipeline)
 

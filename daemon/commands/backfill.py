@@ -15,6 +15,7 @@ import sys
 
 import pandas as pd
 
+from isentrope.daemon.commands import parse_time
 from isentrope.daemon.errors import EXIT_OK, EXIT_UNREACHABLE
 
 NAME = "backfill"
@@ -22,14 +23,6 @@ HELP = ("process a past period in chunks and write the results; resumable (advis
         "information, not a protective function)")
 
 logger = logging.getLogger("isentrope.backfill")
-
-
-def _time(text: str) -> pd.Timestamp:
-    try:
-        t = pd.Timestamp(text)
-    except (ValueError, TypeError):
-        raise ValueError(f"time {text!r} not understood; expected ISO 8601 such as 2025-01-01T00:00Z") from None
-    return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
 
 
 def add_arguments(parser) -> None:
@@ -53,7 +46,7 @@ def run(args) -> int:
     from isentrope.daemon.worker import Worker
 
     config = load_config(args.config)  # ConfigError before any connection is made
-    start, end = _time(args.start), _time(args.end)
+    start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     chunk = parse_duration(args.chunk) if args.chunk else config.schedule.chunk

@@ -7,18 +7,10 @@ performance information, not a protective function.
 
 from __future__ import annotations
 
-import pandas as pd
+from isentrope.daemon.commands import parse_time
 
 NAME = "report"
 HELP = "write the HTML performance report for a period (advisory information, not a protective function)"
-
-
-def _time(text: str) -> pd.Timestamp:
-    try:
-        t = pd.Timestamp(text)
-    except (ValueError, TypeError):
-        raise ValueError(f"time {text!r} not understood; expected ISO 8601 such as 2025-01-01T00:00Z") from None
-    return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
 
 
 def add_arguments(parser) -> None:
@@ -36,14 +28,14 @@ def run(args) -> int:
     from isentrope.daemon.stores import open_store
 
     config = load_config(args.config)
-    start, end = _time(args.start), _time(args.end)
+    start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     store = open_store(config.store.kind, **config.store.open_options())
     try:
         analysis = run_analysis(store, config, start, end)
         path = write_report(store, config, start, end, args.output, analysis=analysis,
-                            hs_window=_time(args.hs_window) if args.hs_window else None)
+                            hs_window=parse_time(args.hs_window) if args.hs_window else None)
     finally:
         store.close()
     print(path)

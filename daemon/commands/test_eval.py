@@ -16,20 +16,14 @@ import sys
 
 import pandas as pd
 
+from isentrope.daemon.commands import parse_time
+
 NAME = "test-eval"
 HELP = ("evaluate a planned routine performance test from the stored readings (advisory, not an "
         "acceptance test, not a protective function)")
 
 #: Figures reported, with the column of the online trend they are compared with.
 FIGURES = ("hp_efficiency", "ip_efficiency", "lp_dry_efficiency", "lp_moisture")
-
-
-def _time(text: str) -> pd.Timestamp:
-    try:
-        t = pd.Timestamp(text)
-    except (ValueError, TypeError):
-        raise ValueError(f"time {text!r} not understood; expected ISO 8601 such as 2025-01-01T00:00Z") from None
-    return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
 
 
 def add_arguments(parser) -> None:
@@ -61,7 +55,7 @@ def run(args) -> int:
     from isentrope.daemon.stores import open_store
 
     config = load_config(args.config)
-    start, end = _time(args.start), _time(args.end)
+    start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     stabilisation = pd.Timedelta(parse_duration(args.stabilisation))
