@@ -46,7 +46,7 @@ from typing import Any
 import pandas as pd
 
 from isentrope.daemon.errors import ConfigError
-from isentrope.daemon.roles import OPTIONAL_ROLES, REQUIRED_ROLES, ROLES, RoleMapping
+from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
 
 __all__ = [
     "Config", "UnitConfig", "StoreConfig", "Secret", "RoleUncertainty", "ScreeningConfig",

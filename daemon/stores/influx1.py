@@ -38,7 +38,6 @@ from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreE
 from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     StateClock,
-    batches,
     classify_http,
     keep_unwritten,
     raw_lines,
