@@ -74,8 +74,8 @@ class SectionOutlook:
         Operating hours at each of those windows [h].
     rate : isentrope.calc.trend.RateResult
         Degradation rate over the whole history, blocked at the steps found.
-    steps : isentrope.calc.trend.Steps
-        Step changes found.
+    steps : list of isentrope.calc.trend.Step
+        Step changes found, at least ``[alarms] min_step_points`` in size.
     current : float
         Current deviation: median over the last ``CURRENT_WINDOW_DAYS`` [points].
     current_u : float
@@ -248,8 +248,9 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
         hours = _hours_at(pd.DatetimeIndex(dev.index), on)
         h0 = hours[0]
         rel = hours - h0
-        steps = trend.detect_steps(dev.index, dev.to_numpy(dtype=float), hours=rel, k=float(a.cusum_k),
+        found = trend.detect_steps(dev.index, dev.to_numpy(dtype=float), hours=rel, k=float(a.cusum_k),
                                    h=float(a.cusum_h))
+        steps = [s for s in found if abs(float(s.size)) >= float(a.min_step_points)]
         breaks = [rel[int(s.index)] for s in steps] if len(steps) else None
         rate = trend.degradation_rate(rel, dev.to_numpy(dtype=float), breaks=breaks)
         current, current_u = _current(dev, end)

@@ -315,7 +315,8 @@ class AlarmsConfig:
     magnitude of a degradation rate that raises an alarm [points per 1000 h],
     ``moisture_limit_percent`` [%], ``data_quality_limit`` how long a mapped tag may be
     missing/flat/out of range, ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision
-    interval [multiples of the deviation's standard deviation].
+    interval [multiples of the deviation's standard deviation], ``min_step_points`` smallest
+    step change reported [points].
     """
 
     deviation_warning: float = -1.0
@@ -327,6 +328,10 @@ class AlarmsConfig:
     data_quality_limit: dt.timedelta = dt.timedelta(hours=1)
     cusum_k: float = 0.5
     cusum_h: float = 8.0  # about 7.5 % false steps per 500 windows of pure noise (calc.trend tests)
+    # A CUSUM on low-scatter deviations also finds steps of hundredths of a point: real, but
+    # not what a planner acts on. 0.25 point is well below the 0.5-2 points of a rub or a trip
+    # (REFERENCES.md, from memory); project choice, no source.
+    min_step_points: float = 0.25
 
 
 @dataclass(frozen=True)
@@ -968,6 +973,7 @@ def _read_alarms(r: _Reader, top: dict) -> AlarmsConfig:
                                       low=0, low_open=True)
     v["cusum_k"] = r.value(d, p + ("cusum_k",), "float", D.cusum_k, low=0)
     v["cusum_h"] = r.value(d, p + ("cusum_h",), "float", D.cusum_h, low=0, low_open=True)
+    v["min_step_points"] = r.value(d, p + ("min_step_points",), "float", D.min_step_points, low=0)
     if v["deviation_alarm"] > v["deviation_warning"]:
         r.problem(p + ("deviation_alarm",), f"must be at or below deviation_warning "
                   f"({v['deviation_warning']:g}), found {v['deviation_alarm']:g}")

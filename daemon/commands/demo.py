@@ -126,6 +126,10 @@ def run(args) -> int:
         if not report.ok:
             raise RuntimeError(f"demo backfill stopped: {report.error}")
         t_back = time.perf_counter()
+        # the baseline models as versioned JSON files next to the results, for tracing
+        saved = store.load_state(f"baseline/{config.unit.name}") or {}
+        for section, text in sorted(saved.get("models", {}).items()):
+            (folder / f"baseline-{section}.json").write_text(text, encoding="utf-8")
         analysis = run_analysis(store, config, start, end)
         t_ana = time.perf_counter()
         report_path = None
@@ -139,7 +143,8 @@ def run(args) -> int:
 
     print(summary_text(config, analysis, truth))
     print(f"\nfolder: {folder.resolve()}")
-    print(f"  configuration {cfg_path.name}, store greywater2.sqlite ({written:,} raw samples), truth.json")
+    print(f"  configuration {cfg_path.name}, store greywater2.sqlite ({written:,} raw samples), truth.json, "
+          f"baseline-<section>.json")
     if report_path is not None:
         print(f"  report: {report_path}")
     print(f"time: generate {t_gen - t0:.1f} s, store raw {t_raw - t_gen:.1f} s, backfill {t_back - t_raw:.1f} s, "

@@ -46,6 +46,11 @@ def _tables(db: Path) -> dict[str, set[str]]:
 def test_demo_writes_store_config_truth_and_report(demo_dir):
     for name in ("greywater2.toml", "greywater2.sqlite", "truth.json", "report/index.html"):
         assert (demo_dir / name).exists(), name
+    from isentrope.calc.baseline import BaselineModel
+
+    for section in ("hp", "ip", "lp"):  # versioned baseline artefacts next to the results
+        text = (demo_dir / f"baseline-{section}.json").read_text()
+        assert BaselineModel.from_json(text).to_json() == text
     tables = _tables(demo_dir / "greywater2.sqlite")
     for measurement in ("section_samples", "steady_windows", "deviation", "degradation", "losses",
                         "worker_status"):
