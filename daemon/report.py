@@ -137,7 +137,8 @@ def _hs_diagram(fig_ax, window: pd.Series, config):
     ax.legend(loc="lower right", fontsize=8)
 
 
-def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window: pd.Timestamp | None = None) -> Path:
+def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window: pd.Timestamp | None = None,
+                 readings: pd.DataFrame | None = None) -> Path:
     """Write the report for ``[start, end)`` into ``out_dir``; returns the path of index.html.
 
     Parameters
@@ -154,6 +155,9 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
     hs_window : Timestamp or None
         Start of the steady window drawn on the h-s diagram; None: the highest-load steady
         window of the last 30 days.
+    readings : pandas.DataFrame or None
+        The raw readings of the period in internal units when the caller already holds them
+        (the demo does); None reads them from the store for the data-quality table.
     """
     from isentrope.daemon.analysis import DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT
     from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
@@ -355,7 +359,10 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
     # --- data quality ---------------------------------------------------------------------
     from isentrope.calc import quality
 
-    raw = store.read(config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa)
+    if readings is not None:
+        raw = readings.loc[(readings.index >= start) & (readings.index < end)]
+    else:
+        raw = store.read(config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa)
     pipe = Pipeline(config)
     if len(raw):
         screen = quality.screen(raw, **pipe._screen_kwargs(raw))

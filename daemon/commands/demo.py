@@ -136,7 +136,8 @@ def run(args) -> int:
         if not args.no_report:
             from isentrope.daemon.report import write_report
 
-            report_path = write_report(store, config, start, end, folder / "report", analysis=analysis)
+            report_path = write_report(store, config, start, end, folder / "report", analysis=analysis,
+                                       readings=frame)
         t_rep = time.perf_counter()
     finally:
         store.close()
