@@ -85,7 +85,7 @@ def run(args) -> int:
     from tqdm import tqdm
 
     from isentrope.daemon import synthetic
-    from isentrope.daemon.analysis import run_analysis
+    from isentrope.daemon.analysis import raised_alarms, run_analysis
     from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
@@ -131,6 +131,7 @@ def run(args) -> int:
         for section, text in sorted(saved.get("models", {}).items()):
             (folder / f"baseline-{section}.json").write_text(text, encoding="utf-8")
         analysis = run_analysis(store, config, start, end)
+        raised = raised_alarms(store, config, start, end)
         t_ana = time.perf_counter()
         report_path = None
         if not args.no_report:
@@ -142,7 +143,7 @@ def run(args) -> int:
     finally:
         store.close()
 
-    print(summary_text(config, analysis, truth))
+    print(summary_text(config, analysis, truth, raised))
     print(f"\nfolder: {folder.resolve()}")
     print(f"  configuration {cfg_path.name}, store greywater2.sqlite ({written:,} raw samples), truth.json, "
           f"baseline-<section>.json")
@@ -163,8 +164,12 @@ def _fmt(x, spec=".2f", missing="n/a") -> str:
         return missing
 
 
-def summary_text(config, analysis, truth: dict | None = None) -> str:
-    """The per-section summary printed at the end of the demo."""
+def summary_text(config, analysis, truth: dict | None = None, raised: dict | None = None) -> str:
+    """The per-section summary printed at the end of the demo.
+
+    ``raised``: section or tag -> [(time, rule), ...] of the alarms raised
+    (``isentrope.daemon.analysis.raised_alarms``); None counts the analysis's own only.
+    """
     cur = config.economics.currency
     lines = [f"{config.unit.plant or config.unit.name}, {config.unit.name}: state at {analysis.end:%Y-%m-%d}",
              f"{'section':8}{'deviation':>14}{'rate /1000 h [95 % interval]':>32}{'steps':>7}"
@@ -174,13 +179,21 @@ def summary_text(config, analysis, truth: dict | None = None) -> str:
         rate = s.rate
         rate_txt = (f"{_fmt(rate.slope_per_1000h, '+.2f')} [{_fmt(rate.low, '+.2f')}, {_fmt(rate.high, '+.2f')}]"
                     if rate.status == "ok" else rate.status)
-        n_alarm = 0 if not len(ev) else int(((ev["section"] == name) & (ev["kind"] == "raised")).sum())
+        if raised is not None:
+            n_alarm = len(raised.get(name, []))
+        else:
+            n_alarm = 0 if not len(ev) else int(((ev["section"] == name) & (ev["kind"] == "raised")).sum())
         cost = (s.losses["cumulative_fuel_cost"].iloc[-1] if s.losses is not None and len(s.losses) else math.nan)
         proj = s.projected_loss.fuel_cost if s.projected_loss is not None else math.nan
         lines.append(f"{name.upper():8}{_fmt(s.current, '+.2f') + ' pt':>14}{rate_txt:>32}{len(s.steps):>7}"
                      f"{n_alarm:>8}{_fmt(cost, ',.0f') + ' ' + cur:>16}{_fmt(proj, ',.0f') + ' ' + cur:>14}")
         for st in s.steps:
             lines.append(f"{'':8}step {_fmt(st.size, '+.2f')} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}")
+    tags = {k: v for k, v in (raised or {}).items() if k not in analysis.sections}
+    for tag, items in sorted(tags.items()):
+        rules = sorted({r for _, r in items})
+        lines.append(f"data quality: {tag}: {len(items)} alarm(s) raised ({', '.join(rules)}), first at "
+                     f"{items[0][0]:%Y-%m-%d %H:%M}")
     if analysis.notes:
         lines += [f"note: {n}" for n in analysis.notes]
     if truth:
