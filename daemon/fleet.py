@@ -158,11 +158,11 @@ def _open(config_path: str):
     return config, open_store(config.store.kind, **config.store.open_options())
 
 
-def compute_partition(part: Partition, chunk=None, *_after) -> dict:
+def compute_partition(part: Partition, chunk=None, redo: bool = False, *_after) -> dict:
     """Task: backfill one partition (everything but the alarm machines).
 
     Returns ``{"skipped": bool, "rows_read": int, "seconds": float, "observations": frame or
-    None}``. A partition whose completion state exists is skipped. ``chunk`` is the worker's
+    None}``. A partition whose completion state exists is skipped unless ``redo``. ``chunk`` is the worker's
     chunk inside the partition (default ``[schedule] chunk``); ``_after`` are futures this
     task waits for (the baseline fit).
     """
@@ -171,7 +171,7 @@ def compute_partition(part: Partition, chunk=None, *_after) -> dict:
     t0 = time.perf_counter()
     config, store = _open(part.config_path)
     try:
-        if store.load_state(part.name):
+        if not redo and store.load_state(part.name):
             return {"skipped": True, "rows_read": 0, "seconds": time.perf_counter() - t0, "observations": None}
         pipeline = _ObservingPipeline(config)
         # restart the partition from its start: its alarm observations are not stored, so a
@@ -213,7 +213,7 @@ def fit_baseline(config_path: str, refit: bool = False, *_after) -> list[str]:
         store.close()
 
 
-def alarm_partition(part: Partition, previous: dict | None, computed: dict) -> dict:
+def alarm_partition(part: Partition, previous: dict | None, computed: dict, redo: bool = False) -> dict:
     """Task: run the alarm machines over one partition's observations, starting from the
     state ``previous`` left (None: the state saved by the partition before, or fresh), write the
     events and save the completion state. Returns the alarm state."""
@@ -222,7 +222,7 @@ def alarm_partition(part: Partition, previous: dict | None, computed: dict) -> d
 
     config, store = _open(part.config_path)
     try:
-        done = store.load_state(part.name)
+        done = None if redo else store.load_state(part.name)
         if done:
             return done.get("alarms") or {}
         state = previous or {}
@@ -271,7 +271,11 @@ def run_fleet(client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=
     chunk : str or Timedelta or None
         Worker chunk inside a partition (default ``[schedule] chunk`` of each unit).
     refit : bool
-        Fit the baseline again even when one is saved (after changing the reference period).
+        Fit the baseline again even when one is saved (after changing the reference period)
+        and recompute every partition after the baseline end, done or not (their deviations
+        and alarms depend on the model). Alarm events of the earlier run at instants where the
+        new run has none stay in the store: clear the ``alarm_events`` series of the unit first
+        when the baseline changed.
 
     Returns
     -------
@@ -293,17 +297,17 @@ def run_fleet(client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=
         computed = {}
         for p in parts:
             if p.phase == 1:
-                computed[p] = client.submit(compute_partition, p, chunk, pure=False)
+                computed[p] = client.submit(compute_partition, p, chunk, False, pure=False)
         # the fit waits for small summaries of the phase-1 partitions, so their alarm
         # observations stay where they were computed (Dask runs _summary beside its input)
         phase1 = [client.submit(_summary, f, pure=False) for f in computed.values()]
         fit = client.submit(fit_baseline, path, refit, *phase1, pure=False)
         for p in parts:
             if p.phase == 2:
-                computed[p] = client.submit(compute_partition, p, chunk, fit, pure=False)
+                computed[p] = client.submit(compute_partition, p, chunk, refit, fit, pure=False)
         state = None
         for p in parts:  # the alarm chain of the unit, in time order
-            state = client.submit(alarm_partition, p, state, computed[p], pure=False)
+            state = client.submit(alarm_partition, p, state, computed[p], refit and p.phase == 2, pure=False)
         metas += phase1 + [client.submit(_summary, computed[p], pure=False) for p in parts if p.phase == 2]
         ends.append((unit, state, fit))
         report.partitions += len(parts)

@@ -48,7 +48,7 @@ def add_arguments(parser) -> None:
     parser.add_argument("--chunk", metavar="DURATION",
                         help="worker chunk inside a partition, e.g. 7d (default: [schedule] chunk)")
     parser.add_argument("--refit", action="store_true",
-                        help="fit the baseline again even when one is saved (after changing [baseline])")
+                        help="fit the baseline again even when one is saved (after changing [baseline]) and recompute the partitions after the baseline end")
 
 
 def run(args) -> int:

@@ -96,9 +96,11 @@ def test_fleet_on_two_processes_equals_a_sequential_backfill(tmp_path, raw):
                                       host="127.0.0.1") as cluster, distributed.Client(cluster) as client:
             first = fleet.run_fleet(client, [str(fleet_path)], START, END, period="1D", chunk="1d")
             again = fleet.run_fleet(client, [str(fleet_path)], START, END, period="1D", chunk="1d")
+            refit = fleet.run_fleet(client, [str(fleet_path)], START, END, period="1D", chunk="1d", refit=True)
         assert first.partitions == DAYS and first.skipped == 0
         assert first.baselines[config.unit.name]  # a model was fitted between the phases
         assert again.skipped == DAYS and again.rows_read == 0  # re-run: every partition done
+        assert refit.skipped == 2  # a refit recomputes the partitions after the baseline end only
 
         fleet_store = open_store("sqlite", path=str(tmp_path / "fleet.sqlite"))
         try:
