@@ -203,3 +203,30 @@ def test_test_eval_on_a_plateau_agrees_with_the_online_trend(demo_dir, capsys):
         assert bool(hp["agrees"]) is True
     else:  # every sub-period failed the PTC 6 fluctuation limits: status says so
         assert rc == 1 and not sub["passed"].any()
+
+
+def test_demo_finds_the_hp_rate_the_flatline_and_raises_nothing_in_clean_sections(demo_dir):
+    # Injected truth of the fictional unit (truth.json): HP loses hp.rate_points_per_1000h
+    # (-0.4) per 1000 operating hours; the cold reheat thermocouple flatlines for two days;
+    # the LP dry group does not change, so no LP alarm may be raised.
+    truth = json.loads((demo_dir / "truth.json").read_text())
+    con = sqlite3.connect(demo_dir / "greywater2.sqlite")
+    try:
+        low, high, ok = con.execute(
+            "SELECT rate_low, rate_high, rate_ok FROM degradation WHERE section = 'hp' ORDER BY time DESC LIMIT 1"
+        ).fetchone()
+        events = pd.read_sql("SELECT section, rule, time, raised FROM alarm_events ORDER BY time", con)
+    finally:
+        con.close()
+    assert ok == 1.0
+    assert low <= truth["hp"]["rate_points_per_1000h"] <= high
+    flat = truth["flatline"]
+    t0, t1 = pd.Timestamp(flat["start"]), pd.Timestamp(flat["end"])
+    mine = events[(events["section"] == flat["role"]) & (events["rule"] == "data_quality")]
+    times = pd.to_datetime(mine["time"], unit="ms", utc=True)
+    raised = times[mine["raised"].to_numpy() == 1.0]
+    assert len(raised) == 1 and t0 < raised.iloc[0] < t0 + pd.Timedelta(hours=2)
+    cleared = times[mine["raised"].to_numpy() == 0.0]
+    assert len(cleared) == 1 and abs(cleared.iloc[0] - t1) < pd.Timedelta(hours=1)
+    assert not len(events[events["section"] == "lp"]), events[events["section"] == "lp"]
+    assert not len(events[(events["section"] == "hp") & events["rule"].str.startswith("deviation")])
