@@ -14,8 +14,7 @@ from __future__ import annotations
 import logging
 import sys
 
-import pandas as pd
-
+from isentrope.daemon.commands import parse_time
 from isentrope.daemon.errors import EXIT_OK
 
 NAME = "fleet-backfill"
@@ -23,14 +22,6 @@ HELP = ("backfill many units over a long period on a Dask cluster, partitioned b
         "resumable (advisory performance information, not a protective function)")
 
 logger = logging.getLogger("isentrope.fleet")
-
-
-def _time(text: str) -> pd.Timestamp:
-    try:
-        t = pd.Timestamp(text)
-    except (ValueError, TypeError):
-        raise ValueError(f"time {text!r} not understood; expected ISO 8601 such as 2025-01-01T00:00Z") from None
-    return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
 
 
 def add_arguments(parser) -> None:
@@ -55,7 +46,7 @@ def run(args) -> int:
     from isentrope.daemon import fleet
     from isentrope.daemon.config import load_config, parse_duration
 
-    start, end = _time(args.start), _time(args.end)
+    start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     if args.workers < 1:
