@@ -37,17 +37,16 @@ from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
+    LineProtocolWriter,
     StateClock,
     classify_http,
-    keep_unwritten,
-    raw_lines,
     result_lines,
     state_line,
     time_windows,
 )
 
 
-class Influx1Store(Store):
+class Influx1Store(LineProtocolWriter, Store):
     """Store on an InfluxDB v1 HTTP API.
 
     Parameters
@@ -210,28 +209,12 @@ class Influx1Store(Store):
         series = {role: (pd.concat(ps) if ps else None) for role, ps in parts.items()}
         return common.role_frame(mappings, {k: v for k, v in series.items() if v is not None})
 
-    def write_raw(self, mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> int:
-        lines, samples = raw_lines(mappings, frame)
-        self._write(lines, "write_raw")
-        return samples
-
-    def _write(self, lines: list[str], what: str) -> None:
-        with self._write_lock:  # the worker may write from scheduler threads
-            self._write_locked(lines, what)
-
-    def _write_locked(self, lines: list[str], what: str) -> None:
+    def _send_batch(self, text: str, what: str) -> None:
+        """One batch of line protocol to /write (``LineProtocolWriter`` does the batching)."""
         params = {"db": self.database, "precision": "ns"}
         if self.retention_policy:
             params["rp"] = self.retention_policy
-        todo = self.pending + list(lines)
-        self.pending = []
-        for i in range(0, len(todo), self.batch_size):
-            batch = todo[i : i + self.batch_size]
-            try:
-                self._request("POST", "/write", what, params=params, data="\n".join(batch).encode())
-            except (TemporaryStoreError, FatalStoreError) as err:
-                keep_unwritten(self, err, todo[i:])
-                raise
+        self._request("POST", "/write", what, params=params, data=text.encode())
 
     # --- results -------------------------------------------------------------------------
     def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:

@@ -52,10 +52,9 @@ from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
+    LineProtocolWriter,
     StateClock,
     classify_http,
-    keep_unwritten,
-    raw_lines,
     result_lines,
     state_line,
     time_windows,
@@ -70,7 +69,7 @@ def flux_time(t: pd.Timestamp) -> str:
     return t.strftime("%Y-%m-%dT%H:%M:%S") + f".{t.value % 1_000_000_000:09d}Z"
 
 
-class Influx2Store(Store):
+class Influx2Store(LineProtocolWriter, Store):
     """Store on an InfluxDB v2 HTTP API.
 
     Parameters
@@ -227,27 +226,14 @@ class Influx2Store(Store):
         series = {role: pd.concat(ps) for role, ps in parts.items() if ps}
         return common.role_frame(mappings, series)
 
-    def write_raw(self, mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> int:
-        lines, samples = raw_lines(mappings, frame)
-        self._write(lines, "write_raw")
-        return samples
-
-    def _write(self, lines: list[str], what: str) -> None:
-        with self._write_lock:  # the worker may write from scheduler threads
-            self._write_locked(lines, what)
-
-    def _write_locked(self, lines: list[str], what: str) -> None:
-        todo = self.pending + list(lines)
-        self.pending = []
-        for i in range(0, len(todo), self.batch_size):
-            batch = todo[i : i + self.batch_size]
-            try:
-                self._write_api.write(bucket=self.bucket, org=self.org or "-", record="\n".join(batch),
-                                      write_precision=WritePrecision.NS)
-            except self._CAUGHT as exc:
-                err = self._error(exc, what)
-                keep_unwritten(self, err, todo[i:])
-                raise err from None
+    def _send_batch(self, text: str, what: str) -> None:
+        """One batch of line protocol through the client's write API (``LineProtocolWriter``
+        does the batching)."""
+        try:
+            self._write_api.write(bucket=self.bucket, org=self.org or "-", record=text,
+                                  write_precision=WritePrecision.NS)
+        except self._CAUGHT as exc:
+            raise self._error(exc, what) from None
 
     # --- results -------------------------------------------------------------------------
     def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:

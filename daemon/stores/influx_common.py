@@ -48,6 +48,34 @@ def keep_unwritten(store, err: Exception, lines: list[str]) -> None:
     store.pending = list(lines) if isinstance(err, TemporaryStoreError) else []
 
 
+class LineProtocolWriter:
+    """What both InfluxDB stores share on the write side: raw samples as line protocol, sent
+    in batches of ``batch_size`` under one lock, with unwritten lines kept (``keep_unwritten``).
+
+    A store using it sets ``batch_size``, ``pending`` (list) and ``_write_lock`` and implements
+    ``_send_batch(text, what)``, raising ``TemporaryStoreError`` or ``FatalStoreError``.
+    """
+
+    def write_raw(self, mappings, frame) -> int:
+        lines, samples = raw_lines(mappings, frame)
+        self._write(lines, "write_raw")
+        return samples
+
+    def _write(self, lines: list[str], what: str) -> None:
+        with self._write_lock:  # the worker may write from scheduler threads
+            todo = self.pending + list(lines)
+            self.pending = []
+            for i in range(0, len(todo), self.batch_size):
+                try:
+                    self._send_batch("\n".join(todo[i : i + self.batch_size]), what)
+                except (TemporaryStoreError, FatalStoreError) as err:
+                    keep_unwritten(self, err, todo[i:])
+                    raise
+
+    def _send_batch(self, text: str, what: str) -> None:  # pragma: no cover - abstract
+        raise NotImplementedError
+
+
 def _format_column(values: np.ndarray) -> list[str | None]:
     """repr() of each finite value (shortest exact form), None for NaN."""
     return [repr(v) if v == v else None for v in values.tolist()]
