@@ -11,7 +11,6 @@ on the last Sunday of October; in 2026 those are 29 March and 25 October), and t
 from __future__ import annotations
 
 import importlib
-
 import socket
 import textwrap
 from collections import Counter
