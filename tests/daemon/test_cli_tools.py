@@ -135,7 +135,7 @@ def test_check_finds_what_the_synthetic_case_injected(tmp_path, capsys):
     import shutil
 
     case = Path(__file__).resolve().parents[2] / "fixtures" / "cases" / "greywater_u2_2day"
-    if not case.is_dir():
+    assert case.is_dir(), "golden case greywater_u2_2day is missing from fixtures/cases"
     truth = json.loads((case / "truth.json").read_text())
     shutil.copy(case / "config.toml", tmp_path / "config.toml")
     path = tmp_path / "config.toml"
