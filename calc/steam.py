@@ -943,6 +943,47 @@ def _core_pt(prop):
     return core
 
 
+def _core_hs_pt(p, t):
+    """h and s of one block from one region-1/2 evaluation (the Gibbs sums serve both)."""
+    reg, reason = _region_pt(p, t)
+    h = np.full(p.shape[0], np.nan)
+    s = np.full(p.shape[0], np.nan)
+    for r in (1, 2):
+        m = reg == r
+        if m.any():
+            d = _FORWARD[r](p[m], t[m], ("h", "s"))
+            h[m], s[m] = d["h"], d["s"]
+    fb = np.flatnonzero((reg == 3) | (reg == 5))
+    if fb.size:
+        for prop, out in (("h", h), ("s", s)):
+            vals, _, ok = _iapws_points_pt(p[fb], t[fb], prop)
+            out[fb[ok]] = vals[ok]
+            out[fb[~ok]] = np.nan
+    return h, s
+
+
+def _hs_pt(p, t):
+    """Specific enthalpy [kJ/kg] and entropy [kJ/(kg K)] at flat float arrays p [MPa] and
+    T [K] in one pass: the same values, bit for bit, as ``h_pt`` and ``s_pt`` (same region
+    choice and the same sums; NaN outside IF97), at about the cost of one of them. Private:
+    used by calc/sections.py for the perturbed states of its uncertainty propagation.
+
+    References
+    ----------
+    IAPWS R7-97(2012): region 1 eq. (7) with Table 3, region 2 eq. (15) with Table 12.
+    """
+    p = np.ascontiguousarray(p, dtype=float).reshape(-1)
+    t = np.ascontiguousarray(t, dtype=float).reshape(-1)
+    n = p.shape[0]
+    h = np.empty(n)
+    s = np.empty(n)
+    with np.errstate(all="ignore"):
+        for lo in range(0, n, _BLOCK):
+            sl = slice(lo, lo + _BLOCK)
+            h[sl], s[sl] = _core_hs_pt(p[sl], t[sl])
+    return h, s
+
+
 def _iapws_points_pt(p, t, prop):
     """iapws.IAPWS97(P=, T=) point by point for region 3/5 points; returns (values, regions, ok)."""
     from iapws import IAPWS97

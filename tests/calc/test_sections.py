@@ -586,6 +586,27 @@ def test_fast_section_uncertainty_matches_whole_chain_propagation():
     np.testing.assert_allclose(fast, slow, rtol=2e-3)
 
 
+def test_one_pass_inlet_differences_equal_the_per_property_differences_bit_for_bit():
+    # _pt_derivative_hs (h and s of each perturbed state in one pass) must give exactly the
+    # central / one-sided / NaN differences of _pt_derivative applied to h_pt and s_pt:
+    # the _u figures are stored. Points 0.5 K above saturation (iapws, reference library)
+    # make the minus state wet (one-sided), a NaN pressure gives NaN.
+    p = np.array([12.0, 16.0, 3.0, 0.5, 8.0, np.nan, 25.0])
+    t = np.array([800.0, 820.0, IAPWS97(P=3.0, x=1).T + 0.5, IAPWS97(P=0.5, x=1).T + 0.5, 700.0, 700.0, 900.0])
+    mask = np.isfinite(p)
+    h0, s0 = steam.h_pt(p, t), steam.s_pt(p, t)
+    for which, step in (("t", np.full(p.size, 1.0)), ("p", 0.0025 * p)):
+        dh, ds = S._pt_derivative_hs(p, t, step, which, h0, s0, mask)
+        ref_h = S._pt_derivative(steam.h_pt, p, t, step, which, h0, mask)
+        ref_s = S._pt_derivative(steam.s_pt, p, t, step, which, s0, mask)
+        assert np.array_equal(dh, ref_h, equal_nan=True)
+        assert np.array_equal(ds, ref_s, equal_nan=True)
+        assert np.isnan(dh[5]) and np.isfinite(dh[:5]).all()
+    # (dh/dT)_p is cp to the first order: iapws (reference library), central difference error
+    dh, _ = S._pt_derivative_hs(p, t, np.full(p.size, 1.0), "t", h0, s0, mask)
+    assert dh[0] == pytest.approx(IAPWS97(P=12.0, T=800.0).cp, rel=1e-4)
+
+
 def test_flow_uncertainty_reaches_ueep_only():
     # Main steam flow enters the annulus velocity, hence the exhaust loss and the UEEP, but not
     # the expansion line (ELEP, moisture) of the expansion mode.

@@ -509,3 +509,22 @@ def test_empty_and_nullable_inputs():
     assert isinstance(h, pd.Series) and np.isnan(h.iloc[1])
     assert d.reason.tolist() == [steam.OK, steam.NOT_FINITE, steam.OK]
     assert h.iloc[0] == pytest.approx(steam.h_pt(1.0, 600.0), rel=1e-15)
+
+
+def test_h_and_s_in_one_pass_equal_h_pt_and_s_pt_bit_for_bit():
+    # The private one-pass helper used by the section uncertainty must give exactly what the
+    # public functions give (the figures it feeds are stored), including across blocks, at
+    # region 3/5 fallback points, and NaN outside IF97; and it must match iapws (reference).
+    p, t = _grid_pt()
+    p = np.concatenate([p, [25.0, 5.0, -1.0, np.nan, 200.0], np.full(20000, 10.0)])
+    t = np.concatenate([t, [650.0, 1200.0, 600.0, 600.0, 600.0], np.linspace(600.0, 900.0, 20000)])
+    h, s = steam._hs_pt(p, t)
+    assert np.array_equal(h, steam.h_pt(p, t), equal_nan=True)
+    assert np.array_equal(s, steam.s_pt(p, t), equal_nan=True)
+    assert np.isnan(h[-20003:-20000]).all() and np.isnan(s[-20003:-20000]).all()
+    # iapws (reference library) at a region-1, a region-2, a region-3 and a region-5 point
+    for pk, tk in ((3.0, 500.0), (0.0035, 700.0), (25.0, 650.0), (5.0, 1200.0)):
+        hk, sk = steam._hs_pt(np.array([pk]), np.array([tk]))
+        ref = IAPWS97(P=pk, T=tk)
+        assert hk[0] == pytest.approx(ref.h, rel=1e-9)
+        assert sk[0] == pytest.approx(ref.s, rel=1e-9)
