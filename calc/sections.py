@@ -327,8 +327,11 @@ class SectionExpansion:
     reason: object
 
 
-def _section_core(p_in, t_in, p_out, t_out):
-    """Flat float arrays in, dict of flat arrays out (see ``SectionExpansion``)."""
+def _section_core(p_in, t_in, p_out, t_out, end_state=False):
+    """Flat float arrays in, dict of flat arrays out (see ``SectionExpansion``). With
+    ``end_state`` also "t_out_isentropic" [K] and "v_out_isentropic" [m3/kg], the temperature
+    and volume of the isentropic end point from the same solve that gives its enthalpy (for
+    ``_section_uncertainty``; the other figures are the same bit for bit)."""
     n = p_in.size
     reason = np.zeros(n, dtype=np.int64)
     finite = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_out) & np.isfinite(t_out)
@@ -345,7 +348,14 @@ def _section_core(p_in, t_in, p_out, t_out):
     h_in, s_in = _call_hs(ok, p_in, t_in)
     h_out = _call(steam.h_pt, ok, p_out, t_out)
     ok &= np.isfinite(h_in) & np.isfinite(s_in) & np.isfinite(h_out)
-    h_s = _call(steam.h_ps, ok, p_out, s_in)
+    if end_state:
+        h_s = np.full(n, np.nan)
+        t_s = np.full(n, np.nan)
+        v_s = np.full(n, np.nan)
+        if ok.any():
+            h_s[ok], t_s[ok], v_s[ok] = steam._end_state_ps(p_out[ok], s_in[ok])
+    else:
+        h_s = _call(steam.h_ps, ok, p_out, s_in)
     _mark(reason, (reason == OK) & ~(ok & np.isfinite(h_s)), OUT_OF_RANGE)
     drop = h_in - h_out
     drop_s = h_in - h_s
@@ -354,7 +364,9 @@ def _section_core(p_in, t_in, p_out, t_out):
     good = reason == OK
     eff = np.full(n, np.nan)
     eff[good] = drop[good] / drop_s[good]
+    extra = {"t_out_isentropic": t_s, "v_out_isentropic": v_s} if end_state else {}
     return {
+        **extra,
         "h_in": h_in,
         "s_in": s_in,
         "h_out": h_out,
@@ -1234,14 +1246,19 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps):
     h1, s1, h2, h2s = base["h_in"], base["s_in"], base["h_out"], base["h_out_isentropic"]
     eta = base["efficiency"]
     d = h1 - h2s
-    t2s = _call(steam.t_ph, ok, p_out, h2s)
-    wet2 = ok & (p_out < P_CRIT)
-    hg2 = _call(steam.h_sat_vapour, wet2, p_out)
-    with np.errstate(invalid="ignore"):
-        wet2 &= h2s <= hg2
-    v2s = _call(steam.v_pt, ok & ~wet2, p_out, t2s)
-    if wet2.any():
-        v2s[wet2] = _call(steam.v_ph, wet2, p_out, h2s)[wet2]
+    if "t_out_isentropic" in base:
+        # T and v of the end point from the solve that gave h2s (``_section_core(...,
+        # end_state=True)``): within 1e-13 relative of re-solving T(p, h) and then v(p, T).
+        t2s, v2s = base["t_out_isentropic"], base["v_out_isentropic"]
+    else:
+        t2s = _call(steam.t_ph, ok, p_out, h2s)
+        wet2 = ok & (p_out < P_CRIT)
+        hg2 = _call(steam.h_sat_vapour, wet2, p_out)
+        with np.errstate(invalid="ignore"):
+            wet2 &= h2s <= hg2
+        v2s = _call(steam.v_pt, ok & ~wet2, p_out, t2s)
+        if wet2.any():
+            v2s[wet2] = _call(steam.v_ph, wet2, p_out, h2s)[wet2]
     var = np.zeros(p_in.size)
     for which, pv in (("t", "t_in"), ("p", "p_in")):
         if not np.any(u[pv] > 0):
@@ -1411,8 +1428,8 @@ def _column(frame, role, n):
     return np.full(n, np.nan)
 
 
-def _section_group(inp, roles):
-    return _section_core(*(inp[r] for r in roles))
+def _section_group(inp, roles, end_state=False):
+    return _section_core(*(inp[r] for r in roles), end_state=end_state)
 
 
 def _lp_figures(inp, cfg):
@@ -1691,7 +1708,7 @@ def evaluate(
             for k in ("efficiency", "efficiency_u", "enthalpy_drop", "isentropic_drop"):
                 out[f"{g}_{k}"] = nan()
             continue
-        r = _section_group(inp, roles)
+        r = _section_group(inp, roles, end_state=u_roles is not None)
         codes[g] = r["reason"]
         out[f"{g}_efficiency"] = r["efficiency"]
         good = r["reason"] == OK

@@ -984,6 +984,30 @@ def _hs_pt(p, t):
     return h, s
 
 
+def _end_state_ps(p, s):
+    """h [kJ/kg], T [K] and v [m3/kg] at flat float arrays p [MPa] and s [kJ/(kg K)] from
+    one solve: h is bit for bit ``h_ps`` (the Newton iterates do not depend on the extra
+    properties asked for); T and v are those of the same solution (NaN outside IF97).
+    Private: the isentropic end point of calc/sections.py and its sensitivities
+    (dh_s = T ds + v dp) without a second solve.
+
+    References
+    ----------
+    IAPWS R7-97(2012); backward equations as in ``h_ps``.
+    """
+    p = np.ascontiguousarray(p, dtype=float).reshape(-1)
+    s = np.ascontiguousarray(s, dtype=float).reshape(-1)
+    n = p.shape[0]
+    out = {k: np.empty(n) for k in ("h", "t", "v")}
+    with np.errstate(all="ignore"):
+        for lo in range(0, n, _BLOCK):
+            sl = slice(lo, lo + _BLOCK)
+            val, _, _, _ = _solve("s", p[sl], s[sl], ("h", "t", "v"))
+            for k in out:
+                out[k][sl] = val[k]
+    return out["h"], out["t"], out["v"]
+
+
 def _iapws_points_pt(p, t, prop):
     """iapws.IAPWS97(P=, T=) point by point for region 3/5 points; returns (values, regions, ok)."""
     from iapws import IAPWS97

@@ -607,6 +607,29 @@ def test_one_pass_inlet_differences_equal_the_per_property_differences_bit_for_b
     assert dh[0] == pytest.approx(IAPWS97(P=12.0, T=800.0).cp, rel=1e-4)
 
 
+def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
+    # _section_core(..., end_state=True) takes T and v of the isentropic end point from the
+    # h(p, s) solve instead of re-solving T(p, h): the figures must be bit for bit the same
+    # and the uncertainty the same within 1e-12 relative (both are IF97 at one state),
+    # wet end points (LP-dry-like outlets near saturation) included.
+    rng = np.random.default_rng(5)
+    cases = np.vstack([_random_sections(rng, 8, (10.0, 18.0), (780.0, 830.0), (0.15, 0.3)),
+                       _random_sections(rng, 8, (0.3, 0.5), (570.0, 600.0), (0.1, 0.15))])
+    args = [cases[:, i].copy() for i in range(4)]
+    old = S._section_core(*args)
+    new = S._section_core(*args, end_state=True)
+    for k, v in old.items():
+        assert np.array_equal(v, new[k], equal_nan=True), k
+    wet_end = np.isfinite(steam.x_ps(args[2], new["s_in"]))
+    assert wet_end.any() and (~wet_end).any()
+    u = {"p_in": 0.0025 * args[0], "t_in": np.full(len(cases), 1.0),
+         "p_out": 0.0025 * args[2], "t_out": np.full(len(cases), 1.0)}
+    a = S._section_uncertainty(*args, old, u, u)
+    b = S._section_uncertainty(*args, new, u, u)
+    assert np.isfinite(a).all()
+    np.testing.assert_allclose(b, a, rtol=1e-12)
+
+
 def test_flow_uncertainty_reaches_ueep_only():
     # Main steam flow enters the annulus velocity, hence the exhaust loss and the UEEP, but not
     # the expansion line (ELEP, moisture) of the expansion mode.

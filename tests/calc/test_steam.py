@@ -528,3 +528,21 @@ def test_h_and_s_in_one_pass_equal_h_pt_and_s_pt_bit_for_bit():
         ref = IAPWS97(P=pk, T=tk)
         assert hk[0] == pytest.approx(ref.h, rel=1e-9)
         assert sk[0] == pytest.approx(ref.s, rel=1e-9)
+
+
+def test_end_state_from_one_solve_matches_h_ps_t_ps_and_v_ph():
+    # The private one-solve end state: h bit for bit h_ps, T bit for bit t_ps, v within
+    # 1e-12 of v_ph at that h (dry and wet states, a region-3 fallback point, NaN outside),
+    # and iapws (reference library) at a dry and a wet point.
+    p = np.array([3.0, 0.05, 0.01, 8.0, 25.0, -1.0, 0.5])
+    s = np.array([7.0, 7.0, 8.3, 6.0, 5.0, 7.0, np.nan])
+    h, t, v = steam._end_state_ps(p, s)
+    assert np.array_equal(h, steam.h_ps(p, s), equal_nan=True)
+    assert np.array_equal(t, steam.t_ps(p, s), equal_nan=True)
+    np.testing.assert_allclose(v[:5], steam.v_ph(p[:5], h[:5]), rtol=1e-12)
+    assert np.isnan(h[5:]).all() and np.isnan(t[5:]).all() and np.isnan(v[5:]).all()
+    for k in (0, 1):
+        ref = IAPWS97(P=float(p[k]), s=float(s[k]))
+        assert h[k] == pytest.approx(ref.h, rel=1e-9)
+        assert t[k] == pytest.approx(ref.T, rel=1e-9)
+        assert v[k] == pytest.approx(ref.v, rel=1e-8)
