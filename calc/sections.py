@@ -627,9 +627,10 @@ def _exhaust_volume(p_exh, h, sat, vols, mask):
     return v
 
 
-def _lp_core(p_in, t_in, p_exh, eta, a, exhaust_sat=None):
+def _lp_core(p_in, t_in, p_exh, eta, a, exhaust_sat=None, inlet_states=None):
     """Flat float arrays in (a: scalar), dict of flat arrays out (see LPExpansion).
-    ``exhaust_sat``: precomputed ``_exhaust_saturation(p_exh, all-true)`` to reuse."""
+    ``exhaust_sat``: precomputed ``_exhaust_saturation(p_exh, all-true)`` to reuse;
+    ``inlet_states``: an ``_InletStates`` to look the inlet h and s up in."""
     n = p_in.size
     reason = np.zeros(n, dtype=np.int64)
     finite = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_exh)
@@ -641,7 +642,10 @@ def _lp_core(p_in, t_in, p_exh, eta, a, exhaust_sat=None):
     ok = reason == OK
     _mark(reason, ok & ~_superheated(p_in, t_in, ok), INLET_NOT_SUPERHEATED)
     ok = reason == OK
-    h_in, s_in = _call_hs(ok, p_in, t_in)
+    if inlet_states is None:
+        h_in, s_in = _call_hs(ok, p_in, t_in)
+    else:
+        h_in, s_in = inlet_states.get(ok, p_in, t_in)
     ok &= np.isfinite(h_in) & np.isfinite(s_in)
     if exhaust_sat is None:
         hf, hg, sf, sg = _exhaust_saturation(p_exh, ok)
@@ -1198,7 +1202,39 @@ def _call_hs(mask, p, t):
     return h, s
 
 
-def _pt_derivative_hs(p, t, step, which, h0, s0, mask):
+class _InletStates:
+    """h and s of (p, T) states already evaluated within one ``evaluate`` call, found again
+    by value: the LP dry group and the LP chain share the crossover inlet, and their
+    uncertainty differences perturb it by the same steps, so the LP chain finds all its
+    inlet states here. Values are those of ``_call_hs`` (the IF97 sums are per point, so a
+    state computed on a larger mask is the same bit for bit)."""
+
+    def __init__(self):
+        self._entries = []
+
+    def add(self, p, t, mask, h, s):
+        self._entries.append((p, t, mask.copy(), h, s))
+
+    def get(self, mask, p, t):
+        """Like ``_call_hs(mask, p, t)``: h, s where ``mask`` holds, NaN elsewhere."""
+        h = np.full(mask.shape, np.nan)
+        s = np.full(mask.shape, np.nan)
+        todo = mask.copy()
+        for ep, et, em, eh, es in self._entries:
+            if not todo.any():
+                break
+            if ep.shape != p.shape or not (np.array_equal(ep, p, equal_nan=True) and np.array_equal(et, t, equal_nan=True)):
+                continue
+            hit = todo & em
+            h[hit], s[hit] = eh[hit], es[hit]
+            todo &= ~em
+        if todo.any():
+            h[todo], s[todo] = steam._hs_pt(p[todo], t[todo])
+            self.add(p, t, mask, h, s)
+        return h, s
+
+
+def _pt_derivative_hs(p, t, step, which, h0, s0, mask, inlet_states=None):
     """d h / d(which) and d s / d(which) at (p, t): the same central (or one-sided)
     differences as ``_pt_derivative`` of ``steam.h_pt`` and of ``steam.s_pt``, bit for bit,
     from one h-and-s evaluation per perturbed state and, for a temperature step, one
@@ -1215,8 +1251,12 @@ def _pt_derivative_hs(p, t, step, which, h0, s0, mask):
         pp, pm, tp, tm = p + step, p - step, t, t
         okp = _superheated(pp, tp, mask & np.isfinite(pp))
         okm = _superheated(pm, tm, mask & np.isfinite(pm))
-    hp_, sp_ = _call_hs(okp, pp, tp)
-    hm_, sm_ = _call_hs(okm, pm, tm)
+    if inlet_states is None:
+        hp_, sp_ = _call_hs(okp, pp, tp)
+        hm_, sm_ = _call_hs(okm, pm, tm)
+    else:
+        hp_, sp_ = inlet_states.get(okp, pp, tp)
+        hm_, sm_ = inlet_states.get(okm, pm, tm)
     out = []
     for fp, fm, f0 in ((hp_, hm_, h0), (sp_, sm_, s0)):
         okp_f = okp & np.isfinite(fp)
@@ -1230,7 +1270,7 @@ def _pt_derivative_hs(p, t, step, which, h0, s0, mask):
     return out[0], out[1]
 
 
-def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps):
+def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps, inlet_states=None):
     """Standard uncertainty of a superheated section's efficiency (GUM first order).
 
     Same law as ``propagate_uncertainty``, but each input's central difference re-evaluates
@@ -1241,8 +1281,11 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps):
     (which re-solves h(p, s) each time): on 100,000 HP rows 1.4-1.6 s against 4.0 s of CPU,
     results within a relative 3e-6 of each other (checked in tests).
 
-    ``u`` and ``steps``: dicts with keys "p_in", "t_in", "p_out", "t_out" (arrays)."""
+    ``u`` and ``steps``: dicts with keys "p_in", "t_in", "p_out", "t_out" (arrays).
+    ``inlet_states``: an ``_InletStates`` that keeps the inlet states for later reuse."""
     ok = base["reason"] == OK
+    if inlet_states is not None:
+        inlet_states.add(p_in, t_in, ok, np.where(ok, base["h_in"], np.nan), np.where(ok, base["s_in"], np.nan))
     h1, s1, h2, h2s = base["h_in"], base["s_in"], base["h_out"], base["h_out_isentropic"]
     eta = base["efficiency"]
     d = h1 - h2s
@@ -1263,7 +1306,7 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps):
     for which, pv in (("t", "t_in"), ("p", "p_in")):
         if not np.any(u[pv] > 0):
             continue
-        dh1, ds1 = _pt_derivative_hs(p_in, t_in, steps[pv], which, h1, s1, ok)
+        dh1, ds1 = _pt_derivative_hs(p_in, t_in, steps[pv], which, h1, s1, ok, inlet_states)
         dh2s = t2s * ds1
         c = (dh1 - eta * (dh1 - dh2s)) / d
         var += (c * u[pv]) ** 2
@@ -1461,7 +1504,8 @@ def _lp_figures(inp, cfg):
                 eta = _section_group(inp, _LPD)["efficiency"]
             else:
                 eta = np.full(n, cfg["eta_lp_design"])
-            r = _lp_core(p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat)
+            r = _lp_core(p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat,
+                         inlet_states=cfg.get("inlet_states"))
             if done is None:
                 cfg["lp_core_cache"] = (key, r)
         lp_reason = r["reason"].copy()
@@ -1697,6 +1741,7 @@ def evaluate(
 
     out = {}
     codes = {}
+    inlet_states = _InletStates()  # crossover states shared by the LP dry group and LP chain
 
     def nan():
         return np.full(n, np.nan)
@@ -1726,6 +1771,7 @@ def evaluate(
                 r,
                 {kk: uu[k] for kk, k in zip(keys, roles)},
                 {kk: st[k] for kk, k in zip(keys, roles)},
+                inlet_states if g == "lp_dry" else None,
             )
 
     # LP exhaust
@@ -1761,6 +1807,7 @@ def evaluate(
             "losses_mw": losses_mw,
             "sat_cache": {},
             "lp_core_cache": None,
+            "inlet_states": inlet_states,
         }
         r = _lp_figures(inp, cfg)
         codes["lp"] = r["lp_reason"]

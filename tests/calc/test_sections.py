@@ -630,6 +630,24 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
     np.testing.assert_allclose(b, a, rtol=1e-12)
 
 
+def test_shared_inlet_states_give_what_a_fresh_evaluation_gives():
+    # _InletStates.get must return exactly _call_hs on the requested mask (NaN elsewhere),
+    # whether the state was stored on a smaller, a larger or an overlapping mask.
+    p = np.array([12.0, 3.0, 0.5, np.nan, 8.0, 1.0])
+    t = np.array([800.0, 600.0, 500.0, 700.0, 650.0, 560.0])
+    m1 = np.array([True, True, False, False, True, False])
+    m2 = np.array([False, True, True, False, True, True])
+    states = S._InletStates()
+    h1, s1 = states.get(m1, p, t)
+    h2, s2 = states.get(m2, p.copy(), t.copy())
+    for (h, s), m in (((h1, s1), m1), ((h2, s2), m2)):
+        rh, rs = S._call_hs(m, p, t)
+        assert np.array_equal(h, rh, equal_nan=True) and np.array_equal(s, rs, equal_nan=True)
+        assert np.array_equal(h, steam.h_pt(np.where(m, p, np.nan), t), equal_nan=True)
+    h3, _ = states.get(m1, p, t + 1.0)  # another state: evaluated, not taken from the store
+    assert np.array_equal(h3, S._call_hs(m1, p, t + 1.0)[0], equal_nan=True)
+
+
 def test_flow_uncertainty_reaches_ueep_only():
     # Main steam flow enters the annulus velocity, hence the exhaust loss and the UEEP, but not
     # the expansion line (ELEP, moisture) of the expansion mode.
