@@ -338,23 +338,28 @@ def _sample_hours(series: pd.Series) -> float:
 ANALYSIS_RULES = ("degradation_rate", "step_change")
 
 
+def alarm_series(config) -> list[tuple[str, str]]:
+    """Every (section or tag, rule) pair whose ``alarm_events`` series the worker or the
+    analysis can write for ``config``."""
+    from isentrope.daemon.pipeline import Pipeline
+
+    rules = [r.name for r in Pipeline(config).alarm_rules()] + list(ANALYSIS_RULES)
+    where = list(SECTIONS) + [m.role for m in config.mappings]
+    return [(w, r) for w in where for r in rules]
+
+
 def raised_alarms(store, config, start: pd.Timestamp, end: pd.Timestamp) -> dict[str, list[tuple]]:
     """Every alarm raised in ``[start, end)`` per section (or tag): ``[(time, rule), ...]``.
 
     Reads the ``alarm_events`` series of the per-cycle rules and of the analysis.
     """
-    from isentrope.daemon.pipeline import Pipeline
-
-    rules = [r.name for r in Pipeline(config).alarm_rules()] + list(ANALYSIS_RULES)
-    where = list(SECTIONS) + [m.role for m in config.mappings]
     out: dict[str, list[tuple]] = {}
-    for section in where:
-        for rule in rules:
-            ev = store.read_results(ALARMS_MEASUREMENT, start, end,
-                                    {"unit": config.unit.name, "section": section, "rule": rule})
-            if len(ev) and "raised" in ev:
-                for t in ev.index[ev["raised"].to_numpy(dtype=float) > 0.5]:
-                    out.setdefault(section, []).append((t, rule))
+    for section, rule in alarm_series(config):
+        ev = store.read_results(ALARMS_MEASUREMENT, start, end,
+                                {"unit": config.unit.name, "section": section, "rule": rule})
+        if len(ev) and "raised" in ev:
+            for t in ev.index[ev["raised"].to_numpy(dtype=float) > 0.5]:
+                out.setdefault(section, []).append((t, rule))
     return {k: sorted(v) for k, v in out.items()}
 
 

@@ -159,7 +159,7 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         The raw readings of the period in internal units when the caller already holds them
         (the demo does); None reads them from the store for the data-quality table.
     """
-    from isentrope.daemon.analysis import DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT
+    from isentrope.daemon.analysis import DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT, alarm_series
     from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
                                            Pipeline)
 
@@ -338,14 +338,12 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
 
     # --- alarms ---------------------------------------------------------------------------
     ev_rows = []
-    for s in list(SECTIONS) + [m.role for m in config.mappings]:
-        for rule in ("deviation_warning", "deviation_alarm", "exhaust_moisture", "data_quality",
-                     "degradation_rate", "step_change"):
-            e = _read(store, ALARMS_MEASUREMENT, start, end, {**tags, "section": s, "rule": rule})
-            for t, r in e.iterrows():
-                ev_rows.append({"time [UTC]": f"{t:%Y-%m-%d %H:%M}", "section or tag": s, "rule": rule,
-                                "event": "raised" if bool(r.get("raised")) else "cleared",
-                                "value": _fmt(r.get("value"), ".3g"), "threshold": _fmt(r.get("threshold"), ".3g")})
+    for s, rule in alarm_series(config):
+        e = _read(store, ALARMS_MEASUREMENT, start, end, {**tags, "section": s, "rule": rule})
+        for t, r in e.iterrows():
+            ev_rows.append({"time [UTC]": f"{t:%Y-%m-%d %H:%M}", "section or tag": s, "rule": rule,
+                            "event": "raised" if bool(r.get("raised")) else "cleared",
+                            "value": _fmt(r.get("value"), ".3g"), "threshold": _fmt(r.get("threshold"), ".3g")})
     parts.append("<h2>Alarm events</h2>")
     if ev_rows:
         ev = pd.DataFrame(ev_rows).sort_values("time [UTC]", kind="stable")

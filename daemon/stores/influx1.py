@@ -40,7 +40,6 @@ from isentrope.daemon.stores.influx_common import (
     LineProtocolWriter,
     StateClock,
     classify_http,
-    result_lines,
     state_line,
     time_windows,
 )
@@ -217,12 +216,6 @@ class Influx1Store(LineProtocolWriter, Store):
         self._request("POST", "/write", what, params=params, data=text.encode())
 
     # --- results -------------------------------------------------------------------------
-    def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:
-        escape.check_name(measurement, "measurement")
-        lines, n = result_lines(measurement, frame, tags)
-        self._write(lines, f"write_results {measurement}")
-        return n
-
     def read_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> pd.DataFrame:
         escape.check_name(measurement, "measurement")
         tags = common.check_tags(tags)

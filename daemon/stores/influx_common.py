@@ -49,7 +49,7 @@ def keep_unwritten(store, err: Exception, lines: list[str]) -> None:
 
 
 class LineProtocolWriter:
-    """What both InfluxDB stores share on the write side: raw samples as line protocol, sent
+    """What both InfluxDB stores share on the write side: raw samples and results as line protocol, sent
     in batches of ``batch_size`` under one lock, with unwritten lines kept (``keep_unwritten``).
 
     A store using it sets ``batch_size``, ``pending`` (list) and ``_write_lock`` and implements
@@ -60,6 +60,12 @@ class LineProtocolWriter:
         lines, samples = raw_lines(mappings, frame)
         self._write(lines, "write_raw")
         return samples
+
+    def write_results(self, measurement, frame, tags) -> int:
+        escape.check_name(measurement, "measurement")
+        lines, n = result_lines(measurement, frame, tags)
+        self._write(lines, f"write_results {measurement}")
+        return n
 
     def _write(self, lines: list[str], what: str) -> None:
         with self._write_lock:  # the worker may write from scheduler threads

@@ -97,6 +97,25 @@ class StoreTimer:
         return call
 
 
+def timed_pipeline(config):
+    """A ``Pipeline`` whose ``process`` adds its wall time to ``compute["s"]``; returns both."""
+    from isentrope.daemon.pipeline import Pipeline
+
+    compute = {"s": 0.0}
+    pipeline = Pipeline(config)
+    process = pipeline.process
+
+    def timed(*a, **k):
+        t = time.perf_counter()
+        try:
+            return process(*a, **k)
+        finally:
+            compute["s"] += time.perf_counter() - t
+
+    pipeline.process = timed
+    return pipeline, compute
+
+
 def shares(total: float, parts: dict[str, float]) -> str:
     return ", ".join(f"{k} {v:.1f} s ({100 * v / total:.0f} %)" for k, v in parts.items())
 

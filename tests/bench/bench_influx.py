@@ -41,7 +41,6 @@ def main(argv=None) -> int:
         print(f"no influxd 1.8 at {binary}: {conftest.BUILD_HINT['v2'] if hasattr(conftest, 'BUILD_HINT') else ''}")
         return 2
     from isentrope.daemon.config import load_config
-    from isentrope.daemon.pipeline import Pipeline
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
 
@@ -64,18 +63,7 @@ def main(argv=None) -> int:
             store = open_store(config.store.kind, **config.store.open_options())
             try:
                 timer = _common.StoreTimer(store)
-                compute = {"s": 0.0}
-                pipeline = Pipeline(config)
-                process = pipeline.process
-
-                def timed(*a, **k):
-                    t = time.perf_counter()
-                    try:
-                        return process(*a, **k)
-                    finally:
-                        compute["s"] += time.perf_counter() - t
-
-                pipeline.process = timed
+                pipeline, compute = _common.timed_pipeline(config)
                 start = _common.DEMO_START
                 worker = Worker.from_config(config, store, checkpoint_name="bench/influx", start_default=start,
                                             lookback="0s", settle="0s", chunk=args.chunk, pipeline=pipeline)

@@ -53,7 +53,6 @@ def main(argv=None) -> int:
 
     from isentrope.calc import sections  # noqa: F401  (imports outside the timings)
     from isentrope.daemon.config import load_config
-    from isentrope.daemon.pipeline import Pipeline
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
 
@@ -64,18 +63,7 @@ def main(argv=None) -> int:
     try:
         # --- 2. the backfill ---------------------------------------------------------------
         timer = _common.StoreTimer(store)
-        compute = {"s": 0.0}
-        pipeline = Pipeline(config)
-        process = pipeline.process
-
-        def timed_process(*a, **k):
-            t = time.perf_counter()
-            try:
-                return process(*a, **k)
-            finally:
-                compute["s"] += time.perf_counter() - t
-
-        pipeline.process = timed_process
+        pipeline, compute = _common.timed_pipeline(config)
         name = f"bench/{time.time():.0f}"
         worker = Worker.from_config(config, store, checkpoint_name=name, start_default=start, lookback="0s",
                                     settle="0s", chunk=args.chunk, pipeline=pipeline)
