@@ -42,6 +42,7 @@ Behaviour worth knowing:
 
 from __future__ import annotations
 
+import itertools
 import json
 import sqlite3
 import threading
@@ -157,10 +158,17 @@ class SqliteStore(Store):
         def go(db):
             out = {}
             for m in mappings:
-                # cursor.fetchall() dominates (about 3/4 of the time, tests/bench/bench_stores.py).
-                got = pd.read_sql_query(sql, db, params=(m.tag, lo, hi), dtype={"time": "int64", "value": "float64"})
-                idx = pd.to_datetime(got["time"].to_numpy() * _NS_PER_MS, unit="ns", utc=True)
-                s = pd.Series(got["value"].to_numpy(), index=idx)
+                # cursor.fetchall() dominates (tests/bench/bench_stores.py). Flattening its
+                # tuples with numpy.fromiter: 30 days of 16 tags in 0.39 s, against 0.53 s
+                # through pandas.read_sql_query. Faster readers (connectorx, the ADBC driver)
+                # carry their own copy of SQLite: two copies in one process break SQLite's
+                # POSIX locks (sqlite.org/howtocorrupt.html, 2.2.1), and tried here the stdlib
+                # connection then failed with "disk I/O error".
+                rows = db.execute(sql, (m.tag, lo, hi)).fetchall()
+                flat = np.fromiter(itertools.chain.from_iterable(rows), dtype=np.float64, count=2 * len(rows))
+                ms = flat[0::2].astype(np.int64)  # epoch ms are exact in a float64 (below 2**53)
+                idx = pd.DatetimeIndex(pd.to_datetime(ms * _NS_PER_MS, unit="ns", utc=True), name="time")
+                s = pd.Series(flat[1::2], index=idx)
                 out[m.role] = s[(s.index >= start) & (s.index < end)]
             return out
 
