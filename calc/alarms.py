@@ -47,6 +47,7 @@ QUANTITY_RATE = "rate_per_1000h"  # [points per 1000 operating hours]
 QUANTITY_STEP = "step_size"  # [points], one observation per detected step
 QUANTITY_MOISTURE = "lp_exhaust_moisture"  # [fraction]
 QUANTITY_TAG_BAD = "tag_bad"  # 1 when a mapped tag is missing, flatlined or out of range, else 0
+QUANTITY_NO_DATA = "no_data"  # 1 where no row at all arrived (sample grid), 0 at each row
 
 #: LP exhaust moisture limit [fraction]: 12 % (common practice, no source: exhaust moisture
 #: is commonly kept below about 10-12 % to limit last-stage blade erosion).

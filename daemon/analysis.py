@@ -344,7 +344,9 @@ def alarm_series(config) -> list[tuple[str, str]]:
     from isentrope.daemon.pipeline import Pipeline
 
     rules = [r.name for r in Pipeline(config).alarm_rules()] + list(ANALYSIS_RULES)
-    where = list(SECTIONS) + [m.role for m in config.mappings]
+    from isentrope.daemon.pipeline import HISTORIAN_SECTION
+
+    where = list(SECTIONS) + [m.role for m in config.mappings] + [HISTORIAN_SECTION]
     return [(w, r) for w in where for r in rules]
 
 

@@ -314,7 +314,7 @@ class AlarmsConfig:
     ``persistence`` [steady windows], ``hysteresis`` [points], ``rate_limit_per_1000h``
     magnitude of a degradation rate that raises an alarm [points per 1000 h],
     ``moisture_limit_percent`` [%], ``data_quality_limit`` how long a mapped tag may be
-    missing/flat/out of range, ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision
+    missing/flat/out of range, and how long no row may arrive at all, ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision
     interval [multiples of the deviation's standard deviation], ``min_step_points`` smallest
     step change reported [points].
     """

@@ -141,8 +141,10 @@ class _ObservingPipeline(Pipeline):
         super().__init__(config)
         self.observations: list[pd.DataFrame] = []
 
-    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None):
-        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start)
+    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None):
+        # Without the state: a historian outage longer than the before-margin that begins
+        # in an earlier partition is marked from this partition's first row on only.
+        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows)
         if obs is not None:
             obs["section"] = obs["section"].astype("category")  # smaller between processes
             obs["quantity"] = obs["quantity"].astype("category")

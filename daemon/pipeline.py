@@ -19,7 +19,9 @@ of plant readings in internal units (what ``Store.read`` returns) that covers th
 5. ``calc.baseline.deviation`` per steady window and section, when a baseline model is given;
    only windows that start after the model's reference period, so that it does not matter when
    during a run the model was fitted.
-6. ``calc.alarms.evaluate_alarms`` on the windows not yet seen by the saved alarm state.
+6. ``calc.alarms.evaluate_alarms`` on the windows not yet seen by the saved alarm state, on
+   the per-tag screening flags, and on absent rows: a stretch without any row (a historian
+   outage) is a run of ``no_data`` observations on the sample grid (see ``absent_row_times``).
 
 Determinism: the same frame, window and state give identical results; the results inside the
 window depend only on the samples in the window and its margins, so re-processing any window
@@ -43,6 +45,9 @@ SAMPLES_MEASUREMENT = "section_samples"
 WINDOWS_MEASUREMENT = "steady_windows"
 DEVIATION_MEASUREMENT = "deviation"
 ALARMS_MEASUREMENT = "alarm_events"
+
+#: The section of the ``no_data`` alarm: no row at all came from the plant historian.
+HISTORIAN_SECTION = "historian"
 
 _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 
@@ -414,7 +419,7 @@ class Pipeline:
 
         deviation = self._deviation(windows, baselines or {}, notes)
         events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes, screen=screen,
-                                         start=start)
+                                         start=start, rows=frame.index)
 
         counts = {
             "rows_read": int(len(frame)),
@@ -430,14 +435,18 @@ class Pipeline:
                             notes=sorted(set(notes)))
 
     def _nothing(self, start, end, final_end, alarm_state) -> CycleResults:
-        """Results of a window without a single sample (an outage of the plant historian)."""
+        """Results of a window without a single sample (an outage of the plant historian):
+        no figures; the ``no_data`` alarm runs on from the last row it saw (alarm state)."""
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
+        notes = ["no samples in the window"]
+        events, new_state = self._alarms(empty, empty.copy(), alarm_state, final_end, notes,
+                                         rows=empty.index, start=start)
         counts = dict.fromkeys(("rows_read", "rows_in_window", "rows_flagged", "steady_samples", "windows",
-                                "deviations", "alarm_events"), 0)
+                                "deviations"), 0)
+        counts["alarm_events"] = int(len(events))
         return CycleResults(start=start, end=end, final_end=final_end, samples=empty, windows=empty.copy(),
-                            deviation=empty.copy(), alarm_events=_no_events(),
-                            alarm_state=dict(alarm_state) if alarm_state else None, counts=counts,
-                            notes=["no samples in the window"])
+                            deviation=empty.copy(), alarm_events=events, alarm_state=new_state, counts=counts,
+                            notes=notes)
 
     # --- baseline ---------------------------------------------------------------------------
     def fit_baselines(self, windows: pd.DataFrame) -> tuple[dict, list[str]]:
@@ -501,8 +510,8 @@ class Pipeline:
         """``calc.alarms.Rule`` objects from ``[alarms]``.
 
         Deviation warning and alarm per section (persistence in steady windows, hysteresis in
-        points), LP exhaust moisture on the steady windows, and data quality per mapped tag
-        (bad for longer than ``data_quality_limit``). Degradation-rate and step rules need the
+        points), LP exhaust moisture on the steady windows, data quality per mapped tag (bad
+        for longer than ``data_quality_limit``) and no data at all (no row for that long). Degradation-rate and step rules need the
         deviation history over months; they belong to the trend report, not to one cycle.
         """
         from isentrope.calc import alarms
@@ -523,9 +532,12 @@ class Pipeline:
             alarms.Rule("data_quality", alarms.QUANTITY_TAG_BAD, "above", 0.5, 0.5,
                         raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
                         label="tag missing, flatlined or out of range"),
+            alarms.Rule("no_data", alarms.QUANTITY_NO_DATA, "above", 0.5, 0.5,
+                        raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
+                        sections=(HISTORIAN_SECTION,), label="no rows from the historian"),
         ]
 
-    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None):
+    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None):
         """Alarm events from the final results (before ``final_end``) only.
 
         The state machines of ``calc.alarms`` skip observations at or before the last one
@@ -533,23 +545,37 @@ class Pipeline:
         """
         from isentrope.calc import alarms
 
-        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start)
+        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows,
+                                      state=state)
         if obs is None:
             return _no_events(), (dict(state) if state else None)
         new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
         return events, new_state
 
-    def alarm_observations(self, windows, deviation, final_end, screen=None, start=None):
+    def alarm_observations(self, windows, deviation, final_end, screen=None, start=None, rows=None, state=None):
         """The observation frame ``calc.alarms.evaluate_alarms`` reads for one window, or None.
 
-        Deviation per steady window and section, LP exhaust moisture per steady window, and
-        per mapped role 1/0 for a sample in ``[start, final_end)`` flagged bad by screening.
-        (A separate method so that ``isentrope.daemon.fleet`` can run the machines after the
-        partitions, in time order.)
+        Deviation per steady window and section, LP exhaust moisture per steady window, per
+        mapped role 1/0 for a sample in ``[start, final_end)`` flagged bad by screening, and
+        (with ``rows``, the frame's row times, margins included) ``no_data`` for the
+        historian: 0 at each row in the window, 1 on the sample grid where rows are absent
+        (``absent_row_times``; a gap before the frame's first row continues from the time
+        the saved ``state`` last saw). (A separate method so that ``isentrope.daemon.fleet``
+        can run the machines after the partitions, in time order.)
         """
         from isentrope.calc import alarms
 
         parts = []
+        if rows is not None and start is not None:
+            machine = ((state or {}).get("machines") or {}).get(f"no_data|{HISTORIAN_SECTION}") or {}
+            seen = machine.get("last_time")
+            got, absent = absent_row_times(rows, start, final_end, last_seen=seen)
+            times = got.append(absent)
+            if len(times):
+                parts.append(pd.DataFrame({"time": times, "section": HISTORIAN_SECTION,
+                                           "quantity": alarms.QUANTITY_NO_DATA,
+                                           "value": np.r_[np.zeros(len(got)), np.ones(len(absent))],
+                                           "steady": True}))
         if len(deviation):
             parts.append(pd.DataFrame({"time": deviation.index, "section": deviation["section"].to_numpy(),
                                        "quantity": alarms.QUANTITY_DEVIATION,
@@ -575,14 +601,59 @@ class Pipeline:
         return pd.concat(parts, ignore_index=True)
 
 
-def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
-    """The Hampel window of ``calc.quality.screen`` in samples: ``spike_window`` divided by the
-    typical sample spacing (median, whole seconds), odd, at least 3."""
+def sample_spacing(index: pd.DatetimeIndex) -> pd.Timedelta:
+    """The typical spacing of the rows: median difference, whole seconds, at least 1 s; 60 s
+    when there are fewer than three rows."""
     spacing = pd.Timedelta(seconds=60)
     if len(index) > 2:
         d = pd.Series(index).diff().median()
         if pd.notna(d) and d > pd.Timedelta(0):
             spacing = max(pd.Timedelta(seconds=1), d.round("1s"))
+    return spacing
+
+
+def absent_row_times(rows: pd.DatetimeIndex, start, end, last_seen=None) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
+    """Row times in ``[start, end)`` and the times there where rows are absent.
+
+    An absence is a stretch longer than two sample spacings (``sample_spacing`` of ``rows``)
+    between one row and the next, or from the last row to ``end``; it is marked on the grid
+    ``row + k x spacing`` (k = 1, 2, ...) inside the stretch. The stretch before the first
+    row of ``rows`` counts from the last row before ``start`` (in ``rows``) or else from
+    ``last_seen`` (ISO time or Timestamp, what the ``no_data`` alarm saw last); without
+    either, nothing before the first row is marked (the data may simply begin later).
+
+    Returns
+    -------
+    (DatetimeIndex, DatetimeIndex)
+        The rows inside the window, and the absent times, both UTC.
+    """
+    start, end = pd.Timestamp(start), pd.Timestamp(end)
+    idx = pd.DatetimeIndex(rows)
+    idx = (idx.tz_localize("UTC") if idx.tz is None else idx.tz_convert("UTC")).as_unit("ns")
+    step = int(sample_spacing(idx).value)
+    t = np.unique(idx.asi8)
+    lo, hi = int(start.value), int(end.value)
+    inside = t[(t >= lo) & (t < hi)]
+    before = t[t < lo]
+    prior = int(before[-1]) if len(before) else None
+    if prior is None and last_seen is not None:
+        prior = int(pd.Timestamp(last_seen).value)
+    points = ([prior] if prior is not None else []) + inside.tolist() + [hi]
+    absent = []
+    for a, b in zip(points[:-1], points[1:]):
+        if b - a > 2 * step:
+            k0 = max(1, -(-(lo - a) // step))  # the first grid time at or after start
+            grid = a + step * np.arange(k0, -(-(b - a) // step), dtype=np.int64)
+            absent.append(grid[(grid >= lo) & (grid < min(b, hi))])
+    absent_ns = np.concatenate(absent) if absent else np.empty(0, dtype=np.int64)
+    as_index = lambda ns: pd.DatetimeIndex(pd.to_datetime(ns, unit="ns", utc=True), name="time")  # noqa: E731
+    return as_index(inside), as_index(absent_ns)
+
+
+def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
+    """The Hampel window of ``calc.quality.screen`` in samples: ``spike_window`` divided by the
+    typical sample spacing (median, whole seconds), odd, at least 3."""
+    spacing = sample_spacing(index)
     n = int(round(_td(spike_window) / spacing))
     n = max(3, n)
     return n if n % 2 == 1 else n + 1

@@ -229,4 +229,14 @@ def test_demo_finds_the_hp_rate_the_flatline_and_raises_nothing_in_clean_section
     cleared = times[mine["raised"].to_numpy() == 0.0]
     assert len(cleared) == 1 and abs(cleared.iloc[0] - t1) < pd.Timedelta(hours=1)
     assert not len(events[events["section"] == "lp"]), events[events["section"] == "lp"]
+    # the injected data gap (rows absent): one no_data alarm for the historian, raised once the
+    # 1 h data-quality limit has passed, cleared by the first row after the gap
+    gap = truth["gap"]
+    g0, g1 = pd.Timestamp(gap["start"]), pd.Timestamp(gap["end"])
+    hist = events[events["rule"] == "no_data"]
+    assert set(hist["section"]) == {"historian"}
+    times = pd.to_datetime(hist["time"], unit="ms", utc=True)
+    assert list(hist["raised"]) == [1.0, 0.0]
+    assert g0 + pd.Timedelta("1h") <= times.iloc[0] <= g0 + pd.Timedelta("1h5min")
+    assert g1 <= times.iloc[1] <= g1 + pd.Timedelta("5min")
     assert not len(events[(events["section"] == "hp") & events["rule"].str.startswith("deviation")])

@@ -7,7 +7,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from isentrope.daemon.pipeline import align_steady_windows
+from isentrope.daemon.pipeline import absent_row_times, align_steady_windows
 
 
 def utc(s: str) -> pd.Timestamp:
@@ -254,3 +254,41 @@ def test_alarm_events_are_not_raised_twice_when_a_window_is_processed_again(pipe
     b = pipeline.process(_slice(frame, pipeline, m, e), m, e, alarm_state=a.alarm_state)
     both = pd.concat([a.alarm_events, b.alarm_events])
     pd.testing.assert_frame_equal(both, ev)
+
+
+def test_absent_rows_raise_one_no_data_alarm_and_no_tag_alarms(pipeline):
+    # The historian delivers nothing for three hours (the rows are absent, not NaN): one
+    # no_data alarm for the historian once the data-quality limit (1 h) has passed, cleared by
+    # the first row after the hole; the per-tag data-quality machines see no observation.
+    frame = ws.history(1.0, freq="5min")
+    s, e = ws.START + pd.Timedelta("6h"), ws.START + pd.Timedelta("14h")
+    last = s + pd.Timedelta("1h")  # the last row before the hole
+    back = s + pd.Timedelta("4h")  # the first row after it
+    holed = frame.loc[(frame.index <= last) | (frame.index >= back)]
+    r = pipeline.process(_slice(holed, pipeline, s, e), s, e, alarm_state=None)
+    ev = r.alarm_events
+    mine = ev[ev["rule"] == "no_data"]
+    assert list(mine["section"]) == ["historian", "historian"]
+    assert list(mine["kind"]) == ["raised", "cleared"]
+    # absent from 5 min after the last row (the sample spacing); raised 1 h after that
+    assert list(mine.index) == [last + pd.Timedelta("5min") + pd.Timedelta("1h"), back]
+    assert not (ev["rule"] == "data_quality").any()
+    # a hole shorter than the limit raises nothing
+    short = frame.loc[(frame.index <= last) | (frame.index >= last + pd.Timedelta("50min"))]
+    r2 = pipeline.process(_slice(short, pipeline, s, e), s, e, alarm_state=None)
+    assert not (r2.alarm_events["rule"] == "no_data").any()
+
+
+def test_absent_row_times_marks_the_sample_grid_inside_gaps_only():
+    idx = pd.date_range(utc("2025-01-01"), periods=600, freq="1min")
+    rows = idx[(idx < idx[100]) | (idx >= idx[400])]
+    got, absent = absent_row_times(rows, idx[50], idx[590])
+    assert len(got) == 50 + 190 and list(absent) == list(idx[100:400])
+    # data stops: marked up to the end of the window
+    got, absent = absent_row_times(rows[:100], idx[50], idx[590])
+    assert list(absent) == list(idx[100:590])
+    # no row in the frame: continues from what the alarm saw last, else nothing
+    assert list(absent_row_times(rows[:0], idx[50], idx[60], last_seen=idx[40])[1]) == list(idx[50:60])
+    assert len(absent_row_times(rows[:0], idx[50], idx[60])[1]) == 0
+    # one late or missing sample is not an absence (two spacings or less)
+    assert len(absent_row_times(rows.delete(10), idx[0], idx[99])[1]) == 0

@@ -350,3 +350,30 @@ def test_a_late_sample_inside_the_lookback_is_picked_up_by_the_next_cycle(config
     assert worker.run_cycle().ok
     samples = results_of(store)["section_samples"]
     assert late in samples.index and np.isfinite(samples.loc[late, "hp_efficiency"])
+
+
+def test_a_historian_outage_raises_no_data_even_when_whole_cycles_see_no_row(tmp_path):
+    # The data-quality limit (6 h here) is longer than the pipeline's before-margin (4 h 35),
+    # so the alarm is raised in a cycle whose frame holds no row at all: the absence goes on
+    # from the time the saved alarm state saw last. One alarm, cleared by the first row back.
+    path = ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"),
+                           extra='[alarms]\ndata_quality_limit = "6h"\n')
+    config = load_config(path)
+    pipeline = Pipeline(config)
+    raw = ws.plant_history(1.5, freq="5min")
+    stop, back = ws.START + pd.Timedelta("8h"), ws.START + pd.Timedelta("26h")
+    clock = ws.FakeClock(ws.START + pd.Timedelta("9h"))
+    store = ws.MemoryStore(raw.loc[(raw.index < stop) | (raw.index >= back)], clock=clock)
+    worker = make_worker(config, pipeline, store, clock)
+    hours = pd.date_range(ws.START + pd.Timedelta("9h"), ws.START + pd.Timedelta("34h"), freq="1h")
+    reports = run_cycles(worker, clock, hours)
+    assert all(r.ok for r in reports)
+    events = store.read_results("alarm_events", ws.START, ws.START + pd.Timedelta(days=2),
+                                {"unit": "Greywater Bend 2", "section": "historian", "rule": "no_data"})
+    last = raw.index[raw.index < stop][-1]
+    assert list(events.index) == [last + pd.Timedelta("5min") + pd.Timedelta("6h"), back]
+    assert list(events["raised"]) == [1.0, 0.0]
+    # the raising cycle read no row: its window and both margins lie inside the outage
+    before, after = pipeline.margins
+    raised_at = events.index[0]
+    assert raised_at - before > last and raised_at + after < back
