@@ -452,14 +452,16 @@ class _PowerSum:
             out[sl] = b.sum(axis=0)
         return out
 
-    def derivatives(self, x, y, order_y=2, with_x=False):
-        """g, g_y, g_yy (up to ``order_y``) and, with ``with_x``, g_x.
+    def derivatives(self, x, y, order_y=2, with_x=False, with_xy=False):
+        """g, g_y, g_yy (up to ``order_y``), with ``with_x`` g_x, and with ``with_xy`` (which
+        needs ``with_x``) the mixed g_xy as well.
 
-        Returns an array of shape (order_y + 1 + with_x, len(x)).
+        Returns an array of shape (order_y + 1 + with_x + with_xy, len(x)).
         """
         m_all = x.shape[0]
         rows = order_y + 1
-        out = np.empty((rows + int(with_x), m_all))
+        with_xy = with_x and with_xy
+        out = np.empty((rows + int(with_x) + int(with_xy), m_all))
         for lo in range(0, m_all, _BLOCK):
             sl = slice(lo, lo + _BLOCK)
             m = x[sl].shape[0]
@@ -474,12 +476,16 @@ class _PowerSum:
                 bx = self._accumulate(self.rows_di, xp, m)
                 bx *= yp
                 out[rows, sl] = bx.sum(axis=0)
+                if with_xy:
+                    out[rows + 1, sl] = np.einsum("j,jm->m", self.w[1], bx)
         if order_y >= 1:
             out[1] /= y
         if order_y >= 2:
             out[2] /= y * y
         if with_x:
             out[rows] /= x
+        if with_xy:
+            out[rows + 1] /= x * y
         return out
 
 
@@ -499,13 +505,15 @@ _B2CPS = _PowerSum(_T2CPS_N, _T2CPS_I, _T2CPS_J)
 def _region1(p, t, need):
     """Region-1 properties from the Gibbs equation (7) with the relations of Table 3.
 
-    ``need`` is a collection of names among "h", "s", "v", "cp"; returns a dict of arrays.
+    ``need`` is a collection of names among "h", "s", "v", "cp" and "dvdt" (the isobaric
+    derivative (dv/dT)_p = v alpha_v [m3/(kg K)], alpha_v of Table 3); returns a dict of arrays.
     """
     pi = p / 16.53
     tau = 1386.0 / t
     order = 2 if "cp" in need else 1
-    with_x = "v" in need
-    d = _G1.derivatives(7.1 - pi, tau - 1.222, order_y=order, with_x=with_x)
+    with_xy = "dvdt" in need
+    with_x = "v" in need or with_xy
+    d = _G1.derivatives(7.1 - pi, tau - 1.222, order_y=order, with_x=with_x, with_xy=with_xy)
     g, g_t = d[0], d[1]
     out = {}
     if "h" in need:
@@ -515,8 +523,11 @@ def _region1(p, t, need):
     if "cp" in need:
         out["cp"] = -R * tau * tau * d[2]
     if with_x:
-        g_p = -d[-1]  # d/dpi of (7.1 - pi)^I
+        g_p = -d[order + 1]  # d/dpi of (7.1 - pi)^I
         out["v"] = R * t * pi * g_p / p / 1000.0
+    if with_xy:
+        g_pt = -d[order + 2]  # gamma_pi_tau
+        out["dvdt"] = R * pi * (g_p - tau * g_pt) / p / 1000.0
     return out
 
 
@@ -526,9 +537,10 @@ def _region2(p, t, need):
     pi = p
     tau = 540.0 / t
     order = 2 if "cp" in need else 1
-    with_x = "v" in need
+    with_xy = "dvdt" in need
+    with_x = "v" in need or with_xy
     d0 = _G2I.derivatives(np.ones_like(tau), tau, order_y=order)
-    dr = _G2R.derivatives(pi, tau - 0.5, order_y=order, with_x=with_x)
+    dr = _G2R.derivatives(pi, tau - 0.5, order_y=order, with_x=with_x, with_xy=with_xy)
     g_t = d0[1] + dr[1]
     out = {}
     if "h" in need:
@@ -538,7 +550,10 @@ def _region2(p, t, need):
     if "cp" in need:
         out["cp"] = -R * tau * tau * (d0[2] + dr[2])
     if with_x:
-        out["v"] = R * t * (1.0 + pi * dr[-1]) / p / 1000.0
+        out["v"] = R * t * (1.0 + pi * dr[order + 1]) / p / 1000.0
+    if with_xy:
+        # alpha_v of Table 12: (1 + pi gr_pi - tau pi gr_pi_tau) / (1 + pi gr_pi) / T
+        out["dvdt"] = R * (1.0 + pi * dr[order + 1] - tau * pi * dr[order + 2]) / p / 1000.0
     return out
 
 
@@ -982,6 +997,56 @@ def _hs_pt(p, t):
             sl = slice(lo, lo + _BLOCK)
             h[sl], s[sl] = _core_hs_pt(p[sl], t[sl])
     return h, s
+
+
+def _hs_slopes_pt(p, t):
+    """h [kJ/kg], s [kJ/(kg K)] and their partial derivatives at flat float arrays p [MPa] and
+    T [K] from one region-1/2 Gibbs evaluation: (dh/dT)_p = cp, (ds/dT)_p = cp / T,
+    (dh/dp)_T = v - T (dv/dT)_p and (ds/dp)_T = -(dv/dT)_p (Maxwell; per MPa: kJ/kg/MPa and
+    kJ/(kg K)/MPa). h and s are bit for bit those of ``_hs_pt`` (region 3 and 5 points
+    included, from the same fallback); the derivatives are NaN outside regions 1 and 2
+    (callers difference there). Private: the sensitivity coefficients of calc/sections.py's
+    uncertainty propagation.
+
+    Returns
+    -------
+    dict of ndarray
+        "h", "s", "dh_dt", "ds_dt", "dh_dp", "ds_dp".
+
+    References
+    ----------
+    IAPWS R7-97(2012): region 1 eq. (7) with Table 3 (cp, alpha_v), region 2 eq. (15) with
+    Table 12.
+    """
+    p = np.ascontiguousarray(p, dtype=float).reshape(-1)
+    t = np.ascontiguousarray(t, dtype=float).reshape(-1)
+    n = p.shape[0]
+    keys = ("h", "s", "dh_dt", "ds_dt", "dh_dp", "ds_dp")
+    out = {k: np.full(n, np.nan) for k in keys}
+    need = ("h", "s", "cp", "v", "dvdt")
+    with np.errstate(all="ignore"):
+        for lo in range(0, n, _BLOCK):
+            sl = slice(lo, lo + _BLOCK)
+            pb, tb = p[sl], t[sl]
+            reg, _ = _region_pt(pb, tb)
+            for r in (1, 2):
+                m = reg == r
+                if not m.any():
+                    continue
+                d = _FORWARD[r](pb[m], tb[m], need)
+                idx = np.flatnonzero(m) + lo
+                out["h"][idx], out["s"][idx] = d["h"], d["s"]
+                out["dh_dt"][idx] = d["cp"]
+                out["ds_dt"][idx] = d["cp"] / tb[m]
+                # per MPa: v [m3/kg] x 1 MPa = 1000 kJ/kg
+                out["dh_dp"][idx] = 1000.0 * (d["v"] - tb[m] * d["dvdt"])
+                out["ds_dp"][idx] = -1000.0 * d["dvdt"]
+            fb = np.flatnonzero((reg == 3) | (reg == 5))
+            if fb.size:
+                for prop in ("h", "s"):
+                    vals, _, ok = _iapws_points_pt(pb[fb], tb[fb], prop)
+                    out[prop][fb[ok] + lo] = vals[ok]
+    return out
 
 
 def _end_state_ps(p, s):

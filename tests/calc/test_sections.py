@@ -625,9 +625,33 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
     u = {"p_in": 0.0025 * args[0], "t_in": np.full(len(cases), 1.0),
          "p_out": 0.0025 * args[2], "t_out": np.full(len(cases), 1.0)}
     a = S._section_uncertainty(*args, old, u, u)
-    b = S._section_uncertainty(*args, new, u, u)
+    differenced = {k: v for k, v in new.items() if not k.startswith("slopes")}
+    b = S._section_uncertainty(*args, differenced, u, u)
     assert np.isfinite(a).all()
     np.testing.assert_allclose(b, a, rtol=1e-12)
+
+
+def test_analytic_sensitivities_are_the_limit_of_the_differences():
+    # With end_state the sensitivity coefficients come from cp and (dv/dT)_p of the IF97
+    # Gibbs equations (steam._hs_slopes_pt, checked against iapws in test_steam.py); central
+    # differences with steps 1000 times smaller than the uncertainty must converge to them
+    # (truncation ~ step^2, round-off ~ 1e-16 / step), while steps equal to the uncertainty
+    # differ by the curvature over one step (seen: up to 5e-6 relative).
+    rng = np.random.default_rng(5)
+    cases = np.vstack([_random_sections(rng, 8, (10.0, 18.0), (780.0, 830.0), (0.15, 0.3)),
+                       _random_sections(rng, 8, (0.3, 0.5), (570.0, 600.0), (0.1, 0.15))])
+    args = [cases[:, i].copy() for i in range(4)]
+    new = S._section_core(*args, end_state=True)
+    differenced = {k: v for k, v in new.items() if not k.startswith("slopes")}
+    u = {"p_in": 0.0025 * args[0], "t_in": np.full(len(cases), 1.0),
+         "p_out": 0.0025 * args[2], "t_out": np.full(len(cases), 1.0)}
+    small = {k: v * 1e-3 for k, v in u.items()}
+    analytic = S._section_uncertainty(*args, new, u, u)
+    fine = S._section_uncertainty(*args, differenced, u, small)
+    coarse = S._section_uncertainty(*args, differenced, u, u)
+    assert np.isfinite(analytic).all()
+    np.testing.assert_allclose(analytic, fine, rtol=1e-7)
+    assert np.max(np.abs(coarse / analytic - 1)) < 2e-5
 
 
 def test_shared_inlet_states_give_what_a_fresh_evaluation_gives():

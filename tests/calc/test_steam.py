@@ -530,6 +530,33 @@ def test_h_and_s_in_one_pass_equal_h_pt_and_s_pt_bit_for_bit():
         assert sk[0] == pytest.approx(ref.s, rel=1e-9)
 
 
+def test_h_s_and_their_partial_derivatives_in_one_pass_match_iapws():
+    # The sensitivity coefficients of the section uncertainty: (dh/dT)_p = cp,
+    # (ds/dT)_p = cp/T, (dh/dp)_T = v - T (dv/dT)_p, (ds/dp)_T = -(dv/dT)_p (Maxwell), from
+    # cp and alpha_v of R7-97(2012) Tables 3 and 12; reference: iapws's cp, alfav and v at the
+    # same state (independent implementation). h and s bit for bit _hs_pt, region 3/5 points
+    # included (their derivatives NaN: the caller differences there).
+    p, t = _grid_pt()
+    p = np.concatenate([p, [25.0, 5.0, -1.0, np.nan], np.full(20000, 10.0)])
+    t = np.concatenate([t, [650.0, 1200.0, 600.0, 600.0], np.linspace(600.0, 900.0, 20000)])
+    d = steam._hs_slopes_pt(p, t)
+    h, s = steam._hs_pt(p, t)
+    assert np.array_equal(d["h"], h, equal_nan=True) and np.array_equal(d["s"], s, equal_nan=True)
+    reg = steam.region(p, t)
+    in12 = (reg == 1) | (reg == 2)
+    assert in12.sum() > 100
+    for k in ("dh_dt", "ds_dt", "dh_dp", "ds_dp"):
+        assert np.isfinite(d[k][in12]).all() and np.isnan(d[k][~in12]).all(), k
+    rng = np.random.default_rng(11)
+    for i in rng.choice(np.flatnonzero(in12[:-20000]), size=60, replace=False).tolist() + [len(p) - 1]:
+        ref = IAPWS97(P=float(p[i]), T=float(t[i]))
+        dvdt = ref.alfav * ref.v
+        assert d["dh_dt"][i] == pytest.approx(ref.cp, rel=1e-9)
+        assert d["ds_dt"][i] == pytest.approx(ref.cp / t[i], rel=1e-9)
+        assert d["dh_dp"][i] == pytest.approx(1000.0 * (ref.v - t[i] * dvdt), rel=1e-8, abs=1e-9)
+        assert d["ds_dp"][i] == pytest.approx(-1000.0 * dvdt, rel=1e-8, abs=1e-12)
+
+
 def test_end_state_from_one_solve_matches_h_ps_t_ps_and_v_ph():
     # The private one-solve end state: h bit for bit h_ps, T bit for bit t_ps, v within
     # 1e-12 of v_ph at that h (dry and wet states, a region-3 fallback point, NaN outside),
