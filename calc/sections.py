@@ -1300,7 +1300,7 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps, inlet_states=
     functions that input enters (region 3 and 5 states). The isentropic end point follows by
     dh = T ds + v dp at constant p_out (dh_s = T_s ds_in) and constant s_in (dh_s = v_s
     dp_out), exact to the first order. Measured on a 30-day chunk of the synthetic unit
-    (43,200 rows, HP, IP and LP dry group): 0.24 s with differences for every input, 0.0x s
+    (43,200 rows; one HP-like section): 0.115 s with differences for every input, 0.002 s
     analytic; the two agree within the curvature over one uncertainty step (tests).
 
     ``u`` and ``steps``: dicts with keys "p_in", "t_in", "p_out", "t_out" (arrays).
