@@ -46,7 +46,10 @@ __all__ = [
     "SECTIONS",
     "DEFAULT_RANGES",
     "FLATLINE_TOLERANCE",
+    "DEFAULT_FLATLINE_RELATIVE",
     "SPIKE_FLOOR",
+    "flatline_limit",
+    "flatline_samples",
 ]
 
 
@@ -140,7 +143,8 @@ DEFAULT_RANGES: Mapping[str, tuple[float, float]] = {
 #: Largest change [internal unit] still counted as "no change" by the flatline test (common
 #: practice, no source: well below the noise of a live transmitter, above float round-off).
 #: None disables the test: a control valve may rest wide open for hours, and barometers are
-#: often recorded at 0.1 kPa resolution.
+#: often recorded at 0.1 kPa resolution. These are floors: a relative tolerance (see
+#: ``DEFAULT_FLATLINE_RELATIVE``) widens the band where it is larger.
 FLATLINE_TOLERANCE: Mapping[str, float | None] = {
     **{r: 1e-4 for r in _HIGH_P},  # 0.1 kPa
     **{r: 1e-5 for r in _LOW_P},  # 0.01 kPa
@@ -166,6 +170,12 @@ SPIKE_FLOOR: Mapping[str, tuple[float, float]] = {
 
 #: Flatline duration: common practice, no source (a live transmitter moves within minutes).
 DEFAULT_FLATLINE = "2h"
+#: Relative flatline tolerance [-]: a stretch is "unchanged" while its readings span no more
+#: than max(absolute tolerance of the role, relative * largest |reading| of the stretch).
+#: 1e-6 is the default of ``[screening] flatline_tolerance`` (project choice, no source); at
+#: the readings of a steam unit (up to 35 MPa, 1073 K, 1300 MW) it stays below every floor of
+#: ``FLATLINE_TOLERANCE``, so there the absolute floors decide.
+DEFAULT_FLATLINE_RELATIVE = 1e-6
 #: Spike test window [samples] and threshold [noise standard deviations]. A sample is a spike
 #: when it lies further than threshold * sigma from the running median of the window, sigma
 #: being the robust (MAD-based) noise level of its block. The textbook Hampel identifier uses
@@ -289,20 +299,71 @@ class _Grid:
         return cls(t, start, window_ns, step, grace, spans, rows)
 
 
-def _flatline(values: np.ndarray, grid: _Grid, tol: float) -> np.ndarray:
-    """Samples inside a stretch of at least the window whose finite values span <= tol."""
+def flatline_limit(hi, lo, tolerance: float, relative: float = DEFAULT_FLATLINE_RELATIVE):
+    """Largest span of readings still counted as "unchanged" by the flatline test.
+
+    Parameters
+    ----------
+    hi, lo : array_like
+        Largest and smallest reading of a stretch [internal unit].
+    tolerance : float
+        Absolute floor of the role (``FLATLINE_TOLERANCE``) [internal unit].
+    relative : float
+        Tolerance relative to the largest magnitude of the stretch, max(|hi|, |lo|) [-].
+
+    Returns
+    -------
+    ndarray or float
+        max(tolerance, relative * max(|hi|, |lo|)) [internal unit]; NaN where hi or lo is NaN
+        and ``relative`` > 0.
+    """
+    if relative == 0:
+        return np.full(np.shape(hi), float(tolerance)) if np.ndim(hi) else float(tolerance)
+    with np.errstate(invalid="ignore"):
+        return np.maximum(tolerance, relative * np.maximum(np.abs(hi), np.abs(lo)))
+
+
+def _number(value) -> float | None:
+    """``value`` as a float, None when it is not a real number (bools are not numbers here)."""
+    if isinstance(value, (bool, np.bool_)) or not isinstance(value, (int, float, np.integer, np.floating)):
+        return None
+    return float(value)
+
+
+def _check_flatline_tolerances(tolerance, relative) -> None:
+    tol = _number(tolerance)
+    if tol is None or not (np.isfinite(tol) and tol >= 0):
+        raise ValueError(f"flatline tolerance must be a finite number >= 0, found {tolerance!r}")
+    rel = _number(relative)
+    if rel is None or not (np.isfinite(rel) and 0 <= rel < 1):
+        raise ValueError(f"flatline_relative must be a number in [0, 1), found {relative!r}")
+
+
+def _flatline(values: np.ndarray, grid: _Grid, tol: float, rel: float = 0.0) -> np.ndarray:
+    """Samples inside a stretch of at least the window whose finite values span no more than
+    ``flatline_limit(hi, lo, tol, rel)`` (hi, lo: largest and smallest value of the window)."""
     n = len(values)
     if n < 2:
         return np.zeros(n, dtype=bool)
     valid = np.isfinite(values)
     dense = bool(valid.all())
-    # Cheap pre-check: a window can only be flat if no step between successive finite
-    # samples inside it exceeds tol. Live signals move all the time, so the running max/min
-    # is usually not needed at all.
+    # Cheap pre-check: a window can only be flat if no step d between successive finite
+    # samples inside it exceeds max(tol, rel * m), m the larger magnitude of the pair. (Where
+    # the relative part decides, a flat window lies on one side of zero, say 0 < lo <= hi, with
+    # hi - lo <= rel * hi; a step inside it has d <= hi - lo and m >= lo + d, and d > rel * m
+    # would give hi - lo < d.) Live signals move all the time, so the running max/min is
+    # usually not needed at all. The relative part is widened by 1e-9 against round-off: a
+    # step let through here is still judged by the exact test below.
+    rel_step = rel * (1.0 + 1e-9)
     if dense:
         moves = np.empty(n, dtype=np.int64)
         moves[0] = 0
-        np.greater(np.abs(np.diff(values)), tol, out=moves[1:], casting="unsafe")
+        d = np.abs(np.diff(values))
+        if rel > 0:
+            step_tol = np.maximum(tol, rel_step * np.maximum(np.abs(values[1:]), np.abs(values[:-1])))
+            np.greater(d, step_tol, out=moves[1:], casting="unsafe")
+        else:
+            np.greater(d, tol, out=moves[1:], casting="unsafe")
         first = grid.start
         spans = grid.spans
     else:
@@ -310,7 +371,9 @@ def _flatline(values: np.ndarray, grid: _Grid, tol: float) -> np.ndarray:
         if len(idx) < 2:
             return np.zeros(n, dtype=bool)
         moves = np.zeros(n, dtype=np.int64)
-        moves[idx[1:]] = np.abs(np.diff(values[idx])) > tol
+        v = values[idx]
+        step_tol = tol if rel == 0 else np.maximum(tol, rel_step * np.maximum(np.abs(v[1:]), np.abs(v[:-1])))
+        moves[idx[1:]] = np.abs(np.diff(v)) > step_tol
         first = np.minimum(_windows.next_valid(valid)[grid.start], n - 1)
         spans = (grid.t[first] <= grid.t - grid.window_ns + grid.grace) & (first < grid.rows)
     cm = np.cumsum(moves)
@@ -322,8 +385,54 @@ def _flatline(values: np.ndarray, grid: _Grid, tol: float) -> np.ndarray:
         return np.zeros(n, dtype=bool)
     hi, lo = _windows.trailing_max_min(values, grid.t, grid.window_ns, grid.step)
     with np.errstate(invalid="ignore"):
-        end_ok = candidate & (hi - lo <= tol)
+        end_ok = candidate & (hi - lo <= (tol if rel == 0 else flatline_limit(hi, lo, tol, rel)))
     return _windows.covered(end_ok, grid.start) & valid
+
+
+def flatline_samples(
+    values: pd.Series,
+    flatline: str | pd.Timedelta = DEFAULT_FLATLINE,
+    tolerance: float = 0.0,
+    relative: float = DEFAULT_FLATLINE_RELATIVE,
+) -> pd.Series:
+    """Which samples of one reading lie in a stretch that did not change for ``flatline``.
+
+    The test of ``screen`` (Reason.FLATLINE) for a single series: a sample is flagged when it
+    lies inside a stretch of at least ``flatline`` whose finite readings span no more than
+    ``flatline_limit(hi, lo, tolerance, relative)``.
+
+    Parameters
+    ----------
+    values : pandas.Series
+        Readings of one role in internal units (MPa abs, K, MW, kg/s, %), sorted unique UTC
+        DatetimeIndex; NaN samples are never flagged and do not break a stretch [internal unit].
+    flatline : str or Timedelta, optional
+        Shortest flagged stretch [duration].
+    tolerance : float, optional
+        Absolute floor (``FLATLINE_TOLERANCE`` of the role) [internal unit].
+    relative : float, optional
+        Relative tolerance, in [0, 1) [-].
+
+    Returns
+    -------
+    pandas.Series
+        bool, same index as ``values``.
+
+    Raises
+    ------
+    ValueError
+        Bad index, duration or tolerances, naming what was found.
+    """
+    if not isinstance(values, pd.Series):
+        raise ValueError(f"values must be a pandas Series, found {type(values).__name__}")
+    _check_flatline_tolerances(tolerance, relative)
+    t = _windows.times_ns(values.index)
+    grid = _Grid.build(t, _windows.to_ns(flatline, "flatline"))
+    try:
+        v = values.to_numpy(dtype=float, na_value=np.nan)
+    except (TypeError, ValueError):
+        raise ValueError(f"values are not numeric (dtype {values.dtype})") from None
+    return pd.Series(_flatline(v, grid, float(tolerance), float(relative)), index=values.index, name=values.name)
 
 
 def _block_medians(d: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
@@ -569,6 +678,7 @@ def screen(
     spike_threshold: float = DEFAULT_SPIKE_THRESHOLD,
     spike_scale_block: str | pd.Timedelta = SPIKE_SCALE_BLOCK,
     flatline_tolerance: Mapping[str, float | None] | None = None,
+    flatline_relative: float = DEFAULT_FLATLINE_RELATIVE,
     spike_floor: Mapping[str, tuple[float, float]] | None = None,
     efficiency_band: tuple[float, float] = DEFAULT_EFFICIENCY_BAND,
     superheat_margin: float = 0.0,
@@ -588,8 +698,10 @@ def screen(
         Role -> (low, high) instrument range in internal units (MPa abs, K, MW, kg/s, %),
         overriding ``DEFAULT_RANGES``; None for a role switches its range test off.
     flatline : str or Timedelta or None, optional
-        A role that does not move beyond its tolerance for at least this long is flagged
-        FLATLINE over the whole stretch [duration]. None switches the test off.
+        A role whose readings stay within its flatline limit for at least this long is
+        flagged FLATLINE over the whole stretch [duration]. The limit of a stretch is
+        max(absolute tolerance of the role, ``flatline_relative`` * largest |reading| of the
+        stretch) (``flatline_limit``). None switches the test off.
     spike : int or None, optional
         Window of the running median [samples, odd, >= 3], centred, over the finite
         samples. None switches the test off.
@@ -602,7 +714,11 @@ def screen(
         result for a sample depends only on the samples of its own interval and the spike
         window around it.
     flatline_tolerance : mapping of str to float or None, optional
-        Role -> tolerance [internal unit], overriding ``FLATLINE_TOLERANCE`` (None: no test).
+        Role -> absolute tolerance [internal unit], overriding ``FLATLINE_TOLERANCE`` (None:
+        no test for the role, whatever ``flatline_relative``).
+    flatline_relative : float, optional
+        Tolerance relative to the reading, in [0, 1) (default ``DEFAULT_FLATLINE_RELATIVE``;
+        0 leaves the absolute tolerances alone) [-].
     spike_floor : mapping of str to (float, float), optional
         Role -> (relative [-], absolute [internal unit]) smallest spike, overriding ``SPIKE_FLOOR``.
     efficiency_band : (float, float), optional
@@ -663,6 +779,14 @@ def screen(
     floors = dict(SPIKE_FLOOR)
     if spike_floor is not None:
         floors.update(spike_floor)
+    for role, tol in tolerance.items():
+        if tol is not None:
+            try:
+                _check_flatline_tolerances(tol, 0.0)
+            except ValueError:
+                raise ValueError(f"flatline tolerance of {role} must be a finite number >= 0 or None, "
+                                 f"found {tol!r}") from None
+    _check_flatline_tolerances(0.0, flatline_relative)
     flat_ns = None if flatline is None else _windows.to_ns(flatline, "flatline")
     if spike is not None:
         if isinstance(spike, bool) or not isinstance(spike, (int, np.integer)) or spike < 3 or spike % 2 == 0:
@@ -703,7 +827,7 @@ def screen(
                 f[out & shifted_ok] |= int(Reason.GAUGE_ABSOLUTE_SUSPECT)
         tol = tolerance.get(c)
         if flat_ns is not None and tol is not None:
-            f[_flatline(v, grid, float(tol))] |= int(Reason.FLATLINE)
+            f[_flatline(v, grid, float(tol), float(flatline_relative))] |= int(Reason.FLATLINE)
         if spike is not None and c in floors:
             hit, score = _spike(v, t, int(spike), float(spike_threshold), floors[c], block_ns, return_details)
             f[hit] |= int(Reason.SPIKE)

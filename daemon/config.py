@@ -219,12 +219,20 @@ DEFAULT_UNCERTAINTY = {
 }
 
 
+#: Largest accepted ``[screening] flatline_tolerance`` [-]: a wider band than 1 % of the
+#: reading would flag steady operation as a stuck transmitter (project choice, no source).
+FLATLINE_TOLERANCE_MAX = 0.01
+
+
 @dataclass(frozen=True)
 class ScreeningConfig:
     """Per-sample screening.
 
-    ``flatline``: a reading unchanged (within ``flatline_tolerance``, relative to the
-    reading [-]) for this long is flagged. ``spike_window``/``spike_threshold``: a sample more
+    ``flatline``: a reading unchanged for this long is flagged; unchanged means the readings
+    of the stretch span no more than max(the role's absolute tolerance
+    ``calc.quality.FLATLINE_TOLERANCE``, ``flatline_tolerance`` [-] times the largest reading of
+    the stretch). The worker's screening and ``isentrope check`` use the same test.
+    ``spike_window``/``spike_threshold``: a sample more
     than ``spike_threshold`` robust standard deviations (MAD) from the rolling median over
     ``spike_window`` is flagged [-]. ``efficiency_band``: section efficiencies outside are
     flagged [-]. ``barometric_kpa``: constant barometric pressure for gauge transmitters when
@@ -272,7 +280,10 @@ class SectionsConfig:
 
     ``lp_mode``: "expansion" (ELEP from an LP efficiency with the Baumann correction),
     "energy_balance" (ELEP from generator output and flows), "auto" (energy balance when the
-    flow role and fractions are there, else expansion). ``eta_lp_design`` [-], ``baumann``
+    flow role and fractions are there, else expansion). ``lp_dry_efficiency_source``: the LP
+    efficiency the expansion uses, "design" (``eta_lp_design``) or "measured" (the LP dry
+    stage-group efficiency of the same sample, from the LP extraction roles).
+    ``eta_lp_design`` [-], ``baumann``
     factor a [-], ``annulus_area_m2`` LP last-stage annulus area, all exhaust flows
     together [m2], ``lp_exhaust_flow_fraction`` LP exhaust flow / main steam flow [-],
     ``exhaust_loss_curve`` pairs (annulus velocity [m/s], exhaust loss [kJ/kg]) with rising
@@ -282,6 +293,7 @@ class SectionsConfig:
     """
 
     lp_mode: str = "auto"
+    lp_dry_efficiency_source: str = "design"
     eta_lp_design: float = 0.88
     baumann: float = 1.0
     annulus_area_m2: float | None = None
@@ -854,7 +866,8 @@ def _read_screening(r: _Reader, top: dict) -> ScreeningConfig:
         r.problem(p + ("efficiency_band",), f"expected fractions within [0, 1.2], found {list(band)}")
     return ScreeningConfig(
         flatline=r.value(d, p + ("flatline",), "duration", D.flatline, low=0, low_open=True),
-        flatline_tolerance=r.value(d, p + ("flatline_tolerance",), "float", D.flatline_tolerance, low=0),
+        flatline_tolerance=r.value(d, p + ("flatline_tolerance",), "float", D.flatline_tolerance, low=0,
+                                   high=FLATLINE_TOLERANCE_MAX),
         spike_window=r.value(d, p + ("spike_window",), "duration", D.spike_window, low=0, low_open=True),
         spike_threshold=r.value(d, p + ("spike_threshold",), "float", D.spike_threshold, low=0, low_open=True),
         efficiency_band=band or D.efficiency_band,
@@ -898,6 +911,8 @@ def _read_sections(r: _Reader, top: dict, roles: dict) -> SectionsConfig:
     D = SectionsConfig()
     v = {}
     v["lp_mode"] = r.value(d, p + ("lp_mode",), "str", D.lp_mode, choices=("auto", "expansion", "energy_balance"))
+    v["lp_dry_efficiency_source"] = r.value(d, p + ("lp_dry_efficiency_source",), "str",
+                                            D.lp_dry_efficiency_source, choices=("design", "measured"))
     v["eta_lp_design"] = r.value(d, p + ("eta_lp_design",), "float", D.eta_lp_design, low=0.5, high=1.0)
     v["baumann"] = r.value(d, p + ("baumann",), "float", D.baumann, low=0.0, high=2.0)
     v["annulus_area_m2"] = r.value(d, p + ("annulus_area_m2",), "float", None, low=0, low_open=True)
@@ -934,6 +949,23 @@ def _read_sections(r: _Reader, top: dict, roles: dict) -> SectionsConfig:
         for k in ("reheat_flow_fraction", "crossover_flow_fraction", "lp_exhaust_flow_fraction"):
             if v[k] is None:
                 r.problem(p + (k,), f"lp_mode \"energy_balance\" needs {k}")
+    if v["lp_dry_efficiency_source"] == "measured":
+        key = p + ("lp_dry_efficiency_source",)
+        absent = [role for role in ("lp_extraction_p", "lp_extraction_t") if role not in roles]
+        if absent:
+            r.problem(key, "\"measured\" needs the LP dry stage group: map the roles lp_extraction_p and "
+                      f"lp_extraction_t (not mapped: {', '.join(absent)})")
+        # The pipeline gives calc.sections the flow fractions only when both are set; "auto" then
+        # takes the energy balance whenever main_steam_flow is mapped as well.
+        balance = v["lp_mode"] == "energy_balance" or (
+            v["lp_mode"] == "auto" and "main_steam_flow" in roles
+            and v["reheat_flow_fraction"] is not None and v["crossover_flow_fraction"] is not None)
+        if balance:
+            why = ("lp_mode is \"energy_balance\"" if v["lp_mode"] == "energy_balance" else
+                   "lp_mode \"auto\" takes the energy balance here (main_steam_flow mapped, "
+                   "reheat_flow_fraction and crossover_flow_fraction given)")
+            r.problem(key, f"\"measured\" is used only by the expansion, but {why}: the LP end point "
+                      "comes from the energy balance; set lp_mode = \"expansion\" or leave the key out")
     return SectionsConfig(**v)
 
 

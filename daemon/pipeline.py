@@ -305,7 +305,8 @@ class Pipeline:
         from isentrope.calc import sections
 
         sc, unit = self.config.sections, self.config.unit
-        kwargs: dict = dict(eta_lp_design=sc.eta_lp_design, baumann=sc.baumann, lp_mode=sc.lp_mode)
+        kwargs: dict = dict(eta_lp_design=sc.eta_lp_design, lp_dry_efficiency_source=sc.lp_dry_efficiency_source,
+                            baumann=sc.baumann, lp_mode=sc.lp_mode)
         if sc.annulus_area_m2 is not None:
             kwargs["annulus_area"] = sc.annulus_area_m2
         if sc.exhaust_loss_curve is not None:
@@ -331,7 +332,9 @@ class Pipeline:
 
     def _screen_kwargs(self, frame: pd.DataFrame) -> dict:
         sc = self.config.screening
-        return dict(ranges=self.ranges, flatline=_td(sc.flatline),
+        # flatline_tolerance is relative to the reading; calc.quality keeps its per-role
+        # absolute tolerances as floors (FLATLINE_TOLERANCE), as `isentrope check` does.
+        return dict(ranges=self.ranges, flatline=_td(sc.flatline), flatline_relative=float(sc.flatline_tolerance),
                     spike=spike_samples(frame.index, sc.spike_window),
                     spike_threshold=float(sc.spike_threshold), efficiency_band=tuple(sc.efficiency_band))
 

@@ -3,11 +3,15 @@
 For each mapped role it reads the last ``--since`` (default 24 h) of raw samples and prints one
 table row: role, tag, unit, samples, last time, min, max, verdict. A verdict is a problem when
 the tag has no data, is stale (no sample within ``alarms.data_quality_limit`` of the end),
-has a gap longer than that limit, stays flat (within ``screening.flatline_tolerance``) for
-``screening.flatline`` or longer, has samples outside its instrument range, or has values that are implausible in the
-declared unit while another unit of the same quantity would make them plausible (a pressure
-declared psig whose values look like kPa). ``--config-only`` validates without connecting. Exit 0 when every tag is fine, 1 on any problem,
-2 for an invalid file, 3 when the store cannot be reached.
+has a gap longer than that limit, stays flat for ``screening.flatline`` or longer, has samples
+outside its instrument range, or has values that are implausible in the declared unit while
+another unit of the same quantity would make them plausible (a pressure declared psig whose
+values look like kPa). "Flat" is the worker's own flatline test (``calc.quality.flatline_samples``
+on the readings in internal units): readings spanning no more than max(the role's absolute
+tolerance ``calc.quality.FLATLINE_TOLERANCE``, ``screening.flatline_tolerance`` times the
+reading); roles without a flatline test there (valve position, barometric pressure) are not
+judged flat here either. ``--config-only`` validates without connecting. Exit 0 when every
+tag is fine, 1 on any problem, 2 for an invalid file, 3 when the store cannot be reached.
 """
 
 from __future__ import annotations
@@ -147,8 +151,8 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
         else:
             if end - row["last"] > stale_after:
                 problems.append(f"stale: last sample {_age(end - row['last'])} before the end")
-            flat = longest_flat(valid, config.screening.flatline_tolerance)
-            if flat is not None and flat[1] - flat[0] >= config.screening.flatline:
+            flat = longest_flat(config, m, valid, baro_kpa)
+            if flat is not None:
                 problems.append(f"flat for {_age(flat[1] - flat[0])} from {flat[0]:%Y-%m-%d %H:%M}")
             gap = longest_gap(valid)
             if gap is not None and gap[1] - gap[0] > stale_after:
@@ -181,22 +185,42 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
     return rows
 
 
-def longest_flat(values: pd.Series, tolerance: float) -> tuple[pd.Timestamp, pd.Timestamp] | None:
-    """(first, last) time of the longest run of samples each within ``tolerance`` (relative
-    to the reading [-]) of the one before; None when no two consecutive samples are equal."""
-    if len(values) < 2:
+def longest_flat(config: Config, mapping, values: pd.Series,
+                 baro_kpa: float) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+    """(first, last) time of the longest stretch of ``values`` (one role's finite readings in
+    its plant unit) that the worker's screening would flag FLATLINE; None when there is none.
+
+    The readings are converted to internal units (gauge pressures with ``baro_kpa`` [kPa])
+    and tested with ``calc.quality.flatline_samples``: the role's absolute tolerance from
+    ``calc.quality.FLATLINE_TOLERANCE``, ``[screening] flatline_tolerance`` as the relative
+    one, ``[screening] flatline`` as the duration. A step beyond the tolerance between two
+    flagged samples (held at one value, then at another) starts a new stretch.
+    """
+    from isentrope.calc import quality, units
+    from isentrope.daemon.roles import ROLES
+
+    sc = config.screening
+    tolerance = quality.FLATLINE_TOLERANCE.get(mapping.role)
+    if tolerance is None or len(values) < 2:
         return None
-    v = values.to_numpy(dtype=float)
+    internal = units.INTERNAL_UNIT[ROLES[mapping.role][0]]
+    v = np.asarray(units.convert(values.to_numpy(dtype=float), mapping.unit, internal,
+                                 barometric_kpa=baro_kpa), dtype=float)
+    series = pd.Series(v, index=values.index)
+    flat = quality.flatline_samples(series, pd.Timedelta(sc.flatline), tolerance, sc.flatline_tolerance).to_numpy()
+    if not flat.any():
+        return None
+    limit = quality.flatline_limit(np.maximum(v[1:], v[:-1]), np.minimum(v[1:], v[:-1]), tolerance,
+                                   sc.flatline_tolerance)
+    joined = flat[1:] & flat[:-1] & (np.abs(np.diff(v)) <= limit)
+    # stretches of flagged samples, split where two neighbours are not joined
+    opens, closes = flat.copy(), flat.copy()
+    opens[1:] &= ~joined
+    closes[:-1] &= ~joined
+    first, last = np.flatnonzero(opens), np.flatnonzero(closes)
     t = values.index.asi8
-    same = np.abs(np.diff(v)) <= tolerance * np.maximum(np.abs(v[:-1]), 1e-12)
-    if not same.any():
-        return None
-    # runs of True in ``same``: sample i starts a run where same[i] rises
-    edges = np.diff(np.concatenate(([0], same.astype(np.int8), [0])))
-    starts, stops = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)  # stop: last sample index
-    lengths = t[stops] - t[starts]
-    k = int(np.argmax(lengths))
-    return values.index[starts[k]], values.index[stops[k]]
+    k = int(np.argmax(t[last] - t[first]))
+    return values.index[first[k]], values.index[last[k]]
 
 
 def longest_gap(values: pd.Series) -> tuple[pd.Timestamp, pd.Timestamp] | None:

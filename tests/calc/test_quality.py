@@ -445,3 +445,99 @@ def test_flags_do_not_depend_on_where_the_frame_starts(cut):
     part = screen(f.iloc[cut:])
     safe = f.index >= f.index[cut] + pd.Timedelta("3h")
     pd.testing.assert_frame_equal(whole.flags.loc[safe], part.flags.loc[safe[cut:]])
+
+
+# --- the relative flatline tolerance -------------------------------------------------------
+def _flat_oracle(values, k, tol, rel):
+    """Plain definition on a regular grid without gaps: a sample is flagged when it lies in a
+    window of k + 1 successive samples (the flatline duration) whose readings span no more than
+    max(tol, rel * largest |reading| of the window). Loops, no pre-check (test oracle)."""
+    n = len(values)
+    flagged = np.zeros(n, dtype=bool)
+    for e in range(k, n):
+        w = values[e - k:e + 1]
+        hi, lo = w.max(), w.min()
+        if hi - lo <= max(tol, rel * max(abs(hi), abs(lo))):
+            flagged[e - k:e + 1] = True
+    return flagged
+
+
+def test_relative_flatline_tolerance_changes_what_is_flagged_and_keeps_the_floors():
+    # Invented readings (common practice, no source): a throttle thermocouple wandering
+    # +-0.02 K around 811 K for 150 min (a span of 0.04 K), and a condenser transmitter
+    # wandering +-0.3 Pa around 5 kPa; otherwise live noise.
+    f = _plant(n=400, roles=["throttle_t", "condenser_p"])
+    wobble = np.sin(np.arange(150) / 3.0)
+    f.iloc[100:250, 0] = 811.0 + 0.02 * wobble
+    f.iloc[100:250, 1] = 0.005 + 3e-7 * wobble
+    stuck = list(range(100, 250))
+
+    def flat(res, role):
+        return np.flatnonzero(_only(res.flags[role], Reason.FLATLINE)).tolist()
+
+    # default 1e-6 relative: 811 K x 1e-6 = 0.8 mK, below the 0.01 K floor; the 0.04 K span
+    # is a live reading. The condenser's 0.6 Pa span is within its 1 Pa floor: flagged.
+    res = screen(f)
+    assert flat(res, "throttle_t") == [] and flat(res, "condenser_p") == stuck
+    # 1e-4 relative: 811 K x 1e-4 = 0.081 K > 0.04 K, the thermocouple counts as stuck
+    res = screen(f, flatline_relative=1e-4)
+    assert flat(res, "throttle_t") == stuck and flat(res, "condenser_p") == stuck
+    # no relative part: the absolute floors alone, the same as the default here
+    pd.testing.assert_frame_equal(screen(f, flatline_relative=0.0).flags, screen(f).flags)
+    # a floor of 0 leaves the relative part alone: 5 kPa x 1e-6 = 5 mPa < 0.6 Pa, not flat
+    res = screen(f, flatline_tolerance={"condenser_p": 0.0})
+    assert flat(res, "condenser_p") == []
+    res = screen(f, flatline_tolerance={"condenser_p": 0.0}, flatline_relative=2e-4)  # 1 Pa
+    assert flat(res, "condenser_p") == stuck
+    # roles without a flatline test stay without one, whatever the relative tolerance
+    g = _plant(n=200, roles=["throttle_t"])
+    g["valve_position"] = 100.0
+    assert not _only(screen(g, flatline_relative=1e-3).flags["valve_position"], Reason.FLATLINE).any()
+
+
+def test_flatline_samples_is_the_test_of_screen():
+    f = _plant(n=400, roles=["throttle_t"])
+    f.iloc[100:250, 0] = 811.0 + 0.02 * np.sin(np.arange(150) / 3.0)
+    f.iloc[170:175, 0] = np.nan
+    for rel in (0.0, 1e-6, 1e-4):
+        res = screen(f, flatline_relative=rel, spike=None)
+        got = quality.flatline_samples(f["throttle_t"], "2h", quality.FLATLINE_TOLERANCE["throttle_t"], rel)
+        assert got.index.equals(f.index) and got.dtype == bool
+        assert (got.to_numpy() == _only(res.flags["throttle_t"], Reason.FLATLINE)).all()
+    assert quality.flatline_limit(811.0, 810.9, 0.01, 1e-4) == pytest.approx(0.0811, rel=1e-12)
+    assert quality.flatline_limit(-811.0, -810.9, 0.01, 1e-4) == pytest.approx(0.0811, rel=1e-12)
+    assert quality.flatline_limit(811.0, 810.9, 0.01, 0.0) == 0.01
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    seed=st.integers(0, 2**32 - 1),
+    rel=st.sampled_from([0.0, 1e-6, 1e-4, 1e-3, 0.02]),
+    tol=st.sampled_from([0.0, 0.01, 0.05]),
+    level=st.sampled_from([811.0, -40.0, 0.0, 3.0e-3]),
+)
+def test_vectorised_flatline_equals_the_plain_definition(seed, rel, tol, level):
+    # Plateaus whose spread sits around the limit, so that both sides of it occur; steps
+    # between neighbours often exceed the limit of a single pair while the window passes.
+    rng = np.random.default_rng(seed)
+    n, k = 240, 20  # 1-min samples, 20-min flatline
+    limit = max(tol, rel * abs(level)) or 1e-3
+    spread = rng.choice([0.0, 0.5, 0.98, 1.0, 1.02, 2.0], size=n // 30)
+    v = level + np.repeat(spread, 30)[:n] * limit * rng.uniform(-0.5, 0.5, n)
+    v[rng.random(n) < 0.1] = level  # some samples at the level itself
+    idx = _index(n)
+    got = quality.flatline_samples(pd.Series(v, index=idx), "20min", tol, rel).to_numpy()
+    assert (got == _flat_oracle(v, k, tol, rel)).all()
+
+
+def test_flatline_tolerance_arguments_are_checked():
+    f = _plant(n=20, roles=["throttle_t"])
+    for bad in (1.0, -1e-6, float("nan"), "1e-6", True):
+        with pytest.raises(ValueError, match="flatline_relative"):
+            screen(f, flatline_relative=bad)
+    with pytest.raises(ValueError, match="flatline tolerance of throttle_t"):
+        screen(f, flatline_tolerance={"throttle_t": -0.01})
+    with pytest.raises(ValueError, match="flatline tolerance"):
+        quality.flatline_samples(f["throttle_t"], "2h", float("inf"))
+    with pytest.raises(ValueError, match="Series"):
+        quality.flatline_samples(f, "2h", 0.01)

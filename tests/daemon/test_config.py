@@ -410,3 +410,69 @@ def test_reported_lines_point_at_the_misspelt_key(picks):
         line = next(n for n, t in enumerate(text.splitlines(), 1) if t.startswith(key.split(".")[1] + " = 1"))
         assert where == f"unit.toml:{line}"
         assert rest == f"unknown key; did you mean '{expected[key]}'?"
+
+
+# --- [screening] flatline_tolerance and [sections] lp_dry_efficiency_source ----------------
+LP_EXTRACTION = {"lp_extraction_p": "kPa(a)", "lp_extraction_t": "degC"}
+
+
+def test_flatline_tolerance_bounds_and_default():
+    from isentrope.calc import quality
+
+    assert cfgmod.ScreeningConfig().flatline_tolerance == quality.DEFAULT_FLATLINE_RELATIVE
+    assert parse_config(minimal("[screening]\nflatline_tolerance = 1e-4\n")).screening.flatline_tolerance == 1e-4
+    assert parse_config(minimal("[screening]\nflatline_tolerance = 0\n")).screening.flatline_tolerance == 0.0
+    for bad, why in (("0.05", "expected a value >= 0 and <= 0.01, found 0.05"),
+                     ("-1e-6", "expected a value >= 0 and <= 0.01, found -1e-06"),
+                     ('"1e-6"', "expected a number, found a string ('1e-6')")):
+        text = minimal(f"[screening]\nflatline_tolerance = {bad}\n")
+        where = f"unit.toml:{line_of(text, 'flatline_tolerance')}"
+        assert problems(text) == [f"{where}: screening.flatline_tolerance: {why}"]
+
+
+def test_lp_dry_efficiency_source_parses_with_its_default():
+    assert parse_config(minimal()).sections.lp_dry_efficiency_source == "design"
+    c = parse_config(minimal('[sections]\nlp_dry_efficiency_source = "measured"\nlp_mode = "expansion"\n',
+                             roles=dict(ROLE_UNITS, **LP_EXTRACTION)))
+    assert c.sections.lp_dry_efficiency_source == "measured"
+    # "auto" stays with the expansion when the flow fractions are not given
+    c = parse_config(minimal('[sections]\nlp_dry_efficiency_source = "measured"\n',
+                             roles=dict(ROLE_UNITS, main_steam_flow="kg/s", **LP_EXTRACTION)))
+    assert c.sections.lp_dry_efficiency_source == "measured"
+
+
+def test_lp_dry_efficiency_source_problems_name_file_line_and_key():
+    text = minimal('[sections]\nlp_dry_efficiency_source = "measurd"\n', roles=dict(ROLE_UNITS, **LP_EXTRACTION))
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
+        "expected one of 'design', 'measured', found 'measurd'; did you mean 'measured'?"]
+    # "measured" without the LP dry stage group mapped
+    text = minimal('[sections]\nlp_dry_efficiency_source = "measured"\n')
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
+        "\"measured\" needs the LP dry stage group: map the roles lp_extraction_p and lp_extraction_t "
+        "(not mapped: lp_extraction_p, lp_extraction_t)"]
+    text = minimal('[sections]\nlp_dry_efficiency_source = "measured"\n',
+                   roles=dict(ROLE_UNITS, lp_extraction_p="kPa(a)"))
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, '[roles.lp_extraction_p]')}: roles.lp_extraction_p: "
+        "lp_extraction_p needs lp_extraction_t mapped too",
+        f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
+        "\"measured\" needs the LP dry stage group: map the roles lp_extraction_p and lp_extraction_t "
+        "(not mapped: lp_extraction_t)"]
+    # "measured" where the energy balance, not the expansion, gives the LP end point
+    flows = ("reheat_flow_fraction = 0.89\ncrossover_flow_fraction = 0.78\nlp_exhaust_flow_fraction = 0.66\n")
+    roles = dict(ROLE_UNITS, main_steam_flow="kg/s", **LP_EXTRACTION)
+    text = minimal('[sections]\nlp_mode = "energy_balance"\nlp_dry_efficiency_source = "measured"\n' + flows,
+                   roles=roles)
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
+        "\"measured\" is used only by the expansion, but lp_mode is \"energy_balance\": the LP end point comes "
+        "from the energy balance; set lp_mode = \"expansion\" or leave the key out"]
+    text = minimal('[sections]\nlp_dry_efficiency_source = "measured"\n' + flows, roles=roles)
+    got = problems(text)
+    assert len(got) == 1 and got[0].startswith(
+        f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
+        "\"measured\" is used only by the expansion, but lp_mode \"auto\" takes the energy balance here")
+    parse_config(minimal('[sections]\nlp_mode = "expansion"\nlp_dry_efficiency_source = "measured"\n' + flows,
+                         roles=roles))

@@ -292,3 +292,112 @@ def test_absent_row_times_marks_the_sample_grid_inside_gaps_only():
     assert len(absent_row_times(rows[:0], idx[50], idx[60])[1]) == 0
     # one late or missing sample is not an absence (two spacings or less)
     assert len(absent_row_times(rows.delete(10), idx[0], idx[99])[1]) == 0
+
+
+# --- configuration keys the chain honours ---------------------------------------------------
+
+def _pipeline_with(folder, extra: str) -> Pipeline:
+    folder.mkdir(parents=True, exist_ok=True)
+    path = ws.write_config(folder / "unit.toml", ws.store_toml("sqlite", path="unit.sqlite"), extra=extra)
+    return Pipeline(load_config(path))
+
+
+def _wobbling_throttle_t(amplitude_k: float) -> tuple[pd.DataFrame, pd.Timestamp, pd.Timestamp, np.ndarray]:
+    """One day of the synthetic unit whose throttle thermocouple reads 811 K +- amplitude for
+    three hours (a sensor sticking near one value; invented, common practice, no source)."""
+    frame = ws.history(1.0).copy()
+    t0, t1 = ws.START + pd.Timedelta("3h"), ws.START + pd.Timedelta("6h")  # the unit is online
+    held = (frame.index >= t0) & (frame.index < t1)
+    frame.loc[held, "throttle_t"] = 811.0 + amplitude_k * np.sin(np.arange(held.sum()) / 3.0)
+    return frame, t0, t1, held
+
+
+def test_screening_flatline_tolerance_changes_what_the_worker_flags(tmp_path):
+    from isentrope.calc.quality import Reason
+
+    # A span of 0.07 K: above the 0.01 K floor of calc.quality.FLATLINE_TOLERANCE and above
+    # 1e-6 x 811 K, below 1e-4 x 811 K = 0.081 K.
+    frame, t0, t1, held = _wobbling_throttle_t(0.035)
+    s, e = ws.START + pd.Timedelta("1h"), ws.START + pd.Timedelta("9h")
+    default = _pipeline_with(tmp_path / "a", "")
+    wide = _pipeline_with(tmp_path / "b", "[screening]\nflatline_tolerance = 1e-4\n")
+    assert default._screen_kwargs(frame)["flatline_relative"] == 1e-6
+    assert wide._screen_kwargs(frame)["flatline_relative"] == 1e-4
+
+    def flat(pl):
+        r = pl.process(_slice(frame, pl, s, e), s, e)
+        return r.samples, (r.samples["quality_flags"].to_numpy() & int(Reason.FLATLINE)) != 0
+
+    samples, f_default = flat(default)
+    assert not f_default.any()
+    samples_wide, f_wide = flat(wide)
+    in_held = (samples_wide.index >= t0) & (samples_wide.index < t1)
+    assert (f_wide == in_held).all() and in_held.sum() == 90  # 3 h of 2-min samples
+    assert not samples_wide.loc[in_held, "ok"].any() and not samples_wide.loc[in_held, "steady"].any()
+    assert samples.loc[in_held, "ok"].any()
+
+
+def test_check_and_the_worker_mean_the_same_by_flatline_tolerance(tmp_path):
+    # `isentrope check` judges the plant-unit readings (degC here) with the worker's test on
+    # internal units: 1e-4 of 811 K (0.081 K) holds the 0.07 K span, 1e-4 of 537.85 degC
+    # (0.054 K) would not.
+    from isentrope.calc.quality import Reason
+    from isentrope.daemon import synthetic
+    from isentrope.daemon.commands import check
+
+    frame, t0, t1, held = _wobbling_throttle_t(0.035)
+    plant = synthetic.to_plant_units(frame)
+    end = frame.index[-1] + pd.Timedelta("2min")
+    for extra, expect_flat in (("", False), ("[screening]\nflatline_tolerance = 1e-4\n", True)):
+        pl = _pipeline_with(tmp_path / str(expect_flat), extra)
+        rows = {r["role"]: r for r in check.judge(pl.config, plant, end)}
+        verdict = rows["throttle_t"]["verdict"]
+        assert ("flat for" in verdict) == expect_flat, verdict
+        r = pl.process(frame, frame.index[0], end)
+        worker_flat = (r.samples["quality_flags"].to_numpy() & int(Reason.FLATLINE)) != 0
+        if expect_flat:
+            first = r.samples.index[worker_flat][0]
+            last = r.samples.index[worker_flat][-1]
+            hours = (last - first).total_seconds() / 3600
+            assert verdict == f"PROBLEM: flat for {hours:.1f} h from {first:%Y-%m-%d %H:%M}"
+            assert first == t0 and last == frame.index[held][-1]
+        else:
+            assert not worker_flat.any()
+
+
+def test_lp_dry_efficiency_source_measured_reaches_calc_sections(tmp_path):
+    from isentrope.calc import sections
+
+    frame = ws.history(1.0)
+    s, e = ws.START + pd.Timedelta("2h"), ws.START + pd.Timedelta("10h")  # online (a shutdown follows)
+    design = _pipeline_with(tmp_path / "d", "")
+    measured = _pipeline_with(tmp_path / "m", '[sections]\nlp_dry_efficiency_source = "measured"\n')
+    assert design._section_kwargs()["lp_dry_efficiency_source"] == "design"
+    assert measured._section_kwargs()["lp_dry_efficiency_source"] == "measured"
+    sub = _slice(frame, design, s, e)
+    a = design.process(sub, s, e)
+    b = measured.process(sub, s, e)
+    ok = a.samples["ok"] & np.isfinite(a.samples["lp_elep"]) & np.isfinite(b.samples["lp_elep"])
+    assert ok.sum() >= 150
+    # the LP dry group itself is the same figure either way; the expansion to the condenser is not
+    np.testing.assert_array_equal(a.samples["lp_dry_efficiency"].to_numpy(), b.samples["lp_dry_efficiency"].to_numpy())
+    for col in ("lp_elep", "lp_efficiency", "lp_moisture"):
+        assert (np.abs(a.samples.loc[ok, col] - b.samples.loc[ok, col]) > 1e-6).mean() > 0.9, col
+    # the HP and IP figures do not depend on the option
+    np.testing.assert_array_equal(a.samples["hp_efficiency"].to_numpy(), b.samples["hp_efficiency"].to_numpy())
+    # what the pipeline gives with "measured" is calc.sections.evaluate called with that option
+    kwargs = dict(design._section_kwargs(), lp_dry_efficiency_source="measured")
+    direct = sections.evaluate(sub[measured.roles], **kwargs).to_frame().set_axis(sub.index, axis=0)
+    direct = direct.loc[(direct.index >= s) & (direct.index < e)]
+    for col in ("lp_elep", "lp_efficiency", "lp_used_energy_efficiency", "lp_moisture", "lp_x", "lp_enthalpy_drop",
+                "lp_elep_u", "lp_efficiency_u", "lp_moisture_u", "lp_dry_efficiency"):
+        rtol = ws.SAME_RTOL_U if col.endswith("_u") else ws.SAME_RTOL
+        np.testing.assert_allclose(b.samples[col].to_numpy(), direct[col].to_numpy(), rtol=rtol, atol=0,
+                                   equal_nan=True, err_msg=col)
+    # steady windows are computed from their mean readings with the same option
+    assert len(b.windows) >= 1
+    means = b.windows[measured.roles].reset_index(drop=True)
+    of_windows = sections.evaluate(means, **kwargs).to_frame()
+    np.testing.assert_allclose(b.windows["lp_elep"].to_numpy(), of_windows["lp_elep"].to_numpy(),
+                               rtol=ws.SAME_RTOL, equal_nan=True)
+    assert not np.allclose(a.windows["lp_elep"].to_numpy(), b.windows["lp_elep"].to_numpy(), rtol=1e-6)
