@@ -8,7 +8,10 @@ Reads: one InfluxQL statement per group of roles that share a measurement and ta
 '<value>' AND time >= <start> AND time < <end>``, every name quoted by
 ``isentrope.daemon.stores.escape``; the window is split into ``read_chunk`` pieces. A CSV
 response hides "database not found", so the database is checked once (and again when a read
-comes back empty) with a JSON ``SHOW RETENTION POLICIES``.
+comes back empty) with a JSON ``SHOW RETENTION POLICIES``. A field that holds text in some
+shards (InfluxDB keeps one type per field and shard) reads as missing samples there: ``::field``
+returns the numbers of every shard and leaves the text out (measured on 1.6.7 and 1.8.10), and a
+field that is text throughout comes back as strings, which become NaN.
 
 Writes: line protocol in batches of ``batch_size`` lines, ``precision=ns``. A failed batch
 raises ``TemporaryStoreError`` or ``FatalStoreError`` with the lines not yet written (that batch

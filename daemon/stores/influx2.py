@@ -10,13 +10,23 @@ Reads: one Flux query per group of roles sharing a measurement and tag filters::
       |> range(start: <start>, stop: <end>)                 // half-open [start, end)
       |> filter(fn: (r) => r._measurement == "<m>" and (r._field == "<f1>" or ...) and r["<tag>"] == "<v>")
       |> keep(columns: ["_time", "_field", "_value"])
-      |> group()
       |> pivot(rowKey: ["_time"], columnKey: ["_field"], valueColumn: "_value")
 
-every name quoted by ``escape.flux_string``. The response is fetched with ``query_raw`` as
-plain CSV (no annotations) and parsed with pandas (``pandas.read_csv``), which is several times
-faster than the client's record-by-record parser on a unit-year (see tests/bench/bench_stores.py).
-The window is split into ``read_chunk`` pieces.
+every name quoted by ``escape.flux_string``. The response is fetched with ``query_raw`` as CSV
+with only the ``#datatype`` annotation and parsed with pandas (``pandas.read_csv``), which is
+several times faster than the client's record-by-record parser on a unit-year (see
+tests/bench/bench_stores.py). The window is split into ``read_chunk`` pieces.
+
+Fields that hold text: a read whose answer has a field of type string (or boolean) raises
+``FatalStoreError`` naming the measurement, field, window and first such point. Reading those
+points as missing samples would not be safe here: measured on influxd 1.8.10, its Flux reader
+takes a field's type from the first shard (block of time) of the range and stops reading that
+field, for every series of the measurement, at the first shard where the type differs, so the
+numbers stored after it would be missed without notice. (``Influx1Store`` reads the numbers
+and leaves the text out; that is the way to read such a database through 1.8.) A type change
+from numbers to text later in the range returns no text at all, so it cannot be seen from here.
+There is no ``group()`` before the pivot: it put every field in one ``_value`` column, and a text
+field next to numeric ones made the whole read fail with "schema collision" (500).
 
 Writes: the client's synchronous write API, ``batch_size`` lines per request, with the client's
 retry (``WritesRetry``: 429/503 and connection errors, short exponential backoff). A batch that
@@ -55,11 +65,16 @@ from isentrope.daemon.stores.influx_common import (
     LineProtocolWriter,
     StateClock,
     classify_http,
+    quote_for_message,
     state_line,
     time_windows,
 )
 
-_DIALECT = Dialect(header=True, delimiter=",", annotations=[], comment_prefix="#", date_time_format="RFC3339Nano")
+_DIALECT = Dialect(header=True, delimiter=",", annotations=["datatype"], comment_prefix="#",
+                   date_time_format="RFC3339Nano")
+
+#: Flux column types that are numbers; a field column of another type holds text (or bools).
+_NUMERIC_TYPES = ("double", "long", "unsignedLong")
 
 
 def flux_time(t: pd.Timestamp) -> str:
@@ -168,7 +183,8 @@ class Influx2Store(LineProtocolWriter, Store):
 
     # --- queries -------------------------------------------------------------------------
     def query_csv(self, flux: str, what: str = "query") -> list[pd.DataFrame]:
-        """Run Flux; one DataFrame per CSV table block (plain CSV, no annotations)."""
+        """Run Flux; one DataFrame per CSV table block, its Flux column types (the ``#datatype``
+        annotation) in ``block.attrs["datatype"]`` as {column: type}."""
         try:
             resp = self._query_api.query_raw(flux, org=self.org or "-", dialect=_DIALECT)
             text = resp.data.decode("utf-8")
@@ -176,9 +192,43 @@ class Influx2Store(LineProtocolWriter, Store):
             raise self._error(exc, what) from None
         blocks = []
         for block in text.replace("\r\n", "\n").split("\n\n"):
-            if block.strip():
-                blocks.append(pd.read_csv(io.StringIO(block)))
+            if not block.strip():
+                continue
+            types: list[str] = []
+            if block.startswith("#datatype,"):
+                first, _, block = block.partition("\n")
+                types = first.split(",")  # names of types hold no comma; "#datatype" heads the empty column
+            frame = pd.read_csv(io.StringIO(block))
+            frame.attrs["datatype"] = dict(zip(frame.columns, types))
+            blocks.append(frame)
         return blocks
+
+    def _refuse_text_fields(self, what: str, block: pd.DataFrame, fields: Sequence[str], measurement: str,
+                            tags: Mapping[str, str], lo: pd.Timestamp, hi: pd.Timestamp) -> None:
+        """FatalStoreError when a field of ``block`` is not numeric in the server's answer (see the
+        module docstring: 1.8.10 would have left out the numbers stored after those points)."""
+        types = block.attrs.get("datatype", {})
+        for field in fields:
+            kind = types.get(field, "double")
+            if kind in _NUMERIC_TYPES or field not in block.columns:
+                continue
+            held = block[field].notna().to_numpy()
+            n = int(held.sum())
+            first_time = self._block_times(block)[held][0].isoformat() if n else "?"
+            first = str(block[field][held].iloc[0]) if n else ""
+            first = first if len(first) <= 40 else first[:37] + "..."
+            tag_text = f" ({', '.join(f'{k}={v!r}' for k, v in tags.items())})" if tags else ""
+            listing = f"SELECT {quote_for_message(field)}::{kind} FROM {quote_for_message(measurement)}"
+            raise FatalStoreError(
+                f"{what} ({self.url}, bucket {self.bucket!r}): field {field!r} of measurement {measurement!r}"
+                f"{tag_text} holds {kind} values, not numbers, in [{lo.isoformat()}, {hi.isoformat()}): "
+                f"{n} point{'s' if n != 1 else ''}, the first at {first_time} ({first!r}). Nothing was read: "
+                "influxd 1.8's Flux reader stops reading a field where its type changes from one shard (block of "
+                "time) to the next, so numbers stored after those points would be missed without notice. Delete "
+                f"or rewrite those points ({listing} lists them; InfluxQL DELETE FROM ... WHERE time >= ... AND "
+                "time < ... removes whole points: export their other fields first), or read this database with "
+                'kind = "influx1", which reads the numbers and leaves the text out as missing samples'
+            )
 
     def _filter(self, measurement: str, fields: Sequence[str] | None, tags: Mapping[str, str]) -> str:
         conds = [f"r._measurement == {escape.flux_string(measurement)}"]
@@ -193,7 +243,6 @@ class Influx2Store(LineProtocolWriter, Store):
             f"  |> range(start: {flux_time(lo)}, stop: {flux_time(hi)})\n"
             f"  |> filter(fn: (r) => {self._filter(measurement, fields, tags)})\n"
             '  |> keep(columns: ["_time", "_field", "_value"])\n'
-            "  |> group()\n"
             '  |> pivot(rowKey: ["_time"], columnKey: ["_field"], valueColumn: "_value")'
         )
 
@@ -215,6 +264,7 @@ class Influx2Store(LineProtocolWriter, Store):
                 for block in self.query_csv(self._pivot_query(measurement, fields, dict(tags), lo, hi), "read_raw"):
                     if not len(block) or "_time" not in block.columns:
                         continue
+                    self._refuse_text_fields("read_raw", block, fields, measurement, dict(tags), lo, hi)
                     idx = self._block_times(block)
                     inside = (idx >= lo) & (idx < hi)  # 1.8's storage reader includes stop itself
                     block, idx = block[inside], idx[inside]
@@ -243,10 +293,12 @@ class Influx2Store(LineProtocolWriter, Store):
         for lo, hi in time_windows(start, end, self.read_chunk):
             for block in self.query_csv(self._pivot_query(measurement, None, tags, lo, hi), f"read_results {measurement}"):
                 if len(block) and "_time" in block.columns:
+                    drop = [c for c in block.columns if c in ("_time", "result", "table") or str(c).startswith("Unnamed")]
+                    fields = [c for c in block.columns if c not in drop]
+                    self._refuse_text_fields(f"read_results {measurement}", block, fields, measurement, tags, lo, hi)
                     idx = self._block_times(block)
                     inside = (idx >= lo) & (idx < hi)  # 1.8's storage reader includes stop itself
                     block, idx = block[inside], idx[inside]
-                    drop = [c for c in block.columns if c in ("_time", "result", "table") or str(c).startswith("Unnamed")]
                     frames.append(block.drop(columns=drop).set_axis(idx, axis=0))
         if not frames:
             return common.results_frame({}, np.array([], dtype=np.int64))

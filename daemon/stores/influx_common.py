@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import threading
 import time
 from collections.abc import Iterator, Mapping, Sequence
@@ -24,17 +25,65 @@ MAX_STRING_FIELD = 64 * 1024
 _TEMPORARY_STATUS = {408, 429, 500, 502, 503, 504}
 #: Bodies of a 5xx that mean the target does not exist, which no retry fixes.
 _FATAL_BODY = ("database not found", "no database", "bucket not found", "retention policy not found")
+#: Bodies that mean a field holds values of two types. InfluxDB keeps one type per field of a
+#: measurement in each shard (a block of time: 7 days for a retention policy or bucket kept
+#: longer than 6 months, 1 day down to 2 days, 1 hour below: the documented defaults, from
+#: memory; 7 days measured for "autogen"), so a float written where that shard already holds the
+#: field as a string is refused (1.6.7 and 1.8.10, v1 and v2 API: 400 "partial write: field type
+#: conflict: input field "F" on measurement "M" is type float, already exists as type string
+#: dropped=N"; the other points of the batch are written), and a Flux read that puts both types
+#: in one column fails (1.8.10: 500 "schema collision detected: column "_value" is both of type
+#: float and string"). Measured on those servers (tests/daemon/stores/test_type_conflicts.py);
+#: no retry changes either answer.
+_TYPE_CONFLICT_BODY = ("field type conflict", "schema collision")
+_WRITE_CONFLICT = re.compile(
+    r'input field \\?"(?P<field>.*?)\\?" on measurement \\?"(?P<measurement>.*?)\\?" is type (?P<given>\w+), '
+    r"already exists as type (?P<held>\w+)"
+)
+_READ_CONFLICT = re.compile(r"both of type (?P<a>\w+) and (?P<b>\w+)")
 
 
 def classify_http(status: int, body: str, what: str) -> Exception:
-    """TemporaryStoreError for 408/429/5xx, FatalStoreError for the rest (401, 403, 404, 400...)."""
+    """TemporaryStoreError for 408/429/5xx, FatalStoreError for the rest (401, 403, 404, 400...).
+
+    A 5xx that names a missing target, and a field type conflict or a Flux schema collision
+    (whatever the status), are fatal: no retry changes them.
+    """
     body = (body or "").strip().replace("\n", " ")[:300]
     msg = f"{what}: HTTP {status}: {body}"
+    if any(s in body.lower() for s in _TYPE_CONFLICT_BODY):
+        return FatalStoreError(f"{what}: HTTP {status}: {type_conflict_text(body)} (server: {body})")
     if status in _TEMPORARY_STATUS or status >= 500:
         if any(s in body.lower() for s in _FATAL_BODY):
             return FatalStoreError(msg)
         return TemporaryStoreError(msg)
     return FatalStoreError(msg)
+
+
+def type_conflict_text(body: str) -> str:
+    """What a type-conflict answer means and how to clear it, naming field and measurement when
+    the server does. The cure was measured on 1.8.10: a shard forgets a field's type once it
+    holds no point of that measurement any more, and then takes the other type."""
+    m = _WRITE_CONFLICT.search(body)
+    if m:
+        field, measurement, held, given = m["field"], m["measurement"], m["held"], m["given"]
+        written = " (the server wrote the other points of the batch)" if "partial write" in body.lower() else ""
+        listing = f"SELECT {quote_for_message(field)}::{held} FROM {quote_for_message(measurement)}"
+        return (f"field {field!r} of measurement {measurement!r} already holds {held} values in the shard (block "
+                f"of time) these {given} points belong to, so the server refused them{written}; no retry changes "
+                f"that. Find those times with {listing}, delete those points (InfluxQL DELETE FROM ... WHERE "
+                "time >= ... AND time < ... removes whole points: export their other fields first), then write again")
+    m = _READ_CONFLICT.search(body)
+    types = f"{m['a']} and {m['b']}" if m else "two types of"
+    return (f"the values read here are {types} values: a field holds text where numbers belong, or one field has "
+            "two types in different shards (blocks of time); no retry changes that. SHOW FIELD KEYS FROM "
+            "<measurement> lists each field's types; delete or rewrite the points of the wrong type (InfluxQL DELETE "
+            "FROM ... WHERE time >= ... AND time < ... removes whole points: export their other fields first)")
+
+
+def quote_for_message(name: str) -> str:
+    """An InfluxQL identifier for a message (names taken from a server answer; never raises)."""
+    return '"' + name.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
 def keep_unwritten(store, err: Exception, lines: list[str]) -> None:

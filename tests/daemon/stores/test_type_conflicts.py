@@ -1,0 +1,288 @@
+"""A field that holds strings where numbers belong, against the real servers.
+
+InfluxDB keeps one type per field of a measurement in each shard (a block of time: 7 days for the
+test servers' default retention policy, shards starting on Mondays 00:00 UTC), so a historian or
+an import can leave a field as text in one shard and numbers in another. What the servers answer
+was measured here on influxd 1.6.7 (v1 API) and 1.8.10 (v1 and v2 API):
+
+* writing a float where the shard holds the field as a string: 400 "partial write: field type
+  conflict: input field "F" on measurement "M" is type float, already exists as type string
+  dropped=N" (the other points of the batch are written);
+* InfluxQL (v1 API): ``"F"::field`` reads the numbers of every shard and leaves the strings out;
+* Flux (v2 API on 1.8.10): a ``group()`` that puts a text field and a numeric one in one
+  ``_value`` column fails with 500 "schema collision detected" (retried forever before this
+  file), and the reader stops reading the field at the first shard whose type differs from the
+  first one's, so numbers after a shard of text are not returned.
+
+What the stores must do (the project rule "bad input gets a clear error or a flagged sample, and
+nothing already stored is lost"): no retry for any of these (``FatalStoreError``, naming field
+and measurement and how to clear it), Influx1Store reads the text as missing samples, and
+Influx2Store refuses a read that would silently miss numbers. Values are invented test data.
+"""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+import requests
+
+from isentrope.calc.quality import Reason, screen
+from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores import FatalStoreError, TemporaryStoreError, escape, open_store
+from isentrope.daemon.stores.influx_common import classify_http
+
+#: A Monday: the first point of shard A (2026-03-02 to 03-09 UTC).
+T_A = pd.Timestamp("2026-03-02T00:00:00Z")
+#: In shard B (2026-03-30 to 04-06 UTC), four weeks later: one read chunk (31 days) spans both.
+T_B = pd.Timestamp("2026-03-30T06:00:00Z")
+END = T_B + pd.Timedelta("1h")
+MIN = pd.Timedelta("1min")
+
+P = RoleMapping(role="throttle_p", tag="P", unit="MPa(a)", measurement="plant", tags={"unit": "U7"})
+T = RoleMapping(role="throttle_t", tag="T", unit="degC", measurement="plant", tags={"unit": "U7"})
+
+
+def line_protocol(server, db: str, *lines: str) -> requests.Response:
+    """Write as a historian would, straight to /write (what the stores must then cope with)."""
+    return requests.post(server.url + "/write", params={"db": db, "precision": "ns"},
+                         data="\n".join(lines).encode(), timeout=30)
+
+
+def write_text_then_numbers(server, db: str) -> None:
+    """P as a string at T_A (shard A), as floats in shard B; T always a float."""
+    for text in (f'plant,unit=U7 P="BAD",T=538.0 {T_A.value}',
+                 f"plant,unit=U7 T=538.1 {(T_A + MIN).value}",
+                 f"plant,unit=U7 P=16.6,T=538.2 {T_B.value}",
+                 f"plant,unit=U7 P=16.7,T=538.3 {(T_B + MIN).value}"):
+        assert line_protocol(server, db, text).status_code == 204, text
+
+
+def influx2(server, db: str):
+    return open_store("influx2", url=server.url, org="-", bucket=server.bucket(db), token="", timeout=10, retries=0)
+
+
+def influx1(server, db: str):
+    return open_store("influx1", url=server.url, database=db, retention_policy="autogen", timeout=10)
+
+
+def assert_names_field_and_cure(err: Exception, field: str, measurement: str) -> None:
+    text = str(err)
+    assert repr(field) in text and repr(measurement) in text, text
+    assert "string" in text and "delete" in text.lower(), text
+
+
+# --- classification without a server (the bodies measured on the servers, see above) -----------
+
+WRITE_CONFLICT = ('{"error":"partial write: field type conflict: input field \\"P\\" on measurement \\"plant\\" '
+                  'is type float, already exists as type string dropped=1"}')
+SCHEMA_COLLISION = '{"error":"schema collision detected: column \\"_value\\" is both of type float and string"}'
+
+
+@pytest.mark.parametrize("status, body", [(400, WRITE_CONFLICT), (500, SCHEMA_COLLISION),
+                                          (400, '{"error":"field type conflict"}')])
+def test_type_conflicts_are_fatal_whatever_the_status(status, body):
+    err = classify_http(status, body, "write_raw")
+    assert isinstance(err, FatalStoreError) and f"HTTP {status}" in str(err)
+    assert "no retry" in str(err)
+
+
+def test_a_write_conflict_names_field_measurement_and_types():
+    err = classify_http(400, WRITE_CONFLICT, "write_raw")
+    assert "field 'P' of measurement 'plant' already holds string values" in str(err)
+    assert 'SELECT "P"::string FROM "plant"' in str(err)  # where to find the points to delete
+
+
+def test_other_5xx_stay_temporary():
+    assert isinstance(classify_http(500, '{"error":"timeout"}', "read_raw"), TemporaryStoreError)
+
+
+# --- Influx2Store (v2 API, Flux, influxd 1.8.10) ------------------------------------------------
+
+def flux_values(server, db: str, measurement: str, start: pd.Timestamp, stop: pd.Timestamp) -> list[str]:
+    """The raw answer of a plain Flux read of field P, one CSV value per point (no pivot)."""
+    flux = (f'from(bucket: "{server.bucket(db)}") |> range(start: {start.isoformat().replace("+00:00", "Z")}, '
+            f'stop: {stop.isoformat().replace("+00:00", "Z")}) '
+            f'|> filter(fn: (r) => r._measurement == "{measurement}" and r._field == "P")')
+    answer = requests.post(server.url + "/api/v2/query", json={"query": flux, "dialect": {"annotations": []}},
+                           timeout=60)
+    assert answer.status_code == 200, answer.text
+    rows = [r.split(",") for r in answer.text.replace("\r\n", "\n").split("\n") if r.startswith(",_result")]
+    return [r[6] for r in rows]  # ,result,table,_start,_stop,_time,_value,...
+
+
+@pytest.mark.influx
+def test_flux_reader_of_1_8_stops_a_field_at_the_first_shard_of_another_type(influxdb_v2):
+    """The server behaviour the Influx2Store decision rests on (InfluxQL on the same server, as
+    Influx1Store reads it, returns every number)."""
+    db = influxdb_v2.new_database("typeflux")
+    write_text_then_numbers(influxdb_v2, db)
+    assert flux_values(influxdb_v2, db, "plant", T_A, END) == ["BAD"]  # 16.6, 16.7 of shard B missing
+    assert flux_values(influxdb_v2, db, "plant", T_B, END) == ["16.6", "16.7"]
+    # another series of the measurement: its numbers in shard B are missed as well
+    assert line_protocol(influxdb_v2, db, f"plant,unit=U8 P=15.0 {T_B.value}").status_code == 204
+    assert flux_values(influxdb_v2, db, "plant", T_A, END) == ["BAD"]
+    # numbers first, text in the next shard, numbers again: neither the text nor what follows
+    t_c = T_B + pd.Timedelta(days=28)
+    for text in (f"later,unit=U7 P=1.0 {T_A.value}", f'later,unit=U7 P="BAD" {T_B.value}',
+                 f"later,unit=U7 P=1.2 {t_c.value}"):
+        assert line_protocol(influxdb_v2, db, text).status_code == 204, text
+    assert flux_values(influxdb_v2, db, "later", T_A, t_c + MIN) == ["1"]
+    values = influxdb_v2.query('SELECT "P"::field FROM "plant"', db)["results"][0]["series"][0]["values"]
+    assert sorted(v for _, v in values) == [15.0, 16.6, 16.7]
+    values = influxdb_v2.query('SELECT "P"::field FROM "later"', db)["results"][0]["series"][0]["values"]
+    assert [v for _, v in values] == [1.0, 1.2]
+
+
+@pytest.mark.influx
+@pytest.mark.parametrize("roles", [[P, T], [P]], ids=["text-field-beside-numbers", "text-field-alone"])
+def test_influx2_read_raw_over_a_field_with_text_is_fatal_and_names_it(influxdb_v2, roles):
+    # Before: 500 "schema collision" -> TemporaryStoreError, retried forever (beside numbers),
+    # or the text read as NaN and 16.6, 16.7 silently missing (alone).
+    db = influxdb_v2.new_database("type2raw")
+    write_text_then_numbers(influxdb_v2, db)
+    store = influx2(influxdb_v2, db)
+    with pytest.raises(FatalStoreError) as caught:
+        store.read_raw(roles, T_A, END)
+    assert_names_field_and_cure(caught.value, "P", "plant")
+    assert T_A.isoformat() in str(caught.value) and "'BAD'" in str(caught.value)  # the first such point
+    assert 'kind = "influx1"' in str(caught.value)
+    # a window with numbers only still reads
+    got = store.read_raw(roles, T_B, END)
+    assert got["throttle_p"].tolist() == [16.6, 16.7]  # written above
+    store.close()
+
+
+@pytest.mark.influx
+def test_influx2_read_results_over_a_field_with_text_is_fatal_and_names_it(influxdb_v2):
+    # Before: 500 "schema collision" -> TemporaryStoreError, retried forever.
+    db = influxdb_v2.new_database("type2res")
+    assert line_protocol(influxdb_v2, db, f'sections,unit=U7 hp_efficiency="n/a",ip_efficiency=0.91 {T_A.value}',
+                         f"sections,unit=U7 hp_efficiency=0.85,ip_efficiency=0.9 {T_B.value}").status_code == 204
+    store = influx2(influxdb_v2, db)
+    with pytest.raises(FatalStoreError) as caught:
+        store.read_results("sections", T_A, END, {"unit": "U7"})
+    assert_names_field_and_cure(caught.value, "hp_efficiency", "sections")
+    store.close()
+
+
+@pytest.mark.influx
+def test_influx2_reads_an_integer_field_beside_float_ones(influxdb_v2):
+    # Before: group() put long and double values in one column: 500 "schema collision", retried.
+    db = influxdb_v2.new_database("type2int")
+    assert line_protocol(influxdb_v2, db, f"plant,unit=U7 P=17i,T=538.0 {T_A.value}",
+                         f"plant,unit=U7 P=16i,T=538.5 {(T_A + MIN).value}").status_code == 204
+    got = influx2(influxdb_v2, db).read_raw([P, T], T_A, END)
+    assert got["throttle_p"].tolist() == [17.0, 16.0] and got["throttle_t"].tolist() == [538.0, 538.5]
+
+
+@pytest.mark.influx
+def test_deleting_the_text_points_as_the_message_says_clears_the_read_and_the_write(influxdb_v2):
+    db = influxdb_v2.new_database("type2cure")
+    write_text_then_numbers(influxdb_v2, db)
+    store = influx2(influxdb_v2, db)
+    with pytest.raises(FatalStoreError):
+        store.read_raw([P, T], T_A, END)
+    # the message's recipe: find the points, export their other fields, delete, write back
+    found = influxdb_v2.query('SELECT "P"::string FROM "plant"', db)["results"][0]["series"][0]["values"]
+    assert [t for t, _ in found] == [T_A.value]
+    kept = store.read_raw([T], T_A, T_B)  # the other field of those times
+    influxdb_v2.query(f"DELETE FROM \"plant\" WHERE time >= {T_A.value} AND time < {T_B.value - 1}", db)
+    store.write_raw([T], kept)
+    got = store.read_raw([P, T], T_A, END)
+    assert got["throttle_t"].tolist() == [538.0, 538.1, 538.2, 538.3]  # nothing but the text lost
+    assert np.isnan(got["throttle_p"].iloc[:2]).all() and got["throttle_p"].iloc[2:].tolist() == [16.6, 16.7]
+    # and shard A takes numbers for P again
+    store.write_raw([P], pd.DataFrame({"throttle_p": [16.5]}, index=pd.DatetimeIndex([T_A], name="time")))
+    assert store.read_raw([P], T_A, T_A + MIN)["throttle_p"].tolist() == [16.5]
+    store.close()
+
+
+# --- Influx1Store (v1 API, InfluxQL): the text reads as missing samples, the numbers are kept ---
+
+@pytest.fixture(params=["1.6", "1.8"])
+def v1_server(request):
+    return request.getfixturevalue("influxdb_v1" if request.param == "1.6" else "influxdb_v2")
+
+
+@pytest.mark.influx
+def test_influx1_reads_text_as_missing_samples_that_screening_flags(v1_server):
+    db = v1_server.new_database("type1raw")
+    write_text_then_numbers(v1_server, db)
+    store = influx1(v1_server, db)
+    raw = store.read_raw([P, T], T_A, END)
+    assert raw.index.tolist() == [T_A, T_A + MIN, T_B, T_B + MIN]
+    assert np.isnan(raw["throttle_p"].iloc[:2]).all()
+    assert raw["throttle_p"].iloc[2:].tolist() == [16.6, 16.7]  # the numbers of shard B, all of them
+    assert raw["throttle_t"].tolist() == [538.0, 538.1, 538.2, 538.3]
+    flags = screen(store.read([P, T], T_A, END), flatline=None, spike=None).flags
+    assert flags.loc[T_A, "throttle_p"] & int(Reason.MISSING)
+    assert not flags.loc[T_B, "throttle_p"] & int(Reason.MISSING)
+    results = store.read_results("plant", T_A, END, {"unit": "U7"})
+    assert results["P"].iloc[2:].tolist() == [16.6, 16.7] and np.isnan(results["P"].iloc[0])
+    store.close()
+
+
+# --- writes: both stores, every server ----------------------------------------------------------
+
+@pytest.mark.influx
+@pytest.mark.parametrize("kind", ["influx2-1.8", "influx1-1.6", "influx1-1.8"])
+def test_a_float_written_where_the_shard_holds_text_is_fatal_and_not_kept(kind, request):
+    server = request.getfixturevalue("influxdb_v1" if kind.endswith("1.6") else "influxdb_v2")
+    db = server.new_database("typewrite")
+    write_text_then_numbers(server, db)
+    store = influx2(server, db) if kind.startswith("influx2") else influx1(server, db)
+    frame = pd.DataFrame({"throttle_p": [16.4], "throttle_t": [538.9]}, index=pd.DatetimeIndex([T_A + 2 * MIN]))
+    with pytest.raises(FatalStoreError) as caught:
+        store.write_raw([P, T], frame)
+    assert_names_field_and_cure(caught.value, "P", "plant")
+    assert "no retry" in str(caught.value)
+    assert store.pending == [] and len(caught.value.unwritten) == 1  # not sent again by the next write
+
+    # a batch of two points, one refused: the server writes the other (a partial write)
+    results = pd.DataFrame({"hp_efficiency": [0.8, np.nan], "ip_efficiency": [np.nan, 0.9]},
+                           index=pd.DatetimeIndex([T_A + MIN, T_A + 2 * MIN]))
+    assert line_protocol(server, db, f'sections,unit=U7 hp_efficiency="n/a" {T_A.value}').status_code == 204
+    with pytest.raises(FatalStoreError) as caught:
+        store.write_results("sections", results, {"unit": "U7"})
+    assert_names_field_and_cure(caught.value, "hp_efficiency", "sections")
+    assert "the other points of the batch" in str(caught.value) and store.pending == []
+    kept = server.query('SELECT "ip_efficiency" FROM "sections"', db)["results"][0]["series"][0]["values"]
+    assert kept == [[(T_A + 2 * MIN).value, 0.9]]
+    store.close()
+
+
+# --- the worker: a fatal read ends the cycle at once, without retries ---------------------------
+
+@pytest.mark.influx
+def test_the_worker_stops_at_once_on_text_in_a_raw_field(influxdb_v2, tmp_path):
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/daemon: worker_support
+    import worker_support as ws
+
+    from isentrope.daemon.config import load_config
+    from isentrope.daemon.worker import Worker
+
+    db = influxdb_v2.new_database("typeworker")
+    table = ws.store_toml("influx2", url=influxdb_v2.url, org="isentrope", bucket=influxdb_v2.bucket(db),
+                          token="${ISENTROPE_TEST_TOKEN}", timeout="30s")
+    config = load_config(ws.write_config(tmp_path / "unit.toml", table), environ={"ISENTROPE_TEST_TOKEN": "u:p"})
+    store = open_store(config.store.kind, **config.store.open_options())
+    # the week before the history (another shard) has the throttle pressure as text
+    m = next(m for m in config.mappings if m.role == "throttle_p")
+    bad = ws.START - pd.Timedelta("1h")
+    lp = (f"{escape.lp_series_key(m.measurement, m.tags)} "
+          f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}")
+    assert line_protocol(influxdb_v2, db, lp).status_code == 204
+    store.write_raw(config.mappings, ws.plant_history(0.5, freq="5min"))
+    sleeps = []
+    worker = Worker.from_config(config, store, start_default=ws.START + pd.Timedelta("3h"),
+                                clock=ws.FakeClock(ws.START + pd.Timedelta("10h")), sleep=sleeps.append)
+    with pytest.raises(FatalStoreError) as caught:
+        worker.run_cycle()
+    assert_names_field_and_cure(caught.value, m.field_name, m.measurement)
+    assert sleeps == []  # no retry, no backoff
+    assert worker.last_report.error.startswith("store error:")
+    store.close()
