@@ -1224,10 +1224,11 @@ def _call_hs(mask, p, t):
 
 class _InletStates:
     """h and s of (p, T) states already evaluated within one ``evaluate`` call, found again
-    by value: the LP dry group and the LP chain share the crossover inlet, and their
-    uncertainty differences perturb it by the same steps, so the LP chain finds all its
-    inlet states here. Values are those of ``_call_hs`` (the IF97 sums are per point, so a
-    state computed on a larger mask is the same bit for bit)."""
+    by value: the LP dry group and the LP chain share the crossover inlet, so the LP chain
+    finds its unperturbed inlet state here (the LP dry group's uncertainty uses analytic
+    slopes and perturbs nothing; the LP chain's own difference states are kept too, for the
+    re-evaluations that share them). Values are those of ``_call_hs`` (the IF97 sums are per
+    point, so a state computed on a larger mask is the same bit for bit)."""
 
     def __init__(self):
         self._entries = []

@@ -458,9 +458,10 @@ class _PowerSum:
 
         Returns an array of shape (order_y + 1 + with_x + with_xy, len(x)).
         """
+        if with_xy and not with_x:
+            raise ValueError("with_xy needs with_x (the mixed derivative is built from the x-derivative sums)")
         m_all = x.shape[0]
         rows = order_y + 1
-        with_xy = with_x and with_xy
         out = np.empty((rows + int(with_x) + int(with_xy), m_all))
         for lo in range(0, m_all, _BLOCK):
             sl = slice(lo, lo + _BLOCK)
@@ -533,7 +534,11 @@ def _region1(p, t, need):
 
 def _region2(p, t, need):
     """Region-2 properties from eq. (15): ideal part (16, Table 10) + residual part (17, Table 11),
-    with the relations of Table 12."""
+    with the relations of Table 12.
+
+    ``need`` is a collection of names among "h", "s", "v", "cp" and "dvdt" ((dv/dT)_p =
+    v alpha_v [m3/(kg K)], alpha_v of Table 12); returns a dict of arrays.
+    """
     pi = p
     tau = 540.0 / t
     order = 2 if "cp" in need else 1

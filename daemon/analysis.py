@@ -340,14 +340,23 @@ ANALYSIS_RULES = ("degradation_rate", "step_change")
 
 def alarm_series(config) -> list[tuple[str, str]]:
     """Every (section or tag, rule) pair whose ``alarm_events`` series the worker or the
-    analysis can write for ``config``."""
+    analysis can write for ``config``: per-tag rules for each mapped role, rules limited to
+    some sections for those, the others (and the analysis rules) for each section."""
+    from isentrope.calc import alarms
     from isentrope.daemon.pipeline import Pipeline
 
-    rules = [r.name for r in Pipeline(config).alarm_rules()] + list(ANALYSIS_RULES)
-    from isentrope.daemon.pipeline import HISTORIAN_SECTION
-
-    where = list(SECTIONS) + [m.role for m in config.mappings] + [HISTORIAN_SECTION]
-    return [(w, r) for w in where for r in rules]
+    roles = [m.role for m in config.mappings]
+    out = []
+    for rule in Pipeline(config).alarm_rules():
+        if rule.quantity == alarms.QUANTITY_TAG_BAD:
+            where = roles
+        elif rule.sections is not None:
+            where = list(rule.sections)
+        else:
+            where = list(SECTIONS)
+        out += [(w, rule.name) for w in where]
+    out += [(w, r) for w in SECTIONS for r in ANALYSIS_RULES]
+    return out
 
 
 def raised_alarms(store, config, start: pd.Timestamp, end: pd.Timestamp) -> dict[str, list[tuple]]:

@@ -326,9 +326,11 @@ class AlarmsConfig:
     ``persistence`` [steady windows], ``hysteresis`` [points], ``rate_limit_per_1000h``
     magnitude of a degradation rate that raises an alarm [points per 1000 h],
     ``moisture_limit_percent`` [%], ``data_quality_limit`` how long a mapped tag may be
-    missing/flat/out of range, and how long no row may arrive at all, ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision
-    interval [multiples of the deviation's standard deviation], ``min_step_points`` smallest
-    step change reported [points].
+    missing/flat/out of range, ``no_data_limit`` how long no row at all may arrive from the
+    historian (0 switches that alarm off, e.g. for historians that store exceptions only),
+    ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision interval [multiples of the
+    deviation's standard deviation], ``min_step_points`` smallest step change reported
+    [points].
     """
 
     deviation_warning: float = -1.0
@@ -338,6 +340,7 @@ class AlarmsConfig:
     rate_limit_per_1000h: float = 1.0
     moisture_limit_percent: float = 12.0
     data_quality_limit: dt.timedelta = dt.timedelta(hours=1)
+    no_data_limit: dt.timedelta = dt.timedelta(hours=1)
     cusum_k: float = 0.5
     cusum_h: float = 8.0  # about 7.5 % false steps per 500 windows of pure noise (calc.trend tests)
     # A CUSUM on low-scatter deviations also finds steps of hundredths of a point: real, but
@@ -1003,6 +1006,7 @@ def _read_alarms(r: _Reader, top: dict) -> AlarmsConfig:
                                           low=0, high=30, low_open=True)
     v["data_quality_limit"] = r.value(d, p + ("data_quality_limit",), "duration", D.data_quality_limit,
                                       low=0, low_open=True)
+    v["no_data_limit"] = r.value(d, p + ("no_data_limit",), "duration", D.no_data_limit, low=0)
     v["cusum_k"] = r.value(d, p + ("cusum_k",), "float", D.cusum_k, low=0)
     v["cusum_h"] = r.value(d, p + ("cusum_h",), "float", D.cusum_h, low=0, low_open=True)
     v["min_step_points"] = r.value(d, p + ("min_step_points",), "float", D.min_step_points, low=0)

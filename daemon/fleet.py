@@ -43,7 +43,7 @@ from dataclasses import dataclass, field
 
 import pandas as pd
 
-from isentrope.daemon.pipeline import Pipeline, _no_events
+from isentrope.daemon.pipeline import HISTORIAN_SECTION, Pipeline, _no_events, absent_row_times, sample_spacing
 
 logger = logging.getLogger("isentrope.fleet")
 
@@ -140,12 +140,25 @@ class _ObservingPipeline(Pipeline):
     def __init__(self, config):
         super().__init__(config)
         self.observations: list[pd.DataFrame] = []
+        self.last_no_data = None  # time of the last no_data observation (stands in for the state)
+        self.spacing = None  # sample spacing of the last frame with rows
 
     def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None):
-        # Without the state: a historian outage longer than the before-margin that begins
-        # in an earlier partition is marked from this partition's first row on only.
-        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows)
+        # The alarm state is not at hand here (the machines run later, in alarm_partition):
+        # an absence of rows that goes on from the previous chunk continues from this
+        # pipeline's own last no_data observation; one from the previous partition is filled
+        # in by alarm_partition.
+        key = f"no_data|{HISTORIAN_SECTION}"
+        seen = {"machines": {key: {"last_time": self.last_no_data.isoformat()}}} if self.last_no_data else None
+        if rows is not None and len(rows) > 2:
+            self.spacing = sample_spacing(rows)
+        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows,
+                                      state=seen)
         if obs is not None:
+            mine = obs["time"][obs["section"] == HISTORIAN_SECTION]
+            if len(mine):
+                last = pd.Timestamp(mine.max())
+                self.last_no_data = last if self.last_no_data is None else max(last, self.last_no_data)
             obs["section"] = obs["section"].astype("category")  # smaller between processes
             obs["quantity"] = obs["quantity"].astype("category")
             self.observations.append(obs)
@@ -187,7 +200,7 @@ def compute_partition(part: Partition, chunk=None, redo: bool = False, *_after) 
             raise RuntimeError(f"partition {part.name}: {report.error}")
         obs = pd.concat(pipeline.observations, ignore_index=True) if pipeline.observations else None
         return {"skipped": False, "rows_read": report.rows_read, "seconds": time.perf_counter() - t0,
-                "observations": obs}
+                "observations": obs, "spacing": pipeline.spacing}
     finally:
         store.close()
 
@@ -230,8 +243,9 @@ def alarm_partition(part: Partition, previous: dict | None, computed: dict, redo
         state = previous or {}
         obs = computed.get("observations")
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
+        pipeline = Pipeline(config)
+        obs = _continue_absence(pipeline, part, state, obs, computed.get("spacing"))
         if obs is not None and len(obs):
-            pipeline = Pipeline(config)
             state, events = alarms.evaluate_alarms(state or None, obs, pipeline.alarm_rules())
             results = CycleResults(start=part.start, end=part.end, final_end=part.end, samples=empty,
                                    windows=empty, deviation=empty, alarm_events=events, alarm_state=state,
@@ -243,6 +257,32 @@ def alarm_partition(part: Partition, previous: dict | None, computed: dict, redo
         return state
     finally:
         store.close()
+
+
+def _continue_absence(pipeline: Pipeline, part: Partition, state: dict, obs, spacing):
+    """``obs`` with the absence of rows that the previous partition ended in carried on up to
+    this partition's first ``no_data`` observation (its compute task could not see it when its
+    before-margin held no row), on a grid from the last observation the state saw, with this
+    partition's sample spacing."""
+    from isentrope.calc import alarms
+
+    if not any(r.name == "no_data" for r in pipeline.alarm_rules()):
+        return obs
+    machine = ((state or {}).get("machines") or {}).get(f"no_data|{HISTORIAN_SECTION}") or {}
+    if not machine.get("last_time"):
+        return obs
+    mine = None if obs is None else obs["time"][obs["section"].astype(str) == HISTORIAN_SECTION]
+    until = pd.Timestamp(mine.min()) if mine is not None and len(mine) else part.end
+    empty = pd.DatetimeIndex([], tz="UTC", name="time")
+    _, absent = absent_row_times(empty, part.start, until, last_seen=machine["last_time"],
+                                 spacing=spacing or sample_spacing(empty))
+    if not len(absent):
+        return obs
+    fill = pd.DataFrame({"time": absent, "section": HISTORIAN_SECTION, "quantity": alarms.QUANTITY_NO_DATA,
+                         "value": 1.0, "steady": True})
+    if obs is None:
+        return fill
+    return pd.concat([obs.astype({"section": str, "quantity": str}), fill], ignore_index=True)
 
 
 @dataclass

@@ -514,7 +514,8 @@ class Pipeline:
 
         Deviation warning and alarm per section (persistence in steady windows, hysteresis in
         points), LP exhaust moisture on the steady windows, data quality per mapped tag (bad
-        for longer than ``data_quality_limit``) and no data at all (no row for that long). Degradation-rate and step rules need the
+        for longer than ``data_quality_limit``) and no data at all (no row for
+        ``no_data_limit``; none when that is 0). Degradation-rate and step rules need the
         deviation history over months; they belong to the trend report, not to one cycle.
         """
         from isentrope.calc import alarms
@@ -522,6 +523,11 @@ class Pipeline:
         a = self.config.alarms
         n = int(a.persistence)
         limit = a.moisture_limit_percent / 100.0
+        no_data = []
+        if _td(a.no_data_limit) > pd.Timedelta(0):
+            no_data.append(alarms.Rule("no_data", alarms.QUANTITY_NO_DATA, "above", 0.5, 0.5,
+                                       raise_after_duration=f"{int(_td(a.no_data_limit).total_seconds())}s",
+                                       sections=(HISTORIAN_SECTION,), label="no rows from the historian"))
         return [
             alarms.Rule("deviation_warning", alarms.QUANTITY_DEVIATION, "below", float(a.deviation_warning),
                         float(a.deviation_warning) + float(a.hysteresis), n, n, steady_only=True,
@@ -535,9 +541,7 @@ class Pipeline:
             alarms.Rule("data_quality", alarms.QUANTITY_TAG_BAD, "above", 0.5, 0.5,
                         raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
                         label="tag missing, flatlined or out of range"),
-            alarms.Rule("no_data", alarms.QUANTITY_NO_DATA, "above", 0.5, 0.5,
-                        raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
-                        sections=(HISTORIAN_SECTION,), label="no rows from the historian"),
+            *no_data,
         ]
 
     def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None):
@@ -569,7 +573,7 @@ class Pipeline:
         from isentrope.calc import alarms
 
         parts = []
-        if rows is not None and start is not None:
+        if rows is not None and start is not None and _td(self.config.alarms.no_data_limit) > pd.Timedelta(0):
             machine = ((state or {}).get("machines") or {}).get(f"no_data|{HISTORIAN_SECTION}") or {}
             seen = machine.get("last_time")
             got, absent = absent_row_times(rows, start, final_end, last_seen=seen)
@@ -615,15 +619,23 @@ def sample_spacing(index: pd.DatetimeIndex) -> pd.Timedelta:
     return spacing
 
 
-def absent_row_times(rows: pd.DatetimeIndex, start, end, last_seen=None) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
+def absent_row_times(rows: pd.DatetimeIndex, start, end, last_seen=None,
+                     spacing=None) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
     """Row times in ``[start, end)`` and the times there where rows are absent.
 
-    An absence is a stretch longer than two sample spacings (``sample_spacing`` of ``rows``)
-    between one row and the next, or from the last row to ``end``; it is marked on the grid
-    ``row + k x spacing`` (k = 1, 2, ...) inside the stretch. The stretch before the first
-    row of ``rows`` counts from the last row before ``start`` (in ``rows``) or else from
-    ``last_seen`` (ISO time or Timestamp, what the ``no_data`` alarm saw last); without
-    either, nothing before the first row is marked (the data may simply begin later).
+    An absence is a stretch longer than two sample spacings (``spacing``, default
+    ``sample_spacing`` of ``rows``) between one row and the next, or from the last row to
+    ``end``; it is marked on the grid ``row + k x spacing`` (k = 1, 2, ...) inside the
+    stretch. The stretch before the first row of ``rows`` counts from the last row before
+    ``start`` (in ``rows``) or else from ``last_seen`` (ISO time or Timestamp, what the
+    ``no_data`` alarm saw last); without either, nothing before the first row is marked (the
+    data may simply begin later, or the alarm state was lost).
+
+    The stretch after the last row is an absence too: that is how an outage is seen while it
+    lasts. A backfill whose end lies after the last stored row therefore ends with the
+    ``no_data`` alarm raised; the next run with the same alarm state clears it at the first
+    row. Rows are assumed periodic: for historians that store exceptions only, switch the
+    alarm off (``[alarms] no_data_limit = "0s"``).
 
     Returns
     -------
@@ -633,7 +645,7 @@ def absent_row_times(rows: pd.DatetimeIndex, start, end, last_seen=None) -> tupl
     start, end = pd.Timestamp(start), pd.Timestamp(end)
     idx = pd.DatetimeIndex(rows)
     idx = (idx.tz_localize("UTC") if idx.tz is None else idx.tz_convert("UTC")).as_unit("ns")
-    step = int(sample_spacing(idx).value)
+    step = int((sample_spacing(idx) if spacing is None else pd.Timedelta(spacing)).value)
     t = np.unique(idx.asi8)
     lo, hi = int(start.value), int(end.value)
     inside = t[(t >= lo) & (t < hi)]
@@ -641,13 +653,13 @@ def absent_row_times(rows: pd.DatetimeIndex, start, end, last_seen=None) -> tupl
     prior = int(before[-1]) if len(before) else None
     if prior is None and last_seen is not None:
         prior = int(pd.Timestamp(last_seen).value)
-    points = ([prior] if prior is not None else []) + inside.tolist() + [hi]
+    points = np.concatenate([[prior] if prior is not None else [], inside, [hi]]).astype(np.int64)
     absent = []
-    for a, b in zip(points[:-1], points[1:]):
-        if b - a > 2 * step:
-            k0 = max(1, -(-(lo - a) // step))  # the first grid time at or after start
-            grid = a + step * np.arange(k0, -(-(b - a) // step), dtype=np.int64)
-            absent.append(grid[(grid >= lo) & (grid < min(b, hi))])
+    for k in np.flatnonzero(np.diff(points) > 2 * step).tolist():  # the gaps only
+        a, b = int(points[k]), int(points[k + 1])
+        k0 = max(1, -(-(lo - a) // step))  # the first grid time at or after start
+        grid = a + step * np.arange(k0, -(-(b - a) // step), dtype=np.int64)
+        absent.append(grid[(grid >= lo) & (grid < min(b, hi))])
     absent_ns = np.concatenate(absent) if absent else np.empty(0, dtype=np.int64)
     as_index = lambda ns: pd.DatetimeIndex(pd.to_datetime(ns, unit="ns", utc=True), name="time")  # noqa: E731
     return as_index(inside), as_index(absent_ns)

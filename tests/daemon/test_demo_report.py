@@ -240,3 +240,21 @@ def test_demo_finds_the_hp_rate_the_flatline_and_raises_nothing_in_clean_section
     assert g0 + pd.Timedelta("1h") <= times.iloc[0] <= g0 + pd.Timedelta("1h5min")
     assert g1 <= times.iloc[1] <= g1 + pd.Timedelta("5min")
     assert not len(events[(events["section"] == "hp") & events["rule"].str.startswith("deviation")])
+
+
+def test_every_alarm_series_the_demo_wrote_is_one_the_report_reads(demo_dir):
+    # daemon.analysis.alarm_series lists the (section or tag, rule) pairs the report and
+    # raised_alarms query; a pair written but not listed would never be shown.
+    from isentrope.daemon.analysis import alarm_series
+    from isentrope.daemon.config import load_config
+
+    config = load_config(demo_dir / "greywater2.toml")
+    con = sqlite3.connect(demo_dir / "greywater2.sqlite")
+    try:
+        written = set(con.execute("SELECT DISTINCT section, rule FROM alarm_events").fetchall())
+    finally:
+        con.close()
+    listed = alarm_series(config)
+    assert len(listed) == len(set(listed))
+    assert written and written <= set(listed), written - set(listed)
+    assert ("historian", "no_data") in written

@@ -140,3 +140,49 @@ def test_partitions_are_calendar_months_cut_at_the_baseline_end(tmp_path):
         fleet.plan_partitions("plan.toml", config, "2025-03-10T00:00Z", "2025-03-01T00:00Z")
     with pytest.raises(ValueError, match="time zone"):
         fleet.plan_partitions("plan.toml", config, "2025-03-10", "2025-04-01T00:00Z")
+
+
+def test_a_row_outage_across_a_partition_boundary_raises_no_data_as_a_sequential_run_does(tmp_path, raw):
+    # No row at all from 19:00 on day 1 to 12:00 on day 2 (17 h, across the day boundary of
+    # the daily partitions), with a no_data limit (6 h) longer than the before-margin: the
+    # partition of day 2 sees no row before noon, so the absence it started in has to come
+    # from the alarm state the day-1 partition left. The partition tasks are called in order
+    # here (what the Dask graph runs); the orchestration on two processes is tested above.
+    outage = (raw.index >= START + pd.Timedelta(hours=19)) & (raw.index < START + pd.Timedelta(days=1, hours=12))
+    plant = raw.loc[~outage]
+
+    def config_at(name):
+        path = _config(tmp_path, name)
+        text = path.read_text(encoding="utf-8")
+        text = text[:text.index("[baseline]")] + text[text.index("[steady]"):]  # no model needed
+        path.write_text(text + '\n[alarms]\nno_data_limit = "6h"\n', encoding="utf-8")
+        return path
+
+    seq_path, fleet_path = config_at("sequential_gap"), config_at("fleet_gap")
+    config, seq_store = _load(seq_path, plant)
+    _, fleet_store = _load(fleet_path, plant)
+    fleet_store.close()
+    assert config.alarms.no_data_limit == pd.Timedelta("6h")
+    assert Worker.from_config(config, seq_store).pipeline.margins[0] < pd.Timedelta("6h")
+    tags = {"unit": config.unit.name, "section": "historian", "rule": "no_data"}
+    try:
+        worker = Worker.from_config(config, seq_store, checkpoint_name="backfill/seq", start_default=START,
+                                    lookback="0s", settle="0s", chunk="1d")
+        assert worker.run_cycle(until=END).ok
+        want = seq_store.read_results("alarm_events", START, END, tags)
+    finally:
+        seq_store.close()
+    state = None
+    for part in fleet.plan_partitions(str(fleet_path), config, START, END, period="1D"):
+        state = fleet.alarm_partition(part, state, fleet.compute_partition(part, "1d"))
+    fleet_store = open_store("sqlite", path=str(tmp_path / "fleet_gap.sqlite"))
+    try:
+        got = fleet_store.read_results("alarm_events", START, END, tags)
+    finally:
+        fleet_store.close()
+    last = plant.index[plant.index < START + pd.Timedelta(hours=19)][-1]
+    # (the synthetic history has its own 7.2 h data gap on day 3: a second alarm)
+    assert list(want.index[:2]) == [last + pd.Timedelta("5min") + pd.Timedelta("6h"),
+                                    START + pd.Timedelta(days=1, hours=12)]
+    assert list(want["raised"]) == [1.0, 0.0] * (len(want) // 2)
+    pd.testing.assert_frame_equal(got, want, check_exact=True)

@@ -279,6 +279,19 @@ def test_absent_rows_raise_one_no_data_alarm_and_no_tag_alarms(pipeline):
     assert not (r2.alarm_events["rule"] == "no_data").any()
 
 
+def test_no_data_limit_zero_switches_the_historian_alarm_off(tmp_path):
+    # for historians that store exceptions only: [alarms] no_data_limit = "0s"
+    path = ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="unit.sqlite"),
+                           extra='[alarms]\nno_data_limit = "0s"\n')
+    off = Pipeline(load_config(path))
+    assert "no_data" not in [r.name for r in off.alarm_rules()]
+    frame = ws.history(1.0, freq="5min")
+    s, e = ws.START + pd.Timedelta("6h"), ws.START + pd.Timedelta("14h")
+    holed = frame.loc[(frame.index <= s + pd.Timedelta("1h")) | (frame.index >= s + pd.Timedelta("4h"))]
+    r = off.process(_slice(holed, off, s, e), s, e, alarm_state=None)
+    assert not (r.alarm_events["section"] == "historian").any()
+
+
 def test_absent_row_times_marks_the_sample_grid_inside_gaps_only():
     idx = pd.date_range(utc("2025-01-01"), periods=600, freq="1min")
     rows = idx[(idx < idx[100]) | (idx >= idx[400])]

@@ -353,11 +353,11 @@ def test_a_late_sample_inside_the_lookback_is_picked_up_by_the_next_cycle(config
 
 
 def test_a_historian_outage_raises_no_data_even_when_whole_cycles_see_no_row(tmp_path):
-    # The data-quality limit (6 h here) is longer than the pipeline's before-margin (4 h 35),
+    # The no_data limit (6 h here) is longer than the pipeline's before-margin (4 h 35),
     # so the alarm is raised in a cycle whose frame holds no row at all: the absence goes on
     # from the time the saved alarm state saw last. One alarm, cleared by the first row back.
     path = ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"),
-                           extra='[alarms]\ndata_quality_limit = "6h"\n')
+                           extra='[alarms]\nno_data_limit = "6h"\n')
     config = load_config(path)
     pipeline = Pipeline(config)
     raw = ws.plant_history(1.5, freq="5min")
