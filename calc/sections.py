@@ -574,7 +574,9 @@ def _crossing_pressure(h_in, s_in, eta, p_lo, p_hi):
     saturated-vapour line h''(p): root of g(ln p) = h(p) - h''(p) in [p_lo, p_hi], Illinois
     regula falsi on the saturation table. g < 0 at p_lo (wet end), g > 0 at p_hi (superheated
     inlet; where the inlet isentrope is superheated the wet formula extrapolates with the
-    same sign). Returns (p, converged)."""
+    same sign). Returns (p, converged). (Starting the uncertainty differences from the
+    unperturbed root saved one of the nine table evaluations: measured 1.04 s -> 1.00 s for
+    ``evaluate`` on 60 days; not kept.)"""
 
     def g(u, i):
         hf, hg, sf, sg = _sat_interp(u)
@@ -611,14 +613,23 @@ def _crossing_pressure(h_in, s_in, eta, p_lo, p_hi):
     return np.exp(x), converged
 
 
+def _exhaust_states(p_exh, mask):
+    """Exact h', h'', s', s'' and v', v'' at the exhaust pressure where ``mask`` (NaN
+    elsewhere): ``steam._saturation_states``, the public saturation functions bit for bit in
+    one pass. Measured on 86,400 condenser pressures (60 days of one-minute rows): 0.171 s
+    for the six functions one by one, 0.055 s in one pass."""
+    n = mask.shape[0]
+    out = {k: np.full(n, np.nan) for k in ("hf", "hg", "sf", "sg", "vf", "vg")}
+    if mask.any():
+        got = steam._saturation_states(p_exh[mask])
+        for k, v in got.items():
+            out[k][mask] = v
+    return (out["hf"], out["hg"], out["sf"], out["sg"]), (out["vf"], out["vg"])
+
+
 def _exhaust_saturation(p_exh, mask):
-    """Exact h', h'', s', s'' at the exhaust pressure (steam module) where ``mask``."""
-    return (
-        _call(steam.h_sat_liquid, mask, p_exh),
-        _call(steam.h_sat_vapour, mask, p_exh),
-        _call(steam.s_sat_liquid, mask, p_exh),
-        _call(steam.s_sat_vapour, mask, p_exh),
-    )
+    """Exact h', h'', s', s'' at the exhaust pressure where ``mask``."""
+    return _exhaust_states(p_exh, mask)[0]
 
 
 def _exhaust_volume(p_exh, h, sat, vols, mask):
@@ -1527,8 +1538,7 @@ def _lp_figures(inp, cfg):
         sat, vols = hit[1], hit[2]
     else:
         valid_p = np.isfinite(p_exh) & (p_exh > 0)
-        sat = _exhaust_saturation(p_exh, valid_p)
-        vols = (_call(steam.v_sat_liquid, valid_p, p_exh), _call(steam.v_sat_vapour, valid_p, p_exh))
+        sat, vols = _exhaust_states(p_exh, valid_p)
         cache[id(p_exh)] = (p_exh, sat, vols)
     flow = inp["main_steam_flow"] * cfg["lp_exhaust_flow_fraction"] if cfg["lp_exhaust_flow_fraction"] else np.full(n, np.nan)
     if cfg["mode"] == "expansion":

@@ -1054,6 +1054,40 @@ def _hs_slopes_pt(p, t):
     return out
 
 
+def _saturation_states(p):
+    """h [kJ/kg], s [kJ/(kg K)] and v [m3/kg] of saturated liquid and vapour at flat float
+    pressures p [MPa] in one pass (one T_sat(p), one region-1 and one region-2 evaluation
+    instead of one of each per property): bit for bit ``h_sat_liquid`` ... ``v_sat_vapour``,
+    NaN where those are NaN. Private: the exhaust saturation of calc/sections.py's LP chain,
+    evaluated again for every condenser-pressure difference of its uncertainty.
+
+    Returns
+    -------
+    dict of ndarray
+        "hf", "hg", "sf", "sg", "vf", "vg".
+    """
+    p = np.ascontiguousarray(p, dtype=float).reshape(-1)
+    n = p.shape[0]
+    out = {k: np.full(n, np.nan) for k in ("hf", "hg", "sf", "sg", "vf", "vg")}
+    with np.errstate(all="ignore"):
+        ok = np.isfinite(p) & (p >= P_MIN) & (p <= P_CRIT)
+    low = np.flatnonzero(ok & (p <= P_SAT_623))
+    if low.size:
+        with np.errstate(all="ignore"):
+            ts = _tsat(p[low])
+            liquid = _region1(p[low], ts, ("h", "s", "v"))
+            vapour = _region2(p[low], ts, ("h", "s", "v"))
+        for k in ("h", "s", "v"):
+            out[k + "f"][low] = liquid[k]
+            out[k + "g"][low] = vapour[k]
+    high = np.flatnonzero(ok & (p > P_SAT_623))  # near the critical point: the public functions
+    if high.size:
+        for k, fn in (("hf", h_sat_liquid), ("hg", h_sat_vapour), ("sf", s_sat_liquid),
+                      ("sg", s_sat_vapour), ("vf", v_sat_liquid), ("vg", v_sat_vapour)):
+            out[k][high] = fn(p[high])
+    return out
+
+
 def _end_state_ps(p, s):
     """h [kJ/kg], T [K] and v [m3/kg] at flat float arrays p [MPa] and s [kJ/(kg K)] from
     one solve: h is bit for bit ``h_ps`` (the Newton iterates do not depend on the extra

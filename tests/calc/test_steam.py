@@ -557,6 +557,24 @@ def test_h_s_and_their_partial_derivatives_in_one_pass_match_iapws():
         assert d["ds_dp"][i] == pytest.approx(-1000.0 * dvdt, rel=1e-8, abs=1e-12)
 
 
+def test_saturation_states_in_one_pass_equal_the_public_functions_bit_for_bit():
+    # The private one-pass saturation states (LP exhaust chain) must give exactly what the six
+    # public saturation functions give, across blocks, near the critical point (their iapws
+    # fallback) and NaN outside 611.213 Pa .. 22.064 MPa; and agree with iapws (reference).
+    rng = np.random.default_rng(4)
+    p = np.concatenate([rng.uniform(0.002, 0.02, 20000), rng.uniform(0.001, 22.0, 2000),
+                        [16.6, 21.9, 22.064, 23.0, 0.0005, -1.0, np.nan]])
+    d = steam._saturation_states(p)
+    for key, fn in (("hf", steam.h_sat_liquid), ("hg", steam.h_sat_vapour), ("sf", steam.s_sat_liquid),
+                    ("sg", steam.s_sat_vapour), ("vf", steam.v_sat_liquid), ("vg", steam.v_sat_vapour)):
+        assert np.array_equal(d[key], fn(p), equal_nan=True), key
+    assert np.isnan(d["hf"][-4:]).all()
+    liquid, vapour = IAPWS97(P=0.005, x=0.0), IAPWS97(P=0.005, x=1.0)
+    d5 = steam._saturation_states(np.array([0.005]))
+    assert d5["hf"][0] == pytest.approx(liquid.h, rel=1e-9) and d5["hg"][0] == pytest.approx(vapour.h, rel=1e-9)
+    assert d5["sf"][0] == pytest.approx(liquid.s, rel=1e-9) and d5["vg"][0] == pytest.approx(vapour.v, rel=1e-9)
+
+
 def test_end_state_from_one_solve_matches_h_ps_t_ps_and_v_ph():
     # The private one-solve end state: h bit for bit h_ps, T bit for bit t_ps, v within
     # 1e-12 of v_ph at that h (dry and wet states, a region-3 fallback point, NaN outside),
