@@ -1646,6 +1646,13 @@ def _lp_figures(inp, cfg):
     }
 
 
+#: ``evaluate`` works through longer frames in row blocks of this size: its temporaries then
+#: stay in the caches. Measured on a synthetic unit-year (525,600 rows, every role, with
+#: uncertainty): 7.48 s in one piece, 5.97 s in blocks of 43,200 rows (6.28 s at 86,400,
+#: 6.11 s at 16,384).
+EVALUATE_ROWS = 43_200
+
+
 def evaluate(
     frame,
     *,
@@ -1728,6 +1735,17 @@ def evaluate(
     """
     if not isinstance(frame, pd.DataFrame):
         raise ValueError(f"frame: expected a pandas DataFrame of role columns, found {type(frame).__name__}")
+    if len(frame) > EVALUATE_ROWS:
+        # Row blocks: every figure is per row and every choice (mode, groups, notes) follows
+        # from the columns, so the blocks give the figures of the whole (to the last bits of
+        # the iterated solvers, as any other cut of the rows).
+        kwargs = dict(eta_lp_design=eta_lp_design, lp_dry_efficiency_source=lp_dry_efficiency_source,
+                      baumann=baumann, annulus_area=annulus_area, exhaust_loss_curve=exhaust_loss_curve,
+                      lp_exhaust_flow_fraction=lp_exhaust_flow_fraction, lp_mode=lp_mode,
+                      flow_fractions=flow_fractions, losses_mw=losses_mw, uncertainty=uncertainty)
+        parts = [evaluate(frame.iloc[i : i + EVALUATE_ROWS], **kwargs) for i in range(0, len(frame), EVALUATE_ROWS)]
+        series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in _SERIES_FIELDS}
+        return SectionResults(**series, lp_mode=parts[0].lp_mode, notes=parts[0].notes)
     a = _check_baumann(baumann)
     eta_d = float(eta_lp_design) if eta_lp_design is not None else np.nan
     if lp_dry_efficiency_source not in ("design", "measured"):

@@ -760,3 +760,22 @@ def test_section_efficiency_against_coolprop_if97(case):
     assert d.h_out == pytest.approx(h2, abs=1e-3)
     assert d.h_out_isentropic == pytest.approx(h2s, abs=0.05)
     assert eff == pytest.approx((h1 - h2) / (h1 - h2s), abs=1e-4)
+
+
+def test_a_long_frame_is_evaluated_in_row_blocks_with_the_figures_of_one_piece(monkeypatch):
+    # Every figure is per row, so the row blocks of evaluate give what one piece gives (to the
+    # last bits of the iterated solvers: the same bound as a different chunking of the worker).
+    from isentrope.daemon import synthetic
+
+    frame, _ = synthetic.generate(days=2, freq="2min")
+    whole = S.evaluate(frame)
+    monkeypatch.setattr(S, "EVALUATE_ROWS", 500)
+    blocked = S.evaluate(frame)
+    assert blocked.lp_mode == whole.lp_mode and blocked.notes == whole.notes
+    a, b = whole.to_frame(), blocked.to_frame()
+    assert a.index.equals(b.index) and list(a.columns) == list(b.columns)
+    for c in a.columns:
+        if c == "lp_mode":
+            continue
+        rtol = 1e-9 if c.endswith("_u") else 1e-12
+        np.testing.assert_allclose(b[c].to_numpy(dtype=float), a[c].to_numpy(dtype=float), rtol=rtol, err_msg=c)
