@@ -422,7 +422,7 @@ class Pipeline:
 
         deviation = self._deviation(windows, baselines or {}, notes)
         events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes, screen=screen,
-                                         start=start, rows=frame.index)
+                                         start=start, rows=frame.index, rows_end=end)
 
         counts = {
             "rows_read": int(len(frame)),
@@ -443,7 +443,7 @@ class Pipeline:
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
         notes = ["no samples in the window"]
         events, new_state = self._alarms(empty, empty.copy(), alarm_state, final_end, notes,
-                                         rows=empty.index, start=start)
+                                         rows=empty.index, start=start, rows_end=end)
         counts = dict.fromkeys(("rows_read", "rows_in_window", "rows_flagged", "steady_samples", "windows",
                                 "deviations"), 0)
         counts["alarm_events"] = int(len(events))
@@ -544,8 +544,10 @@ class Pipeline:
             *no_data,
         ]
 
-    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None):
-        """Alarm events from the final results (before ``final_end``) only.
+    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None,
+                rows_end=None):
+        """Alarm events from the final results (before ``final_end``) only; absent rows up to
+        ``rows_end`` (see ``alarm_observations``).
 
         The state machines of ``calc.alarms`` skip observations at or before the last one
         they consumed, so the look-back overlap of consecutive cycles raises nothing twice.
@@ -553,22 +555,26 @@ class Pipeline:
         from isentrope.calc import alarms
 
         obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows,
-                                      state=state)
+                                      state=state, rows_end=rows_end)
         if obs is None:
             return _no_events(), (dict(state) if state else None)
         new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
         return events, new_state
 
-    def alarm_observations(self, windows, deviation, final_end, screen=None, start=None, rows=None, state=None):
+    def alarm_observations(self, windows, deviation, final_end, screen=None, start=None, rows=None, state=None,
+                           rows_end=None):
         """The observation frame ``calc.alarms.evaluate_alarms`` reads for one window, or None.
 
         Deviation per steady window and section, LP exhaust moisture per steady window, per
         mapped role 1/0 for a sample in ``[start, final_end)`` flagged bad by screening, and
         (with ``rows``, the frame's row times, margins included) ``no_data`` for the
-        historian: 0 at each row in the window, 1 on the sample grid where rows are absent
-        (``absent_row_times``; a gap before the frame's first row continues from the time
-        the saved ``state`` last saw). (A separate method so that ``isentrope.daemon.fleet``
-        can run the machines after the partitions, in time order.)
+        historian: 0 at each row in ``[start, rows_end)``, 1 on the sample grid where rows
+        are absent there (``absent_row_times``; a gap before the frame's first row continues
+        from the time the saved ``state`` last saw). ``rows_end`` (default ``final_end``) may
+        reach past ``final_end``: whether a row has arrived needs no look-ahead, so ``process``
+        passes the window end and a live outage is seen ``settle`` after it happens, not also
+        the after-margin later. (A separate method so that ``isentrope.daemon.fleet`` can run
+        the machines after the partitions, in time order.)
         """
         from isentrope.calc import alarms
 
@@ -576,7 +582,8 @@ class Pipeline:
         if rows is not None and start is not None and _td(self.config.alarms.no_data_limit) > pd.Timedelta(0):
             machine = ((state or {}).get("machines") or {}).get(f"no_data|{HISTORIAN_SECTION}") or {}
             seen = machine.get("last_time")
-            got, absent = absent_row_times(rows, start, final_end, last_seen=seen)
+            got, absent = absent_row_times(rows, start, final_end if rows_end is None else rows_end,
+                                           last_seen=seen)
             times = got.append(absent)
             if len(times):
                 parts.append(pd.DataFrame({"time": times, "section": HISTORIAN_SECTION,

@@ -377,3 +377,27 @@ def test_a_historian_outage_raises_no_data_even_when_whole_cycles_see_no_row(tmp
     before, after = pipeline.margins
     raised_at = events.index[0]
     assert raised_at - before > last and raised_at + after < back
+
+
+def test_a_live_outage_is_alarmed_a_settle_after_the_limit_not_an_after_margin_later(config, pipeline, raw):
+    # Whether rows arrive needs no look-ahead: the no_data alarm (limit 1 h) appears in the
+    # store at the first cycle after outage + 1 h + settle (2 min), while the final results
+    # still lag by the after-margin (3 h 30).
+    stop = ws.START + pd.Timedelta("8h")
+    clock = ws.FakeClock(ws.START + pd.Timedelta("8h"))
+    store = ws.MemoryStore(raw.loc[raw.index < stop], clock=clock)
+    worker = make_worker(config, pipeline, store, clock)
+    tags = {"unit": "Greywater Bend 2", "section": "historian", "rule": "no_data"}
+    last = raw.index[raw.index < stop][-1]
+    raised_at = last + pd.Timedelta("5min") + pd.Timedelta("1h")
+    seen = None
+    for now in pd.date_range(stop, stop + pd.Timedelta("3h"), freq="5min"):
+        clock.now = now
+        assert worker.run_cycle().ok
+        ev = store.read_results("alarm_events", ws.START, ws.START + pd.Timedelta(days=2), tags)
+        if len(ev):
+            seen = now
+            break
+    assert seen is not None and list(ev.index) == [raised_at] and list(ev["raised"]) == [1.0]
+    assert raised_at + pd.Timedelta("2min") <= seen <= raised_at + pd.Timedelta("2min") + pd.Timedelta("5min")
+    assert pipeline.margins[1] > pd.Timedelta("3h")  # what the alarm no longer waits for
