@@ -17,6 +17,13 @@ anything else. Store calls that fail with ``TemporaryStoreError`` are retried wi
 with exponential backoff and jitter; when the retries are spent the worker logs one line and
 tries again at the next cycle. ``FatalStoreError`` is not retried.
 
+With a store that sets ``write_behind = True`` (the InfluxDB stores: line protocol over HTTP,
+where the server's ingest takes about half of a backfill's time), step 3-5 of a chunk run in
+one background thread while the next chunk is read and computed; the order of writes, state and
+checkpoint is the same, the next chunk's alarm state is the one just computed (the one being
+saved), and the cycle waits for the last batch before it ends. A failure there is a failure of
+that chunk: its batch stays pending and the chunk computed meanwhile is dropped.
+
 ``plan_windows`` takes the clock as an argument, and ``Worker`` takes ``clock`` and ``sleep``
 callables, so the tests need no real waiting. ``stop()`` (wired to SIGTERM/SIGINT by the
 ``run`` and ``backfill`` commands) ends the work between chunks, never in the middle of one.
@@ -26,12 +33,14 @@ Results are advisory performance information, not a protective function.
 
 from __future__ import annotations
 
+import json
 import logging
 import random
 import re
 import threading
 import time as _time
 from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -211,6 +220,7 @@ class Batch:
     alarm_state: dict | None
     written: int = 0  # how many of ``writes`` are already in the store
     state_saved: bool = False
+    prepared: list | None = None  # ``Store.prepare_results`` of each write, when done ahead
 
 
 @dataclass
@@ -307,6 +317,7 @@ class Worker:
         self.pending: Batch | None = None
         self.last_report: CycleReport | None = None
         self._lock = threading.Lock()
+        self._flusher: ThreadPoolExecutor | None = None  # write-behind thread (see module doc)
 
     @classmethod
     def from_config(cls, config, store: Store, **overrides) -> "Worker":
@@ -393,17 +404,44 @@ class Worker:
             data_end = now - self.settle  # nothing later is in the store yet
             checkpoint = self._retry(lambda: self.store.get_checkpoint(self.checkpoint_name),
                                      f"reading checkpoint {self.checkpoint_name!r}") if windows else None
-            for start, end in windows:
-                if self.stopping:
-                    report.stopped = True
-                    break
-                rows_read, rows_flagged, checkpoint = self._process(start, end, data_end, checkpoint)
-                report.rows_read += rows_read
-                report.rows_flagged += rows_flagged
-                report.chunks_done += 1
-                report.checkpoint = checkpoint
-                if progress is not None:
-                    progress(start, end)
+            behind = bool(getattr(self.store, "write_behind", False))
+            inflight = None  # (future, batch, start, end, rows_read, rows_flagged) being written
+            looped = False
+            try:
+                for start, end in windows:
+                    if self.stopping:
+                        report.stopped = True
+                        break
+                    if inflight is not None and self._fit_reads_windows(start):
+                        inflight = self._settle(inflight, report, progress)  # the fit reads them
+                    carry = None
+                    if inflight is not None:  # its alarm state, as the store will give it back
+                        carry = json.loads(json.dumps(inflight[1].alarm_state)) if inflight[1].alarm_state else {}
+                    rows_read, rows_flagged, new_checkpoint, batch = self._compute(
+                        start, end, data_end, checkpoint, carry)
+                    if inflight is not None:
+                        inflight = self._settle(inflight, report, progress)
+                    self.pending = batch
+                    checkpoint = new_checkpoint
+                    if behind:
+                        # formatting here, sending there (see Store.prepare_results)
+                        batch.prepared = [self.store.prepare_results(m, f, t) for m, f, t in batch.writes]
+                        if self._flusher is None:
+                            self._flusher = ThreadPoolExecutor(max_workers=1, thread_name_prefix="isentrope-write")
+                        inflight = (self._flusher.submit(self._flush, batch), batch, start, end, rows_read,
+                                    rows_flagged)
+                    else:
+                        self._flush(batch)
+                        self._account(batch, start, end, rows_read, rows_flagged, report, progress)
+                looped = True
+            finally:
+                if inflight is not None:
+                    try:
+                        self._settle(inflight, report, progress)
+                    except (TemporaryStoreError, FatalStoreError):
+                        if looped:
+                            raise
+                        # the loop's own error is the one reported; this batch stays pending
         except TemporaryStoreError as exc:
             report.error = f"store unreachable: {exc}"
             where = f" (window {self.pending.start.isoformat()} to {self.pending.end.isoformat()}, " \
@@ -422,13 +460,17 @@ class Worker:
         self._heartbeat(report)
         return report
 
-    def _process(self, start: pd.Timestamp, end: pd.Timestamp, data_end: pd.Timestamp,
-                 checkpoint: pd.Timestamp | None) -> tuple[int, int, pd.Timestamp]:
-        """One chunk: read with margins, compute, write, save state, advance the checkpoint.
+    def _compute(self, start: pd.Timestamp, end: pd.Timestamp, data_end: pd.Timestamp,
+                 checkpoint: pd.Timestamp | None, alarm_state: dict | None = None):
+        """One chunk up to its batch: read with margins, compute. Returns ``(rows_read,
+        rows_flagged, new_checkpoint, batch)``; ``_flush(batch)`` then writes it, saves the
+        state and advances the checkpoint.
 
         Results are final up to ``final_end = min(end, data_end - after margin)``; the
         checkpoint moves there (never backwards). Per-sample rows after it are written as
         provisional and replaced by a later cycle, which starts at most a look-back before.
+        ``alarm_state``: the state to start from when the previous batch is still being
+        written (None: load the saved one).
         """
         before, after = self.pipeline.margins
         read_start, read_end = start - before, end + after
@@ -436,18 +478,41 @@ class Worker:
         frame = self._retry(
             lambda: self.store.read(self.mappings, read_start, read_end, barometric_kpa=self.barometric_kpa),
             f"reading unit {self.unit} from {read_start.isoformat()} to {read_end.isoformat()}")
-        state = self._retry(lambda: self.store.load_state(self.alarm_state_name),
-                            f"loading state {self.alarm_state_name!r}")
+        if alarm_state is None:
+            alarm_state = self._retry(lambda: self.store.load_state(self.alarm_state_name),
+                                      f"loading state {self.alarm_state_name!r}")
         baselines = self._baselines(start)
         results = self.pipeline.process(frame, start, end, final_end=final_end,
-                                        alarm_state=state or None, baselines=baselines)
+                                        alarm_state=alarm_state or None, baselines=baselines)
         new_checkpoint = final_end if checkpoint is None else max(checkpoint, final_end)
         batch = Batch(start=start, end=new_checkpoint, writes=results.writes(self.tags),
                       alarm_state=results.alarm_state)
-        self.pending = batch
-        self._flush(batch)
-        self.pending = None
-        return results.counts["rows_read"], results.counts["rows_flagged"], new_checkpoint
+        return results.counts["rows_read"], results.counts["rows_flagged"], new_checkpoint, batch
+
+    def _account(self, batch: Batch, start, end, rows_read: int, rows_flagged: int, report: CycleReport,
+                 progress: Callable | None) -> None:
+        """A batch is in the store: count it in the report and tell ``progress``."""
+        if self.pending is batch:
+            self.pending = None
+        report.rows_read += rows_read
+        report.rows_flagged += rows_flagged
+        report.chunks_done += 1
+        report.checkpoint = batch.end
+        if progress is not None:
+            progress(start, end)
+
+    def _settle(self, inflight, report: CycleReport, progress: Callable | None) -> None:
+        """Wait for the batch being written behind; its error (the batch stays pending) is
+        raised here. Returns None (no batch in flight any more)."""
+        future, batch, start, end, rows_read, rows_flagged = inflight
+        future.result()
+        self._account(batch, start, end, rows_read, rows_flagged, report, progress)
+        return None
+
+    def _fit_reads_windows(self, chunk_start: pd.Timestamp) -> bool:
+        """Whether ``_baselines(chunk_start)`` may read the steady windows just written."""
+        period = self._baseline_period()
+        return self._models is None and period is not None and chunk_start >= period[1]
 
     def _baseline_period(self):
         cfg = getattr(self.config, "baseline", None)
@@ -500,9 +565,13 @@ class Worker:
         """Write what is left of ``batch``, save its state, then advance the checkpoint."""
         while batch.written < len(batch.writes):
             measurement, frame, tags = batch.writes[batch.written]
-            self._retry(lambda: self.store.write_results(measurement, frame, tags),
-                        f"writing {measurement} ({len(frame)} rows) for {batch.start.isoformat()} "
-                        f"to {batch.end.isoformat()}")
+            if batch.prepared is not None:
+                ready = batch.prepared[batch.written]
+                write = (lambda: self.store.write_prepared(ready))  # noqa: E731
+            else:
+                write = (lambda: self.store.write_results(measurement, frame, tags))  # noqa: E731
+            self._retry(write, f"writing {measurement} ({len(frame)} rows) for {batch.start.isoformat()} "
+                               f"to {batch.end.isoformat()}")
             batch.written += 1
         if batch.alarm_state is not None and not batch.state_saved:
             self._retry(lambda: self.store.save_state(self.alarm_state_name, batch.alarm_state),

@@ -52,6 +52,12 @@ class Store(ABC):
     #: Short name used in configuration (``[store] kind = "..."``) and in log lines.
     kind: str = "abstract"
 
+    #: True when the worker may write a chunk's results from a second thread while it reads
+    #: and computes the next chunk (``isentrope.daemon.worker``): the store's reads and
+    #: writes must then be safe to call from two threads at once. A store whose writes need
+    #: the CPU in this process (SQLite: each row is bound by the interpreter) gains nothing.
+    write_behind: bool = False
+
     # --- raw samples --------------------------------------------------------------------
     @abstractmethod
     def read_raw(self, mappings: Sequence[RoleMapping], start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
@@ -79,6 +85,17 @@ class Store(ABC):
     @abstractmethod
     def write_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]) -> int:
         """Write each column of ``frame`` as a field; idempotent per (tags, time, field)."""
+
+    def prepare_results(self, measurement: str, frame: pd.DataFrame, tags: Mapping[str, str]):
+        """The part of ``write_results`` that can be done ahead, in the calling thread (the
+        worker calls it before handing a batch to its write-behind thread). Returns what
+        ``write_prepared`` takes; here nothing is done ahead."""
+        return (measurement, frame, dict(tags))
+
+    def write_prepared(self, prepared) -> int:
+        """``write_results`` of what ``prepare_results`` returned."""
+        measurement, frame, tags = prepared
+        return self.write_results(measurement, frame, tags)
 
     @abstractmethod
     def read_results(

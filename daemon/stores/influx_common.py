@@ -103,7 +103,14 @@ class LineProtocolWriter:
 
     A store using it sets ``batch_size``, ``pending`` (list) and ``_write_lock`` and implements
     ``_send_batch(text, what)``, raising ``TemporaryStoreError`` or ``FatalStoreError``.
+
+    ``write_behind``: the server parses and stores the lines in its own process, so the
+    worker sends a chunk's results from a second thread while it computes the next one
+    (``prepare_results`` formats the lines first, in the worker's own thread). Reads and writes
+    go through thread-safe HTTP connection pools (urllib3; requests' adapter for the v1 API).
     """
+
+    write_behind = True
 
     def write_raw(self, mappings, frame) -> int:
         lines, samples = raw_lines(mappings, frame)
@@ -111,8 +118,18 @@ class LineProtocolWriter:
         return samples
 
     def write_results(self, measurement, frame, tags) -> int:
+        return self.write_prepared(self.prepare_results(measurement, frame, tags))
+
+    def prepare_results(self, measurement, frame, tags):
+        """The line protocol of ``write_results`` (checks included), built in the calling
+        thread: formatting is Python work, and done in the write-behind thread it would
+        compete with the next chunk's computation for the interpreter."""
         escape.check_name(measurement, "measurement")
         lines, n = result_lines(measurement, frame, tags)
+        return measurement, lines, n
+
+    def write_prepared(self, prepared) -> int:
+        measurement, lines, n = prepared
         self._write(lines, f"write_results {measurement}")
         return n
 

@@ -79,7 +79,8 @@ class StoreTimer:
     """Wraps a store's methods on the instance and adds up their wall time by kind."""
 
     KINDS = {"read": "read", "read_results": "read", "write_results": "write", "save_state": "write",
-             "set_checkpoint": "write", "load_state": "read", "get_checkpoint": "read"}
+             "set_checkpoint": "write", "load_state": "read", "get_checkpoint": "read",
+             "prepare_results": "format", "write_prepared": "write"}
 
     def __init__(self, store):
         self.store = store

@@ -401,3 +401,153 @@ def test_a_live_outage_is_alarmed_a_settle_after_the_limit_not_an_after_margin_l
     assert seen is not None and list(ev.index) == [raised_at] and list(ev["raised"]) == [1.0]
     assert raised_at + pd.Timedelta("2min") <= seen <= raised_at + pd.Timedelta("2min") + pd.Timedelta("5min")
     assert pipeline.margins[1] > pd.Timedelta("3h")  # what the alarm no longer waits for
+
+
+# --- writes behind, in a second thread (stores with write_behind, e.g. InfluxDB) ---------------
+
+class _BehindStore(ws.FailingStore):
+    """A MemoryStore behind the failure injector, written from the worker's second thread; each
+    write waits a little so that the next chunk really is computed while it runs, and the
+    thread of every write is recorded."""
+
+    write_behind = True
+
+    def __init__(self, inner, **fail):
+        super().__init__(inner, **fail)
+        self.write_threads = set()
+        self.order = []  # ("write", measurement, start) / ("checkpoint", time) in call order
+
+    def write_results(self, measurement, frame, tags):
+        import threading
+        import time
+
+        if measurement != STATUS_MEASUREMENT:  # the heartbeat is written at the end of the cycle
+            self.write_threads.add(threading.current_thread().name)
+        time.sleep(0.01)
+        out = super().write_results(measurement, frame, tags)
+        self.order.append(("write", measurement, frame.index.min() if len(frame) else None))
+        return out
+
+    def set_checkpoint(self, name, time):
+        out = super().set_checkpoint(name, time)
+        self.order.append(("checkpoint", pd.Timestamp(time)))
+        return out
+
+
+def _backfill(config, pipeline, store, chunk="2h", until=ws.START + pd.Timedelta("20h"), **kw):
+    clock = ws.FakeClock(ws.START + pd.Timedelta(days=3))
+    worker = make_worker(config, pipeline, store, clock, chunk=chunk, lookback="0s", settle="0s", **kw)
+    return worker, worker.run_cycle(until=until)
+
+
+def test_writes_behind_give_what_writes_in_line_give(config, pipeline, raw):
+    # 15 h in 2 h chunks: each chunk's results are written from the second thread while the
+    # next is computed, in the same order (results, state, checkpoint), and the store ends up
+    # with exactly what the in-line writes give.
+    line = ws.MemoryStore(raw)
+    wl, rl = _backfill(config, pipeline, line)
+    behind_inner = ws.MemoryStore(raw)
+    behind = _BehindStore(behind_inner)
+    wb, rb = _backfill(config, pipeline, behind)
+    assert rl.ok and rb.ok and rb.chunks_done == rl.chunks_done >= 7
+    assert rb.checkpoint == rl.checkpoint and rb.rows_read == rl.rows_read
+    assert behind.write_threads and all(n.startswith("isentrope-write") for n in behind.write_threads)
+    assert wb.pending is None
+    assert behind_inner.checkpoints == line.checkpoints
+    assert behind_inner.states == line.states
+    ra, rb_ = results_of(line), results_of(behind_inner)
+    for m in ws.RESULT_MEASUREMENTS:
+        assert len(ra[m]) == len(rb_[m]), m
+        if len(ra[m]):
+            pd.testing.assert_frame_equal(ra[m], rb_[m], check_exact=True, obj=m)
+    # a checkpoint is set only after that chunk's results are in, and never goes back
+    cps = [e[1] for e in behind.order if e[0] == "checkpoint"]
+    assert cps == sorted(cps)
+
+
+def test_a_failed_write_behind_keeps_its_batch_drops_the_next_chunk_and_catches_up(config, pipeline, raw, caplog):
+    # The database refuses writes from the third chunk on: the cycle ends with the error of
+    # that chunk, the checkpoint stays at the end of the last chunk written, the batch is kept,
+    # and the chunk computed meanwhile is dropped (it is computed again). Back, the next cycle
+    # writes the kept batch first and the store equals an uninterrupted run.
+    inner = ws.MemoryStore(raw)
+    store = _BehindStore(inner)
+    progress = []
+    clock = ws.FakeClock(ws.START + pd.Timedelta(days=1))
+    worker = make_worker(config, pipeline, store, clock, chunk="2h", lookback="0s", settle="0s")
+    calls = {"n": 0}
+    original = store.write_results
+
+    def refuse_from_third_chunk(measurement, frame, tags):
+        if measurement == "section_samples":
+            calls["n"] += 1
+        if calls["n"] >= 3:
+            raise TemporaryStoreError("write: connection refused (injected)")
+        return original(measurement, frame, tags)
+
+    store.write_results = refuse_from_third_chunk
+    until = ws.START + pd.Timedelta("20h")
+    with caplog.at_level(logging.WARNING, logger="isentrope.worker"):
+        report = worker.run_cycle(until=until, progress=lambda s, e: progress.append((s, e)))
+    assert not report.ok and "store unreachable" in report.error
+    assert report.chunks_done == 2 and len(progress) == 2  # the two chunks written, in order
+    assert progress == sorted(progress)
+    kept = worker.pending
+    assert kept is not None and kept.written == 0 and kept.start == progress[-1][1]
+    assert inner.checkpoints[worker.checkpoint_name] == report.checkpoint == progress[-1][1]
+    # back
+    store.write_results = original
+    again = worker.run_cycle(until=until)
+    assert again.ok and worker.pending is None
+    ref = ws.MemoryStore(raw)
+    _backfill(config, pipeline, ref)
+    assert inner.checkpoints == ref.checkpoints
+    ra, rb = results_of(ref), results_of(inner)
+    for m in ws.RESULT_MEASUREMENTS:
+        if len(ra[m]) or len(rb[m]):
+            ws.assert_same_results(ra[m], rb[m])
+
+
+def test_a_read_error_while_a_batch_is_written_behind_still_counts_that_batch(config, pipeline, raw):
+    inner = ws.MemoryStore(raw)
+    store = _BehindStore(inner, read_raw=0)
+    clock = ws.FakeClock(ws.START + pd.Timedelta(days=1))
+    worker = make_worker(config, pipeline, store, clock, chunk="2h", lookback="0s", settle="0s", retries=0)
+    reads = {"n": 0}
+    original = store.read_raw
+
+    def fail_third_read(mappings, start, end):
+        reads["n"] += 1
+        if reads["n"] == 3:
+            raise TemporaryStoreError("read: timed out (injected)")
+        return original(mappings, start, end)
+
+    store.read_raw = fail_third_read
+    report = worker.run_cycle(until=ws.START + pd.Timedelta("20h"))
+    assert not report.ok and report.chunks_done == 2  # the batch in flight was written and counted
+    assert worker.pending is None
+    assert inner.checkpoints[worker.checkpoint_name] == report.checkpoint
+
+
+def test_the_baseline_fit_waits_for_the_windows_written_behind(tmp_path):
+    # The chunk after the reference period fits the models on the steady windows the store
+    # holds for it: the last of them are still being written behind when that chunk starts,
+    # so the fit must wait for them, and the deviations equal those of in-line writes.
+    extra = f"""
+[baseline]
+start = "{ws.START.isoformat()}"
+end = "{(ws.START + pd.Timedelta(days=1)).isoformat()}"
+"""
+    path = ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"), extra=extra)
+    config = load_config(path)
+    pipeline = Pipeline(config)
+    raw = ws.plant_history(2.0, freq="5min")
+    until = ws.START + pd.Timedelta(days=1, hours=12)
+    line, behind_inner = ws.MemoryStore(raw), ws.MemoryStore(raw)
+    _, rl = _backfill(config, pipeline, line, chunk="6h", until=until)
+    _, rb = _backfill(config, pipeline, _BehindStore(behind_inner), chunk="6h", until=until)
+    assert rl.ok and rb.ok
+    assert behind_inner.states == line.states  # the same models (and alarm state)
+    dev_l, dev_b = results_of(line)["deviation"], results_of(behind_inner)["deviation"]
+    assert len(dev_l) > 0
+    pd.testing.assert_frame_equal(dev_b, dev_l, check_exact=True)
