@@ -422,12 +422,41 @@ def test_flatline_tolerance_bounds_and_default():
     assert cfgmod.ScreeningConfig().flatline_tolerance == quality.DEFAULT_FLATLINE_RELATIVE
     assert parse_config(minimal("[screening]\nflatline_tolerance = 1e-4\n")).screening.flatline_tolerance == 1e-4
     assert parse_config(minimal("[screening]\nflatline_tolerance = 0\n")).screening.flatline_tolerance == 0.0
-    for bad, why in (("0.05", "expected a value >= 0 and <= 0.01, found 0.05"),
-                     ("-1e-6", "expected a value >= 0 and <= 0.01, found -1e-06"),
+    assert parse_config(minimal("[screening]\nflatline_tolerance = 1e-3\n")).screening.flatline_tolerance == 1e-3
+    # 0.01 was accepted before: 1 % of 811 K is 8.1 K, and steady running reads as stuck
+    for bad, why in (("0.01", "expected a value >= 0 and <= 0.001, found 0.01"),
+                     ("0.002", "expected a value >= 0 and <= 0.001, found 0.002"),
+                     ("0.05", "expected a value >= 0 and <= 0.001, found 0.05"),
+                     ("-1e-6", "expected a value >= 0 and <= 0.001, found -1e-06"),
                      ('"1e-6"', "expected a number, found a string ('1e-6')")):
         text = minimal(f"[screening]\nflatline_tolerance = {bad}\n")
         where = f"unit.toml:{line_of(text, 'flatline_tolerance')}"
         assert problems(text) == [f"{where}: screening.flatline_tolerance: {why}"]
+
+
+def test_flatline_tolerance_cap_leaves_steady_running_unflagged():
+    """At the largest accepted flatline_tolerance the synthetic unit's steady running is not
+    flagged FLATLINE: only the stuck transmitter the generator injected is, as at the default.
+    Ten times the cap (the former maximum, 0.01) flags most samples (the generator's noise
+    levels, isentrope.daemon.synthetic; the check itself is common practice, no source)."""
+    from isentrope.calc import quality
+    from isentrope.daemon import synthetic
+
+    frame, truth = synthetic.generate(days=10)
+    flat = int(quality.Reason.FLATLINE)
+
+    def flatline_flags(relative):
+        flags = quality.screen(frame, spike=None, flatline_relative=relative).flags
+        return (flags.to_numpy() & flat) != 0
+
+    at_default = flatline_flags(quality.DEFAULT_FLATLINE_RELATIVE)
+    stuck = truth["flatline"]["role"]
+    assert at_default.any(axis=0).tolist() == [c == stuck for c in frame.columns]
+    at_cap = flatline_flags(cfgmod.FLATLINE_TOLERANCE_MAX)
+    # the stuck stretch may grow by a sample at its edge; nothing else may be flagged
+    assert at_cap.any(axis=0).tolist() == [c == stuck for c in frame.columns]
+    assert at_cap.sum() - at_default.sum() <= 2
+    assert flatline_flags(10 * cfgmod.FLATLINE_TOLERANCE_MAX).any(axis=1).mean() > 0.5
 
 
 def test_lp_dry_efficiency_source_parses_with_its_default():
