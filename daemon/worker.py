@@ -533,12 +533,13 @@ class Worker:
             return self._models
         saved = self._retry(lambda: self.store.load_state(self.baseline_state_name),
                             f"loading state {self.baseline_state_name!r}")
+        period = self._baseline_period()
         if saved and saved.get("models"):
             from isentrope.calc.baseline import BaselineModel
 
             self._models = {sec: BaselineModel.from_json(text) for sec, text in sorted(saved["models"].items())}
+            self._say_if_baseline_changed(saved)
             return self._models
-        period = self._baseline_period()
         if period is None or chunk_start < period[1]:
             return {}
         from isentrope.daemon.pipeline import WINDOWS_MEASUREMENT
@@ -547,6 +548,12 @@ class Worker:
         windows = self._retry(lambda: self.store.read_results(WINDOWS_MEASUREMENT, ref_start, ref_end, self.tags),
                               f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}")
         models, problems = self.pipeline.fit_baselines(windows)
+        if not len(windows):
+            logger.warning("unit %s: no steady windows are stored for the reference period %s to %s, so no "
+                           "baseline is fitted and no deviations are computed; process that period first "
+                           "(isentrope backfill --start %s --end %s), then run this one again with --refit",
+                           self.unit, ref_start.isoformat(), ref_end.isoformat(), ref_start.isoformat(),
+                           ref_end.isoformat())
         for line in problems:
             logger.warning("unit %s: baseline over %s to %s not fitted for section %s; no deviations "
                            "for it until the worker restarts with a usable [baseline] period", self.unit,
@@ -560,6 +567,29 @@ class Worker:
                         len(windows), ref_start.isoformat(), ref_end.isoformat(), ", ".join(sorted(models)))
         self._models = models  # also when empty: the reference windows are final, one try is enough
         return models
+
+    def warn_if_baseline_changed(self) -> bool:
+        """Log a warning when the saved baseline models were fitted on another period than
+        the configured ``[baseline]``; True when they were (the saved models are what the
+        worker uses). Called by the commands at start, so a resumed backfill with nothing
+        left to do says it too."""
+        saved = self._retry(lambda: self.store.load_state(self.baseline_state_name),
+                            f"loading state {self.baseline_state_name!r}")
+        return bool(saved and saved.get("models")) and self._say_if_baseline_changed(saved)
+
+    def _say_if_baseline_changed(self, saved: dict) -> bool:
+        period = self._baseline_period()
+        fitted_on = (saved.get("reference_start"), saved.get("reference_end"))
+        if period is None or fitted_on == (period[0].isoformat(), period[1].isoformat()):
+            return False
+        if not getattr(self, "_baseline_change_said", False):
+            logger.warning("unit %s: [baseline] is %s to %s, but the saved models (state %r) were fitted on "
+                           "%s to %s; the saved models are used. To fit them on the configured period, run "
+                           "`isentrope backfill --refit` from the reference period's end on", self.unit,
+                           period[0].isoformat(), period[1].isoformat(), self.baseline_state_name,
+                           fitted_on[0], fitted_on[1])
+            self._baseline_change_said = True
+        return True
 
     def _flush(self, batch: Batch) -> None:
         """Write what is left of ``batch``, save its state, then advance the checkpoint."""

@@ -31,6 +31,10 @@ def add_arguments(parser) -> None:
     parser.add_argument("--end", required=True, metavar="T", help="end time (excluded), ISO 8601")
     parser.add_argument("--chunk", metavar="DURATION", help="chunk length, e.g. 1d (default: [schedule] chunk)")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
+    parser.add_argument("--refit", action="store_true",
+                        help="fit the baseline models again on the configured [baseline] period (its steady "
+                             "windows must be stored), then process the whole period again from --start, alarm "
+                             "machines included (after an overhaul or a changed [baseline])")
 
 
 def checkpoint_name(unit: str, start: pd.Timestamp, end: pd.Timestamp) -> str:
@@ -55,6 +59,18 @@ def run(args) -> int:
     try:
         worker = Worker.from_config(config, store, checkpoint_name=name, start_default=start,
                                     lookback="0s", settle="0s", chunk=chunk)
+        if args.refit:
+            if worker._baseline_period() is None:
+                raise ValueError("--refit needs a [baseline] period (start and end) in the configuration")
+            # Fresh models, fresh alarm machines, from the start: results are replaced where they
+            # are written again; events of the old models at other instants stay (DEVELOPERS.md).
+            store.save_state(worker.baseline_state_name, {})
+            store.save_state(worker.alarm_state_name, {})
+            store.set_checkpoint(name, start)
+            logger.info("unit %s: refit: baseline models and alarm state cleared; processing %s to %s again",
+                        config.unit.name, start.isoformat(), end.isoformat())
+        else:
+            worker.warn_if_baseline_changed()
         received: list[int] = []
 
         def on_signal(signum, _frame):
