@@ -221,6 +221,7 @@ class Batch:
     written: int = 0  # how many of ``writes`` are already in the store
     state_saved: bool = False
     prepared: list | None = None  # ``Store.prepare_results`` of each write, when done ahead
+    events: object = None  # the chunk's alarm events (DataFrame), logged once they are written
 
 
 @dataclass
@@ -486,14 +487,22 @@ class Worker:
                                         alarm_state=alarm_state or None, baselines=baselines)
         new_checkpoint = final_end if checkpoint is None else max(checkpoint, final_end)
         batch = Batch(start=start, end=new_checkpoint, writes=results.writes(self.tags),
-                      alarm_state=results.alarm_state)
+                      alarm_state=results.alarm_state, events=results.alarm_events)
         return results.counts["rows_read"], results.counts["rows_flagged"], new_checkpoint, batch
 
     def _account(self, batch: Batch, start, end, rows_read: int, rows_flagged: int, report: CycleReport,
                  progress: Callable | None) -> None:
-        """A batch is in the store: count it in the report and tell ``progress``."""
+        """A batch is in the store: count it in the report, log its alarm events (raised as
+        warnings, cleared as information: the journal of a service shows them) and tell
+        ``progress``."""
         if self.pending is batch:
             self.pending = None
+        events = batch.events
+        if events is not None and len(events):
+            for t, kind, message in zip(events.index, events["kind"], events["message"]):
+                logger.log(logging.WARNING if kind == "raised" else logging.INFO, "unit %s: alarm %s at %s: %s",
+                           self.unit, kind, pd.Timestamp(t).isoformat(), message)
+            batch.events = None  # once
         report.rows_read += rows_read
         report.rows_flagged += rows_flagged
         report.chunks_done += 1

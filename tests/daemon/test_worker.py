@@ -551,3 +551,25 @@ end = "{(ws.START + pd.Timedelta(days=1)).isoformat()}"
     dev_l, dev_b = results_of(line)["deviation"], results_of(behind_inner)["deviation"]
     assert len(dev_l) > 0
     pd.testing.assert_frame_equal(dev_b, dev_l, check_exact=True)
+
+
+def test_alarm_events_are_logged_once_when_written(config, pipeline, raw, caplog):
+    # A service's journal shows each raise (warning) and clear (information), once, even though
+    # the next cycle processes the look-back again.
+    frame = raw.copy()
+    bad = (frame.index >= ws.START + pd.Timedelta("6h")) & (frame.index < ws.START + pd.Timedelta("8h"))
+    frame.loc[bad, "crossover_t"] = np.nan
+    clock = ws.FakeClock(ws.START + pd.Timedelta("13h"))
+    store = ws.MemoryStore(frame, clock=clock)
+    worker = make_worker(config, pipeline, store, clock)
+    with caplog.at_level(logging.INFO, logger="isentrope.worker"):
+        assert worker.run_cycle().ok
+        clock.advance("30min")
+        assert worker.run_cycle().ok
+    said = [r for r in caplog.records if "alarm raised" in r.getMessage() or "alarm cleared" in r.getMessage()]
+    raised = [r for r in said if "crossover_t" in r.getMessage() and "raised" in r.getMessage()]
+    assert len(raised) == 1 and raised[0].levelno == logging.WARNING
+    assert "data" in raised[0].getMessage() or "tag" in raised[0].getMessage()
+    stored = store.read_results("alarm_events", ws.START, ws.START + pd.Timedelta(days=1),
+                                {"unit": "Greywater Bend 2", "section": "crossover_t", "rule": "data_quality"})
+    assert len(stored) == len([r for r in said if "crossover_t" in r.getMessage()])
