@@ -130,6 +130,8 @@ _TABLE: tuple[Unit, ...] = (
     Unit("kPa(g)", "pressure", 1.0e-3, gauge=True),
     Unit("bar(a)", "pressure", _BAR_PA * _MPA_PER_PA),
     Unit("bar(g)", "pressure", _BAR_PA * _MPA_PER_PA, gauge=True),
+    Unit("mbar(a)", "pressure", 1.0e-4),  # 100 Pa; condenser pressures
+    Unit("mbar(g)", "pressure", 1.0e-4, gauge=True),
     Unit("psia", "pressure", _PSI_PA * _MPA_PER_PA),
     Unit("psig", "pressure", _PSI_PA * _MPA_PER_PA, gauge=True),
     Unit("inHgA", "pressure", _INHG_32F_PA * _MPA_PER_PA),
@@ -164,6 +166,10 @@ _ALIASES = {
     "kpag": "kPa(g)",
     "mpaa": "MPa(a)",
     "mpag": "MPa(g)",
+    "mbara": "mbar(a)",
+    "mbarg": "mbar(g)",
+    "psi(a)": "psia",
+    "psi(g)": "psig",
     "inhg(a)": "inHgA",
     "mmhg(a)": "mmHgA",
     "°c": "degC",
@@ -174,7 +180,11 @@ _ALIASES = {
 }
 _LOOKUP = {name.lower(): name for name in KNOWN_UNITS} | _ALIASES
 #: Spellings refused because they do not say absolute or gauge.
-_AMBIGUOUS = {"psi", "bar", "kpa", "mpa", "inhg", "mmhg", "atm"}
+_AMBIGUOUS = {"psi", "bar", "mbar", "kpa", "mpa", "inhg", "mmhg", "atm"}
+#: What to write instead of an ambiguous spelling.
+_SAY_INSTEAD = {"psi": "psia or psig", "inhg": "inHgA (absolute; vacuum gauges are not supported)",
+                "mmhg": "mmHgA (absolute; vacuum gauges are not supported)",
+                "atm": "kPa(a) (1 atm = 101.325 kPa)"}
 
 
 def canonical_unit(unit: str) -> str:
@@ -202,10 +212,13 @@ def canonical_unit(unit: str) -> str:
     if key in _LOOKUP:
         return _LOOKUP[key]
     if key in _AMBIGUOUS:
+        if key in _SAY_INSTEAD:
+            instead = _SAY_INSTEAD[key]
+        else:
+            instead = f"{_LOOKUP[key + '(a)']} or {_LOOKUP[key + '(g)']}"
         raise ValueError(
             f"unit {unit!r} does not say whether the pressure is absolute or gauge; "
-            f"write e.g. {unit.strip()}(a) or {unit.strip()}(g) (psia/psig, inHgA, mmHgA); "
-            f"known units: {', '.join(KNOWN_UNITS)}"
+            f"write {instead}; known units: {', '.join(KNOWN_UNITS)}"
         )
     raise ValueError(f"unknown unit {unit!r}; known units: {', '.join(KNOWN_UNITS)}")
 

@@ -1,5 +1,6 @@
 """Checks of isentrope.calc.units against NIST SP 811 (2008), Appendix B.8/B.9."""
 
+import re
 import warnings
 
 import numpy as np
@@ -99,6 +100,20 @@ def test_unknown_unit_lists_known_ones():
 def test_ambiguous_pressure_unit_is_refused():
     with pytest.raises(ValueError, match="absolute or gauge"):
         units.canonical_unit("bar")
+    # the message says what to write instead, and that spelling is accepted
+    for said, instead in (("psi", "psia or psig"), ("bar", "bar(a) or bar(g)"), ("mbar", "mbar(a) or mbar(g)"),
+                          ("inHg", "inHgA")):
+        with pytest.raises(ValueError, match=re.escape(f"write {instead}")):
+            units.canonical_unit(said)
+        units.canonical_unit(instead.split(" ")[0])
+
+
+def test_millibar_for_condenser_pressures():
+    # 1 mbar = 100 Pa (NIST SP 811, 1 bar = 1e5 Pa exactly): 50 mbar(a) = 5 kPa(a); gauge
+    # millibar refers to the barometric pressure like the other gauge units.
+    assert convert(50.0, "mbar(a)", "kPa(a)") == pytest.approx(5.0, rel=1e-15)
+    assert convert(-950.0, "mbar(g)", "kPa(a)", barometric_kpa=101.325) == pytest.approx(6.325, rel=1e-12)
+    assert units.canonical_unit("MBARA") == "mbar(a)" and units.canonical_unit("psi(g)") == "psig"
 
 
 def test_different_quantities_refused():
