@@ -104,6 +104,10 @@ def run(args) -> int:
             print(f"isentrope: backfill interrupted: {report.error}; run the same command to resume",
                   file=sys.stderr)
             return EXIT_UNREACHABLE
+        if report.chunks_done and not report.rows_read:
+            logger.warning("unit %s: no sample of any mapped tag between %s and %s: nothing was computed; "
+                           "check the tag names and the period with `isentrope check`", config.unit.name,
+                           start.isoformat(), end.isoformat())
         logger.info("unit %s: backfill %s to %s done: %d chunks, %d rows read, %d flagged",
                     config.unit.name, start.isoformat(), end.isoformat(), report.chunks_done,
                     report.rows_read, report.rows_flagged)

@@ -110,3 +110,11 @@ def test_no_reference_windows_is_said_not_silent(tmp_path, caplog):
     assert len(said) == 1 and "--refit" in said[0]
     assert not len(_saved_reference(path)[1])
     assert json.dumps(said)  # plain text
+
+
+def test_a_backfill_over_a_period_without_samples_says_so(tmp_path, caplog):
+    path = _config(tmp_path, START - pd.Timedelta(days=2), START - pd.Timedelta(days=1))
+    with caplog.at_level(logging.WARNING, logger="isentrope.backfill"):
+        assert _backfill(path) == 0
+    said = [r.getMessage() for r in caplog.records if "no sample of any mapped tag" in r.getMessage()]
+    assert len(said) == 1 and "isentrope check" in said[0]
