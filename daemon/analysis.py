@@ -5,8 +5,12 @@ What a planner needs comes from the whole history of those deviations, not from 
 the degradation rate with its interval, the step changes, the projection to the planned
 outage, the cost of the lost efficiency and the payback of an overhaul. ``analyse`` computes
 all of it from in-memory inputs (no I/O, deterministic); ``run_analysis`` reads the inputs
-from a store, calls ``analyse`` and writes the results back. Re-running it over the same
-history gives identical rows at identical times, so the writes replace and never duplicate.
+of the whole stored history (from the baseline's reference start to the last reading) from a
+store, calls ``analyse`` and writes the results back. Re-running it over the same history
+gives identical rows at identical times, so the writes replace and never duplicate. It
+refuses to write an analysis of part of the history, whose rates, steps and cumulative costs
+would overwrite the whole history's; a report of a shorter period takes its figures from the
+whole-history analysis with ``period_view``.
 
 Result series (also in DEVELOPERS.md, "Result series"):
 
@@ -186,6 +190,16 @@ def _current(dev: pd.Series, end: pd.Timestamp) -> tuple[float, float]:
     return med, mad / math.sqrt(len(v))
 
 
+def _rate_until(dev: pd.Series, rel: np.ndarray, steps, t: pd.Timestamp):
+    """The degradation rate as it stood at ``t``: the windows at or before ``t``, blocked at
+    the steps found up to then (``rel``: operating hours of each window since the first)."""
+    from isentrope.calc import trend
+
+    sel = dev.index <= t
+    breaks = [rel[int(s.index)] for s in steps if pd.Timestamp(s.time) <= t] or None
+    return trend.degradation_rate(rel[sel], dev.to_numpy(dtype=float)[sel], breaks=breaks)
+
+
 def _month_ends(first: pd.Timestamp, end: pd.Timestamp) -> pd.DatetimeIndex:
     start = (first + pd.offsets.MonthBegin(1)).normalize()
     ends = pd.date_range(start, end, freq="MS", tz="UTC")
@@ -267,8 +281,7 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
             sel = dev.index <= t
             if sel.sum() == 0:
                 continue
-            sub_breaks = [b for b, s in zip(breaks or [], steps) if pd.Timestamp(s.time) <= t] or None
-            r = trend.degradation_rate(rel[sel], dev.to_numpy(dtype=float)[sel], breaks=sub_breaks)
+            r = _rate_until(dev, rel, steps, t)
             c, cu = _current(dev[sel], t)
             rows.append({"time": t, "rate_per_1000h": r.slope_per_1000h, "rate_low": r.low,
                          "rate_high": r.high, "rate_per_month": r.per_month, "rate_ok": r.status == "ok",
@@ -374,8 +387,120 @@ def raised_alarms(store, config, start: pd.Timestamp, end: pd.Timestamp) -> dict
     return {k: sorted(v) for k, v in out.items()}
 
 
-def run_analysis(store, config, start: pd.Timestamp, end: pd.Timestamp) -> Analysis:
+@dataclass
+class PeriodView:
+    """One section's figures for a reported period, taken from the whole-history analysis.
+
+    Attributes
+    ----------
+    section : str
+    start, end : pandas.Timestamp
+        The period (UTC, end excluded).
+    n_windows : int
+        Steady windows with a deviation in the period [-].
+    deviation_end, deviation_end_u : float
+        Deviation at the period end: median of the windows of the ``CURRENT_WINDOW_DAYS``
+        before it, and the standard error of that median (scatter of those windows) [points].
+    rate : isentrope.calc.trend.RateResult
+        The rate as it stood at the period end (windows from the baseline end to it).
+    steps : list of isentrope.calc.trend.Step
+        Steps estimated inside the period.
+    lost_mwh, fuel_cost : float
+        Sums over the UTC days that overlap the period [MWh], [currency]; NaN without prices.
+    cumulative_fuel_cost : float
+        Extra fuel cost from the first deviation (the baseline end) to the last of those days
+        [currency]; NaN without prices.
+    """
+
+    section: str
+    start: pd.Timestamp
+    end: pd.Timestamp
+    n_windows: int
+    deviation_end: float
+    deviation_end_u: float
+    rate: object
+    steps: list
+    lost_mwh: float = math.nan
+    fuel_cost: float = math.nan
+    cumulative_fuel_cost: float = math.nan
+
+
+def period_view(analysis: Analysis, start: pd.Timestamp, end: pd.Timestamp) -> dict[str, PeriodView]:
+    """The figures of ``[start, end)`` per section from a whole-history ``analysis`` (no I/O).
+
+    The rate and the deviation at the period end are those the history up to ``end`` gives;
+    costs of the period are the daily losses of the UTC days that overlap it, so they add up
+    to the cumulative cost since the baseline.
+    """
+    start, end = pd.Timestamp(start), pd.Timestamp(end)
+    if end <= start:
+        raise ValueError(f"period end ({end.isoformat()}) must be after its start ({start.isoformat()})")
+    out = {}
+    for name, o in analysis.sections.items():
+        dev = o.deviation
+        until = dev[dev.index < end]
+        current, current_u = _current(until, end)
+        rate = _rate_until(dev, o.hours, o.steps, end - pd.Timedelta(1, unit="ns"))
+        view = PeriodView(section=name, start=start, end=end,
+                          n_windows=int(((dev.index >= start) & (dev.index < end)).sum()),
+                          deviation_end=current, deviation_end_u=current_u, rate=rate,
+                          steps=[s for s in o.steps if start <= pd.Timestamp(s.time) < end])
+        if o.losses is not None and len(o.losses):
+            days = o.losses.index
+            part = o.losses[(days < end) & (days + pd.Timedelta(days=1) > start)]
+            if len(part):
+                view.lost_mwh = float(part["lost_mwh"].sum())
+                view.fuel_cost = float(part["fuel_cost"].sum())
+                view.cumulative_fuel_cost = float(part["cumulative_fuel_cost"].iloc[-1])
+            else:
+                view.lost_mwh = view.fuel_cost = 0.0
+                before = o.losses[days < end]
+                view.cumulative_fuel_cost = float(before["cumulative_fuel_cost"].iloc[-1]) if len(before) else 0.0
+        out[name] = view
+    return out
+
+
+def reference_start(store, config) -> pd.Timestamp | None:
+    """Start of the unit's analysed history: the start of the reference period the saved
+    baseline models were fitted on (state ``baseline/<unit>``), else ``[baseline] start``;
+    None when neither is known."""
+    saved = store.load_state(f"baseline/{config.unit.name}") or {}
+    text = saved.get("reference_start")
+    if text:
+        t = pd.Timestamp(text)
+        return t.tz_localize("UTC") if t.tzinfo is None else t.tz_convert("UTC")
+    return config.baseline.start
+
+
+#: How far past the clock the analysis looks for stored rows when it finds the end of the
+#: history itself (clock skew of a historian; project choice, no source).
+_READ_AHEAD = pd.Timedelta(days=1)
+
+
+def run_analysis(store, config, start: pd.Timestamp | None = None, end: pd.Timestamp | None = None, *,
+                 write: bool = True) -> Analysis:
     """Read a unit's deviations and online history from ``store``, analyse, write back.
+
+    The analysis always belongs to the whole history: rates, steps, the cumulative cost and
+    the alarm machines start at the baseline and run to the end of the stored history, and
+    its rows (``degradation``, ``steps``, ``losses``, ``outlook``, ``alarm_events``) are
+    that history's. A report of a shorter period takes its figures from this analysis
+    (``period_view``); it never analyses the period alone.
+
+    Parameters
+    ----------
+    store : isentrope.daemon.stores.base.Store
+    config : isentrope.daemon.config.Config
+    start : pandas.Timestamp or None
+        Start of the history (UTC); None: ``reference_start`` (the baseline's reference start).
+    end : pandas.Timestamp or None
+        End of the history (UTC, excluded); None: one sample spacing after the last stored
+        ``gross_output`` reading.
+    write : bool
+        Write the result series back (the default). Only an analysis of the whole history is
+        written: with ``start`` after the reference start, or stored ``deviation`` rows at or
+        after ``end``, it raises ``ValueError`` instead (nothing is written); pass
+        ``write=False`` for an as-of analysis that is only returned.
 
     The baseline models' ids come from the worker's saved state ``baseline/<unit>``; without a
     saved baseline there is nothing to analyse and an empty ``Analysis`` is returned.
@@ -386,16 +511,46 @@ def run_analysis(store, config, start: pd.Timestamp, end: pd.Timestamp) -> Analy
     tags = {"unit": unit}
     saved = store.load_state(f"baseline/{unit}")
     models = {sec: BaselineModel.from_json(text) for sec, text in sorted((saved or {}).get("models", {}).items())}
+    ref = reference_start(store, config)
+    ahead = pd.Timestamp.now(tz="UTC") + _READ_AHEAD
+    start = pd.Timestamp(start) if start is not None else ref
+    end = pd.Timestamp(end) if end is not None else None
+    if start is None or not models:
+        empty = analyse({}, pd.Series([], dtype=bool, index=pd.DatetimeIndex([], tz="UTC")),
+                        pd.Series([], dtype=float, index=pd.DatetimeIndex([], tz="UTC")), config,
+                        end if end is not None else pd.Timestamp.now(tz="UTC").floor("min"))
+        empty.notes.append("no baseline model saved yet: nothing to analyse")
+        return empty
+    gross = [m for m in config.mappings if m.role == "gross_output"]
+    power = store.read(gross, start, end if end is not None else ahead,
+                       barometric_kpa=config.screening.barometric_kpa)["gross_output"]
+    if end is None:
+        spacing = (pd.Timedelta(int(np.median(np.diff(power.index.asi8))), unit="ns") if len(power) > 1
+                   else pd.Timedelta(0))
+        end = power.index[-1] + spacing if len(power) else start
+    if write:
+        left_out = []
+        if ref is not None and start > ref:
+            left_out.append(f"it starts at {start.isoformat()}, after the reference start {ref.isoformat()}")
+        later = {sec: store.read_results(DEVIATION_MEASUREMENT, end, max(ahead, end + _READ_AHEAD),
+                                         {**tags, "section": sec, "model": model.model_id})
+                 for sec, model in models.items()}
+        later = {sec: frame.index.min() for sec, frame in later.items() if len(frame)}
+        if later:
+            left_out.append(f"stored deviation rows ({', '.join(later)}) from {min(later.values()).isoformat()} "
+                            f"lie at or after its end {end.isoformat()}")
+        if left_out:
+            raise ValueError("run_analysis: not writing a partial analysis over the stored one ("
+                             + "; ".join(left_out) + "): analyse the whole history (no start/end) or pass "
+                             "write=False")
     deviation = {}
     for sec, model in models.items():
         deviation[sec] = store.read_results(DEVIATION_MEASUREMENT, start, end,
                                             {**tags, "section": sec, "model": model.model_id})
-    gross = [m for m in config.mappings if m.role == "gross_output"]
-    power = store.read(gross, start, end, barometric_kpa=config.screening.barometric_kpa)["gross_output"]
+    power = power[power.index < end]
     online = power > float(config.unit.online_mw)
     result = analyse(deviation, online, power, config, end)
-    if not models:
-        result.notes.append("no baseline model saved yet: nothing to analyse")
-    for measurement, frame, t in result.writes(tags):
-        store.write_results(measurement, frame, t)
+    if write:
+        for measurement, frame, t in result.writes(tags):
+            store.write_results(measurement, frame, t)
     return result

@@ -150,8 +150,11 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
     out_dir : path
         Folder for index.html and the PNG files (created).
     analysis : isentrope.daemon.analysis.Analysis or None
-        A fresh analysis; None reads the stored ``degradation``/``steps``/``losses``/``outlook``
-        series instead (and the planner table then shows what was stored).
+        The analysis of the unit's whole history (``run_analysis``), which may reach past the
+        period: the planner summary shows its state at the end of the history, the period
+        table and the figures the period's part of it (``analysis.period_view``). None reads
+        the stored ``degradation``/``steps`` series of the period instead (and the planner
+        table then shows what was stored at the period end).
     hs_window : Timestamp or None
         Start of the steady window drawn on the h-s diagram; None: the highest-load steady
         window of the last 30 days.
@@ -159,7 +162,8 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         The raw readings of the period in internal units when the caller already holds them
         (the demo does); None reads them from the store for the data-quality table.
     """
-    from isentrope.daemon.analysis import DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT, alarm_series
+    from isentrope.daemon.analysis import (DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT, alarm_series,
+                                           period_view)
     from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
                                            Pipeline)
 
@@ -187,6 +191,11 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
 
     # --- planner table ------------------------------------------------------------------
     parts.append("<h2>Summary for the planner</h2>")
+    if analysis is not None and analysis.sections:
+        parts.append(f"<p>State at the end of the stored history, {analysis.end:%Y-%m-%d %H:%M} UTC (the "
+                     "analysis always covers the whole history from the baseline on, whatever the period "
+                     "of this report).</p>")
+    cost_col = f"extra fuel cost since the baseline end [{cur}]"
     rows = []
     outage = config.economics.planned_outage
     for s in SECTIONS:
@@ -205,7 +214,7 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
                 f"at outage {outage or 'n/a'} [pt]": (f"{_fmt(proj.value, '+.2f')} ({_fmt(proj.low, '+.2f')} to "
                                                       f"{_fmt(proj.high, '+.2f')})" if proj is not None and
                                                       proj.status == "ok" else "n/a"),
-                f"cost to date [{cur}]": _fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
+                cost_col: _fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
                 if o.losses is not None and len(o.losses) else "n/a",
                 f"cost to outage [{cur}]": _fmt(pl.fuel_cost, ",.0f") if pl is not None else "n/a",
                 "overhaul payback [years]": _fmt(oh.payback_years, ".1f") if oh is not None else "n/a",
@@ -220,7 +229,7 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
                                                     f"{_fmt(last.get('rate_high'), '+.2f')})",
                          "steps": str(len(_read(store, STEPS_MEASUREMENT, start, end, {**tags, "section": s}))),
                          f"at outage {outage or 'n/a'} [pt]": _fmt(last.get("projected"), "+.2f"),
-                         f"cost to date [{cur}]": "see losses", f"cost to outage [{cur}]": "n/a",
+                         cost_col: "see losses", f"cost to outage [{cur}]": "n/a",
                          "overhaul payback [years]": "n/a"})
     if rows:
         parts.append(_table(pd.DataFrame(rows), left=("section",)))
@@ -234,6 +243,34 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
                      "period first.</p>")
     if analysis is not None and analysis.notes:
         parts.append("<ul>" + "".join(f"<li>{html.escape(n)}</li>" for n in analysis.notes) + "</ul>")
+    views = period_view(analysis, start, end) if analysis is not None else {}
+    if views:
+        parts.append(f"<h3>The period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC</h3>")
+        prow = []
+        for s in SECTIONS:
+            v = views.get(s)
+            if v is None:
+                continue
+            r = v.rate
+            prow.append({
+                "section": SECTION_TITLES[s],
+                "steady windows": str(v.n_windows),
+                "deviation at period end [pt]": f"{_fmt(v.deviation_end, '+.2f')} ± {_fmt(v.deviation_end_u, '.3f')}",
+                "rate at period end [pt/1000 h] (95 %)": (f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} "
+                                                          f"to {_fmt(r.high, '+.2f')})" if r.status == "ok"
+                                                          else r.status),
+                "steps in the period": "; ".join(f"{st.size:+.2f} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}"
+                                                 for st in v.steps) or "none",
+                "lost energy in the period [MWh]": _fmt(v.lost_mwh, ",.0f"),
+                f"extra fuel cost in the period [{cur}]": _fmt(v.fuel_cost, ",.0f"),
+                f"extra fuel cost since the baseline end, to the period end [{cur}]":
+                    _fmt(v.cumulative_fuel_cost, ",.0f"),
+            })
+        parts.append(_table(pd.DataFrame(prow), left=("section", "steps in the period")))
+        parts.append("<p>Figures of the period from the whole-history analysis: the deviation and rate as the "
+                     "history up to the period end gives them; costs in the period are the sums over the UTC "
+                     "days that overlap it, and the cost since the baseline end runs to the last of those "
+                     "days.</p>")
 
     # --- efficiency and deviation per section ----------------------------------------------
     parts.append("<h2>Section efficiency and deviation</h2>")
@@ -259,14 +296,16 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
                 last_block = o.steps[-1].index if len(o.steps) else 0
                 t = o.deviation.index[last_block:]
                 hh = h[last_block:]
-                line = o.rate.intercept + o.rate.slope_per_1000h * hh / 1000.0
-                ax2.plot(t, line, "-", color="#111", lw=1.2, label="fitted trend")
+                inside = (t >= start) & (t < end)  # the period's part of the whole-history fit
+                line = o.rate.intercept + o.rate.slope_per_1000h * hh[inside] / 1000.0
+                if inside.any():
+                    ax2.plot(t[inside], line, "-", color="#111", lw=1.2, label="fitted trend")
                 if o.projection is not None and o.projection.status == "ok" and outage is not None:
                     tp = pd.Timestamp(outage).tz_localize("UTC")
                     ax2.errorbar([tp], [o.projection.value],
                                  yerr=[[o.projection.value - o.projection.low], [o.projection.high - o.projection.value]],
                                  fmt="s", color="#111", capsize=4, label="projection at outage")
-                for st in o.steps:
+                for st in (x for x in o.steps if start <= pd.Timestamp(x.time) < end):
                     ax2.axvline(pd.Timestamp(st.time), color="#111", lw=0.8, ls=":")
                     ax2.annotate(f"step {st.size:+.2f} pt", (pd.Timestamp(st.time), ax2.get_ylim()[0]),
                                  textcoords="offset points", xytext=(3, 5), fontsize=8)
@@ -325,16 +364,19 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
     if analysis is not None and any(o.losses is not None for o in analysis.sections.values()):
         fig, ax = plt.subplots(figsize=(9, 3))
         for s, o in analysis.sections.items():
-            if o.losses is not None and len(o.losses):
-                ax.plot(o.losses.index, o.losses["cumulative_fuel_cost"], color=SECTION_COLOURS[s],
+            part = o.losses[(o.losses.index < end) & (o.losses.index + pd.Timedelta(days=1) > start)] \
+                if o.losses is not None else None
+            if part is not None and len(part):
+                ax.plot(part.index, part["cumulative_fuel_cost"], color=SECTION_COLOURS[s],
                         label=SECTION_TITLES[s])
         ax.set_ylabel(f"cumulative fuel cost [{cur}]")
         ax.grid(True, lw=0.3)
         ax.legend(fontsize=8)
         fig.autofmt_xdate()
         parts.append("<h2>Cost of lost efficiency</h2>")
-        parts.append(figs.add(fig, "cumulative_cost", "Cumulative extra fuel cost since the baseline, per "
-                              "section, at the configured fuel price and sensitivities."))
+        parts.append(figs.add(fig, "cumulative_cost", "Cumulative extra fuel cost since the baseline end, per "
+                              "section, over the days of the period, at the configured fuel price and "
+                              "sensitivities."))
 
     # --- alarms ---------------------------------------------------------------------------
     ev_rows = []

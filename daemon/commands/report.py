@@ -1,8 +1,12 @@
 """`isentrope report -c FILE --start T --end T -o DIR`: the HTML report for a period.
 
-Runs the degradation analysis over the stored deviations of the period (writing its result
-series back, idempotently), then writes ``DIR/index.html`` with its PNG figures. Advisory
-performance information, not a protective function.
+Runs the degradation analysis over the whole stored history, from the baseline's reference
+start to the last reading, whatever the period asked for, and writes its result series back
+(idempotently: the same history gives the same rows). Then writes ``DIR/index.html`` with
+its PNG figures for the period ``[--start, --end)``: the planner summary is the state at the
+end of the history, the period table and the figures are the period's, taken from that
+analysis. A short period therefore never rewrites the stored rates, steps or cumulative costs
+with those of the period alone. Advisory performance information, not a protective function.
 """
 
 from __future__ import annotations
@@ -33,7 +37,7 @@ def run(args) -> int:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        analysis = run_analysis(store, config, start, end)
+        analysis = run_analysis(store, config)  # the whole history, not the period
         path = write_report(store, config, start, end, args.output, analysis=analysis,
                             hs_window=parse_time(args.hs_window) if args.hs_window else None)
     finally:

@@ -13,6 +13,7 @@ import json
 import re
 import shutil
 import sqlite3
+from html.parser import HTMLParser
 from pathlib import Path
 
 import pandas as pd
@@ -258,3 +259,130 @@ def test_every_alarm_series_the_demo_wrote_is_one_the_report_reads(demo_dir):
     assert len(listed) == len(set(listed))
     assert written and written <= set(listed), written - set(listed)
     assert ("historian", "no_data") in written
+
+
+# --- a report of a shorter period -------------------------------------------------------------
+_ANALYSIS_SERIES = ("degradation", "steps", "losses", "outlook", "alarm_events")
+
+
+def _rows(db: Path, measurement: str) -> list[tuple]:
+    con = sqlite3.connect(db)
+    try:
+        return sorted(con.execute(f'SELECT * FROM "{measurement}"').fetchall(), key=repr)
+    finally:
+        con.close()
+
+
+class _Tables(HTMLParser):
+    """Every table of a page as (heading before it, [[cell text, ...], ...])."""
+
+    def __init__(self):
+        super().__init__()
+        self.tables, self.heading, self._text, self._row, self._in = [], "", None, None, None
+
+    def handle_starttag(self, tag, attrs):
+        if tag in ("h2", "h3", "td", "th"):
+            self._text = ""
+        if tag == "table":
+            self.tables.append((self.heading, []))
+        elif tag == "tr":
+            self._row = []
+
+    def handle_data(self, data):
+        if self._text is not None:
+            self._text += data
+
+    def handle_endtag(self, tag):
+        if tag in ("h2", "h3"):
+            self.heading, self._text = self._text, None
+        elif tag in ("td", "th"):
+            self._row.append(self._text)
+            self._text = None
+        elif tag == "tr":
+            self.tables[-1][1].append(self._row)
+
+
+def _table_after(page: str, heading_start: str) -> dict[str, dict[str, str]]:
+    parser = _Tables()
+    parser.feed(page)
+    for heading, rows in parser.tables:
+        if heading.startswith(heading_start):
+            head = rows[0]
+            return {r[0]: dict(zip(head, r)) for r in rows[1:]}
+    raise AssertionError(f"no table after a heading {heading_start!r}")
+
+
+def test_a_short_report_keeps_the_stored_analysis_and_shows_the_period(demo_dir, tmp_path):
+    # The demo wrote the analysis of its whole history. A report over the last two weeks
+    # only must leave every stored analysis row as it was (before the fix it re-ran the
+    # analysis over the two weeks and wrote their cumulative costs and window counts over
+    # the history's), and its period table must give the period's own figures: the cost in
+    # the period is the sum of the stored daily costs of its days, the cost since the
+    # baseline end that of its last day. Consistency checks between the report and the
+    # store (no outside source).
+    for f in demo_dir.glob("greywater2.*"):
+        shutil.copy(f, tmp_path / f.name)
+    db = tmp_path / "greywater2.sqlite"
+    before = {m: _rows(db, m) for m in _ANALYSIS_SERIES}
+    assert before["losses"] and before["degradation"]
+    start, end = pd.Timestamp("2025-01-22", tz="UTC"), pd.Timestamp("2025-02-05", tz="UTC")
+    assert cli.main(["report", "-c", str(tmp_path / "greywater2.toml"), "--start", start.isoformat(),
+                     "--end", end.isoformat(), "-o", str(tmp_path / "short")]) == 0
+    for m in _ANALYSIS_SERIES:
+        assert _rows(db, m) == before[m], f"{m} rows changed by a report of a shorter period"
+
+    page = (tmp_path / "short" / "index.html").read_text()
+    period = _table_after(page, f"The period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M}")
+    planner = _table_after(page, "Summary for the planner")
+    con = sqlite3.connect(db)
+    try:
+        losses = pd.read_sql("SELECT section, time, fuel_cost, cumulative_fuel_cost FROM losses", con)
+        dev = pd.read_sql("SELECT section, time, deviation FROM deviation", con)
+    finally:
+        con.close()
+    losses["time"] = pd.to_datetime(losses["time"], unit="ms", utc=True)
+    dev["time"] = pd.to_datetime(dev["time"], unit="ms", utc=True)
+    for section, title in (("hp", "HP section"), ("ip", "IP section")):
+        mine = losses[losses["section"] == section].sort_values("time")
+        inside = mine[(mine["time"] >= start) & (mine["time"] < end)]
+        row = period[title]
+        assert row["extra fuel cost in the period [USD]"] == f"{inside['fuel_cost'].sum():,.0f}"
+        assert row["extra fuel cost since the baseline end, to the period end [USD]"] == \
+            f"{inside['cumulative_fuel_cost'].iloc[-1]:,.0f}"
+        # the history's cumulative cost is the planner table's, and differs from the period's
+        assert planner[title]["extra fuel cost since the baseline end [USD]"] == \
+            f"{mine['cumulative_fuel_cost'].iloc[-1]:,.0f}"
+        first = mine[mine["time"] < start]["cumulative_fuel_cost"].iloc[-1]
+        assert inside["fuel_cost"].sum() == pytest.approx(inside["cumulative_fuel_cost"].iloc[-1] - first,
+                                                          rel=1e-9)
+        d = dev[(dev["section"] == section) & (dev["time"] >= end - pd.Timedelta(days=7)) & (dev["time"] < end)]
+        assert row["deviation at period end [pt]"].startswith(f"{d['deviation'].median():+.2f} ± ")
+        n = ((dev["section"] == section) & (dev["time"] >= start) & (dev["time"] < end)).sum()
+        assert row["steady windows"] == str(n)
+
+
+def test_run_analysis_refuses_to_write_part_of_the_history(demo_dir, tmp_path):
+    from isentrope.daemon.analysis import run_analysis
+    from isentrope.daemon.config import load_config
+    from isentrope.daemon.stores import open_store
+
+    for f in demo_dir.glob("greywater2.*"):
+        shutil.copy(f, tmp_path / f.name)
+    db = tmp_path / "greywater2.sqlite"
+    before = {m: _rows(db, m) for m in _ANALYSIS_SERIES}
+    config = load_config(tmp_path / "greywater2.toml")
+    store = open_store(config.store.kind, **config.store.open_options())
+    try:
+        whole = run_analysis(store, config, write=False)
+        # the end of the history: one sample spacing after the demo's last reading
+        assert whole.end == pd.Timestamp("2025-01-01", tz="UTC") + pd.Timedelta(days=DAYS)
+        with pytest.raises(ValueError, match="partial analysis"):
+            run_analysis(store, config, pd.Timestamp("2025-01-20", tz="UTC"), whole.end)
+        with pytest.raises(ValueError, match="partial analysis"):
+            run_analysis(store, config, None, pd.Timestamp("2025-01-25", tz="UTC"))
+        part = run_analysis(store, config, None, pd.Timestamp("2025-01-25", tz="UTC"), write=False)
+        assert part.end == pd.Timestamp("2025-01-25", tz="UTC")
+    finally:
+        store.close()
+    for m in _ANALYSIS_SERIES:
+        assert _rows(db, m) == before[m], m
