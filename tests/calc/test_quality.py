@@ -530,6 +530,52 @@ def test_vectorised_flatline_equals_the_plain_definition(seed, rel, tol, level):
     assert (got == _flat_oracle(v, k, tol, rel)).all()
 
 
+def test_flatline_without_the_relative_part_where_the_floor_decides_gives_the_same_flags(monkeypatch):
+    # The synthetic unit (isentrope.daemon.synthetic; it injects one stuck transmitter): at the
+    # default 1e-6 the floors decide for every role, so the relative part is left out; forcing
+    # it back in must give the same flags. At 1e-3 it matters for the temperatures.
+    from isentrope.daemon import synthetic
+
+    frame, truth = synthetic.generate(days=8)
+    frame = frame.copy()
+    frame.iloc[3000:3200, frame.columns.get_loc("condenser_p")] = 0.0061  # a second stuck one
+    real = quality._relative_part_matters
+    for c, tol in quality.FLATLINE_TOLERANCE.items():
+        if tol is not None:
+            v = frame[c].to_numpy()
+            rel_step = quality.DEFAULT_FLATLINE_RELATIVE * (1.0 + 1e-9)
+            assert not real(v, np.isfinite(v), tol, rel_step), c
+    assert real(frame["throttle_t"].to_numpy(), np.isfinite(frame["throttle_t"].to_numpy()), 0.01, 1e-3)
+    for rel in (quality.DEFAULT_FLATLINE_RELATIVE, 1e-4, 1e-3):
+        shortcut = screen(frame, flatline_relative=rel, spike=None).flags
+        with monkeypatch.context() as m:
+            m.setattr(quality, "_relative_part_matters", lambda *args: True)
+            full = screen(frame, flatline_relative=rel, spike=None).flags
+        pd.testing.assert_frame_equal(shortcut, full)
+        flat = _only(shortcut, Reason.FLATLINE)
+        assert flat[:, frame.columns.get_loc(truth["flatline"]["role"])].any()
+        assert flat[3000:3200, frame.columns.get_loc("condenser_p")].all()
+
+
+@pytest.mark.parametrize("level, largest, matters", [(999.97, 999.99, False), (999.98, 1000.0, True),
+                                                     (1000.02, 1000.04, True)])
+def test_flatline_at_the_edge_of_the_relative_shortcut_equals_the_plain_definition(level, largest, matters):
+    # rel x 1000 = 1e-5 x 1000 = 0.01, the floor: the relative part is left out when the
+    # largest reading is below 1000 and kept from 1000 on (rel widened by 1e-9 there); plateaus
+    # spread 0.5..2 x the floor so that windows fall on both sides of the limit.
+    rng = np.random.default_rng(11)
+    n, k, tol, rel = 240, 20, 0.01, 1e-5
+    spread = np.repeat([0.98, 1.0, 1.02, 0.5, 2.0, 0.99, 1.01, 0.999], 30)
+    v = level + spread * tol * rng.uniform(-0.5, 0.5, n)
+    v[::7] = level
+    v[-1] = largest
+    assert quality._relative_part_matters(v, np.isfinite(v), tol, rel * (1.0 + 1e-9)) is matters
+    got = quality.flatline_samples(pd.Series(v, index=_index(n)), "20min", tol, rel).to_numpy()
+    expected = _flat_oracle(v, k, tol, rel)
+    assert expected.any() and not expected.all()
+    assert (got == expected).all()
+
+
 def test_flatline_tolerance_arguments_are_checked():
     f = _plant(n=20, roles=["throttle_t"])
     for bad in (1.0, -1e-6, float("nan"), "1e-6", True):
