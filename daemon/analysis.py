@@ -30,7 +30,13 @@ Result series (also in DEVELOPERS.md, "Result series"):
   ``_high``), ``overhaul_payback_years``, ``overhaul_saving_per_year`` [currency/yr],
   ``overhaul_break_even_s`` [s since 1970, UTC].
 * ``alarm_events`` rows for the rules ``degradation_rate`` and ``step_change``, evaluated
-  at each month end.
+  at each month end (and the end of the history). ``degradation_rate``: ``value`` the rate
+  [points per 1000 h], raised below ``-[alarms] rate_limit_per_1000h``, cleared above 80 %
+  of it. ``step_change``: ``value`` the net offset of the steps found up to then, signed
+  (the sum of their sizes; a single step's size) [points], raised below
+  ``-[alarms] min_step_points`` (the ``threshold`` written), cleared only when later steps
+  up bring it back above half of that (an overhaul, a cleaning, an instrument change) or a
+  new baseline starts the steps anew; a slow recovery without a step does not clear it.
 
 Advisory performance information, not a protective function; the turbine maker's limits,
 local codes and licensed engineering practice take precedence.
@@ -287,13 +293,14 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
                          "rate_high": r.high, "rate_per_month": r.per_month, "rate_ok": r.status == "ok",
                          "n_windows": float(r.n), "operating_hours": float(rel[sel][-1]),
                          "deviation_now": c, "deviation_now_u": cu})
-            step_size = max([abs(float(s.size)) for s in steps
-                             if t - pd.DateOffset(months=1) < pd.Timestamp(s.time) <= t] or [0.0])
+            # the net offset of the steps found up to t (signed: negative is a loss); it stays
+            # while no later step takes it back, so the step alarm stays raised with it
+            step_offset = float(sum(float(s.size) for s in steps if pd.Timestamp(s.time) <= t))
             if r.status == "ok":
                 obs_parts.append({"time": t, "section": name, "quantity": alarms.QUANTITY_RATE,
                                   "value": float(r.slope_per_1000h), "steady": True})
             obs_parts.append({"time": t, "section": name, "quantity": alarms.QUANTITY_STEP,
-                              "value": step_size, "steady": True})
+                              "value": step_offset, "steady": True})
         monthly = pd.DataFrame(rows).set_index("time")
         monthly.index = pd.DatetimeIndex(monthly.index, name="time")
         if projection is not None and projection.status == "ok":
@@ -327,8 +334,12 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
         alarms.Rule("degradation_rate", alarms.QUANTITY_RATE, "below", -float(a.rate_limit_per_1000h),
                     -0.8 * float(a.rate_limit_per_1000h), 1, 1, unit="points/1000 h",
                     label="degradation rate"),
-        alarms.Rule("step_change", alarms.QUANTITY_STEP, "above", 0.0, 0.0, 1, 1, unit="points",
-                    label="step change in the deviation"),
+        # a loss by steps: raised when the net offset of the steps found falls below
+        # -min_step_points, cleared when later steps up bring it back above half of that
+        # (project choice, no source); a gradual recovery does not clear it
+        alarms.Rule("step_change", alarms.QUANTITY_STEP, "below", -float(a.min_step_points),
+                    -0.5 * float(a.min_step_points), 1, 1, unit="points",
+                    label="net step change in the deviation"),
     ]
     if obs_parts:
         obs = pd.DataFrame(obs_parts).sort_values(["time", "section", "quantity"], kind="stable")

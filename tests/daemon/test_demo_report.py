@@ -79,6 +79,17 @@ def test_demo_finds_the_injected_ip_step(demo_dir):
     best = min(range(len(rows)), key=lambda i: abs(times[i] - first_after))
     assert t_true - pd.Timedelta(days=1) <= times[best] <= first_after + pd.Timedelta(days=1)
     assert rows[best][1] == pytest.approx(truth["ip"]["step_points"], abs=0.3)
+    # the step alarm: raised once, with the signed size of the loss and the configured
+    # threshold (-[alarms] min_step_points, 0.25 by default), and still raised at the end
+    con = sqlite3.connect(demo_dir / "greywater2.sqlite")
+    try:
+        events = con.execute("SELECT raised, value, threshold FROM alarm_events WHERE section = 'ip' AND "
+                             "rule = 'step_change' ORDER BY time").fetchall()
+    finally:
+        con.close()
+    assert len(events) == 1 and events[0][0] == 1.0
+    assert events[0][1] == pytest.approx(rows[best][1], rel=1e-12) and events[0][1] < 0
+    assert events[0][2] == -0.25
 
 
 def test_report_images_are_embedded_pngs(demo_dir):

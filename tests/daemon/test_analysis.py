@@ -1,0 +1,74 @@
+"""The degradation analysis (isentrope.daemon.analysis.analyse) on in-memory histories.
+
+The histories are invented here: a flat deviation with small seeded noise and steps of known
+size at known times, so what the analysis must find is set by construction (no outside
+source); the CUSUM and Theil-Sen methods themselves are checked in tests/calc/test_trend.py.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from isentrope.daemon.analysis import analyse
+from isentrope.daemon.commands.demo import demo_config_toml
+from isentrope.daemon.config import load_config
+
+START = pd.Timestamp("2025-02-01", tz="UTC")
+DAYS = 130
+STEP_DOWN = START + pd.Timedelta(days=20, hours=2)  # 2025-02-21 02:00, a loss of 1 point
+STEP_UP = START + pd.Timedelta(days=100, hours=2)  # 2025-05-12 02:00, the point recovered
+
+
+@pytest.fixture(scope="module")
+def config(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("analysis")
+    path = folder / "unit.toml"
+    path.write_text(demo_config_toml("unit.sqlite", START, DAYS), encoding="utf-8")
+    return load_config(path)
+
+
+def _history(steps: list[tuple[pd.Timestamp, float]], noise: float = 0.05, seed: int = 7):
+    """Windows every 4 h online all the time; deviation 0 plus the steps plus noise [points]."""
+    times = pd.date_range(START, START + pd.Timedelta(days=DAYS), freq="4h", inclusive="left", tz="UTC")
+    dev = np.random.default_rng(seed).normal(0.0, noise, len(times))
+    for t, size in steps:
+        dev[times >= t] += size
+    frame = pd.DataFrame({"deviation": dev, "deviation_u": 0.33, "extrapolated": False},
+                         index=pd.DatetimeIndex(times, name="time"))
+    samples = pd.date_range(START, START + pd.Timedelta(days=DAYS), freq="1h", inclusive="left", tz="UTC")
+    online = pd.Series(True, index=samples)
+    output = pd.Series(450.0, index=samples)
+    return {"ip": frame}, online, output, START + pd.Timedelta(days=DAYS)
+
+
+def test_step_alarm_carries_the_signed_size_and_stays_raised_until_a_step_takes_it_back(config):
+    deviation, online, output, end = _history([(STEP_DOWN, -1.0), (STEP_UP, +1.0)])
+    result = analyse(deviation, online, output, config, end)
+    steps = result.sections["ip"].steps
+    assert [s.direction for s in steps] == ["down", "up"]
+    assert steps[0].size == pytest.approx(-1.0, abs=0.05)  # injected above
+    ev = result.alarm_events[result.alarm_events["rule"] == "step_change"]
+    # raised at the first month end after the loss, with the signed size and the configured
+    # threshold; not cleared at the month ends while the loss stands (04-01, 05-01); cleared
+    # at the month end after the step back (06-01), with the net offset left
+    assert list(ev["kind"]) == ["raised", "cleared"]
+    assert list(ev.index) == [pd.Timestamp("2025-03-01", tz="UTC"), pd.Timestamp("2025-06-01", tz="UTC")]
+    raised, cleared = ev.iloc[0], ev.iloc[1]
+    assert raised["value"] == pytest.approx(steps[0].size, rel=1e-12)
+    assert raised["threshold"] == -config.alarms.min_step_points
+    assert cleared["value"] == pytest.approx(steps[0].size + steps[1].size, rel=1e-12)
+    assert cleared["threshold"] == -0.5 * config.alarms.min_step_points
+    # the series written: signed value and real threshold reach the store as they are
+    written = [f for m, f, t in result.writes({"unit": "U"}) if m == "alarm_events" and t["rule"] == "step_change"]
+    assert len(written) == 1
+    assert list(written[0]["value"]) == [raised["value"], cleared["value"]]
+    assert list(written[0]["threshold"]) == [-0.25, -0.125]
+
+
+def test_a_step_up_alone_raises_no_step_alarm(config):
+    deviation, online, output, end = _history([(STEP_DOWN, +1.0)])
+    result = analyse(deviation, online, output, config, end)
+    assert [s.direction for s in result.sections["ip"].steps] == ["up"]
+    assert not (result.alarm_events["rule"] == "step_change").any()
