@@ -20,7 +20,8 @@ Result series (also in DEVELOPERS.md, "Result series"):
   ``n_windows`` [-], ``operating_hours`` [h since the first deviation], ``deviation_now``
   and ``deviation_now_u`` [points; median of the last week's windows], ``projected``,
   ``projected_low``, ``projected_high`` [points at the planned outage; last row only].
-* ``steps`` (tags unit, section): one row per step found: ``size``, ``size_u`` [points].
+* ``steps`` (tags unit, section): one row per step found, at the first window at the new
+  level (least-squares change point): ``size``, ``size_u`` [points].
 * ``losses`` (tags unit, section): one row per UTC day (``calc.economics.daily_losses``):
   ``deviation`` [points], ``heat_rate_change`` [%], ``output_change_mw`` [MW], ``lost_mwh``
   [MWh], ``fuel_cost`` [currency], ``cumulative_lost_mwh`` [MWh], ``cumulative_fuel_cost``
@@ -85,7 +86,9 @@ class SectionOutlook:
     rate : isentrope.calc.trend.RateResult
         Degradation rate over the whole history, blocked at the steps found.
     steps : list of isentrope.calc.trend.Step
-        Step changes found, at least ``[alarms] min_step_points`` in size.
+        Step changes found, at least ``[alarms] min_step_points`` in size; the time of each is
+        the least-squares change point (``detect_steps(..., refine=True)``): the first window
+        at the new level.
     current : float
         Current deviation: median over the last ``CURRENT_WINDOW_DAYS`` [points].
     current_u : float
@@ -268,8 +271,11 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
         hours = _hours_at(pd.DatetimeIndex(dev.index), on)
         h0 = hours[0]
         rel = hours - h0
+        # refine: the step time is the least-squares change point, not the point after the
+        # CUSUM's last zero, which can fall windows before the cause (a trip's step is then
+        # placed at the first steady window after the restart, where the loss first shows)
         found = trend.detect_steps(dev.index, dev.to_numpy(dtype=float), hours=rel, k=float(a.cusum_k),
-                                   h=float(a.cusum_h))
+                                   h=float(a.cusum_h), refine=True)
         steps = [s for s in found if abs(float(s.size)) >= float(a.min_step_points)]
         breaks = [rel[int(s.index)] for s in steps] if len(steps) else None
         rate = trend.degradation_rate(rel, dev.to_numpy(dtype=float), breaks=breaks)

@@ -72,3 +72,27 @@ def test_a_step_up_alone_raises_no_step_alarm(config):
     result = analyse(deviation, online, output, config, end)
     assert [s.direction for s in result.sections["ip"].steps] == ["up"]
     assert not (result.alarm_events["rule"] == "step_change").any()
+
+
+def test_a_step_at_a_trip_is_placed_at_the_first_window_after_the_restart(config):
+    # No steady window from the trip to 21 h later; the loss applies from the restart. The
+    # last windows before the trip read a little low (-0.04 point, under one noise standard
+    # deviation), so the CUSUM's sum had left zero before the trip and its own estimate falls
+    # before it (seed 0: 2025-02-20 12:00); the least-squares change point is the first window
+    # after the restart. Invented history; the true step time is set by construction.
+    times = pd.date_range(START, START + pd.Timedelta(days=60), freq="2h", inclusive="left", tz="UTC")
+    trip = START + pd.Timedelta(days=20, hours=9)
+    first = trip + pd.Timedelta(hours=21)
+    times = times[(times < trip) | (times >= first)]
+    dev = np.random.default_rng(0).normal(0.0, 0.05, len(times))
+    dev[np.flatnonzero(times < trip)[-3:]] = -0.04
+    dev[times >= first] -= 1.0
+    frame = pd.DataFrame({"deviation": dev, "deviation_u": 0.33, "extrapolated": False},
+                         index=pd.DatetimeIndex(times, name="time"))
+    samples = pd.date_range(START, START + pd.Timedelta(days=60), freq="1h", inclusive="left", tz="UTC")
+    online = pd.Series(~((samples >= trip) & (samples < first - pd.Timedelta(hours=14))), index=samples)
+    result = analyse({"ip": frame}, online, pd.Series(450.0, index=samples), config,
+                     START + pd.Timedelta(days=60))
+    steps = result.sections["ip"].steps
+    assert [pd.Timestamp(s.time) for s in steps] == [first]
+    assert steps[0].size == pytest.approx(-1.0, abs=0.05)
