@@ -18,7 +18,9 @@ Result series (also in DEVELOPERS.md, "Result series"):
   history): ``rate_per_1000h``, ``rate_low``, ``rate_high`` [points per 1000 operating h],
   ``rate_per_month`` [points per 730 operating h], ``rate_ok`` (bool: enough data),
   ``n_windows`` [-], ``operating_hours`` [h since the first deviation], ``deviation_now``
-  and ``deviation_now_u`` [points; median of the last week's windows], ``projected``,
+  and ``deviation_now_u`` [points; median of the last week's windows and its standard error
+  from their scatter], ``deviation_now_window_u`` [points; median ``deviation_u`` of those
+  windows: one window's measurement and model uncertainty], ``projected``,
   ``projected_low``, ``projected_high`` [points at the planned outage; last row only].
 * ``steps`` (tags unit, section): one row per step found, at the first window at the new
   level (least-squares change point): ``size``, ``size_u`` [points].
@@ -92,7 +94,10 @@ class SectionOutlook:
     current : float
         Current deviation: median over the last ``CURRENT_WINDOW_DAYS`` [points].
     current_u : float
-        Its standard uncertainty (scaled MAD / sqrt(n)) [points].
+        Standard error of that median from the scatter of those windows (scaled MAD /
+        sqrt(n)) [points]: how well the present level is known while the instruments are those
+        of the baseline period (a fixed bias cancels in the deviation). The projection's
+        interval carries it.
     projection : isentrope.calc.trend.Projection or None
         Deviation at the planned outage, None without a planned outage.
     monthly : pandas.DataFrame
@@ -101,6 +106,14 @@ class SectionOutlook:
         Daily losses (``calc.economics.daily_losses``); None without prices.
     projected_loss : isentrope.calc.economics.ProjectedLoss or None
     overhaul : isentrope.calc.economics.OverhaulCase or None
+    deviation_u : pandas.Series or None
+        ``deviation_u`` of each window (measurement and baseline-model standard uncertainty,
+        k = 1) [points], same index as ``deviation``.
+    current_window_u : float
+        Median ``deviation_u`` of the windows behind ``current``: the standard uncertainty of
+        one window's deviation, i.e. what a change of instrument bias since the baseline
+        (recalibration, replacement) could shift the level by, which ``current_u`` does not
+        cover [points].
     """
 
     section: str
@@ -115,6 +128,8 @@ class SectionOutlook:
     losses: pd.DataFrame | None = None
     projected_loss: object | None = None
     overhaul: object | None = None
+    deviation_u: pd.Series | None = None
+    current_window_u: float = math.nan
 
 
 @dataclass
@@ -209,6 +224,14 @@ def _rate_until(dev: pd.Series, rel: np.ndarray, steps, t: pd.Timestamp):
     return trend.degradation_rate(rel[sel], dev.to_numpy(dtype=float)[sel], breaks=breaks)
 
 
+def _window_u(dev_u: pd.Series | None, end: pd.Timestamp) -> float:
+    """Median ``deviation_u`` of the windows ``_current`` takes at ``end`` [points]."""
+    if dev_u is None:
+        return math.nan
+    recent = dev_u[dev_u.index >= end - pd.Timedelta(days=CURRENT_WINDOW_DAYS)].dropna()
+    return float(np.median(recent.to_numpy(dtype=float))) if len(recent) >= 3 else math.nan
+
+
 def _month_ends(first: pd.Timestamp, end: pd.Timestamp) -> pd.DatetimeIndex:
     start = (first + pd.offsets.MonthBegin(1)).normalize()
     ends = pd.date_range(start, end, freq="MS", tz="UTC")
@@ -268,6 +291,8 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
         dev = dev[np.isfinite(dev.to_numpy(dtype=float))]
         if not len(dev):
             continue
+        dev_u = (pd.to_numeric(frame["deviation_u"], errors="coerce").reindex(dev.index)
+                 if "deviation_u" in frame else None)
         hours = _hours_at(pd.DatetimeIndex(dev.index), on)
         h0 = hours[0]
         rel = hours - h0
@@ -298,7 +323,8 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
             rows.append({"time": t, "rate_per_1000h": r.slope_per_1000h, "rate_low": r.low,
                          "rate_high": r.high, "rate_per_month": r.per_month, "rate_ok": r.status == "ok",
                          "n_windows": float(r.n), "operating_hours": float(rel[sel][-1]),
-                         "deviation_now": c, "deviation_now_u": cu})
+                         "deviation_now": c, "deviation_now_u": cu,
+                         "deviation_now_window_u": _window_u(dev_u[sel] if dev_u is not None else None, t)})
             # the net offset of the steps found up to t (signed: negative is a loss); it stays
             # while no later step takes it back, so the step alarm stays raised with it
             step_offset = float(sum(float(s.size) for s in steps if pd.Timestamp(s.time) <= t))
@@ -313,7 +339,8 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
             monthly.loc[monthly.index[-1], ["projected", "projected_low", "projected_high"]] = [
                 projection.value, projection.low, projection.high]
         out = SectionOutlook(section=name, deviation=dev, hours=rel, rate=rate, steps=steps, current=current,
-                             current_u=current_u, projection=projection, monthly=monthly)
+                             current_u=current_u, projection=projection, monthly=monthly, deviation_u=dev_u,
+                             current_window_u=_window_u(dev_u, end))
         if basis is not None and math.isfinite(mean_output):
             sens = econ.sensitivity.get(name)
             hr = {name: sens.heat_rate_percent_per_point} if sens else None
@@ -418,6 +445,9 @@ class PeriodView:
     deviation_end, deviation_end_u : float
         Deviation at the period end: median of the windows of the ``CURRENT_WINDOW_DAYS``
         before it, and the standard error of that median (scatter of those windows) [points].
+    window_u : float
+        Median ``deviation_u`` of the same windows: the standard uncertainty of one window's
+        deviation from the instrument and baseline-model uncertainties [points].
     rate : isentrope.calc.trend.RateResult
         The rate as it stood at the period end (windows from the baseline end to it).
     steps : list of isentrope.calc.trend.Step
@@ -435,6 +465,7 @@ class PeriodView:
     n_windows: int
     deviation_end: float
     deviation_end_u: float
+    window_u: float
     rate: object
     steps: list
     lost_mwh: float = math.nan
@@ -457,10 +488,11 @@ def period_view(analysis: Analysis, start: pd.Timestamp, end: pd.Timestamp) -> d
         dev = o.deviation
         until = dev[dev.index < end]
         current, current_u = _current(until, end)
+        window_u = _window_u(o.deviation_u[o.deviation_u.index < end] if o.deviation_u is not None else None, end)
         rate = _rate_until(dev, o.hours, o.steps, end - pd.Timedelta(1, unit="ns"))
         view = PeriodView(section=name, start=start, end=end,
                           n_windows=int(((dev.index >= start) & (dev.index < end)).sum()),
-                          deviation_end=current, deviation_end_u=current_u, rate=rate,
+                          deviation_end=current, deviation_end_u=current_u, window_u=window_u, rate=rate,
                           steps=[s for s in o.steps if start <= pd.Timestamp(s.time) < end])
         if o.losses is not None and len(o.losses):
             days = o.losses.index

@@ -162,8 +162,8 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         The raw readings of the period in internal units when the caller already holds them
         (the demo does); None reads them from the store for the data-quality table.
     """
-    from isentrope.daemon.analysis import (DEGRADATION_MEASUREMENT, SECTIONS, STEPS_MEASUREMENT, alarm_series,
-                                           period_view)
+    from isentrope.daemon.analysis import (CURRENT_WINDOW_DAYS, DEGRADATION_MEASUREMENT, SECTIONS,
+                                           STEPS_MEASUREMENT, alarm_series, period_view)
     from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
                                            Pipeline)
 
@@ -207,7 +207,8 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
             oh = o.overhaul
             rows.append({
                 "section": SECTION_TITLES[s],
-                "deviation now [pt]": f"{_fmt(o.current, '+.2f')} ± {_fmt(o.current_u, '.2f')}",
+                "deviation now [pt] ± its standard error": f"{_fmt(o.current, '+.2f')} ± {_fmt(o.current_u, '.3f')}",
+                "one window's u [pt]": _fmt(o.current_window_u, ".2f"),
                 "rate [pt/1000 h] (95 %)": (f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to "
                                             f"{_fmt(r.high, '+.2f')})" if r.status == "ok" else r.status),
                 "steps": str(len(o.steps)),
@@ -223,7 +224,9 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
             d = _read(store, DEGRADATION_MEASUREMENT, start, end, {**tags, "section": s})
             last = d.iloc[-1] if len(d) else pd.Series(dtype=float)
             rows.append({"section": SECTION_TITLES[s],
-                         "deviation now [pt]": _fmt(last.get("deviation_now"), "+.2f"),
+                         "deviation now [pt] ± its standard error": f"{_fmt(last.get('deviation_now'), '+.2f')} ± "
+                                                                    f"{_fmt(last.get('deviation_now_u'), '.3f')}",
+                         "one window's u [pt]": _fmt(last.get("deviation_now_window_u"), ".2f"),
                          "rate [pt/1000 h] (95 %)": f"{_fmt(last.get('rate_per_1000h'), '+.2f')} "
                                                     f"({_fmt(last.get('rate_low'), '+.2f')} to "
                                                     f"{_fmt(last.get('rate_high'), '+.2f')})",
@@ -234,10 +237,19 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
     if rows:
         parts.append(_table(pd.DataFrame(rows), left=("section",)))
         parts.append("<p>Deviation is actual minus baseline expectation in percentage points (negative is "
-                     "worse); ± is one standard uncertainty. Rates are Theil-Sen slopes against operating "
-                     "hours; a rate whose interval includes zero is not yet a trend. Costs use the sensitivity "
-                     "coefficients of the configuration: replace them with the unit's own heat balance before "
-                     "using them in a business case.</p>")
+                     f"worse): the median of the steady windows of the last {CURRENT_WINDOW_DAYS:g} days. The ± "
+                     "after it is the standard error of that median from the scatter of those windows "
+                     "(1.4826 MAD / &radic;n, k = 1): how well the present level is known while the "
+                     "instruments are those of the baseline period, since a fixed instrument bias cancels in "
+                     "the deviation; the projection's interval carries it. “One window's u” is the median "
+                     "standard uncertainty (k = 1) of a single window's deviation from the configured "
+                     "instrument uncertainties and the baseline fit: read it as how far a change of "
+                     "instrument bias since the baseline (a recalibration, a replaced transmitter or "
+                     "thermocouple) could move the level, which the standard error does not cover; check the "
+                     "instruments before acting on a change smaller than about twice it. Rates are Theil-Sen "
+                     "slopes against operating hours; a rate whose interval includes zero is not yet a trend. "
+                     "Costs use the sensitivity coefficients of the configuration: replace them with the "
+                     "unit's own heat balance before using them in a business case.</p>")
     else:
         parts.append("<p>No baseline model yet: configure <code>[baseline]</code> and process the reference "
                      "period first.</p>")
@@ -255,7 +267,9 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
             prow.append({
                 "section": SECTION_TITLES[s],
                 "steady windows": str(v.n_windows),
-                "deviation at period end [pt]": f"{_fmt(v.deviation_end, '+.2f')} ± {_fmt(v.deviation_end_u, '.3f')}",
+                "deviation at period end [pt] ± its standard error":
+                    f"{_fmt(v.deviation_end, '+.2f')} ± {_fmt(v.deviation_end_u, '.3f')}",
+                "one window's u [pt]": _fmt(v.window_u, ".2f"),
                 "rate at period end [pt/1000 h] (95 %)": (f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} "
                                                           f"to {_fmt(r.high, '+.2f')})" if r.status == "ok"
                                                           else r.status),

@@ -96,3 +96,21 @@ def test_a_step_at_a_trip_is_placed_at_the_first_window_after_the_restart(config
     steps = result.sections["ip"].steps
     assert [pd.Timestamp(s.time) for s in steps] == [first]
     assert steps[0].size == pytest.approx(-1.0, abs=0.05)
+
+
+def test_the_current_deviation_carries_both_uncertainties(config):
+    # current_u is the standard error of the 7-day median from the windows' scatter
+    # (1.4826 MAD / sqrt(n), the normal-consistent MAD: common practice, no source);
+    # current_window_u is the windows' own deviation_u (0.33 pt here, set above), which a
+    # change of instrument bias would act through. Both are checked against a direct
+    # computation on the invented history.
+    deviation, online, output, end = _history([])
+    o = analyse(deviation, online, output, config, end).sections["ip"]
+    last = deviation["ip"]["deviation"]
+    last = last[last.index >= end - pd.Timedelta(days=7)].to_numpy()
+    med = np.median(last)
+    assert o.current == pytest.approx(med, rel=1e-12)
+    assert o.current_u == pytest.approx(1.4826 * np.median(np.abs(last - med)) / np.sqrt(last.size), rel=1e-12)
+    assert o.current_u < 0.01  # 42 windows of 0.05 pt noise: the level is known to < 0.01 pt
+    assert o.current_window_u == pytest.approx(0.33, rel=1e-12)
+    assert o.monthly["deviation_now_window_u"].iloc[-1] == pytest.approx(0.33, rel=1e-12)

@@ -348,7 +348,7 @@ def test_a_short_report_keeps_the_stored_analysis_and_shows_the_period(demo_dir,
     con = sqlite3.connect(db)
     try:
         losses = pd.read_sql("SELECT section, time, fuel_cost, cumulative_fuel_cost FROM losses", con)
-        dev = pd.read_sql("SELECT section, time, deviation FROM deviation", con)
+        dev = pd.read_sql("SELECT section, time, deviation, deviation_u FROM deviation", con)
     finally:
         con.close()
     losses["time"] = pd.to_datetime(losses["time"], unit="ms", utc=True)
@@ -367,7 +367,9 @@ def test_a_short_report_keeps_the_stored_analysis_and_shows_the_period(demo_dir,
         assert inside["fuel_cost"].sum() == pytest.approx(inside["cumulative_fuel_cost"].iloc[-1] - first,
                                                           rel=1e-9)
         d = dev[(dev["section"] == section) & (dev["time"] >= end - pd.Timedelta(days=7)) & (dev["time"] < end)]
-        assert row["deviation at period end [pt]"].startswith(f"{d['deviation'].median():+.2f} ± ")
+        assert row["deviation at period end [pt] ± its standard error"].startswith(
+            f"{d['deviation'].median():+.2f} ± ")
+        assert row["one window's u [pt]"] == f"{d['deviation_u'].median():.2f}"
         n = ((dev["section"] == section) & (dev["time"] >= start) & (dev["time"] < end)).sum()
         assert row["steady windows"] == str(n)
 
