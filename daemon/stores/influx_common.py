@@ -43,18 +43,25 @@ _WRITE_CONFLICT = re.compile(
 _READ_CONFLICT = re.compile(r"both of type (?P<a>\w+) and (?P<b>\w+)")
 
 
+#: Characters of a server answer shown in an error message (the whole answer is classified).
+_SHOWN_BODY = 300
+
+
 def classify_http(status: int, body: str, what: str) -> Exception:
     """TemporaryStoreError for 408/429/5xx, FatalStoreError for the rest (401, 403, 404, 400...).
 
     A 5xx that names a missing target, and a field type conflict or a Flux schema collision
-    (whatever the status), are fatal: no retry changes them.
+    (whatever the status), are fatal: no retry changes them. The whole answer is classified;
+    only its first ``_SHOWN_BODY`` characters go into the message.
     """
-    body = (body or "").strip().replace("\n", " ")[:300]
-    msg = f"{what}: HTTP {status}: {body}"
-    if any(s in body.lower() for s in _TYPE_CONFLICT_BODY):
-        return FatalStoreError(f"{what}: HTTP {status}: {type_conflict_text(body)} (server: {body})")
+    full = (body or "").strip().replace("\n", " ")
+    shown = full if len(full) <= _SHOWN_BODY else full[:_SHOWN_BODY] + "..."
+    lower = full.lower()
+    if any(s in lower for s in _TYPE_CONFLICT_BODY):
+        return FatalStoreError(f"{what}: HTTP {status}: {type_conflict_text(full)} (server: {shown})")
+    msg = f"{what}: HTTP {status}: {shown}"
     if status in _TEMPORARY_STATUS or status >= 500:
-        if any(s in body.lower() for s in _FATAL_BODY):
+        if any(s in lower for s in _FATAL_BODY):
             return FatalStoreError(msg)
         return TemporaryStoreError(msg)
     return FatalStoreError(msg)

@@ -96,6 +96,24 @@ def test_a_write_conflict_names_field_measurement_and_types():
     assert 'SELECT "P"::string FROM "plant"' in str(err)  # where to find the points to delete
 
 
+def test_a_conflict_named_late_in_a_long_answer_is_still_recognised():
+    # The answer is classified whole and only cut for display: a conflict named after the
+    # 300th character was a plain 400 before, without field, measurement or cure. The padding
+    # stands for a long answer (e.g. several points named); the wording is the servers' above.
+    body = ('{"error":"partial write: ' + "unable to parse 'x': bad timestamp; " * 12
+            + 'field type conflict: input field \\"P\\" on measurement \\"plant\\" is type float, '
+            'already exists as type string dropped=1"}')
+    assert body.index("field type conflict") > 300
+    err = classify_http(400, body, "write_raw")
+    assert isinstance(err, FatalStoreError) and "no retry" in str(err)
+    assert "field 'P' of measurement 'plant' already holds string values" in str(err)
+    shown = str(err).split("(server: ", 1)[1]
+    assert len(shown) <= 300 + len("...)") and shown.endswith("...)")
+    # a 500 that names a missing target late in its answer stays fatal as well
+    late = '{"error":"' + "x" * 400 + ' database not found: db"}'
+    assert isinstance(classify_http(500, late, "read_raw"), FatalStoreError)
+
+
 def test_other_5xx_stay_temporary():
     assert isinstance(classify_http(500, '{"error":"timeout"}', "read_raw"), TemporaryStoreError)
 
