@@ -304,3 +304,18 @@ def test_the_worker_stops_at_once_on_text_in_a_raw_field(influxdb_v2, tmp_path):
     assert sleeps == []  # no retry, no backoff
     assert worker.last_report.error.startswith("store error:")
     store.close()
+
+
+def test_every_test_here_that_starts_a_server_is_marked_influx():
+    """`-m "not influx"` must leave out every test that needs a server (the v1_server fixture
+    above asks for one too); a missing mark ran one without a server and failed."""
+    import inspect
+
+    # "request": the test picks its server with request.getfixturevalue
+    servers = {"influxdb_v1", "influxdb_v2", "v1_server", "request"}
+    needing = [name for name, fn in globals().items() if name.startswith("test_") and callable(fn)
+               and servers & set(inspect.signature(fn).parameters)]
+    assert "test_influx1_reads_text_as_missing_samples_that_screening_flags" in needing
+    unmarked = [name for name in needing
+                if "influx" not in {m.name for m in getattr(globals()[name], "pytestmark", [])}]
+    assert unmarked == []
