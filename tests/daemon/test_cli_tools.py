@@ -261,10 +261,13 @@ def test_skipped_hour_is_rejected_or_shifted():
     assert t == ["2026-03-29T01:00:00+00:00"]  # 03:00 CEST
 
 
-def test_unreadable_and_dayfirst():
+def test_unreadable_and_date_order():
     t, why = _times(["not a time", "", "03/04/2026 10:00"], zone="UTC")
-    assert why[:2] == ["unreadable time", "empty time"] and t[2] == "2026-03-04T10:00:00+00:00"
-    assert _times(["03/04/2026 10:00"], zone="UTC", dayfirst=True)[0] == ["2026-04-03T10:00:00+00:00"]
+    # a numeric date is never given an order of its own: import_files decides one per file
+    assert why == ["unreadable time", "empty time", "numeric date with no day/month order given"]
+    assert t == [None, None, None]
+    assert _times(["03/04/2026 10:00"], zone="UTC", order="month-first")[0] == ["2026-03-04T10:00:00+00:00"]
+    assert _times(["03/04/2026 10:00"], zone="UTC", order="day-first")[0] == ["2026-04-03T10:00:00+00:00"]
 
 
 LONG_CSV = """time,tag,value
@@ -289,8 +292,9 @@ def test_import_long_layout(tmp_path, capsys):
     assert out[:6] == [
         "files: 1",
         "rows read: 9",
-        "rows rejected: 1 (1 unreadable time)",
-        "values not a number (stored as missing): 1",
+        "rows rejected: 1 (1 unreadable time); e.g. long.csv line 9 'yesterday noon'",
+        "values not a number, left out (not written; a value already stored stays): 1; "
+        "e.g. long.csv line 4 U7-MS-P 'Bad Input'",
         "duplicate (time, tag) values replaced by the later one: 1",
         "samples written: 4",
     ]
@@ -318,7 +322,9 @@ def test_import_wide_local_time_and_reimport_replaces(tmp_path, capsys):
             "--decimal", ",", "--dayfirst"]
     assert cli.main(args) == 0
     first = capsys.readouterr().out
-    assert "samples written: 5" in first and "values not a number (stored as missing): 1" in first
+    assert "samples written: 5" in first and "dates in wide.csv: day/month/year (--dayfirst)" in first
+    assert ("values not a number, left out (not written; a value already stored stays): 1; "
+            "e.g. wide.csv line 4 U7-GEN-MW 'I/O Timeout'") in first
     assert cli.main(args) == 0  # the same file again: replaced, not duplicated
     capsys.readouterr()
     config = load_config(path)
@@ -458,14 +464,210 @@ def test_import_then_check_against_a_real_server(request, tmp_path, capsys, monk
     csv = tmp_path / "six_hours.csv"
     wide = frame.rename(columns={role: PLANT[role][0] for role in PLANT}).astype(object)
     wide.index = wide.index.strftime("%Y-%m-%dT%H:%M:%SZ")
-    wide.iloc[10, 0] = "Bad"  # a historian status string: stored as missing, counted
+    wide.iloc[10, 0] = "Bad"  # a historian status string: left out, counted, its line named
     wide.to_csv(csv)
     assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 0
     out = capsys.readouterr().out
     assert "rows read: 360" in out and "samples written: 3599" in out
-    assert "values not a number (stored as missing): 1" in out
+    assert ("values not a number, left out (not written; a value already stored stays): 1; "
+            "e.g. six_hours.csv line 12 U7-MS-P 'Bad'") in out
     rc = cli.main(["check", "-c", str(path), "--end", END.isoformat(), "--since", "6h"])
     out = capsys.readouterr().out
     assert rc == 0, out
     row = next(line for line in out.splitlines() if line.startswith("throttle_p"))
     assert row.split()[3] == "359" and row.endswith(" ok")
+
+
+# --- import-csv: one date order per file; command-line times ISO 8601 only ----------------------
+# The readings of the dates below are calendar facts (common practice, no source): 02/05/2025 is
+# 2 May 2025 read day first (day/month/year) and 5 February 2025 read month first
+# (month/day/year); 13/05/2025 can only be 13 May, 05/14/2025 only 14 May. The throttle values
+# are invented demo values.
+FEB5 = "2025-02-05T10:00:00+00:00"
+
+
+def store_with_feb5(tmp_path: Path) -> Path:
+    """A store holding one good throttle pressure at 5 February 2025 10:00 UTC (16.5 MPa)."""
+    path = write_config(tmp_path)
+    config = load_config(path)
+    with config.store.open() as store:
+        store.write_raw(list(config.mappings),
+                        pd.DataFrame({"throttle_p": [16.5]}, index=pd.DatetimeIndex([pd.Timestamp(FEB5)], name="time")))
+    return path
+
+
+def stored_throttle(path: Path) -> dict[str, float]:
+    config = load_config(path)
+    with config.store.open() as store:
+        got = store.read_raw(list(config.mappings), pd.Timestamp("2024-01-01T00:00Z"), pd.Timestamp("2027-01-01T00:00Z"))
+    return {t.isoformat(): v for t, v in got["throttle_p"].dropna().items()}
+
+
+def wide_csv(tmp_path: Path, name: str, rows: list[str], header: str = "time,U7-MS-P") -> Path:
+    csv = tmp_path / name
+    csv.write_text("\n".join([header, *rows]) + "\n")
+    return csv
+
+
+@pytest.mark.parametrize("rows, expected, evidence", [
+    # the review's file: 02/05 was stored at 5 February (over the good sample), 13/05 at 13 May
+    (["02/05/2025 10:00,16.61", "13/05/2025 10:00,16.62"],
+     {"2025-05-02T10:00:00+00:00": 16.61, "2025-05-13T10:00:00+00:00": 16.62}, "line 3 '13/05/2025 10:00'"),
+    # the review's midnight: 12/04 23:58 was stored at 4 December, 13/04 00:00 at 13 April
+    (["12/04/2025 23:58,16.61", "12/04/2025 23:59,16.62", "13/04/2025 00:00,16.63"],
+     {"2025-04-12T23:58:00+00:00": 16.61, "2025-04-12T23:59:00+00:00": 16.62, "2025-04-13T00:00:00+00:00": 16.63},
+     "line 4 '13/04/2025 00:00'"),
+])
+def test_import_reads_all_dates_of_a_file_in_one_order(tmp_path, capsys, rows, expected, evidence):
+    path = store_with_feb5(tmp_path)
+    csv = wide_csv(tmp_path, "dayfirst.csv", rows)
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 0
+    assert stored_throttle(path) == {FEB5: 16.5, **expected}
+    assert f"dates in dayfirst.csv: day/month/year, as {evidence} shows" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("rows, readings, option, expected", [
+    (["02/05/2025 10:00,16.61", "03/05/2025 10:00,16.62"], "2025-05-02 as day/month/year, 2025-02-05", "--dayfirst",
+     {"2025-05-02T10:00:00+00:00": 16.61, "2025-05-03T10:00:00+00:00": 16.62}),
+    # dotted dates were read as 2 May without a word
+    (["05.02.2025 11:00,16.61", "06.02.2025 11:00,16.62"], "2025-02-05 as day/month/year, 2025-05-02", "--monthfirst",
+     {"2025-05-02T11:00:00+00:00": 16.61, "2025-06-02T11:00:00+00:00": 16.62}),
+    (["05.02.2025 11:00,16.61", "06.02.2025 11:00,16.62"], "2025-02-05 as day/month/year, 2025-05-02", "--dayfirst",
+     {"2025-02-05T11:00:00+00:00": 16.61, "2025-02-06T11:00:00+00:00": 16.62}),
+])
+def test_import_refuses_dates_that_read_both_ways_until_told(tmp_path, capsys, rows, readings, option, expected):
+    path = store_with_feb5(tmp_path)
+    good = wide_csv(tmp_path, "a_iso.csv", ["2025-06-01T10:00Z,16.7"])
+    csv = wide_csv(tmp_path, "b_ambiguous.csv", rows)
+    assert cli.main(["import-csv", "-c", str(path), str(good), str(csv)]) == 1
+    captured = capsys.readouterr()
+    first = rows[0].split(",")[0]
+    assert captured.err == (f"isentrope: error: {csv}: the dates read both ways, such as line 2 '{first}' "
+                            f"({readings} as month/day/year), and none tells which; say which with --dayfirst "
+                            "or --monthfirst (nothing was written)\n")
+    assert captured.out == ""
+    assert stored_throttle(path) == {FEB5: 16.5}  # nothing written, not even the unambiguous file
+    assert cli.main(["import-csv", "-c", str(path), str(csv), option]) == 0
+    out = capsys.readouterr().out
+    assert f"dates in b_ambiguous.csv: {'day/month/year' if option == '--dayfirst' else 'month/day/year'} ({option})" in out
+    assert stored_throttle(path) == {FEB5: 16.5, **expected}
+
+
+def test_import_refuses_a_file_that_mixes_date_orders(tmp_path, capsys):
+    path = store_with_feb5(tmp_path)
+    csv = wide_csv(tmp_path, "mixed.csv", ["13/05/2025 10:00,16.61", "02/05/2025 11:00,16.62",
+                                           "05/14/2025 10:00,16.63", "14/05/2025 10:00,16.64"])
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 1
+    err = capsys.readouterr().err
+    assert err == (f"isentrope: error: {csv}: the dates mix two orders: lines 2, 5 (such as '13/05/2025 10:00') "
+                   "read only as day/month/year, line 4 (such as '05/14/2025 10:00') only as month/day/year; "
+                   "correct the file, or import each part with --dayfirst or --monthfirst (nothing was written)\n")
+    assert stored_throttle(path) == {FEB5: 16.5}
+    # told the order, the rows that do not fit it are rejected with their lines, the rest written
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--dayfirst"]) == 0
+    out = capsys.readouterr().out
+    assert "rows rejected: 1 (1 not a day/month/year date); e.g. mixed.csv line 4 '05/14/2025 10:00'" in out
+    assert stored_throttle(path) == {FEB5: 16.5, "2025-05-02T11:00:00+00:00": 16.62,
+                                     "2025-05-13T10:00:00+00:00": 16.61, "2025-05-14T10:00:00+00:00": 16.64}
+
+
+def test_import_iso_times_need_no_option(tmp_path, capsys):
+    # CEST = UTC+2 on 2 May 2025 (EU rule, Directive 2000/84/EC); a date alone is local midnight
+    path = store_with_feb5(tmp_path)
+    csv = wide_csv(tmp_path, "iso.csv", ["2025-05-02T10:00,1", "2025-05-02 11:00Z,2", "2025-05-02T14:00+02:00,3",
+                                         "2025-05-03,4", "2025-05-02T13:00:30.5-0100,5"])
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--timezone", "Europe/Berlin"]) == 0
+    assert stored_throttle(path) == {FEB5: 16.5, "2025-05-02T08:00:00+00:00": 1.0, "2025-05-02T11:00:00+00:00": 2.0,
+                                     "2025-05-02T12:00:00+00:00": 3.0, "2025-05-02T22:00:00+00:00": 4.0,
+                                     "2025-05-02T14:00:30.500000+00:00": 5.0}
+    out = capsys.readouterr().out
+    assert "rows rejected: 0" in out and "dates in" not in out
+
+
+def test_import_other_time_forms_need_an_explicit_format(tmp_path, capsys):
+    path = store_with_feb5(tmp_path)
+    csv = wide_csv(tmp_path, "names.csv", ["02-May-2025 10:00,16.61", "03-May-2025 10:00,16.62"])
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 1
+    captured = capsys.readouterr()
+    assert "rows rejected: 2 (2 unreadable time); e.g. names.csv line 2 '02-May-2025 10:00', line 3 " in captured.out
+    assert ("times must be ISO 8601 (2025-05-02T10:00), or day/month/year or month/day/year numbers with a "
+            "four-digit year; give --time-format for any other form") in captured.out
+    assert captured.err.startswith("isentrope: error: no sample written")
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--time-format", "%d-%b-%Y %H:%M"]) == 0
+    assert "times in names.csv: --time-format '%d-%b-%Y %H:%M'" in capsys.readouterr().out
+    assert stored_throttle(path) == {FEB5: 16.5, "2025-05-02T10:00:00+00:00": 16.61, "2025-05-03T10:00:00+00:00": 16.62}
+    assert cli.main(["import-csv", "-c", str(path), str(csv), "--time-format", "%H:%M"]) == 1
+    assert capsys.readouterr().err.startswith("isentrope: error: --time-format '%H:%M' must give the year, month and day")
+    with pytest.raises(SystemExit) as stop:  # one way of reading the dates only
+        cli.main(["import-csv", "-c", str(path), str(csv), "--dayfirst", "--monthfirst"])
+    assert stop.value.code == 2
+    capsys.readouterr()
+
+
+def test_import_exits_non_zero_when_nothing_is_written_and_keeps_what_is_stored(tmp_path, capsys):
+    path = store_with_feb5(tmp_path)
+    csv = wide_csv(tmp_path, "bad.csv", ["2025-02-05T10:00Z,Bad", "2025-02-05T10:01Z,I/O Timeout"])
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 1
+    captured = capsys.readouterr()
+    assert ("values not a number, left out (not written; a value already stored stays): 2; "
+            "e.g. bad.csv line 2 U7-MS-P 'Bad', line 3 U7-MS-P 'I/O Timeout'") in captured.out.splitlines()
+    assert "samples written: 0" in captured.out
+    assert captured.err == ("isentrope: error: no sample written: every value was rejected, empty or of a tag "
+                            "not in the configuration (what was stored stays)\n")
+    assert stored_throttle(path) == {FEB5: 16.5}  # "Bad" at 10:00 left the stored 16.5 alone
+
+
+def test_import_names_the_lines_of_a_few_rejected_rows(tmp_path, capsys):
+    path = write_config(tmp_path)
+    csv = wide_csv(tmp_path, "some.csv", ["2025-05-02T10:00Z,16.5", "", *(f"junk {i},16.5" for i in range(5)),
+                                          "2025-05-02T10:01Z,16.6"])
+    assert cli.main(["import-csv", "-c", str(path), str(csv)]) == 0
+    out = capsys.readouterr().out
+    # the blank line 3 is skipped but counted: the first junk row is line 4
+    assert ("rows rejected: 5 (5 unreadable time); e.g. some.csv line 4 'junk 0', line 5 'junk 1', "
+            "line 6 'junk 2'") in out.splitlines()
+    assert "rows read: 7" in out and "samples written: 2" in out
+
+
+@pytest.mark.parametrize("text, expected", [
+    ("2025-05-02", "2025-05-02T00:00:00+00:00"),
+    ("2025-05-02T10:00", "2025-05-02T10:00:00+00:00"),
+    ("2025-05-02 10:00:30", "2025-05-02T10:00:30+00:00"),
+    ("2025-05-02T10:00Z", "2025-05-02T10:00:00+00:00"),
+    ("2025-05-02T12:00+02:00", "2025-05-02T10:00:00+00:00"),
+    ("2025-05-02T05:00:00.25-0500", "2025-05-02T10:00:00.250000+00:00"),
+])
+def test_command_line_times_accept_iso_8601(text, expected):
+    from isentrope.daemon.commands import parse_time
+
+    assert parse_time(text).isoformat() == expected
+
+
+@pytest.mark.parametrize("text, hint", [
+    ("05/02/2025", "write 2025-02-05 (5 February) or 2025-05-02 (2 May)"),
+    ("05.02.2025 10:00", "write 2025-02-05T10:00 (5 February) or 2025-05-02T10:00 (2 May)"),
+    ("13/05/2025", "write 2025-05-13 (13 May)"),
+    ("May 2 2025", "write the date year first"),
+    ("now", "write the date year first"),
+    ("20250502", "write the date year first"),
+    ("2025-5-2", "write the date year first"),
+    ("2025-05", "write the date year first"),
+    ("2025-05-02T25:00", "write the date year first"),
+    ("2025-02-30", "write the date year first"),
+])
+def test_command_line_times_refuse_other_forms(text, hint):
+    from isentrope.daemon.commands import parse_time
+
+    with pytest.raises(ValueError) as err:
+        parse_time(text)
+    assert str(err.value).startswith(f"time {text!r} is not an ISO 8601 date or time; {hint}")
+    assert str(err.value).endswith("(ISO 8601: 2025-05-02, 2025-05-02T10:00, 2025-05-02T10:00Z or "
+                                   "2025-05-02T10:00+02:00; without an offset the time is UTC)")
+
+
+def test_backfill_refuses_a_slash_date(tmp_path, capsys):
+    path = write_config(tmp_path)
+    assert cli.main(["backfill", "-c", str(path), "--start", "05/02/2025", "--end", "2025-06-01"]) == 1
+    assert capsys.readouterr().err.startswith("isentrope: error: time '05/02/2025' is not an ISO 8601 date or time; "
+                                              "write 2025-02-05 (5 February) or 2025-05-02 (2 May)")
+    assert not (tmp_path / "unit7.sqlite").exists()
