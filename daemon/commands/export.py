@@ -66,14 +66,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 
 
 def parse_time(text: str, what: str) -> pd.Timestamp:
-    """ISO 8601 -> UTC timestamp (naive means UTC); ValueError naming the option."""
+    """ISO 8601 -> UTC timestamp (naive means UTC), as every command reads times
+    (``commands.parse_time``); ValueError naming the option."""
+    from isentrope.daemon.commands import parse_time as parse_iso
+
     try:
-        ts = pd.Timestamp(text)
-    except (ValueError, TypeError):
-        ts = None
-    if ts is None or pd.isna(ts):
-        raise ValueError(f"{what}: expected an ISO 8601 time such as 2026-03-01 or 2026-03-01T12:00Z, found {text!r}")
-    return ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
+        return parse_iso(text)
+    except ValueError as exc:
+        raise ValueError(f"{what}: {exc}") from None
 
 
 def parse_tags(items: list[str]) -> dict[str, str]:

@@ -433,7 +433,11 @@ def test_export_empty_window_and_bad_times(tmp_path, capsys):
     assert cli.main(["export", "-c", str(path), "--start", "2020-01-02", "--end", "2020-01-01"]) == 1
     assert "must be after --start" in capsys.readouterr().err
     assert cli.main(["export", "-c", str(path), "--start", "soon", "--end", "2020-01-01"]) == 1
-    assert "--start: expected an ISO 8601 time" in capsys.readouterr().err
+    assert "--start: time 'soon' is not an ISO 8601 date or time" in capsys.readouterr().err
+    # a day/month date is refused, not read month first (05/02 could be 5 February or 2 May)
+    assert cli.main(["export", "-c", str(path), "--start", "05/02/2020", "--end", "2020-06-01"]) == 1
+    err = capsys.readouterr().err
+    assert "2020-02-05 (5 February)" in err and "2020-05-02 (2 May)" in err
 
 
 def test_to_csv_text_formats_times_in_utc():
