@@ -198,31 +198,42 @@ class Influx2Store(LineProtocolWriter, Store):
             if block.startswith("#datatype,"):
                 first, _, block = block.partition("\n")
                 types = first.split(",")  # names of types hold no comma; "#datatype" heads the empty column
-            frame = pd.read_csv(io.StringIO(block))
+            # only an empty cell is no value: text such as "n/a", "NA" or "null" stays text
+            frame = pd.read_csv(io.StringIO(block), keep_default_na=False, na_values=[""])
             frame.attrs["datatype"] = dict(zip(frame.columns, types))
             blocks.append(frame)
         return blocks
 
-    def _refuse_text_fields(self, what: str, block: pd.DataFrame, fields: Sequence[str], measurement: str,
-                            tags: Mapping[str, str], lo: pd.Timestamp, hi: pd.Timestamp) -> None:
-        """FatalStoreError when a field of ``block`` is not numeric in the server's answer (see the
-        module docstring: 1.8.10 would have left out the numbers stored after those points)."""
+    def _refuse_text_fields(self, what: str, block: pd.DataFrame, inside: np.ndarray, fields: Sequence[str],
+                            measurement: str, tags: Mapping[str, str], lo: pd.Timestamp, hi: pd.Timestamp) -> None:
+        """FatalStoreError when a field of ``block`` is not numeric in the server's answer and has
+        a point in [lo, hi) (``inside``; see the module docstring: 1.8.10 would have left out the
+        numbers stored after those points). Text only at ``hi`` is the next window's."""
         types = block.attrs.get("datatype", {})
+        if not inside.any():
+            return
         for field in fields:
             kind = types.get(field, "double")
             if kind in _NUMERIC_TYPES or field not in block.columns:
                 continue
-            held = block[field].notna().to_numpy()
-            n = int(held.sum())
-            first_time = self._block_times(block)[held][0].isoformat() if n else "?"
-            first = str(block[field][held].iloc[0]) if n else ""
-            first = first if len(first) <= 40 else first[:37] + "..."
+            present = block[field].notna().to_numpy()
+            held = present & inside
+            if present.any() and not held.any():
+                continue  # its values lie at hi only
+            if held.any():
+                n = int(held.sum())
+                first = str(block[field][held].iloc[0])
+                first = first if len(first) <= 40 else first[:37] + "..."
+                found = (f"{n} point{'s' if n != 1 else ''}, the first at "
+                         f"{self._block_times(block)[held][0].isoformat()} ({first!r})")
+            else:  # a text column without a value: empty strings, which the CSV shows as no value
+                found = "empty strings (which points is not shown: the answer gives them as no value)"
             tag_text = f" ({', '.join(f'{k}={v!r}' for k, v in tags.items())})" if tags else ""
             listing = f"SELECT {quote_for_message(field)}::{kind} FROM {quote_for_message(measurement)}"
             raise FatalStoreError(
                 f"{what} ({self.url}, bucket {self.bucket!r}): field {field!r} of measurement {measurement!r}"
                 f"{tag_text} holds {kind} values, not numbers, in [{lo.isoformat()}, {hi.isoformat()}): "
-                f"{n} point{'s' if n != 1 else ''}, the first at {first_time} ({first!r}). Nothing was read: "
+                f"{found}. Nothing was read: "
                 "influxd 1.8's Flux reader stops reading a field where its type changes from one shard (block of "
                 "time) to the next, so numbers stored after those points would be missed without notice. Delete "
                 f"or rewrite those points ({listing} lists them; InfluxQL DELETE FROM ... WHERE time >= ... AND "
@@ -250,6 +261,13 @@ class Influx2Store(LineProtocolWriter, Store):
     def _block_times(block: pd.DataFrame) -> pd.DatetimeIndex:
         return pd.DatetimeIndex(pd.to_datetime(block["_time"], utc=True, format="ISO8601")).as_unit("ns")
 
+    @classmethod
+    def _inside(cls, block: pd.DataFrame, lo: pd.Timestamp, hi: pd.Timestamp) -> tuple[pd.DatetimeIndex, np.ndarray]:
+        """The times of ``block`` and which lie in [lo, hi): 1.8's storage reader includes stop
+        itself, and a point at ``hi`` is the next window's (for the text check too)."""
+        idx = cls._block_times(block)
+        return idx, np.asarray((idx >= lo) & (idx < hi))
+
     # --- raw samples ---------------------------------------------------------------------
     def read_raw(self, mappings: Sequence[RoleMapping], start, end) -> pd.DataFrame:
         mappings = common.check_mappings(mappings)
@@ -264,9 +282,8 @@ class Influx2Store(LineProtocolWriter, Store):
                 for block in self.query_csv(self._pivot_query(measurement, fields, dict(tags), lo, hi), "read_raw"):
                     if not len(block) or "_time" not in block.columns:
                         continue
-                    self._refuse_text_fields("read_raw", block, fields, measurement, dict(tags), lo, hi)
-                    idx = self._block_times(block)
-                    inside = (idx >= lo) & (idx < hi)  # 1.8's storage reader includes stop itself
+                    idx, inside = self._inside(block, lo, hi)
+                    self._refuse_text_fields("read_raw", block, inside, fields, measurement, dict(tags), lo, hi)
                     block, idx = block[inside], idx[inside]
                     for m in ms:
                         if m.field_name in block.columns:
@@ -295,9 +312,9 @@ class Influx2Store(LineProtocolWriter, Store):
                 if len(block) and "_time" in block.columns:
                     drop = [c for c in block.columns if c in ("_time", "result", "table") or str(c).startswith("Unnamed")]
                     fields = [c for c in block.columns if c not in drop]
-                    self._refuse_text_fields(f"read_results {measurement}", block, fields, measurement, tags, lo, hi)
-                    idx = self._block_times(block)
-                    inside = (idx >= lo) & (idx < hi)  # 1.8's storage reader includes stop itself
+                    idx, inside = self._inside(block, lo, hi)
+                    self._refuse_text_fields(f"read_results {measurement}", block, inside, fields, measurement,
+                                             tags, lo, hi)
                     block, idx = block[inside], idx[inside]
                     frames.append(block.drop(columns=drop).set_axis(idx, axis=0))
         if not frames:

@@ -188,6 +188,32 @@ def test_influx2_read_results_over_a_field_with_text_is_fatal_and_names_it(influ
 
 
 @pytest.mark.influx
+def test_influx2_text_at_the_window_end_belongs_to_the_next_window(influxdb_v2):
+    # influxd 1.8.10's storage reader returns a point at the stop time itself; the store keeps
+    # [start, end) only. Before, the text check ran first and refused [T_A + 1 min, T_A + 2 min)
+    # for the text point at T_A + 2 min, outside it. All points lie in shard A.
+    db = influxdb_v2.new_database("type2edge")
+    t1, t2 = T_A + MIN, T_A + 2 * MIN
+    assert line_protocol(influxdb_v2, db, f"plant,unit=U7 T=538.1 {t1.value}",
+                         f'plant,unit=U7 P="BAD2",T=538.2 {t2.value}').status_code == 204
+    assert line_protocol(influxdb_v2, db, f"sections,unit=U7 ip_efficiency=0.9 {t1.value}",
+                         f'sections,unit=U7 hp_efficiency="n/a",ip_efficiency=0.91 {t2.value}').status_code == 204
+    store = influx2(influxdb_v2, db)
+    got = store.read_raw([P, T], t1, t2)
+    assert got.index.tolist() == [t1] and got["throttle_t"].tolist() == [538.1]
+    assert np.isnan(got["throttle_p"]).all()
+    assert store.read_results("sections", t1, t2, {"unit": "U7"})["ip_efficiency"].tolist() == [0.9]
+    # the window that holds it is refused, naming that point
+    with pytest.raises(FatalStoreError) as caught:
+        store.read_raw([P, T], t1, t2 + MIN)
+    assert t2.isoformat() in str(caught.value) and "'BAD2'" in str(caught.value)
+    with pytest.raises(FatalStoreError) as caught:
+        store.read_results("sections", t1, t2 + MIN, {"unit": "U7"})
+    assert "'n/a'" in str(caught.value)  # text that pandas reads as no value unless told not to
+    store.close()
+
+
+@pytest.mark.influx
 def test_influx2_reads_an_integer_field_beside_float_ones(influxdb_v2):
     # Before: group() put long and double values in one column: 500 "schema collision", retried.
     db = influxdb_v2.new_database("type2int")
