@@ -65,7 +65,8 @@ from isentrope.daemon.stores.influx_common import (
     LineProtocolWriter,
     StateClock,
     classify_http,
-    quote_for_message,
+    clear_type_text,
+    influxql_time,
     state_line,
     time_windows,
 )
@@ -229,16 +230,19 @@ class Influx2Store(LineProtocolWriter, Store):
             else:  # a text column without a value: empty strings, which the CSV shows as no value
                 found = "empty strings (which points is not shown: the answer gives them as no value)"
             tag_text = f" ({', '.join(f'{k}={v!r}' for k, v in tags.items())})" if tags else ""
-            listing = f"SELECT {quote_for_message(field)}::{kind} FROM {quote_for_message(measurement)}"
+            where = " AND ".join([f"{escape.influxql_identifier(k, 'tag key')} = {escape.influxql_string(v)}"
+                                  for k, v in tags.items()] + [f"time >= {influxql_time(lo)}", f"time < {influxql_time(hi)}"])
+            listing = (f"SELECT {escape.influxql_identifier(field, 'field')}::{kind} FROM "
+                       f"{escape.influxql_identifier(measurement, 'measurement')} WHERE {where}")
             raise FatalStoreError(
                 f"{what} ({self.url}, bucket {self.bucket!r}): field {field!r} of measurement {measurement!r}"
                 f"{tag_text} holds {kind} values, not numbers, in [{lo.isoformat()}, {hi.isoformat()}): "
-                f"{found}. Nothing was read: "
-                "influxd 1.8's Flux reader stops reading a field where its type changes from one shard (block of "
-                "time) to the next, so numbers stored after those points would be missed without notice. Delete "
-                f"or rewrite those points ({listing} lists them; InfluxQL DELETE FROM ... WHERE time >= ... AND "
-                "time < ... removes whole points: export their other fields first), or read this database with "
-                'kind = "influx1", which reads the numbers and leaves the text out as missing samples'
+                f"{found}. Nothing was read: on influxd 1.8 (measured on 1.8.10) the Flux reader stops reading a "
+                "field where its type changes from one shard (block of time) to the next, for every series of the "
+                "measurement, so numbers stored after those points would be missed without notice (InfluxDB 2.x "
+                'was not tried). Read this database with kind = "influx1", which reads the numbers and leaves the '
+                f"text out as missing samples, or clear the text: `{listing}` lists these points. "
+                + clear_type_text(measurement, field, kind, "each of them")
             )
 
     def _filter(self, measurement: str, fields: Sequence[str] | None, tags: Mapping[str, str]) -> str:

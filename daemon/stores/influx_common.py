@@ -51,13 +51,19 @@ def classify_http(status: int, body: str, what: str) -> Exception:
     """TemporaryStoreError for 408/429/5xx, FatalStoreError for the rest (401, 403, 404, 400...).
 
     A 5xx that names a missing target, and a field type conflict or a Flux schema collision
-    (whatever the status), are fatal: no retry changes them. The whole answer is classified;
-    only its first ``_SHOWN_BODY`` characters go into the message.
+    (whatever the status), are fatal: no retry changes them. A write's type conflict is a
+    ``FieldTypeConflictError``. The whole answer is classified; only its first
+    ``_SHOWN_BODY`` characters go into the message.
     """
     full = (body or "").strip().replace("\n", " ")
     shown = full if len(full) <= _SHOWN_BODY else full[:_SHOWN_BODY] + "..."
     lower = full.lower()
     if any(s in lower for s in _TYPE_CONFLICT_BODY):
+        m = _WRITE_CONFLICT.search(full)
+        if m:
+            return FieldTypeConflictError(what, status, shown, m["field"], m["measurement"], m["held"], m["given"],
+                                          partial="partial write" in lower,
+                                          dropped=_dropped(full))
         return FatalStoreError(f"{what}: HTTP {status}: {type_conflict_text(full)} (server: {shown})")
     msg = f"{what}: HTTP {status}: {shown}"
     if status in _TEMPORARY_STATUS or status >= 500:
@@ -67,30 +73,143 @@ def classify_http(status: int, body: str, what: str) -> Exception:
     return FatalStoreError(msg)
 
 
+def _dropped(body: str) -> int | None:
+    m = re.search(r"dropped=(\d+)", body)
+    return int(m.group(1)) if m else None
+
+
+def _time_text(t: pd.Timestamp) -> str:
+    """RFC 3339 UTC with a Z, nanoseconds only where there are any: how InfluxQL takes a time."""
+    t = pd.Timestamp(t).tz_convert("UTC")
+    frac = f".{t.value % 1_000_000_000:09d}".rstrip("0").rstrip(".")
+    return t.strftime("%Y-%m-%dT%H:%M:%S") + frac + "Z"
+
+
+def influxql_time(t: pd.Timestamp) -> str:
+    """An InfluxQL time literal for a message: ``'2026-03-02T00:00:00Z'``."""
+    return escape.influxql_string(_time_text(t))
+
+
+def clear_type_text(measurement: str | None, field: str | None, held: str, at: str) -> str:
+    """How to clear a field's type from the shards (blocks of time) holding ``at``, losing nothing.
+
+    Measured on the test servers (tests/daemon/stores/test_type_conflicts.py): a block keeps a
+    field's type while it holds any point of the measurement, in any series, so deleting the
+    text points alone (or one series) does not clear it, and on influxd 1.8.10 Flux then
+    misses the numbers after that block without an error. influxd 1.8.10 forgets the type once
+    every point of the measurement in the block is deleted; 1.6.7 keeps it even then, and only
+    DROP SHARD (every measurement of the block) clears it. 1.8.10 has no /api/v2/delete (404).
+    The InfluxDB 2.x command is from memory.
+    """
+    m = _identifier(measurement) if measurement else '"<measurement>"'
+    f = _identifier(field) if field else '"<field>"'
+    window = "time >= '<start_time>' AND time < '<end_time>'"
+    name = m if not measurement else _quoted(escape.lp_string_value, measurement)
+    return (f"A block keeps a field's type while it holds any point of the measurement, in any series, so "
+            f"deleting only the text points (or one series) does not clear it. To clear it and lose nothing: "
+            f"`SHOW SHARDS` gives the block [start_time, end_time) holding {at}; "
+            f"`SELECT {f}::{held} FROM {m} WHERE {window} GROUP BY *` lists its {held} points and their series; "
+            f"export every point of the measurement in the block, all series and fields "
+            f"(`SELECT * FROM {m} WHERE {window} GROUP BY *`), then delete exactly those: on influxd 1.8 "
+            f"`DELETE FROM {m} WHERE {window}` (InfluxQL through /query; 1.8 has no /api/v2/delete); on "
+            f"influxd 1.6 that leaves the type, and only `DROP SHARD <id>` clears it (it removes every "
+            f"measurement of the block: export `SELECT * FROM /.*/ WHERE {window} GROUP BY *` first); on "
+            f"InfluxDB 2.x `influx delete --bucket <bucket> --start <start_time> --stop <end_time> "
+            f"--predicate '_measurement={name}'` or POST /api/v2/delete (from memory). Then write the export "
+            f"back with numbers, or nothing, where the text was")
+
+
 def type_conflict_text(body: str) -> str:
     """What a type-conflict answer means and how to clear it, naming field and measurement when
-    the server does. The cure was measured on 1.8.10: a shard forgets a field's type once it
-    holds no point of that measurement any more, and then takes the other type."""
+    the server does (``FieldTypeConflictError`` for a write the server refused)."""
     m = _WRITE_CONFLICT.search(body)
     if m:
-        field, measurement, held, given = m["field"], m["measurement"], m["held"], m["given"]
-        written = " (the server wrote the other points of the batch)" if "partial write" in body.lower() else ""
-        listing = f"SELECT {quote_for_message(field)}::{held} FROM {quote_for_message(measurement)}"
-        return (f"field {field!r} of measurement {measurement!r} already holds {held} values in the shard (block "
-                f"of time) these {given} points belong to, so the server refused them{written}; no retry changes "
-                f"that. Find those times with {listing}, delete those points (InfluxQL DELETE FROM ... WHERE "
-                "time >= ... AND time < ... removes whole points: export their other fields first), then write again")
+        return FieldTypeConflictError("", 0, body, m["field"], m["measurement"], m["held"], m["given"],
+                                      partial="partial write" in body.lower()).explanation()
     m = _READ_CONFLICT.search(body)
     types = f"{m['a']} and {m['b']}" if m else "two types of"
     return (f"the values read here are {types} values: a field holds text where numbers belong, or one field has "
             "two types in different shards (blocks of time); no retry changes that. SHOW FIELD KEYS FROM "
-            "<measurement> lists each field's types; delete or rewrite the points of the wrong type (InfluxQL DELETE "
-            "FROM ... WHERE time >= ... AND time < ... removes whole points: export their other fields first)")
+            '"<measurement>" lists each field\'s types. '
+            + clear_type_text(None, None, "<type>", "the points of the wrong type"))
 
 
-def quote_for_message(name: str) -> str:
-    """An InfluxQL identifier for a message (names taken from a server answer; never raises)."""
-    return '"' + name.replace("\\", "\\\\").replace('"', '\\"') + '"'
+class FieldTypeConflictError(FatalStoreError):
+    """A write refused because the field holds another type in the shard of its points.
+
+    ``refused``: (series key, first time, last time, count) of the batch's lines that carry the
+    field, filled in by ``keep_unwritten`` when the store knows the batch; the message then
+    names them and the times to look up.
+    """
+
+    def __init__(self, what: str, status: int, shown: str, field: str, measurement: str, held: str, given: str,
+                 partial: bool = False, dropped: int | None = None):
+        self.what, self.status, self.shown = what, status, shown
+        self.field, self.measurement, self.held, self.given = field, measurement, held, given
+        self.partial, self.dropped = partial, dropped
+        self.refused: list[tuple[str, pd.Timestamp, pd.Timestamp, int]] = []
+        super().__init__(self._message())
+
+    def explanation(self) -> str:
+        n = self.dropped
+        dropped = f"{n} point{'s' if n != 1 else ''} dropped" if n is not None else "dropped"
+        written = "; the server wrote the other points of the batch" if self.partial else ""
+        text = (f"field {self.field!r} of measurement {self.measurement!r} already holds {self.held} values in the "
+                f"shard (block of time) these {self.given} points belong to, so the server refused them ({dropped} "
+                f"whole, other fields included{written}); no retry changes that.")
+        if self.refused:
+            parts = [f"{key}: {n} point{'s' if n != 1 else ''} " + _time_text(first)
+                     + (f" to {_time_text(last)}" if last != first else "") for key, first, last, n in self.refused]
+            text += f" The batch's points with that field: {'; '.join(parts)}."
+            at = "each of those times"
+        else:
+            at = "the times of these points"
+        return f"{text} {clear_type_text(self.measurement, self.field, self.held, at)}, and these points again"
+
+    def _message(self) -> str:
+        return f"{self.what}: HTTP {self.status}: {self.explanation()} (server: {self.shown})"
+
+    def note_batch(self, lines: Sequence[str]) -> None:
+        """Name the series and times of the batch's lines that carry the field (the refused ones
+        are among them: the server says how many, not which)."""
+        try:
+            prefix = escape.lp_measurement(self.measurement)
+            key = escape.lp_field_key(self.field) + "="
+        except ValueError:
+            return
+        found: dict[str, list[int]] = {}
+        for line in lines:
+            series, _, rest = _split_unescaped_space(line)
+            if series.split(",", 1)[0] != prefix and not series.startswith(prefix + ","):
+                continue
+            fields, _, stamp = rest.rpartition(" ")
+            if not (fields.startswith(key) or ("," + key) in fields) or not stamp.isdigit():
+                continue
+            found.setdefault(series, []).append(int(stamp))
+        self.refused = [(series, pd.Timestamp(min(t), tz="UTC"), pd.Timestamp(max(t), tz="UTC"), len(t))
+                        for series, t in found.items()]
+        self.args = (self._message(),)
+
+
+def _split_unescaped_space(line: str) -> tuple[str, str, str]:
+    """(series key, " ", rest) at the first space not escaped by a backslash."""
+    m = re.search(r"(?<!\\) ", line)
+    if not m:
+        return line, "", ""
+    return line[: m.start()], " ", line[m.end():]
+
+
+def _quoted(quote, name: str) -> str:
+    """``quote(name)`` (an ``escape`` helper), or the name in plain double quotes where the helper
+    refuses it: messages quote names taken from a server answer too, and must not raise."""
+    try:
+        return quote(name)
+    except ValueError:
+        return '"' + name.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def _identifier(name: str) -> str:
+    return _quoted(escape.influxql_identifier, name)
 
 
 def keep_unwritten(store, err: Exception, lines: list[str]) -> None:
@@ -98,10 +217,13 @@ def keep_unwritten(store, err: Exception, lines: list[str]) -> None:
 
     A temporary failure also keeps them in ``store.pending``, sent first by the next write, so
     nothing is lost while the server is away. A fatal one does not (the same lines would fail
-    again and block every later write); the caller gets them on the exception.
+    again and block every later write); the caller gets them on the exception. A type conflict
+    names the series and times of the failed batch (its first ``store.batch_size`` lines).
     """
     err.unwritten = list(lines)
     store.pending = list(lines) if isinstance(err, TemporaryStoreError) else []
+    if isinstance(err, FieldTypeConflictError):
+        err.note_batch(lines[: getattr(store, "batch_size", len(lines))])
 
 
 class LineProtocolWriter:

@@ -22,6 +22,7 @@ Influx2Store refuses a read that would silently miss numbers. Values are invente
 
 from __future__ import annotations
 
+import re
 import sys
 from pathlib import Path
 
@@ -33,7 +34,7 @@ import requests
 from isentrope.calc.quality import Reason, screen
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import FatalStoreError, TemporaryStoreError, escape, open_store
-from isentrope.daemon.stores.influx_common import classify_http
+from isentrope.daemon.stores.influx_common import FieldTypeConflictError, classify_http, keep_unwritten
 
 #: A Monday: the first point of shard A (2026-03-02 to 03-09 UTC).
 T_A = pd.Timestamp("2026-03-02T00:00:00Z")
@@ -94,6 +95,53 @@ def test_a_write_conflict_names_field_measurement_and_types():
     err = classify_http(400, WRITE_CONFLICT, "write_raw")
     assert "field 'P' of measurement 'plant' already holds string values" in str(err)
     assert 'SELECT "P"::string FROM "plant"' in str(err)  # where to find the points to delete
+
+
+def statements(err: Exception) -> list[str]:
+    """The statements a message suggests, in the order given (written between backticks)."""
+    return re.findall(r"`([^`]+)`", str(err))
+
+
+def test_a_write_conflict_names_the_batch_and_a_delete_that_its_export_covers():
+    # The cure measured below on the servers: the block must hold no point of the measurement
+    # (any series), so the delete has no tag condition on purpose, and the export before it
+    # selects exactly what it deletes. Before, the message gave a bare "DELETE FROM ... WHERE
+    # time >= ... AND time < ..." and no export of the other series.
+    err = classify_http(400, WRITE_CONFLICT, "write_raw")
+    assert isinstance(err, FieldTypeConflictError)
+    lines = [f"plant,unit=U7 P=16.4,T=538.9 {(T_A + 2 * MIN).value}", f"plant,unit=U7 T=538.0 {(T_A + 3 * MIN).value}",
+             f"plant,unit=U8 P=15.0 {(T_A + 4 * MIN).value}", f"other,unit=U7 P=1.0 {T_A.value}",
+             f"plant,unit=U7 P=16.5 {(T_A + 5 * MIN).value}"]
+
+    class Store:
+        batch_size, pending = 4, []
+
+    keep_unwritten(Store, err, lines)
+    text = str(err)
+    # the failed batch is its first batch_size lines; only those of "plant" with field P
+    assert ("plant,unit=U7: 1 point 2026-03-02T00:02:00Z; plant,unit=U8: 1 point 2026-03-02T00:04:00Z." in text)
+    assert "1 point dropped whole" in text and "in any series" in text
+    window = "WHERE time >= '<start_time>' AND time < '<end_time>'"
+    assert statements(err) == [
+        "SHOW SHARDS",
+        f'SELECT "P"::string FROM "plant" {window} GROUP BY *',
+        f'SELECT * FROM "plant" {window} GROUP BY *',
+        f'DELETE FROM "plant" {window}',
+        "DROP SHARD <id>",
+        f"SELECT * FROM /.*/ {window} GROUP BY *",
+        "influx delete --bucket <bucket> --start <start_time> --stop <end_time> --predicate '_measurement=\"plant\"'",
+    ]
+    assert "on influxd 1.8 `DELETE" in text and "on influxd 1.6 that leaves the type" in text
+    assert "POST /api/v2/delete (from memory)" in text and "1.8 has no /api/v2/delete" in text
+    assert err.unwritten == lines and Store.pending == []
+
+
+def test_names_in_the_suggested_statements_are_quoted():
+    # a measurement name with a space, as a plant configuration may have (escape.influxql_identifier)
+    err = classify_http(400, WRITE_CONFLICT.replace("plant", "plant hall"), "write_raw")
+    assert 'SELECT "P"::string FROM "plant hall" WHERE' in str(err)
+    assert 'DELETE FROM "plant hall" WHERE' in str(err)
+    assert "--predicate '_measurement=\"plant hall\"'" in str(err)
 
 
 def test_a_conflict_named_late_in_a_long_answer_is_still_recognised():
@@ -223,22 +271,133 @@ def test_influx2_reads_an_integer_field_beside_float_ones(influxdb_v2):
     assert got["throttle_p"].tolist() == [17.0, 16.0] and got["throttle_t"].tolist() == [538.0, 538.5]
 
 
+def block_of(server, db: str, t: pd.Timestamp) -> tuple[int, str, str]:
+    """(id, start_time, end_time) of the shard of ``db`` holding ``t``, from SHOW SHARDS."""
+    for series in server.query("SHOW SHARDS")["results"][0]["series"]:
+        for row in series.get("values", []):  # a database without shards has none
+            shard = dict(zip(series["columns"], row))
+            if shard["database"] == db and pd.Timestamp(shard["start_time"]) <= t < pd.Timestamp(shard["end_time"]):
+                return shard["id"], shard["start_time"], shard["end_time"]
+    raise AssertionError(f"no shard of {db} holds {t}")
+
+
+def filled(statement: str, block: tuple[int, str, str]) -> str:
+    shard_id, start, end = block
+    return (statement.replace("<start_time>", start).replace("<end_time>", end)
+            .replace("<id>", str(shard_id)))
+
+
+def export_back(server, db: str, answer: dict) -> int:
+    """Write an exported ``SELECT * ... GROUP BY *`` answer back as line protocol, numbers only
+    (the text left out, as the message says); returns the number of points written."""
+    lines = []
+    for series in answer["results"][0].get("series", []):
+        for row in series["values"]:
+            point = dict(zip(series["columns"], row))
+            t = point.pop("time")
+            fields = ",".join(f"{escape.lp_field_key(k)}={escape.lp_float(v)}" for k, v in sorted(point.items())
+                              if isinstance(v, (int, float)) and not isinstance(v, bool) and k not in series["tags"])
+            if fields:
+                lines.append(f"{escape.lp_series_key(series['name'], series['tags'])} {fields} {t}")
+    if lines:
+        assert line_protocol(server, db, *lines).status_code == 204
+    return len(lines)
+
+
+def every_value(server, db: str) -> set:
+    """(measurement, tags, time, field, value) of every value stored in ``db``."""
+    answer = server.query("SELECT * FROM /.*/ GROUP BY *", db)["results"][0].get("series", [])
+    return {(s["name"], tuple(sorted(s["tags"].items())), row[0], field, value)
+            for s in answer for row in s["values"] for field, value in zip(s["columns"][1:], row[1:])
+            if value is not None}
+
+
 @pytest.mark.influx
-def test_deleting_the_text_points_as_the_message_says_clears_the_read_and_the_write(influxdb_v2):
+@pytest.mark.parametrize("version", ["1.6", "1.8"])
+def test_deleting_only_the_text_points_does_not_clear_the_type(version, request):
+    """What the messages rest on: a block keeps the field's type while any point of the
+    measurement is left in it, so a delete by tag and time of the text points alone (what a
+    message naming the series would suggest) does not cure, and on 1.8.10 Flux then misses the
+    numbers of the later block without an error. 1.8.10 forgets the type once the block holds
+    no point of the measurement; 1.6.7 only when the shard is dropped."""
+    server = request.getfixturevalue("influxdb_v1" if version == "1.6" else "influxdb_v2")
+    db = server.new_database("typedel")
+    write_text_then_numbers(server, db)
+    float_p = f"plant,unit=U7 P=16.4 {(T_A + 2 * MIN).value}"
+    server.query(f"DELETE FROM \"plant\" WHERE \"unit\" = 'U7' AND time = {T_A.value}", db)
+    assert server.query('SELECT "P"::string FROM "plant"', db)["results"][0].get("series") is None  # gone
+    assert line_protocol(server, db, float_p).status_code == 400  # T_A + 1 min keeps the type
+    if version == "1.8":
+        got = influx2(server, db).read_raw([P, T], T_A, END)  # no error now, and no 16.6, 16.7
+        assert got["throttle_t"].tolist() == [538.1, 538.2, 538.3] and np.isnan(got["throttle_p"]).all()
+    shard_id, start, end = block_of(server, db, T_A)
+    server.query(f"DELETE FROM \"plant\" WHERE time >= '{start}' AND time < '{end}'", db)
+    if version == "1.8":
+        assert line_protocol(server, db, float_p).status_code == 204
+    else:
+        assert line_protocol(server, db, float_p).status_code == 400  # 1.6.7 keeps it even now
+        server.query(f"DROP SHARD {shard_id}")
+        assert line_protocol(server, db, float_p).status_code == 204
+
+
+@pytest.mark.influx
+@pytest.mark.parametrize("kind", ["influx2-1.8", "influx1-1.6", "influx1-1.8"])
+def test_following_the_write_message_clears_the_conflict_and_loses_nothing(kind, request):
+    # Before, the message's "DELETE FROM ... WHERE time >= ... AND time < ..." also deleted
+    # unit U8's points of the block, with no word of exporting them.
+    server = request.getfixturevalue("influxdb_v1" if kind.endswith("1.6") else "influxdb_v2")
+    db = server.new_database("typecure")
+    write_text_then_numbers(server, db)
+    assert line_protocol(server, db, f"plant,unit=U8 T=500.0 {(T_A + 5 * MIN).value}",
+                         f"sections,unit=U8 hp_efficiency=0.84 {(T_A + 5 * MIN).value}").status_code == 204
+    before = every_value(server, db)
+    store = influx2(server, db) if kind.startswith("influx2") else influx1(server, db)
+    frame = pd.DataFrame({"throttle_p": [16.4], "throttle_t": [538.9]}, index=pd.DatetimeIndex([T_A + 2 * MIN]))
+    with pytest.raises(FatalStoreError) as caught:
+        store.write_raw([P, T], frame)
+    assert "plant,unit=U7: 1 point 2026-03-02T00:02:00Z." in str(caught.value)
+    show, listing, export, delete, drop, export_all, _ = statements(caught.value)
+    block = block_of(server, db, T_A + 2 * MIN)
+    assert show == "SHOW SHARDS"
+    found = server.query(filled(listing, block), db)["results"][0]["series"]
+    assert [(s["tags"], s["values"]) for s in found] == [({"unit": "U7"}, [[T_A.value, "BAD"]])]
+    if kind.endswith("1.8"):
+        exported = server.query(filled(export, block), db)
+        server.query(filled(delete, block), db)
+    else:  # 1.6.7: the DELETE leaves the type; the shard goes, with every measurement in it
+        exported = server.query(filled(export_all, block), db)
+        server.query(filled(drop, block))
+    assert export_back(server, db, exported) == 3 + (0 if kind.endswith("1.8") else 1)
+    store.write_raw([P, T], frame)  # these points again
+    u7 = (("unit", "U7"),)
+    written = {("plant", u7, (T_A + 2 * MIN).value, "P", 16.4), ("plant", u7, (T_A + 2 * MIN).value, "T", 538.9)}
+    assert every_value(server, db) == before - {("plant", u7, T_A.value, "P", "BAD")} | written  # only the text lost
+    store.close()
+
+
+@pytest.mark.influx
+def test_following_the_read_message_clears_the_read(influxdb_v2):
     db = influxdb_v2.new_database("type2cure")
     write_text_then_numbers(influxdb_v2, db)
+    assert line_protocol(influxdb_v2, db, f"plant,unit=U8 T=500.0 {(T_A + 5 * MIN).value}").status_code == 204
     store = influx2(influxdb_v2, db)
-    with pytest.raises(FatalStoreError):
+    with pytest.raises(FatalStoreError) as caught:
         store.read_raw([P, T], T_A, END)
-    # the message's recipe: find the points, export their other fields, delete, write back
-    found = influxdb_v2.query('SELECT "P"::string FROM "plant"', db)["results"][0]["series"][0]["values"]
-    assert [t for t, _ in found] == [T_A.value]
-    kept = store.read_raw([T], T_A, T_B)  # the other field of those times
-    influxdb_v2.query(f"DELETE FROM \"plant\" WHERE time >= {T_A.value} AND time < {T_B.value - 1}", db)
-    store.write_raw([T], kept)
+    listing, show, _, export, delete, *_ = statements(caught.value)
+    # the points named, with the series' tags and the read's window
+    assert listing == ('SELECT "P"::string FROM "plant" WHERE "unit" = \'U7\' AND time >= \'2026-03-02T00:00:00Z\' '
+                       "AND time < '2026-03-30T07:00:00Z'")
+    assert influxdb_v2.query(listing, db)["results"][0]["series"][0]["values"] == [[T_A.value, "BAD"]]
+    assert "on influxd 1.8 (measured on 1.8.10) the Flux reader" in str(caught.value)
+    block = block_of(influxdb_v2, db, T_A)
+    exported = influxdb_v2.query(filled(export, block), db)
+    influxdb_v2.query(filled(delete, block), db)
+    assert export_back(influxdb_v2, db, exported) == 3  # U7 at T_A and T_A + 1 min, U8
     got = store.read_raw([P, T], T_A, END)
     assert got["throttle_t"].tolist() == [538.0, 538.1, 538.2, 538.3]  # nothing but the text lost
     assert np.isnan(got["throttle_p"].iloc[:2]).all() and got["throttle_p"].iloc[2:].tolist() == [16.6, 16.7]
+    u8 = RoleMapping(role="throttle_t", tag="T", unit="degC", measurement="plant", tags={"unit": "U8"})
+    assert store.read_raw([u8], T_A, END)["throttle_t"].tolist() == [500.0]
     # and shard A takes numbers for P again
     store.write_raw([P], pd.DataFrame({"throttle_p": [16.5]}, index=pd.DatetimeIndex([T_A], name="time")))
     assert store.read_raw([P], T_A, T_A + MIN)["throttle_p"].tolist() == [16.5]
