@@ -10,8 +10,12 @@ values look like kPa). "Flat" is the worker's own flatline test (``calc.quality.
 on the readings in internal units): readings spanning no more than max(the role's absolute
 tolerance ``calc.quality.FLATLINE_TOLERANCE``, ``screening.flatline_tolerance`` times the
 reading); roles without a flatline test there (valve position, barometric pressure) are not
-judged flat here either. ``--config-only`` validates without connecting. Exit 0 when every
-tag is fine, 1 on any problem, 2 for an invalid file, 3 when the store cannot be reached.
+judged flat here either. A role the store refuses to read (``FatalStoreError``, such as a
+field holding text on the v2 API) gets the error as its verdict, printed in full below the table,
+and the other roles are still judged; an error that every role gets alike (credentials, a
+missing database) ends the command as before. ``--config-only`` validates without connecting.
+Exit 0 when every tag is fine, 1 on any problem, 2 for an invalid file, 3 when the store cannot
+be reached.
 """
 
 from __future__ import annotations
@@ -24,6 +28,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.daemon.config import Config, load_config, parse_duration
+from isentrope.daemon.stores.base import FatalStoreError
 
 NAME = "check"
 HELP = "validate a configuration, connect to its store and check every mapped tag's recent data"
@@ -125,8 +130,36 @@ def _other_units(role: str, declared: str, median: float, plausible: tuple[float
     return [name for _, name in sorted(fits)[:2]]
 
 
-def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
-    """One row per mapped role: what was found and a verdict (``ok`` True/False)."""
+def read_roles(store, mappings, start: pd.Timestamp, end: pd.Timestamp) -> tuple[pd.DataFrame, dict[str, str]]:
+    """Raw samples of ``mappings`` in [start, end) and the store errors of the roles it refused.
+
+    One read of all roles first; when the store refuses it (``FatalStoreError``), each role is
+    read on its own, so one bad field spoils only its own role. When every role is refused
+    with the same message the problem is the store's, not a role's, and that error is raised.
+    """
+    try:
+        return store.read_raw(list(mappings), start, end), {}
+    except FatalStoreError:
+        pass
+    frames, errors, first = [], {}, None
+    for m in mappings:
+        try:
+            frames.append(store.read_raw([m], start, end))
+        except FatalStoreError as exc:
+            errors[m.role] = str(exc)
+            first = first or exc
+    if len(errors) == len(mappings) and len(set(errors.values())) == 1:
+        raise first
+    raw = pd.concat(frames, axis=1, sort=True) if frames else pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC"))
+    return raw, errors
+
+
+def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp, errors: dict[str, str] | None = None) -> list[dict]:
+    """One row per mapped role: what was found and a verdict (``ok`` True/False).
+
+    ``errors``: role -> the store's error for a role it refused to read (``read_roles``); the
+    row's verdict says so and ``row["error"]`` holds the message.
+    """
     from isentrope.calc import units
     from isentrope.daemon.roles import ROLES
 
@@ -146,7 +179,10 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp) -> list[dict]:
                "min": float(valid.min()) if len(valid) else float("nan"),
                "max": float(valid.max()) if len(valid) else float("nan")}
         problems, notes = [], []
-        if not len(valid):
+        if errors and m.role in errors:
+            row["error"] = errors[m.role]
+            problems.append("the store refused to read it (error below)")
+        elif not len(valid):
             problems.append("no data")
         else:
             if end - row["last"] > stale_after:
@@ -276,11 +312,14 @@ def run(args: argparse.Namespace) -> int:
     end = _end_time(args.end)
     start = end - pd.Timedelta(since)
     with config.store.open(create=False) as store:
-        raw = store.read_raw(list(config.mappings), start, end)
-    rows = judge(config, raw, end)
+        raw, errors = read_roles(store, config.mappings, start, end)
+    rows = judge(config, raw, end, errors)
     print(f"{config.unit.name}: {config.store.kind} store, {len(rows)} mapped roles, "
           f"{start.isoformat()} to {end.isoformat()}")
     print(format_table(rows))
+    for r in rows:
+        if "error" in r:
+            print(f"{r['role']} ({r['tag']}): store error: {r['error']}")
     bad = [r for r in rows if not r["ok"]]
     if bad:
         print(f"{len(bad)} of {len(rows)} roles have problems.", file=sys.stderr)

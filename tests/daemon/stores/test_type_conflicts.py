@@ -504,3 +504,68 @@ def test_every_test_here_that_starts_a_server_is_marked_influx():
     unmarked = [name for name in needing
                 if "influx" not in {m.name for m in getattr(globals()[name], "pytestmark", [])}]
     assert unmarked == []
+
+
+# --- isentrope check: a refused role is that role's verdict, the others are still judged --------
+
+def test_check_reads_role_by_role_when_the_store_refuses_one():
+    from isentrope.daemon.commands import check
+
+    class Store:  # refuses every read that includes throttle_p, as Influx2Store does for text
+        def __init__(self, message=None):
+            self.message, self.calls = message, []
+
+        def read_raw(self, mappings, start, end):
+            self.calls.append([m.role for m in mappings])
+            if self.message or any(m.role == "throttle_p" for m in mappings):
+                raise FatalStoreError(self.message or "field 'P' holds string values")
+            index = pd.DatetimeIndex([T_A], name="time")
+            return pd.DataFrame({m.role: [1.0] for m in mappings}, index=index)
+
+    store = Store()
+    raw, errors = check.read_roles(store, [P, T], T_A, END)
+    assert errors == {"throttle_p": "field 'P' holds string values"}
+    assert raw["throttle_t"].tolist() == [1.0] and "throttle_p" not in raw
+    assert store.calls == [["throttle_p", "throttle_t"], ["throttle_p"], ["throttle_t"]]
+    # the same refusal for every role is the store's problem: raised, as before
+    with pytest.raises(FatalStoreError, match="401"):
+        check.read_roles(Store("HTTP 401: unauthorized"), [P, T], T_A, END)
+
+
+@pytest.mark.influx
+def test_check_shows_a_text_field_as_its_roles_verdict(influxdb_v2, tmp_path, capsys, monkeypatch):
+    # Before: "error: read_raw ...", exit 1, and no table at all.
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/daemon: worker_support
+    import worker_support as ws
+
+    from isentrope.daemon import cli
+    from isentrope.daemon.config import load_config
+
+    db = influxdb_v2.new_database("typecheck")
+    table = ws.store_toml("influx2", url=influxdb_v2.url, org="isentrope", bucket=influxdb_v2.bucket(db),
+                          token="${ISENTROPE_TEST_TOKEN}", timeout="30s")
+    monkeypatch.setenv("ISENTROPE_TEST_TOKEN", "u:p")
+    path = ws.write_config(tmp_path / "unit.toml", table)
+    config = load_config(path)
+    store = open_store(config.store.kind, **config.store.open_options())
+    m = next(m for m in config.mappings if m.role == "throttle_p")
+    bad = ws.START - pd.Timedelta("1h")  # the shard before the history's
+    lp = (f"{escape.lp_series_key(m.measurement, m.tags)} "
+          f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}")
+    assert line_protocol(influxdb_v2, db, lp).status_code == 204
+    store.write_raw(config.mappings, ws.plant_history(0.25, freq="5min"))
+    store.close()
+    end = ws.START + pd.Timedelta("6h")
+    rc = cli.main(["check", "-c", str(path), "--end", end.isoformat(), "--since", "8h"])
+    captured = capsys.readouterr()
+    assert rc == 1 and "error:" not in captured.err, captured.err
+    tags = {mm.role: mm.tag for mm in config.mappings}
+    rows = {line.split()[0]: line for line in captured.out.splitlines()
+            if len(line.split()) > 1 and tags.get(line.split()[0]) == line.split()[1]}
+    assert set(rows) == {mm.role for mm in config.mappings}  # the whole table
+    assert rows["throttle_p"].endswith("PROBLEM: the store refused to read it (error below)")
+    assert " 0 " in rows["throttle_p"]
+    assert not any("refused" in line for role, line in rows.items() if role != "throttle_p")
+    assert rows["throttle_t"].split()[3] == "72"  # 6 h at 5 min: still read and judged
+    detail = next(line for line in captured.out.splitlines() if line.startswith(f"throttle_p ({m.tag}): store error:"))
+    assert "holds string values" in detail and "'I/O BAD'" in detail and 'kind = "influx1"' in detail
