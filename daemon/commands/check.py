@@ -75,11 +75,12 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def _end_time(text: str | None) -> pd.Timestamp:
     if text is None:
         return pd.Timestamp.now(tz="UTC")
+    from isentrope.daemon.commands import parse_time  # ISO 8601 only, as every command
+
     try:
-        ts = pd.Timestamp(text)
-    except ValueError:
-        raise ValueError(f"--end: expected an ISO 8601 time such as 2026-03-01T12:00Z, found {text!r}") from None
-    return ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
+        return parse_time(text)
+    except ValueError as exc:
+        raise ValueError(f"--end: {exc}") from None
 
 
 def _barometric_kpa(config: Config, raw: pd.DataFrame) -> float:

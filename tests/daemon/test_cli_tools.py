@@ -207,6 +207,10 @@ def test_check_bad_since(tmp_path, capsys):
     path = write_config(tmp_path)
     assert cli.main(["check", "-c", str(path), "--since", "yesterday"]) == 1
     assert capsys.readouterr().err.startswith("isentrope: error: --since: expected a duration")
+    # --end is ISO 8601 only, like every command's times
+    assert cli.main(["check", "-c", str(path), "--end", "05/02/2025"]) == 1
+    err = capsys.readouterr().err
+    assert "--end:" in err and "2025-02-05 (5 February)" in err
 
 
 # --- import-csv --------------------------------------------------------------------------
