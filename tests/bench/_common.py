@@ -10,6 +10,7 @@ import os
 import resource
 import subprocess
 import sys
+import threading
 import time
 from collections import defaultdict
 from pathlib import Path
@@ -85,16 +86,21 @@ class StoreTimer:
     def __init__(self, store):
         self.store = store
         self.seconds: dict[str, float] = defaultdict(float)
+        self._depth = threading.local()  # only the outermost call of a thread counts
         for name, kind in self.KINDS.items():
             setattr(store, name, self._timed(getattr(store, name), kind))
 
     def _timed(self, fn, kind):
         def call(*a, **k):
+            depth = getattr(self._depth, "n", 0)
+            self._depth.n = depth + 1
             t = time.perf_counter()
             try:
                 return fn(*a, **k)
             finally:
-                self.seconds[kind] += time.perf_counter() - t
+                self._depth.n = depth
+                if depth == 0:
+                    self.seconds[kind] += time.perf_counter() - t
         return call
 
 
