@@ -1188,19 +1188,27 @@ def propagate_uncertainty(func, inputs, u, outputs, steps=None, base=None):
     return {k: np.sqrt(v) for k, v in var.items()}
 
 
-def _pt_derivative(func, p, t, step, which, f0, mask):
-    """d func / d(which) at (p, t) by a central difference of the vectorised property
-    function; one-sided where one perturbed state is not superheated (or invalid), NaN where
-    neither is. ``which`` is "p" or "t"; ``step`` in that variable's unit."""
+def _perturbed_states(p, t, step, which, mask):
+    """The two states of a central difference in ``which`` ("p" or "t") and where each is
+    superheated within ``mask``: (p+, p-, t+, t-, ok+, ok-). A temperature step shares one
+    t_sat(p) between both states."""
     if which == "t":
         pp, pm, tp, tm = p, p, t + step, t - step
-        ts = _saturation_t(p, mask & np.isfinite(p))  # one t_sat(p) for both states
+        ts = _saturation_t(p, mask & np.isfinite(p))
         okp = _superheated(pp, tp, mask & np.isfinite(pp), ts)
         okm = _superheated(pm, tm, mask & np.isfinite(pm), ts)
     else:
         pp, pm, tp, tm = p + step, p - step, t, t
         okp = _superheated(pp, tp, mask & np.isfinite(pp))
         okm = _superheated(pm, tm, mask & np.isfinite(pm))
+    return pp, pm, tp, tm, okp, okm
+
+
+def _pt_derivative(func, p, t, step, which, f0, mask):
+    """d func / d(which) at (p, t) by a central difference of the vectorised property
+    function; one-sided where one perturbed state is not superheated (or invalid), NaN where
+    neither is. ``which`` is "p" or "t"; ``step`` in that variable's unit."""
+    pp, pm, tp, tm, okp, okm = _perturbed_states(p, t, step, which, mask)
     fp = _call(func, okp, pp, tp)
     fm = _call(func, okm, pm, tm)
     okp &= np.isfinite(fp)
@@ -1274,15 +1282,7 @@ def _pt_derivative_hs(p, t, step, which, h0, s0, mask, inlet_states=None):
     synthetic unit, together with the one-pass inlet h and s of the base figures:
     ``evaluate`` 1.75 s -> 1.34 s (energy balance), 1.60 s -> 1.25 s (expansion), results
     identical bit for bit."""
-    if which == "t":
-        pp, pm, tp, tm = p, p, t + step, t - step
-        ts = _saturation_t(p, mask & np.isfinite(p))
-        okp = _superheated(pp, tp, mask & np.isfinite(pp), ts)
-        okm = _superheated(pm, tm, mask & np.isfinite(pm), ts)
-    else:
-        pp, pm, tp, tm = p + step, p - step, t, t
-        okp = _superheated(pp, tp, mask & np.isfinite(pp))
-        okm = _superheated(pm, tm, mask & np.isfinite(pm))
+    pp, pm, tp, tm, okp, okm = _perturbed_states(p, t, step, which, mask)
     if inlet_states is None:
         hp_, sp_ = _call_hs(okp, pp, tp)
         hm_, sm_ = _call_hs(okm, pm, tm)

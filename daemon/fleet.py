@@ -44,18 +44,12 @@ from dataclasses import dataclass, field
 import pandas as pd
 
 from isentrope.daemon.pipeline import HISTORIAN_SECTION, Pipeline, _no_events, absent_row_times, sample_spacing
+from isentrope.daemon.worker import _utc
 
 logger = logging.getLogger("isentrope.fleet")
 
 #: Default partition length: calendar months (pandas offset alias "MS", month starts, UTC).
 DEFAULT_PERIOD = "MS"
-
-
-def _utc(t) -> pd.Timestamp:
-    ts = pd.Timestamp(t)
-    if ts.tzinfo is None:
-        raise ValueError(f"time {t!r} has no time zone; expected a UTC time such as '2025-01-01T00:00Z'")
-    return ts.tz_convert("UTC")
 
 
 @dataclass(frozen=True)

@@ -414,14 +414,16 @@ class Worker:
                         report.stopped = True
                         break
                     if inflight is not None and self._fit_reads_windows(start):
-                        inflight = self._settle(inflight, report, progress)  # the fit reads them
+                        self._settle(inflight, report, progress)  # the fit reads those windows
+                        inflight = None
                     carry = None
                     if inflight is not None:  # its alarm state, as the store will give it back
                         carry = json.loads(json.dumps(inflight[1].alarm_state)) if inflight[1].alarm_state else {}
                     rows_read, rows_flagged, new_checkpoint, batch = self._compute(
                         start, end, data_end, checkpoint, carry)
                     if inflight is not None:
-                        inflight = self._settle(inflight, report, progress)
+                        self._settle(inflight, report, progress)
+                        inflight = None
                     self.pending = batch
                     checkpoint = new_checkpoint
                     if behind:
@@ -512,11 +514,10 @@ class Worker:
 
     def _settle(self, inflight, report: CycleReport, progress: Callable | None) -> None:
         """Wait for the batch being written behind; its error (the batch stays pending) is
-        raised here. Returns None (no batch in flight any more)."""
+        raised here."""
         future, batch, start, end, rows_read, rows_flagged = inflight
         future.result()
         self._account(batch, start, end, rows_read, rows_flagged, report, progress)
-        return None
 
     def _fit_reads_windows(self, chunk_start: pd.Timestamp) -> bool:
         """Whether ``_baselines(chunk_start)`` may read the steady windows just written."""

@@ -108,19 +108,24 @@ def timed_pipeline(config):
     """A ``Pipeline`` whose ``process`` adds its wall time to ``compute["s"]``; returns both."""
     from isentrope.daemon.pipeline import Pipeline
 
-    compute = {"s": 0.0}
     pipeline = Pipeline(config)
-    process = pipeline.process
+    return pipeline, time_method(pipeline, "process")
+
+
+def time_method(obj, name: str) -> dict:
+    """Replace ``obj.name`` by a wrapper that adds its wall time to the returned ``{"s": ...}``."""
+    total = {"s": 0.0}
+    fn = getattr(obj, name)
 
     def timed(*a, **k):
         t = time.perf_counter()
         try:
-            return process(*a, **k)
+            return fn(*a, **k)
         finally:
-            compute["s"] += time.perf_counter() - t
+            total["s"] += time.perf_counter() - t
 
-    pipeline.process = timed
-    return pipeline, compute
+    setattr(obj, name, timed)
+    return total
 
 
 def shares(total: float, parts: dict[str, float]) -> str:

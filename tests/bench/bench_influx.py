@@ -73,17 +73,7 @@ def main(argv=None) -> int:
                                             lookback="0s", settle="0s", chunk=args.chunk, pipeline=pipeline)
                 if args.no_write_behind:
                     store.write_behind = False
-                waited = {"s": 0.0}
-                settle = worker._settle
-
-                def timed_settle(*a, **k):  # the main thread waiting for the writes behind it
-                    t = time.perf_counter()
-                    try:
-                        return settle(*a, **k)
-                    finally:
-                        waited["s"] += time.perf_counter() - t
-
-                worker._settle = timed_settle
+                waited = _common.time_method(worker, "_settle")  # waiting for the writes behind
                 t0 = time.perf_counter()
                 report = worker.run_cycle(until=start + pd.Timedelta(days=args.days))
                 wall = time.perf_counter() - t0
