@@ -26,6 +26,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, fields
+from itertools import pairwise
 
 import numpy as np
 import pandas as pd
@@ -107,13 +108,17 @@ class Rule:
         if not self.name or "|" in self.name:
             raise ValueError(f"rule name must be non-empty without '|'; found {self.name!r}")
         if self.direction not in ("below", "above"):
-            raise ValueError(f"rule {self.name}: direction must be 'below' or 'above'; found {self.direction!r}")
+            raise ValueError(
+                f"rule {self.name}: direction must be 'below' or 'above'; found {self.direction!r}"
+            )
         if not math.isfinite(float(self.threshold)):
             raise ValueError(f"rule {self.name}: threshold must be a finite number; found {self.threshold!r}")
         if self.clear_at is not None:
             c = float(self.clear_at)
-            if not math.isfinite(c) or (self.direction == "below" and c < self.threshold) or (
-                self.direction == "above" and c > self.threshold
+            if (
+                not math.isfinite(c)
+                or (self.direction == "below" and c < self.threshold)
+                or (self.direction == "above" and c > self.threshold)
             ):
                 side = ">=" if self.direction == "below" else "<="
                 raise ValueError(
@@ -142,7 +147,7 @@ class Rule:
         return float(self.threshold if self.clear_at is None else self.clear_at)
 
     @classmethod
-    def from_dict(cls, d: Mapping) -> "Rule":
+    def from_dict(cls, d: Mapping) -> Rule:
         """Build a rule from a configuration mapping; unknown keys are an error."""
         known = {f.name for f in fields(cls)}
         unknown = sorted(set(d) - known)
@@ -175,21 +180,67 @@ def default_rules() -> list[Rule]:
         bad for 30 minutes, cleared by one good sample).
     """
     return [
-        Rule("deviation_warning", QUANTITY_DEVIATION, "below", -1.0, -0.7, 3, 3, steady_only=True,
-             unit="points", label="efficiency deviation warning"),
-        Rule("deviation_alarm", QUANTITY_DEVIATION, "below", -2.0, -1.7, 3, 3, steady_only=True,
-             unit="points", label="efficiency deviation alarm"),
-        Rule("degradation_rate", QUANTITY_RATE, "below", -0.25, -0.20, unit="points/1000 h",
-             label="degradation rate"),
+        Rule(
+            "deviation_warning",
+            QUANTITY_DEVIATION,
+            "below",
+            -1.0,
+            -0.7,
+            3,
+            3,
+            steady_only=True,
+            unit="points",
+            label="efficiency deviation warning",
+        ),
+        Rule(
+            "deviation_alarm",
+            QUANTITY_DEVIATION,
+            "below",
+            -2.0,
+            -1.7,
+            3,
+            3,
+            steady_only=True,
+            unit="points",
+            label="efficiency deviation alarm",
+        ),
+        Rule(
+            "degradation_rate",
+            QUANTITY_RATE,
+            "below",
+            -0.25,
+            -0.20,
+            unit="points/1000 h",
+            label="degradation rate",
+        ),
         Rule("step", QUANTITY_STEP, "below", -0.5, 0.3, unit="points", label="step change"),
-        Rule("exhaust_moisture", QUANTITY_MOISTURE, "above", DEFAULT_MOISTURE_LIMIT, 0.115, 3, 3,
-             sections=("lp",), unit="", label="LP exhaust moisture"),
-        Rule("data_quality", QUANTITY_TAG_BAD, "above", 0.5, 0.5, raise_after_duration="30min",
-             label="tag missing, flatlined or out of range"),
+        Rule(
+            "exhaust_moisture",
+            QUANTITY_MOISTURE,
+            "above",
+            DEFAULT_MOISTURE_LIMIT,
+            0.115,
+            3,
+            3,
+            sections=("lp",),
+            unit="",
+            label="LP exhaust moisture",
+        ),
+        Rule(
+            "data_quality",
+            QUANTITY_TAG_BAD,
+            "above",
+            0.5,
+            0.5,
+            raise_after_duration="30min",
+            label="tag missing, flatlined or out of range",
+        ),
     ]
 
 
-def to_observations(frame: pd.DataFrame, columns: Mapping[str, tuple[str, str]], steady_col: str | None = None) -> pd.DataFrame:
+def to_observations(
+    frame: pd.DataFrame, columns: Mapping[str, tuple[str, str]], steady_col: str | None = None
+) -> pd.DataFrame:
     """Turn a wide result frame into the long observation frame ``evaluate_alarms`` reads.
 
     Parameters
@@ -216,12 +267,14 @@ def to_observations(frame: pd.DataFrame, columns: Mapping[str, tuple[str, str]],
         raise ValueError(f"to_observations: columns {missing} not in {list(frame.columns)}")
     parts = []
     for col, (section, quantity) in columns.items():
-        part = pd.DataFrame({
-            "time": frame.index,
-            "section": section,
-            "quantity": quantity,
-            "value": frame[col].to_numpy(dtype=float),
-        })
+        part = pd.DataFrame(
+            {
+                "time": frame.index,
+                "section": section,
+                "quantity": quantity,
+                "value": frame[col].to_numpy(dtype=float),
+            }
+        )
         if steady_col:
             part["steady"] = frame[steady_col].to_numpy(dtype=bool)
         parts.append(part)
@@ -247,12 +300,14 @@ def step_observations(steps, section: str) -> pd.DataFrame:
         later run never reports it at an earlier time than one already consumed),
         ``section``, ``quantity`` = ``"step_size"``, ``value`` = its size [points].
     """
-    return pd.DataFrame({
-        "time": pd.to_datetime([pd.Timestamp(s.detected_at) for s in steps], utc=True),
-        "section": section,
-        "quantity": QUANTITY_STEP,
-        "value": np.array([float(s.size) for s in steps], dtype=float),
-    })
+    return pd.DataFrame(
+        {
+            "time": pd.to_datetime([pd.Timestamp(s.detected_at) for s in steps], utc=True),
+            "section": section,
+            "quantity": QUANTITY_STEP,
+            "value": np.array([float(s.size) for s in steps], dtype=float),
+        }
+    )
 
 
 def rate_observation(time, section: str, rate) -> pd.DataFrame:
@@ -274,12 +329,14 @@ def rate_observation(time, section: str, rate) -> pd.DataFrame:
         1000 operating hours].
     """
     ok = rate.status == "ok" and math.isfinite(rate.slope_per_1000h)
-    return pd.DataFrame({
-        "time": pd.to_datetime([pd.Timestamp(time)] if ok else [], utc=True),
-        "section": section,
-        "quantity": QUANTITY_RATE,
-        "value": np.array([rate.slope_per_1000h] if ok else [], dtype=float),
-    })
+    return pd.DataFrame(
+        {
+            "time": pd.to_datetime([pd.Timestamp(time)] if ok else [], utc=True),
+            "section": section,
+            "quantity": QUANTITY_RATE,
+            "value": np.array([rate.slope_per_1000h] if ok else [], dtype=float),
+        }
+    )
 
 
 def _iso(ts: pd.Timestamp) -> str:
@@ -313,7 +370,11 @@ def _new_machine() -> dict:
 def _check_state(state: Mapping) -> dict:
     if not state:
         return {"version": STATE_VERSION, "machines": {}}
-    if not isinstance(state, Mapping) or state.get("version") != STATE_VERSION or not isinstance(state.get("machines"), Mapping):
+    if (
+        not isinstance(state, Mapping)
+        or state.get("version") != STATE_VERSION
+        or not isinstance(state.get("machines"), Mapping)
+    ):
         raise ValueError(
             f"alarm state must be a dict with version {STATE_VERSION} and a 'machines' dict "
             f"(or empty); found version {state.get('version') if isinstance(state, Mapping) else state!r}"
@@ -365,8 +426,16 @@ def _stamp(ns: int) -> pd.Timestamp:
     return pd.Timestamp(int(ns), unit="ns", tz="UTC")
 
 
-def _run_machine(m: dict, rule: Rule, r_i: int, section: str, t: np.ndarray, v: np.ndarray,
-                 duration_ns: int | None, records: list) -> None:
+def _run_machine(
+    m: dict,
+    rule: Rule,
+    r_i: int,
+    section: str,
+    t: np.ndarray,
+    v: np.ndarray,
+    duration_ns: int | None,
+    records: list,
+) -> None:
     """Advance one machine ``m`` (in place) over time-ordered observations ``t`` [ns], ``v``.
 
     Exactly the observation-by-observation machine of the module docstring, taken a run at a
@@ -385,7 +454,7 @@ def _run_machine(m: dict, rule: Rule, r_i: int, section: str, t: np.ndarray, v: 
         beyond, cleared = v > rule.threshold, v <= rule.clear_level
     cls = np.where(beyond, 0, np.where(cleared, 1, 2)).astype(np.int8)  # 0 = B, 1 = C, 2 = N
     bounds = np.concatenate(([0], np.flatnonzero(np.diff(cls)) + 1, [len(cls)]))
-    for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+    for a, b in pairwise(bounds.tolist()):
         c = int(cls[a])
         while a < b:
             if m["state"] == NORMAL:
@@ -405,8 +474,17 @@ def _run_machine(m: dict, rule: Rule, r_i: int, section: str, t: np.ndarray, v: 
                 count = m["count"] + (j - a + 1)
                 ts = _stamp(t[j])
                 val = float(v[j])
-                records.append((ts, r_i, section, KIND_RAISED, val, float(rule.threshold),
-                                _message(rule, section, KIND_RAISED, val, rule.threshold, count)))
+                records.append(
+                    (
+                        ts,
+                        r_i,
+                        section,
+                        KIND_RAISED,
+                        val,
+                        float(rule.threshold),
+                        _message(rule, section, KIND_RAISED, val, rule.threshold, count),
+                    )
+                )
                 m.update(state=RAISED, count=0, since=None, clear_count=0)
                 a = j + 1  # the rest of this B run keeps the clear count at 0
             else:
@@ -420,8 +498,17 @@ def _run_machine(m: dict, rule: Rule, r_i: int, section: str, t: np.ndarray, v: 
                 count = m["clear_count"] + (j - a + 1)
                 ts = _stamp(t[j])
                 val = float(v[j])
-                records.append((ts, r_i, section, KIND_CLEARED, val, rule.clear_level,
-                                _message(rule, section, KIND_CLEARED, val, rule.clear_level, count)))
+                records.append(
+                    (
+                        ts,
+                        r_i,
+                        section,
+                        KIND_CLEARED,
+                        val,
+                        rule.clear_level,
+                        _message(rule, section, KIND_CLEARED, val, rule.clear_level, count),
+                    )
+                )
                 m.update(state=NORMAL, count=0, since=None, clear_count=0)
                 a = j + 1  # the rest of this C run keeps the streak count at 0
     m["last_time"] = _iso(_stamp(t[-1]))
@@ -543,6 +630,14 @@ def active(state: Mapping) -> list[tuple[str, str]]:
 
 
 __all__ = [
-    "Rule", "default_rules", "evaluate_alarms", "to_observations", "step_observations", "rate_observation", "active",
-    "DEFAULT_MOISTURE_LIMIT", "NORMAL", "RAISED",
+    "Rule",
+    "default_rules",
+    "evaluate_alarms",
+    "to_observations",
+    "step_observations",
+    "rate_observation",
+    "active",
+    "DEFAULT_MOISTURE_LIMIT",
+    "NORMAL",
+    "RAISED",
 ]

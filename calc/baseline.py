@@ -173,7 +173,7 @@ class BaselineModel:
         x = windows[self.load_col].to_numpy(dtype=float) / self.rating_mw
         z = [
             (windows[c].to_numpy(dtype=float) - m) / s
-            for c, m, s in zip(self.extra_cols, self.extra_center, self.extra_scale)
+            for c, m, s in zip(self.extra_cols, self.extra_center, self.extra_scale, strict=True)
         ]
         X = _design_matrix(x, z, self.degree)
         raw = np.column_stack([x] + [windows[c].to_numpy(dtype=float) for c in self.extra_cols])
@@ -260,7 +260,7 @@ class BaselineModel:
         return json.dumps(content, sort_keys=True, indent=1, allow_nan=False)
 
     @classmethod
-    def from_json(cls, text: str) -> "BaselineModel":
+    def from_json(cls, text: str) -> BaselineModel:
         """Read an artefact written by ``to_json``.
 
         Raises
@@ -447,12 +447,14 @@ def fit_baseline(
     raw_z = [data[c].to_numpy() for c in extra_cols]
     center = tuple(float(np.mean(v)) for v in raw_z)
     scale = []
-    for c, v in zip(extra_cols, raw_z):
+    for c, v in zip(extra_cols, raw_z, strict=True):
         span = float(np.max(v) - np.min(v))
         if not span > 0:
-            raise ValueError(f"fit_baseline({section}): extra regressor {c!r} does not vary in the reference windows")
+            raise ValueError(
+                f"fit_baseline({section}): extra regressor {c!r} does not vary in the reference windows"
+            )
         scale.append(span)
-    z = [(v - m) / s for v, m, s in zip(raw_z, center, scale)]
+    z = [(v - m) / s for v, m, s in zip(raw_z, center, scale, strict=True)]
     X = _design_matrix(x, z, degree)
     if np.linalg.matrix_rank(X) < n_params:
         raise ValueError(

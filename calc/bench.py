@@ -73,10 +73,10 @@ def time_iapws(kind, a, b):
 
     t0 = time.perf_counter()
     if kind == "pt":
-        for x, y in zip(a, b):
+        for x, y in zip(a, b, strict=True):
             IAPWS97(P=float(x), T=float(y))
     else:
-        for x, y in zip(a, b):
+        for x, y in zip(a, b, strict=True):
             IAPWS97(P=float(x), s=float(y))
     return (time.perf_counter() - t0) / a.size
 
@@ -93,8 +93,12 @@ def main(argv=None):
     ap = argparse.ArgumentParser(prog="python -m isentrope.calc.bench", description=__doc__.split("\n")[0])
     ap.add_argument("--n", type=int, default=1_000_000, help="points per array (default 1e6)")
     ap.add_argument("--sample", type=int, default=2000, help="points timed with iapws (default 2000)")
-    ap.add_argument("--coolprop-ps-sample", type=int, default=50_000,
-                    help="(p, s) points timed with CoolProp (default 50000)")
+    ap.add_argument(
+        "--coolprop-ps-sample",
+        type=int,
+        default=50_000,
+        help="(p, s) points timed with CoolProp (default 50000)",
+    )
     ap.add_argument("--repeat", type=int, default=3, help="repeats of each timing, best kept")
     ap.add_argument("--seed", type=int, default=97)
     ap.add_argument("--no-coolprop", action="store_true", help="skip CoolProp (its import is slow)")
@@ -133,8 +137,10 @@ def main(argv=None):
         agree["h_ps"] = float(np.nanmax(np.abs(hs_cp - steam.h_ps(p_o[:k], s_o[:k]))))
 
     out = sys.stdout
-    out.write(f"isentrope.calc.steam benchmark: {args.n} points per array, iapws on {k} points, "
-              f"best of {args.repeat}\n")
+    out.write(
+        f"isentrope.calc.steam benchmark: {args.n} points per array, iapws on {k} points, "
+        f"best of {args.repeat}\n"
+    )
     out.write(f"(p, s) end points: {100 * wet:.1f} % wet\n")
     head = f"{'function':8s} {'this us/pt':>11s} {'iapws us/pt':>12s} {'x iapws':>9s} {'target':>7s}"
     if props is not None:
@@ -159,9 +165,11 @@ def main(argv=None):
     elif props is None:
         out.write("CoolProp not installed (pip install 'isentrope[bench]'): no CoolProp column\n")
     else:
-        out.write(f"CoolProp h(p, s) timed on {min(args.coolprop_ps_sample, args.n)} points; "
-                  f"max |this - CoolProp| on the iapws sample: h_pt {agree['h_pt']:.2e} kJ/kg, "
-                  f"h_ps {agree['h_ps']:.2e} kJ/kg\n")
+        out.write(
+            f"CoolProp h(p, s) timed on {min(args.coolprop_ps_sample, args.n)} points; "
+            f"max |this - CoolProp| on the iapws sample: h_pt {agree['h_pt']:.2e} kJ/kg, "
+            f"h_ps {agree['h_ps']:.2e} kJ/kg\n"
+        )
     out.write("targets met\n" if not missed else "targets missed: " + "; ".join(missed) + "\n")
     return 0
 

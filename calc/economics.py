@@ -71,15 +71,21 @@ class CostBasis:
 
     def __post_init__(self):
         if not (math.isfinite(self.heat_rate_kj_per_kwh) and self.heat_rate_kj_per_kwh > 0):
-            raise ValueError(f"heat_rate_kj_per_kwh must be a positive number of kJ/kWh; found {self.heat_rate_kj_per_kwh!r}")
+            raise ValueError(
+                f"heat_rate_kj_per_kwh must be a positive number of kJ/kWh; found {self.heat_rate_kj_per_kwh!r}"
+            )
         if not (0.0 < self.boiler_efficiency <= 1.0):
-            raise ValueError(f"boiler_efficiency must be a fraction in (0, 1]; found {self.boiler_efficiency!r}")
+            raise ValueError(
+                f"boiler_efficiency must be a fraction in (0, 1]; found {self.boiler_efficiency!r}"
+            )
         if not (math.isfinite(self.fuel_price_per_gj) and self.fuel_price_per_gj >= 0):
             raise ValueError(f"fuel_price_per_gj must be a number >= 0; found {self.fuel_price_per_gj!r}")
         if self.power_price_per_mwh is not None and not (
             math.isfinite(self.power_price_per_mwh) and self.power_price_per_mwh >= 0
         ):
-            raise ValueError(f"power_price_per_mwh must be a number >= 0 or None; found {self.power_price_per_mwh!r}")
+            raise ValueError(
+                f"power_price_per_mwh must be a number >= 0 or None; found {self.power_price_per_mwh!r}"
+            )
 
 
 def _coefficient(table: dict[str, float], section: str, coefficients: dict | None, what: str) -> float:
@@ -157,7 +163,15 @@ def extra_fuel_rate(heat_rate_change_pct, output_mw, basis: CostBasis):
         Extra fuel energy [GJ/h] = output [kW] x heat rate [kJ/kWh] x change / 100
         / boiler efficiency / 1e6.
     """
-    return output_mw * 1000.0 * basis.heat_rate_kj_per_kwh * heat_rate_change_pct / 100.0 / basis.boiler_efficiency / _KJ_PER_GJ
+    return (
+        output_mw
+        * 1000.0
+        * basis.heat_rate_kj_per_kwh
+        * heat_rate_change_pct
+        / 100.0
+        / basis.boiler_efficiency
+        / _KJ_PER_GJ
+    )
 
 
 def fuel_cost_rate(heat_rate_change_pct, output_mw, basis: CostBasis):
@@ -216,9 +230,20 @@ def daily_losses(
     if fill_days < 0:
         raise ValueError(f"fill_days must be >= 0; found {fill_days!r}")
     dev = deviation.astype(float).dropna()
-    columns = ["deviation", "filled", "covered", "online_hours", "heat_rate_change", "output_change_mw",
-               "lost_mwh", "extra_fuel_gj", "fuel_cost", "lost_output_value", "cumulative_lost_mwh",
-               "cumulative_fuel_cost"]
+    columns = [
+        "deviation",
+        "filled",
+        "covered",
+        "online_hours",
+        "heat_rate_change",
+        "output_change_mw",
+        "lost_mwh",
+        "extra_fuel_gj",
+        "fuel_cost",
+        "lost_output_value",
+        "cumulative_lost_mwh",
+        "cumulative_fuel_cost",
+    ]
     if dev.empty:
         return pd.DataFrame(columns=columns, index=pd.DatetimeIndex([], tz="UTC", name="day"), dtype=float)
     dev = dev.tz_convert("UTC")
@@ -240,13 +265,17 @@ def daily_losses(
         hours = online_hours.astype(float).reindex(days)
         if hours.isna().any():
             missing = list(days[hours.isna()][:3].strftime("%Y-%m-%d"))
-            raise ValueError(f"online_hours has no value for day(s) {missing}...; give every day from {days[0]:%Y-%m-%d} to {days[-1]:%Y-%m-%d}")
+            raise ValueError(
+                f"online_hours has no value for day(s) {missing}...; give every day from {days[0]:%Y-%m-%d} to {days[-1]:%Y-%m-%d}"
+            )
     hr = heat_rate_change(filled_dev, section, coefficients=heat_rate_coefficients)
     dmw = output_change(filled_dev, section, out, coefficients=output_coefficients)
     lost_mwh = -dmw * hours
     fuel_gj = extra_fuel_rate(hr, out, basis) * hours
     cost = fuel_gj * basis.fuel_price_per_gj
-    value = lost_mwh * basis.power_price_per_mwh if basis.power_price_per_mwh is not None else lost_mwh * np.nan
+    value = (
+        lost_mwh * basis.power_price_per_mwh if basis.power_price_per_mwh is not None else lost_mwh * np.nan
+    )
     frame = pd.DataFrame(
         {
             "deviation": filled_dev,
@@ -375,14 +404,28 @@ def projected_loss(
     def totals(slope):
         mean_dev = current_deviation + slope * hours_to_date / 2000.0
         mwh = -output_change(mean_dev, section, output_mw, coefficients=output_coefficients) * hours_to_date
-        cost = fuel_cost_rate(heat_rate_change(mean_dev, section, coefficients=heat_rate_coefficients), output_mw, basis) * hours_to_date
+        cost = (
+            fuel_cost_rate(
+                heat_rate_change(mean_dev, section, coefficients=heat_rate_coefficients), output_mw, basis
+            )
+            * hours_to_date
+        )
         return mean_dev, float(mwh), float(cost)
 
     mean_dev, mwh, cost = totals(slopes[0])
     _, mwh_a, cost_a = totals(slopes[1])
     _, mwh_b, cost_b = totals(slopes[2])
-    return ProjectedLoss("ok", float(hours_to_date), float(mean_dev), mwh, min(mwh_a, mwh_b), max(mwh_a, mwh_b),
-                         cost, min(cost_a, cost_b), max(cost_a, cost_b))
+    return ProjectedLoss(
+        "ok",
+        float(hours_to_date),
+        float(mean_dev),
+        mwh,
+        min(mwh_a, mwh_b),
+        max(mwh_a, mwh_b),
+        cost,
+        min(cost_a, cost_b),
+        max(cost_a, cost_b),
+    )
 
 
 @dataclass(frozen=True)
@@ -465,14 +508,19 @@ def overhaul_case(
     if not (math.isfinite(overhaul_cost) and overhaul_cost >= 0):
         raise ValueError(f"overhaul_cost must be >= 0; found {overhaul_cost!r}")
     if not (math.isfinite(operating_hours_per_year) and 0 < operating_hours_per_year <= 8784):
-        raise ValueError(f"operating_hours_per_year must lie in (0, 8784] h; found {operating_hours_per_year!r}")
+        raise ValueError(
+            f"operating_hours_per_year must lie in (0, 8784] h; found {operating_hours_per_year!r}"
+        )
     if value == "fuel":
         hr = heat_rate_change(-recoverable_points, section, coefficients=heat_rate_coefficients)
         per_hour = float(fuel_cost_rate(hr, output_mw, basis))
     elif value == "output":
         if basis.power_price_per_mwh is None:
             raise ValueError("value='output' needs basis.power_price_per_mwh")
-        per_hour = float(output_change(recoverable_points, section, output_mw, coefficients=output_coefficients)) * basis.power_price_per_mwh
+        per_hour = (
+            float(output_change(recoverable_points, section, output_mw, coefficients=output_coefficients))
+            * basis.power_price_per_mwh
+        )
     else:
         raise ValueError(f"value must be 'fuel' or 'output'; found {value!r}")
     payback_h = overhaul_cost / per_hour if per_hour > 0 else math.inf
@@ -482,4 +530,6 @@ def overhaul_case(
         ts = pd.Timestamp(start)
         ts = ts.tz_localize("UTC") if ts.tzinfo is None else ts.tz_convert("UTC")
         break_even = ts + pd.Timedelta(days=payback_y * 365.25)
-    return OverhaulCase(per_hour, per_hour * operating_hours_per_year, float(payback_h), float(payback_y), break_even, value)
+    return OverhaulCase(
+        per_hour, per_hour * operating_hours_per_year, float(payback_h), float(payback_y), break_even, value
+    )

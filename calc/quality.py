@@ -290,7 +290,7 @@ class _Grid:
     rows: np.ndarray  # arange(n)
 
     @classmethod
-    def build(cls, t: np.ndarray, window_ns: int) -> "_Grid":
+    def build(cls, t: np.ndarray, window_ns: int) -> _Grid:
         step = _windows.regular_step(t)
         grace = step if step is not None else _windows.typical_step(t)
         start = _windows.window_start(t, window_ns)
@@ -447,7 +447,9 @@ def flatline_samples(
         v = values.to_numpy(dtype=float, na_value=np.nan)
     except (TypeError, ValueError):
         raise ValueError(f"values are not numeric (dtype {values.dtype})") from None
-    return pd.Series(_flatline(v, grid, float(tolerance), float(relative)), index=values.index, name=values.name)
+    return pd.Series(
+        _flatline(v, grid, float(tolerance), float(relative)), index=values.index, name=values.name
+    )
 
 
 def _block_medians(d: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
@@ -670,8 +672,13 @@ def _physics(frame_values, roles, band, margin, given=None):
             if len(possible) == 0:
                 continue
             c2, _ = _section_codes(
-                pi[possible], ti[possible], po[possible], to[possible] if to is not None else None,
-                with_eff, band, margin,
+                pi[possible],
+                ti[possible],
+                po[possible],
+                to[possible] if to is not None else None,
+                with_eff,
+                band,
+                margin,
             )
             hint[possible[c2 == 0]] = True
         c[suspect[hint]] |= int(Reason.GAUGE_ABSOLUTE_SUSPECT)
@@ -802,8 +809,9 @@ def screen(
             try:
                 _check_flatline_tolerances(tol, 0.0)
             except ValueError:
-                raise ValueError(f"flatline tolerance of {role} must be a finite number >= 0 or None, "
-                                 f"found {tol!r}") from None
+                raise ValueError(
+                    f"flatline tolerance of {role} must be a finite number >= 0 or None, found {tol!r}"
+                ) from None
     _check_flatline_tolerances(0.0, flatline_relative)
     flat_ns = None if flatline is None else _windows.to_ns(flatline, "flatline")
     if spike is not None:
@@ -813,7 +821,9 @@ def screen(
             raise ValueError(f"spike_threshold must be > 0, found {spike_threshold!r}")
     low_eff, high_eff = efficiency_band
     if not 0 <= low_eff < high_eff:
-        raise ValueError(f"efficiency_band must be (low, high) with 0 <= low < high, found {efficiency_band!r}")
+        raise ValueError(
+            f"efficiency_band must be (low, high) with 0 <= low < high, found {efficiency_band!r}"
+        )
     grid = _Grid.build(t, flat_ns) if flat_ns is not None else None
     block_ns = _windows.to_ns(spike_scale_block, "spike_scale_block")
     given: dict[str, np.ndarray] = {}
@@ -824,7 +834,9 @@ def screen(
             raise ValueError(f"efficiencies[{name!r}] must have the same index as frame")
         arr = np.asarray(e, dtype=float)
         if arr.shape != (n,):
-            raise ValueError(f"efficiencies[{name!r}] must have one value per row ({n}), found shape {arr.shape}")
+            raise ValueError(
+                f"efficiencies[{name!r}] must have one value per row ({n}), found shape {arr.shape}"
+            )
         given[name] = arr
 
     flag_block = np.zeros((n, len(values)), dtype=np.int64, order="F")

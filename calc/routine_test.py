@@ -122,7 +122,9 @@ def _limits(steady_limits: Mapping | None, rating_mw: float | None) -> dict[str,
             continue
         rel, ab = lim
         if not (rel >= 0 and ab >= 0) or (rel == 0 and ab == 0):
-            raise ValueError(f"steady limit for {role!r} must be (relative >= 0, absolute >= 0), not both 0; found {lim!r}")
+            raise ValueError(
+                f"steady limit for {role!r} must be (relative >= 0, absolute >= 0), not both 0; found {lim!r}"
+            )
         out[role] = (rel, ab)
     return out
 
@@ -198,7 +200,11 @@ def evaluate_test(
         A frame without a UTC DatetimeIndex, ``end <= start``, bad durations, or a test too
         short to hold one sub-period after the stabilisation.
     """
-    if not isinstance(frame, pd.DataFrame) or not isinstance(frame.index, pd.DatetimeIndex) or frame.index.tz is None:
+    if (
+        not isinstance(frame, pd.DataFrame)
+        or not isinstance(frame.index, pd.DatetimeIndex)
+        or frame.index.tz is None
+    ):
         raise ValueError("evaluate_test needs a DataFrame with a timezone-aware (UTC) DatetimeIndex")
     t0, t1 = _utc(start, "start"), _utc(end, "end")
     if t1 <= t0:
@@ -236,8 +242,9 @@ def evaluate_test(
     if "gross_output" in numeric and len(data):
         try:
             window = min(sp, pd.Timedelta(steady.DEFAULT_WINDOW))
-            steady_flag = steady.tag_steady(data[numeric], method="ptc6", window=window, limits=steady_limits,
-                                            rating_mw=rating_mw).steady
+            steady_flag = steady.tag_steady(
+                data[numeric], method="ptc6", window=window, limits=steady_limits, rating_mw=rating_mw
+            ).steady
         except ValueError as exc:
             notes.append(f"steady tagging off: {exc}")
 
@@ -308,17 +315,33 @@ def evaluate_test(
             u = u_instr
         else:
             u = math.hypot(u_spread, u_instr) if n else math.nan
-        rec = {"mean": mean, "spread_std": s, "n": n, "u_spread": u_spread, "u_instrument": u_instr,
-               "u": u, "U95": COVERAGE_K * u}
+        rec = {
+            "mean": mean,
+            "spread_std": s,
+            "n": n,
+            "u_spread": u_spread,
+            "u_instrument": u_instr,
+            "u": u,
+            "U95": COVERAGE_K * u,
+        }
         if online is not None and c in online:
             ov, ou = _online_value(online[c], midpoint, window)
             diff = mean - ov
             diff_u = math.hypot(u, ou) if math.isfinite(ou) else u
-            rec.update(online=ov, online_u=ou, difference=diff, difference_u=diff_u,
-                       agrees=bool(abs(diff) <= COVERAGE_K * diff_u) if math.isfinite(diff) and math.isfinite(diff_u) else False)
+            rec.update(
+                online=ov,
+                online_u=ou,
+                difference=diff,
+                difference_u=diff_u,
+                agrees=bool(abs(diff) <= COVERAGE_K * diff_u)
+                if math.isfinite(diff) and math.isfinite(diff_u)
+                else False,
+            )
         result_rows[c] = rec
     if 0 < int(passed.sum()) < 2:
-        notes.append("only one sub-period passed: no spread estimate, uncertainty is the instrument part only")
+        notes.append(
+            "only one sub-period passed: no spread estimate, uncertainty is the instrument part only"
+        )
     result = pd.DataFrame.from_dict(result_rows, orient="index")
     result.index.name = "figure"
     status = "ok" if passed.any() else "no valid sub-period"

@@ -226,7 +226,7 @@ class _Shape:
     def __init__(self, names, values):
         index = None
         arrays = []
-        for name, v in zip(names, values):
+        for name, v in zip(names, values, strict=True):
             if isinstance(v, pd.DataFrame):
                 raise ValueError(f"{name}: expected a number, array or Series, found a DataFrame")
             if isinstance(v, pd.Series):
@@ -242,7 +242,7 @@ class _Shape:
         try:
             b = np.broadcast_arrays(*arrays)
         except ValueError as exc:
-            shapes = ", ".join(f"{n} {a.shape}" for n, a in zip(names, arrays))
+            shapes = ", ".join(f"{n} {a.shape}" for n, a in zip(names, arrays, strict=True))
             raise ValueError(f"arguments do not broadcast to one shape: {shapes}") from exc
         self.shape = b[0].shape
         self.index = index
@@ -372,8 +372,11 @@ def _section_core(p_in, t_in, p_out, t_out, end_state=False):
     good = reason == OK
     eff = np.full(n, np.nan)
     eff[good] = drop[good] / drop_s[good]
-    extra = ({"t_out_isentropic": t_s, "v_out_isentropic": v_s, "slopes_in": slopes_in, "slopes_out": slopes_out}
-             if end_state else {})
+    extra = (
+        {"t_out_isentropic": t_s, "v_out_isentropic": v_s, "slopes_in": slopes_in, "slopes_out": slopes_out}
+        if end_state
+        else {}
+    )
     return {
         **extra,
         "h_in": h_in,
@@ -656,7 +659,11 @@ def _lp_core(p_in, t_in, p_exh, eta, a, exhaust_sat=None, inlet_states=None):
     finite = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_exh)
     _mark(reason, ~finite, MISSING_INPUT)
     with np.errstate(invalid="ignore"):
-        _mark(reason, (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (t_in > T_MAX) | (p_in > LP_P_MAX), OUT_OF_RANGE)
+        _mark(
+            reason,
+            (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (t_in > T_MAX) | (p_in > LP_P_MAX),
+            OUT_OF_RANGE,
+        )
         _mark(reason, p_exh >= p_in, PRESSURE_NOT_FALLING)
         _mark(reason, ~(np.isfinite(eta) & (eta > 0) & (eta <= 1)), NO_DRY_EFFICIENCY)
     ok = reason == OK
@@ -826,7 +833,9 @@ class ExhaustLossCurve:
         if not (np.all(np.isfinite(v)) and np.all(np.isfinite(q))):
             raise ValueError("exhaust-loss curve: every velocity and loss must be a finite number")
         if not np.all(np.diff(v) > 0) or v[0] <= 0:
-            raise ValueError(f"exhaust-loss curve: velocities must be positive and strictly increasing, found {v.tolist()}")
+            raise ValueError(
+                f"exhaust-loss curve: velocities must be positive and strictly increasing, found {v.tolist()}"
+            )
         if np.any(q < 0):
             raise ValueError(f"exhaust-loss curve: losses must not be negative, found {q.tolist()}")
         self.velocity = v
@@ -849,7 +858,9 @@ class ExhaustLossCurve:
         return np.where(inside, out, np.nan)
 
     def __repr__(self):
-        return f"ExhaustLossCurve({len(self.velocity)} points, {self.velocity[0]:g}-{self.velocity[-1]:g} m/s)"
+        return (
+            f"ExhaustLossCurve({len(self.velocity)} points, {self.velocity[0]:g}-{self.velocity[-1]:g} m/s)"
+        )
 
 
 #: The default curve (shape only, from memory; see DEFAULT_EXHAUST_LOSS_POINTS).
@@ -969,7 +980,9 @@ class FlowFractions:
                     f"flow_fractions: expected keys hp, ip, lp; missing {sorted(missing)}, unknown {sorted(unknown)}"
                 )
             return cls(**{k: value[k] for k in ("hp", "ip", "lp")})
-        raise ValueError(f"flow_fractions: expected a FlowFractions or a mapping with hp, ip, lp, found {value!r}")
+        raise ValueError(
+            f"flow_fractions: expected a FlowFractions or a mapping with hp, ip, lp, found {value!r}"
+        )
 
 
 def energy_balance_ueep(gross_output, losses_mw, main_steam_flow, hp_drop, ip_drop, h_lp_in, flow_fractions):
@@ -1003,7 +1016,9 @@ def energy_balance_ueep(gross_output, losses_mw, main_steam_flow, hp_drop, ip_dr
     m = np.asarray(main_steam_flow, dtype=float)
     shaft_kw = 1000.0 * (np.asarray(gross_output, dtype=float) + np.asarray(losses_mw, dtype=float))
     with np.errstate(invalid="ignore", divide="ignore"):
-        lp_kw = shaft_kw - m * (ff.hp * np.asarray(hp_drop, dtype=float) + ff.ip * np.asarray(ip_drop, dtype=float))
+        lp_kw = shaft_kw - m * (
+            ff.hp * np.asarray(hp_drop, dtype=float) + ff.ip * np.asarray(ip_drop, dtype=float)
+        )
         ueep = np.asarray(h_lp_in, dtype=float) - lp_kw / (m * ff.lp)
         return np.where(m > 0, ueep, np.nan)
 
@@ -1035,7 +1050,11 @@ def _elep_from_ueep(p_exh, ueep, exhaust_flow, area, curve, exhaust_sat, vols):
         with np.errstate(invalid="ignore", divide="ignore"):
             y_a = np.clip((hg[idx] - h[idx]) / (hg[idx] - hf[idx]), 0.0, None)
             v = _exhaust_volume(
-                p_exh[idx], h[idx], (hf[idx], hg[idx]), (vols[0][idx], vols[1][idx]), np.ones(idx.size, dtype=bool)
+                p_exh[idx],
+                h[idx],
+                (hf[idx], hg[idx]),
+                (vols[0][idx], vols[1][idx]),
+                np.ones(idx.size, dtype=bool),
             )
             vel_a = v * exhaust_flow[idx] / area
             loss_a = wetness_corrected_exhaust_loss(curve(vel_a), y_a)
@@ -1110,7 +1129,9 @@ def _resolve_uncertainty(uncertainty):
     if uncertainty is None:
         return out
     if not isinstance(uncertainty, Mapping):
-        raise ValueError(f"uncertainty: expected None, False or a mapping role -> uncertainty, found {uncertainty!r}")
+        raise ValueError(
+            f"uncertainty: expected None, False or a mapping role -> uncertainty, found {uncertainty!r}"
+        )
     for role, u in uncertainty.items():
         if role not in ROLE_QUANTITY:
             raise ValueError(f"uncertainty: unknown role {role!r}; valid roles: {', '.join(ROLE_QUANTITY)}")
@@ -1167,7 +1188,11 @@ def propagate_uncertainty(func, inputs, u, outputs, steps=None, base=None):
         u_i = np.broadcast_to(np.asarray(u_i, dtype=float), (n,))
         if not np.any(u_i > 0):
             continue
-        step = u_i if steps is None or name not in steps else np.broadcast_to(np.asarray(steps[name], float), (n,))
+        step = (
+            u_i
+            if steps is None or name not in steps
+            else np.broadcast_to(np.asarray(steps[name], float), (n,))
+        )
         plus = dict(inputs)
         minus = dict(inputs)
         plus[name] = inputs[name] + step
@@ -1263,7 +1288,9 @@ class _InletStates:
         for ep, et, em, eh, es in self._entries:
             if not todo.any():
                 break
-            if ep.shape != p.shape or not (np.array_equal(ep, p, equal_nan=True) and np.array_equal(et, t, equal_nan=True)):
+            if ep.shape != p.shape or not (
+                np.array_equal(ep, p, equal_nan=True) and np.array_equal(et, t, equal_nan=True)
+            ):
                 continue
             hit = todo & em
             h[hit], s[hit] = eh[hit], es[hit]
@@ -1294,11 +1321,13 @@ def _pt_derivative_hs(p, t, step, which, h0, s0, mask, inlet_states=None):
         okp_f = okp & np.isfinite(fp)
         okm_f = okm & np.isfinite(fm)
         with np.errstate(invalid="ignore", divide="ignore"):
-            out.append(np.where(
-                okp_f & okm_f,
-                (fp - fm) / (2.0 * step),
-                np.where(okp_f, (fp - f0) / step, np.where(okm_f, (f0 - fm) / step, np.nan)),
-            ))
+            out.append(
+                np.where(
+                    okp_f & okm_f,
+                    (fp - fm) / (2.0 * step),
+                    np.where(okp_f, (fp - f0) / step, np.where(okm_f, (f0 - fm) / step, np.nan)),
+                )
+            )
     return out[0], out[1]
 
 
@@ -1319,7 +1348,9 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps, inlet_states=
     ``inlet_states``: an ``_InletStates`` that keeps the inlet states for later reuse."""
     ok = base["reason"] == OK
     if inlet_states is not None:
-        inlet_states.add(p_in, t_in, ok, np.where(ok, base["h_in"], np.nan), np.where(ok, base["s_in"], np.nan))
+        inlet_states.add(
+            p_in, t_in, ok, np.where(ok, base["h_in"], np.nan), np.where(ok, base["s_in"], np.nan)
+        )
     h1, s1, h2, h2s = base["h_in"], base["s_in"], base["h_out"], base["h_out_isentropic"]
     eta = base["efficiency"]
     d = h1 - h2s
@@ -1540,21 +1571,26 @@ def _lp_figures(inp, cfg):
         valid_p = np.isfinite(p_exh) & (p_exh > 0)
         sat, vols = _exhaust_states(p_exh, valid_p)
         cache[id(p_exh)] = (p_exh, sat, vols)
-    flow = inp["main_steam_flow"] * cfg["lp_exhaust_flow_fraction"] if cfg["lp_exhaust_flow_fraction"] else np.full(n, np.nan)
+    flow = (
+        inp["main_steam_flow"] * cfg["lp_exhaust_flow_fraction"]
+        if cfg["lp_exhaust_flow_fraction"]
+        else np.full(n, np.nan)
+    )
     if cfg["mode"] == "expansion":
         # The expansion does not depend on the flow: a re-evaluation that changes only the
         # main steam flow (its uncertainty) reuses the expansion of the same inputs.
         key = tuple(inp[k] for k in (_LP_EXP + _LPD[2:]))
         done = cfg["lp_core_cache"]
-        if done is not None and all(a is b for a, b in zip(done[0], key)):
+        if done is not None and all(a is b for a, b in zip(done[0], key, strict=True)):
             r = done[1]
         else:
             if cfg["eta_source"] == "measured":
                 eta = _section_group(inp, _LPD)["efficiency"]
             else:
                 eta = np.full(n, cfg["eta_lp_design"])
-            r = _lp_core(p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat,
-                         inlet_states=cfg.get("inlet_states"))
+            r = _lp_core(
+                p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat, inlet_states=cfg.get("inlet_states")
+            )
             if done is None:
                 cfg["lp_core_cache"] = (key, r)
         lp_reason = r["reason"].copy()
@@ -1577,7 +1613,7 @@ def _lp_figures(inp, cfg):
         def cached(name, keys, compute):
             key = tuple(inp[k] for k in keys)
             hit = parts.get(name)
-            if hit is not None and all(x is y for x, y in zip(hit[0], key)):
+            if hit is not None and all(x is y for x, y in zip(hit[0], key, strict=True)):
                 return hit[1]
             value = compute()
             if hit is None:
@@ -1594,7 +1630,11 @@ def _lp_figures(inp, cfg):
             fin = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_exh)
             _mark(ue_reason, ~fin, MISSING_INPUT)
             with np.errstate(invalid="ignore"):
-                _mark(ue_reason, (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (t_in > T_MAX) | (p_in > LP_P_MAX), OUT_OF_RANGE)
+                _mark(
+                    ue_reason,
+                    (p_in <= 0) | (p_exh <= 0) | (t_in <= 0) | (t_in > T_MAX) | (p_in > LP_P_MAX),
+                    OUT_OF_RANGE,
+                )
                 _mark(ue_reason, p_exh >= p_in, PRESSURE_NOT_FALLING)
             ok = ue_reason == OK
             _mark(ue_reason, ok & ~_superheated(p_in, t_in, ok), INLET_NOT_SUPERHEATED)
@@ -1609,12 +1649,20 @@ def _lp_figures(inp, cfg):
 
         ue_reason, h_in, h_s = cached("lp_inlet", _LP_EXP, lp_inlet)
         ue_reason = ue_reason.copy()  # marked further below; the cached one stays as it was
-        _mark(ue_reason, ~np.isfinite(inp["gross_output"]) | ~np.isfinite(inp["main_steam_flow"]), MISSING_INPUT)
+        _mark(
+            ue_reason, ~np.isfinite(inp["gross_output"]) | ~np.isfinite(inp["main_steam_flow"]), MISSING_INPUT
+        )
         _mark(ue_reason, (hp["reason"] != OK) | (ip["reason"] != OK), UPSTREAM_INVALID)
         with np.errstate(invalid="ignore"):
             _mark(ue_reason, ~(inp["main_steam_flow"] > 0), OUT_OF_RANGE)
         ueep = energy_balance_ueep(
-            inp["gross_output"], cfg["losses_mw"], inp["main_steam_flow"], hp_drop, ip_drop, h_in, cfg["flow_fractions"]
+            inp["gross_output"],
+            cfg["losses_mw"],
+            inp["main_steam_flow"],
+            hp_drop,
+            ip_drop,
+            h_in,
+            cfg["flow_fractions"],
         )
         with np.errstate(invalid="ignore"):
             _mark(ue_reason, ~((ueep < h_in) & (ueep >= h_s)), ENERGY_BALANCE_IMPLAUSIBLE)
@@ -1739,17 +1787,29 @@ def evaluate(
         # Row blocks: every figure is per row and every choice (mode, groups, notes) follows
         # from the columns, so the blocks give the figures of the whole (to the last bits of
         # the iterated solvers, as any other cut of the rows).
-        kwargs = dict(eta_lp_design=eta_lp_design, lp_dry_efficiency_source=lp_dry_efficiency_source,
-                      baumann=baumann, annulus_area=annulus_area, exhaust_loss_curve=exhaust_loss_curve,
-                      lp_exhaust_flow_fraction=lp_exhaust_flow_fraction, lp_mode=lp_mode,
-                      flow_fractions=flow_fractions, losses_mw=losses_mw, uncertainty=uncertainty)
-        parts = [evaluate(frame.iloc[i : i + EVALUATE_ROWS], **kwargs) for i in range(0, len(frame), EVALUATE_ROWS)]
+        kwargs = dict(
+            eta_lp_design=eta_lp_design,
+            lp_dry_efficiency_source=lp_dry_efficiency_source,
+            baumann=baumann,
+            annulus_area=annulus_area,
+            exhaust_loss_curve=exhaust_loss_curve,
+            lp_exhaust_flow_fraction=lp_exhaust_flow_fraction,
+            lp_mode=lp_mode,
+            flow_fractions=flow_fractions,
+            losses_mw=losses_mw,
+            uncertainty=uncertainty,
+        )
+        parts = [
+            evaluate(frame.iloc[i : i + EVALUATE_ROWS], **kwargs) for i in range(0, len(frame), EVALUATE_ROWS)
+        ]
         series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in _SERIES_FIELDS}
         return SectionResults(**series, lp_mode=parts[0].lp_mode, notes=parts[0].notes)
     a = _check_baumann(baumann)
     eta_d = float(eta_lp_design) if eta_lp_design is not None else np.nan
     if lp_dry_efficiency_source not in ("design", "measured"):
-        raise ValueError(f"lp_dry_efficiency_source: expected 'design' or 'measured', found {lp_dry_efficiency_source!r}")
+        raise ValueError(
+            f"lp_dry_efficiency_source: expected 'design' or 'measured', found {lp_dry_efficiency_source!r}"
+        )
     if lp_dry_efficiency_source == "design" and not (np.isfinite(eta_d) and 0 < eta_d <= 1):
         raise ValueError(f"eta_lp_design: expected a number in (0, 1], found {eta_lp_design!r}")
     if lp_mode not in ("auto", "expansion", "energy_balance"):
@@ -1768,7 +1828,9 @@ def evaluate(
     if lp_exhaust_flow_fraction is not None:
         f = float(lp_exhaust_flow_fraction)
         if not (np.isfinite(f) and 0 < f <= 1.5):
-            raise ValueError(f"lp_exhaust_flow_fraction: expected a number in (0, 1.5], found {lp_exhaust_flow_fraction!r}")
+            raise ValueError(
+                f"lp_exhaust_flow_fraction: expected a number in (0, 1.5], found {lp_exhaust_flow_fraction!r}"
+            )
         lp_exhaust_flow_fraction = f
     ff = FlowFractions.coerce(flow_fractions) if flow_fractions is not None else None
     if losses_mw is not None:
@@ -1820,11 +1882,17 @@ def evaluate(
         if m:
             notes.append(f"{g} figures off: roles {m} not in the frame")
     if annulus_area is None:
-        notes.append("no annulus_area: exhaust loss, annulus velocity and "
-                     + ("UEEP" if mode == "expansion" else "ELEP, moisture and LP efficiency") + " are NaN")
+        notes.append(
+            "no annulus_area: exhaust loss, annulus velocity and "
+            + ("UEEP" if mode == "expansion" else "ELEP, moisture and LP efficiency")
+            + " are NaN"
+        )
     if lp_exhaust_flow_fraction is None or "main_steam_flow" not in cols:
-        notes.append("exhaust loss needs main_steam_flow and lp_exhaust_flow_fraction: "
-                     + ("UEEP" if mode == "expansion" else "ELEP and moisture") + " are NaN")
+        notes.append(
+            "exhaust loss needs main_steam_flow and lp_exhaust_flow_fraction: "
+            + ("UEEP" if mode == "expansion" else "ELEP and moisture")
+            + " are NaN"
+        )
     if u_roles is None:
         notes.append("uncertainty propagation off: the _u figures are NaN")
 
@@ -1858,8 +1926,8 @@ def evaluate(
             out[f"{g}_efficiency_u"] = _section_uncertainty(
                 *(inp[k] for k in roles),
                 r,
-                {kk: uu[k] for kk, k in zip(keys, roles)},
-                {kk: st[k] for kk, k in zip(keys, roles)},
+                {kk: uu[k] for kk, k in zip(keys, roles, strict=True)},
+                {kk: st[k] for kk, k in zip(keys, roles, strict=True)},
                 inlet_states if g == "lp_dry" else None,
             )
 
@@ -1911,7 +1979,11 @@ def evaluate(
                 roles = list(_LP_EXP)
                 if lp_dry_efficiency_source == "measured":
                     roles += ["lp_extraction_p", "lp_extraction_t"]
-                if annulus_area is not None and lp_exhaust_flow_fraction is not None and "main_steam_flow" in cols:
+                if (
+                    annulus_area is not None
+                    and lp_exhaust_flow_fraction is not None
+                    and "main_steam_flow" in cols
+                ):
                     roles.append("main_steam_flow")
             else:
                 roles = sorted(set(_LP_EXP + _HP + _IP) | eb_roles)

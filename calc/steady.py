@@ -38,6 +38,7 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
+from itertools import pairwise
 
 import numpy as np
 import pandas as pd
@@ -142,7 +143,9 @@ def _check_lambda(name: str, lam: float) -> float:
     return lam
 
 
-def r_statistic(x, lambda1: float = 0.2, lambda2: float = 0.1, lambda3: float = 0.1, *, warmup: int | None = None):
+def r_statistic(
+    x, lambda1: float = 0.2, lambda2: float = 0.1, lambda3: float = 0.1, *, warmup: int | None = None
+):
     """Cao & Rhinehart ratio of variances, sample by sample.
 
     With exponential filters of factor lambda (lambda1 for the mean, lambda2 and lambda3 for
@@ -229,7 +232,9 @@ def _breaks(t: np.ndarray, usable: np.ndarray, max_gap_ns: int) -> np.ndarray:
     return brk
 
 
-def _build_windows(frame, t, steady, usable, max_gap_ns, max_length_ns, min_length_ns, reach=None, check=None):
+def _build_windows(
+    frame, t, steady, usable, max_gap_ns, max_length_ns, min_length_ns, reach=None, check=None
+):
     """Window id per sample (-1 none) and the windows table.
 
     ``reach`` (ptc6): two consecutive steady samples stay in one run only if one qualifying
@@ -276,7 +281,9 @@ def _build_windows(frame, t, steady, usable, max_gap_ns, max_length_ns, min_leng
     tz = frame.index.tz
     table = pd.DataFrame(
         {
-            "start": pd.to_datetime(first[keep], utc=True).tz_convert(tz) if tz else pd.to_datetime(first[keep]),
+            "start": pd.to_datetime(first[keep], utc=True).tz_convert(tz)
+            if tz
+            else pd.to_datetime(first[keep]),
             "end": pd.to_datetime(last[keep], utc=True).tz_convert(tz) if tz else pd.to_datetime(last[keep]),
             "n_samples": np.bincount(w, minlength=k),
         }
@@ -402,7 +409,9 @@ def tag_steady(
     min_length_ns = window_ns if min_length is None else _windows.to_ns(min_length, "min_length")
     max_length_ns = _windows.to_ns(max_length, "max_length")
     if max_length_ns < min_length_ns:
-        raise ValueError(f"max_length ({max_length}) must not be shorter than min_length ({min_length or window})")
+        raise ValueError(
+            f"max_length ({max_length}) must not be shorter than min_length ({min_length or window})"
+        )
     step = _windows.typical_step(t)
     if max_gap is None:
         max_gap_ns = max(_windows.to_ns(MIN_MAX_GAP, "max_gap"), 3 * step)
@@ -434,7 +443,9 @@ def tag_steady(
     else:
         if r_critical is None or not r_critical > 0:
             raise ValueError(f"r_critical must be > 0, found {r_critical!r}")
-        steady, usable = _r_method(frame, t, max_gap_ns, r_critical, r_roles, r_lambdas, online & screened, details)
+        steady, usable = _r_method(
+            frame, t, max_gap_ns, r_critical, r_roles, r_lambdas, online & screened, details
+        )
     details["usable"] = usable
 
     window_id, table = _build_windows(
@@ -460,7 +471,9 @@ def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details):
         if lim is None or role not in frame.columns:
             continue
         if len(lim) != 2 or not (lim[0] >= 0 and lim[1] >= 0) or (lim[0] == 0 and lim[1] == 0):
-            raise ValueError(f"limit of {role} must be (relative >= 0, absolute >= 0), not both zero; found {lim!r}")
+            raise ValueError(
+                f"limit of {role} must be (relative >= 0, absolute >= 0), not both zero; found {lim!r}"
+            )
         criteria[role] = (float(lim[0]), float(lim[1]))
     if LOAD_ROLE not in criteria:
         # Load is what makes a window a steady operating point; it always takes part.
@@ -533,7 +546,7 @@ def _r_method(frame, t, max_gap_ns, r_critical, r_roles, r_lambdas, base, detail
     bounds = np.append(bounds, len(idx))
     for role in roles:
         r = np.full(n, np.nan)
-        for a, b in zip(bounds[:-1], bounds[1:]):
+        for a, b in pairwise(bounds):
             rows = idx[a:b]
             r[rows] = r_statistic(values[role][rows], *r_lambdas)
         with np.errstate(invalid="ignore"):

@@ -119,7 +119,9 @@ class RateResult:
 
     def to_dict(self) -> dict:
         """Plain dict (NaN as None) for stores and reports."""
-        return {k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in asdict(self).items()}
+        return {
+            k: (None if isinstance(v, float) and not math.isfinite(v) else v) for k, v in asdict(self).items()
+        }
 
 
 def _insufficient(n: int, span: float, reason: str) -> RateResult:
@@ -196,15 +198,20 @@ def degradation_rate(
     if max_points < min_points:
         raise ValueError(f"max_points ({max_points}) must be >= min_points ({min_points})")
     blocked = breaks is not None and len(np.atleast_1d(breaks)) > 0
-    block = (np.searchsorted(np.sort(np.asarray(breaks, dtype=float)), h, side="right") if blocked
-             else np.zeros(n, dtype=int))
+    block = (
+        np.searchsorted(np.sort(np.asarray(breaks, dtype=float)), h, side="right")
+        if blocked
+        else np.zeros(n, dtype=int)
+    )
     n_used = n
     if n > max_points:
         h, d, block = _group_medians(h, d, block, max_points)
         n_used = int(h.size)
     if not blocked:
         res = stats.theilslopes(d, h / 1000.0, alpha=confidence)
-        slope, intercept, low, high = (float(v) for v in (res.slope, res.intercept, res.low_slope, res.high_slope))
+        slope, intercept, low, high = (
+            float(v) for v in (res.slope, res.intercept, res.low_slope, res.high_slope)
+        )
     else:
         slope, intercept, low, high = _blocked_theil_sen(h / 1000.0, d, block, confidence)
         if not math.isfinite(slope):
@@ -436,7 +443,9 @@ def detect_steps(
     if k < 0 or h <= 0:
         raise ValueError(f"CUSUM needs k >= 0 and h > 0; found k={k!r}, h={h!r}")
     if warmup_points < 1 or min_points < 2:
-        raise ValueError(f"need warmup_points >= 1 and min_points >= 2; found {warmup_points!r}, {min_points!r}")
+        raise ValueError(
+            f"need warmup_points >= 1 and min_points >= 2; found {warmup_points!r}, {min_points!r}"
+        )
     if hours is None:
         if isinstance(t_in, pd.DatetimeIndex) or np.issubdtype(np.asarray(t_in).dtype, np.datetime64):
             tt = pd.DatetimeIndex(t_in)
@@ -453,11 +462,15 @@ def detect_steps(
     x = (x_all[ok] - (x_all[ok][0] if ok.any() else 0.0)) / 1000.0
     n = int(d.size)
     if n < min_points:
-        return Steps(status="insufficient data", n=n, reason=f"{n} valid points, at least {min_points} needed")
+        return Steps(
+            status="insufficient data", n=n, reason=f"{n} valid points, at least {min_points} needed"
+        )
     if sigma is None:
         sigma = _DIFF_MAD_TO_SIGMA * float(np.median(np.abs(np.diff(d) - np.median(np.diff(d)))))
     if not (math.isfinite(sigma) and sigma > 0):
-        return Steps(status="insufficient data", n=n, sigma=float(sigma), reason="no noise scale (series constant)")
+        return Steps(
+            status="insufficient data", n=n, sigma=float(sigma), reason="no noise scale (series constant)"
+        )
 
     # Pass 1: change points and alarm points.
     changes: list[tuple[int, int, str]] = []  # (step index, alarm index, direction)
@@ -506,7 +519,16 @@ def detect_steps(
         size, size_u = _step_size(x[lo:hi], d[lo:hi], tau - lo, drift, sigma)
         if not math.isfinite(size):
             continue
-        steps.append(Step(time=t[tau], size=size, size_u=size_u, direction=direction, detected_at=t[alarm], index=int(tau)))
+        steps.append(
+            Step(
+                time=t[tau],
+                size=size,
+                size_u=size_u,
+                direction=direction,
+                detected_at=t[alarm],
+                index=int(tau),
+            )
+        )
     return Steps(steps, status="ok", sigma=float(sigma), n=n)
 
 
@@ -595,7 +617,9 @@ class Projection:
 _Z95 = 1.959963984540054
 
 
-def project(rate_result: RateResult, current_deviation: float, hours_to_date: float, *, current_u: float = 0.0) -> Projection:
+def project(
+    rate_result: RateResult, current_deviation: float, hours_to_date: float, *, current_u: float = 0.0
+) -> Projection:
     """Project the deviation forward by a number of operating hours.
 
     Parameters
@@ -626,4 +650,10 @@ def project(rate_result: RateResult, current_deviation: float, hours_to_date: fl
     down = (rate_result.slope_per_1000h - rate_result.low) * f
     up = (rate_result.high - rate_result.slope_per_1000h) * f
     cu = _Z95 * float(current_u)
-    return Projection("ok", float(value), float(value - math.hypot(down, cu)), float(value + math.hypot(up, cu)), float(hours_to_date))
+    return Projection(
+        "ok",
+        float(value),
+        float(value - math.hypot(down, cu)),
+        float(value + math.hypot(up, cu)),
+        float(hours_to_date),
+    )

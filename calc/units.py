@@ -182,9 +182,12 @@ _LOOKUP = {name.lower(): name for name in KNOWN_UNITS} | _ALIASES
 #: Spellings refused because they do not say absolute or gauge.
 _AMBIGUOUS = {"psi", "bar", "mbar", "kpa", "mpa", "inhg", "mmhg", "atm"}
 #: What to write instead of an ambiguous spelling.
-_SAY_INSTEAD = {"psi": "psia or psig", "inhg": "inHgA (absolute; vacuum gauges are not supported)",
-                "mmhg": "mmHgA (absolute; vacuum gauges are not supported)",
-                "atm": "kPa(a) (1 atm = 101.325 kPa)"}
+_SAY_INSTEAD = {
+    "psi": "psia or psig",
+    "inhg": "inHgA (absolute; vacuum gauges are not supported)",
+    "mmhg": "mmHgA (absolute; vacuum gauges are not supported)",
+    "atm": "kPa(a) (1 atm = 101.325 kPa)",
+}
 
 
 def canonical_unit(unit: str) -> str:
@@ -380,9 +383,7 @@ def to_internal(
         if barometric_column in frame.columns:
             bunit = units[barometric_column]
             if bunit.quantity != "pressure" or bunit.gauge:
-                raise ValueError(
-                    f"{barometric_column} must be an absolute pressure unit, found {bunit.name}"
-                )
+                raise ValueError(f"{barometric_column} must be an absolute pressure unit, found {bunit.name}")
             baro = bunit.to_internal(numeric[barometric_column])
             holes = ~np.isfinite(baro)
             if holes.any():

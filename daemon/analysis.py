@@ -153,23 +153,40 @@ class Analysis:
             if len(s.steps):
                 steps = pd.DataFrame(
                     {"size": [float(x.size) for x in s.steps], "size_u": [float(x.size_u) for x in s.steps]},
-                    index=pd.DatetimeIndex([pd.Timestamp(x.time) for x in s.steps], name="time"))
+                    index=pd.DatetimeIndex([pd.Timestamp(x.time) for x in s.steps], name="time"),
+                )
                 out.append((STEPS_MEASUREMENT, steps[~steps.index.duplicated(keep="last")], t))
             if s.losses is not None and len(s.losses):
-                cols = ["deviation", "heat_rate_change", "output_change_mw", "lost_mwh", "fuel_cost",
-                        "cumulative_lost_mwh", "cumulative_fuel_cost"]
+                cols = [
+                    "deviation",
+                    "heat_rate_change",
+                    "output_change_mw",
+                    "lost_mwh",
+                    "fuel_cost",
+                    "cumulative_lost_mwh",
+                    "cumulative_fuel_cost",
+                ]
                 out.append((LOSSES_MEASUREMENT, s.losses[cols].astype(float), t))
             row = _outlook_row(s)
             if row:
-                out.append((OUTLOOK_MEASUREMENT, pd.DataFrame(row, index=pd.DatetimeIndex([self.end], name="time")), t))
+                out.append(
+                    (
+                        OUTLOOK_MEASUREMENT,
+                        pd.DataFrame(row, index=pd.DatetimeIndex([self.end], name="time")),
+                        t,
+                    )
+                )
         ev = self.alarm_events
         if len(ev):
             for (section, rule), part in ev.groupby(["section", "rule"], sort=True):
                 frame = pd.DataFrame(
-                    {"raised": (part["kind"] == "raised").to_numpy(dtype=bool),
-                     "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
-                     "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float)},
-                    index=pd.DatetimeIndex(part.index, name="time"))
+                    {
+                        "raised": (part["kind"] == "raised").to_numpy(dtype=bool),
+                        "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
+                        "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float),
+                    },
+                    index=pd.DatetimeIndex(part.index, name="time"),
+                )
                 out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
         return out
 
@@ -178,16 +195,25 @@ def _outlook_row(s: SectionOutlook) -> dict:
     row = {}
     if s.projected_loss is not None and s.projected_loss.status == "ok":
         p = s.projected_loss
-        row.update(projected_lost_mwh=[float(p.lost_mwh)], projected_lost_mwh_low=[float(p.lost_mwh_low)],
-                   projected_lost_mwh_high=[float(p.lost_mwh_high)], projected_fuel_cost=[float(p.fuel_cost)],
-                   projected_fuel_cost_low=[float(p.fuel_cost_low)],
-                   projected_fuel_cost_high=[float(p.fuel_cost_high)])
+        row.update(
+            projected_lost_mwh=[float(p.lost_mwh)],
+            projected_lost_mwh_low=[float(p.lost_mwh_low)],
+            projected_lost_mwh_high=[float(p.lost_mwh_high)],
+            projected_fuel_cost=[float(p.fuel_cost)],
+            projected_fuel_cost_low=[float(p.fuel_cost_low)],
+            projected_fuel_cost_high=[float(p.fuel_cost_high)],
+        )
     if s.overhaul is not None:
         o = s.overhaul
-        row.update(overhaul_payback_years=[float(o.payback_years)],
-                   overhaul_saving_per_year=[float(o.saving_per_year)],
-                   overhaul_break_even_s=[float((pd.Timestamp(o.break_even) - _EPOCH).total_seconds())
-                                          if o.break_even is not None else math.nan])
+        row.update(
+            overhaul_payback_years=[float(o.payback_years)],
+            overhaul_saving_per_year=[float(o.saving_per_year)],
+            overhaul_break_even_s=[
+                float((pd.Timestamp(o.break_even) - _EPOCH).total_seconds())
+                if o.break_even is not None
+                else math.nan
+            ],
+        )
     return row
 
 
@@ -238,8 +264,9 @@ def _month_ends(first: pd.Timestamp, end: pd.Timestamp) -> pd.DatetimeIndex:
     return ends.append(pd.DatetimeIndex([end])).unique().sort_values()
 
 
-def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd.Series, config,
-            end: pd.Timestamp) -> Analysis:
+def analyse(
+    deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd.Series, config, end: pd.Timestamp
+) -> Analysis:
     """Rates, steps, projections, costs and the slow alarms from a unit's history.
 
     Parameters
@@ -271,9 +298,12 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
     econ = config.economics
     basis = None
     if econ.fuel_price_per_gj is not None and econ.heat_rate_kj_per_kwh is not None:
-        basis = economics.CostBasis(heat_rate_kj_per_kwh=float(econ.heat_rate_kj_per_kwh),
-                                    boiler_efficiency=float(econ.boiler_efficiency),
-                                    fuel_price_per_gj=float(econ.fuel_price_per_gj), currency=econ.currency)
+        basis = economics.CostBasis(
+            heat_rate_kj_per_kwh=float(econ.heat_rate_kj_per_kwh),
+            boiler_efficiency=float(econ.boiler_efficiency),
+            fuel_price_per_gj=float(econ.fuel_price_per_gj),
+            currency=econ.currency,
+        )
     else:
         notes.append("no fuel price or heat rate in [economics]: costs not computed")
     outage = pd.Timestamp(econ.planned_outage).tz_localize("UTC") if econ.planned_outage is not None else None
@@ -291,16 +321,25 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
         dev = dev[np.isfinite(dev.to_numpy(dtype=float))]
         if not len(dev):
             continue
-        dev_u = (pd.to_numeric(frame["deviation_u"], errors="coerce").reindex(dev.index)
-                 if "deviation_u" in frame else None)
+        dev_u = (
+            pd.to_numeric(frame["deviation_u"], errors="coerce").reindex(dev.index)
+            if "deviation_u" in frame
+            else None
+        )
         hours = _hours_at(pd.DatetimeIndex(dev.index), on)
         h0 = hours[0]
         rel = hours - h0
         # refine: the step time is the least-squares change point, not the point after the
         # CUSUM's last zero, which can fall windows before the cause (a trip's step is then
         # placed at the first steady window after the restart, where the loss first shows)
-        found = trend.detect_steps(dev.index, dev.to_numpy(dtype=float), hours=rel, k=float(a.cusum_k),
-                                   h=float(a.cusum_h), refine=True)
+        found = trend.detect_steps(
+            dev.index,
+            dev.to_numpy(dtype=float),
+            hours=rel,
+            k=float(a.cusum_k),
+            h=float(a.cusum_h),
+            refine=True,
+        )
         steps = [s for s in found if abs(float(s.size)) >= float(a.min_step_points)]
         breaks = [rel[int(s.index)] for s in steps] if len(steps) else None
         rate = trend.degradation_rate(rel, dev.to_numpy(dtype=float), breaks=breaks)
@@ -320,68 +359,148 @@ def analyse(deviation: dict[str, pd.DataFrame], online: pd.Series, output_mw: pd
                 continue
             r = _rate_until(dev, rel, steps, t)
             c, cu = _current(dev[sel], t)
-            rows.append({"time": t, "rate_per_1000h": r.slope_per_1000h, "rate_low": r.low,
-                         "rate_high": r.high, "rate_per_month": r.per_month, "rate_ok": r.status == "ok",
-                         "n_windows": float(r.n), "operating_hours": float(rel[sel][-1]),
-                         "deviation_now": c, "deviation_now_u": cu,
-                         "deviation_now_window_u": _window_u(dev_u[sel] if dev_u is not None else None, t)})
+            rows.append(
+                {
+                    "time": t,
+                    "rate_per_1000h": r.slope_per_1000h,
+                    "rate_low": r.low,
+                    "rate_high": r.high,
+                    "rate_per_month": r.per_month,
+                    "rate_ok": r.status == "ok",
+                    "n_windows": float(r.n),
+                    "operating_hours": float(rel[sel][-1]),
+                    "deviation_now": c,
+                    "deviation_now_u": cu,
+                    "deviation_now_window_u": _window_u(dev_u[sel] if dev_u is not None else None, t),
+                }
+            )
             # the net offset of the steps found up to t (signed: negative is a loss); it stays
             # while no later step takes it back, so the step alarm stays raised with it
             step_offset = float(sum(float(s.size) for s in steps if pd.Timestamp(s.time) <= t))
             if r.status == "ok":
-                obs_parts.append({"time": t, "section": name, "quantity": alarms.QUANTITY_RATE,
-                                  "value": float(r.slope_per_1000h), "steady": True})
-            obs_parts.append({"time": t, "section": name, "quantity": alarms.QUANTITY_STEP,
-                              "value": step_offset, "steady": True})
+                obs_parts.append(
+                    {
+                        "time": t,
+                        "section": name,
+                        "quantity": alarms.QUANTITY_RATE,
+                        "value": float(r.slope_per_1000h),
+                        "steady": True,
+                    }
+                )
+            obs_parts.append(
+                {
+                    "time": t,
+                    "section": name,
+                    "quantity": alarms.QUANTITY_STEP,
+                    "value": step_offset,
+                    "steady": True,
+                }
+            )
         monthly = pd.DataFrame(rows).set_index("time")
         monthly.index = pd.DatetimeIndex(monthly.index, name="time")
         if projection is not None and projection.status == "ok":
             monthly.loc[monthly.index[-1], ["projected", "projected_low", "projected_high"]] = [
-                projection.value, projection.low, projection.high]
-        out = SectionOutlook(section=name, deviation=dev, hours=rel, rate=rate, steps=steps, current=current,
-                             current_u=current_u, projection=projection, monthly=monthly, deviation_u=dev_u,
-                             current_window_u=_window_u(dev_u, end))
+                projection.value,
+                projection.low,
+                projection.high,
+            ]
+        out = SectionOutlook(
+            section=name,
+            deviation=dev,
+            hours=rel,
+            rate=rate,
+            steps=steps,
+            current=current,
+            current_u=current_u,
+            projection=projection,
+            monthly=monthly,
+            deviation_u=dev_u,
+            current_window_u=_window_u(dev_u, end),
+        )
         if basis is not None and math.isfinite(mean_output):
             sens = econ.sensitivity.get(name)
             hr = {name: sens.heat_rate_percent_per_point} if sens else None
             oc = {name: sens.output_percent_per_point} if sens else None
             daily_online = on.groupby(on.index.floor("D")).sum() * _sample_hours(on)
-            out.losses = economics.daily_losses(dev, name, output_mw=mean_output, basis=basis,
-                                                online_hours=daily_online, heat_rate_coefficients=hr,
-                                                output_coefficients=oc)
+            out.losses = economics.daily_losses(
+                dev,
+                name,
+                output_mw=mean_output,
+                basis=basis,
+                online_hours=daily_online,
+                heat_rate_coefficients=hr,
+                output_coefficients=oc,
+            )
             if math.isfinite(hours_ahead) and math.isfinite(current):
-                out.projected_loss = economics.projected_loss(rate, current, hours_ahead, name,
-                                                              output_mw=mean_output, basis=basis,
-                                                              heat_rate_coefficients=hr, output_coefficients=oc)
+                out.projected_loss = economics.projected_loss(
+                    rate,
+                    current,
+                    hours_ahead,
+                    name,
+                    output_mw=mean_output,
+                    basis=basis,
+                    heat_rate_coefficients=hr,
+                    output_coefficients=oc,
+                )
             case = econ.overhaul.get(name)
             if case is not None and math.isfinite(availability):
-                out.overhaul = economics.overhaul_case(case.recoverable_points, case.cost, name,
-                                                       output_mw=mean_output, basis=basis,
-                                                       operating_hours_per_year=8760.0 * availability,
-                                                       start=outage or end, heat_rate_coefficients=hr,
-                                                       output_coefficients=oc)
+                out.overhaul = economics.overhaul_case(
+                    case.recoverable_points,
+                    case.cost,
+                    name,
+                    output_mw=mean_output,
+                    basis=basis,
+                    operating_hours_per_year=8760.0 * availability,
+                    start=outage or end,
+                    heat_rate_coefficients=hr,
+                    output_coefficients=oc,
+                )
         sections[name] = out
     rules = [
         # a rate is a loss when negative: raised below -limit, cleared at 80 % of it
         # (project choice, no source)
-        alarms.Rule("degradation_rate", alarms.QUANTITY_RATE, "below", -float(a.rate_limit_per_1000h),
-                    -0.8 * float(a.rate_limit_per_1000h), 1, 1, unit="points/1000 h",
-                    label="degradation rate"),
+        alarms.Rule(
+            "degradation_rate",
+            alarms.QUANTITY_RATE,
+            "below",
+            -float(a.rate_limit_per_1000h),
+            -0.8 * float(a.rate_limit_per_1000h),
+            1,
+            1,
+            unit="points/1000 h",
+            label="degradation rate",
+        ),
         # a loss by steps: raised when the net offset of the steps found falls below
         # -min_step_points, cleared when later steps up bring it back above half of that
         # (project choice, no source); a gradual recovery does not clear it
-        alarms.Rule("step_change", alarms.QUANTITY_STEP, "below", -float(a.min_step_points),
-                    -0.5 * float(a.min_step_points), 1, 1, unit="points",
-                    label="net step change in the deviation"),
+        alarms.Rule(
+            "step_change",
+            alarms.QUANTITY_STEP,
+            "below",
+            -float(a.min_step_points),
+            -0.5 * float(a.min_step_points),
+            1,
+            1,
+            unit="points",
+            label="net step change in the deviation",
+        ),
     ]
     if obs_parts:
         obs = pd.DataFrame(obs_parts).sort_values(["time", "section", "quantity"], kind="stable")
         _, events = alarms.evaluate_alarms(None, obs.reset_index(drop=True), rules)
     else:
-        events = pd.DataFrame(columns=["section", "rule", "kind", "value", "threshold", "message"],
-                              index=pd.DatetimeIndex([], tz="UTC", name="time"))
-    return Analysis(end=end, sections=sections, alarm_events=events, availability=availability,
-                    mean_output_mw=mean_output, notes=notes)
+        events = pd.DataFrame(
+            columns=["section", "rule", "kind", "value", "threshold", "message"],
+            index=pd.DatetimeIndex([], tz="UTC", name="time"),
+        )
+    return Analysis(
+        end=end,
+        sections=sections,
+        alarm_events=events,
+        availability=availability,
+        mean_output_mw=mean_output,
+        notes=notes,
+    )
 
 
 def _sample_hours(series: pd.Series) -> float:
@@ -423,8 +542,9 @@ def raised_alarms(store, config, start: pd.Timestamp, end: pd.Timestamp) -> dict
     """
     out: dict[str, list[tuple]] = {}
     for section, rule in alarm_series(config):
-        ev = store.read_results(ALARMS_MEASUREMENT, start, end,
-                                {"unit": config.unit.name, "section": section, "rule": rule})
+        ev = store.read_results(
+            ALARMS_MEASUREMENT, start, end, {"unit": config.unit.name, "section": section, "rule": rule}
+        )
         if len(ev) and "raised" in ev:
             for t in ev.index[ev["raised"].to_numpy(dtype=float) > 0.5]:
                 out.setdefault(section, []).append((t, rule))
@@ -488,12 +608,21 @@ def period_view(analysis: Analysis, start: pd.Timestamp, end: pd.Timestamp) -> d
         dev = o.deviation
         until = dev[dev.index < end]
         current, current_u = _current(until, end)
-        window_u = _window_u(o.deviation_u[o.deviation_u.index < end] if o.deviation_u is not None else None, end)
+        window_u = _window_u(
+            o.deviation_u[o.deviation_u.index < end] if o.deviation_u is not None else None, end
+        )
         rate = _rate_until(dev, o.hours, o.steps, end - pd.Timedelta(1, unit="ns"))
-        view = PeriodView(section=name, start=start, end=end,
-                          n_windows=int(((dev.index >= start) & (dev.index < end)).sum()),
-                          deviation_end=current, deviation_end_u=current_u, window_u=window_u, rate=rate,
-                          steps=[s for s in o.steps if start <= pd.Timestamp(s.time) < end])
+        view = PeriodView(
+            section=name,
+            start=start,
+            end=end,
+            n_windows=int(((dev.index >= start) & (dev.index < end)).sum()),
+            deviation_end=current,
+            deviation_end_u=current_u,
+            window_u=window_u,
+            rate=rate,
+            steps=[s for s in o.steps if start <= pd.Timestamp(s.time) < end],
+        )
         if o.losses is not None and len(o.losses):
             days = o.losses.index
             part = o.losses[(days < end) & (days + pd.Timedelta(days=1) > start)]
@@ -504,7 +633,9 @@ def period_view(analysis: Analysis, start: pd.Timestamp, end: pd.Timestamp) -> d
             else:
                 view.lost_mwh = view.fuel_cost = 0.0
                 before = o.losses[days < end]
-                view.cumulative_fuel_cost = float(before["cumulative_fuel_cost"].iloc[-1]) if len(before) else 0.0
+                view.cumulative_fuel_cost = (
+                    float(before["cumulative_fuel_cost"].iloc[-1]) if len(before) else 0.0
+                )
         out[name] = view
     return out
 
@@ -526,8 +657,9 @@ def reference_start(store, config) -> pd.Timestamp | None:
 _READ_AHEAD = pd.Timedelta(days=1)
 
 
-def run_analysis(store, config, start: pd.Timestamp | None = None, end: pd.Timestamp | None = None, *,
-                 write: bool = True) -> Analysis:
+def run_analysis(
+    store, config, start: pd.Timestamp | None = None, end: pd.Timestamp | None = None, *, write: bool = True
+) -> Analysis:
     """Read a unit's deviations and online history from ``store``, analyse, write back.
 
     The analysis always belongs to the whole history: rates, steps, the cumulative cost and
@@ -559,43 +691,65 @@ def run_analysis(store, config, start: pd.Timestamp | None = None, end: pd.Times
     unit = config.unit.name
     tags = {"unit": unit}
     saved = store.load_state(f"baseline/{unit}")
-    models = {sec: BaselineModel.from_json(text) for sec, text in sorted((saved or {}).get("models", {}).items())}
+    models = {
+        sec: BaselineModel.from_json(text) for sec, text in sorted((saved or {}).get("models", {}).items())
+    }
     ref = reference_start(store, config)
     ahead = pd.Timestamp.now(tz="UTC") + _READ_AHEAD
     start = pd.Timestamp(start) if start is not None else ref
     end = pd.Timestamp(end) if end is not None else None
     if start is None or not models:
-        empty = analyse({}, pd.Series([], dtype=bool, index=pd.DatetimeIndex([], tz="UTC")),
-                        pd.Series([], dtype=float, index=pd.DatetimeIndex([], tz="UTC")), config,
-                        end if end is not None else pd.Timestamp.now(tz="UTC").floor("min"))
+        empty = analyse(
+            {},
+            pd.Series([], dtype=bool, index=pd.DatetimeIndex([], tz="UTC")),
+            pd.Series([], dtype=float, index=pd.DatetimeIndex([], tz="UTC")),
+            config,
+            end if end is not None else pd.Timestamp.now(tz="UTC").floor("min"),
+        )
         empty.notes.append("no baseline model saved yet: nothing to analyse")
         return empty
     gross = [m for m in config.mappings if m.role == "gross_output"]
-    power = store.read(gross, start, end if end is not None else ahead,
-                       barometric_kpa=config.screening.barometric_kpa)["gross_output"]
+    power = store.read(
+        gross, start, end if end is not None else ahead, barometric_kpa=config.screening.barometric_kpa
+    )["gross_output"]
     if end is None:
-        spacing = (pd.Timedelta(int(np.median(np.diff(power.index.asi8))), unit="ns") if len(power) > 1
-                   else pd.Timedelta(0))
+        spacing = (
+            pd.Timedelta(int(np.median(np.diff(power.index.asi8))), unit="ns")
+            if len(power) > 1
+            else pd.Timedelta(0)
+        )
         end = power.index[-1] + spacing if len(power) else start
     if write:
         left_out = []
         if ref is not None and start > ref:
             left_out.append(f"it starts at {start.isoformat()}, after the reference start {ref.isoformat()}")
-        later = {sec: store.read_results(DEVIATION_MEASUREMENT, end, max(ahead, end + _READ_AHEAD),
-                                         {**tags, "section": sec, "model": model.model_id})
-                 for sec, model in models.items()}
+        later = {
+            sec: store.read_results(
+                DEVIATION_MEASUREMENT,
+                end,
+                max(ahead, end + _READ_AHEAD),
+                {**tags, "section": sec, "model": model.model_id},
+            )
+            for sec, model in models.items()
+        }
         later = {sec: frame.index.min() for sec, frame in later.items() if len(frame)}
         if later:
-            left_out.append(f"stored deviation rows ({', '.join(later)}) from {min(later.values()).isoformat()} "
-                            f"lie at or after its end {end.isoformat()}")
+            left_out.append(
+                f"stored deviation rows ({', '.join(later)}) from {min(later.values()).isoformat()} "
+                f"lie at or after its end {end.isoformat()}"
+            )
         if left_out:
-            raise ValueError("run_analysis: not writing a partial analysis over the stored one ("
-                             + "; ".join(left_out) + "): analyse the whole history (no start/end) or pass "
-                             "write=False")
+            raise ValueError(
+                "run_analysis: not writing a partial analysis over the stored one ("
+                + "; ".join(left_out)
+                + "): analyse the whole history (no start/end) or pass "
+                "write=False"
+            )
     deviation = {}
     for sec, model in models.items():
-        deviation[sec] = store.read_results(DEVIATION_MEASUREMENT, start, end,
-                                            {**tags, "section": sec, "model": model.model_id})
+        deviation[sec] = store.read_results(
+            DEVIATION_MEASUREMENT, start, end, {**tags, "section": sec, "model": model.model_id}
+        )
     power = power[power.index < end]
     online = power > float(config.unit.online_mw)
     result = analyse(deviation, online, power, config, end)

@@ -40,8 +40,12 @@ def build_parser() -> tuple[argparse.ArgumentParser, dict]:
     for name in COMMAND_MODULES:
         module = importlib.import_module(name)
         p = sub.add_parser(module.NAME, help=module.HELP, description=module.HELP)
-        p.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
-                       help="show tracebacks and debug logging")
+        p.add_argument(
+            "--debug",
+            action="store_true",
+            default=argparse.SUPPRESS,
+            help="show tracebacks and debug logging",
+        )
         module.add_arguments(p)
         modules[module.NAME] = module
     return parser, modules

@@ -40,6 +40,7 @@ import os
 import re
 import tomllib
 from dataclasses import dataclass, field
+from itertools import pairwise
 from pathlib import Path
 from typing import Any
 
@@ -49,10 +50,26 @@ from isentrope.daemon.errors import ConfigError
 from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
 
 __all__ = [
-    "Config", "UnitConfig", "StoreConfig", "Secret", "RoleUncertainty", "ScreeningConfig",
-    "SteadyConfig", "SectionsConfig", "BaselineConfig", "AlarmsConfig", "SensitivityConfig",
-    "OverhaulCase", "EconomicsConfig", "ScheduleConfig", "load_config", "parse_config",
-    "parse_duration", "format_duration", "SECTIONS", "STORE_KINDS",
+    "Config",
+    "UnitConfig",
+    "StoreConfig",
+    "Secret",
+    "RoleUncertainty",
+    "ScreeningConfig",
+    "SteadyConfig",
+    "SectionsConfig",
+    "BaselineConfig",
+    "AlarmsConfig",
+    "SensitivityConfig",
+    "OverhaulCase",
+    "EconomicsConfig",
+    "ScheduleConfig",
+    "load_config",
+    "parse_config",
+    "parse_duration",
+    "format_duration",
+    "SECTIONS",
+    "STORE_KINDS",
 ]
 
 SECTIONS = ("hp", "ip", "lp")
@@ -96,7 +113,7 @@ def parse_duration(text: str) -> dt.timedelta:
     Raises ValueError naming what was found and the accepted form.
     """
     if not isinstance(text, str):
-        raise ValueError(f"expected a duration string such as \"15m\", found {text!r}")
+        raise ValueError(f'expected a duration string such as "15m", found {text!r}')
     s = text.strip().lower().replace(" ", "")
     pos, seconds = 0, 0.0
     for m in _DURATION_PART.finditer(s):
@@ -105,9 +122,7 @@ def parse_duration(text: str) -> dt.timedelta:
         seconds += float(m.group(1)) * _DURATION_UNIT[m.group(2)]
         pos = m.end()
     if not s or pos != len(s):
-        raise ValueError(
-            f"expected a duration such as \"30s\", \"15m\", \"2h\", \"1d\" or \"1h30m\", found {text!r}"
-        )
+        raise ValueError(f'expected a duration such as "30s", "15m", "2h", "1d" or "1h30m", found {text!r}')
     return dt.timedelta(seconds=seconds)
 
 
@@ -169,8 +184,10 @@ class StoreConfig:
         from isentrope.daemon.stores import FatalStoreError, open_store
 
         if self.kind == "sqlite" and not create and not Path(self.path).is_file():
-            raise FatalStoreError(f"no SQLite store at {self.path} (check [store] path; "
-                                  "the file is created by import-csv, run, backfill or demo)")
+            raise FatalStoreError(
+                f"no SQLite store at {self.path} (check [store] path; "
+                "the file is created by import-csv, run, backfill or demo)"
+            )
         return open_store(self.kind, **self.open_options())
 
     def open_options(self) -> dict[str, Any]:
@@ -449,7 +466,9 @@ class Config:
 # where each key is written (for messages only)
 # --------------------------------------------------------------------------------------
 _HEADER = re.compile(r"^\s*\[\[?\s*([A-Za-z0-9_\-\"'][^\]]*?)\s*\]\]?\s*(#.*)?$")
-_KEYLINE = re.compile(r"^\s*((?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*'))*)\s*=")
+_KEYLINE = re.compile(
+    r"^\s*((?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*')(?:\s*\.\s*(?:[A-Za-z0-9_\-]+|\"[^\"]*\"|'[^']*'))*)\s*="
+)
 _STRINGS = re.compile(r"\"(?:[^\"\\]|\\.)*\"|'[^']*'")
 
 
@@ -479,7 +498,7 @@ def _key_lines(text: str) -> dict[tuple[str, ...], int]:
         if m:
             path = table + _split_key(m.group(1))
             lines.setdefault(path, number)
-            rest = _STRINGS.sub('""', raw[m.end():])
+            rest = _STRINGS.sub('""', raw[m.end() :])
             rest = rest.split("#", 1)[0]
             depth = max(0, rest.count("[") + rest.count("{") - rest.count("]") - rest.count("}"))
     return lines
@@ -502,7 +521,7 @@ class _Reader:
         """Line of ``path``, else of the first key under it, else of its nearest parent."""
         if path in self.lines:
             return self.lines[path]
-        below = [n for k, n in self.lines.items() if k[:len(path)] == path]
+        below = [n for k, n in self.lines.items() if k[: len(path)] == path]
         if below:
             return min(below)
         for n in range(len(path) - 1, 0, -1):
@@ -538,12 +557,26 @@ class _Reader:
         for key in data:
             if key not in allowed:
                 close = difflib.get_close_matches(key, allowed, n=1, cutoff=0.6)
-                hint = f"; did you mean '{close[0]}'?" if close else f"; known keys: {', '.join(sorted(allowed))}"
+                hint = (
+                    f"; did you mean '{close[0]}'?"
+                    if close
+                    else f"; known keys: {', '.join(sorted(allowed))}"
+                )
                 self.problem(path + (key,), f"unknown key{hint}")
 
     # -- values --------------------------------------------------------------------------
-    def value(self, data: dict, path: tuple[str, ...], kind: str, default: Any = _MISSING,
-              choices=None, low=None, high=None, low_open=False, high_open=False) -> Any:
+    def value(
+        self,
+        data: dict,
+        path: tuple[str, ...],
+        kind: str,
+        default: Any = _MISSING,
+        choices=None,
+        low=None,
+        high=None,
+        low_open=False,
+        high_open=False,
+    ) -> Any:
         key = path[-1]
         raw = data.get(key, _MISSING)
         if raw is _MISSING:
@@ -568,7 +601,9 @@ class _Reader:
             if bad_low or bad_high:
                 lo = "" if low is None else (f"> {low}" if low_open else f">= {low}")
                 hi = "" if high is None else (f"< {high}" if high_open else f"<= {high}")
-                self.problem(path, f"expected a value {' and '.join(p for p in (lo, hi) if p)}, found {raw!r}")
+                self.problem(
+                    path, f"expected a value {' and '.join(p for p in (lo, hi) if p)}, found {raw!r}"
+                )
                 return None if default is _MISSING else default
         return value
 
@@ -608,7 +643,7 @@ def _convert(raw: Any, kind: str) -> Any:
         return float(raw)
     if kind == "duration":
         if not isinstance(raw, str):
-            raise ValueError(f"expected a duration string such as \"15m\", found {_kind(raw)}")
+            raise ValueError(f'expected a duration string such as "15m", found {_kind(raw)}')
         return parse_duration(raw)
     if kind == "time":
         if isinstance(raw, (dt.datetime, dt.date)):
@@ -617,7 +652,9 @@ def _convert(raw: Any, kind: str) -> Any:
             try:
                 ts = pd.Timestamp(raw)
             except (ValueError, TypeError):
-                raise ValueError(f"expected an ISO 8601 time such as \"2026-03-01T00:00:00Z\", found {raw!r}") from None
+                raise ValueError(
+                    f'expected an ISO 8601 time such as "2026-03-01T00:00:00Z", found {raw!r}'
+                ) from None
         else:
             raise ValueError(f"expected an ISO 8601 time, found {_kind(raw)}")
         if ts is pd.NaT or pd.isna(ts):
@@ -635,8 +672,11 @@ def _convert(raw: Any, kind: str) -> Any:
                 raise ValueError(f"expected a date such as 2027-04-15, found {raw!r}") from None
         raise ValueError(f"expected a date, found {_kind(raw)}")
     if kind == "pair":
-        if (not isinstance(raw, list) or len(raw) != 2
-                or any(isinstance(v, bool) or not isinstance(v, (int, float)) for v in raw)):
+        if (
+            not isinstance(raw, list)
+            or len(raw) != 2
+            or any(isinstance(v, bool) or not isinstance(v, (int, float)) for v in raw)
+        ):
             raise ValueError(f"expected [low, high] (two numbers), found {raw!r}")
         lo, hi = float(raw[0]), float(raw[1])
         if not (math.isfinite(lo) and math.isfinite(hi)) or lo >= hi:
@@ -644,7 +684,7 @@ def _convert(raw: Any, kind: str) -> Any:
         return (lo, hi)
     if kind == "str_table":
         if not isinstance(raw, dict) or any(not isinstance(v, str) for v in raw.values()):
-            raise ValueError(f"expected a table of strings such as {{ unit = \"7\" }}, found {raw!r}")
+            raise ValueError(f'expected a table of strings such as {{ unit = "7" }}, found {raw!r}')
         return dict(raw)
     raise AssertionError(kind)
 
@@ -666,12 +706,15 @@ def _secret(r: _Reader, data: dict, path: tuple[str, ...], base_dir: Path, envir
     if has_value:
         raw = data[key]
         if not isinstance(raw, str):
-            r.problem(path, f"expected \"${{ENV_NAME}}\", found {_kind(raw)}")
+            r.problem(path, f'expected "${{ENV_NAME}}", found {_kind(raw)}')
             return None
         m = _ENV_REF.match(raw.strip())
         if not m:
-            r.problem(path, "write secrets as \"${ENV_NAME}\" or use "
-                      f"'{file_key}'; a secret written in the file is refused")
+            r.problem(
+                path,
+                'write secrets as "${ENV_NAME}" or use '
+                f"'{file_key}'; a secret written in the file is refused",
+            )
             return None
         name = m.group(1)
         if name not in environ:
@@ -723,15 +766,31 @@ def _read_unit(r: _Reader, top: dict) -> UnitConfig:
         online = 0.1 * rating if rating else 0.0  # 10 % of rating: common practice, no source
     elif rating and online >= rating:
         r.problem(p + ("online_mw",), f"must be below rating_mw ({rating:g}), found {online:g}")
-    return UnitConfig(name=name or "", plant=r.value(d, p + ("plant",), "str", default=""),
-                      rating_mw=rating or 0.0, online_mw=online)
+    return UnitConfig(
+        name=name or "",
+        plant=r.value(d, p + ("plant",), "str", default=""),
+        rating_mw=rating or 0.0,
+        online_mw=online,
+    )
 
 
 _STORE_KEYS = {
     "sqlite": {"kind", "path"},
     "influx2": {"kind", "url", "org", "bucket", "token", "token_file", "verify_ssl", "timeout", "batch_size"},
-    "influx1": {"kind", "url", "database", "retention_policy", "username", "password", "password_file",
-                "token", "token_file", "verify_ssl", "timeout", "batch_size"},
+    "influx1": {
+        "kind",
+        "url",
+        "database",
+        "retention_policy",
+        "username",
+        "password",
+        "password_file",
+        "token",
+        "token_file",
+        "verify_ssl",
+        "timeout",
+        "batch_size",
+    },
 }
 
 
@@ -756,7 +815,9 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
     common = dict(
         url=url or "",
         verify_ssl=r.value(d, p + ("verify_ssl",), "bool", default=True),
-        timeout=r.value(d, p + ("timeout",), "duration", default=dt.timedelta(seconds=10), low=0, low_open=True),
+        timeout=r.value(
+            d, p + ("timeout",), "duration", default=dt.timedelta(seconds=10), low=0, low_open=True
+        ),
         batch_size=r.value(d, p + ("batch_size",), "int", default=5000, low=1),
     )
     if kind == "influx2":
@@ -776,9 +837,15 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
         r.problem(p + ("token",), "give either 'token' or 'username'/'password', not both")
     if has_password and not username:
         r.problem(p + ("username",), "missing required key 'username' (a password is given)")
-    return StoreConfig(kind=kind, database=database or "",
-                       retention_policy=r.value(d, p + ("retention_policy",), "str", default=""),
-                       username=username, token=token, password=password, **common)
+    return StoreConfig(
+        kind=kind,
+        database=database or "",
+        retention_policy=r.value(d, p + ("retention_policy",), "str", default=""),
+        username=username,
+        token=token,
+        password=password,
+        **common,
+    )
 
 
 def _units_module():
@@ -844,8 +911,9 @@ def _read_roles(r: _Reader, top: dict) -> tuple[dict[str, RoleMapping], dict[str
         basis_default, basis = DEFAULT_UNCERTAINTY[quantity]
         u = r.value(body, rp + ("uncertainty",), "float", default=basis_default, low=0)
         if tag and unit:
-            roles[role] = RoleMapping(role=role, tag=tag, unit=unit, measurement=measurement,
-                                      field=fld, tags=tags, range=rng)
+            roles[role] = RoleMapping(
+                role=role, tag=tag, unit=unit, measurement=measurement, field=fld, tags=tags, range=rng
+            )
             unc[role] = RoleUncertainty(value=u, basis=basis)
     if isinstance(d, dict):
         missing = [role for role in REQUIRED_ROLES if role not in d]
@@ -874,10 +942,13 @@ def _read_screening(r: _Reader, top: dict) -> ScreeningConfig:
         r.problem(p + ("efficiency_band",), f"expected fractions within [0, 1.2], found {list(band)}")
     return ScreeningConfig(
         flatline=r.value(d, p + ("flatline",), "duration", D.flatline, low=0, low_open=True),
-        flatline_tolerance=r.value(d, p + ("flatline_tolerance",), "float", D.flatline_tolerance, low=0,
-                                   high=FLATLINE_TOLERANCE_MAX),
+        flatline_tolerance=r.value(
+            d, p + ("flatline_tolerance",), "float", D.flatline_tolerance, low=0, high=FLATLINE_TOLERANCE_MAX
+        ),
         spike_window=r.value(d, p + ("spike_window",), "duration", D.spike_window, low=0, low_open=True),
-        spike_threshold=r.value(d, p + ("spike_threshold",), "float", D.spike_threshold, low=0, low_open=True),
+        spike_threshold=r.value(
+            d, p + ("spike_threshold",), "float", D.spike_threshold, low=0, low_open=True
+        ),
         efficiency_band=band or D.efficiency_band,
         barometric_kpa=r.value(d, p + ("barometric_kpa",), "float", None, low=50.0, high=110.0),
     )
@@ -893,22 +964,34 @@ def _read_steady(r: _Reader, top: dict) -> SteadyConfig:
     for k in ("window", "min_length", "max_length"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0, low_open=True)
     v["max_gap"] = r.value(d, p + ("max_gap",), "duration", D.max_gap, low=0)
-    for k in ("load_band_percent", "throttle_p_percent", "throttle_p_kpa", "temperature_k",
-              "exhaust_p_percent", "exhaust_p_kpa"):
+    for k in (
+        "load_band_percent",
+        "throttle_p_percent",
+        "throttle_p_kpa",
+        "temperature_k",
+        "exhaust_p_percent",
+        "exhaust_p_kpa",
+    ):
         v[k] = r.value(d, p + (k,), "float", getattr(D, k), low=0, low_open=True)
     v["r_critical"] = r.value(d, p + ("r_critical",), "float", D.r_critical, low=1.0, low_open=True)
     raw = d.get("r_filter", _MISSING)
     if raw is _MISSING:
         v["r_filter"] = D.r_filter
-    elif (isinstance(raw, list) and len(raw) == 3
-          and all(not isinstance(x, bool) and isinstance(x, (int, float)) and 0 < x <= 1 for x in raw)):
+    elif (
+        isinstance(raw, list)
+        and len(raw) == 3
+        and all(not isinstance(x, bool) and isinstance(x, (int, float)) and 0 < x <= 1 for x in raw)
+    ):
         v["r_filter"] = tuple(float(x) for x in raw)
     else:
         r.problem(p + ("r_filter",), f"expected three filter factors in (0, 1], found {raw!r}")
         v["r_filter"] = D.r_filter
     if v["min_length"] > v["max_length"]:
-        r.problem(p + ("min_length",), f"must not exceed max_length ({format_duration(v['max_length'])}), "
-                  f"found {format_duration(v['min_length'])}")
+        r.problem(
+            p + ("min_length",),
+            f"must not exceed max_length ({format_duration(v['max_length'])}), "
+            f"found {format_duration(v['min_length'])}",
+        )
     return SteadyConfig(**v)
 
 
@@ -918,31 +1001,51 @@ def _read_sections(r: _Reader, top: dict, roles: dict) -> SectionsConfig:
     r.unknown(d, p, _fields(SectionsConfig))
     D = SectionsConfig()
     v = {}
-    v["lp_mode"] = r.value(d, p + ("lp_mode",), "str", D.lp_mode, choices=("auto", "expansion", "energy_balance"))
-    v["lp_dry_efficiency_source"] = r.value(d, p + ("lp_dry_efficiency_source",), "str",
-                                            D.lp_dry_efficiency_source, choices=("design", "measured"))
+    v["lp_mode"] = r.value(
+        d, p + ("lp_mode",), "str", D.lp_mode, choices=("auto", "expansion", "energy_balance")
+    )
+    v["lp_dry_efficiency_source"] = r.value(
+        d,
+        p + ("lp_dry_efficiency_source",),
+        "str",
+        D.lp_dry_efficiency_source,
+        choices=("design", "measured"),
+    )
     v["eta_lp_design"] = r.value(d, p + ("eta_lp_design",), "float", D.eta_lp_design, low=0.5, high=1.0)
     v["baumann"] = r.value(d, p + ("baumann",), "float", D.baumann, low=0.0, high=2.0)
     v["annulus_area_m2"] = r.value(d, p + ("annulus_area_m2",), "float", None, low=0, low_open=True)
     for k in ("lp_exhaust_flow_fraction", "reheat_flow_fraction", "crossover_flow_fraction"):
         v[k] = r.value(d, p + (k,), "float", None, low=0, high=1.0, low_open=True)
-    v["mechanical_losses_mw"] = r.value(d, p + ("mechanical_losses_mw",), "float", D.mechanical_losses_mw, low=0)
-    v["generator_efficiency"] = r.value(d, p + ("generator_efficiency",), "float", D.generator_efficiency,
-                                        low=0.5, high=1.0)
+    v["mechanical_losses_mw"] = r.value(
+        d, p + ("mechanical_losses_mw",), "float", D.mechanical_losses_mw, low=0
+    )
+    v["generator_efficiency"] = r.value(
+        d, p + ("generator_efficiency",), "float", D.generator_efficiency, low=0.5, high=1.0
+    )
     raw = d.get("exhaust_loss_curve", _MISSING)
     curve = None
     if raw is not _MISSING:
-        ok = isinstance(raw, list) and len(raw) >= 2 and all(
-            isinstance(pt, list) and len(pt) == 2
-            and all(not isinstance(x, bool) and isinstance(x, (int, float)) and math.isfinite(x) for x in pt)
-            for pt in raw)
+        ok = (
+            isinstance(raw, list)
+            and len(raw) >= 2
+            and all(
+                isinstance(pt, list)
+                and len(pt) == 2
+                and all(
+                    not isinstance(x, bool) and isinstance(x, (int, float)) and math.isfinite(x) for x in pt
+                )
+                for pt in raw
+            )
+        )
         if not ok:
-            r.problem(p + ("exhaust_loss_curve",),
-                      "expected at least two [velocity_m_s, loss_kj_kg] pairs, e.g. [[120.0, 30.0], [200.0, 25.0]]")
+            r.problem(
+                p + ("exhaust_loss_curve",),
+                "expected at least two [velocity_m_s, loss_kj_kg] pairs, e.g. [[120.0, 30.0], [200.0, 25.0]]",
+            )
         else:
             curve = tuple((float(a), float(b)) for a, b in raw)
             vel = [a for a, _ in curve]
-            if any(b <= a for a, b in zip(vel, vel[1:])):
+            if any(b <= a for a, b in pairwise(vel)):
                 r.problem(p + ("exhaust_loss_curve",), f"velocities must rise strictly, found {vel}")
             if any(a < 0 or b < 0 for a, b in curve):
                 r.problem(p + ("exhaust_loss_curve",), "velocities and losses must not be negative")
@@ -953,27 +1056,39 @@ def _read_sections(r: _Reader, top: dict, roles: dict) -> SectionsConfig:
         r.problem(p + ("lp_exhaust_flow_fraction",), "an exhaust_loss_curve needs lp_exhaust_flow_fraction")
     if v["lp_mode"] == "energy_balance":
         if "main_steam_flow" not in roles:
-            r.problem(p + ("lp_mode",), "\"energy_balance\" needs the main_steam_flow role mapped")
+            r.problem(p + ("lp_mode",), '"energy_balance" needs the main_steam_flow role mapped')
         for k in ("reheat_flow_fraction", "crossover_flow_fraction", "lp_exhaust_flow_fraction"):
             if v[k] is None:
-                r.problem(p + (k,), f"lp_mode \"energy_balance\" needs {k}")
+                r.problem(p + (k,), f'lp_mode "energy_balance" needs {k}')
     if v["lp_dry_efficiency_source"] == "measured":
         key = p + ("lp_dry_efficiency_source",)
         absent = [role for role in ("lp_extraction_p", "lp_extraction_t") if role not in roles]
         if absent:
-            r.problem(key, "\"measured\" needs the LP dry stage group: map the roles lp_extraction_p and "
-                      f"lp_extraction_t (not mapped: {', '.join(absent)})")
+            r.problem(
+                key,
+                '"measured" needs the LP dry stage group: map the roles lp_extraction_p and '
+                f"lp_extraction_t (not mapped: {', '.join(absent)})",
+            )
         # The pipeline gives calc.sections the flow fractions only when both are set; "auto" then
         # takes the energy balance whenever main_steam_flow is mapped as well.
         balance = v["lp_mode"] == "energy_balance" or (
-            v["lp_mode"] == "auto" and "main_steam_flow" in roles
-            and v["reheat_flow_fraction"] is not None and v["crossover_flow_fraction"] is not None)
+            v["lp_mode"] == "auto"
+            and "main_steam_flow" in roles
+            and v["reheat_flow_fraction"] is not None
+            and v["crossover_flow_fraction"] is not None
+        )
         if balance:
-            why = ("lp_mode is \"energy_balance\"" if v["lp_mode"] == "energy_balance" else
-                   "lp_mode \"auto\" takes the energy balance here (main_steam_flow mapped, "
-                   "reheat_flow_fraction and crossover_flow_fraction given)")
-            r.problem(key, f"\"measured\" is used only by the expansion, but {why}: the LP end point "
-                      "comes from the energy balance; set lp_mode = \"expansion\" or leave the key out")
+            why = (
+                'lp_mode is "energy_balance"'
+                if v["lp_mode"] == "energy_balance"
+                else 'lp_mode "auto" takes the energy balance here (main_steam_flow mapped, '
+                "reheat_flow_fraction and crossover_flow_fraction given)"
+            )
+            r.problem(
+                key,
+                f'"measured" is used only by the expansion, but {why}: the LP end point '
+                'comes from the energy balance; set lp_mode = "expansion" or leave the key out',
+            )
     return SectionsConfig(**v)
 
 
@@ -989,7 +1104,8 @@ def _read_baseline(r: _Reader, top: dict) -> BaselineConfig:
     if start is not None and end is not None and end <= start:
         r.problem(p + ("end",), f"must be after start ({start.isoformat()}), found {end.isoformat()}")
     return BaselineConfig(
-        start=start, end=end,
+        start=start,
+        end=end,
         margin_percent=r.value(d, p + ("margin_percent",), "float", D.margin_percent, low=0, high=100),
         degree=r.value(d, p + ("degree",), "int", D.degree, low=0, high=3),
     )
@@ -1001,26 +1117,39 @@ def _read_alarms(r: _Reader, top: dict) -> AlarmsConfig:
     r.unknown(d, p, _fields(AlarmsConfig))
     D = AlarmsConfig()
     v = {}
-    v["deviation_warning"] = r.value(d, p + ("deviation_warning",), "float", D.deviation_warning, high=0, high_open=True)
-    v["deviation_alarm"] = r.value(d, p + ("deviation_alarm",), "float", D.deviation_alarm, high=0, high_open=True)
+    v["deviation_warning"] = r.value(
+        d, p + ("deviation_warning",), "float", D.deviation_warning, high=0, high_open=True
+    )
+    v["deviation_alarm"] = r.value(
+        d, p + ("deviation_alarm",), "float", D.deviation_alarm, high=0, high_open=True
+    )
     v["persistence"] = r.value(d, p + ("persistence",), "int", D.persistence, low=1)
     v["hysteresis"] = r.value(d, p + ("hysteresis",), "float", D.hysteresis, low=0)
-    v["rate_limit_per_1000h"] = r.value(d, p + ("rate_limit_per_1000h",), "float", D.rate_limit_per_1000h,
-                                        low=0, low_open=True)
-    v["moisture_limit_percent"] = r.value(d, p + ("moisture_limit_percent",), "float", D.moisture_limit_percent,
-                                          low=0, high=30, low_open=True)
-    v["data_quality_limit"] = r.value(d, p + ("data_quality_limit",), "duration", D.data_quality_limit,
-                                      low=0, low_open=True)
+    v["rate_limit_per_1000h"] = r.value(
+        d, p + ("rate_limit_per_1000h",), "float", D.rate_limit_per_1000h, low=0, low_open=True
+    )
+    v["moisture_limit_percent"] = r.value(
+        d, p + ("moisture_limit_percent",), "float", D.moisture_limit_percent, low=0, high=30, low_open=True
+    )
+    v["data_quality_limit"] = r.value(
+        d, p + ("data_quality_limit",), "duration", D.data_quality_limit, low=0, low_open=True
+    )
     v["no_data_limit"] = r.value(d, p + ("no_data_limit",), "duration", D.no_data_limit, low=0)
     v["cusum_k"] = r.value(d, p + ("cusum_k",), "float", D.cusum_k, low=0)
     v["cusum_h"] = r.value(d, p + ("cusum_h",), "float", D.cusum_h, low=0, low_open=True)
     v["min_step_points"] = r.value(d, p + ("min_step_points",), "float", D.min_step_points, low=0)
     if v["deviation_alarm"] > v["deviation_warning"]:
-        r.problem(p + ("deviation_alarm",), f"must be at or below deviation_warning "
-                  f"({v['deviation_warning']:g}), found {v['deviation_alarm']:g}")
+        r.problem(
+            p + ("deviation_alarm",),
+            f"must be at or below deviation_warning "
+            f"({v['deviation_warning']:g}), found {v['deviation_alarm']:g}",
+        )
     if v["hysteresis"] >= abs(v["deviation_warning"]):
-        r.problem(p + ("hysteresis",), f"must be smaller than |deviation_warning| "
-                  f"({abs(v['deviation_warning']):g}), found {v['hysteresis']:g}")
+        r.problem(
+            p + ("hysteresis",),
+            f"must be smaller than |deviation_warning| "
+            f"({abs(v['deviation_warning']):g}), found {v['hysteresis']:g}",
+        )
     return AlarmsConfig(**v)
 
 
@@ -1031,11 +1160,17 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
     D = EconomicsConfig()
     currency = r.value(d, p + ("currency",), "str", D.currency)
     if currency is not None and not re.fullmatch(r"[A-Z]{3}", currency):
-        r.problem(p + ("currency",), f"expected a three-letter ISO 4217 code such as \"EUR\", found {currency!r}")
+        r.problem(
+            p + ("currency",), f'expected a three-letter ISO 4217 code such as "EUR", found {currency!r}'
+        )
     fuel = r.value(d, p + ("fuel_price_per_gj",), "float", None, low=0, low_open=True)
-    heat_rate = r.value(d, p + ("heat_rate_kj_per_kwh",), "float", None, low=3600.0, high=20000.0, low_open=True)
+    heat_rate = r.value(
+        d, p + ("heat_rate_kj_per_kwh",), "float", None, low=3600.0, high=20000.0, low_open=True
+    )
     if fuel is not None and heat_rate is None and "heat_rate_kj_per_kwh" not in d:
-        r.problem(p + ("heat_rate_kj_per_kwh",), "fuel_price_per_gj is given: heat_rate_kj_per_kwh is needed too")
+        r.problem(
+            p + ("heat_rate_kj_per_kwh",), "fuel_price_per_gj is given: heat_rate_kj_per_kwh is needed too"
+        )
     sens = dict(DEFAULT_SENSITIVITY)
     sd = r.table(d, p + ("sensitivity",))
     r.unknown(sd, p + ("sensitivity",), SECTIONS)
@@ -1046,10 +1181,22 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
         if body:
             base = DEFAULT_SENSITIVITY[sec]
             sens[sec] = SensitivityConfig(
-                heat_rate_percent_per_point=r.value(body, sp + ("heat_rate_percent_per_point",), "float",
-                                                    base.heat_rate_percent_per_point, low=0, high=5),
-                output_percent_per_point=r.value(body, sp + ("output_percent_per_point",), "float",
-                                                 base.output_percent_per_point, low=0, high=5),
+                heat_rate_percent_per_point=r.value(
+                    body,
+                    sp + ("heat_rate_percent_per_point",),
+                    "float",
+                    base.heat_rate_percent_per_point,
+                    low=0,
+                    high=5,
+                ),
+                output_percent_per_point=r.value(
+                    body,
+                    sp + ("output_percent_per_point",),
+                    "float",
+                    base.output_percent_per_point,
+                    low=0,
+                    high=5,
+                ),
             )
     overhaul: dict[str, OverhaulCase] = {}
     od = r.table(d, p + ("overhaul",))
@@ -1064,11 +1211,16 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
             if pts is not None and cost is not None:
                 overhaul[sec] = OverhaulCase(pts, cost)
     return EconomicsConfig(
-        currency=currency or D.currency, fuel_price_per_gj=fuel, heat_rate_kj_per_kwh=heat_rate,
-        boiler_efficiency=r.value(d, p + ("boiler_efficiency",), "float", D.boiler_efficiency, low=0.5, high=1.0),
+        currency=currency or D.currency,
+        fuel_price_per_gj=fuel,
+        heat_rate_kj_per_kwh=heat_rate,
+        boiler_efficiency=r.value(
+            d, p + ("boiler_efficiency",), "float", D.boiler_efficiency, low=0.5, high=1.0
+        ),
         capacity_factor=r.value(d, p + ("capacity_factor",), "float", None, low=0, high=1, low_open=True),
         planned_outage=r.value(d, p + ("planned_outage",), "date", None),
-        sensitivity=sens, overhaul=overhaul,
+        sensitivity=sens,
+        overhaul=overhaul,
     )
 
 
@@ -1084,11 +1236,17 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0)
     v["retries"] = r.value(d, p + ("retries",), "int", D.retries, low=0, high=20)
     if v["backoff"] > v["backoff_max"]:
-        r.problem(p + ("backoff",), f"must not exceed backoff_max ({format_duration(v['backoff_max'])}), "
-                  f"found {format_duration(v['backoff'])}")
+        r.problem(
+            p + ("backoff",),
+            f"must not exceed backoff_max ({format_duration(v['backoff_max'])}), "
+            f"found {format_duration(v['backoff'])}",
+        )
     if v["chunk"] < v["interval"]:
-        r.problem(p + ("chunk",), f"must be at least interval ({format_duration(v['interval'])}), "
-                  f"found {format_duration(v['chunk'])}")
+        r.problem(
+            p + ("chunk",),
+            f"must be at least interval ({format_duration(v['interval'])}), "
+            f"found {format_duration(v['chunk'])}",
+        )
     return ScheduleConfig(**v)
 
 
@@ -1097,15 +1255,26 @@ def _is_gauge(unit: str) -> bool:
     return bool(_units_module().UNITS[unit].gauge)
 
 
-_TOP = ["unit", "store", "roles", "screening", "steady", "sections", "baseline", "alarms",
-        "economics", "schedule"]
+_TOP = [
+    "unit",
+    "store",
+    "roles",
+    "screening",
+    "steady",
+    "sections",
+    "baseline",
+    "alarms",
+    "economics",
+    "schedule",
+]
 
 
 # --------------------------------------------------------------------------------------
 # entry points
 # --------------------------------------------------------------------------------------
-def parse_config(text: str, source: str = "<config>", base_dir: Path | None = None,
-                 environ=None, path: Path | None = None) -> Config:
+def parse_config(
+    text: str, source: str = "<config>", base_dir: Path | None = None, environ=None, path: Path | None = None
+) -> Config:
     """Validate TOML text and build a ``Config``; raise ``ConfigError`` with every problem.
 
     ``base_dir`` resolves relative paths (the SQLite file, secret files); default the
@@ -1134,14 +1303,27 @@ def parse_config(text: str, source: str = "<config>", base_dir: Path | None = No
     schedule = _read_schedule(r, top)
     gauge = [m.role for m in roles.values() if ROLES[m.role][0] == "pressure" and _is_gauge(m.unit)]
     if gauge and "barometric_p" not in roles and screening.barometric_kpa is None:
-        r.problem(("screening", "barometric_kpa"),
-                  f"gauge pressures are mapped ({', '.join(gauge)}): map the barometric_p role "
-                  "or set screening.barometric_kpa")
+        r.problem(
+            ("screening", "barometric_kpa"),
+            f"gauge pressures are mapped ({', '.join(gauge)}): map the barometric_p role "
+            "or set screening.barometric_kpa",
+        )
     if r.problems:
         raise ConfigError(r.problems)
-    return Config(path=path, unit=unit, store=store, roles=roles, uncertainties=unc,
-                  screening=screening, steady=steady, sections=sections, baseline=baseline,
-                  alarms=alarms, economics=economics, schedule=schedule)
+    return Config(
+        path=path,
+        unit=unit,
+        store=store,
+        roles=roles,
+        uncertainties=unc,
+        screening=screening,
+        steady=steady,
+        sections=sections,
+        baseline=baseline,
+        alarms=alarms,
+        economics=economics,
+        schedule=schedule,
+    )
 
 
 def load_config(path: str | os.PathLike, environ=None) -> Config:

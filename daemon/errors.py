@@ -4,8 +4,16 @@ from __future__ import annotations
 
 from isentrope.daemon.stores.base import FatalStoreError, StoreError, TemporaryStoreError
 
-__all__ = ["ConfigError", "StoreError", "TemporaryStoreError", "FatalStoreError", "EXIT_OK",
-           "EXIT_OTHER", "EXIT_CONFIG", "EXIT_UNREACHABLE"]
+__all__ = [
+    "ConfigError",
+    "StoreError",
+    "TemporaryStoreError",
+    "FatalStoreError",
+    "EXIT_OK",
+    "EXIT_OTHER",
+    "EXIT_CONFIG",
+    "EXIT_UNREACHABLE",
+]
 
 EXIT_OK = 0
 EXIT_OTHER = 1

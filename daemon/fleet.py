@@ -40,10 +40,17 @@ from __future__ import annotations
 import logging
 import time
 from dataclasses import dataclass, field
+from itertools import pairwise
 
 import pandas as pd
 
-from isentrope.daemon.pipeline import HISTORIAN_SECTION, Pipeline, _no_events, absent_row_times, sample_spacing
+from isentrope.daemon.pipeline import (
+    HISTORIAN_SECTION,
+    Pipeline,
+    _no_events,
+    absent_row_times,
+    sample_spacing,
+)
 from isentrope.daemon.worker import _utc
 
 logger = logging.getLogger("isentrope.fleet")
@@ -123,9 +130,10 @@ def plan_partitions(config_path: str, config, start, end, period=DEFAULT_PERIOD)
     if ref_end is not None and start < ref_end < end:
         edges.add(ref_end)
     cuts = [start, *sorted(t for t in edges if start < t < end), end]
-    return [Partition(str(config_path), config.unit.name, a, b,
-                      1 if ref_end is not None and b <= ref_end else 2)
-            for a, b in zip(cuts[:-1], cuts[1:])]
+    return [
+        Partition(str(config_path), config.unit.name, a, b, 1 if ref_end is not None and b <= ref_end else 2)
+        for a, b in pairwise(cuts)
+    ]
 
 
 class _ObservingPipeline(Pipeline):
@@ -137,18 +145,29 @@ class _ObservingPipeline(Pipeline):
         self.last_no_data = None  # time of the last no_data observation (stands in for the state)
         self.spacing = None  # sample spacing of the last frame with rows
 
-    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None,
-                rows_end=None):
+    def _alarms(
+        self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None, rows_end=None
+    ):
         # The alarm state is not at hand here (the machines run later, in alarm_partition):
         # an absence of rows that goes on from the previous chunk continues from this
         # pipeline's own last no_data observation; one from the previous partition is filled
         # in by alarm_partition.
         key = f"no_data|{HISTORIAN_SECTION}"
-        seen = {"machines": {key: {"last_time": self.last_no_data.isoformat()}}} if self.last_no_data else None
+        seen = (
+            {"machines": {key: {"last_time": self.last_no_data.isoformat()}}} if self.last_no_data else None
+        )
         if rows is not None and len(rows) > 2:
             self.spacing = sample_spacing(rows)
-        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows,
-                                      state=seen, rows_end=rows_end)
+        obs = self.alarm_observations(
+            windows,
+            deviation,
+            final_end,
+            screen=screen,
+            start=start,
+            rows=rows,
+            state=seen,
+            rows_end=rows_end,
+        )
         if obs is not None:
             mine = obs["time"][obs["section"] == HISTORIAN_SECTION]
             if len(mine):
@@ -182,20 +201,37 @@ def compute_partition(part: Partition, chunk=None, redo: bool = False, *_after) 
     config, store = _open(part.config_path)
     try:
         if not redo and store.load_state(part.name):
-            return {"skipped": True, "rows_read": 0, "seconds": time.perf_counter() - t0, "observations": None}
+            return {
+                "skipped": True,
+                "rows_read": 0,
+                "seconds": time.perf_counter() - t0,
+                "observations": None,
+            }
         pipeline = _ObservingPipeline(config)
         # restart the partition from its start: its alarm observations are not stored, so a
         # partition computed but not completed (killed before its alarm task) runs again whole
         store.set_checkpoint(part.name, part.start)
-        worker = Worker.from_config(config, store, checkpoint_name=part.name, start_default=part.start,
-                                    lookback="0s", settle="0s", pipeline=pipeline,
-                                    **({} if chunk is None else {"chunk": chunk}))
+        worker = Worker.from_config(
+            config,
+            store,
+            checkpoint_name=part.name,
+            start_default=part.start,
+            lookback="0s",
+            settle="0s",
+            pipeline=pipeline,
+            **({} if chunk is None else {"chunk": chunk}),
+        )
         report = worker.run_cycle(until=part.end)
         if not report.ok:
             raise RuntimeError(f"partition {part.name}: {report.error}")
         obs = pd.concat(pipeline.observations, ignore_index=True) if pipeline.observations else None
-        return {"skipped": False, "rows_read": report.rows_read, "seconds": time.perf_counter() - t0,
-                "observations": obs, "spacing": pipeline.spacing}
+        return {
+            "skipped": False,
+            "rows_read": report.rows_read,
+            "seconds": time.perf_counter() - t0,
+            "observations": obs,
+            "spacing": pipeline.spacing,
+        }
     finally:
         store.close()
 
@@ -242,13 +278,23 @@ def alarm_partition(part: Partition, previous: dict | None, computed: dict, redo
         obs = _continue_absence(pipeline, part, state, obs, computed.get("spacing"))
         if obs is not None and len(obs):
             state, events = alarms.evaluate_alarms(state or None, obs, pipeline.alarm_rules())
-            results = CycleResults(start=part.start, end=part.end, final_end=part.end, samples=empty,
-                                   windows=empty, deviation=empty, alarm_events=events, alarm_state=state,
-                                   counts={})
+            results = CycleResults(
+                start=part.start,
+                end=part.end,
+                final_end=part.end,
+                samples=empty,
+                windows=empty,
+                deviation=empty,
+                alarm_events=events,
+                alarm_state=state,
+                counts={},
+            )
             for measurement, frame, tags in results.writes({"unit": config.unit.name}):
                 store.write_results(measurement, frame, tags)
-        store.save_state(part.name, {"alarms": state, "done": True, "start": part.start.isoformat(),
-                                     "end": part.end.isoformat()})
+        store.save_state(
+            part.name,
+            {"alarms": state, "done": True, "start": part.start.isoformat(), "end": part.end.isoformat()},
+        )
         return state
     finally:
         store.close()
@@ -269,12 +315,20 @@ def _continue_absence(pipeline: Pipeline, part: Partition, state: dict, obs, spa
     mine = None if obs is None else obs["time"][obs["section"].astype(str) == HISTORIAN_SECTION]
     until = pd.Timestamp(mine.min()) if mine is not None and len(mine) else part.end
     empty = pd.DatetimeIndex([], tz="UTC", name="time")
-    _, absent = absent_row_times(empty, part.start, until, last_seen=machine["last_time"],
-                                 spacing=spacing or sample_spacing(empty))
+    _, absent = absent_row_times(
+        empty, part.start, until, last_seen=machine["last_time"], spacing=spacing or sample_spacing(empty)
+    )
     if not len(absent):
         return obs
-    fill = pd.DataFrame({"time": absent, "section": HISTORIAN_SECTION, "quantity": alarms.QUANTITY_NO_DATA,
-                         "value": 1.0, "steady": True})
+    fill = pd.DataFrame(
+        {
+            "time": absent,
+            "section": HISTORIAN_SECTION,
+            "quantity": alarms.QUANTITY_NO_DATA,
+            "value": 1.0,
+            "steady": True,
+        }
+    )
     if obs is None:
         return fill
     return pd.concat([obs.astype({"section": str, "quantity": str}), fill], ignore_index=True)
@@ -292,7 +346,9 @@ class FleetReport:
     baselines: dict = field(default_factory=dict)  # unit -> sections fitted
 
 
-def run_fleet(client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=None, refit=False) -> FleetReport:
+def run_fleet(
+    client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=None, refit=False
+) -> FleetReport:
     """Backfill every unit of ``config_paths`` over ``[start, end)`` on a Dask client.
 
     Parameters
@@ -358,11 +414,25 @@ def run_fleet(client, config_paths, start, end, *, period=DEFAULT_PERIOD, chunk=
         report.rows_read += int(r["rows_read"])
         report.task_seconds += float(r["seconds"])
     report.seconds = time.perf_counter() - t0
-    logger.info("fleet backfill of %d unit(s) from %s to %s: %d partitions (%d already done) in %.1f s",
-                len(plans), _utc(start).isoformat(), _utc(end).isoformat(), report.partitions,
-                report.skipped, report.seconds)
+    logger.info(
+        "fleet backfill of %d unit(s) from %s to %s: %d partitions (%d already done) in %.1f s",
+        len(plans),
+        _utc(start).isoformat(),
+        _utc(end).isoformat(),
+        report.partitions,
+        report.skipped,
+        report.seconds,
+    )
     return report
 
 
-__all__ = ["Partition", "plan_partitions", "run_fleet", "FleetReport", "compute_partition", "fit_baseline",
-           "alarm_partition", "DEFAULT_PERIOD"]
+__all__ = [
+    "Partition",
+    "plan_partitions",
+    "run_fleet",
+    "FleetReport",
+    "compute_partition",
+    "fit_baseline",
+    "alarm_partition",
+    "DEFAULT_PERIOD",
+]

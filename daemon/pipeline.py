@@ -125,8 +125,9 @@ class CycleResults:
         if len(self.deviation):
             for (section, model_id), part in self.deviation.groupby(["section", "model_id"], sort=True):
                 frame = _numeric(part.drop(columns=["section", "model_id"]))
-                out.append((DEVIATION_MEASUREMENT, frame, {**tags, "section": str(section),
-                                                           "model": str(model_id)}))
+                out.append(
+                    (DEVIATION_MEASUREMENT, frame, {**tags, "section": str(section), "model": str(model_id)})
+                )
         if len(self.alarm_events):
             ev = self.alarm_events
             for (section, rule), part in ev.groupby(["section", "rule"], sort=True):
@@ -143,8 +144,11 @@ class CycleResults:
 
 
 def _numeric(frame: pd.DataFrame) -> pd.DataFrame:
-    keep = [c for c in frame.columns
-            if pd.api.types.is_bool_dtype(frame[c]) or pd.api.types.is_numeric_dtype(frame[c])]
+    keep = [
+        c
+        for c in frame.columns
+        if pd.api.types.is_bool_dtype(frame[c]) or pd.api.types.is_numeric_dtype(frame[c])
+    ]
     out = frame[keep].copy()
     for c in keep:
         if pd.api.types.is_integer_dtype(out[c]):
@@ -196,8 +200,10 @@ def align_steady_windows(
     if max_length <= pd.Timedelta(0):
         raise ValueError(f"max_length must be positive, found {max_length}")
     columns = list(frame.columns) if columns is None else list(columns)
-    empty = pd.DataFrame(columns=["end", "duration_s", "n_samples", *columns],
-                         index=pd.DatetimeIndex([], tz="UTC", name="time"))
+    empty = pd.DataFrame(
+        columns=["end", "duration_s", "n_samples", *columns],
+        index=pd.DatetimeIndex([], tz="UTC", name="time"),
+    )
     flags = steady.reindex(frame.index).fillna(False).to_numpy(dtype=bool)
     if not flags.any():
         return empty.astype({c: float for c in ["duration_s", "n_samples", *columns]})
@@ -305,8 +311,12 @@ class Pipeline:
         from isentrope.calc import sections
 
         sc, unit = self.config.sections, self.config.unit
-        kwargs: dict = dict(eta_lp_design=sc.eta_lp_design, lp_dry_efficiency_source=sc.lp_dry_efficiency_source,
-                            baumann=sc.baumann, lp_mode=sc.lp_mode)
+        kwargs: dict = dict(
+            eta_lp_design=sc.eta_lp_design,
+            lp_dry_efficiency_source=sc.lp_dry_efficiency_source,
+            baumann=sc.baumann,
+            lp_mode=sc.lp_mode,
+        )
         if sc.annulus_area_m2 is not None:
             kwargs["annulus_area"] = sc.annulus_area_m2
         if sc.exhaust_loss_curve is not None:
@@ -315,8 +325,11 @@ class Pipeline:
             kwargs["lp_exhaust_flow_fraction"] = sc.lp_exhaust_flow_fraction
         if sc.reheat_flow_fraction is not None and sc.crossover_flow_fraction is not None:
             # HP: all of main steam flow; IP: hot reheat flow; LP: LP inlet (crossover) flow
-            kwargs["flow_fractions"] = {"hp": 1.0, "ip": sc.reheat_flow_fraction,
-                                        "lp": sc.crossover_flow_fraction}
+            kwargs["flow_fractions"] = {
+                "hp": 1.0,
+                "ip": sc.reheat_flow_fraction,
+                "lp": sc.crossover_flow_fraction,
+            }
             # generator losses taken at rating: a constant of the energy balance [MW]
             kwargs["losses_mw"] = sc.mechanical_losses_mw + (1.0 - sc.generator_efficiency) * unit.rating_mw
         unc = {}
@@ -334,9 +347,14 @@ class Pipeline:
         sc = self.config.screening
         # flatline_tolerance is relative to the reading; calc.quality keeps its per-role
         # absolute tolerances as floors (FLATLINE_TOLERANCE), as `isentrope check` does.
-        return dict(ranges=self.ranges, flatline=_td(sc.flatline), flatline_relative=float(sc.flatline_tolerance),
-                    spike=spike_samples(frame.index, sc.spike_window),
-                    spike_threshold=float(sc.spike_threshold), efficiency_band=tuple(sc.efficiency_band))
+        return dict(
+            ranges=self.ranges,
+            flatline=_td(sc.flatline),
+            flatline_relative=float(sc.flatline_tolerance),
+            spike=spike_samples(frame.index, sc.spike_window),
+            spike_threshold=float(sc.spike_threshold),
+            efficiency_band=tuple(sc.efficiency_band),
+        )
 
     def _steady_kwargs(self) -> dict:
         st, unit = self.config.steady, self.config.unit
@@ -347,14 +365,30 @@ class Pipeline:
             "condenser_p": (st.exhaust_p_percent / 100.0, st.exhaust_p_kpa / 1000.0),  # [-], [MPa]
             "gross_output": (st.load_band_percent / 100.0, 0.0),  # fraction of rating
         }
-        return dict(method=st.method, window=_td(st.window), min_length=_td(st.min_length),
-                    max_gap=_td(st.max_gap), limits=limits, offline_mw=unit.online_mw or None,
-                    rating_mw=unit.rating_mw or None, max_length=_td(st.max_length),
-                    r_critical=float(st.r_critical), r_lambdas=tuple(st.r_filter))
+        return dict(
+            method=st.method,
+            window=_td(st.window),
+            min_length=_td(st.min_length),
+            max_gap=_td(st.max_gap),
+            limits=limits,
+            offline_mw=unit.online_mw or None,
+            rating_mw=unit.rating_mw or None,
+            max_length=_td(st.max_length),
+            r_critical=float(st.r_critical),
+            r_lambdas=tuple(st.r_filter),
+        )
 
     # --- the chain ------------------------------------------------------------------------
-    def process(self, frame: pd.DataFrame, start, end, *, final_end=None, alarm_state: dict | None = None,
-                baselines: dict | None = None) -> CycleResults:
+    def process(
+        self,
+        frame: pd.DataFrame,
+        start,
+        end,
+        *,
+        final_end=None,
+        alarm_state: dict | None = None,
+        baselines: dict | None = None,
+    ) -> CycleResults:
         """Compute every result for the window ``[start, end)``.
 
         Parameters
@@ -407,9 +441,16 @@ class Pipeline:
 
         in_frame = frame.loc[inside]
         st_cfg = self.config.steady
-        windows = align_steady_windows(frame, steady_flag, max_length=st_cfg.max_length,
-                                       max_gap=st_cfg.max_gap, min_length=st_cfg.min_length,
-                                       start=start, end=final_end, columns=self.roles)
+        windows = align_steady_windows(
+            frame,
+            steady_flag,
+            max_length=st_cfg.max_length,
+            max_gap=st_cfg.max_gap,
+            min_length=st_cfg.min_length,
+            start=start,
+            end=final_end,
+            columns=self.roles,
+        )
         samples = per_sample.loc[inside].copy()
         samples["quality_flags"] = screen.row_flags.reindex(in_frame.index).fillna(0).astype("int64")
         samples["ok"] = ok.loc[inside].to_numpy()
@@ -421,8 +462,17 @@ class Pipeline:
             windows = windows.join(of_windows.to_frame().set_axis(windows.index, axis=0))
 
         deviation = self._deviation(windows, baselines or {}, notes)
-        events, new_state = self._alarms(windows, deviation, alarm_state, final_end, notes, screen=screen,
-                                         start=start, rows=frame.index, rows_end=end)
+        events, new_state = self._alarms(
+            windows,
+            deviation,
+            alarm_state,
+            final_end,
+            notes,
+            screen=screen,
+            start=start,
+            rows=frame.index,
+            rows_end=end,
+        )
 
         counts = {
             "rows_read": int(len(frame)),
@@ -433,23 +483,43 @@ class Pipeline:
             "deviations": int(len(deviation)),
             "alarm_events": int(len(events)),
         }
-        return CycleResults(start=start, end=end, final_end=final_end, samples=samples, windows=windows, deviation=deviation,
-                            alarm_events=events, alarm_state=new_state, counts=counts,
-                            notes=sorted(set(notes)))
+        return CycleResults(
+            start=start,
+            end=end,
+            final_end=final_end,
+            samples=samples,
+            windows=windows,
+            deviation=deviation,
+            alarm_events=events,
+            alarm_state=new_state,
+            counts=counts,
+            notes=sorted(set(notes)),
+        )
 
     def _nothing(self, start, end, final_end, alarm_state) -> CycleResults:
         """Results of a window without a single sample (an outage of the plant historian):
         no figures; the ``no_data`` alarm runs on from the last row it saw (alarm state)."""
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
         notes = ["no samples in the window"]
-        events, new_state = self._alarms(empty, empty.copy(), alarm_state, final_end, notes,
-                                         rows=empty.index, start=start, rows_end=end)
-        counts = dict.fromkeys(("rows_read", "rows_in_window", "rows_flagged", "steady_samples", "windows",
-                                "deviations"), 0)
+        events, new_state = self._alarms(
+            empty, empty.copy(), alarm_state, final_end, notes, rows=empty.index, start=start, rows_end=end
+        )
+        counts = dict.fromkeys(
+            ("rows_read", "rows_in_window", "rows_flagged", "steady_samples", "windows", "deviations"), 0
+        )
         counts["alarm_events"] = int(len(events))
-        return CycleResults(start=start, end=end, final_end=final_end, samples=empty, windows=empty.copy(),
-                            deviation=empty.copy(), alarm_events=events, alarm_state=new_state, counts=counts,
-                            notes=notes)
+        return CycleResults(
+            start=start,
+            end=end,
+            final_end=final_end,
+            samples=empty,
+            windows=empty.copy(),
+            deviation=empty.copy(),
+            alarm_events=events,
+            alarm_state=new_state,
+            counts=counts,
+            notes=notes,
+        )
 
     # --- baseline ---------------------------------------------------------------------------
     def fit_baselines(self, windows: pd.DataFrame) -> tuple[dict, list[str]]:
@@ -467,9 +537,15 @@ class Pipeline:
                 continue
             try:
                 models[section] = baseline.fit_baseline(
-                    windows, section, efficiency_col=col, load_col="gross_output",
-                    rating_mw=float(self.config.unit.rating_mw), degree=int(cfg.degree),
-                    reference_period=(cfg.start, cfg.end), load_margin=float(cfg.margin_percent) / 100.0)
+                    windows,
+                    section,
+                    efficiency_col=col,
+                    load_col="gross_output",
+                    rating_mw=float(self.config.unit.rating_mw),
+                    degree=int(cfg.degree),
+                    reference_period=(cfg.start, cfg.end),
+                    load_margin=float(cfg.margin_percent) / 100.0,
+                )
             except ValueError as exc:
                 problems.append(f"{section}: {exc}")
         return models, problems
@@ -477,8 +553,16 @@ class Pipeline:
     def _deviation(self, windows: pd.DataFrame, baselines: dict, notes: list) -> pd.DataFrame:
         from isentrope.calc import baseline
 
-        cols = ["section", "efficiency", "expected", "expected_u", "deviation", "deviation_u",
-                "extrapolated", "model_id"]
+        cols = [
+            "section",
+            "efficiency",
+            "expected",
+            "expected_u",
+            "deviation",
+            "deviation_u",
+            "extrapolated",
+            "model_id",
+        ]
         empty = pd.DataFrame(columns=cols, index=pd.DatetimeIndex([], tz="UTC", name="time"))
         if not baselines:
             notes.append("no baseline model yet: deviation not computed")
@@ -492,8 +576,11 @@ class Pipeline:
             # only windows after the reference period: whether a model existed when a reference
             # window was processed depends on the cycle, so those windows get no deviation at all
             ref_end = self.config.baseline.end or model.reference_end
-            after_reference = (windows.index >= pd.Timestamp(ref_end)) if ref_end is not None \
+            after_reference = (
+                (windows.index >= pd.Timestamp(ref_end))
+                if ref_end is not None
                 else np.ones(len(windows), dtype=bool)
+            )
             w = windows.loc[after_reference]
             if not len(w):
                 continue
@@ -525,27 +612,70 @@ class Pipeline:
         limit = a.moisture_limit_percent / 100.0
         no_data = []
         if _td(a.no_data_limit) > pd.Timedelta(0):
-            no_data.append(alarms.Rule("no_data", alarms.QUANTITY_NO_DATA, "above", 0.5, 0.5,
-                                       raise_after_duration=f"{int(_td(a.no_data_limit).total_seconds())}s",
-                                       sections=(HISTORIAN_SECTION,), label="no rows from the historian"))
+            no_data.append(
+                alarms.Rule(
+                    "no_data",
+                    alarms.QUANTITY_NO_DATA,
+                    "above",
+                    0.5,
+                    0.5,
+                    raise_after_duration=f"{int(_td(a.no_data_limit).total_seconds())}s",
+                    sections=(HISTORIAN_SECTION,),
+                    label="no rows from the historian",
+                )
+            )
         return [
-            alarms.Rule("deviation_warning", alarms.QUANTITY_DEVIATION, "below", float(a.deviation_warning),
-                        float(a.deviation_warning) + float(a.hysteresis), n, n, steady_only=True,
-                        unit="points", label="efficiency deviation warning"),
-            alarms.Rule("deviation_alarm", alarms.QUANTITY_DEVIATION, "below", float(a.deviation_alarm),
-                        float(a.deviation_alarm) + float(a.hysteresis), n, n, steady_only=True,
-                        unit="points", label="efficiency deviation alarm"),
+            alarms.Rule(
+                "deviation_warning",
+                alarms.QUANTITY_DEVIATION,
+                "below",
+                float(a.deviation_warning),
+                float(a.deviation_warning) + float(a.hysteresis),
+                n,
+                n,
+                steady_only=True,
+                unit="points",
+                label="efficiency deviation warning",
+            ),
+            alarms.Rule(
+                "deviation_alarm",
+                alarms.QUANTITY_DEVIATION,
+                "below",
+                float(a.deviation_alarm),
+                float(a.deviation_alarm) + float(a.hysteresis),
+                n,
+                n,
+                steady_only=True,
+                unit="points",
+                label="efficiency deviation alarm",
+            ),
             # cleared half a point of moisture below the limit (project choice, no source)
-            alarms.Rule("exhaust_moisture", alarms.QUANTITY_MOISTURE, "above", limit, limit - 0.005, n, n,
-                        sections=("lp",), label="LP exhaust moisture"),
-            alarms.Rule("data_quality", alarms.QUANTITY_TAG_BAD, "above", 0.5, 0.5,
-                        raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
-                        label="tag missing, flatlined or out of range"),
+            alarms.Rule(
+                "exhaust_moisture",
+                alarms.QUANTITY_MOISTURE,
+                "above",
+                limit,
+                limit - 0.005,
+                n,
+                n,
+                sections=("lp",),
+                label="LP exhaust moisture",
+            ),
+            alarms.Rule(
+                "data_quality",
+                alarms.QUANTITY_TAG_BAD,
+                "above",
+                0.5,
+                0.5,
+                raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
+                label="tag missing, flatlined or out of range",
+            ),
             *no_data,
         ]
 
-    def _alarms(self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None,
-                rows_end=None):
+    def _alarms(
+        self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None, rows_end=None
+    ):
         """Alarm events from the final results (before ``final_end``) only; absent rows up to
         ``rows_end`` (see ``alarm_observations``).
 
@@ -554,15 +684,24 @@ class Pipeline:
         """
         from isentrope.calc import alarms
 
-        obs = self.alarm_observations(windows, deviation, final_end, screen=screen, start=start, rows=rows,
-                                      state=state, rows_end=rows_end)
+        obs = self.alarm_observations(
+            windows,
+            deviation,
+            final_end,
+            screen=screen,
+            start=start,
+            rows=rows,
+            state=state,
+            rows_end=rows_end,
+        )
         if obs is None:
             return _no_events(), (dict(state) if state else None)
         new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
         return events, new_state
 
-    def alarm_observations(self, windows, deviation, final_end, screen=None, start=None, rows=None, state=None,
-                           rows_end=None):
+    def alarm_observations(
+        self, windows, deviation, final_end, screen=None, start=None, rows=None, state=None, rows_end=None
+    ):
         """The observation frame ``calc.alarms.evaluate_alarms`` reads for one window, or None.
 
         Deviation per steady window and section, LP exhaust moisture per steady window, per
@@ -582,23 +721,46 @@ class Pipeline:
         if rows is not None and start is not None and _td(self.config.alarms.no_data_limit) > pd.Timedelta(0):
             machine = ((state or {}).get("machines") or {}).get(f"no_data|{HISTORIAN_SECTION}") or {}
             seen = machine.get("last_time")
-            got, absent = absent_row_times(rows, start, final_end if rows_end is None else rows_end,
-                                           last_seen=seen)
+            got, absent = absent_row_times(
+                rows, start, final_end if rows_end is None else rows_end, last_seen=seen
+            )
             times = got.append(absent)
             if len(times):
-                parts.append(pd.DataFrame({"time": times, "section": HISTORIAN_SECTION,
-                                           "quantity": alarms.QUANTITY_NO_DATA,
-                                           "value": np.r_[np.zeros(len(got)), np.ones(len(absent))],
-                                           "steady": True}))
+                parts.append(
+                    pd.DataFrame(
+                        {
+                            "time": times,
+                            "section": HISTORIAN_SECTION,
+                            "quantity": alarms.QUANTITY_NO_DATA,
+                            "value": np.r_[np.zeros(len(got)), np.ones(len(absent))],
+                            "steady": True,
+                        }
+                    )
+                )
         if len(deviation):
-            parts.append(pd.DataFrame({"time": deviation.index, "section": deviation["section"].to_numpy(),
-                                       "quantity": alarms.QUANTITY_DEVIATION,
-                                       "value": deviation["deviation"].to_numpy(dtype=float),
-                                       "steady": True}))
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "time": deviation.index,
+                        "section": deviation["section"].to_numpy(),
+                        "quantity": alarms.QUANTITY_DEVIATION,
+                        "value": deviation["deviation"].to_numpy(dtype=float),
+                        "steady": True,
+                    }
+                )
+            )
         if len(windows) and "lp_moisture" in windows.columns:
-            parts.append(pd.DataFrame({"time": windows.index, "section": "lp",
-                                       "quantity": alarms.QUANTITY_MOISTURE,
-                                       "value": windows["lp_moisture"].to_numpy(dtype=float), "steady": True}))
+            parts.append(
+                pd.DataFrame(
+                    {
+                        "time": windows.index,
+                        "section": "lp",
+                        "quantity": alarms.QUANTITY_MOISTURE,
+                        "value": windows["lp_moisture"].to_numpy(dtype=float),
+                        "steady": True,
+                    }
+                )
+            )
         if screen is not None:
             flags = screen.flags
             sel = (flags.index >= start) & (flags.index < final_end)
@@ -607,9 +769,17 @@ class Pipeline:
                 bad = (flags.loc[sel, roles].to_numpy() != 0).astype(float)
                 times = flags.index[sel]
                 for j, role in enumerate(roles):
-                    parts.append(pd.DataFrame({"time": times, "section": role,
-                                               "quantity": alarms.QUANTITY_TAG_BAD, "value": bad[:, j],
-                                               "steady": True}))
+                    parts.append(
+                        pd.DataFrame(
+                            {
+                                "time": times,
+                                "section": role,
+                                "quantity": alarms.QUANTITY_TAG_BAD,
+                                "value": bad[:, j],
+                                "steady": True,
+                            }
+                        )
+                    )
         if not parts:
             return None
         return pd.concat(parts, ignore_index=True)
@@ -626,8 +796,9 @@ def sample_spacing(index: pd.DatetimeIndex) -> pd.Timedelta:
     return spacing
 
 
-def absent_row_times(rows: pd.DatetimeIndex, start, end, last_seen=None,
-                     spacing=None) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
+def absent_row_times(
+    rows: pd.DatetimeIndex, start, end, last_seen=None, spacing=None
+) -> tuple[pd.DatetimeIndex, pd.DatetimeIndex]:
     """Row times in ``[start, end)`` and the times there where rows are absent.
 
     An absence is a stretch longer than two sample spacings (``spacing``, default
@@ -682,9 +853,13 @@ def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
 
 
 def _no_events() -> pd.DataFrame:
-    return pd.DataFrame({c: np.array([], dtype=float if c in ("value", "threshold") else object)
-                         for c in ("section", "rule", "kind", "value", "threshold", "message")},
-                        index=pd.DatetimeIndex([], tz="UTC", name="time"))
+    return pd.DataFrame(
+        {
+            c: np.array([], dtype=float if c in ("value", "threshold") else object)
+            for c in ("section", "rule", "kind", "value", "threshold", "message")
+        },
+        index=pd.DatetimeIndex([], tz="UTC", name="time"),
+    )
 
 
 def _clean(frame: pd.DataFrame, roles: list[str]) -> pd.DataFrame:
@@ -700,8 +875,12 @@ def _clean(frame: pd.DataFrame, roles: list[str]) -> pd.DataFrame:
         raise ValueError("readings need a UTC index; found times without a time zone")
     out.index = out.index.tz_convert("UTC")
     out = out[~out.index.duplicated(keep="last")].sort_index()
-    data = {r: pd.to_numeric(out[r], errors="coerce").astype(float) if r in out.columns
-            else pd.Series(np.nan, index=out.index) for r in roles}
+    data = {
+        r: pd.to_numeric(out[r], errors="coerce").astype(float)
+        if r in out.columns
+        else pd.Series(np.nan, index=out.index)
+        for r in roles
+    }
     result = pd.DataFrame(data, index=out.index)
     result.index.name = "time"
     return result

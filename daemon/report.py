@@ -30,10 +30,12 @@ SECTION_COLOURS = {"hp": "#1b4f72", "ip": "#7d3c98", "lp": "#117864"}
 SECTION_TITLES = {"hp": "HP section", "ip": "IP section", "lp": "LP dry stage group"}
 EFFICIENCY_COLUMNS = {"hp": "hp_efficiency", "ip": "ip_efficiency", "lp": "lp_dry_efficiency"}
 
-CAUTION = ("Advisory performance information only. isentrope is not a protective function and is "
-           "not part of any turbine control or protection system. Its figures carry measurement "
-           "uncertainty, stated beside them. The turbine maker's limits and instructions, local codes "
-           "and licensed engineering practice take precedence over anything in this report.")
+CAUTION = (
+    "Advisory performance information only. isentrope is not a protective function and is "
+    "not part of any turbine control or protection system. Its figures carry measurement "
+    "uncertainty, stated beside them. The turbine maker's limits and instructions, local codes "
+    "and licensed engineering practice take precedence over anything in this report."
+)
 
 CSS = """
 body { font-family: Georgia, 'DejaVu Serif', serif; color: #111; max-width: 60rem; margin: 2rem auto;
@@ -84,16 +86,23 @@ class _Figures:
         (self.out_dir / f"{name}.png").write_bytes(data)
         uri = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
         self.items.append((f"{name}.png", uri, caption))
-        return (f'<figure><img src="{uri}" alt="{html.escape(caption)}" data-file="{name}.png">'
-                f"<figcaption>{html.escape(caption)}</figcaption></figure>")
+        return (
+            f'<figure><img src="{uri}" alt="{html.escape(caption)}" data-file="{name}.png">'
+            f"<figcaption>{html.escape(caption)}</figcaption></figure>"
+        )
 
 
 def _table(frame: pd.DataFrame, left: tuple = ()) -> str:
-    head = "".join(f'<th class="{"l" if c in left else ""}">{html.escape(str(c))}</th>' for c in frame.columns)
+    head = "".join(
+        f'<th class="{"l" if c in left else ""}">{html.escape(str(c))}</th>' for c in frame.columns
+    )
     rows = []
     for _, r in frame.iterrows():
-        rows.append("".join(f'<td class="{"l" if c in left else ""}">{html.escape(str(r[c]))}</td>'
-                            for c in frame.columns))
+        rows.append(
+            "".join(
+                f'<td class="{"l" if c in left else ""}">{html.escape(str(r[c]))}</td>' for c in frame.columns
+            )
+        )
     body = "".join(f"<tr>{r}</tr>" for r in rows)
     return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
 
@@ -112,12 +121,21 @@ def _hs_diagram(fig_ax, window: pd.Series, config):
     ax.plot(steam.s_sat_liquid(p), steam.h_sat_liquid(p), color="#777", lw=1)
     ax.plot(steam.s_sat_vapour(p), steam.h_sat_vapour(p), color="#777", lw=1, label="saturation line")
     pts = []
-    for label, pr, tr in (("throttle", "throttle_p", "throttle_t"), ("cold reheat", "cold_reheat_p", "cold_reheat_t"),
-                          ("hot reheat", "hot_reheat_p", "hot_reheat_t"), ("crossover", "crossover_p", "crossover_t")):
+    for label, pr, tr in (
+        ("throttle", "throttle_p", "throttle_t"),
+        ("cold reheat", "cold_reheat_p", "cold_reheat_t"),
+        ("hot reheat", "hot_reheat_p", "hot_reheat_t"),
+        ("crossover", "crossover_p", "crossover_t"),
+    ):
         if pr in window and tr in window and np.isfinite(window[pr]) and np.isfinite(window[tr]):
-            pts.append((label, float(steam.s_pt(window[pr], window[tr])), float(steam.h_pt(window[pr], window[tr]))))
-    for (l1, s1, h1), (l2, s2, h2), col in ((pts[0], pts[1], SECTION_COLOURS["hp"]),
-                                            (pts[2], pts[3], SECTION_COLOURS["ip"])) if len(pts) == 4 else ():
+            pts.append(
+                (label, float(steam.s_pt(window[pr], window[tr])), float(steam.h_pt(window[pr], window[tr])))
+            )
+    for (_, s1, h1), (_, s2, h2), col in (
+        ((pts[0], pts[1], SECTION_COLOURS["hp"]), (pts[2], pts[3], SECTION_COLOURS["ip"]))
+        if len(pts) == 4
+        else ()
+    ):
         ax.plot([s1, s2], [h1, h2], "-o", color=col, lw=2)
     for label, s, h in pts:
         ax.annotate(label, (s, h), textcoords="offset points", xytext=(6, 4), fontsize=8)
@@ -137,8 +155,17 @@ def _hs_diagram(fig_ax, window: pd.Series, config):
     ax.legend(loc="lower right", fontsize=8)
 
 
-def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window: pd.Timestamp | None = None,
-                 readings: pd.DataFrame | None = None) -> Path:
+def write_report(
+    store,
+    config,
+    start,
+    end,
+    out_dir,
+    *,
+    analysis=None,
+    hs_window: pd.Timestamp | None = None,
+    readings: pd.DataFrame | None = None,
+) -> Path:
     """Write the report for ``[start, end)`` into ``out_dir``; returns the path of index.html.
 
     Parameters
@@ -162,10 +189,20 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         The raw readings of the period in internal units when the caller already holds them
         (the demo does); None reads them from the store for the data-quality table.
     """
-    from isentrope.daemon.analysis import (CURRENT_WINDOW_DAYS, DEGRADATION_MEASUREMENT, SECTIONS,
-                                           STEPS_MEASUREMENT, alarm_series, period_view)
-    from isentrope.daemon.pipeline import (ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT,
-                                           Pipeline)
+    from isentrope.daemon.analysis import (
+        CURRENT_WINDOW_DAYS,
+        DEGRADATION_MEASUREMENT,
+        SECTIONS,
+        STEPS_MEASUREMENT,
+        alarm_series,
+        period_view,
+    )
+    from isentrope.daemon.pipeline import (
+        ALARMS_MEASUREMENT,
+        DEVIATION_MEASUREMENT,
+        WINDOWS_MEASUREMENT,
+        Pipeline,
+    )
 
     plt = _plt()
     start, end = pd.Timestamp(start), pd.Timestamp(end)
@@ -180,21 +217,27 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
     from isentrope.calc.baseline import BaselineModel
 
     models = {s: BaselineModel.from_json(t) for s, t in sorted(saved.get("models", {}).items())}
-    dev = {s: _read(store, DEVIATION_MEASUREMENT, start, end, {**tags, "section": s, "model": m.model_id})
-           for s, m in models.items()}
+    dev = {
+        s: _read(store, DEVIATION_MEASUREMENT, start, end, {**tags, "section": s, "model": m.model_id})
+        for s, m in models.items()
+    }
     a = config.alarms
-    parts = [f"<h1>Turbine section performance: {html.escape(config.unit.plant or '')} {html.escape(unit)}</h1>",
-             f'<p class="meta">Period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC; rating '
-             f"{config.unit.rating_mw:g} MW; produced by isentrope {html.escape(__version__)} on "
-             f"{pd.Timestamp.now(tz='UTC'):%Y-%m-%d %H:%M} UTC.</p>",
-             f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>']
+    parts = [
+        f"<h1>Turbine section performance: {html.escape(config.unit.plant or '')} {html.escape(unit)}</h1>",
+        f'<p class="meta">Period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC; rating '
+        f"{config.unit.rating_mw:g} MW; produced by isentrope {html.escape(__version__)} on "
+        f"{pd.Timestamp.now(tz='UTC'):%Y-%m-%d %H:%M} UTC.</p>",
+        f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>',
+    ]
 
     # --- planner table ------------------------------------------------------------------
     parts.append("<h2>Summary for the planner</h2>")
     if analysis is not None and analysis.sections:
-        parts.append(f"<p>State at the end of the stored history, {analysis.end:%Y-%m-%d %H:%M} UTC (the "
-                     "analysis always covers the whole history from the baseline on, whatever the period "
-                     "of this report).</p>")
+        parts.append(
+            f"<p>State at the end of the stored history, {analysis.end:%Y-%m-%d %H:%M} UTC (the "
+            "analysis always covers the whole history from the baseline on, whatever the period "
+            "of this report).</p>"
+        )
     cost_col = f"extra fuel cost since the baseline end [{cur}]"
     rows = []
     outage = config.economics.planned_outage
@@ -205,54 +248,71 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
             proj = o.projection
             pl = o.projected_loss
             oh = o.overhaul
-            rows.append({
-                "section": SECTION_TITLES[s],
-                "deviation now [pt] ± its standard error": f"{_fmt(o.current, '+.2f')} ± {_fmt(o.current_u, '.3f')}",
-                "one window's u [pt]": _fmt(o.current_window_u, ".2f"),
-                "rate [pt/1000 h] (95 %)": (f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to "
-                                            f"{_fmt(r.high, '+.2f')})" if r.status == "ok" else r.status),
-                "steps": str(len(o.steps)),
-                f"at outage {outage or 'n/a'} [pt]": (f"{_fmt(proj.value, '+.2f')} ({_fmt(proj.low, '+.2f')} to "
-                                                      f"{_fmt(proj.high, '+.2f')})" if proj is not None and
-                                                      proj.status == "ok" else "n/a"),
-                cost_col: _fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
-                if o.losses is not None and len(o.losses) else "n/a",
-                f"cost to outage [{cur}]": _fmt(pl.fuel_cost, ",.0f") if pl is not None else "n/a",
-                "overhaul payback [years]": _fmt(oh.payback_years, ".1f") if oh is not None else "n/a",
-            })
+            rows.append(
+                {
+                    "section": SECTION_TITLES[s],
+                    "deviation now [pt] ± its standard error": f"{_fmt(o.current, '+.2f')} ± {_fmt(o.current_u, '.3f')}",
+                    "one window's u [pt]": _fmt(o.current_window_u, ".2f"),
+                    "rate [pt/1000 h] (95 %)": (
+                        f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to {_fmt(r.high, '+.2f')})"
+                        if r.status == "ok"
+                        else r.status
+                    ),
+                    "steps": str(len(o.steps)),
+                    f"at outage {outage or 'n/a'} [pt]": (
+                        f"{_fmt(proj.value, '+.2f')} ({_fmt(proj.low, '+.2f')} to {_fmt(proj.high, '+.2f')})"
+                        if proj is not None and proj.status == "ok"
+                        else "n/a"
+                    ),
+                    cost_col: _fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
+                    if o.losses is not None and len(o.losses)
+                    else "n/a",
+                    f"cost to outage [{cur}]": _fmt(pl.fuel_cost, ",.0f") if pl is not None else "n/a",
+                    "overhaul payback [years]": _fmt(oh.payback_years, ".1f") if oh is not None else "n/a",
+                }
+            )
         elif s in models:
             d = _read(store, DEGRADATION_MEASUREMENT, start, end, {**tags, "section": s})
             last = d.iloc[-1] if len(d) else pd.Series(dtype=float)
-            rows.append({"section": SECTION_TITLES[s],
-                         "deviation now [pt] ± its standard error": f"{_fmt(last.get('deviation_now'), '+.2f')} ± "
-                                                                    f"{_fmt(last.get('deviation_now_u'), '.3f')}",
-                         "one window's u [pt]": _fmt(last.get("deviation_now_window_u"), ".2f"),
-                         "rate [pt/1000 h] (95 %)": f"{_fmt(last.get('rate_per_1000h'), '+.2f')} "
-                                                    f"({_fmt(last.get('rate_low'), '+.2f')} to "
-                                                    f"{_fmt(last.get('rate_high'), '+.2f')})",
-                         "steps": str(len(_read(store, STEPS_MEASUREMENT, start, end, {**tags, "section": s}))),
-                         f"at outage {outage or 'n/a'} [pt]": _fmt(last.get("projected"), "+.2f"),
-                         cost_col: "see losses", f"cost to outage [{cur}]": "n/a",
-                         "overhaul payback [years]": "n/a"})
+            rows.append(
+                {
+                    "section": SECTION_TITLES[s],
+                    "deviation now [pt] ± its standard error": f"{_fmt(last.get('deviation_now'), '+.2f')} ± "
+                    f"{_fmt(last.get('deviation_now_u'), '.3f')}",
+                    "one window's u [pt]": _fmt(last.get("deviation_now_window_u"), ".2f"),
+                    "rate [pt/1000 h] (95 %)": f"{_fmt(last.get('rate_per_1000h'), '+.2f')} "
+                    f"({_fmt(last.get('rate_low'), '+.2f')} to "
+                    f"{_fmt(last.get('rate_high'), '+.2f')})",
+                    "steps": str(len(_read(store, STEPS_MEASUREMENT, start, end, {**tags, "section": s}))),
+                    f"at outage {outage or 'n/a'} [pt]": _fmt(last.get("projected"), "+.2f"),
+                    cost_col: "see losses",
+                    f"cost to outage [{cur}]": "n/a",
+                    "overhaul payback [years]": "n/a",
+                }
+            )
     if rows:
         parts.append(_table(pd.DataFrame(rows), left=("section",)))
-        parts.append("<p>Deviation is actual minus baseline expectation in percentage points (negative is "
-                     f"worse): the median of the steady windows of the last {CURRENT_WINDOW_DAYS:g} days. The ± "
-                     "after it is the standard error of that median from the scatter of those windows "
-                     "(1.4826 MAD / &radic;n, k = 1): how well the present level is known while the "
-                     "instruments are those of the baseline period, since a fixed instrument bias cancels in "
-                     "the deviation; the projection's interval carries it. “One window's u” is the median "
-                     "standard uncertainty (k = 1) of a single window's deviation from the configured "
-                     "instrument uncertainties and the baseline fit: read it as how far a change of "
-                     "instrument bias since the baseline (a recalibration, a replaced transmitter or "
-                     "thermocouple) could move the level, which the standard error does not cover; check the "
-                     "instruments before acting on a change smaller than about twice it. Rates are Theil-Sen "
-                     "slopes against operating hours; a rate whose interval includes zero is not yet a trend. "
-                     "Costs use the sensitivity coefficients of the configuration: replace them with the "
-                     "unit's own heat balance before using them in a business case.</p>")
+        parts.append(
+            "<p>Deviation is actual minus baseline expectation in percentage points (negative is "
+            f"worse): the median of the steady windows of the last {CURRENT_WINDOW_DAYS:g} days. The ± "
+            "after it is the standard error of that median from the scatter of those windows "
+            "(1.4826 MAD / &radic;n, k = 1): how well the present level is known while the "
+            "instruments are those of the baseline period, since a fixed instrument bias cancels in "
+            "the deviation; the projection's interval carries it. “One window's u” is the median "
+            "standard uncertainty (k = 1) of a single window's deviation from the configured "
+            "instrument uncertainties and the baseline fit: read it as how far a change of "
+            "instrument bias since the baseline (a recalibration, a replaced transmitter or "
+            "thermocouple) could move the level, which the standard error does not cover; check the "
+            "instruments before acting on a change smaller than about twice it. Rates are Theil-Sen "
+            "slopes against operating hours; a rate whose interval includes zero is not yet a trend. "
+            "Costs use the sensitivity coefficients of the configuration: replace them with the "
+            "unit's own heat balance before using them in a business case.</p>"
+        )
     else:
-        parts.append("<p>No baseline model yet: configure <code>[baseline]</code> and process the reference "
-                     "period first.</p>")
+        parts.append(
+            "<p>No baseline model yet: configure <code>[baseline]</code> and process the reference "
+            "period first.</p>"
+        )
     if analysis is not None and analysis.notes:
         parts.append("<ul>" + "".join(f"<li>{html.escape(n)}</li>" for n in analysis.notes) + "</ul>")
     views = period_view(analysis, start, end) if analysis is not None else {}
@@ -264,27 +324,35 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
             if v is None:
                 continue
             r = v.rate
-            prow.append({
-                "section": SECTION_TITLES[s],
-                "steady windows": str(v.n_windows),
-                "deviation at period end [pt] ± its standard error":
-                    f"{_fmt(v.deviation_end, '+.2f')} ± {_fmt(v.deviation_end_u, '.3f')}",
-                "one window's u [pt]": _fmt(v.window_u, ".2f"),
-                "rate at period end [pt/1000 h] (95 %)": (f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} "
-                                                          f"to {_fmt(r.high, '+.2f')})" if r.status == "ok"
-                                                          else r.status),
-                "steps in the period": "; ".join(f"{st.size:+.2f} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}"
-                                                 for st in v.steps) or "none",
-                "lost energy in the period [MWh]": _fmt(v.lost_mwh, ",.0f"),
-                f"extra fuel cost in the period [{cur}]": _fmt(v.fuel_cost, ",.0f"),
-                f"extra fuel cost since the baseline end, to the period end [{cur}]":
-                    _fmt(v.cumulative_fuel_cost, ",.0f"),
-            })
+            prow.append(
+                {
+                    "section": SECTION_TITLES[s],
+                    "steady windows": str(v.n_windows),
+                    "deviation at period end [pt] ± its standard error": f"{_fmt(v.deviation_end, '+.2f')} ± {_fmt(v.deviation_end_u, '.3f')}",
+                    "one window's u [pt]": _fmt(v.window_u, ".2f"),
+                    "rate at period end [pt/1000 h] (95 %)": (
+                        f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to {_fmt(r.high, '+.2f')})"
+                        if r.status == "ok"
+                        else r.status
+                    ),
+                    "steps in the period": "; ".join(
+                        f"{st.size:+.2f} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}" for st in v.steps
+                    )
+                    or "none",
+                    "lost energy in the period [MWh]": _fmt(v.lost_mwh, ",.0f"),
+                    f"extra fuel cost in the period [{cur}]": _fmt(v.fuel_cost, ",.0f"),
+                    f"extra fuel cost since the baseline end, to the period end [{cur}]": _fmt(
+                        v.cumulative_fuel_cost, ",.0f"
+                    ),
+                }
+            )
         parts.append(_table(pd.DataFrame(prow), left=("section", "steps in the period")))
-        parts.append("<p>Figures of the period from the whole-history analysis: the deviation and rate as the "
-                     "history up to the period end gives them; costs in the period are the sums over the UTC "
-                     "days that overlap it, and the cost since the baseline end runs to the last of those "
-                     "days.</p>")
+        parts.append(
+            "<p>Figures of the period from the whole-history analysis: the deviation and rate as the "
+            "history up to the period end gives them; costs in the period are the sums over the UTC "
+            "days that overlap it, and the cost since the baseline end runs to the last of those "
+            "days.</p>"
+        )
 
     # --- efficiency and deviation per section ----------------------------------------------
     parts.append("<h2>Section efficiency and deviation</h2>")
@@ -293,15 +361,25 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         if not len(windows) or col not in windows.columns or not np.isfinite(windows[col]).any():
             continue
         fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
-        ax1.plot(windows.index, 100 * windows[col], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6,
-                 label="steady window")
+        ax1.plot(
+            windows.index,
+            100 * windows[col],
+            ".",
+            ms=2,
+            color=SECTION_COLOURS[s],
+            alpha=0.6,
+            label="steady window",
+        )
         d = dev.get(s)
         if d is not None and len(d) and "expected" in d:
             e, eu = 100 * d["expected"], 100 * d.get("expected_u", 0 * d["expected"])
             ax1.plot(d.index, e, "-", color="#111", lw=0.6, label="baseline expectation")
-            ax1.fill_between(d.index, e - 2 * eu, e + 2 * eu, color="#999", alpha=0.35, lw=0,
-                             label="expectation ± 2 u")
-            ax2.plot(d.index, d["deviation"], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6, label="deviation")
+            ax1.fill_between(
+                d.index, e - 2 * eu, e + 2 * eu, color="#999", alpha=0.35, lw=0, label="expectation ± 2 u"
+            )
+            ax2.plot(
+                d.index, d["deviation"], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6, label="deviation"
+            )
             ax2.axhline(a.deviation_warning, color="#b9770e", ls="--", lw=1, label="warning level")
             ax2.axhline(a.deviation_alarm, color="#922b21", ls="--", lw=1, label="alarm level")
             o = analysis.sections.get(s) if analysis is not None else None
@@ -316,13 +394,27 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
                     ax2.plot(t[inside], line, "-", color="#111", lw=1.2, label="fitted trend")
                 if o.projection is not None and o.projection.status == "ok" and outage is not None:
                     tp = pd.Timestamp(outage).tz_localize("UTC")
-                    ax2.errorbar([tp], [o.projection.value],
-                                 yerr=[[o.projection.value - o.projection.low], [o.projection.high - o.projection.value]],
-                                 fmt="s", color="#111", capsize=4, label="projection at outage")
+                    ax2.errorbar(
+                        [tp],
+                        [o.projection.value],
+                        yerr=[
+                            [o.projection.value - o.projection.low],
+                            [o.projection.high - o.projection.value],
+                        ],
+                        fmt="s",
+                        color="#111",
+                        capsize=4,
+                        label="projection at outage",
+                    )
                 for st in (x for x in o.steps if start <= pd.Timestamp(x.time) < end):
                     ax2.axvline(pd.Timestamp(st.time), color="#111", lw=0.8, ls=":")
-                    ax2.annotate(f"step {st.size:+.2f} pt", (pd.Timestamp(st.time), ax2.get_ylim()[0]),
-                                 textcoords="offset points", xytext=(3, 5), fontsize=8)
+                    ax2.annotate(
+                        f"step {st.size:+.2f} pt",
+                        (pd.Timestamp(st.time), ax2.get_ylim()[0]),
+                        textcoords="offset points",
+                        xytext=(3, 5),
+                        fontsize=8,
+                    )
         ax1.set_ylabel("efficiency [%]")
         ax1.grid(True, lw=0.3)
         ax1.legend(fontsize=8, loc="lower left")
@@ -331,9 +423,15 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         ax2.legend(fontsize=8, loc="lower left", ncol=3)
         fig.autofmt_xdate()
         parts.append(f"<h3>{SECTION_TITLES[s]}</h3>")
-        parts.append(figs.add(fig, f"{s}_efficiency", f"{SECTION_TITLES[s]}: efficiency of each steady window "
-                              "with the baseline expectation (top), deviation with alarm levels, fitted trend, "
-                              "projection and steps (bottom)."))
+        parts.append(
+            figs.add(
+                fig,
+                f"{s}_efficiency",
+                f"{SECTION_TITLES[s]}: efficiency of each steady window "
+                "with the baseline expectation (top), deviation with alarm levels, fitted trend, "
+                "projection and steps (bottom).",
+            )
+        )
 
     # --- steady coverage ------------------------------------------------------------------
     if len(windows) and "duration_s" in windows:
@@ -344,8 +442,13 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         ax.grid(True, lw=0.3, axis="y")
         fig.autofmt_xdate()
         parts.append("<h2>Steady-state coverage</h2>")
-        parts.append(figs.add(fig, "steady_coverage", "Share of each week inside steady windows (the only "
-                              "periods used for trending)."))
+        parts.append(
+            figs.add(
+                fig,
+                "steady_coverage",
+                "Share of each week inside steady windows (the only periods used for trending).",
+            )
+        )
 
     # --- LP exhaust moisture --------------------------------------------------------------
     if len(windows) and "lp_moisture" in windows and np.isfinite(windows["lp_moisture"]).any():
@@ -358,8 +461,14 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         fig.autofmt_xdate()
         parts.append("<h2>LP exhaust moisture</h2>")
         mode = "expansion line from the LP dry efficiency with the Baumann rule, or energy balance"
-        parts.append(figs.add(fig, "lp_moisture", f"LP exhaust moisture per steady window ({mode}) with the "
-                              f"configured limit of {a.moisture_limit_percent:g} %."))
+        parts.append(
+            figs.add(
+                fig,
+                "lp_moisture",
+                f"LP exhaust moisture per steady window ({mode}) with the "
+                f"configured limit of {a.moisture_limit_percent:g} %.",
+            )
+        )
 
     # --- h-s diagram ----------------------------------------------------------------------
     if len(windows) and "gross_output" in windows:
@@ -371,42 +480,70 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         fig, ax = plt.subplots(figsize=(7, 5.5))
         _hs_diagram(ax, w, config)
         parts.append("<h2>Expansion on the h-s diagram</h2>")
-        parts.append(figs.add(fig, "hs_diagram", f"Expansion of the steady window starting {w.name:%Y-%m-%d %H:%M} "
-                              f"UTC at {w['gross_output']:.0f} MW: HP, IP and the LP expansion line to the ELEP."))
+        parts.append(
+            figs.add(
+                fig,
+                "hs_diagram",
+                f"Expansion of the steady window starting {w.name:%Y-%m-%d %H:%M} "
+                f"UTC at {w['gross_output']:.0f} MW: HP, IP and the LP expansion line to the ELEP.",
+            )
+        )
 
     # --- cost ----------------------------------------------------------------------------
     if analysis is not None and any(o.losses is not None for o in analysis.sections.values()):
         fig, ax = plt.subplots(figsize=(9, 3))
         for s, o in analysis.sections.items():
-            part = o.losses[(o.losses.index < end) & (o.losses.index + pd.Timedelta(days=1) > start)] \
-                if o.losses is not None else None
+            part = (
+                o.losses[(o.losses.index < end) & (o.losses.index + pd.Timedelta(days=1) > start)]
+                if o.losses is not None
+                else None
+            )
             if part is not None and len(part):
-                ax.plot(part.index, part["cumulative_fuel_cost"], color=SECTION_COLOURS[s],
-                        label=SECTION_TITLES[s])
+                ax.plot(
+                    part.index,
+                    part["cumulative_fuel_cost"],
+                    color=SECTION_COLOURS[s],
+                    label=SECTION_TITLES[s],
+                )
         ax.set_ylabel(f"cumulative fuel cost [{cur}]")
         ax.grid(True, lw=0.3)
         ax.legend(fontsize=8)
         fig.autofmt_xdate()
         parts.append("<h2>Cost of lost efficiency</h2>")
-        parts.append(figs.add(fig, "cumulative_cost", "Cumulative extra fuel cost since the baseline end, per "
-                              "section, over the days of the period, at the configured fuel price and "
-                              "sensitivities."))
+        parts.append(
+            figs.add(
+                fig,
+                "cumulative_cost",
+                "Cumulative extra fuel cost since the baseline end, per "
+                "section, over the days of the period, at the configured fuel price and "
+                "sensitivities.",
+            )
+        )
 
     # --- alarms ---------------------------------------------------------------------------
     ev_rows = []
     for s, rule in alarm_series(config):
         e = _read(store, ALARMS_MEASUREMENT, start, end, {**tags, "section": s, "rule": rule})
         for t, r in e.iterrows():
-            ev_rows.append({"time [UTC]": f"{t:%Y-%m-%d %H:%M}", "section or tag": s, "rule": rule,
-                            "event": "raised" if bool(r.get("raised")) else "cleared",
-                            "value": _fmt(r.get("value"), ".3g"), "threshold": _fmt(r.get("threshold"), ".3g")})
+            ev_rows.append(
+                {
+                    "time [UTC]": f"{t:%Y-%m-%d %H:%M}",
+                    "section or tag": s,
+                    "rule": rule,
+                    "event": "raised" if bool(r.get("raised")) else "cleared",
+                    "value": _fmt(r.get("value"), ".3g"),
+                    "threshold": _fmt(r.get("threshold"), ".3g"),
+                }
+            )
     parts.append("<h2>Alarm events</h2>")
     if ev_rows:
         ev = pd.DataFrame(ev_rows).sort_values("time [UTC]", kind="stable")
         parts.append(_table(ev.head(200), left=("time [UTC]", "section or tag", "rule", "event")))
         if len(ev) > 200:
-            parts.append(f"<p>{len(ev) - 200} further events not shown; export them with "
-                         "<code>isentrope export</code>.</p>")
+            parts.append(
+                f"<p>{len(ev) - 200} further events not shown; export them with "
+                "<code>isentrope export</code>.</p>"
+            )
     else:
         parts.append("<p>No alarm events in the period.</p>")
 
@@ -425,23 +562,36 @@ def write_report(store, config, start, end, out_dir, *, analysis=None, hs_window
         keep = [r for r in summ.index if r in tagged]
         q = summ.loc[keep].copy()
         reasons = [c for c in q.columns if c not in ("flagged", "samples") and q[c].sum() > 0]
-        table = pd.DataFrame({"role": keep, "tag": [tagged[r] for r in keep],
-                              "samples": q["samples"].to_numpy(), "flagged": q["flagged"].to_numpy(),
-                              "flagged [%]": [_fmt(100 * f / n if n else math.nan, ".2f") for f, n in
-                                              zip(q["flagged"], q["samples"])]})
+        table = pd.DataFrame(
+            {
+                "role": keep,
+                "tag": [tagged[r] for r in keep],
+                "samples": q["samples"].to_numpy(),
+                "flagged": q["flagged"].to_numpy(),
+                "flagged [%]": [
+                    _fmt(100 * f / n if n else math.nan, ".2f")
+                    for f, n in zip(q["flagged"], q["samples"], strict=True)
+                ],
+            }
+        )
         for c in reasons:
             table[c.lower()] = q[c].to_numpy()
         parts.append("<h2>Data quality per tag</h2>")
         parts.append(_table(table, left=("role", "tag")))
         expected = int(round((end - start) / pd.Timedelta(minutes=1)))
-        parts.append(f"<p>Samples found: {len(raw):,} rows against {expected:,} one-minute intervals in the "
-                     "period (missing rows are gaps in the store). Flagged samples are excluded from steady "
-                     "windows and trends.</p>")
+        parts.append(
+            f"<p>Samples found: {len(raw):,} rows against {expected:,} one-minute intervals in the "
+            "period (missing rows are gaps in the store). Flagged samples are excluded from steady "
+            "windows and trends.</p>"
+        )
 
     parts.append(f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>')
-    page = ("<!DOCTYPE html><html lang=\"en\"><head><meta charset=\"utf-8\">"
-            f"<title>Turbine section performance: {html.escape(unit)}</title><style>{CSS}</style></head><body>"
-            + "\n".join(parts) + "</body></html>")
+    page = (
+        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
+        f"<title>Turbine section performance: {html.escape(unit)}</title><style>{CSS}</style></head><body>"
+        + "\n".join(parts)
+        + "</body></html>"
+    )
     path = out / "index.html"
     path.write_text(page, encoding="utf-8")
     return path

@@ -58,6 +58,7 @@ import argparse
 import json
 import math
 from collections.abc import Mapping, Sequence
+from itertools import pairwise
 from pathlib import Path
 
 import numpy as np
@@ -130,12 +131,60 @@ NOISE = {
 # Hourly load pattern (fraction of rating) on UTC clock hours, before seasonal and random
 # variation (invented).
 WEEKDAY_PATTERN = np.array(
-    [0.55, 0.55, 0.52, 0.52, 0.55, 0.60, 0.72, 0.88, 0.95, 0.95, 0.95, 0.95,
-     0.92, 0.92, 0.95, 0.95, 0.98, 1.00, 1.00, 1.00, 0.95, 0.85, 0.72, 0.62]
+    [
+        0.55,
+        0.55,
+        0.52,
+        0.52,
+        0.55,
+        0.60,
+        0.72,
+        0.88,
+        0.95,
+        0.95,
+        0.95,
+        0.95,
+        0.92,
+        0.92,
+        0.95,
+        0.95,
+        0.98,
+        1.00,
+        1.00,
+        1.00,
+        0.95,
+        0.85,
+        0.72,
+        0.62,
+    ]
 )
 WEEKEND_PATTERN = np.array(
-    [0.48, 0.45, 0.42, 0.40, 0.40, 0.42, 0.48, 0.55, 0.62, 0.65, 0.68, 0.68,
-     0.65, 0.62, 0.62, 0.65, 0.70, 0.78, 0.80, 0.78, 0.72, 0.62, 0.55, 0.50]
+    [
+        0.48,
+        0.45,
+        0.42,
+        0.40,
+        0.40,
+        0.42,
+        0.48,
+        0.55,
+        0.62,
+        0.65,
+        0.68,
+        0.68,
+        0.65,
+        0.62,
+        0.62,
+        0.65,
+        0.70,
+        0.78,
+        0.80,
+        0.78,
+        0.72,
+        0.62,
+        0.55,
+        0.50,
+    ]
 )
 
 # Offline behaviour per role: (ambient, time constant of the decay [min], minutes before a
@@ -363,11 +412,17 @@ def _auto_events(start: pd.Timestamp, days: float) -> dict:
     fractions of the span so that they do not overlap.
     """
     if days < 10:
+
         def frac_of_span(frac):
             return start + pd.Timedelta(minutes=round(frac * days * 1440.0))
 
-        return {"shutdowns": [], "trip_at": frac_of_span(0.45), "flatline_at": frac_of_span(0.15),
-                "gap_at": frac_of_span(0.80), "spike_at": frac_of_span(0.93)}
+        return {
+            "shutdowns": [],
+            "trip_at": frac_of_span(0.45),
+            "flatline_at": frac_of_span(0.15),
+            "gap_at": frac_of_span(0.80),
+            "spike_at": frac_of_span(0.93),
+        }
 
     def at(frac, hours):
         return start + pd.Timedelta(days=math.floor(frac * days)) + pd.Timedelta(hours=hours)
@@ -492,14 +547,17 @@ def generate_with_state(
     step_min = step.total_seconds() / 60.0
     n = int(round(days * 1440.0 / step_min))
     if not 2 <= n <= MAX_ROWS:
-        raise ValueError(f"days={days!r} at freq={freq!r} gives {n} rows; valid: 2 to {MAX_ROWS} "
-                         "(use a coarser freq or a shorter span)")
+        raise ValueError(
+            f"days={days!r} at freq={freq!r} gives {n} rows; valid: 2 to {MAX_ROWS} "
+            "(use a coarser freq or a shorter span)"
+        )
     index = pd.date_range(start, periods=n, freq=step, name="time")
     end = start + n * step
     tmin = np.arange(n) * step_min  # minutes since start
     rng = np.random.default_rng(seed)
 
     auto = _auto_events(start, days)
+
     def is_auto(value) -> bool:
         return isinstance(value, str) and value == "auto"
 
@@ -524,14 +582,18 @@ def generate_with_state(
     if trip is not None:
         outages.append((minute(trip), minute(trip) + 60.0 * trip_hours, "trip"))
     outages.sort()
-    for (a0, a1, ka), (b0, b1, kb) in zip(outages, outages[1:]):
+    for (_, a1, ka), (b0, _, kb) in pairwise(outages):
         if b0 < a1 + 240.0:
-            raise ValueError(f"{kb} at minute {b0:.0f} starts before the {ka} ending at minute {a1:.0f} "
-                             "is over (allow 4 h between them)")
-    for off, on, kind in outages:
+            raise ValueError(
+                f"{kb} at minute {b0:.0f} starts before the {ka} ending at minute {a1:.0f} "
+                "is over (allow 4 h between them)"
+            )
+    for off, _, kind in outages:
         if not 0.0 < off < tmin[-1]:
-            raise ValueError(f"{kind} at {_iso(start + pd.Timedelta(minutes=off))} is outside the "
-                             f"history {_iso(start)} to {_iso(end)}")
+            raise ValueError(
+                f"{kind} at {_iso(start + pd.Timedelta(minutes=off))} is outside the "
+                f"history {_iso(start)} to {_iso(end)}"
+            )
 
     # --- load --------------------------------------------------------------------------------
     n_hours = int(math.ceil(n * step_min / 60.0)) + 1
@@ -566,9 +628,15 @@ def generate_with_state(
         online[(tmin >= off) & (tmin < on)] = False
         after = tmin >= on
         tau = tmin[after] - on
-        curve = np.where(tau < 30.0, SYNC_LOAD,
-                         np.where(tau < 90.0, SYNC_LOAD + (tau - 30.0) / 60.0 * (MIN_DISPATCH - SYNC_LOAD),
-                                  np.where(tau < 150.0, MIN_DISPATCH, MIN_DISPATCH + (tau - 150.0) * 0.01)))
+        curve = np.where(
+            tau < 30.0,
+            SYNC_LOAD,
+            np.where(
+                tau < 90.0,
+                SYNC_LOAD + (tau - 30.0) / 60.0 * (MIN_DISPATCH - SYNC_LOAD),
+                np.where(tau < 150.0, MIN_DISPATCH, MIN_DISPATCH + (tau - 150.0) * 0.01),
+            ),
+        )
         load[after] = np.minimum(load[after], curve)
         warm_min[after] = np.minimum(warm_min[after], tau)
     load = np.clip(load + _ar1(rng, n, 0.002, 4.0 / step_min), 0.05, 1.02)
@@ -590,7 +658,8 @@ def generate_with_state(
     hp_loss_pts = -hp_rate * counted / 1000.0
     ip_loss_pts = np.where(after_rub, -ip_step, 0.0) if trip is not None else 0.0
     flow_frac = (FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * load) * (
-        1.0 + FLOW_PER_POINT["hp"] * hp_loss_pts + FLOW_PER_POINT["ip"] * ip_loss_pts)
+        1.0 + FLOW_PER_POINT["hp"] * hp_loss_pts + FLOW_PER_POINT["ip"] * ip_loss_pts
+    )
 
     # --- pressures (true) --------------------------------------------------------------------
     baro = 0.1006 + _ar1(rng, n, 0.0007, 2880.0 / step_min)
@@ -598,8 +667,11 @@ def generate_with_state(
     p_slide = THROTTLE_P_RATED * flow_frac / flow_at_slide
     p_thr = np.clip(p_slide, THROTTLE_P_MIN, THROTTLE_P_RATED)
     p_thr = p_thr * (1.0 + _ar1(rng, n, 0.001, 10.0 / step_min))
-    valve = np.where(load >= SLIDING_BELOW, 62.0 + (load - SLIDING_BELOW) / (1.0 - SLIDING_BELOW) * 33.0,
-                     62.0 * np.minimum(1.0, p_slide / THROTTLE_P_MIN))
+    valve = np.where(
+        load >= SLIDING_BELOW,
+        62.0 + (load - SLIDING_BELOW) / (1.0 - SLIDING_BELOW) * 33.0,
+        62.0 * np.minimum(1.0, p_slide / THROTTLE_P_MIN),
+    )
     p_fs = FIRST_STAGE_P_RATED * flow_frac
     p_crh = COLD_REHEAT_P_RATED * flow_frac
     p_hrh = (1.0 - REHEATER_DROP) * p_crh
@@ -607,8 +679,11 @@ def generate_with_state(
     p_ext = LP_EXTRACTION_P_RATED * flow_frac
     hour_of_day = index.hour.to_numpy() + index.minute.to_numpy() / 60.0
     doy_min = index.day_of_year.to_numpy() + hour_of_day / 24.0
-    p_cond_kpa = (6.0 + 2.5 * np.cos(2 * np.pi * (doy_min - 205.0) / 365.25)
-                  + 0.3 * np.cos(2 * np.pi * (hour_of_day - 15.0) / 24.0))
+    p_cond_kpa = (
+        6.0
+        + 2.5 * np.cos(2 * np.pi * (doy_min - 205.0) / 365.25)
+        + 0.3 * np.cos(2 * np.pi * (hour_of_day - 15.0) / 24.0)
+    )
     p_cond_kpa = p_cond_kpa * (0.55 + 0.45 * load) + _ar1(rng, n, 0.1, 360.0 / step_min)
     p_cond = np.maximum(p_cond_kpa, 2.5) / 1000.0
 
@@ -637,19 +712,26 @@ def generate_with_state(
     for name, arr in (("cold reheat", t_crh_on), ("crossover", t_xo_on), ("LP extraction", t_ext_on)):
         bad = ~np.isfinite(arr)
         if bad.any():
-            raise RuntimeError(f"steam properties failed for {bad.sum()} {name} points; "
-                               "the scenario left the range of isentrope.calc.steam")
+            raise RuntimeError(
+                f"steam properties failed for {bad.sum()} {name} points; "
+                "the scenario left the range of isentrope.calc.steam"
+            )
     t_crh = np.full(n, np.nan)
     t_xo = np.full(n, np.nan)
     t_ext = np.full(n, np.nan)
     t_crh[on], t_xo[on], t_ext[on] = t_crh_on, t_xo_on, t_ext_on
 
     true = {
-        "throttle_p": p_thr, "throttle_t": t_thr,
-        "cold_reheat_p": p_crh, "cold_reheat_t": t_crh,
-        "hot_reheat_p": p_hrh, "hot_reheat_t": t_hrh,
-        "crossover_p": p_xo, "crossover_t": t_xo,
-        "lp_extraction_p": p_ext, "lp_extraction_t": t_ext,
+        "throttle_p": p_thr,
+        "throttle_t": t_thr,
+        "cold_reheat_p": p_crh,
+        "cold_reheat_t": t_crh,
+        "hot_reheat_p": p_hrh,
+        "hot_reheat_t": t_hrh,
+        "crossover_p": p_xo,
+        "crossover_t": t_xo,
+        "lp_extraction_p": p_ext,
+        "lp_extraction_t": t_ext,
         "condenser_p": p_cond,
         "gross_output": RATING_MW * load,
         "main_steam_flow": RATED_FLOW_KGS * flow_frac,
@@ -692,9 +774,14 @@ def generate_with_state(
         plant = internal_to_plant(measured[flatline_role], unit, measured["barometric_p"])
         held = float(plant[i0 - 1])
         measured[flatline_role][i0:i1] = plant_to_internal(held, unit, measured["barometric_p"][i0:i1])
-        truth_faults["flatline"] = {"role": flatline_role, "tag": TAG_MAP[flatline_role]["tag"],
-                                    "start": _iso(index[i0]), "end": _iso(f1), "held_value": held,
-                                    "held_unit": unit}
+        truth_faults["flatline"] = {
+            "role": flatline_role,
+            "tag": TAG_MAP[flatline_role]["tag"],
+            "start": _iso(index[i0]),
+            "end": _iso(f1),
+            "held_value": held,
+            "held_unit": unit,
+        }
     if spike is not None:
         s0 = _ts(spike)
         i0 = index.searchsorted(s0)
@@ -707,12 +794,20 @@ def generate_with_state(
         k = np.arange(i1 - i0)
         pattern = np.where(k % 3 == 0, hi + 0.2 * span, np.where(k % 3 == 1, lo - 0.05 * span, np.nan))
         rows = i0 + k[np.isfinite(pattern)]
-        measured[spike_role][rows] = plant_to_internal(pattern[np.isfinite(pattern)], unit,
-                                                       measured["barometric_p"][rows])
-        truth_faults["spike"] = {"role": spike_role, "tag": TAG_MAP[spike_role]["tag"],
-                                 "start": _iso(index[i0]), "end": _iso(index[i1 - 1] + step),
-                                 "samples": int(len(rows)), "high_value": hi + 0.2 * span,
-                                 "low_value": lo - 0.05 * span, "unit": unit, "range": [lo, hi]}
+        measured[spike_role][rows] = plant_to_internal(
+            pattern[np.isfinite(pattern)], unit, measured["barometric_p"][rows]
+        )
+        truth_faults["spike"] = {
+            "role": spike_role,
+            "tag": TAG_MAP[spike_role]["tag"],
+            "start": _iso(index[i0]),
+            "end": _iso(index[i1 - 1] + step),
+            "samples": int(len(rows)),
+            "high_value": hi + 0.2 * span,
+            "low_value": lo - 0.05 * span,
+            "unit": unit,
+            "range": [lo, hi],
+        }
     in_gap = np.zeros(n, dtype=bool)
     if gap is not None:
         g0, g1 = _ts(gap), _ts(gap) + _dur(hours=gap_hours)
@@ -723,10 +818,16 @@ def generate_with_state(
         for kind in ("flatline", "spike"):
             fault = truth_faults.get(kind)
             if fault and pd.Timestamp(fault["start"]) < g1 and g0 < pd.Timestamp(fault["end"]):
-                raise ValueError(f"data gap {_iso(g0)} to {_iso(g1)} overlaps the {kind} "
-                                 f"{fault['start']} to {fault['end']}; place them apart")
-        truth_faults["gap"] = {"start": _iso(index[i0]), "end": _iso(g1), "rows": "absent",
-                               "missing_samples": int(i1 - i0)}
+                raise ValueError(
+                    f"data gap {_iso(g0)} to {_iso(g1)} overlaps the {kind} "
+                    f"{fault['start']} to {fault['end']}; place them apart"
+                )
+        truth_faults["gap"] = {
+            "start": _iso(index[i0]),
+            "end": _iso(g1),
+            "rows": "absent",
+            "missing_samples": int(i1 - i0),
+        }
 
     keep = ~in_gap
     kept = np.flatnonzero(keep)
@@ -735,13 +836,36 @@ def generate_with_state(
         np.take(measured[role], kept, out=values[:, j])
     frame = pd.DataFrame(values, index=index[kept], columns=list(ROLES), copy=False)
 
-    columns = {"online": online, "load_fraction": load, "operating_hours": op_hours,
-               "eta_hp": eta_hp, "eta_ip": eta_ip, "eta_lp": eta_lp, "in_gap": in_gap}
+    columns = {
+        "online": online,
+        "load_fraction": load,
+        "operating_hours": op_hours,
+        "eta_hp": eta_hp,
+        "eta_ip": eta_ip,
+        "eta_lp": eta_lp,
+        "in_gap": in_gap,
+    }
     if _full_state:
         columns.update({f"true_{role}": true[role] for role in ROLES})
     state = pd.DataFrame(columns, index=index)
-    truth = _truth(start, days, freq, seed, noise, index, step, online, state, outages, trip,
-                   ip_step_time, hp_rate, ip_step, initial_hours, truth_faults)
+    truth = _truth(
+        start,
+        days,
+        freq,
+        seed,
+        noise,
+        index,
+        step,
+        online,
+        state,
+        outages,
+        trip,
+        ip_step_time,
+        hp_rate,
+        ip_step,
+        initial_hours,
+        truth_faults,
+    )
     return frame, truth, state
 
 
@@ -771,8 +895,24 @@ def _fill_offline(true: dict, online: np.ndarray, tmin: np.ndarray, baro: np.nda
         x[off] = decayed
 
 
-def _truth(start, days, freq, seed, noise, index, step, online, state, outages, trip, ip_step_time,
-           hp_rate, ip_step, initial_hours, faults) -> dict:
+def _truth(
+    start,
+    days,
+    freq,
+    seed,
+    noise,
+    index,
+    step,
+    online,
+    state,
+    outages,
+    trip,
+    ip_step_time,
+    hp_rate,
+    ip_step,
+    initial_hours,
+    faults,
+) -> dict:
     step_h = step.total_seconds() / 3600.0
     events = []
     for off, on, kind in outages:
@@ -780,37 +920,58 @@ def _truth(start, days, freq, seed, noise, index, step, online, state, outages, 
         t_on = start + pd.Timedelta(minutes=on)
         if t_on > index[-1]:
             t_on = None
-        events.append({"kind": kind, "offline": _iso(t_off), "online": _iso(t_on) if t_on is not None else None,
-                       "hours": round((on - off) / 60.0, 3)})
+        events.append(
+            {
+                "kind": kind,
+                "offline": _iso(t_off),
+                "online": _iso(t_on) if t_on is not None else None,
+                "hours": round((on - off) / 60.0, 3),
+            }
+        )
     part = state[["eta_hp", "eta_ip", "eta_lp", "load_fraction"]]
     daily = part[state["online"].to_numpy()].resample("1D").mean()
     hours_end = state["operating_hours"].resample("1D").last()
-    at_rating_hp = (DESIGN_CURVES["hp"]["at_rating"]
-                    + hp_rate / 100.0 * (hours_end - initial_hours) / 1000.0)
+    at_rating_hp = DESIGN_CURVES["hp"]["at_rating"] + hp_rate / 100.0 * (hours_end - initial_hours) / 1000.0
 
     def series(s):
         return [None if not np.isfinite(v) else round(float(v), 6) for v in s.to_numpy()]
 
     truth = {
         "scenario": dict(SCENARIO),
-        "generator": {"module": "isentrope.daemon.synthetic", "version": GENERATOR_VERSION,
-                      "start": _iso(start), "end": _iso(index[-1] + step), "days": days, "freq": freq,
-                      "seed": seed, "noise_scale": noise, "samples": int(len(index))},
+        "generator": {
+            "module": "isentrope.daemon.synthetic",
+            "version": GENERATOR_VERSION,
+            "start": _iso(start),
+            "end": _iso(index[-1] + step),
+            "days": days,
+            "freq": freq,
+            "seed": seed,
+            "noise_scale": noise,
+            "samples": int(len(index)),
+        },
         "units": "internal: MPa absolute, K, MW, kg/s, percent; efficiencies as fractions; "
-                 "efficiency changes in percentage points",
-        "design_curves": {k: dict(v, form="at_rating - droop * (1 - load_fraction)**2")
-                          for k, v in DESIGN_CURVES.items()},
-        "hp": {"rate_points_per_1000h": hp_rate, "initial_hours": initial_hours,
-               "form": "design_hp(load) + rate/100 * (operating_hours - initial_hours)/1000",
-               "at_rating_start": round(float(at_rating_hp.iloc[0]), 6),
-               "at_rating_end": round(float(at_rating_hp.iloc[-1]), 6)},
-        "ip": {"step_points": ip_step if trip is not None else 0.0,
-               "step_time": _iso(ip_step_time) if ip_step_time is not None else None,
-               "cause": "rub at the trip; applies from the restart after the trip"},
+        "efficiency changes in percentage points",
+        "design_curves": {
+            k: dict(v, form="at_rating - droop * (1 - load_fraction)**2") for k, v in DESIGN_CURVES.items()
+        },
+        "hp": {
+            "rate_points_per_1000h": hp_rate,
+            "initial_hours": initial_hours,
+            "form": "design_hp(load) + rate/100 * (operating_hours - initial_hours)/1000",
+            "at_rating_start": round(float(at_rating_hp.iloc[0]), 6),
+            "at_rating_end": round(float(at_rating_hp.iloc[-1]), 6),
+        },
+        "ip": {
+            "step_points": ip_step if trip is not None else 0.0,
+            "step_time": _iso(ip_step_time) if ip_step_time is not None else None,
+            "cause": "rub at the trip; applies from the restart after the trip",
+        },
         "lp": {"form": "design_lp(load), no change over the history"},
-        "trip": ({"time": _iso(_ts(trip)),
-                  "restart": next(e["online"] for e in events if e["kind"] == "trip")}
-                 if trip is not None else None),
+        "trip": (
+            {"time": _iso(_ts(trip)), "restart": next(e["online"] for e in events if e["kind"] == "trip")}
+            if trip is not None
+            else None
+        ),
         "outages": events,
         "startups": [e["online"] for e in events if e["online"] is not None],
         "shutdowns": [e["offline"] for e in events],
@@ -829,7 +990,7 @@ def _truth(start, days, freq, seed, noise, index, step, online, state, outages, 
             "eta_hp_at_rating_end_of_day": series(at_rating_hp.reindex(daily.index)),
         },
         "caution": "invented demonstration data for a fictional unit; advisory performance "
-                   "information only, not a protective function",
+        "information only, not a protective function",
     }
     return truth
 
@@ -886,8 +1047,10 @@ def bench(days: float = 365, freq: str = "1min", seed: int = DEFAULT_SEED) -> di
     st = {role: state[f"true_{role}"].to_numpy()[on] for role in ROLES}
     steam = _steam()
     t0 = time.perf_counter()
-    for p_in, t_in, p_out, t_out in (("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t"),
-                                     ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t")):
+    for p_in, t_in, p_out, _ in (
+        ("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t"),
+        ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t"),
+    ):
         h = steam.h_pt(st[p_in], st[t_in])
         s = steam.s_pt(st[p_in], st[t_in])
         steam.h_ps(st[p_out], s)
@@ -896,25 +1059,39 @@ def bench(days: float = 365, freq: str = "1min", seed: int = DEFAULT_SEED) -> di
     h = steam.h_ps(st["lp_extraction_p"], s)
     steam.t_ph(st["lp_extraction_p"], h + 30.0)
     t_ref = time.perf_counter() - t0
-    return {"days": days, "rows": int(len(state)), "online_rows": int(on.sum()),
-            "generate_s": round(t_gen, 3), "steam_reference_s": round(t_ref, 3),
-            "ratio": round(t_gen / t_ref, 3), "rest_s": round(t_gen - t_ref, 3)}
+    return {
+        "days": days,
+        "rows": int(len(state)),
+        "online_rows": int(on.sum()),
+        "generate_s": round(t_gen, 3),
+        "steam_reference_s": round(t_ref, 3),
+        "ratio": round(t_gen / t_ref, 3),
+        "rest_s": round(t_gen - t_ref, 3),
+    }
 
 
 def main(argv: Sequence[str] | None = None) -> int:
     """Write a synthetic history (wide CSV: time, then one column per plant tag, plant units;
     or role columns in internal units with ``--internal``), its truth file and a configuration."""
-    parser = argparse.ArgumentParser(prog="python -m isentrope.daemon.synthetic",
-                                     description="Write the synthetic Greywater Bend Unit 2 history.")
+    parser = argparse.ArgumentParser(
+        prog="python -m isentrope.daemon.synthetic",
+        description="Write the synthetic Greywater Bend Unit 2 history.",
+    )
     parser.add_argument("-o", "--out", help="output folder (created)")
-    parser.add_argument("--bench", action="store_true",
-                        help="time the generator against the IF97 calls alone and print the ratio")
+    parser.add_argument(
+        "--bench",
+        action="store_true",
+        help="time the generator against the IF97 calls alone and print the ratio",
+    )
     parser.add_argument("--start", default="2025-01-01")
     parser.add_argument("--days", type=float, default=30.0)
     parser.add_argument("--freq", default="1min")
     parser.add_argument("--seed", type=int, default=DEFAULT_SEED)
-    parser.add_argument("--internal", action="store_true",
-                        help="write internal units (MPa abs, K, ...) instead of the plant units")
+    parser.add_argument(
+        "--internal",
+        action="store_true",
+        help="write internal units (MPa abs, K, ...) instead of the plant units",
+    )
     args = parser.parse_args(argv)
     if args.bench:
         figures = bench(args.days, args.freq, args.seed)
@@ -931,8 +1108,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     data.to_csv(out / "history.csv", float_format="%.6g", date_format="%Y-%m-%dT%H:%M:%SZ")
     write_truth(truth, out / "truth.json")
     (out / "config.toml").write_text(config_toml(), encoding="utf-8")
-    print(f"wrote {len(frame)} rows to {out / 'history.csv'}, truth to {out / 'truth.json'}, "
-          f"configuration to {out / 'config.toml'}")
+    print(
+        f"wrote {len(frame)} rows to {out / 'history.csv'}, truth to {out / 'truth.json'}, "
+        f"configuration to {out / 'config.toml'}"
+    )
     return 0
 
 

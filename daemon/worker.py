@@ -33,6 +33,7 @@ Results are advisory performance information, not a protective function.
 
 from __future__ import annotations
 
+import functools
 import json
 import logging
 import random
@@ -68,8 +69,15 @@ def _utc(t) -> pd.Timestamp:
 
 
 _DURATION = re.compile(r"^\s*(-?\d+(?:\.\d+)?)\s*(ms|s|m|min|h|d|w)\s*$")
-_DURATION_UNIT = {"ms": "milliseconds", "s": "seconds", "m": "minutes", "min": "minutes",
-                  "h": "hours", "d": "days", "w": "weeks"}
+_DURATION_UNIT = {
+    "ms": "milliseconds",
+    "s": "seconds",
+    "m": "minutes",
+    "min": "minutes",
+    "h": "hours",
+    "d": "days",
+    "w": "weeks",
+}
 
 
 def as_timedelta(value) -> pd.Timedelta:
@@ -173,7 +181,7 @@ def backoff_delays(retries: int, backoff, backoff_max, rng: random.Random) -> li
     cap = as_timedelta(backoff_max).total_seconds()
     out = []
     for k in range(int(retries)):
-        d = min(cap, base * (2.0 ** k))
+        d = min(cap, base * (2.0**k))
         out.append(d * (0.5 + 0.5 * rng.random()))
     return out
 
@@ -321,15 +329,21 @@ class Worker:
         self._flusher: ThreadPoolExecutor | None = None  # write-behind thread (see module doc)
 
     @classmethod
-    def from_config(cls, config, store: Store, **overrides) -> "Worker":
+    def from_config(cls, config, store: Store, **overrides) -> Worker:
         """A worker for ``config`` (``isentrope.daemon.config.Config``); keyword arguments
         override the ``[schedule]`` values and the other constructor arguments."""
         from isentrope.daemon.pipeline import Pipeline
 
         sch = config.schedule
-        kwargs = dict(settle=sch.settle, lookback=sch.lookback, chunk=sch.chunk, retries=sch.retries,
-                      backoff=sch.backoff, backoff_max=sch.backoff_max,
-                      barometric_kpa=config.screening.barometric_kpa)
+        kwargs = dict(
+            settle=sch.settle,
+            lookback=sch.lookback,
+            chunk=sch.chunk,
+            retries=sch.retries,
+            backoff=sch.backoff,
+            backoff_max=sch.backoff_max,
+            barometric_kpa=config.screening.barometric_kpa,
+        )
         kwargs.update(overrides)
         pipeline = kwargs.pop("pipeline", None) or Pipeline(config)
         worker = cls(store, pipeline, config.mappings, config.unit.name, **kwargs)
@@ -359,16 +373,25 @@ class Worker:
         return self.stop_event.is_set()
 
     def _retry(self, fn, what: str):
-        return call_with_retry(fn, what=what, retries=self.retries, backoff=self.backoff,
-                               backoff_max=self.backoff_max, sleep=self.sleep, rng=self.rng,
-                               stop_event=self.stop_event)
+        return call_with_retry(
+            fn,
+            what=what,
+            retries=self.retries,
+            backoff=self.backoff,
+            backoff_max=self.backoff_max,
+            sleep=self.sleep,
+            rng=self.rng,
+            stop_event=self.stop_event,
+        )
 
     # --- one cycle ------------------------------------------------------------------------
     def plan(self, now: pd.Timestamp | None = None, until: pd.Timestamp | None = None):
         """The windows the next cycle would process (reads the checkpoint)."""
         now = self.clock() if now is None else now
-        checkpoint = self._retry(lambda: self.store.get_checkpoint(self.checkpoint_name),
-                                 f"reading checkpoint {self.checkpoint_name!r}")
+        checkpoint = self._retry(
+            lambda: self.store.get_checkpoint(self.checkpoint_name),
+            f"reading checkpoint {self.checkpoint_name!r}",
+        )
         windows = plan_windows(checkpoint, now, self.settle, self.lookback, self.chunk, self.start_default)
         if until is not None:
             until = _utc(until)
@@ -399,12 +422,21 @@ class Worker:
             windows = self.plan(now, until)
             period = self._baseline_period()
             if period is not None:  # the chunk after the reference period sees the fitted model
-                windows = [w for s, e in windows
-                           for w in (((s, period[1]), (period[1], e)) if s < period[1] < e else ((s, e),))]
+                windows = [
+                    w
+                    for s, e in windows
+                    for w in (((s, period[1]), (period[1], e)) if s < period[1] < e else ((s, e),))
+                ]
             report.windows = windows
             data_end = now - self.settle  # nothing later is in the store yet
-            checkpoint = self._retry(lambda: self.store.get_checkpoint(self.checkpoint_name),
-                                     f"reading checkpoint {self.checkpoint_name!r}") if windows else None
+            checkpoint = (
+                self._retry(
+                    lambda: self.store.get_checkpoint(self.checkpoint_name),
+                    f"reading checkpoint {self.checkpoint_name!r}",
+                )
+                if windows
+                else None
+            )
             behind = bool(getattr(self.store, "write_behind", False))
             inflight = None  # (future, batch, start, end, rows_read, rows_flagged) being written
             looped = False
@@ -418,9 +450,12 @@ class Worker:
                         inflight = None
                     carry = None
                     if inflight is not None:  # its alarm state, as the store will give it back
-                        carry = json.loads(json.dumps(inflight[1].alarm_state)) if inflight[1].alarm_state else {}
+                        carry = (
+                            json.loads(json.dumps(inflight[1].alarm_state)) if inflight[1].alarm_state else {}
+                        )
                     rows_read, rows_flagged, new_checkpoint, batch = self._compute(
-                        start, end, data_end, checkpoint, carry)
+                        start, end, data_end, checkpoint, carry
+                    )
                     if inflight is not None:
                         self._settle(inflight, report, progress)
                         inflight = None
@@ -430,9 +465,17 @@ class Worker:
                         # formatting here, sending there (see Store.prepare_results)
                         batch.prepared = [self.store.prepare_results(m, f, t) for m, f, t in batch.writes]
                         if self._flusher is None:
-                            self._flusher = ThreadPoolExecutor(max_workers=1, thread_name_prefix="isentrope-write")
-                        inflight = (self._flusher.submit(self._flush, batch), batch, start, end, rows_read,
-                                    rows_flagged)
+                            self._flusher = ThreadPoolExecutor(
+                                max_workers=1, thread_name_prefix="isentrope-write"
+                            )
+                        inflight = (
+                            self._flusher.submit(self._flush, batch),
+                            batch,
+                            start,
+                            end,
+                            rows_read,
+                            rows_flagged,
+                        )
                     else:
                         self._flush(batch)
                         self._account(batch, start, end, rows_read, rows_flagged, report, progress)
@@ -447,12 +490,20 @@ class Worker:
                         # the loop's own error is the one reported; this batch stays pending
         except TemporaryStoreError as exc:
             report.error = f"store unreachable: {exc}"
-            where = f" (window {self.pending.start.isoformat()} to {self.pending.end.isoformat()}, " \
-                    f"{len(self.pending.writes) - self.pending.written} writes kept for the next cycle)" \
-                if self.pending is not None else ""
-            logger.warning("unit %s: cycle ended after %d retries: %s%s; checkpoint stays at %s",
-                           self.unit, self.retries, exc, where,
-                           report.checkpoint.isoformat() if report.checkpoint is not None else "its last value")
+            where = (
+                f" (window {self.pending.start.isoformat()} to {self.pending.end.isoformat()}, "
+                f"{len(self.pending.writes) - self.pending.written} writes kept for the next cycle)"
+                if self.pending is not None
+                else ""
+            )
+            logger.warning(
+                "unit %s: cycle ended after %d retries: %s%s; checkpoint stays at %s",
+                self.unit,
+                self.retries,
+                exc,
+                where,
+                report.checkpoint.isoformat() if report.checkpoint is not None else "its last value",
+            )
         except FatalStoreError as exc:
             report.error = f"store error: {exc}"
             report.duration_s = _time.monotonic() - t0
@@ -463,8 +514,14 @@ class Worker:
         self._heartbeat(report)
         return report
 
-    def _compute(self, start: pd.Timestamp, end: pd.Timestamp, data_end: pd.Timestamp,
-                 checkpoint: pd.Timestamp | None, alarm_state: dict | None = None):
+    def _compute(
+        self,
+        start: pd.Timestamp,
+        end: pd.Timestamp,
+        data_end: pd.Timestamp,
+        checkpoint: pd.Timestamp | None,
+        alarm_state: dict | None = None,
+    ):
         """One chunk up to its batch: read with margins, compute. Returns ``(rows_read,
         rows_flagged, new_checkpoint, batch)``; ``_flush(batch)`` then writes it, saves the
         state and advances the checkpoint.
@@ -480,20 +537,37 @@ class Worker:
         final_end = min(end, data_end - after)
         frame = self._retry(
             lambda: self.store.read(self.mappings, read_start, read_end, barometric_kpa=self.barometric_kpa),
-            f"reading unit {self.unit} from {read_start.isoformat()} to {read_end.isoformat()}")
+            f"reading unit {self.unit} from {read_start.isoformat()} to {read_end.isoformat()}",
+        )
         if alarm_state is None:
-            alarm_state = self._retry(lambda: self.store.load_state(self.alarm_state_name),
-                                      f"loading state {self.alarm_state_name!r}")
+            alarm_state = self._retry(
+                lambda: self.store.load_state(self.alarm_state_name),
+                f"loading state {self.alarm_state_name!r}",
+            )
         baselines = self._baselines(start)
-        results = self.pipeline.process(frame, start, end, final_end=final_end,
-                                        alarm_state=alarm_state or None, baselines=baselines)
+        results = self.pipeline.process(
+            frame, start, end, final_end=final_end, alarm_state=alarm_state or None, baselines=baselines
+        )
         new_checkpoint = final_end if checkpoint is None else max(checkpoint, final_end)
-        batch = Batch(start=start, end=new_checkpoint, writes=results.writes(self.tags),
-                      alarm_state=results.alarm_state, events=results.alarm_events)
+        batch = Batch(
+            start=start,
+            end=new_checkpoint,
+            writes=results.writes(self.tags),
+            alarm_state=results.alarm_state,
+            events=results.alarm_events,
+        )
         return results.counts["rows_read"], results.counts["rows_flagged"], new_checkpoint, batch
 
-    def _account(self, batch: Batch, start, end, rows_read: int, rows_flagged: int, report: CycleReport,
-                 progress: Callable | None) -> None:
+    def _account(
+        self,
+        batch: Batch,
+        start,
+        end,
+        rows_read: int,
+        rows_flagged: int,
+        report: CycleReport,
+        progress: Callable | None,
+    ) -> None:
         """A batch is in the store: count it in the report, log its alarm events (raised as
         warnings, cleared as information: the journal of a service shows them) and tell
         ``progress``."""
@@ -501,9 +575,15 @@ class Worker:
             self.pending = None
         events = batch.events
         if events is not None and len(events):
-            for t, kind, message in zip(events.index, events["kind"], events["message"]):
-                logger.log(logging.WARNING if kind == "raised" else logging.INFO, "unit %s: alarm %s at %s: %s",
-                           self.unit, kind, pd.Timestamp(t).isoformat(), message)
+            for t, kind, message in zip(events.index, events["kind"], events["message"], strict=True):
+                logger.log(
+                    logging.WARNING if kind == "raised" else logging.INFO,
+                    "unit %s: alarm %s at %s: %s",
+                    self.unit,
+                    kind,
+                    pd.Timestamp(t).isoformat(),
+                    message,
+                )
             batch.events = None  # once
         report.rows_read += rows_read
         report.rows_flagged += rows_flagged
@@ -541,13 +621,17 @@ class Worker:
         """
         if self._models is not None:
             return self._models
-        saved = self._retry(lambda: self.store.load_state(self.baseline_state_name),
-                            f"loading state {self.baseline_state_name!r}")
+        saved = self._retry(
+            lambda: self.store.load_state(self.baseline_state_name),
+            f"loading state {self.baseline_state_name!r}",
+        )
         period = self._baseline_period()
         if saved and saved.get("models"):
             from isentrope.calc.baseline import BaselineModel
 
-            self._models = {sec: BaselineModel.from_json(text) for sec, text in sorted(saved["models"].items())}
+            self._models = {
+                sec: BaselineModel.from_json(text) for sec, text in sorted(saved["models"].items())
+            }
             self._say_if_baseline_changed(saved)
             return self._models
         if period is None or chunk_start < period[1]:
@@ -555,26 +639,49 @@ class Worker:
         from isentrope.daemon.pipeline import WINDOWS_MEASUREMENT
 
         ref_start, ref_end = period
-        windows = self._retry(lambda: self.store.read_results(WINDOWS_MEASUREMENT, ref_start, ref_end, self.tags),
-                              f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}")
+        windows = self._retry(
+            lambda: self.store.read_results(WINDOWS_MEASUREMENT, ref_start, ref_end, self.tags),
+            f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}",
+        )
         models, problems = self.pipeline.fit_baselines(windows)
         if not len(windows):
-            logger.warning("unit %s: no steady windows are stored for the reference period %s to %s, so no "
-                           "baseline is fitted and no deviations are computed; process that period first "
-                           "(isentrope backfill --start %s --end %s), then run this one again with --refit",
-                           self.unit, ref_start.isoformat(), ref_end.isoformat(), ref_start.isoformat(),
-                           ref_end.isoformat())
+            logger.warning(
+                "unit %s: no steady windows are stored for the reference period %s to %s, so no "
+                "baseline is fitted and no deviations are computed; process that period first "
+                "(isentrope backfill --start %s --end %s), then run this one again with --refit",
+                self.unit,
+                ref_start.isoformat(),
+                ref_end.isoformat(),
+                ref_start.isoformat(),
+                ref_end.isoformat(),
+            )
         for line in problems:
-            logger.warning("unit %s: baseline over %s to %s not fitted for section %s; no deviations "
-                           "for it until the worker restarts with a usable [baseline] period", self.unit,
-                           ref_start.isoformat(), ref_end.isoformat(), line)
+            logger.warning(
+                "unit %s: baseline over %s to %s not fitted for section %s; no deviations "
+                "for it until the worker restarts with a usable [baseline] period",
+                self.unit,
+                ref_start.isoformat(),
+                ref_end.isoformat(),
+                line,
+            )
         if models:
-            state = {"models": {sec: m.to_json() for sec, m in sorted(models.items())},
-                     "reference_start": ref_start.isoformat(), "reference_end": ref_end.isoformat()}
-            self._retry(lambda: self.store.save_state(self.baseline_state_name, state),
-                        f"saving state {self.baseline_state_name!r}")
-            logger.info("unit %s: baseline fitted on %d steady windows (%s to %s) for %s", self.unit,
-                        len(windows), ref_start.isoformat(), ref_end.isoformat(), ", ".join(sorted(models)))
+            state = {
+                "models": {sec: m.to_json() for sec, m in sorted(models.items())},
+                "reference_start": ref_start.isoformat(),
+                "reference_end": ref_end.isoformat(),
+            }
+            self._retry(
+                lambda: self.store.save_state(self.baseline_state_name, state),
+                f"saving state {self.baseline_state_name!r}",
+            )
+            logger.info(
+                "unit %s: baseline fitted on %d steady windows (%s to %s) for %s",
+                self.unit,
+                len(windows),
+                ref_start.isoformat(),
+                ref_end.isoformat(),
+                ", ".join(sorted(models)),
+            )
         self._models = models  # also when empty: the reference windows are final, one try is enough
         return models
 
@@ -583,8 +690,10 @@ class Worker:
         the configured ``[baseline]``; True when they were (the saved models are what the
         worker uses). Called by the commands at start, so a resumed backfill with nothing
         left to do says it too."""
-        saved = self._retry(lambda: self.store.load_state(self.baseline_state_name),
-                            f"loading state {self.baseline_state_name!r}")
+        saved = self._retry(
+            lambda: self.store.load_state(self.baseline_state_name),
+            f"loading state {self.baseline_state_name!r}",
+        )
         return bool(saved and saved.get("models")) and self._say_if_baseline_changed(saved)
 
     def _say_if_baseline_changed(self, saved: dict) -> bool:
@@ -593,11 +702,17 @@ class Worker:
         if period is None or fitted_on == (period[0].isoformat(), period[1].isoformat()):
             return False
         if not getattr(self, "_baseline_change_said", False):
-            logger.warning("unit %s: [baseline] is %s to %s, but the saved models (state %r) were fitted on "
-                           "%s to %s; the saved models are used. To fit them on the configured period, run "
-                           "`isentrope backfill --refit` from the reference period's end on", self.unit,
-                           period[0].isoformat(), period[1].isoformat(), self.baseline_state_name,
-                           fitted_on[0], fitted_on[1])
+            logger.warning(
+                "unit %s: [baseline] is %s to %s, but the saved models (state %r) were fitted on "
+                "%s to %s; the saved models are used. To fit them on the configured period, run "
+                "`isentrope backfill --refit` from the reference period's end on",
+                self.unit,
+                period[0].isoformat(),
+                period[1].isoformat(),
+                self.baseline_state_name,
+                fitted_on[0],
+                fitted_on[1],
+            )
             self._baseline_change_said = True
         return True
 
@@ -606,19 +721,25 @@ class Worker:
         while batch.written < len(batch.writes):
             measurement, frame, tags = batch.writes[batch.written]
             if batch.prepared is not None:
-                ready = batch.prepared[batch.written]
-                write = (lambda: self.store.write_prepared(ready))  # noqa: E731
+                write = functools.partial(self.store.write_prepared, batch.prepared[batch.written])
             else:
-                write = (lambda: self.store.write_results(measurement, frame, tags))  # noqa: E731
-            self._retry(write, f"writing {measurement} ({len(frame)} rows) for {batch.start.isoformat()} "
-                               f"to {batch.end.isoformat()}")
+                write = functools.partial(self.store.write_results, measurement, frame, tags)
+            self._retry(
+                write,
+                f"writing {measurement} ({len(frame)} rows) for {batch.start.isoformat()} "
+                f"to {batch.end.isoformat()}",
+            )
             batch.written += 1
         if batch.alarm_state is not None and not batch.state_saved:
-            self._retry(lambda: self.store.save_state(self.alarm_state_name, batch.alarm_state),
-                        f"saving state {self.alarm_state_name!r}")
+            self._retry(
+                lambda: self.store.save_state(self.alarm_state_name, batch.alarm_state),
+                f"saving state {self.alarm_state_name!r}",
+            )
             batch.state_saved = True
-        self._retry(lambda: self.store.set_checkpoint(self.checkpoint_name, batch.end),
-                    f"setting checkpoint {self.checkpoint_name!r} to {batch.end.isoformat()}")
+        self._retry(
+            lambda: self.store.set_checkpoint(self.checkpoint_name, batch.end),
+            f"setting checkpoint {self.checkpoint_name!r} to {batch.end.isoformat()}",
+        )
 
     def _heartbeat(self, report: CycleReport) -> None:
         """One row of ``worker_status``; a failure here is logged and never ends the worker."""
@@ -638,13 +759,15 @@ class Worker:
                 "chunks": [float(report.chunks_done)],
                 "cycle_duration_s": [float(report.duration_s)],
                 "ok": [bool(report.ok)],
-                "pending_writes": [float(0 if self.pending is None
-                                         else len(self.pending.writes) - self.pending.written)],
+                "pending_writes": [
+                    float(0 if self.pending is None else len(self.pending.writes) - self.pending.written)
+                ],
             },
             index=pd.DatetimeIndex([floor_time(report.started, DEFAULT_RESOLUTION)], name="time"),
         )
         try:
             self.store.write_results(STATUS_MEASUREMENT, row, {**self.tags, "worker": self.checkpoint_name})
         except (TemporaryStoreError, FatalStoreError) as exc:
-            logger.warning("unit %s: heartbeat at %s not written: %s", self.unit,
-                           report.started.isoformat(), exc)
+            logger.warning(
+                "unit %s: heartbeat at %s not written: %s", self.unit, report.started.isoformat(), exc
+            )

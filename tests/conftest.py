@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import base64
 import itertools
+import json
 import os
 import shutil
 import signal
@@ -34,7 +35,6 @@ import time
 import urllib.error
 import urllib.parse
 import urllib.request
-import json
 from pathlib import Path
 
 import pytest
@@ -104,11 +104,11 @@ class InfluxServer:
             f"""reporting-disabled = true
 bind-address = "127.0.0.1:{self.rpc_port}"
 [meta]
-  dir = "{r / 'meta'}"
+  dir = "{r / "meta"}"
   logging-enabled = false
 [data]
-  dir = "{r / 'data'}"
-  wal-dir = "{r / 'wal'}"
+  dir = "{r / "data"}"
+  wal-dir = "{r / "wal"}"
   query-log-enabled = false
   index-version = "inmem"
 [monitor]
@@ -140,7 +140,7 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         except (urllib.error.URLError, OSError):
             return False
 
-    def start(self, timeout: float = 120.0) -> "InfluxServer":
+    def start(self, timeout: float = 120.0) -> InfluxServer:
         """Start (or restart after ``stop()``) on the same ports and data; wait for /ping."""
         if self.running:
             return self
@@ -163,7 +163,9 @@ bind-address = "127.0.0.1:{self.rpc_port}"
                 return self
             time.sleep(0.05)
         self.kill()
-        raise RuntimeError(f"influxd did not answer /ping on {self.url} within {timeout} s:\n{self.log_tail()}")
+        raise RuntimeError(
+            f"influxd did not answer /ping on {self.url} within {timeout} s:\n{self.log_tail()}"
+        )
 
     def stop(self, timeout: float = 30.0) -> None:
         """Stop the server (SIGTERM, then SIGKILL); data stays for ``start()``."""
@@ -198,7 +200,9 @@ bind-address = "127.0.0.1:{self.rpc_port}"
             params["db"] = db
         req = urllib.request.Request(self.url + "/query", data=urllib.parse.urlencode(params).encode())
         if auth:
-            req.add_header("Authorization", "Basic " + base64.b64encode(f"{auth[0]}:{auth[1]}".encode()).decode())
+            req.add_header(
+                "Authorization", "Basic " + base64.b64encode(f"{auth[0]}:{auth[1]}".encode()).decode()
+            )
         with urllib.request.urlopen(req, timeout=30) as resp:
             body = json.loads(resp.read())
         for result in body.get("results", []):

@@ -17,8 +17,22 @@ ROOT = Path(__file__).resolve().parents[1]
 def wheel(tmp_path_factory) -> Path:
     out = tmp_path_factory.mktemp("wheel")
     proc = subprocess.run(
-        [sys.executable, "-m", "pip", "wheel", "--no-deps", "--no-build-isolation", "-q", "-w", str(out), str(ROOT)],
-        capture_output=True, text=True, timeout=300)
+        [
+            sys.executable,
+            "-m",
+            "pip",
+            "wheel",
+            "--no-deps",
+            "--no-build-isolation",
+            "-q",
+            "-w",
+            str(out),
+            str(ROOT),
+        ],
+        capture_output=True,
+        text=True,
+        timeout=300,
+    )
     if proc.returncode != 0:
         pytest.fail(f"building the wheel failed:\n{proc.stdout}\n{proc.stderr}")
     (path,) = out.glob("isentrope-*.whl")
@@ -50,7 +64,9 @@ def test_wheel_imports_from_where_it_is_unpacked(wheel, tmp_path):
         f"assert c.__file__.startswith({str(target)!r}), c.__file__\n"
         "print(round(float(s.h_pt(3.0, 300.0)), 6))\n"
     )
-    proc = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, cwd=tmp_path, timeout=120
+    )
     assert proc.returncode == 0, proc.stderr
     # IAPWS R7-97(2012) Table 5: h(300 K, 3 MPa) = 115.331273 kJ/kg
     assert proc.stdout.strip() == "115.331273"
@@ -59,11 +75,16 @@ def test_wheel_imports_from_where_it_is_unpacked(wheel, tmp_path):
 def test_console_script_version_and_help():
     from isentrope.daemon import __version__
 
-    out = subprocess.run([sys.executable, "-m", "isentrope.daemon.cli", "--version"], capture_output=True,
-                         text=True, timeout=120)
+    out = subprocess.run(
+        [sys.executable, "-m", "isentrope.daemon.cli", "--version"],
+        capture_output=True,
+        text=True,
+        timeout=120,
+    )
     assert out.returncode == 0 and out.stdout.strip() == f"isentrope {__version__}"
-    helptext = subprocess.run([sys.executable, "-m", "isentrope.daemon.cli", "--help"], capture_output=True,
-                              text=True, timeout=120).stdout
+    helptext = subprocess.run(
+        [sys.executable, "-m", "isentrope.daemon.cli", "--help"], capture_output=True, text=True, timeout=120
+    ).stdout
     for command in ("run", "backfill", "check", "import-csv", "export", "demo", "report", "test-eval"):
         assert command in helptext
     assert "not a protective function" in helptext

@@ -26,8 +26,10 @@ COMMAND_MODULES: list[str] = [
 ISO_8601 = r"\d{4}-\d\d-\d\d(?:[T ]\d\d:\d\d(?::\d\d(?:\.\d+)?)?(?:Z|[+-]\d\d(?::?\d\d)?)?)?"
 
 #: The forms parse_time accepts, for its error messages.
-ISO_FORMS = ("ISO 8601: 2025-05-02, 2025-05-02T10:00, 2025-05-02T10:00Z or 2025-05-02T10:00+02:00; "
-             "without an offset the time is UTC")
+ISO_FORMS = (
+    "ISO 8601: 2025-05-02, 2025-05-02T10:00, 2025-05-02T10:00Z or 2025-05-02T10:00+02:00; "
+    "without an offset the time is UTC"
+)
 
 
 def parse_time(text: str):

@@ -19,8 +19,10 @@ from isentrope.daemon.commands import parse_time
 from isentrope.daemon.errors import EXIT_OK, EXIT_UNREACHABLE
 
 NAME = "backfill"
-HELP = ("process a past period in chunks and write the results; resumable (advisory performance "
-        "information, not a protective function)")
+HELP = (
+    "process a past period in chunks and write the results; resumable (advisory performance "
+    "information, not a protective function)"
+)
 
 logger = logging.getLogger("isentrope.backfill")
 
@@ -29,12 +31,17 @@ def add_arguments(parser) -> None:
     parser.add_argument("-c", "--config", required=True, metavar="FILE", help="the unit's TOML configuration")
     parser.add_argument("--start", required=True, metavar="T", help="first time, ISO 8601 (naive means UTC)")
     parser.add_argument("--end", required=True, metavar="T", help="end time (excluded), ISO 8601")
-    parser.add_argument("--chunk", metavar="DURATION", help="chunk length, e.g. 1d (default: [schedule] chunk)")
+    parser.add_argument(
+        "--chunk", metavar="DURATION", help="chunk length, e.g. 1d (default: [schedule] chunk)"
+    )
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
-    parser.add_argument("--refit", action="store_true",
-                        help="fit the baseline models again on the configured [baseline] period (its steady "
-                             "windows must be stored), then process the whole period again from --start, alarm "
-                             "machines included (after an overhaul or a changed [baseline])")
+    parser.add_argument(
+        "--refit",
+        action="store_true",
+        help="fit the baseline models again on the configured [baseline] period (its steady "
+        "windows must be stored), then process the whole period again from --start, alarm "
+        "machines included (after an overhaul or a changed [baseline])",
+    )
 
 
 def checkpoint_name(unit: str, start: pd.Timestamp, end: pd.Timestamp) -> str:
@@ -57,8 +64,9 @@ def run(args) -> int:
     name = checkpoint_name(config.unit.name, start, end)
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        worker = Worker.from_config(config, store, checkpoint_name=name, start_default=start,
-                                    lookback="0s", settle="0s", chunk=chunk)
+        worker = Worker.from_config(
+            config, store, checkpoint_name=name, start_default=start, lookback="0s", settle="0s", chunk=chunk
+        )
         if args.refit:
             if worker._baseline_period() is None:
                 raise ValueError("--refit needs a [baseline] period (start and end) in the configuration")
@@ -67,8 +75,12 @@ def run(args) -> int:
             store.save_state(worker.baseline_state_name, {})
             store.save_state(worker.alarm_state_name, {})
             store.set_checkpoint(name, start)
-            logger.info("unit %s: refit: baseline models and alarm state cleared; processing %s to %s again",
-                        config.unit.name, start.isoformat(), end.isoformat())
+            logger.info(
+                "unit %s: refit: baseline models and alarm state cleared; processing %s to %s again",
+                config.unit.name,
+                start.isoformat(),
+                end.isoformat(),
+            )
         else:
             worker.warn_if_baseline_changed()
         received: list[int] = []
@@ -83,8 +95,15 @@ def run(args) -> int:
         done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
         if done is not None:
             logger.info("unit %s: resuming backfill %s at %s", config.unit.name, name, done.isoformat())
-        bar = tqdm(total=round(total_h, 3), initial=round(done_h, 3), unit="h", file=sys.stderr,
-                   disable=args.no_progress, desc=f"backfill {config.unit.name}", dynamic_ncols=True)
+        bar = tqdm(
+            total=round(total_h, 3),
+            initial=round(done_h, 3),
+            unit="h",
+            file=sys.stderr,
+            disable=args.no_progress,
+            desc=f"backfill {config.unit.name}",
+            dynamic_ncols=True,
+        )
 
         def progress(s, e):
             bar.update(round((e - s).total_seconds() / 3600.0, 3))
@@ -96,21 +115,36 @@ def run(args) -> int:
             for s, h in previous.items():
                 signal.signal(s, h)
         if received:
-            logger.info("unit %s: backfill stopped on signal %d at %s; run the same command to resume",
-                        config.unit.name, received[0],
-                        report.checkpoint.isoformat() if report.checkpoint is not None else start.isoformat())
+            logger.info(
+                "unit %s: backfill stopped on signal %d at %s; run the same command to resume",
+                config.unit.name,
+                received[0],
+                report.checkpoint.isoformat() if report.checkpoint is not None else start.isoformat(),
+            )
             return 128 + received[0]
         if not report.ok:
-            print(f"isentrope: backfill interrupted: {report.error}; run the same command to resume",
-                  file=sys.stderr)
+            print(
+                f"isentrope: backfill interrupted: {report.error}; run the same command to resume",
+                file=sys.stderr,
+            )
             return EXIT_UNREACHABLE
         if report.chunks_done and not report.rows_read:
-            logger.warning("unit %s: no sample of any mapped tag between %s and %s: nothing was computed; "
-                           "check the tag names and the period with `isentrope check`", config.unit.name,
-                           start.isoformat(), end.isoformat())
-        logger.info("unit %s: backfill %s to %s done: %d chunks, %d rows read, %d flagged",
-                    config.unit.name, start.isoformat(), end.isoformat(), report.chunks_done,
-                    report.rows_read, report.rows_flagged)
+            logger.warning(
+                "unit %s: no sample of any mapped tag between %s and %s: nothing was computed; "
+                "check the tag names and the period with `isentrope check`",
+                config.unit.name,
+                start.isoformat(),
+                end.isoformat(),
+            )
+        logger.info(
+            "unit %s: backfill %s to %s done: %d chunks, %d rows read, %d flagged",
+            config.unit.name,
+            start.isoformat(),
+            end.isoformat(),
+            report.chunks_done,
+            report.rows_read,
+            report.rows_flagged,
+        )
         return EXIT_OK
     finally:
         store.close()

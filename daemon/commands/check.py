@@ -64,12 +64,15 @@ ALWAYS_ONLINE = ("barometric_p", "valve_position", "gross_output")
 
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("-c", "--config", required=True, metavar="FILE", help="configuration file (TOML)")
-    parser.add_argument("--since", default="24h", metavar="DURATION",
-                        help="how far back to look, e.g. 6h, 2d (default: 24h)")
-    parser.add_argument("--end", default=None, metavar="TIME",
-                        help="end of the look (ISO 8601, naive = UTC; default: now)")
-    parser.add_argument("--config-only", action="store_true",
-                        help="only validate the file; do not connect to the store")
+    parser.add_argument(
+        "--since", default="24h", metavar="DURATION", help="how far back to look, e.g. 6h, 2d (default: 24h)"
+    )
+    parser.add_argument(
+        "--end", default=None, metavar="TIME", help="end of the look (ISO 8601, naive = UTC; default: now)"
+    )
+    parser.add_argument(
+        "--config-only", action="store_true", help="only validate the file; do not connect to the store"
+    )
 
 
 def _end_time(text: str | None) -> pd.Timestamp:
@@ -106,8 +109,9 @@ def _plausible(config: Config, role: str) -> tuple[float, float]:
     return PLAUSIBLE[role]
 
 
-def _other_units(role: str, declared: str, median: float, plausible: tuple[float, float],
-                 baro_kpa: float) -> list[str]:
+def _other_units(
+    role: str, declared: str, median: float, plausible: tuple[float, float], baro_kpa: float
+) -> list[str]:
     """At most two units of the role's quantity under which ``median`` would be plausible,
     the one putting it nearest the middle of the plausible range first."""
     from isentrope.calc import units
@@ -131,7 +135,9 @@ def _other_units(role: str, declared: str, median: float, plausible: tuple[float
     return [name for _, name in sorted(fits)[:2]]
 
 
-def read_roles(store, mappings, start: pd.Timestamp, end: pd.Timestamp) -> tuple[pd.DataFrame, dict[str, str]]:
+def read_roles(
+    store, mappings, start: pd.Timestamp, end: pd.Timestamp
+) -> tuple[pd.DataFrame, dict[str, str]]:
     """Raw samples of ``mappings`` in [start, end) and the store errors of the roles it refused.
 
     One read of all roles first; when the store refuses it (``FatalStoreError``), each role is
@@ -151,11 +157,15 @@ def read_roles(store, mappings, start: pd.Timestamp, end: pd.Timestamp) -> tuple
             first = first or exc
     if len(errors) == len(mappings) and len(set(errors.values())) == 1:
         raise first
-    raw = pd.concat(frames, axis=1, sort=True) if frames else pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC"))
+    raw = (
+        pd.concat(frames, axis=1, sort=True) if frames else pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC"))
+    )
     return raw, errors
 
 
-def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp, errors: dict[str, str] | None = None) -> list[dict]:
+def judge(
+    config: Config, raw: pd.DataFrame, end: pd.Timestamp, errors: dict[str, str] | None = None
+) -> list[dict]:
     """One row per mapped role: what was found and a verdict (``ok`` True/False).
 
     ``errors``: role -> the store's error for a role it refused to read (``read_roles``); the
@@ -175,10 +185,15 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp, errors: dict[str
     for m in config.mappings:
         col = pd.to_numeric(raw[m.role], errors="coerce") if m.role in raw.columns else pd.Series(dtype=float)
         valid = col.dropna()
-        row = {"role": m.role, "tag": m.tag, "unit": m.unit, "samples": int(len(valid)),
-               "last": valid.index[-1] if len(valid) else None,
-               "min": float(valid.min()) if len(valid) else float("nan"),
-               "max": float(valid.max()) if len(valid) else float("nan")}
+        row = {
+            "role": m.role,
+            "tag": m.tag,
+            "unit": m.unit,
+            "samples": int(len(valid)),
+            "last": valid.index[-1] if len(valid) else None,
+            "min": float(valid.min()) if len(valid) else float("nan"),
+            "max": float(valid.max()) if len(valid) else float("nan"),
+        }
         problems, notes = [], []
         if errors and m.role in errors:
             row["error"] = errors[m.role]
@@ -212,8 +227,10 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp, errors: dict[str
                 if not lo <= value <= hi:
                     others = _other_units(m.role, m.unit, median, (lo, hi), baro_kpa)
                     hint = f"; looks like {' or '.join(others)}" if others else ""
-                    problems.append(f"median {median:.6g} {m.unit} = {value:.4g} {internal}, "
-                                    f"implausible (expected {lo:g}-{hi:g} {internal}){hint}")
+                    problems.append(
+                        f"median {median:.6g} {m.unit} = {value:.4g} {internal}, "
+                        f"implausible (expected {lo:g}-{hi:g} {internal}){hint}"
+                    )
         row["ok"] = not problems
         row["verdict"] = "; ".join(problems + notes) if (problems or notes) else "ok"
         if problems:
@@ -222,8 +239,9 @@ def judge(config: Config, raw: pd.DataFrame, end: pd.Timestamp, errors: dict[str
     return rows
 
 
-def longest_flat(config: Config, mapping, values: pd.Series,
-                 baro_kpa: float) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+def longest_flat(
+    config: Config, mapping, values: pd.Series, baro_kpa: float
+) -> tuple[pd.Timestamp, pd.Timestamp] | None:
     """(first, last) time of the longest stretch of ``values`` (one role's finite readings in
     its plant unit) that the worker's screening would flag FLATLINE; None when there is none.
 
@@ -241,14 +259,19 @@ def longest_flat(config: Config, mapping, values: pd.Series,
     if tolerance is None or len(values) < 2:
         return None
     internal = units.INTERNAL_UNIT[ROLES[mapping.role][0]]
-    v = np.asarray(units.convert(values.to_numpy(dtype=float), mapping.unit, internal,
-                                 barometric_kpa=baro_kpa), dtype=float)
+    v = np.asarray(
+        units.convert(values.to_numpy(dtype=float), mapping.unit, internal, barometric_kpa=baro_kpa),
+        dtype=float,
+    )
     series = pd.Series(v, index=values.index)
-    flat = quality.flatline_samples(series, pd.Timedelta(sc.flatline), tolerance, sc.flatline_tolerance).to_numpy()
+    flat = quality.flatline_samples(
+        series, pd.Timedelta(sc.flatline), tolerance, sc.flatline_tolerance
+    ).to_numpy()
     if not flat.any():
         return None
-    limit = quality.flatline_limit(np.maximum(v[1:], v[:-1]), np.minimum(v[1:], v[:-1]), tolerance,
-                                   sc.flatline_tolerance)
+    limit = quality.flatline_limit(
+        np.maximum(v[1:], v[:-1]), np.minimum(v[1:], v[:-1]), tolerance, sc.flatline_tolerance
+    )
     joined = flat[1:] & flat[:-1] & (np.abs(np.diff(v)) <= limit)
     # stretches of flagged samples, split where two neighbours are not joined
     opens, closes = flat.copy(), flat.copy()
@@ -283,26 +306,35 @@ def format_table(rows: list[dict]) -> str:
     head = ["role", "tag", "unit", "samples", "last time (UTC)", "min", "max", "verdict"]
     body = []
     for r in rows:
-        body.append([
-            r["role"], r["tag"], r["unit"], str(r["samples"]),
-            r["last"].strftime("%Y-%m-%d %H:%M:%S") if r["last"] is not None else "-",
-            f"{r['min']:.6g}" if np.isfinite(r["min"]) else "-",
-            f"{r['max']:.6g}" if np.isfinite(r["max"]) else "-",
-            r["verdict"],
-        ])
+        body.append(
+            [
+                r["role"],
+                r["tag"],
+                r["unit"],
+                str(r["samples"]),
+                r["last"].strftime("%Y-%m-%d %H:%M:%S") if r["last"] is not None else "-",
+                f"{r['min']:.6g}" if np.isfinite(r["min"]) else "-",
+                f"{r['max']:.6g}" if np.isfinite(r["max"]) else "-",
+                r["verdict"],
+            ]
+        )
     widths = [max(len(h), *(len(b[i]) for b in body)) if body else len(h) for i, h in enumerate(head)]
-    lines = ["  ".join(h.ljust(w) for h, w in zip(head, widths)).rstrip(),
-             "  ".join("-" * w for w in widths)]
+    lines = [
+        "  ".join(h.ljust(w) for h, w in zip(head, widths, strict=True)).rstrip(),
+        "  ".join("-" * w for w in widths),
+    ]
     for b in body:
-        lines.append("  ".join(c.ljust(w) for c, w in zip(b, widths)).rstrip())
+        lines.append("  ".join(c.ljust(w) for c, w in zip(b, widths, strict=True)).rstrip())
     return "\n".join(lines)
 
 
 def run(args: argparse.Namespace) -> int:
     config = load_config(args.config)
     if args.config_only:
-        print(f"{args.config}: valid configuration of {config.unit.name} ({config.store.kind} store, "
-              f"{len(config.roles)} mapped roles: {', '.join(config.roles)})")
+        print(
+            f"{args.config}: valid configuration of {config.unit.name} ({config.store.kind} store, "
+            f"{len(config.roles)} mapped roles: {', '.join(config.roles)})"
+        )
         return 0
     try:
         since = parse_duration(args.since)
@@ -315,8 +347,10 @@ def run(args: argparse.Namespace) -> int:
     with config.store.open(create=False) as store:
         raw, errors = read_roles(store, config.mappings, start, end)
     rows = judge(config, raw, end, errors)
-    print(f"{config.unit.name}: {config.store.kind} store, {len(rows)} mapped roles, "
-          f"{start.isoformat()} to {end.isoformat()}")
+    print(
+        f"{config.unit.name}: {config.store.kind} store, {len(rows)} mapped roles, "
+        f"{start.isoformat()} to {end.isoformat()}"
+    )
     print(format_table(rows))
     for r in rows:
         if "error" in r:

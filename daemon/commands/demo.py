@@ -37,9 +37,16 @@ DEMO_CHUNK = "30d"
 
 
 def add_arguments(parser) -> None:
-    parser.add_argument("-d", "--dir", default="isentrope-demo", metavar="DIR",
-                        help="folder for the store, configuration, truth and report (default: ./isentrope-demo)")
-    parser.add_argument("--days", type=float, default=365.0, help="length of the synthetic history [d] (default 365)")
+    parser.add_argument(
+        "-d",
+        "--dir",
+        default="isentrope-demo",
+        metavar="DIR",
+        help="folder for the store, configuration, truth and report (default: ./isentrope-demo)",
+    )
+    parser.add_argument(
+        "--days", type=float, default=365.0, help="length of the synthetic history [d] (default 365)"
+    )
     parser.add_argument("--seed", type=int, default=None, help="seed of the synthetic history")
     parser.add_argument("--no-report", action="store_true", help="skip the HTML report")
     parser.add_argument("--no-progress", action="store_true", help="no progress bar")
@@ -99,8 +106,11 @@ def run(args) -> int:
     cfg_path.write_text(demo_config_toml("greywater2.sqlite", start, float(args.days)), encoding="utf-8")
     config = load_config(cfg_path)
 
-    print(f"isentrope demo: synthetic history of {synthetic.SCENARIO['plant']}, {synthetic.SCENARIO['unit']} "
-          f"(fictional), {args.days:g} days from {start:%Y-%m-%d}", file=sys.stderr)
+    print(
+        f"isentrope demo: synthetic history of {synthetic.SCENARIO['plant']}, {synthetic.SCENARIO['unit']} "
+        f"(fictional), {args.days:g} days from {start:%Y-%m-%d}",
+        file=sys.stderr,
+    )
     kwargs = {} if args.seed is None else {"seed": args.seed}
     frame, truth = synthetic.generate(start=start, days=float(args.days), **kwargs)
     synthetic.write_truth(truth, folder / "truth.json")
@@ -111,16 +121,31 @@ def run(args) -> int:
     try:
         written = store.write_raw(config.mappings, plant)
         t_raw = time.perf_counter()
-        worker = Worker.from_config(config, store, checkpoint_name=f"demo/{config.unit.name}",
-                                    start_default=start, lookback="0s", settle="0s", chunk=DEMO_CHUNK)
+        worker = Worker.from_config(
+            config,
+            store,
+            checkpoint_name=f"demo/{config.unit.name}",
+            start_default=start,
+            lookback="0s",
+            settle="0s",
+            chunk=DEMO_CHUNK,
+        )
         total_h = (end - start).total_seconds() / 3600.0
         done = store.get_checkpoint(worker.checkpoint_name)
         done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
-        bar = tqdm(total=round(total_h, 3), initial=round(done_h, 3), unit="h", file=sys.stderr,
-                   disable=args.no_progress, desc="backfill", dynamic_ncols=True)
+        bar = tqdm(
+            total=round(total_h, 3),
+            initial=round(done_h, 3),
+            unit="h",
+            file=sys.stderr,
+            disable=args.no_progress,
+            desc="backfill",
+            dynamic_ncols=True,
+        )
         try:
-            report = worker.run_cycle(until=end, progress=lambda s, e: bar.update(
-                round((e - s).total_seconds() / 3600.0, 3)))
+            report = worker.run_cycle(
+                until=end, progress=lambda s, e: bar.update(round((e - s).total_seconds() / 3600.0, 3))
+            )
         finally:
             bar.close()
         if not report.ok:
@@ -137,23 +162,30 @@ def run(args) -> int:
         if not args.no_report:
             from isentrope.daemon.report import write_report
 
-            report_path = write_report(store, config, start, end, folder / "report", analysis=analysis,
-                                       readings=frame)
+            report_path = write_report(
+                store, config, start, end, folder / "report", analysis=analysis, readings=frame
+            )
         t_rep = time.perf_counter()
     finally:
         store.close()
 
     print(summary_text(config, analysis, truth, raised))
     print(f"\nfolder: {folder.resolve()}")
-    print(f"  configuration {cfg_path.name}, store greywater2.sqlite ({written:,} raw samples), truth.json, "
-          f"baseline-<section>.json")
+    print(
+        f"  configuration {cfg_path.name}, store greywater2.sqlite ({written:,} raw samples), truth.json, "
+        f"baseline-<section>.json"
+    )
     if report_path is not None:
         print(f"  report: {report_path}")
-    print(f"time: generate {t_gen - t0:.1f} s, store raw {t_raw - t_gen:.1f} s, backfill {t_back - t_raw:.1f} s, "
-          f"analysis {t_ana - t_back:.1f} s, report {t_rep - t_ana:.1f} s, total {t_rep - t0:.1f} s")
-    print("Demonstration data of a fictional unit. Advisory performance information only: not a "
-          "protective function; the turbine maker's limits, local codes and licensed engineering "
-          "practice take precedence.")
+    print(
+        f"time: generate {t_gen - t0:.1f} s, store raw {t_raw - t_gen:.1f} s, backfill {t_back - t_raw:.1f} s, "
+        f"analysis {t_ana - t_back:.1f} s, report {t_rep - t_ana:.1f} s, total {t_rep - t0:.1f} s"
+    )
+    print(
+        "Demonstration data of a fictional unit. Advisory performance information only: not a "
+        "protective function; the turbine maker's limits, local codes and licensed engineering "
+        "practice take precedence."
+    )
     return 0
 
 
@@ -171,33 +203,46 @@ def summary_text(config, analysis, truth: dict | None = None, raised: dict | Non
     (``isentrope.daemon.analysis.raised_alarms``); None counts the analysis's own only.
     """
     cur = config.economics.currency
-    lines = [f"{config.unit.plant or config.unit.name}, {config.unit.name}: state at {analysis.end:%Y-%m-%d}",
-             f"{'section':8}{'deviation':>14}{'rate /1000 h [95 % interval]':>32}{'steps':>7}"
-             f"{'alarms':>8}{'cost to date':>16}{'to outage':>14}"]
+    lines = [
+        f"{config.unit.plant or config.unit.name}, {config.unit.name}: state at {analysis.end:%Y-%m-%d}",
+        f"{'section':8}{'deviation':>14}{'rate /1000 h [95 % interval]':>32}{'steps':>7}"
+        f"{'alarms':>8}{'cost to date':>16}{'to outage':>14}",
+    ]
     ev = analysis.alarm_events
     for name, s in analysis.sections.items():
         rate = s.rate
-        rate_txt = (f"{_fmt(rate.slope_per_1000h, '+.2f')} [{_fmt(rate.low, '+.2f')}, {_fmt(rate.high, '+.2f')}]"
-                    if rate.status == "ok" else rate.status)
+        rate_txt = (
+            f"{_fmt(rate.slope_per_1000h, '+.2f')} [{_fmt(rate.low, '+.2f')}, {_fmt(rate.high, '+.2f')}]"
+            if rate.status == "ok"
+            else rate.status
+        )
         if raised is not None:
             n_alarm = len(raised.get(name, []))
         else:
             n_alarm = 0 if not len(ev) else int(((ev["section"] == name) & (ev["kind"] == "raised")).sum())
-        cost = (s.losses["cumulative_fuel_cost"].iloc[-1] if s.losses is not None and len(s.losses) else math.nan)
+        cost = (
+            s.losses["cumulative_fuel_cost"].iloc[-1] if s.losses is not None and len(s.losses) else math.nan
+        )
         proj = s.projected_loss.fuel_cost if s.projected_loss is not None else math.nan
-        lines.append(f"{name.upper():8}{_fmt(s.current, '+.2f') + ' pt':>14}{rate_txt:>32}{len(s.steps):>7}"
-                     f"{n_alarm:>8}{_fmt(cost, ',.0f') + ' ' + cur:>16}{_fmt(proj, ',.0f') + ' ' + cur:>14}")
+        lines.append(
+            f"{name.upper():8}{_fmt(s.current, '+.2f') + ' pt':>14}{rate_txt:>32}{len(s.steps):>7}"
+            f"{n_alarm:>8}{_fmt(cost, ',.0f') + ' ' + cur:>16}{_fmt(proj, ',.0f') + ' ' + cur:>14}"
+        )
         for st in s.steps:
             lines.append(f"{'':8}step {_fmt(st.size, '+.2f')} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}")
     tags = {k: v for k, v in (raised or {}).items() if k not in analysis.sections}
     for tag, items in sorted(tags.items()):
         rules = sorted({r for _, r in items})
-        lines.append(f"data quality: {tag}: {len(items)} alarm(s) raised ({', '.join(rules)}), first at "
-                     f"{items[0][0]:%Y-%m-%d %H:%M}")
+        lines.append(
+            f"data quality: {tag}: {len(items)} alarm(s) raised ({', '.join(rules)}), first at "
+            f"{items[0][0]:%Y-%m-%d %H:%M}"
+        )
     if analysis.notes:
         lines += [f"note: {n}" for n in analysis.notes]
     if truth:
         hp, ip = truth.get("hp") or {}, truth.get("ip") or {}
-        lines.append(f"injected truth (fictional): HP {hp.get('rate_points_per_1000h', 'n/a')} pt/1000 h; "
-                     f"IP step {ip.get('step_points', 'n/a')} pt at {ip.get('step_time', 'n/a')}")
+        lines.append(
+            f"injected truth (fictional): HP {hp.get('rate_points_per_1000h', 'n/a')} pt/1000 h; "
+            f"IP step {ip.get('step_points', 'n/a')} pt at {ip.get('step_time', 'n/a')}"
+        )
     return "\n".join(lines)

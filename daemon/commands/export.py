@@ -56,13 +56,27 @@ def _series_tags() -> dict[str, tuple[str, ...]]:
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("-c", "--config", required=True, metavar="FILE", help="configuration file (TOML)")
     parser.add_argument("--start", required=True, metavar="TIME", help="window start, ISO 8601 (naive = UTC)")
-    parser.add_argument("--end", required=True, metavar="TIME", help="window end (exclusive), ISO 8601 (naive = UTC)")
+    parser.add_argument(
+        "--end", required=True, metavar="TIME", help="window end (exclusive), ISO 8601 (naive = UTC)"
+    )
     parser.add_argument("--format", choices=("csv",), default="csv", help="output format (default: csv)")
-    parser.add_argument("-o", "--output", default=None, metavar="FILE", help="output file (default: standard output)")
-    parser.add_argument("--measurement", action="append", default=None, metavar="NAME",
-                        help="result series to export; repeat for several (default: the per-sample section figures)")
-    parser.add_argument("--tag", action="append", default=[], metavar="KEY=VALUE",
-                        help="extra tag filter, e.g. section=hp; repeatable")
+    parser.add_argument(
+        "-o", "--output", default=None, metavar="FILE", help="output file (default: standard output)"
+    )
+    parser.add_argument(
+        "--measurement",
+        action="append",
+        default=None,
+        metavar="NAME",
+        help="result series to export; repeat for several (default: the per-sample section figures)",
+    )
+    parser.add_argument(
+        "--tag",
+        action="append",
+        default=[],
+        metavar="KEY=VALUE",
+        help="extra tag filter, e.g. section=hp; repeatable",
+    )
 
 
 def parse_time(text: str, what: str) -> pd.Timestamp:
@@ -86,8 +100,9 @@ def parse_tags(items: list[str]) -> dict[str, str]:
     return tags
 
 
-def collect(store, measurements: list[str], start: pd.Timestamp, end: pd.Timestamp,
-            tags: dict[str, str]) -> pd.DataFrame:
+def collect(
+    store, measurements: list[str], start: pd.Timestamp, end: pd.Timestamp, tags: dict[str, str]
+) -> pd.DataFrame:
     """The requested series joined on time; columns prefixed by measurement when several."""
     frames = []
     needed = _series_tags()
@@ -97,13 +112,15 @@ def collect(store, measurements: list[str], start: pd.Timestamp, end: pd.Timesta
         missing = [k for k in needed.get(name, ()) if k not in tags]
         if missing:
             example = " ".join(f"--tag {k}={'hp' if k == 'section' else '...'}" for k in missing)
-            raise ValueError(f"{name} holds one series per {' and '.join(missing)}; choose one with "
-                             f"--tag, e.g. {example}")
+            raise ValueError(
+                f"{name} holds one series per {' and '.join(missing)}; choose one with --tag, e.g. {example}"
+            )
         frame = store.read_results(name, start, end, tags)
         if frame.index.has_duplicates:
             raise ValueError(
                 f"several {name} series match the tags {tags} (they differ by another tag, such as "
-                f"section or rule); choose one with --tag, e.g. --tag section=hp")
+                f"section or rule); choose one with --tag, e.g. --tag section=hp"
+            )
         if len(measurements) > 1:
             frame = frame.add_prefix(f"{name}.")
         frames.append(frame)
@@ -159,8 +176,11 @@ def run(args: argparse.Namespace) -> int:
         _write_atomically(Path(args.output), text)
     where = args.output or "standard output"
     if frame.empty:
-        print(f"isentrope: no results of {', '.join(measurements)} with tags {tags} in "
-              f"[{start.isoformat()}, {end.isoformat()}); wrote the header only to {where}", file=sys.stderr)
+        print(
+            f"isentrope: no results of {', '.join(measurements)} with tags {tags} in "
+            f"[{start.isoformat()}, {end.isoformat()}); wrote the header only to {where}",
+            file=sys.stderr,
+        )
     elif args.output is not None:
         print(f"wrote {len(frame)} rows x {frame.shape[1]} fields to {where}", file=sys.stderr)
     return 0

@@ -18,28 +18,54 @@ from isentrope.daemon.commands import parse_time
 from isentrope.daemon.errors import EXIT_OK
 
 NAME = "fleet-backfill"
-HELP = ("backfill many units over a long period on a Dask cluster, partitioned by unit and month; "
-        "resumable (advisory performance information, not a protective function)")
+HELP = (
+    "backfill many units over a long period on a Dask cluster, partitioned by unit and month; "
+    "resumable (advisory performance information, not a protective function)"
+)
 
 logger = logging.getLogger("isentrope.fleet")
 
 
 def add_arguments(parser) -> None:
-    parser.add_argument("-c", "--config", action="append", required=True, metavar="FILE",
-                        help="a unit's TOML configuration; repeat for every unit")
+    parser.add_argument(
+        "-c",
+        "--config",
+        action="append",
+        required=True,
+        metavar="FILE",
+        help="a unit's TOML configuration; repeat for every unit",
+    )
     parser.add_argument("--start", required=True, metavar="T", help="first time, ISO 8601 (naive means UTC)")
     parser.add_argument("--end", required=True, metavar="T", help="end time (excluded), ISO 8601")
-    parser.add_argument("--scheduler", metavar="ADDRESS",
-                        help="address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786 "
-                             "(default: a local cluster on this machine)")
-    parser.add_argument("--workers", type=int, default=2, metavar="N",
-                        help="processes of the local cluster (default 2; ignored with --scheduler)")
-    parser.add_argument("--period", default="MS", metavar="ALIAS",
-                        help="partition length as a pandas offset alias (default MS: calendar months)")
-    parser.add_argument("--chunk", metavar="DURATION",
-                        help="worker chunk inside a partition, e.g. 7d (default: [schedule] chunk)")
-    parser.add_argument("--refit", action="store_true",
-                        help="fit the baseline again even when one is saved (after changing [baseline]) and recompute the partitions after the baseline end")
+    parser.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="address of a running Dask scheduler, e.g. tcp://10.0.0.5:8786 "
+        "(default: a local cluster on this machine)",
+    )
+    parser.add_argument(
+        "--workers",
+        type=int,
+        default=2,
+        metavar="N",
+        help="processes of the local cluster (default 2; ignored with --scheduler)",
+    )
+    parser.add_argument(
+        "--period",
+        default="MS",
+        metavar="ALIAS",
+        help="partition length as a pandas offset alias (default MS: calendar months)",
+    )
+    parser.add_argument(
+        "--chunk",
+        metavar="DURATION",
+        help="worker chunk inside a partition, e.g. 7d (default: [schedule] chunk)",
+    )
+    parser.add_argument(
+        "--refit",
+        action="store_true",
+        help="fit the baseline again even when one is saved (after changing [baseline]) and recompute the partitions after the baseline end",
+    )
 
 
 def run(args) -> int:
@@ -59,20 +85,31 @@ def run(args) -> int:
     if args.scheduler:
         client, cluster = Client(args.scheduler), None
     else:
-        cluster = LocalCluster(n_workers=args.workers, threads_per_worker=1, processes=True,
-                               dashboard_address=None, host="127.0.0.1")
+        cluster = LocalCluster(
+            n_workers=args.workers,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=None,
+            host="127.0.0.1",
+        )
         client = Client(cluster)
     try:
-        report = fleet.run_fleet(client, args.config, start, end, period=args.period, chunk=chunk,
-                                 refit=args.refit)
+        report = fleet.run_fleet(
+            client, args.config, start, end, period=args.period, chunk=chunk, refit=args.refit
+        )
     finally:
         client.close()
         if cluster is not None:
             cluster.close()
-    print(f"fleet backfill: {len(args.config)} unit(s), {report.partitions} partitions "
-          f"({report.skipped} already done), {report.rows_read:,} rows read, {report.seconds:.1f} s wall, "
-          f"{report.task_seconds:.1f} s in partition tasks", file=sys.stderr)
+    print(
+        f"fleet backfill: {len(args.config)} unit(s), {report.partitions} partitions "
+        f"({report.skipped} already done), {report.rows_read:,} rows read, {report.seconds:.1f} s wall, "
+        f"{report.task_seconds:.1f} s in partition tasks",
+        file=sys.stderr,
+    )
     for unit, sections in sorted(report.baselines.items()):
-        print(f"  {unit}: baseline {'for ' + ', '.join(sections) if sections else 'not fitted (no deviations)'}",
-              file=sys.stderr)
+        print(
+            f"  {unit}: baseline {'for ' + ', '.join(sections) if sections else 'not fitted (no deviations)'}",
+            file=sys.stderr,
+        )
     return EXIT_OK

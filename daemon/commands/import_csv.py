@@ -65,15 +65,18 @@ EXAMPLES = 3
 #: The day/month orders of numeric dates, as the report and the errors name them.
 ORDER_NAMES = {"day-first": "day/month/year", "month-first": "month/day/year"}
 ORDER_OPTIONS = {"day-first": "--dayfirst", "month-first": "--monthfirst"}
-UNREADABLE_HINT = ("times must be ISO 8601 (2025-05-02T10:00), or day/month/year or month/day/year numbers "
-                   "with a four-digit year; give --time-format for any other form")
+UNREADABLE_HINT = (
+    "times must be ISO 8601 (2025-05-02T10:00), or day/month/year or month/day/year numbers "
+    "with a four-digit year; give --time-format for any other form"
+)
 #: A numeric date in the "shape" of a time (every digit written as 9): day and month in either
 #: order, a four-digit year, optionally a time of day (12-hour with AM/PM, seconds, a fraction)
 #: and an offset.
 _NUMERIC_SHAPE = re.compile(
     r"(?P<a>9{1,2})(?P<sep>[/.-])(?P<b>9{1,2})(?P=sep)9999"
     r"(?:(?P<gap>T| +)(?P<hour>9{1,2}):99(?P<sec>:99(?P<frac>[.,]9+)?)?"
-    r"(?:(?P<ampm_gap> *)(?P<ampm>[AaPp][Mm]))?(?P<zone>Z|[+-]99(?::?99)?)?)?")
+    r"(?:(?P<ampm_gap> *)(?P<ampm>[AaPp][Mm]))?(?P<zone>Z|[+-]99(?::?99)?)?)?"
+)
 
 
 @dataclass
@@ -102,8 +105,12 @@ class ImportReport:
             f"files: {self.files}",
             f"rows read: {self.rows_read}",
             f"rows rejected: {self.rows_rejected}"
-            + (f" ({', '.join(f'{n} {why}' for why, n in sorted(self.reject_reasons.items()))})"
-               if self.reject_reasons else "") + _examples(self.reject_examples),
+            + (
+                f" ({', '.join(f'{n} {why}' for why, n in sorted(self.reject_reasons.items()))})"
+                if self.reject_reasons
+                else ""
+            )
+            + _examples(self.reject_examples),
             f"values not a number, left out (not written; a value already stored stays): {self.bad_values}"
             + _examples(self.bad_value_examples),
             f"duplicate (time, tag) values replaced by the later one: {self.duplicates}",
@@ -117,7 +124,9 @@ class ImportReport:
         if self.unmapped_tags:
             names = ", ".join(f"{t} ({n})" for t, n in self.unmapped_tags.most_common(10))
             more = len(self.unmapped_tags) - 10
-            out.append(f"tags not in the configuration, skipped: {names}" + (f" and {more} more" if more > 0 else ""))
+            out.append(
+                f"tags not in the configuration, skipped: {names}" + (f" and {more} more" if more > 0 else "")
+            )
         missing = [m.role for m in config.mappings if m.role not in self.roles_seen]
         if missing:
             out.append(f"mapped roles with no data in the files: {', '.join(missing)}")
@@ -136,30 +145,68 @@ def _examples(items: list) -> str:
 def add_arguments(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("-c", "--config", required=True, metavar="FILE", help="configuration file (TOML)")
     parser.add_argument("csv", nargs="+", metavar="CSV", help="historian export(s)")
-    parser.add_argument("--layout", choices=("auto", "long", "wide"), default="auto",
-                        help="long = time,tag,value; wide = time,<tag>,<tag>,... (default: auto)")
-    parser.add_argument("--timezone", default="UTC", metavar="ZONE",
-                        help="IANA zone of times written without an offset, e.g. Europe/Berlin (default: UTC)")
-    parser.add_argument("--ambiguous", choices=("reject", "earlier", "later", "file-order"), default="reject",
-                        help="naive times in the repeated hour when daylight saving ends: reject the rows, "
-                             "take the earlier (daylight saving) or later (standard time) instant, or "
-                             "file-order (first occurrence earlier, second later) (default: reject)")
+    parser.add_argument(
+        "--layout",
+        choices=("auto", "long", "wide"),
+        default="auto",
+        help="long = time,tag,value; wide = time,<tag>,<tag>,... (default: auto)",
+    )
+    parser.add_argument(
+        "--timezone",
+        default="UTC",
+        metavar="ZONE",
+        help="IANA zone of times written without an offset, e.g. Europe/Berlin (default: UTC)",
+    )
+    parser.add_argument(
+        "--ambiguous",
+        choices=("reject", "earlier", "later", "file-order"),
+        default="reject",
+        help="naive times in the repeated hour when daylight saving ends: reject the rows, "
+        "take the earlier (daylight saving) or later (standard time) instant, or "
+        "file-order (first occurrence earlier, second later) (default: reject)",
+    )
     order = parser.add_mutually_exclusive_group()
-    order.add_argument("--dayfirst", dest="date_order", action="store_const", const="day-first",
-                       help="numeric dates are day/month/year: 03/04/2026 is 3 April (default: the order "
-                            "that the file's dates allow; a file whose dates read both ways is refused)")
-    order.add_argument("--monthfirst", dest="date_order", action="store_const", const="month-first",
-                       help="numeric dates are month/day/year: 03/04/2026 is 4 March")
-    order.add_argument("--time-format", default=None, metavar="FORMAT",
-                       help="the one form of every time in the files, in strptime directives, e.g. "
-                            "'%%d-%%b-%%Y %%H:%%M' for 02-May-2025 10:00 (%%z for an offset); for forms "
-                            "other than ISO 8601 and numeric dates")
-    parser.add_argument("--nonexistent", choices=("reject", "shift-forward"), default="reject",
-                        help="naive times in the hour skipped when daylight saving starts (default: reject)")
-    parser.add_argument("--delimiter", default=None, metavar="CHAR",
-                        help="field separator (default: detected from the header: , ; or tab)")
-    parser.add_argument("--decimal", choices=(".", ","), default=".",
-                        help="decimal mark of the values (default: .); with , use a ; or tab delimiter")
+    order.add_argument(
+        "--dayfirst",
+        dest="date_order",
+        action="store_const",
+        const="day-first",
+        help="numeric dates are day/month/year: 03/04/2026 is 3 April (default: the order "
+        "that the file's dates allow; a file whose dates read both ways is refused)",
+    )
+    order.add_argument(
+        "--monthfirst",
+        dest="date_order",
+        action="store_const",
+        const="month-first",
+        help="numeric dates are month/day/year: 03/04/2026 is 4 March",
+    )
+    order.add_argument(
+        "--time-format",
+        default=None,
+        metavar="FORMAT",
+        help="the one form of every time in the files, in strptime directives, e.g. "
+        "'%%d-%%b-%%Y %%H:%%M' for 02-May-2025 10:00 (%%z for an offset); for forms "
+        "other than ISO 8601 and numeric dates",
+    )
+    parser.add_argument(
+        "--nonexistent",
+        choices=("reject", "shift-forward"),
+        default="reject",
+        help="naive times in the hour skipped when daylight saving starts (default: reject)",
+    )
+    parser.add_argument(
+        "--delimiter",
+        default=None,
+        metavar="CHAR",
+        help="field separator (default: detected from the header: , ; or tab)",
+    )
+    parser.add_argument(
+        "--decimal",
+        choices=(".", ","),
+        default=".",
+        help="decimal mark of the values (default: .); with , use a ; or tab delimiter",
+    )
     parser.add_argument("--dry-run", action="store_true", help="read and report, write nothing")
 
 
@@ -167,10 +214,14 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 # parsing
 # ------------------------------------------------------------------------------------
 def detect_layout(header: list[str]) -> str:
-    """"long" when the header is time/tag/value (in any order), else "wide"."""
+    """ "long" when the header is time/tag/value (in any order), else "wide"."""
     names = [h.strip().lower() for h in header]
-    if (len(names) == 3 and any(n in TIME_NAMES for n in names)
-            and any(n in TAG_NAMES for n in names) and any(n in VALUE_NAMES for n in names)):
+    if (
+        len(names) == 3
+        and any(n in TIME_NAMES for n in names)
+        and any(n in TAG_NAMES for n in names)
+        and any(n in VALUE_NAMES for n in names)
+    ):
         return "long"
     return "wide"
 
@@ -185,11 +236,11 @@ def _sniff_delimiter(first_line: str) -> str:
 class DateShape:
     """Where day and month stand in one shape of numeric date, and its strptime form."""
 
-    first: tuple[int, int]   # start and end of the first number (the day when day first) [-]
+    first: tuple[int, int]  # start and end of the first number (the day when day first) [-]
     second: tuple[int, int]  # start and end of the second number [-]
-    year: tuple[int, int]    # start and end of the year [-]
-    pattern: str   # strptime form with {0} for the first number's directive and {1} the second's [-]
-    aware: bool    # the shape ends in an offset [-]
+    year: tuple[int, int]  # start and end of the year [-]
+    pattern: str  # strptime form with {0} for the first number's directive and {1} the second's [-]
+    aware: bool  # the shape ends in an offset [-]
 
     def format(self, order: str) -> str:
         """The strptime form of this shape in ``order`` ("day-first" or "month-first")."""
@@ -237,16 +288,20 @@ def check_time_format(fmt: str) -> None:
     try:
         back = pd.to_datetime(pd.Series([sample.strftime(fmt)]), format=fmt, utc=aware).iloc[0]
         good = back.date() == sample.date() and (
-            not any(d in fmt for d in ("%H", "%I")) or (back.hour, back.minute) == (14, 35))
+            not any(d in fmt for d in ("%H", "%I")) or (back.hour, back.minute) == (14, 35)
+        )
     except (ValueError, TypeError):
         good = False
     if not good:
-        raise ValueError(f"--time-format {fmt!r} must give the year, month and day (and with an hour the "
-                         "minute, with %I also %p), e.g. '%d-%b-%Y %H:%M' for 02-May-2025 10:00")
+        raise ValueError(
+            f"--time-format {fmt!r} must give the year, month and day (and with an hour the "
+            "minute, with %I also %p), e.g. '%d-%b-%Y %H:%M' for 02-May-2025 10:00"
+        )
 
 
-def read_clock(s: pd.Series, order: str | None = None,
-               time_format: str | None = None) -> tuple[pd.Series, pd.Series, pd.Series]:
+def read_clock(
+    s: pd.Series, order: str | None = None, time_format: str | None = None
+) -> tuple[pd.Series, pd.Series, pd.Series]:
     """Times as written -> (UTC times of those with an offset, naive times of the others, reason).
 
     Parameters
@@ -274,14 +329,21 @@ def read_clock(s: pd.Series, order: str | None = None,
 
     if time_format is not None:
         with_offset = "%z" in time_format
-        keep(pd.to_datetime(s, format=time_format, errors="coerce", utc=with_offset), with_offset,
-             "time not of the --time-format form")
+        keep(
+            pd.to_datetime(s, format=time_format, errors="coerce", utc=with_offset),
+            with_offset,
+            "time not of the --time-format form",
+        )
     else:
         iso, groups = _forms(s)
         if iso.any():
             text = s[iso]
             offset = text.str.slice(10).str.contains(r"[Z+-]").fillna(False).astype(bool)
-            keep(pd.to_datetime(text[offset], format="ISO8601", errors="coerce", utc=True), True, "unreadable time")
+            keep(
+                pd.to_datetime(text[offset], format="ISO8601", errors="coerce", utc=True),
+                True,
+                "unreadable time",
+            )
             keep(pd.to_datetime(text[~offset], format="ISO8601", errors="coerce"), False, "unreadable time")
         for shape, rows in groups.items():
             if shape is None:
@@ -289,8 +351,11 @@ def read_clock(s: pd.Series, order: str | None = None,
             elif order is None:
                 reason[rows] = "numeric date with no day/month order given"
             else:
-                keep(pd.to_datetime(s[rows], format=shape.format(order), errors="coerce", utc=shape.aware),
-                     shape.aware, f"not a {ORDER_NAMES[order]} date")
+                keep(
+                    pd.to_datetime(s[rows], format=shape.format(order), errors="coerce", utc=shape.aware),
+                    shape.aware,
+                    f"not a {ORDER_NAMES[order]} date",
+                )
     return _joined(aware, "datetime64[ns, UTC]"), _joined(naive, "datetime64[ns]"), reason
 
 
@@ -300,9 +365,16 @@ def _joined(parts: list, dtype: str) -> pd.Series:
     return pd.concat(parts).sort_index() if parts else pd.Series([], dtype=dtype)
 
 
-def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str = "reject", nonexistent: str = "reject",
-                order: str | None = None, time_format: str | None = None, group: pd.Series | None = None,
-                seen: Counter | None = None) -> tuple[pd.Series, pd.Series]:
+def parse_times(
+    text: pd.Series,
+    zone: ZoneInfo,
+    ambiguous: str = "reject",
+    nonexistent: str = "reject",
+    order: str | None = None,
+    time_format: str | None = None,
+    group: pd.Series | None = None,
+    seen: Counter | None = None,
+) -> tuple[pd.Series, pd.Series]:
     """Strings -> UTC timestamps, and a reason per rejected row ("" when accepted).
 
     Parameters
@@ -345,7 +417,9 @@ def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str = "reject", none
     # Which naive times are ambiguous, which nonexistent: localise with NaT for both, then
     # again with a fixed choice for the ambiguous ones (only the nonexistent stay NaT).
     probe = good.dt.tz_localize(zone, ambiguous="NaT", nonexistent="NaT")
-    is_nonexistent = good.dt.tz_localize(zone, ambiguous=np.ones(len(good), dtype=bool), nonexistent="NaT").isna()
+    is_nonexistent = good.dt.tz_localize(
+        zone, ambiguous=np.ones(len(good), dtype=bool), nonexistent="NaT"
+    ).isna()
     is_ambiguous = probe.isna() & ~is_nonexistent
     local = probe.copy()
     if is_ambiguous.any():
@@ -354,7 +428,7 @@ def parse_times(text: pd.Series, zone: ZoneInfo, ambiguous: str = "reject", none
             reason[sub.index] = f"ambiguous local time in {zone}"
         else:
             if ambiguous == "file-order":
-                keys = list(zip(group[sub.index] if group is not None else [""] * len(sub), sub))
+                keys = list(zip(group[sub.index] if group is not None else [""] * len(sub), sub, strict=True))
                 seen = Counter() if seen is None else seen
                 nth = []
                 for key in keys:
@@ -404,18 +478,26 @@ def line_of(row: int) -> int:
     return int(row) + 2
 
 
-def _note_bad_values(report: ImportReport, name: str, raw: pd.Series, bad: pd.Series,
-                     tags: str | pd.Series) -> None:
+def _note_bad_values(
+    report: ImportReport, name: str, raw: pd.Series, bad: pd.Series, tags: str | pd.Series
+) -> None:
     """Count the values not a number and keep the first few (file, line, tag and text)."""
     report.bad_values += int(bad.sum())
     room = EXAMPLES - len(report.bad_value_examples)
-    for row in bad.index[bad.to_numpy()][:max(0, room)]:
+    for row in bad.index[bad.to_numpy()][: max(0, room)]:
         tag = tags if isinstance(tags, str) else tags[row]
         report.bad_value_examples.append((name, line_of(row), f"{tag} {str(raw[row])!r}"))
 
 
-def _long_chunk(chunk: pd.DataFrame, cols: tuple[str, str, str], tag_role: dict[str, str],
-                times: pd.Series, report: ImportReport, decimal: str, name: str) -> pd.DataFrame:
+def _long_chunk(
+    chunk: pd.DataFrame,
+    cols: tuple[str, str, str],
+    tag_role: dict[str, str],
+    times: pd.Series,
+    report: ImportReport,
+    decimal: str,
+    name: str,
+) -> pd.DataFrame:
     _, gcol, vcol = cols
     tags = chunk[gcol].fillna("").astype(str).str.strip()
     mapped = tags.isin(list(tag_role))
@@ -428,8 +510,15 @@ def _long_chunk(chunk: pd.DataFrame, cols: tuple[str, str, str], tag_role: dict[
     return frame[~dup].pivot(index="time", columns="role", values="value")
 
 
-def _wide_chunk(chunk: pd.DataFrame, tcol: str, tag_role: dict[str, str], times: pd.Series,
-                report: ImportReport, decimal: str, name: str) -> pd.DataFrame:
+def _wide_chunk(
+    chunk: pd.DataFrame,
+    tcol: str,
+    tag_role: dict[str, str],
+    times: pd.Series,
+    report: ImportReport,
+    decimal: str,
+    name: str,
+) -> pd.DataFrame:
     out = {}
     for col in chunk.columns:
         if col == tcol:
@@ -452,8 +541,10 @@ def time_zone(name: str) -> ZoneInfo:
     try:
         return ZoneInfo(name)
     except (ZoneInfoNotFoundError, ValueError):
-        raise ValueError(f"--timezone: unknown time zone {name!r}; use an IANA name such as "
-                         "UTC, Europe/Berlin or America/Chicago") from None
+        raise ValueError(
+            f"--timezone: unknown time zone {name!r}; use an IANA name such as "
+            "UTC, Europe/Berlin or America/Chicago"
+        ) from None
 
 
 @dataclass(frozen=True)
@@ -518,19 +609,23 @@ class DateEvidence:
             if shape is None:
                 continue
             text = s[rows]
-            first, second, year = (text.str.slice(*span).astype(int).to_numpy()
-                                   for span in (shape.first, shape.second, shape.year))
+            first, second, year = (
+                text.str.slice(*span).astype(int).to_numpy()
+                for span in (shape.first, shape.second, shape.year)
+            )
             day_first, month_first = is_date(year, second, first), is_date(year, first, second)
             self.numeric += len(rows)
-            for kind, mask in (("day_first", day_first & ~month_first),
-                               ("month_first", month_first & ~day_first),
-                               ("both", day_first & month_first & (first != second)),
-                               ("same", day_first & (first == second))):
+            for kind, mask in (
+                ("day_first", day_first & ~month_first),
+                ("month_first", month_first & ~day_first),
+                ("both", day_first & month_first & (first != second)),
+                ("same", day_first & (first == second)),
+            ):
                 self.counts[kind] += int(mask.sum())
                 if kind == "same":
                     continue
                 found = getattr(self, kind)
-                found.extend(zip(rows[mask][:EXAMPLES], text[mask][:EXAMPLES]))
+                found.extend(zip(rows[mask][:EXAMPLES], text[mask][:EXAMPLES], strict=True))
                 found.sort()
                 del found[EXAMPLES:]
 
@@ -540,12 +635,15 @@ class DateEvidence:
             raise ValueError(
                 f"{path}: the dates mix two orders: {self._lines(self.day_first, 'day_first')} read only as "
                 f"day/month/year, {self._lines(self.month_first, 'month_first')} only as month/day/year; "
-                "correct the file, or import each part with --dayfirst or --monthfirst (nothing was written)")
+                "correct the file, or import each part with --dayfirst or --monthfirst (nothing was written)"
+            )
         for order, found in (("day-first", self.day_first), ("month-first", self.month_first)):
             if found:
                 row, text = found[0]
-                return TimeReading(order, note=f"dates in {path.name}: {ORDER_NAMES[order]}, as line "
-                                               f"{line_of(row)} {text!r} shows")
+                return TimeReading(
+                    order,
+                    note=f"dates in {path.name}: {ORDER_NAMES[order]}, as line {line_of(row)} {text!r} shows",
+                )
         if self.both:
             row, text = self.both[0]
             shape = date_shape(re.sub(r"[0-9]", "9", text))
@@ -555,7 +653,8 @@ class DateEvidence:
                 f"{path}: the dates read both ways, such as line {line_of(row)} {text!r} "
                 f"({year}-{second:02d}-{first:02d} as day/month/year, {year}-{first:02d}-{second:02d} as "
                 "month/day/year), and none tells which; say which with --dayfirst or --monthfirst "
-                "(nothing was written)")
+                "(nothing was written)"
+            )
         if self.counts["same"]:  # every date has the same day and month number
             return TimeReading("day-first", note=f"dates in {path.name}: the same in either day/month order")
         # numeric dates that are no calendar date in either order are rejected row by row
@@ -581,8 +680,17 @@ class FilePlan:
 
 def _read_options(path: Path, sep: str, decimal: str) -> dict:
     # Blank lines are kept (as empty rows, dropped later) so that row numbers give line numbers.
-    return dict(sep=sep, keep_default_na=False, na_values=[""], decimal=decimal, chunksize=CHUNK_ROWS,
-                encoding="utf-8-sig", skipinitialspace=True, index_col=False, skip_blank_lines=False)
+    return dict(
+        sep=sep,
+        keep_default_na=False,
+        na_values=[""],
+        decimal=decimal,
+        chunksize=CHUNK_ROWS,
+        encoding="utf-8-sig",
+        skipinitialspace=True,
+        index_col=False,
+        skip_blank_lines=False,
+    )
 
 
 def plan_file(path: Path, options: ImportOptions) -> FilePlan:
@@ -604,21 +712,31 @@ def plan_file(path: Path, options: ImportOptions) -> FilePlan:
     names = [h.strip().lower() for h in header]
     if kind == "long":
         try:
-            cols = tuple(header[next(i for i, n in enumerate(names) if n in group)]
-                         for group in (TIME_NAMES, TAG_NAMES, VALUE_NAMES))
+            cols = tuple(
+                header[next(i for i, n in enumerate(names) if n in group)]
+                for group in (TIME_NAMES, TAG_NAMES, VALUE_NAMES)
+            )
         except StopIteration:
-            raise ValueError(f"{path}: long layout needs time, tag and value columns, found {header}") from None
+            raise ValueError(
+                f"{path}: long layout needs time, tag and value columns, found {header}"
+            ) from None
     else:
         if len(header) < 2:
-            raise ValueError(f"{path}: wide layout needs a time column and at least one tag column, "
-                             f"found {header}")
+            raise ValueError(
+                f"{path}: wide layout needs a time column and at least one tag column, found {header}"
+            )
         cols = (header[0], "", "")
     if options.time_format is not None:
-        reading = TimeReading(time_format=options.time_format,
-                              note=f"times in {path.name}: --time-format {options.time_format!r}")
+        reading = TimeReading(
+            time_format=options.time_format,
+            note=f"times in {path.name}: --time-format {options.time_format!r}",
+        )
     elif options.date_order is not None:
-        reading = TimeReading(options.date_order, note=f"dates in {path.name}: {ORDER_NAMES[options.date_order]} "
-                                                       f"({ORDER_OPTIONS[options.date_order]})")
+        reading = TimeReading(
+            options.date_order,
+            note=f"dates in {path.name}: {ORDER_NAMES[options.date_order]} "
+            f"({ORDER_OPTIONS[options.date_order]})",
+        )
     else:
         evidence = DateEvidence()
         read = _read_options(path, sep, ".") | dict(usecols=[header.index(cols[0])], dtype=str)
@@ -638,8 +756,9 @@ def plan_file(path: Path, options: ImportOptions) -> FilePlan:
 # ------------------------------------------------------------------------------------
 # importing
 # ------------------------------------------------------------------------------------
-def import_files(config: Config, paths: list[Path], store, options: ImportOptions = ImportOptions(),
-                 dry_run: bool = False) -> ImportReport:
+def import_files(
+    config: Config, paths: list[Path], store, options: ImportOptions = ImportOptions(), dry_run: bool = False
+) -> ImportReport:
     """Read CSV exports and write them to ``store`` (unless ``dry_run``); returns the counts.
 
     Every file's header and time reading are settled first: an unknown time zone, a bad
@@ -669,34 +788,56 @@ def import_files(config: Config, paths: list[Path], store, options: ImportOption
             with warnings.catch_warnings():
                 # a row with more fields than the header: an error with its line, not a shift
                 warnings.simplefilter("error", pd.errors.ParserWarning)
-                with pd.read_csv(path, dtype={c: str for c in text_cols},
-                                 **_read_options(path, plan.sep, options.decimal)) as reader:
+                with pd.read_csv(
+                    path, dtype={c: str for c in text_cols}, **_read_options(path, plan.sep, options.decimal)
+                ) as reader:
                     for chunk in reader:
-                        _import_chunk(chunk, plan, zone, options, seen, tag_role, config, store,
-                                      dry_run, report)
+                        _import_chunk(
+                            chunk, plan, zone, options, seen, tag_role, config, store, dry_run, report
+                        )
         except pd.errors.ParserWarning:
-            raise ValueError(f"{path}: malformed CSV: a row has more fields than the header's "
-                             f"{len(plan.header)} (rows before it were imported)") from None
+            raise ValueError(
+                f"{path}: malformed CSV: a row has more fields than the header's "
+                f"{len(plan.header)} (rows before it were imported)"
+            ) from None
         except pd.errors.ParserError as exc:
-            raise ValueError(f"{path}: malformed CSV: {str(exc).strip()} (rows before it were imported)") from None
+            raise ValueError(
+                f"{path}: malformed CSV: {str(exc).strip()} (rows before it were imported)"
+            ) from None
     return report
 
 
-def _import_chunk(chunk: pd.DataFrame, plan: FilePlan, zone: ZoneInfo, options: ImportOptions,
-                  seen: Counter, tag_role: dict[str, str], config: Config, store, dry_run: bool,
-                  report: ImportReport) -> None:
+def _import_chunk(
+    chunk: pd.DataFrame,
+    plan: FilePlan,
+    zone: ZoneInfo,
+    options: ImportOptions,
+    seen: Counter,
+    tag_role: dict[str, str],
+    config: Config,
+    store,
+    dry_run: bool,
+    report: ImportReport,
+) -> None:
     kind, cols, name = plan.kind, plan.cols, plan.path.name
     tcol, gcol, _ = cols
     chunk = chunk[chunk.notna().any(axis=1).to_numpy()]  # blank lines
     report.rows_read += len(chunk)
     group = chunk[gcol].fillna("").astype(str).str.strip() if kind == "long" else None
-    times, reason = parse_times(chunk[tcol], zone, options.ambiguous, options.nonexistent,
-                                order=plan.reading.order, time_format=plan.reading.time_format,
-                                group=group, seen=seen)
+    times, reason = parse_times(
+        chunk[tcol],
+        zone,
+        options.ambiguous,
+        options.nonexistent,
+        order=plan.reading.order,
+        time_format=plan.reading.time_format,
+        group=group,
+        seen=seen,
+    )
     rejected = (reason != "").to_numpy()
     report.reject_reasons.update(reason[rejected].tolist())
     report.rows_rejected += int(rejected.sum())
-    for row in chunk.index[rejected][:max(0, EXAMPLES - len(report.reject_examples))]:
+    for row in chunk.index[rejected][: max(0, EXAMPLES - len(report.reject_examples))]:
         text = chunk.at[row, tcol]
         report.reject_examples.append((name, line_of(row), repr("" if pd.isna(text) else str(text).strip())))
     chunk, times = chunk[~rejected], times[~rejected]
@@ -730,9 +871,16 @@ def run(args: argparse.Namespace) -> int:
     delimiter = args.delimiter.replace("\\t", "\t") if args.delimiter else None
     if delimiter is not None and len(delimiter) != 1:
         raise ValueError(f"--delimiter: expected one character, found {args.delimiter!r}")
-    options = ImportOptions(layout=args.layout, timezone=args.timezone, ambiguous=args.ambiguous,
-                            nonexistent=args.nonexistent, date_order=args.date_order,
-                            time_format=args.time_format, delimiter=delimiter, decimal=args.decimal)
+    options = ImportOptions(
+        layout=args.layout,
+        timezone=args.timezone,
+        ambiguous=args.ambiguous,
+        nonexistent=args.nonexistent,
+        date_order=args.date_order,
+        time_format=args.time_format,
+        delimiter=delimiter,
+        decimal=args.decimal,
+    )
     time_zone(options.timezone)  # before any connection
     if options.time_format is not None:
         check_time_format(options.time_format)
@@ -745,7 +893,10 @@ def run(args: argparse.Namespace) -> int:
         print(line)
     if report.samples_written == 0:
         what = "no sample would be written" if args.dry_run else "no sample written"
-        why = ("the files have no data rows" if report.rows_read == 0 else
-               "every value was rejected, empty or of a tag not in the configuration")
+        why = (
+            "the files have no data rows"
+            if report.rows_read == 0
+            else "every value was rejected, empty or of a tag not in the configuration"
+        )
         raise ValueError(f"{what}: {why} (what was stored stays)")
     return 0

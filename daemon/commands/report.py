@@ -21,7 +21,9 @@ def add_arguments(parser) -> None:
     parser.add_argument("-c", "--config", required=True, metavar="FILE", help="the unit's TOML configuration")
     parser.add_argument("--start", required=True, metavar="T", help="first time, ISO 8601 (naive means UTC)")
     parser.add_argument("--end", required=True, metavar="T", help="end time (excluded), ISO 8601")
-    parser.add_argument("-o", "--output", required=True, metavar="DIR", help="folder for index.html and figures")
+    parser.add_argument(
+        "-o", "--output", required=True, metavar="DIR", help="folder for index.html and figures"
+    )
     parser.add_argument("--hs-window", metavar="T", help="start of the steady window for the h-s diagram")
 
 
@@ -38,8 +40,15 @@ def run(args) -> int:
     store = open_store(config.store.kind, **config.store.open_options())
     try:
         analysis = run_analysis(store, config)  # the whole history, not the period
-        path = write_report(store, config, start, end, args.output, analysis=analysis,
-                            hs_window=parse_time(args.hs_window) if args.hs_window else None)
+        path = write_report(
+            store,
+            config,
+            start,
+            end,
+            args.output,
+            analysis=analysis,
+            hs_window=parse_time(args.hs_window) if args.hs_window else None,
+        )
     finally:
         store.close()
     print(path)

@@ -18,8 +18,10 @@ import threading
 from isentrope.daemon.errors import EXIT_OK, EXIT_OTHER, EXIT_UNREACHABLE, FatalStoreError
 
 NAME = "run"
-HELP = ("run the worker: every interval, process new data from the checkpoint and write the "
-        "results (advisory performance information, not a protective function)")
+HELP = (
+    "run the worker: every interval, process new data from the checkpoint and write the "
+    "results (advisory performance information, not a protective function)"
+)
 
 logger = logging.getLogger("isentrope.run")
 
@@ -94,9 +96,14 @@ def _serve(worker, config) -> int:
         misfire_grace_time=None,
         next_run_time=worker.clock().to_pydatetime(),
     )
-    logger.info("unit %s: worker started, a cycle every %.0f s (settle %s, look-back %s, chunk %s)",
-                config.unit.name, interval, config.schedule.settle, config.schedule.lookback,
-                config.schedule.chunk)
+    logger.info(
+        "unit %s: worker started, a cycle every %.0f s (settle %s, look-back %s, chunk %s)",
+        config.unit.name,
+        interval,
+        config.schedule.settle,
+        config.schedule.lookback,
+        config.schedule.chunk,
+    )
     scheduler.start()
     try:
         while not stop.wait(1.0):
@@ -105,8 +112,12 @@ def _serve(worker, config) -> int:
         scheduler.shutdown(wait=True)  # waits for the cycle in progress (it stops between chunks)
         _restore(previous)
     if received:
-        logger.info("unit %s: worker stopped on signal %d; checkpoint at %s", config.unit.name, received[0],
-                    worker.last_report.checkpoint.isoformat()
-                    if worker.last_report is not None and worker.last_report.checkpoint is not None
-                    else "its last value")
+        logger.info(
+            "unit %s: worker stopped on signal %d; checkpoint at %s",
+            config.unit.name,
+            received[0],
+            worker.last_report.checkpoint.isoformat()
+            if worker.last_report is not None and worker.last_report.checkpoint is not None
+            else "its last value",
+        )
     return exit_code[0]

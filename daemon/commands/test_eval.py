@@ -19,8 +19,10 @@ import pandas as pd
 from isentrope.daemon.commands import parse_time
 
 NAME = "test-eval"
-HELP = ("evaluate a planned routine performance test from the stored readings (advisory, not an "
-        "acceptance test, not a protective function)")
+HELP = (
+    "evaluate a planned routine performance test from the stored readings (advisory, not an "
+    "acceptance test, not a protective function)"
+)
 
 #: Figures reported, with the column of the online trend they are compared with.
 FIGURES = ("hp_efficiency", "ip_efficiency", "lp_dry_efficiency", "lp_moisture")
@@ -30,12 +32,21 @@ def add_arguments(parser) -> None:
     parser.add_argument("-c", "--config", required=True, metavar="FILE", help="the unit's TOML configuration")
     parser.add_argument("--start", required=True, metavar="T", help="start of the test as logged, ISO 8601")
     parser.add_argument("--end", required=True, metavar="T", help="end of the test as logged, ISO 8601")
-    parser.add_argument("--stabilisation", default="1h", metavar="DURATION",
-                        help="dropped at the start (default 1h, common practice)")
-    parser.add_argument("--sub-period", default="1h", metavar="DURATION",
-                        help="length of each sub-period (default 1h, common practice)")
-    parser.add_argument("-o", "--output", metavar="PREFIX",
-                        help="write PREFIX_sub_periods.csv and PREFIX_result.csv")
+    parser.add_argument(
+        "--stabilisation",
+        default="1h",
+        metavar="DURATION",
+        help="dropped at the start (default 1h, common practice)",
+    )
+    parser.add_argument(
+        "--sub-period",
+        default="1h",
+        metavar="DURATION",
+        help="length of each sub-period (default 1h, common practice)",
+    )
+    parser.add_argument(
+        "-o", "--output", metavar="PREFIX", help="write PREFIX_sub_periods.csv and PREFIX_result.csv"
+    )
 
 
 def _fmt(x, spec) -> str:
@@ -68,39 +79,59 @@ def run(args) -> int:
     finally:
         store.close()
     if not len(frame):
-        raise ValueError(f"no readings for unit {config.unit.name} from {start.isoformat()} to {end.isoformat()}")
+        raise ValueError(
+            f"no readings for unit {config.unit.name} from {start.isoformat()} to {end.isoformat()}"
+        )
     online = {f: trend[f].dropna() for f in FIGURES if f in trend.columns and trend[f].notna().any()}
     # Trend windows inside the test itself are not an independent comparison: leave them out.
     online = {f: s[(s.index < start) | (s.index >= end)] for f, s in online.items()}
     online = {f: s for f, s in online.items() if len(s)}
     result = routine_test.evaluate_test(
-        frame, start, end, stabilisation=stabilisation, sub_period=sub_period,
+        frame,
+        start,
+        end,
+        stabilisation=stabilisation,
+        sub_period=sub_period,
         rating_mw=float(config.unit.rating_mw) or None,
-        section_kwargs=Pipeline(config)._section_kwargs(), online=online or None)
+        section_kwargs=Pipeline(config)._section_kwargs(),
+        online=online or None,
+    )
 
-    print(f"Routine test, {config.unit.plant or ''} {config.unit.name}: {start:%Y-%m-%d %H:%M} to "
-          f"{end:%Y-%m-%d %H:%M} UTC; evaluated {result.run_start:%H:%M} to {result.run_end:%H:%M}; "
-          f"status {result.status}")
+    print(
+        f"Routine test, {config.unit.plant or ''} {config.unit.name}: {start:%Y-%m-%d %H:%M} to "
+        f"{end:%Y-%m-%d %H:%M} UTC; evaluated {result.run_start:%H:%M} to {result.run_end:%H:%M}; "
+        f"status {result.status}"
+    )
     sp = result.sub_periods
-    print(f"\n{'sub-period start':20}{'samples':>8}{'passed':>8}  {'HP eff [%]':>11}{'IP eff [%]':>11}  reason")
+    print(
+        f"\n{'sub-period start':20}{'samples':>8}{'passed':>8}  {'HP eff [%]':>11}{'IP eff [%]':>11}  reason"
+    )
     for t, r in sp.iterrows():
-        print(f"{t:%Y-%m-%d %H:%M}    {int(r['n_samples']):>8}{'yes' if r['passed'] else 'no':>8}  "
-              f"{_fmt(100 * r.get('hp_efficiency', math.nan), '11.2f')}"
-              f"{_fmt(100 * r.get('ip_efficiency', math.nan), '11.2f')}  {r.get('reason', '')}")
-    print(f"\n{'figure':28}{'test result':>14}{'U95':>11}{'n':>4}{'online trend':>14}{'difference':>12}  agrees")
+        print(
+            f"{t:%Y-%m-%d %H:%M}    {int(r['n_samples']):>8}{'yes' if r['passed'] else 'no':>8}  "
+            f"{_fmt(100 * r.get('hp_efficiency', math.nan), '11.2f')}"
+            f"{_fmt(100 * r.get('ip_efficiency', math.nan), '11.2f')}  {r.get('reason', '')}"
+        )
+    print(
+        f"\n{'figure':28}{'test result':>14}{'U95':>11}{'n':>4}{'online trend':>14}{'difference':>12}  agrees"
+    )
     for name, r in result.result.iterrows():
         percent = name.endswith("efficiency") or name.endswith("moisture")
         scale, unit = (100.0, "%") if percent else (1.0, "kJ/kg" if name.startswith("lp_") else "")
         agrees = r.get("agrees", None)
         agrees = "" if agrees is None or pd.isna(agrees) else ("yes" if agrees else "no")
-        print(f"{name:28}{_fmt(scale * r['mean'], '12.2f')} {unit:<5}{_fmt(scale * r['U95'], '8.2f')}"
-              f"{int(r['n']):>4}{_fmt(scale * r.get('online', math.nan), '14.2f')}"
-              f"{_fmt(scale * r.get('difference', math.nan), '+12.2f')}  {agrees}")
+        print(
+            f"{name:28}{_fmt(scale * r['mean'], '12.2f')} {unit:<5}{_fmt(scale * r['U95'], '8.2f')}"
+            f"{int(r['n']):>4}{_fmt(scale * r.get('online', math.nan), '14.2f')}"
+            f"{_fmt(scale * r.get('difference', math.nan), '+12.2f')}  {agrees}"
+        )
     for note in result.notes:
         print(f"note: {note}")
-    print("\nEfficiencies and moisture in percent, enthalpies in kJ/kg; U95 = 2 standard uncertainties (spread between "
-          "sub-periods and instrument uncertainty). Not an acceptance test to ASME PTC 6; advisory "
-          "performance information, not a protective function.")
+    print(
+        "\nEfficiencies and moisture in percent, enthalpies in kJ/kg; U95 = 2 standard uncertainties (spread between "
+        "sub-periods and instrument uncertainty). Not an acceptance test to ASME PTC 6; advisory "
+        "performance information, not a protective function."
+    )
     if args.output:
         sp.to_csv(f"{args.output}_sub_periods.csv", date_format="%Y-%m-%dT%H:%M:%SZ")
         result.result.to_csv(f"{args.output}_result.csv")

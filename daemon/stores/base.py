@@ -60,7 +60,9 @@ class Store(ABC):
 
     # --- raw samples --------------------------------------------------------------------
     @abstractmethod
-    def read_raw(self, mappings: Sequence[RoleMapping], start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
+    def read_raw(
+        self, mappings: Sequence[RoleMapping], start: pd.Timestamp, end: pd.Timestamp
+    ) -> pd.DataFrame:
         """Raw samples of each mapped role in ``[start, end)``, plant units, UTC index."""
 
     @abstractmethod
@@ -124,10 +126,10 @@ class Store(ABC):
     def save_state(self, name: str, state: Mapping) -> None:
         """Save JSON-serialisable state under ``name``, replacing what was there."""
 
-    def close(self) -> None:
+    def close(self) -> None:  # noqa: B027 (optional hook: a store without connections keeps it)
         """Release connections. Safe to call twice."""
 
-    def __enter__(self) -> "Store":
+    def __enter__(self) -> Store:
         return self
 
     def __exit__(self, *exc) -> None:

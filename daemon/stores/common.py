@@ -71,7 +71,9 @@ def role_frame(mappings: Sequence[RoleMapping], series: Mapping[str, pd.Series])
     for m in mappings:
         s = series.get(m.role)
         if s is None or s.empty:
-            s = pd.Series([], index=pd.DatetimeIndex([], tz="UTC", name="time").as_unit("ns"), dtype="float64")
+            s = pd.Series(
+                [], index=pd.DatetimeIndex([], tz="UTC", name="time").as_unit("ns"), dtype="float64"
+            )
         s = pd.to_numeric(s, errors="coerce").astype("float64")
         s.index = pd.DatetimeIndex(s.index).as_unit("ns")
         if not s.index.is_unique:
@@ -104,7 +106,18 @@ def wide_to_role_columns(mappings: Sequence[RoleMapping], frame: pd.DataFrame) -
 
 
 #: Field names no store accepts: the time columns, and the columns Flux adds to its answers.
-RESERVED_FIELDS = ("time", "time_utc", "result", "table", "_time", "_value", "_field", "_measurement", "_start", "_stop")
+RESERVED_FIELDS = (
+    "time",
+    "time_utc",
+    "result",
+    "table",
+    "_time",
+    "_value",
+    "_field",
+    "_measurement",
+    "_start",
+    "_stop",
+)
 
 
 def result_columns(frame: pd.DataFrame, reserved: Sequence[str] = RESERVED_FIELDS) -> list[str]:
@@ -131,7 +144,9 @@ def check_fields_vs_tags(fields: Sequence[str], tags: Mapping[str, str], measure
     keys = {k.lower() for k in tags}
     clash = [f for f in fields if f.lower() in keys]
     if clash:
-        raise ValueError(f"{measurement}: result fields {clash} have the same name as tag keys {sorted(tags)}")
+        raise ValueError(
+            f"{measurement}: result fields {clash} have the same name as tag keys {sorted(tags)}"
+        )
 
 
 def results_matrix(frame: pd.DataFrame, cols: Sequence[str]) -> np.ndarray:
@@ -143,7 +158,9 @@ def results_matrix(frame: pd.DataFrame, cols: Sequence[str]) -> np.ndarray:
     return m
 
 
-def results_frame(data: dict[str, np.ndarray] | pd.DataFrame, times_ns: np.ndarray | None = None) -> pd.DataFrame:
+def results_frame(
+    data: dict[str, np.ndarray] | pd.DataFrame, times_ns: np.ndarray | None = None
+) -> pd.DataFrame:
     """Shape read-back results: UTC ns index ``time``, sorted float columns, no all-NaN rows or columns."""
     frame = data if isinstance(data, pd.DataFrame) else pd.DataFrame(data)
     if times_ns is not None:

@@ -126,7 +126,9 @@ class Influx1Store(LineProtocolWriter, Store):
         except requests.RequestException as exc:
             raise FatalStoreError(f"{what}: {self.url}: {exc}") from None
         if resp.status_code >= 300:
-            raise classify_http(resp.status_code, resp.text, f"{what} ({self.url}, database {self.database!r})")
+            raise classify_http(
+                resp.status_code, resp.text, f"{what} ({self.url}, database {self.database!r})"
+            )
         return resp
 
     def _from(self, measurement: str) -> str:
@@ -155,7 +157,9 @@ class Influx1Store(LineProtocolWriter, Store):
         params = {"db": self.database, "epoch": "ns"}
         if self.retention_policy:
             params["rp"] = self.retention_policy
-        resp = self._request("POST", "/query", what, params=params, data={"q": q}, headers={"Accept": "application/csv"})
+        resp = self._request(
+            "POST", "/query", what, params=params, data={"q": q}, headers={"Accept": "application/csv"}
+        )
         text = resp.content.decode("utf-8")  # text/csv without a charset: requests would guess latin-1
         if text.startswith("error"):
             raise FatalStoreError(f"{what}: {text.strip()}")
@@ -167,7 +171,10 @@ class Influx1Store(LineProtocolWriter, Store):
 
     # --- raw samples ---------------------------------------------------------------------
     def _where(self, tags: Mapping[str, str], start: pd.Timestamp, end: pd.Timestamp) -> str:
-        conds = [f"{escape.influxql_identifier(k, 'tag key')}::tag = {escape.influxql_string(v)}" for k, v in tags.items()]
+        conds = [
+            f"{escape.influxql_identifier(k, 'tag key')}::tag = {escape.influxql_string(v)}"
+            for k, v in tags.items()
+        ]
         conds += [f"time >= {start.value}", f"time < {end.value}"]
         return " AND ".join(conds)
 
@@ -188,9 +195,12 @@ class Influx1Store(LineProtocolWriter, Store):
                 # s<statement>f<field> so that each CSV block names its statement.
                 fields = list(dict.fromkeys(m.field_name for m in ms))
                 select = ", ".join(
-                    f"{escape.influxql_identifier(f, 'field')}::field AS \"s{g}f{i}\"" for i, f in enumerate(fields)
+                    f'{escape.influxql_identifier(f, "field")}::field AS "s{g}f{i}"'
+                    for i, f in enumerate(fields)
                 )
-                statements.append(f"SELECT {select} FROM {self._from(measurement)} WHERE {self._where(dict(tags), lo, hi)}")
+                statements.append(
+                    f"SELECT {select} FROM {self._from(measurement)} WHERE {self._where(dict(tags), lo, hi)}"
+                )
                 order.append((fields, ms))
             for block in self.query_csv("; ".join(statements), "read_raw"):
                 if not len(block):
@@ -205,7 +215,9 @@ class Influx1Store(LineProtocolWriter, Store):
                 for m in ms:
                     col = f"s{g}f{fields.index(m.field_name)}"
                     if col in block.columns:
-                        parts[m.role].append(pd.Series(pd.to_numeric(block[col], errors="coerce").to_numpy(), index=idx))
+                        parts[m.role].append(
+                            pd.Series(pd.to_numeric(block[col], errors="coerce").to_numpy(), index=idx)
+                        )
         if not got_any:
             self._check_database()  # an empty answer may be a dropped database
         series = {role: (pd.concat(ps) if ps else None) for role, ps in parts.items()}
@@ -240,14 +252,16 @@ class Influx1Store(LineProtocolWriter, Store):
     def _last_state(self, kind: str, name: str) -> str | None:
         escape.check_name(name, f"{kind} name")
         q = (
-            f"SELECT last(\"value\") FROM {self._from(STATE_MEASUREMENT)} WHERE "
-            f"\"kind\"::tag = {escape.influxql_string(kind)} AND \"name\"::tag = {escape.influxql_string(name)}"
+            f'SELECT last("value") FROM {self._from(STATE_MEASUREMENT)} WHERE '
+            f'"kind"::tag = {escape.influxql_string(kind)} AND "name"::tag = {escape.influxql_string(name)}'
         )
         params = {"db": self.database, "epoch": "ns", "q": q}
         if self.retention_policy:
             params["rp"] = self.retention_policy
         # CSV for the value: csv module (the value is JSON, quoted by the server).
-        text = self._request("POST", "/query", f"load {kind}", data=params, headers={"Accept": "application/csv"}).content.decode("utf-8")
+        text = self._request(
+            "POST", "/query", f"load {kind}", data=params, headers={"Accept": "application/csv"}
+        ).content.decode("utf-8")
         rows = list(csv.reader(io.StringIO(text)))
         if len(rows) < 2:
             if not self._db_checked:

@@ -41,11 +41,11 @@ Token: ``token`` itself, or the name of an environment variable (``token_env``) 
 from __future__ import annotations
 
 import io
-from pathlib import Path
 import json
-import threading
 import os
+import threading
 from collections.abc import Mapping, Sequence
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -71,8 +71,9 @@ from isentrope.daemon.stores.influx_common import (
     time_windows,
 )
 
-_DIALECT = Dialect(header=True, delimiter=",", annotations=["datatype"], comment_prefix="#",
-                   date_time_format="RFC3339Nano")
+_DIALECT = Dialect(
+    header=True, delimiter=",", annotations=["datatype"], comment_prefix="#", date_time_format="RFC3339Nano"
+)
 
 #: Flux column types that are numbers; a field column of another type holds text (or bools).
 _NUMERIC_TYPES = ("double", "long", "unsignedLong")
@@ -150,11 +151,20 @@ class Influx2Store(LineProtocolWriter, Store):
         self.pending: list[str] = []
         self._write_lock = threading.Lock()
         self._clock = StateClock()
-        retry = WritesRetry(total=retries, retry_interval=0.2, max_retry_delay=2, max_retry_time=max(5.0, self.timeout),
-                            exponential_base=2)
+        retry = WritesRetry(
+            total=retries,
+            retry_interval=0.2,
+            max_retry_delay=2,
+            max_retry_time=max(5.0, self.timeout),
+            exponential_base=2,
+        )
         self._client = InfluxDBClient(
-            url=self.url, token=token or None, org=org or "-", timeout=int(self.timeout * 1000),
-            verify_ssl=verify_ssl, retries=retry,
+            url=self.url,
+            token=token or None,
+            org=org or "-",
+            timeout=int(self.timeout * 1000),
+            verify_ssl=verify_ssl,
+            retries=retry,
         )
         self._write_api = self._client.write_api(write_options=SYNCHRONOUS)
         self._query_api = self._client.query_api()
@@ -201,12 +211,21 @@ class Influx2Store(LineProtocolWriter, Store):
                 types = first.split(",")  # names of types hold no comma; "#datatype" heads the empty column
             # only an empty cell is no value: text such as "n/a", "NA" or "null" stays text
             frame = pd.read_csv(io.StringIO(block), keep_default_na=False, na_values=[""])
-            frame.attrs["datatype"] = dict(zip(frame.columns, types))
+            frame.attrs["datatype"] = dict(zip(frame.columns, types, strict=True))
             blocks.append(frame)
         return blocks
 
-    def _refuse_text_fields(self, what: str, block: pd.DataFrame, inside: np.ndarray, fields: Sequence[str],
-                            measurement: str, tags: Mapping[str, str], lo: pd.Timestamp, hi: pd.Timestamp) -> None:
+    def _refuse_text_fields(
+        self,
+        what: str,
+        block: pd.DataFrame,
+        inside: np.ndarray,
+        fields: Sequence[str],
+        measurement: str,
+        tags: Mapping[str, str],
+        lo: pd.Timestamp,
+        hi: pd.Timestamp,
+    ) -> None:
         """FatalStoreError when a field of ``block`` is not numeric in the server's answer and has
         a point in [lo, hi) (``inside``; see the module docstring: 1.8.10 would have left out the
         numbers stored after those points). Text only at ``hi`` is the next window's."""
@@ -225,15 +244,24 @@ class Influx2Store(LineProtocolWriter, Store):
                 n = int(held.sum())
                 first = str(block[field][held].iloc[0])
                 first = first if len(first) <= 40 else first[:37] + "..."
-                found = (f"{n} point{'s' if n != 1 else ''}, the first at "
-                         f"{self._block_times(block)[held][0].isoformat()} ({first!r})")
+                found = (
+                    f"{n} point{'s' if n != 1 else ''}, the first at "
+                    f"{self._block_times(block)[held][0].isoformat()} ({first!r})"
+                )
             else:  # a text column without a value: empty strings, which the CSV shows as no value
                 found = "empty strings (which points is not shown: the answer gives them as no value)"
             tag_text = f" ({', '.join(f'{k}={v!r}' for k, v in tags.items())})" if tags else ""
-            where = " AND ".join([f"{escape.influxql_identifier(k, 'tag key')} = {escape.influxql_string(v)}"
-                                  for k, v in tags.items()] + [f"time >= {influxql_time(lo)}", f"time < {influxql_time(hi)}"])
-            listing = (f"SELECT {escape.influxql_identifier(field, 'field')}::{kind} FROM "
-                       f"{escape.influxql_identifier(measurement, 'measurement')} WHERE {where}")
+            where = " AND ".join(
+                [
+                    f"{escape.influxql_identifier(k, 'tag key')} = {escape.influxql_string(v)}"
+                    for k, v in tags.items()
+                ]
+                + [f"time >= {influxql_time(lo)}", f"time < {influxql_time(hi)}"]
+            )
+            listing = (
+                f"SELECT {escape.influxql_identifier(field, 'field')}::{kind} FROM "
+                f"{escape.influxql_identifier(measurement, 'measurement')} WHERE {where}"
+            )
             raise FatalStoreError(
                 f"{what} ({self.url}, bucket {self.bucket!r}): field {field!r} of measurement {measurement!r}"
                 f"{tag_text} holds {kind} values, not numbers, in [{lo.isoformat()}, {hi.isoformat()}): "
@@ -266,7 +294,9 @@ class Influx2Store(LineProtocolWriter, Store):
         return pd.DatetimeIndex(pd.to_datetime(block["_time"], utc=True, format="ISO8601")).as_unit("ns")
 
     @classmethod
-    def _inside(cls, block: pd.DataFrame, lo: pd.Timestamp, hi: pd.Timestamp) -> tuple[pd.DatetimeIndex, np.ndarray]:
+    def _inside(
+        cls, block: pd.DataFrame, lo: pd.Timestamp, hi: pd.Timestamp
+    ) -> tuple[pd.DatetimeIndex, np.ndarray]:
         """The times of ``block`` and which lie in [lo, hi): 1.8's storage reader includes stop
         itself, and a point at ``hi`` is the next window's (for the text check too)."""
         idx = cls._block_times(block)
@@ -283,15 +313,21 @@ class Influx2Store(LineProtocolWriter, Store):
         for lo, hi in time_windows(start, end, self.read_chunk):
             for (measurement, tags), ms in groups.items():
                 fields = list(dict.fromkeys(m.field_name for m in ms))
-                for block in self.query_csv(self._pivot_query(measurement, fields, dict(tags), lo, hi), "read_raw"):
+                for block in self.query_csv(
+                    self._pivot_query(measurement, fields, dict(tags), lo, hi), "read_raw"
+                ):
                     if not len(block) or "_time" not in block.columns:
                         continue
                     idx, inside = self._inside(block, lo, hi)
-                    self._refuse_text_fields("read_raw", block, inside, fields, measurement, dict(tags), lo, hi)
+                    self._refuse_text_fields(
+                        "read_raw", block, inside, fields, measurement, dict(tags), lo, hi
+                    )
                     block, idx = block[inside], idx[inside]
                     for m in ms:
                         if m.field_name in block.columns:
-                            values = pd.to_numeric(block[m.field_name], errors="coerce").to_numpy(dtype=np.float64)
+                            values = pd.to_numeric(block[m.field_name], errors="coerce").to_numpy(
+                                dtype=np.float64
+                            )
                             parts[m.role].append(pd.Series(values, index=idx))
         series = {role: pd.concat(ps) for role, ps in parts.items() if ps}
         return common.role_frame(mappings, series)
@@ -300,8 +336,9 @@ class Influx2Store(LineProtocolWriter, Store):
         """One batch of line protocol through the client's write API (``LineProtocolWriter``
         does the batching)."""
         try:
-            self._write_api.write(bucket=self.bucket, org=self.org or "-", record=text,
-                                  write_precision=WritePrecision.NS)
+            self._write_api.write(
+                bucket=self.bucket, org=self.org or "-", record=text, write_precision=WritePrecision.NS
+            )
         except self._CAUGHT as exc:
             raise self._error(exc, what) from None
 
@@ -312,13 +349,20 @@ class Influx2Store(LineProtocolWriter, Store):
         start, end = common.window(start, end)
         frames = []
         for lo, hi in time_windows(start, end, self.read_chunk):
-            for block in self.query_csv(self._pivot_query(measurement, None, tags, lo, hi), f"read_results {measurement}"):
+            for block in self.query_csv(
+                self._pivot_query(measurement, None, tags, lo, hi), f"read_results {measurement}"
+            ):
                 if len(block) and "_time" in block.columns:
-                    drop = [c for c in block.columns if c in ("_time", "result", "table") or str(c).startswith("Unnamed")]
+                    drop = [
+                        c
+                        for c in block.columns
+                        if c in ("_time", "result", "table") or str(c).startswith("Unnamed")
+                    ]
                     fields = [c for c in block.columns if c not in drop]
                     idx, inside = self._inside(block, lo, hi)
-                    self._refuse_text_fields(f"read_results {measurement}", block, inside, fields, measurement,
-                                             tags, lo, hi)
+                    self._refuse_text_fields(
+                        f"read_results {measurement}", block, inside, fields, measurement, tags, lo, hi
+                    )
                     block, idx = block[inside], idx[inside]
                     frames.append(block.drop(columns=drop).set_axis(idx, axis=0))
         if not frames:

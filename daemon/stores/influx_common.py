@@ -61,9 +61,17 @@ def classify_http(status: int, body: str, what: str) -> Exception:
     if any(s in lower for s in _TYPE_CONFLICT_BODY):
         m = _WRITE_CONFLICT.search(full)
         if m:
-            return FieldTypeConflictError(what, status, shown, m["field"], m["measurement"], m["held"], m["given"],
-                                          partial="partial write" in lower,
-                                          dropped=_dropped(full))
+            return FieldTypeConflictError(
+                what,
+                status,
+                shown,
+                m["field"],
+                m["measurement"],
+                m["held"],
+                m["given"],
+                partial="partial write" in lower,
+                dropped=_dropped(full),
+            )
         return FatalStoreError(f"{what}: HTTP {status}: {type_conflict_text(full)} (server: {shown})")
     msg = f"{what}: HTTP {status}: {shown}"
     if status in _TEMPORARY_STATUS or status >= 500:
@@ -105,18 +113,20 @@ def clear_type_text(measurement: str | None, field: str | None, held: str, at: s
     f = _identifier(field) if field else '"<field>"'
     window = "time >= '<start_time>' AND time < '<end_time>'"
     name = m if not measurement else _quoted(escape.lp_string_value, measurement)
-    return (f"A block keeps a field's type while it holds any point of the measurement, in any series, so "
-            f"deleting only the text points (or one series) does not clear it. To clear it and lose nothing: "
-            f"`SHOW SHARDS` gives the block [start_time, end_time) holding {at}; "
-            f"`SELECT {f}::{held} FROM {m} WHERE {window} GROUP BY *` lists its {held} points and their series; "
-            f"export every point of the measurement in the block, all series and fields "
-            f"(`SELECT * FROM {m} WHERE {window} GROUP BY *`), then delete exactly those: on influxd 1.8 "
-            f"`DELETE FROM {m} WHERE {window}` (InfluxQL through /query; 1.8 has no /api/v2/delete); on "
-            f"influxd 1.6 that leaves the type, and only `DROP SHARD <id>` clears it (it removes every "
-            f"measurement of the block: export `SELECT * FROM /.*/ WHERE {window} GROUP BY *` first); on "
-            f"InfluxDB 2.x `influx delete --bucket <bucket> --start <start_time> --stop <end_time> "
-            f"--predicate '_measurement={name}'` or POST /api/v2/delete (from memory). Then write the export "
-            f"back with numbers, or nothing, where the text was")
+    return (
+        f"A block keeps a field's type while it holds any point of the measurement, in any series, so "
+        f"deleting only the text points (or one series) does not clear it. To clear it and lose nothing: "
+        f"`SHOW SHARDS` gives the block [start_time, end_time) holding {at}; "
+        f"`SELECT {f}::{held} FROM {m} WHERE {window} GROUP BY *` lists its {held} points and their series; "
+        f"export every point of the measurement in the block, all series and fields "
+        f"(`SELECT * FROM {m} WHERE {window} GROUP BY *`), then delete exactly those: on influxd 1.8 "
+        f"`DELETE FROM {m} WHERE {window}` (InfluxQL through /query; 1.8 has no /api/v2/delete); on "
+        f"influxd 1.6 that leaves the type, and only `DROP SHARD <id>` clears it (it removes every "
+        f"measurement of the block: export `SELECT * FROM /.*/ WHERE {window} GROUP BY *` first); on "
+        f"InfluxDB 2.x `influx delete --bucket <bucket> --start <start_time> --stop <end_time> "
+        f"--predicate '_measurement={name}'` or POST /api/v2/delete (from memory). Then write the export "
+        f"back with numbers, or nothing, where the text was"
+    )
 
 
 def type_conflict_text(body: str) -> str:
@@ -124,14 +134,24 @@ def type_conflict_text(body: str) -> str:
     the server does (``FieldTypeConflictError`` for a write the server refused)."""
     m = _WRITE_CONFLICT.search(body)
     if m:
-        return FieldTypeConflictError("", 0, body, m["field"], m["measurement"], m["held"], m["given"],
-                                      partial="partial write" in body.lower()).explanation()
+        return FieldTypeConflictError(
+            "",
+            0,
+            body,
+            m["field"],
+            m["measurement"],
+            m["held"],
+            m["given"],
+            partial="partial write" in body.lower(),
+        ).explanation()
     m = _READ_CONFLICT.search(body)
     types = f"{m['a']} and {m['b']}" if m else "two types of"
-    return (f"the values read here are {types} values: a field holds text where numbers belong, or one field has "
-            "two types in different shards (blocks of time); no retry changes that. SHOW FIELD KEYS FROM "
-            '"<measurement>" lists each field\'s types. '
-            + clear_type_text(None, None, "<type>", "the points of the wrong type"))
+    return (
+        f"the values read here are {types} values: a field holds text where numbers belong, or one field has "
+        "two types in different shards (blocks of time); no retry changes that. SHOW FIELD KEYS FROM "
+        '"<measurement>" lists each field\'s types. '
+        + clear_type_text(None, None, "<type>", "the points of the wrong type")
+    )
 
 
 class FieldTypeConflictError(FatalStoreError):
@@ -142,8 +162,18 @@ class FieldTypeConflictError(FatalStoreError):
     names them and the times to look up.
     """
 
-    def __init__(self, what: str, status: int, shown: str, field: str, measurement: str, held: str, given: str,
-                 partial: bool = False, dropped: int | None = None):
+    def __init__(
+        self,
+        what: str,
+        status: int,
+        shown: str,
+        field: str,
+        measurement: str,
+        held: str,
+        given: str,
+        partial: bool = False,
+        dropped: int | None = None,
+    ):
         self.what, self.status, self.shown = what, status, shown
         self.field, self.measurement, self.held, self.given = field, measurement, held, given
         self.partial, self.dropped = partial, dropped
@@ -154,17 +184,25 @@ class FieldTypeConflictError(FatalStoreError):
         n = self.dropped
         dropped = f"{n} point{'s' if n != 1 else ''} dropped" if n is not None else "dropped"
         written = "; the server wrote the other points of the batch" if self.partial else ""
-        text = (f"field {self.field!r} of measurement {self.measurement!r} already holds {self.held} values in the "
-                f"shard (block of time) these {self.given} points belong to, so the server refused them ({dropped} "
-                f"whole, other fields included{written}); no retry changes that.")
+        text = (
+            f"field {self.field!r} of measurement {self.measurement!r} already holds {self.held} values in the "
+            f"shard (block of time) these {self.given} points belong to, so the server refused them ({dropped} "
+            f"whole, other fields included{written}); no retry changes that."
+        )
         if self.refused:
-            parts = [f"{key}: {n} point{'s' if n != 1 else ''} " + _time_text(first)
-                     + (f" to {_time_text(last)}" if last != first else "") for key, first, last, n in self.refused]
+            parts = [
+                f"{key}: {n} point{'s' if n != 1 else ''} "
+                + _time_text(first)
+                + (f" to {_time_text(last)}" if last != first else "")
+                for key, first, last, n in self.refused
+            ]
             text += f" The batch's points with that field: {'; '.join(parts)}."
             at = "each of those times"
         else:
             at = "the times of these points"
-        return f"{text} {clear_type_text(self.measurement, self.field, self.held, at)}, and these points again"
+        return (
+            f"{text} {clear_type_text(self.measurement, self.field, self.held, at)}, and these points again"
+        )
 
     def _message(self) -> str:
         return f"{self.what}: HTTP {self.status}: {self.explanation()} (server: {self.shown})"
@@ -186,8 +224,10 @@ class FieldTypeConflictError(FatalStoreError):
             if not (fields.startswith(key) or ("," + key) in fields) or not stamp.isdigit():
                 continue
             found.setdefault(series, []).append(int(stamp))
-        self.refused = [(series, pd.Timestamp(min(t), tz="UTC"), pd.Timestamp(max(t), tz="UTC"), len(t))
-                        for series, t in found.items()]
+        self.refused = [
+            (series, pd.Timestamp(min(t), tz="UTC"), pd.Timestamp(max(t), tz="UTC"), len(t))
+            for series, t in found.items()
+        ]
         self.args = (self._message(),)
 
 
@@ -196,7 +236,7 @@ def _split_unescaped_space(line: str) -> tuple[str, str, str]:
     m = re.search(r"(?<!\\) ", line)
     if not m:
         return line, "", ""
-    return line[: m.start()], " ", line[m.end():]
+    return line[: m.start()], " ", line[m.end() :]
 
 
 def _quoted(quote, name: str) -> str:
@@ -309,10 +349,15 @@ def raw_lines(mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> tuple[lis
     return lines, samples
 
 
-def _lines(series_key: str, field_keys: Sequence[str], values: np.ndarray, times: np.ndarray) -> tuple[list[str], int]:
+def _lines(
+    series_key: str, field_keys: Sequence[str], values: np.ndarray, times: np.ndarray
+) -> tuple[list[str], int]:
     values = values.copy()
     values[~np.isfinite(values)] = np.nan
-    cols = [[None if s is None else f"{k}={s}" for s in _format_column(values[:, j])] for j, k in enumerate(field_keys)]
+    cols = [
+        [None if s is None else f"{k}={s}" for s in _format_column(values[:, j])]
+        for j, k in enumerate(field_keys)
+    ]
     prefix = series_key + " "
     lines = []
     for i, t in enumerate(times.tolist()):
@@ -332,7 +377,12 @@ def result_lines(measurement: str, frame: pd.DataFrame, tags: Mapping[str, str])
     common.check_fields_vs_tags(fields, tags, measurement)
     if not fields or len(frame) == 0:
         return [], 0
-    return _lines(key, [escape.lp_field_key(f) for f in fields], common.results_matrix(frame, fields), common.epoch_ns(idx))
+    return _lines(
+        key,
+        [escape.lp_field_key(f) for f in fields],
+        common.results_matrix(frame, fields),
+        common.epoch_ns(idx),
+    )
 
 
 def batches(lines: Sequence[str], size: int) -> Iterator[Sequence[str]]:
@@ -356,12 +406,16 @@ class StateClock:
 def state_line(kind: str, name: str, value: str, t_ns: int) -> str:
     escape.check_name(name, f"{kind} name")
     if len(value.encode()) > MAX_STRING_FIELD - 16:
-        raise ValueError(f"{kind} {name!r} is {len(value.encode())} bytes; InfluxDB keeps string fields under 64 KiB")
+        raise ValueError(
+            f"{kind} {name!r} is {len(value.encode())} bytes; InfluxDB keeps string fields under 64 KiB"
+        )
     key = escape.lp_series_key(STATE_MEASUREMENT, {"kind": kind, "name": name})
     return f"{key} value={escape.lp_string_value(value)} {t_ns}"
 
 
-def time_windows(start: pd.Timestamp, end: pd.Timestamp, chunk: pd.Timedelta) -> Iterator[tuple[pd.Timestamp, pd.Timestamp]]:
+def time_windows(
+    start: pd.Timestamp, end: pd.Timestamp, chunk: pd.Timedelta
+) -> Iterator[tuple[pd.Timestamp, pd.Timestamp]]:
     """Split [start, end) into pieces no longer than ``chunk`` (bounded memory per request)."""
     t = start
     while t < end:

@@ -102,7 +102,9 @@ class SqliteStore(Store):
                 parent = Path(self.path).parent
                 if not parent.is_dir():
                     raise FatalStoreError(f"sqlite store {self.path}: directory {parent} does not exist")
-            self._db = sqlite3.connect(self.path, timeout=timeout, check_same_thread=False, isolation_level=None)
+            self._db = sqlite3.connect(
+                self.path, timeout=timeout, check_same_thread=False, isolation_level=None
+            )
             self._db.execute(f"PRAGMA busy_timeout = {int(timeout * 1000)}")
             mode = self._db.execute("PRAGMA journal_mode = WAL").fetchone()[0]
             if self.path != ":memory:" and mode.lower() != "wal":
@@ -120,7 +122,9 @@ class SqliteStore(Store):
     def _error(self, exc: Exception, doing: str) -> Exception:
         msg = f"sqlite store {self.path}: {doing}: {exc}"
         text = str(exc).lower()
-        if isinstance(exc, sqlite3.OperationalError) and ("locked" in text or "busy" in text or "disk i/o" in text):
+        if isinstance(exc, sqlite3.OperationalError) and (
+            "locked" in text or "busy" in text or "disk i/o" in text
+        ):
             return TemporaryStoreError(msg)
         return FatalStoreError(msg)
 
@@ -191,7 +195,7 @@ class SqliteStore(Store):
                 ms = (common.epoch_ns(s.index) // _NS_PER_MS).tolist()
                 db.executemany(
                     "INSERT OR REPLACE INTO samples (tag, time, value) VALUES (?, ?, ?)",
-                    zip([tag] * len(ms), ms, s.to_numpy().tolist()),
+                    zip([tag] * len(ms), ms, s.to_numpy().tolist(), strict=True),
                 )
                 n += len(ms)
             db.execute("COMMIT")
@@ -209,7 +213,9 @@ class SqliteStore(Store):
         return measurement
 
     def _tag_keys(self, db, measurement: str) -> list[str] | None:
-        row = db.execute("SELECT tag_keys FROM isentrope_results WHERE measurement = ?", (measurement,)).fetchone()
+        row = db.execute(
+            "SELECT tag_keys FROM isentrope_results WHERE measurement = ?", (measurement,)
+        ).fetchone()
         return None if row is None else json.loads(row[0])
 
     def _columns(self, db, measurement: str) -> list[str]:
@@ -248,7 +254,10 @@ class SqliteStore(Store):
             db.execute(f"INSERT INTO {_ident(tmp)} ({cols}) SELECT {cols} FROM {_ident(measurement)}")
             db.execute(f"DROP TABLE {_ident(measurement)}")
             db.execute(f"ALTER TABLE {_ident(tmp)} RENAME TO {_ident(measurement)}")
-            db.execute("UPDATE isentrope_results SET tag_keys = ? WHERE measurement = ?", (json.dumps(keys), measurement))
+            db.execute(
+                "UPDATE isentrope_results SET tag_keys = ? WHERE measurement = ?",
+                (json.dumps(keys), measurement),
+            )
             known, existing = keys, self._columns(db, measurement)
             lowered = {c.lower() for c in existing}
         for f in fields:
@@ -283,7 +292,9 @@ class SqliteStore(Store):
             obj = values.astype(object)
             obj[np.isnan(values)] = None
             prefix = tuple(key_values)
-            db.executemany(sql, (prefix + (t,) + tuple(row) for t, row in zip(ms.tolist(), obj.tolist())))
+            db.executemany(
+                sql, (prefix + (t,) + tuple(row) for t, row in zip(ms.tolist(), obj.tolist(), strict=True))
+            )
             db.execute("COMMIT")
             return int(np.count_nonzero(~np.isnan(values)))
 
@@ -303,7 +314,9 @@ class SqliteStore(Store):
             missing = [k for k in tags if k not in keys]
             if missing:
                 return None, []
-            fields = [c for c in self._columns(db, measurement) if c not in keys and c not in ("time", "time_utc")]
+            fields = [
+                c for c in self._columns(db, measurement) if c not in keys and c not in ("time", "time_utc")
+            ]
             where = " AND ".join([f"{_ident(k)} = ?" for k in tags] + ["time >= ?", "time < ?"])
             sql = (
                 f"SELECT time, {', '.join(_ident(f) for f in fields) or 'NULL'} FROM {_ident(measurement)} "
@@ -313,7 +326,9 @@ class SqliteStore(Store):
 
         rows, fields = self._run("read_results", go)
         if not rows:
-            return common.results_frame({f: np.array([], dtype=float) for f in fields}, np.array([], dtype=np.int64))
+            return common.results_frame(
+                {f: np.array([], dtype=float) for f in fields}, np.array([], dtype=np.int64)
+            )
         times = np.array([r[0] for r in rows], dtype=np.int64) * _NS_PER_MS
         data = np.array([r[1:] for r in rows], dtype=np.float64).reshape(len(rows), -1)
         return common.results_frame({f: data[:, i] for i, f in enumerate(fields)}, times)
@@ -323,7 +338,9 @@ class SqliteStore(Store):
         check_name(name, "checkpoint name")
         row = self._run(
             "get_checkpoint",
-            lambda db: db.execute("SELECT time_ns FROM isentrope_checkpoint WHERE name = ?", (name,)).fetchone(),
+            lambda db: db.execute(
+                "SELECT time_ns FROM isentrope_checkpoint WHERE name = ?", (name,)
+            ).fetchone(),
         )
         return None if row is None else pd.Timestamp(row[0], unit="ns", tz="UTC")
 
@@ -353,7 +370,9 @@ class SqliteStore(Store):
         text = json.dumps(dict(state), allow_nan=False, sort_keys=True)
         self._run(
             "save_state",
-            lambda db: db.execute("INSERT OR REPLACE INTO isentrope_state VALUES (?, ?, ?)", (name, text, _now_utc())),
+            lambda db: db.execute(
+                "INSERT OR REPLACE INTO isentrope_state VALUES (?, ?, ?)", (name, text, _now_utc())
+            ),
         )
 
     def close(self) -> None:

@@ -67,10 +67,19 @@ def prepare_raw(config_path: Path, days: float, unit: str | None = None) -> dict
 
 
 def prepare_in_child(config_path: Path, days: float) -> dict:
-    code = ("import json, sys; sys.path.insert(0, %r); from _common import prepare_raw; "
-            "print(json.dumps(prepare_raw(%r, %r)))" % (str(Path(__file__).parent), str(config_path), float(days)))
-    out = subprocess.run([sys.executable, "-c", code], check=True, capture_output=True, text=True,
-                         cwd=str(Path(config_path).parent), env={**os.environ, "PYTHONWARNINGS": "ignore"})
+    code = (
+        f"import json, sys; sys.path.insert(0, {str(Path(__file__).parent)!r}); "
+        "from _common import prepare_raw; "
+        f"print(json.dumps(prepare_raw({str(config_path)!r}, {float(days)!r})))"
+    )
+    out = subprocess.run(
+        [sys.executable, "-c", code],
+        check=True,
+        capture_output=True,
+        text=True,
+        cwd=str(Path(config_path).parent),
+        env={**os.environ, "PYTHONWARNINGS": "ignore"},
+    )
     import json
 
     return json.loads(out.stdout.strip().splitlines()[-1])
@@ -79,9 +88,17 @@ def prepare_in_child(config_path: Path, days: float) -> dict:
 class StoreTimer:
     """Wraps a store's methods on the instance and adds up their wall time by kind."""
 
-    KINDS = {"read": "read", "read_results": "read", "write_results": "write", "save_state": "write",
-             "set_checkpoint": "write", "load_state": "read", "get_checkpoint": "read",
-             "prepare_results": "format", "write_prepared": "write"}
+    KINDS = {
+        "read": "read",
+        "read_results": "read",
+        "write_results": "write",
+        "save_state": "write",
+        "set_checkpoint": "write",
+        "load_state": "read",
+        "get_checkpoint": "read",
+        "prepare_results": "format",
+        "write_prepared": "write",
+    }
 
     def __init__(self, store):
         self.store = store
@@ -101,6 +118,7 @@ class StoreTimer:
                 self._depth.n = depth
                 if depth == 0:
                     self.seconds[kind] += time.perf_counter() - t
+
         return call
 
 
@@ -148,8 +166,10 @@ def reference_rows(frame: pd.DataFrame, eta_lp: float = 0.88, baumann: float = 1
     out = []
     for r in frame.itertuples(index=False):
         row = {}
-        for name, pin, tin, pout, tout in (("hp", r.throttle_p, r.throttle_t, r.cold_reheat_p, r.cold_reheat_t),
-                                           ("ip", r.hot_reheat_p, r.hot_reheat_t, r.crossover_p, r.crossover_t)):
+        for name, pin, tin, pout, tout in (
+            ("hp", r.throttle_p, r.throttle_t, r.cold_reheat_p, r.cold_reheat_t),
+            ("ip", r.hot_reheat_p, r.hot_reheat_t, r.crossover_p, r.crossover_t),
+        ):
             try:
                 a = IAPWS97(P=pin, T=tin)
                 b = IAPWS97(P=pout, T=tout)
@@ -177,8 +197,17 @@ def reference_rows(frame: pd.DataFrame, eta_lp: float = 0.88, baumann: float = 1
 
 
 #: Inputs of the reference perturbed one at a time for its uncertainty [role, step].
-REFERENCE_INPUTS = ["throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t", "hot_reheat_p",
-                    "hot_reheat_t", "crossover_p", "crossover_t", "condenser_p"]
+REFERENCE_INPUTS = [
+    "throttle_p",
+    "throttle_t",
+    "cold_reheat_p",
+    "cold_reheat_t",
+    "hot_reheat_p",
+    "hot_reheat_t",
+    "crossover_p",
+    "crossover_t",
+    "condenser_p",
+]
 
 
 def reference_with_uncertainty(frame: pd.DataFrame) -> pd.DataFrame:

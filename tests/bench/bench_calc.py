@@ -23,8 +23,10 @@ def _iapws_reference(frame: pd.DataFrame, sample: int) -> float:
     rows = frame.dropna().iloc[:: max(1, len(frame) // sample)].head(sample)
     t0 = time.perf_counter()
     for _, r in rows.iterrows():
-        for pi, ti, po, to in (("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t"),
-                               ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t")):
+        for pi, ti, po, to in (
+            ("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t"),
+            ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t"),
+        ):
             a = IAPWS97(P=r[pi], T=r[ti])
             b = IAPWS97(P=r[po], T=r[to])
             c = IAPWS97(P=r[po], s=a.s)
@@ -49,8 +51,11 @@ def main(argv=None) -> int:
     figures = sections.evaluate(frame).to_frame()
     stages["sections.evaluate (with uncertainty)"] = time.perf_counter() - t
     t = time.perf_counter()
-    given = {"hp": figures["hp_efficiency"].to_numpy(), "ip": figures["ip_efficiency"].to_numpy(),
-             "lp_group": figures["lp_dry_efficiency"].to_numpy()}
+    given = {
+        "hp": figures["hp_efficiency"].to_numpy(),
+        "ip": figures["ip_efficiency"].to_numpy(),
+        "lp_group": figures["lp_dry_efficiency"].to_numpy(),
+    }
     screen = quality.screen(frame, efficiencies=given)
     stages["quality.screen"] = time.perf_counter() - t
     t = time.perf_counter()
@@ -65,15 +70,23 @@ def main(argv=None) -> int:
     print(f"{n:,} rows ({args.days:g} days of one-minute readings), {len(frame.columns)} roles")
     for name, sec in stages.items():
         print(f"  {name:40s} {sec:7.2f} s  {sec / n * 1e6:7.2f} us/row")
-    print(f"  {'total':40s} {total:7.2f} s  (target 10 s for a unit-year: "
-          f"{'met' if total <= 10 * args.days / 365 else 'not met'})")
+    print(
+        f"  {'total':40s} {total:7.2f} s  (target 10 s for a unit-year: "
+        f"{'met' if total <= 10 * args.days / 365 else 'not met'})"
+    )
     print(f"  sections.evaluate without uncertainty     {no_unc:7.2f} s  {no_unc / n * 1e6:7.2f} us/row")
-    print(f"reference, iapws point by point (HP and IP efficiency only, {args.sample} rows): "
-          f"{ref * 1e6:,.0f} us/row")
-    print(f"ratio reference / ours: {ref / (no_unc / n):,.0f}x (figures without uncertainty), "
-          f"{ref / (total / n):,.0f}x (whole chain with every uncertainty)")
-    print(f"steady samples {int(st.steady.sum()):,} ({st.steady.mean():.1%}), windows {len(st.windows):,}; "
-          f"flagged samples {int((~screen.ok).sum()):,}")
+    print(
+        f"reference, iapws point by point (HP and IP efficiency only, {args.sample} rows): "
+        f"{ref * 1e6:,.0f} us/row"
+    )
+    print(
+        f"ratio reference / ours: {ref / (no_unc / n):,.0f}x (figures without uncertainty), "
+        f"{ref / (total / n):,.0f}x (whole chain with every uncertainty)"
+    )
+    print(
+        f"steady samples {int(st.steady.sum()):,} ({st.steady.mean():.1%}), windows {len(st.windows):,}; "
+        f"flagged samples {int((~screen.ok).sum()):,}"
+    )
     return 0
 
 

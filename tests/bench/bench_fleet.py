@@ -57,7 +57,9 @@ def main(argv=None) -> int:
     cfg = _common.write_config(seed, args.days)
     if not (seed / "unit.sqlite").exists():
         prep = _common.prepare_in_child(cfg, args.days)
-        print(f"prepared {prep['rows']:,} rows: generate {prep['generate_s']:.1f} s, write_raw {prep['write_raw_s']:.1f} s")
+        print(
+            f"prepared {prep['rows']:,} rows: generate {prep['generate_s']:.1f} s, write_raw {prep['write_raw_s']:.1f} s"
+        )
 
     from dask.distributed import Client, LocalCluster
 
@@ -72,15 +74,25 @@ def main(argv=None) -> int:
             shutil.rmtree(folder, ignore_errors=True)
             folder.mkdir()
             paths = _configs(folder, cfg, seed / "unit.sqlite", args.units)
-            with LocalCluster(n_workers=n, threads_per_worker=1, processes=True, dashboard_address=None,
-                              host="127.0.0.1") as cluster, Client(cluster) as client:
+            with (
+                LocalCluster(
+                    n_workers=n,
+                    threads_per_worker=1,
+                    processes=True,
+                    dashboard_address=None,
+                    host="127.0.0.1",
+                ) as cluster,
+                Client(cluster) as client,
+            ):
                 client.run(lambda: __import__("isentrope.daemon.worker"))  # imports outside the timing
                 t = time.perf_counter()
                 rep = fleet.run_fleet(client, paths, start, end, period=args.period, chunk=args.chunk)
                 wall = time.perf_counter() - t
             results[n] = (wall, rep)
-            print(f"{n} worker(s): {rep.partitions} partitions of {args.units} unit(s) x {args.days:g} d in {wall:.1f} s "
-                  f"wall; {rep.task_seconds:.1f} s in partition tasks")
+            print(
+                f"{n} worker(s): {rep.partitions} partitions of {args.units} unit(s) x {args.days:g} d in {wall:.1f} s "
+                f"wall; {rep.task_seconds:.1f} s in partition tasks"
+            )
     finally:
         if tmp is not None:
             tmp.cleanup()
@@ -91,9 +103,11 @@ def main(argv=None) -> int:
     print(f"speed-up one -> two workers: {w1 / w2:.2f}x (wall {w1:.1f} s -> {w2:.1f} s)")
     print(f"partition task time per unit-year (one worker): {per_unit_year:.0f} s")
     total_h = per_unit_year * 50 * 10 / 3600.0
-    print(f"estimate for 50 units x 10 years (500 unit-years): {total_h:.0f} CPU-hours of partition tasks; "
-          f"{total_h / 2:.0f} h wall on this 2-core machine, {total_h / 32:.1f} h on 32 worker processes "
-          "(the store must take the reads and writes of all of them)")
+    print(
+        f"estimate for 50 units x 10 years (500 unit-years): {total_h:.0f} CPU-hours of partition tasks; "
+        f"{total_h / 2:.0f} h wall on this 2-core machine, {total_h / 32:.1f} h on 32 worker processes "
+        "(the store must take the reads and writes of all of them)"
+    )
     return 0
 
 

@@ -34,15 +34,20 @@ def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--days", type=float, default=365.0)
     ap.add_argument("--chunk", default="30d")
-    ap.add_argument("--no-write-behind", action="store_true",
-                    help="write each chunk before computing the next (the reference for the write-behind)")
+    ap.add_argument(
+        "--no-write-behind",
+        action="store_true",
+        help="write each chunk before computing the next (the reference for the write-behind)",
+    )
     args = ap.parse_args(argv)
 
     import conftest  # the real-server helper of the test suite
 
     binary = conftest.INFLUXD_18
     if not (os.path.isfile(binary) and os.access(binary, os.X_OK)):
-        print(f"no influxd 1.8 at {binary}: {conftest.BUILD_HINT['v2'] if hasattr(conftest, 'BUILD_HINT') else ''}")
+        print(
+            f"no influxd 1.8 at {binary}: {conftest.BUILD_HINT['v2'] if hasattr(conftest, 'BUILD_HINT') else ''}"
+        )
         return 2
     from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
@@ -55,22 +60,34 @@ def main(argv=None) -> int:
         try:
             db = server.new_database("bench")
             os.environ["ISENTROPE_BENCH_TOKEN"] = "bench:bench"  # auth is off on this server
-            store_toml = (f'[store]\nkind = "influx2"\nurl = "{server.url}"\norg = "-"\n'
-                          f'bucket = "{server.bucket(db)}"\ntoken = "${{ISENTROPE_BENCH_TOKEN}}"\n'
-                          f'timeout = "120s"\n')
+            store_toml = (
+                f'[store]\nkind = "influx2"\nurl = "{server.url}"\norg = "-"\n'
+                f'bucket = "{server.bucket(db)}"\ntoken = "${{ISENTROPE_BENCH_TOKEN}}"\n'
+                f'timeout = "120s"\n'
+            )
             cfg = _common.write_config(root, args.days, store_toml=store_toml)
             prep = _common.prepare_in_child(cfg, args.days)
-            print(f"influxd {server.version} at {server.url}; prepared {prep['rows']:,} rows "
-                  f"({prep['samples']:,} samples): generate {prep['generate_s']:.1f} s, "
-                  f"write_raw {prep['write_raw_s']:.1f} s (child process)")
+            print(
+                f"influxd {server.version} at {server.url}; prepared {prep['rows']:,} rows "
+                f"({prep['samples']:,} samples): generate {prep['generate_s']:.1f} s, "
+                f"write_raw {prep['write_raw_s']:.1f} s (child process)"
+            )
             config = load_config(cfg)
             store = open_store(config.store.kind, **config.store.open_options())
             try:
                 timer = _common.StoreTimer(store)
                 pipeline, compute = _common.timed_pipeline(config)
                 start = _common.DEMO_START
-                worker = Worker.from_config(config, store, checkpoint_name="bench/influx", start_default=start,
-                                            lookback="0s", settle="0s", chunk=args.chunk, pipeline=pipeline)
+                worker = Worker.from_config(
+                    config,
+                    store,
+                    checkpoint_name="bench/influx",
+                    start_default=start,
+                    lookback="0s",
+                    settle="0s",
+                    chunk=args.chunk,
+                    pipeline=pipeline,
+                )
                 if args.no_write_behind:
                     store.write_behind = False
                 waited = _common.time_method(worker, "_settle")  # waiting for the writes behind
@@ -85,20 +102,42 @@ def main(argv=None) -> int:
         print(f"backfill failed: {report.error}")
         return 1
     behind = not args.no_write_behind
-    print(f"backfill {args.days:g} d through the v2 API ({report.chunks_done} chunks of {args.chunk}, "
-          f"{report.rows_read:,} rows read incl. margins; writes {'behind, in a second thread' if behind else 'in line'}): "
-          f"{wall:.1f} s wall, peak RSS {_common.peak_rss_mb():.0f} MB")
+    print(
+        f"backfill {args.days:g} d through the v2 API ({report.chunks_done} chunks of {args.chunk}, "
+        f"{report.rows_read:,} rows read incl. margins; writes {'behind, in a second thread' if behind else 'in line'}): "
+        f"{wall:.1f} s wall, peak RSS {_common.peak_rss_mb():.0f} MB"
+    )
     if behind:
         fmt = timer.seconds["format"]
         other = wall - timer.seconds["read"] - compute["s"] - fmt - waited["s"]
-        print("  " + _common.shares(wall, {"read": timer.seconds["read"], "compute": compute["s"],
-                                          "line protocol formatting": fmt, "waiting for writes": waited["s"],
-                                          "other": other})
-              + f"; sending took {timer.seconds['write']:.1f} s in the second thread")
+        print(
+            "  "
+            + _common.shares(
+                wall,
+                {
+                    "read": timer.seconds["read"],
+                    "compute": compute["s"],
+                    "line protocol formatting": fmt,
+                    "waiting for writes": waited["s"],
+                    "other": other,
+                },
+            )
+            + f"; sending took {timer.seconds['write']:.1f} s in the second thread"
+        )
     else:
         other = wall - timer.seconds["read"] - timer.seconds["write"] - compute["s"]
-        print("  " + _common.shares(wall, {"read": timer.seconds["read"], "compute": compute["s"],
-                                          "write": timer.seconds["write"], "other": other}))
+        print(
+            "  "
+            + _common.shares(
+                wall,
+                {
+                    "read": timer.seconds["read"],
+                    "compute": compute["s"],
+                    "write": timer.seconds["write"],
+                    "other": other,
+                },
+            )
+        )
     print(f"  unit-year at this rate: {wall / args.days * 365:.0f} s (target 90 s)")
     return 0
 

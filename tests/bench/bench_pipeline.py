@@ -48,8 +48,10 @@ def main(argv=None) -> int:
     cfg_path = _common.write_config(folder, args.days)
     if not (folder / "unit.sqlite").exists():
         prep = _common.prepare_in_child(cfg_path, args.days)
-        print(f"prepared {prep['rows']:,} rows ({prep['samples']:,} samples): generate {prep['generate_s']:.1f} s, "
-              f"SQLite write_raw {prep['write_raw_s']:.1f} s (child process)")
+        print(
+            f"prepared {prep['rows']:,} rows ({prep['samples']:,} samples): generate {prep['generate_s']:.1f} s, "
+            f"SQLite write_raw {prep['write_raw_s']:.1f} s (child process)"
+        )
 
     from isentrope.calc import sections  # noqa: F401  (imports outside the timings)
     from isentrope.daemon.config import load_config
@@ -65,8 +67,16 @@ def main(argv=None) -> int:
         timer = _common.StoreTimer(store)
         pipeline, compute = _common.timed_pipeline(config)
         name = f"bench/{time.time():.0f}"
-        worker = Worker.from_config(config, store, checkpoint_name=name, start_default=start, lookback="0s",
-                                    settle="0s", chunk=args.chunk, pipeline=pipeline)
+        worker = Worker.from_config(
+            config,
+            store,
+            checkpoint_name=name,
+            start_default=start,
+            lookback="0s",
+            settle="0s",
+            chunk=args.chunk,
+            pipeline=pipeline,
+        )
         store.save_state(worker.baseline_state_name, {})  # fit the baseline afresh in this run
         t0 = time.perf_counter()
         report = worker.run_cycle(until=end)
@@ -77,18 +87,35 @@ def main(argv=None) -> int:
         rows = report.rows_read  # includes the margins read around each chunk
         n_rows = int(round(args.days * 1440))
         other = wall - timer.seconds["read"] - timer.seconds["write"] - compute["s"]
-        print(f"\nbackfill {args.days:g} d ({n_rows:,} one-minute rows, {report.chunks_done} chunks of {args.chunk}, "
-              f"{rows:,} rows read incl. margins): {wall:.1f} s wall, peak RSS {_common.peak_rss_mb():.0f} MB")
-        print("  " + _common.shares(wall, {"read": timer.seconds["read"], "compute": compute["s"],
-                                          "write": timer.seconds["write"], "other": other}))
+        print(
+            f"\nbackfill {args.days:g} d ({n_rows:,} one-minute rows, {report.chunks_done} chunks of {args.chunk}, "
+            f"{rows:,} rows read incl. margins): {wall:.1f} s wall, peak RSS {_common.peak_rss_mb():.0f} MB"
+        )
+        print(
+            "  "
+            + _common.shares(
+                wall,
+                {
+                    "read": timer.seconds["read"],
+                    "compute": compute["s"],
+                    "write": timer.seconds["write"],
+                    "other": other,
+                },
+            )
+        )
         per_row_ours = wall / n_rows
         per_row_compute = compute["s"] / n_rows
-        print(f"  per row: {per_row_ours * 1e6:.0f} us end to end, {per_row_compute * 1e6:.0f} us compute; "
-              f"unit-year at this rate: {per_row_ours * 525600:.0f} s (target 30 s)")
+        print(
+            f"  per row: {per_row_ours * 1e6:.0f} us end to end, {per_row_compute * 1e6:.0f} us compute; "
+            f"unit-year at this rate: {per_row_ours * 525600:.0f} s (target 30 s)"
+        )
 
         # --- 1. the iapws reference ---------------------------------------------------------
-        frame = store.read(config.mappings, start + pd.Timedelta(days=min(10.0, args.days / 2)),
-                           start + pd.Timedelta(days=min(12.0, args.days)))
+        frame = store.read(
+            config.mappings,
+            start + pd.Timedelta(days=min(10.0, args.days / 2)),
+            start + pd.Timedelta(days=min(12.0, args.days)),
+        )
         frame = frame.dropna(subset=_common.REFERENCE_INPUTS)
         frame = frame[frame["gross_output"] > 0.5 * config.unit.rating_mw]
         sample = frame.sample(n=min(args.sample, len(frame)), random_state=7).sort_index()
@@ -100,25 +127,37 @@ def main(argv=None) -> int:
         _common.reference_with_uncertainty(small)
         ref_u_s = (time.perf_counter() - t) / len(small)
         ours = sections.evaluate(sample, **pipeline._section_kwargs()).to_frame()
-        diff = {c: float(np.nanmax(np.abs(ours[c].to_numpy() - ref[c].to_numpy())))
-                for c in ("hp_efficiency", "ip_efficiency")}
+        diff = {
+            c: float(np.nanmax(np.abs(ours[c].to_numpy() - ref[c].to_numpy())))
+            for c in ("hp_efficiency", "ip_efficiency")
+        }
         print(f"\nreference, point by point with iapws ({len(sample)} rows; {len(small)} with uncertainty):")
-        print(f"  {ref_s * 1e6:,.0f} us/row figures only; {ref_u_s * 1e6:,.0f} us/row with one-at-a-time "
-              f"uncertainty of {len(_common.REFERENCE_INPUTS)} inputs")
-        print(f"  unit-year the obvious way: {ref_s * 525600 / 3600:.1f} h (figures only), "
-              f"{ref_u_s * 525600 / 3600:.1f} h (with uncertainty)")
-        print(f"  ratio reference/ours per row: figures only {ref_s / per_row_ours:,.0f}x against our end-to-end "
-              f"row, {ref_s / per_row_compute:,.0f}x against our compute; with uncertainty "
-              f"{ref_u_s / per_row_ours:,.0f}x / {ref_u_s / per_row_compute:,.0f}x")
-        print(f"  same figures: max |ours - reference| HP {diff['hp_efficiency']:.1e}, "
-              f"IP {diff['ip_efficiency']:.1e} (fraction)")
+        print(
+            f"  {ref_s * 1e6:,.0f} us/row figures only; {ref_u_s * 1e6:,.0f} us/row with one-at-a-time "
+            f"uncertainty of {len(_common.REFERENCE_INPUTS)} inputs"
+        )
+        print(
+            f"  unit-year the obvious way: {ref_s * 525600 / 3600:.1f} h (figures only), "
+            f"{ref_u_s * 525600 / 3600:.1f} h (with uncertainty)"
+        )
+        print(
+            f"  ratio reference/ours per row: figures only {ref_s / per_row_ours:,.0f}x against our end-to-end "
+            f"row, {ref_s / per_row_compute:,.0f}x against our compute; with uncertainty "
+            f"{ref_u_s / per_row_ours:,.0f}x / {ref_u_s / per_row_compute:,.0f}x"
+        )
+        print(
+            f"  same figures: max |ours - reference| HP {diff['hp_efficiency']:.1e}, "
+            f"IP {diff['ip_efficiency']:.1e} (fraction)"
+        )
 
         # --- 3. daemon cycles over 15-minute increments ---------------------------------------
         sch = config.schedule
         live = f"bench-live/{time.time():.0f}"
         now = {"t": start + pd.Timedelta(days=min(20.0, args.days * 0.8))}
         store.set_checkpoint(live, now["t"] - pd.Timedelta(sch.settle) - pipeline.margins[1])
-        cyc = Worker.from_config(config, store, checkpoint_name=live, clock=lambda: now["t"], pipeline=pipeline)
+        cyc = Worker.from_config(
+            config, store, checkpoint_name=live, clock=lambda: now["t"], pipeline=pipeline
+        )
         times, walls = [], []
         for _ in range(args.cycles):
             now["t"] = now["t"] + pd.Timedelta("15min")
@@ -130,9 +169,11 @@ def main(argv=None) -> int:
             if not rep.ok:
                 print(f"cycle failed: {rep.error}")
                 return 1
-        print(f"\ndaemon cycle over a 15-minute increment ([schedule] settle {sch.settle}, lookback {sch.lookback}; "
-              f"{args.cycles} cycles): compute median {np.median(times):.2f} s (max {max(times):.2f}), wall median "
-              f"{np.median(walls):.2f} s (target: compute under 1 s)")
+        print(
+            f"\ndaemon cycle over a 15-minute increment ([schedule] settle {sch.settle}, lookback {sch.lookback}; "
+            f"{args.cycles} cycles): compute median {np.median(times):.2f} s (max {max(times):.2f}), wall median "
+            f"{np.median(walls):.2f} s (target: compute under 1 s)"
+        )
     finally:
         store.close()
         if tmp is not None:

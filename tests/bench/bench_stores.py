@@ -44,9 +44,14 @@ def timed(label, fn, *args, **kw):
 def data(rows: int):
     idx = pd.date_range("2025-01-01", periods=rows, freq="min", tz="UTC")
     rng = np.random.default_rng(7)
-    maps = [RoleMapping(role=r, tag=f"U9.{r}", unit="MPa", measurement="plant", tags={"unit": "U9"}) for r in ROLES]
+    maps = [
+        RoleMapping(role=r, tag=f"U9.{r}", unit="MPa", measurement="plant", tags={"unit": "U9"})
+        for r in ROLES
+    ]
     raw = pd.DataFrame(rng.normal(10, 1, size=(rows, len(maps))), index=idx, columns=[m.role for m in maps])
-    res = pd.DataFrame(rng.normal(0.9, 0.01, size=(rows, 30)), index=idx, columns=[f"field_{i:02d}" for i in range(30)])
+    res = pd.DataFrame(
+        rng.normal(0.9, 0.01, size=(rows, 30)), index=idx, columns=[f"field_{i:02d}" for i in range(30)]
+    )
     return maps, raw, res
 
 
@@ -78,11 +83,19 @@ def main(argv=None):
             start_ms = raw.index[0].value // 1_000_000
 
             def reference():
-                return {m.role: pd.read_sql_query("SELECT time, value FROM samples WHERE tag = ? AND time >= ? ORDER BY time",
-                                                  db, params=(m.tag, start_ms)) for m in maps}
+                return {
+                    m.role: pd.read_sql_query(
+                        "SELECT time, value FROM samples WHERE tag = ? AND time >= ? ORDER BY time",
+                        db,
+                        params=(m.tag, start_ms),
+                    )
+                    for m in maps
+                }
 
             _, t_ref = timed("reference: pandas.read_sql_query, same rows", reference)
-            print(f"  read_raw / read_sql_query = {t_read / t_ref:.2f}   file {path.stat().st_size / 1e6:.0f} MB")
+            print(
+                f"  read_raw / read_sql_query = {t_read / t_ref:.2f}   file {path.stat().st_size / 1e6:.0f} MB"
+            )
         if "influx1" in kinds or "influx2" in kinds:
             from conftest import INFLUXD_18, INFLUXD_V1, InfluxServer
 
@@ -100,13 +113,20 @@ def main(argv=None):
                 server = InfluxServer(INFLUXD_18, Path(tmp) / "v18", flux=True).start()
                 try:
                     db = server.new_database("bench")
-                    with open_store("influx2", url=server.url, org="-", bucket=server.bucket(db), timeout=600) as store:
+                    with open_store(
+                        "influx2", url=server.url, org="-", bucket=server.bucket(db), timeout=600
+                    ) as store:
                         t_read = run(store, f"influx2 on {server.version}", maps, raw, res)
                         start, end = raw.index[0], raw.index[-1] + pd.Timedelta("1min")
                         fields = [m.field_name for m in maps]
                         q = store._pivot_query("plant", fields, {"unit": "U9"}, start, end)
                         _, t_ours = timed("our parser (query_raw CSV + pandas)", store.query_csv, q)
-                        _, t_ref = timed("reference: client query_data_frame", store._query_api.query_data_frame, q, org="-")
+                        _, t_ref = timed(
+                            "reference: client query_data_frame",
+                            store._query_api.query_data_frame,
+                            q,
+                            org="-",
+                        )
                         print(f"  client parser / ours = {t_ref / t_ours:.2f}")
                 finally:
                     server.kill()

@@ -20,7 +20,9 @@ T0 = pd.Timestamp("2026-06-01", tz="UTC")
 
 def obs(values, section="hp", quantity="deviation", freq="4h", start=T0, steady=None):
     t = pd.date_range(start, periods=len(values), freq=freq, tz="UTC")
-    f = pd.DataFrame({"time": t, "section": section, "quantity": quantity, "value": np.asarray(values, dtype=float)})
+    f = pd.DataFrame(
+        {"time": t, "section": section, "quantity": quantity, "value": np.asarray(values, dtype=float)}
+    )
     if steady is not None:
         f["steady"] = steady
     return f
@@ -30,7 +32,7 @@ WARN = [r for r in default_rules() if r.name == "deviation_warning"]
 
 
 def kinds(events):
-    return list(zip(events["rule"], events["kind"]))
+    return list(zip(events["rule"], events["kind"], strict=True))
 
 
 def test_persistence_needs_consecutive_windows():
@@ -62,8 +64,10 @@ def test_warning_and_alarm_levels_are_separate_machines():
     vals = [-2.5] * 3 + [-1.5] * 3 + [-0.5] * 3
     _, ev = evaluate_alarms({}, obs(vals))
     assert kinds(ev) == [
-        ("deviation_warning", "raised"), ("deviation_alarm", "raised"),
-        ("deviation_alarm", "cleared"), ("deviation_warning", "cleared"),
+        ("deviation_warning", "raised"),
+        ("deviation_alarm", "raised"),
+        ("deviation_alarm", "cleared"),
+        ("deviation_warning", "cleared"),
     ]
 
 
@@ -84,7 +88,9 @@ def test_reprocessing_gives_identical_events_and_no_duplicates():
 
 @settings(max_examples=30, deadline=None)
 @given(
-    vals=st.lists(st.sampled_from([-2.6, -2.1, -1.8, -1.2, -0.9, -0.6, 0.1, float("nan")]), min_size=2, max_size=40),
+    vals=st.lists(
+        st.sampled_from([-2.6, -2.1, -1.8, -1.2, -0.9, -0.6, 0.1, float("nan")]), min_size=2, max_size=40
+    ),
     cut=st.floats(0.0, 1.0),
 )
 def test_split_windows_equal_one_window(vals, cut):
@@ -155,7 +161,9 @@ def test_empty_observations_keep_the_state():
     empty = pd.DataFrame(columns=["time", "section", "quantity", "value"])
     s2, ev = evaluate_alarms(state, empty, WARN)
     assert s2 == state and len(ev) == 0
-    s3, ev = evaluate_alarms(state, to_observations(pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC")), {}), WARN)
+    s3, ev = evaluate_alarms(
+        state, to_observations(pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC")), {}), WARN
+    )
     assert s3 == state and len(ev) == 0
 
 
@@ -175,8 +183,14 @@ def test_to_observations():
     [
         (dict(name="x", quantity="deviation", direction="below", threshold=-1.0, clear_at=-1.5), "clear_at"),
         (dict(name="x", quantity="deviation", direction="sideways", threshold=-1.0), "direction"),
-        (dict(name="x", quantity="deviation", direction="below", threshold=-1.0, raise_after=0), "raise_after"),
-        (dict(name="x", quantity="q", direction="above", threshold=1.0, raise_after_duration="soon"), "duration"),
+        (
+            dict(name="x", quantity="deviation", direction="below", threshold=-1.0, raise_after=0),
+            "raise_after",
+        ),
+        (
+            dict(name="x", quantity="q", direction="above", threshold=1.0, raise_after_duration="soon"),
+            "duration",
+        ),
         (dict(name="a|b", quantity="q", direction="above", threshold=1.0), "name"),
     ],
 )
@@ -217,7 +231,9 @@ def test_step_and_rate_observations_from_trend():
     rate = trend.degradation_rate(np.arange(300) * 8.0, d, breaks=[steps[0].index * 8.0])
     r = alarms.rate_observation(t[-1], "hp", rate)
     assert len(r) == 1 and r["value"].iloc[0] == rate.slope_per_1000h
-    _, ev = evaluate_alarms({}, pd.concat([o, r]), [x for x in default_rules() if x.name in ("step", "degradation_rate")])
+    _, ev = evaluate_alarms(
+        {}, pd.concat([o, r]), [x for x in default_rules() if x.name in ("step", "degradation_rate")]
+    )
     assert kinds(ev) == [("step", "raised")]  # the step, blocked out of the rate, raises only itself
     short = trend.degradation_rate(np.arange(3.0), np.zeros(3))
     assert len(alarms.rate_observation(t[-1], "hp", short)) == 0
@@ -239,10 +255,19 @@ def _stepwise(state, observations, rules):
         duration = pd.Timedelta(rule.raise_after_duration) if rule.raise_after_duration else None
         for section in sorted(set(sel["section"])):
             key = f"{rule.name}|{section}"
-            m = machines.get(key) or {"state": "normal", "count": 0, "since": None, "clear_count": 0,
-                                      "last_time": None}
+            m = machines.get(key) or {
+                "state": "normal",
+                "count": 0,
+                "since": None,
+                "clear_count": 0,
+                "last_time": None,
+            }
             last = None if m.get("last_time") is None else pd.Timestamp(m["last_time"])
-            for t, v in zip(sel.loc[sel["section"] == section, "time"], sel.loc[sel["section"] == section, "value"]):
+            for t, v in zip(
+                sel.loc[sel["section"] == section, "time"],
+                sel.loc[sel["section"] == section, "value"],
+                strict=True,
+            ):
                 if last is not None and t <= last:
                     continue
                 if m["state"] == "normal":
@@ -272,28 +297,40 @@ def _stepwise(state, observations, rules):
 
 @settings(max_examples=30, deadline=None)
 @given(
-    classes=st.lists(st.lists(st.sampled_from([0, 1, 2, 3]), min_size=0, max_size=60), min_size=1, max_size=3),
-    raise_after=st.integers(1, 4), clear_after=st.integers(1, 4),
+    classes=st.lists(
+        st.lists(st.sampled_from([0, 1, 2, 3]), min_size=0, max_size=60), min_size=1, max_size=3
+    ),
+    raise_after=st.integers(1, 4),
+    clear_after=st.integers(1, 4),
     duration=st.sampled_from([None, "0s", "5min", "17min", "2h"]),
     cuts=st.lists(st.integers(0, 60), max_size=3),
     repeat_times=st.booleans(),
 )
-def test_run_at_a_time_equals_observation_by_observation(classes, raise_after, clear_after, duration, cuts,
-                                                          repeat_times):
+def test_run_at_a_time_equals_observation_by_observation(
+    classes, raise_after, clear_after, duration, cuts, repeat_times
+):
     # values below -1.0 (beyond), in the band -1.0..-0.7, above -0.7 (cleared), NaN (skipped)
     level = {0: -1.5, 1: -0.85, 2: -0.2, 3: np.nan}
-    rules = [Rule("r", "deviation", "below", -1.0, -0.7, raise_after, clear_after, raise_after_duration=duration),
-             Rule("q", "tag_bad", "above", 0.5, 0.5, raise_after=1, raise_after_duration="5min")]
+    rules = [
+        Rule("r", "deviation", "below", -1.0, -0.7, raise_after, clear_after, raise_after_duration=duration),
+        Rule("q", "tag_bad", "above", 0.5, 0.5, raise_after=1, raise_after_duration="5min"),
+    ]
     parts = []
     for k, seq in enumerate(classes):
         freq = "1min" if k % 2 == 0 else "3min"
         t = pd.date_range(T0, periods=len(seq), freq=freq, tz="UTC")
         if repeat_times and len(seq) > 2:  # two observations at the same instant
             t = t.insert(1, t[1]).delete(2)
-        parts.append(pd.DataFrame({"time": t, "section": f"s{k}", "quantity": "deviation",
-                                   "value": [level[c] for c in seq]}))
-        parts.append(pd.DataFrame({"time": t, "section": f"s{k}", "quantity": "tag_bad",
-                                   "value": [float(c == 0) for c in seq]}))
+        parts.append(
+            pd.DataFrame(
+                {"time": t, "section": f"s{k}", "quantity": "deviation", "value": [level[c] for c in seq]}
+            )
+        )
+        parts.append(
+            pd.DataFrame(
+                {"time": t, "section": f"s{k}", "quantity": "tag_bad", "value": [float(c == 0) for c in seq]}
+            )
+        )
     allobs = pd.concat(parts, ignore_index=True)
     # whole batch and split into pieces by time, each against the reference
     edges = sorted({T0 + pd.Timedelta(minutes=c) for c in cuts})
@@ -312,8 +349,12 @@ def test_run_at_a_time_equals_observation_by_observation(classes, raise_after, c
         for b in batches:
             state, ev = evaluate_alarms(state, b, rules)
             ref_state, rec = _stepwise(ref_state, b, rules)
-            got += [(t, r, s, k, v) for t, r, s, k, v in zip(ev.index, ev["rule"], ev["section"], ev["kind"],
-                                                             ev["value"])]
+            got += [
+                (t, r, s, k, v)
+                for t, r, s, k, v in zip(
+                    ev.index, ev["rule"], ev["section"], ev["kind"], ev["value"], strict=True
+                )
+            ]
             want += [(t, rules[ri].name, s, k, v) for t, ri, s, k, v in rec]
         assert got == want
         assert state == ref_state

@@ -29,8 +29,12 @@ def make_windows(n=60, seed=0, noise=0.002, lo=0.5, hi=1.0, outliers=0):
         eta[:outliers] -= 0.05  # transients that slipped through (5 points low)
     idx = pd.date_range("2026-03-01", periods=n, freq="6h", tz="UTC", name="time")
     return pd.DataFrame(
-        {"hp_efficiency": eta, "hp_efficiency_u": 0.004, "gross_output": x * RATING,
-         "valve_position": 40 + 50 * x + rng.normal(0, 1, n)},
+        {
+            "hp_efficiency": eta,
+            "hp_efficiency_u": 0.004,
+            "gross_output": x * RATING,
+            "valve_position": 40 + 50 * x + rng.normal(0, 1, n),
+        },
         index=idx,
     )
 
@@ -89,7 +93,9 @@ def test_refuses_extrapolation():
     w = make_windows(lo=0.6, hi=0.9)
     m = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING, load_margin=0.05)
     lo, hi = m.load_range
-    probe = pd.DataFrame({"gross_output": np.array([lo - 0.06, lo - 0.04, 0.75, hi + 0.04, hi + 0.06, np.nan]) * RATING})
+    probe = pd.DataFrame(
+        {"gross_output": np.array([lo - 0.06, lo - 0.04, 0.75, hi + 0.04, hi + 0.06, np.nan]) * RATING}
+    )
     exp, u, flag = m.predict(probe)
     assert flag.tolist() == [True, False, False, False, True, False]
     assert np.isnan(exp[0]) and np.isnan(exp[4]) and np.isnan(u[0])
@@ -102,7 +108,9 @@ def test_extra_regressor_range_is_guarded():
     m = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING, extra_cols=["valve_position"])
     zlo, zhi = m.extra_ranges[0]
     span = zhi - zlo
-    probe = pd.DataFrame({"gross_output": [0.75 * RATING] * 2, "valve_position": [zhi + 0.05 * span, zhi + 0.2 * span]})
+    probe = pd.DataFrame(
+        {"gross_output": [0.75 * RATING] * 2, "valve_position": [zhi + 0.05 * span, zhi + 0.2 * span]}
+    )
     exp, _, flag = m.predict(probe)
     assert flag.tolist() == [False, True]
     assert np.isfinite(exp[0]) and np.isnan(exp[1])
@@ -145,15 +153,21 @@ def test_model_id_depends_on_content():
 
 def test_reference_period_selects_windows():
     w = make_windows(n=80)
-    m = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING,
-                     reference_period=(w.index[0], w.index[39]))
+    m = fit_baseline(
+        w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING, reference_period=(w.index[0], w.index[39])
+    )
     assert m.n_windows == 40
     assert m.reference_end == w.index[39].isoformat()
-    open_start = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING,
-                              reference_period=(None, w.index[29]))
+    open_start = fit_baseline(
+        w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING, reference_period=(None, w.index[29])
+    )
     assert open_start.n_windows == 30
-    assert fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING,
-                        reference_period=(None, None)).n_windows == 80
+    assert (
+        fit_baseline(
+            w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING, reference_period=(None, None)
+        ).n_windows
+        == 80
+    )
 
 
 def test_deviation_points_and_uncertainty():
@@ -166,7 +180,14 @@ def test_deviation_points_and_uncertainty():
     # model part is ~0 on noise-free data, so deviation_u is the 0.4-point measurement part
     np.testing.assert_allclose(d["deviation_u"], 0.4, atol=1e-6)
     assert (d["model_id"] == m.model_id).all()
-    assert list(d.columns) == ["expected", "expected_u", "deviation", "deviation_u", "extrapolated", "model_id"]
+    assert list(d.columns) == [
+        "expected",
+        "expected_u",
+        "deviation",
+        "deviation_u",
+        "extrapolated",
+        "model_id",
+    ]
     assert d.index.equals(later.index)
     far = later.iloc[:2].copy()
     far["gross_output"] = [0.1 * RATING, 0.7 * RATING]
@@ -195,8 +216,13 @@ def test_percent_efficiency_and_naive_bounds():
     pct = w.assign(hp_efficiency=w["hp_efficiency"] * 100)
     with pytest.raises(ValueError, match="fractions"):
         fit_baseline(pct, "hp", efficiency_col="hp_efficiency", rating_mw=RATING)
-    m = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=np.int64(600),
-                     reference_period=("2026-03-01", "2026-03-05 23:00"))  # naive bounds: UTC
+    m = fit_baseline(
+        w,
+        "hp",
+        efficiency_col="hp_efficiency",
+        rating_mw=np.int64(600),
+        reference_period=("2026-03-01", "2026-03-05 23:00"),
+    )  # naive bounds: UTC
     assert m.n_windows == 20 and m.rating_mw == 600.0
 
 

@@ -25,8 +25,13 @@ import pytest
 from isentrope.calc import economics as ec
 from isentrope.calc.economics import CostBasis
 
-BASIS = CostBasis(heat_rate_kj_per_kwh=8000.0, boiler_efficiency=0.88, fuel_price_per_gj=3.0,
-                  power_price_per_mwh=50.0, currency="EUR")
+BASIS = CostBasis(
+    heat_rate_kj_per_kwh=8000.0,
+    boiler_efficiency=0.88,
+    fuel_price_per_gj=3.0,
+    power_price_per_mwh=50.0,
+    currency="EUR",
+)
 
 
 def test_hand_worked_case():
@@ -102,12 +107,15 @@ def test_projected_loss_hand_worked():
     assert p.lost_mwh == pytest.approx(20625.0)
     assert p.fuel_cost == pytest.approx(409090.91, rel=1e-7)
     from isentrope.calc.trend import RateResult
+
     r = RateResult("ok", -0.4, -0.6, -0.2, 0, 0, 0, 0.0, 50, 6000.0)
     p = ec.projected_loss(r, -2.0, 5000.0, "hp", output_mw=500.0, basis=BASIS)
     # rate -0.2: mean -2.5 -> 17 187.5 MWh; rate -0.6: mean -3.5 -> 24 062.5 MWh
     assert (p.lost_mwh_low, p.lost_mwh, p.lost_mwh_high) == pytest.approx((17187.5, 20625.0, 24062.5))
     bad = RateResult("insufficient data", *([float("nan")] * 7), 3, 10.0)
-    assert ec.projected_loss(bad, -2.0, 100.0, "hp", output_mw=500.0, basis=BASIS).status == "insufficient data"
+    assert (
+        ec.projected_loss(bad, -2.0, 100.0, "hp", output_mw=500.0, basis=BASIS).status == "insufficient data"
+    )
 
 
 def test_operating_hours_until():
@@ -123,15 +131,18 @@ def test_overhaul_case_hand_worked():
     # payback 1 500 000 / 81.818182 = 18 333.33 h; at 7500 h/year 2.444444 years
     # break-even 2027-01-01 + 2.444444 x 365.25 d = 892.8333 d: 731 d to 2029-01-01 (2028 is a
     # leap year), 161 d more to 2029-06-11, 0.8333 d = 20:00 -> 2029-06-11 20:00 UTC
-    c = ec.overhaul_case(3.0, 1.5e6, "hp", output_mw=500.0, basis=BASIS, operating_hours_per_year=7500.0,
-                         start="2027-01-01")
+    c = ec.overhaul_case(
+        3.0, 1.5e6, "hp", output_mw=500.0, basis=BASIS, operating_hours_per_year=7500.0, start="2027-01-01"
+    )
     assert c.saving_per_hour == pytest.approx(81.818182, rel=1e-7)
     assert c.payback_hours == pytest.approx(18333.333, rel=1e-7)
     assert c.payback_years == pytest.approx(2.4444444, rel=1e-7)
     assert c.saving_per_year == pytest.approx(613636.36, rel=1e-7)
     assert abs(c.break_even - pd.Timestamp("2029-06-11 20:00", tz="UTC")) < pd.Timedelta(seconds=1)
     # valued as recovered output: 3 x 0.275 % x 500 MW = 4.125 MW x 50 = 206.25 per h
-    o = ec.overhaul_case(3.0, 1.5e6, "hp", output_mw=500.0, basis=BASIS, operating_hours_per_year=7500.0, value="output")
+    o = ec.overhaul_case(
+        3.0, 1.5e6, "hp", output_mw=500.0, basis=BASIS, operating_hours_per_year=7500.0, value="output"
+    )
     assert o.saving_per_hour == pytest.approx(206.25)
     assert o.break_even is None
 
@@ -140,7 +151,10 @@ def test_overhaul_case_hand_worked():
     "kwargs, match",
     [
         (dict(heat_rate_kj_per_kwh=0.0, boiler_efficiency=0.9, fuel_price_per_gj=3.0), "heat_rate"),
-        (dict(heat_rate_kj_per_kwh=8000.0, boiler_efficiency=88.0, fuel_price_per_gj=3.0), "boiler_efficiency"),
+        (
+            dict(heat_rate_kj_per_kwh=8000.0, boiler_efficiency=88.0, fuel_price_per_gj=3.0),
+            "boiler_efficiency",
+        ),
         (dict(heat_rate_kj_per_kwh=8000.0, boiler_efficiency=0.9, fuel_price_per_gj=-1.0), "fuel_price"),
     ],
 )
@@ -157,4 +171,6 @@ def test_bad_overhaul_arguments():
         ec.overhaul_case(1.0, 1e6, "hp", output_mw=500.0, basis=BASIS, operating_hours_per_year=9000.0)
     no_price = CostBasis(8000.0, 0.88, 3.0)
     with pytest.raises(ValueError, match="power_price"):
-        ec.overhaul_case(1.0, 1e6, "hp", output_mw=500.0, basis=no_price, operating_hours_per_year=7500.0, value="output")
+        ec.overhaul_case(
+            1.0, 1e6, "hp", output_mw=500.0, basis=no_price, operating_hours_per_year=7500.0, value="output"
+        )

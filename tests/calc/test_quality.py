@@ -455,10 +455,10 @@ def _flat_oracle(values, k, tol, rel):
     n = len(values)
     flagged = np.zeros(n, dtype=bool)
     for e in range(k, n):
-        w = values[e - k:e + 1]
+        w = values[e - k : e + 1]
         hi, lo = w.max(), w.min()
         if hi - lo <= max(tol, rel * max(abs(hi), abs(lo))):
-            flagged[e - k:e + 1] = True
+            flagged[e - k : e + 1] = True
     return flagged
 
 
@@ -557,8 +557,9 @@ def test_flatline_without_the_relative_part_where_the_floor_decides_gives_the_sa
         assert flat[3000:3200, frame.columns.get_loc("condenser_p")].all()
 
 
-@pytest.mark.parametrize("level, largest, matters", [(999.97, 999.99, False), (999.98, 1000.0, True),
-                                                     (1000.02, 1000.04, True)])
+@pytest.mark.parametrize(
+    "level, largest, matters", [(999.97, 999.99, False), (999.98, 1000.0, True), (1000.02, 1000.04, True)]
+)
 def test_flatline_at_the_edge_of_the_relative_shortcut_equals_the_plain_definition(level, largest, matters):
     # rel x 1000 = 1e-5 x 1000 = 0.01, the floor: the relative part is left out when the
     # largest reading is below 1000 and kept from 1000 on (rel widened by 1e-9 there); plateaus

@@ -18,9 +18,16 @@ from isentrope.calc.routine_test import evaluate_test
 
 START = pd.Timestamp("2026-10-14 08:00", tz="UTC")
 BASE = {
-    "throttle_p": 16.55, "throttle_t": 811.15, "cold_reheat_p": 3.9, "cold_reheat_t": 603.15,
-    "hot_reheat_p": 3.55, "hot_reheat_t": 811.15, "crossover_p": 0.95, "crossover_t": 623.15,
-    "condenser_p": 0.005, "gross_output": 500.0,
+    "throttle_p": 16.55,
+    "throttle_t": 811.15,
+    "cold_reheat_p": 3.9,
+    "cold_reheat_t": 603.15,
+    "hot_reheat_p": 3.55,
+    "hot_reheat_t": 811.15,
+    "crossover_p": 0.95,
+    "crossover_t": 623.15,
+    "condenser_p": 0.005,
+    "gross_output": 500.0,
 }
 
 
@@ -67,7 +74,9 @@ def test_unsteady_sub_period_fails_and_is_left_out():
     assert r.sub_periods["steady_fraction"].iloc[1] == 1.0
     reason = r.sub_periods["reason"].iloc[1]
     assert "throttle_t" in reason
-    sub = f[(f.index >= START + pd.Timedelta(hours=2)) & (f.index < START + pd.Timedelta(hours=3))]["throttle_t"]
+    sub = f[(f.index >= START + pd.Timedelta(hours=2)) & (f.index < START + pd.Timedelta(hours=3))][
+        "throttle_t"
+    ]
     expected_ratio = float(np.max(np.abs(sub - sub.mean()))) / 4.0  # PTC 6: +/-4 K
     assert r.sub_periods["throttle_t_fluctuation"].iloc[1] == pytest.approx(expected_ratio)
     assert r.result.loc["hp_efficiency", "n"] == 2
@@ -83,7 +92,9 @@ def test_throttle_pressure_limit_is_the_larger_of_relative_and_absolute():
     assert r.sub_periods["passed"].tolist() == [False, True, True]
     assert r.sub_periods["throttle_p_fluctuation"].iloc[0] > 1.0
     # a user may widen the limit
-    wide = evaluate_test(f, START, START + pd.Timedelta(hours=4), steady_limits={"throttle_p": (0.005, 0.0345)})
+    wide = evaluate_test(
+        f, START, START + pd.Timedelta(hours=4), steady_limits={"throttle_p": (0.005, 0.0345)}
+    )
     assert wide.sub_periods["passed"].all()
 
 
@@ -133,7 +144,9 @@ def test_tail_shorter_than_a_sub_period_is_dropped():
     r = evaluate_test(make_test_frame(hours=4.5), START, START + pd.Timedelta(hours=4, minutes=30))
     assert len(r.sub_periods) == 3
     assert any("30 minutes" in n or "0 days 00:30:00" in n for n in r.notes)
-    r = evaluate_test(make_test_frame(), START, START + pd.Timedelta(hours=4), stabilisation="30min", sub_period="45min")
+    r = evaluate_test(
+        make_test_frame(), START, START + pd.Timedelta(hours=4), stabilisation="30min", sub_period="45min"
+    )
     assert len(r.sub_periods) == 4
 
 
@@ -152,7 +165,10 @@ def test_no_valid_sub_period():
         (dict(start=START, end=START), "after its start"),
         (dict(start=START, end=START + pd.Timedelta(minutes=90)), "too short"),
         (dict(start=START, end=START + pd.Timedelta(hours=4), sub_period="soon"), "sub_period"),
-        (dict(start=START, end=START + pd.Timedelta(hours=4), steady_limits={"throttle_p": (0, 0)}), "not both 0"),
+        (
+            dict(start=START, end=START + pd.Timedelta(hours=4), steady_limits={"throttle_p": (0, 0)}),
+            "not both 0",
+        ),
     ],
 )
 def test_bad_arguments(kwargs, match):

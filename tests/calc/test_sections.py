@@ -64,8 +64,12 @@ def ia_lp_baumann(p_in, t_in, p_exh, eta, a):
     h_dry = h_in - eta * (h_in - hs(p_exh))
     if h_dry >= hg_e:
         return h_dry, 1.0, math.nan
-    lp_w = brentq(lambda u: h_in - eta * (h_in - hs(math.exp(u))) - hg(math.exp(u)),
-                  math.log(p_exh), math.log(p_in), xtol=1e-13)
+    lp_w = brentq(
+        lambda u: h_in - eta * (h_in - hs(math.exp(u))) - hg(math.exp(u)),
+        math.log(p_exh),
+        math.log(p_in),
+        xtol=1e-13,
+    )
     p_w = math.exp(lp_w)
     d_dry, d_wet = h_in - hs(p_w), hs(p_w) - hs(p_exh)
     y = (hg_e - h_dry) / (hg_e - hf_e)
@@ -199,7 +203,9 @@ def test_lp_expansion_against_independent_baumann_iteration(a):
         assert lp.h_elep[i] == pytest.approx(h_ref, abs=0.01)
         assert lp.x[i] == pytest.approx(x_ref, abs=1e-5)
         if a == 0.0:  # single step: h_in - eta (h_in - h_s), exactly
-            assert lp.h_elep[i] == pytest.approx(lp.h_in[i] - eta[i] * (lp.h_in[i] - lp.h_isentropic[i]), abs=1e-9)
+            assert lp.h_elep[i] == pytest.approx(
+                lp.h_in[i] - eta[i] * (lp.h_in[i] - lp.h_isentropic[i]), abs=1e-9
+            )
         if not math.isnan(pw_ref):
             assert lp.p_wet[i] == pytest.approx(pw_ref, rel=1e-5)
 
@@ -259,8 +265,12 @@ def test_vectorised_equals_scalar_and_series_keeps_index():
     lp_vec = S.lp_expansion(np.array([0.95, 0.8]), np.array([623.15, 600.0]), 0.005, 0.88)
     for i, (p, t) in enumerate([(0.95, 623.15), (0.8, 600.0)]):
         assert lp_vec.h_elep[i] == pytest.approx(S.lp_expansion(p, t, 0.005, 0.88).h_elep, abs=1e-9)
-    lp_ser = S.lp_expansion(pd.Series([0.95, 0.8], index=idx[:2]), pd.Series([623.15, 600.0], index=idx[:2]),
-                            0.005, pd.Series([0.88, 0.88], index=idx[:2]))
+    lp_ser = S.lp_expansion(
+        pd.Series([0.95, 0.8], index=idx[:2]),
+        pd.Series([623.15, 600.0], index=idx[:2]),
+        0.005,
+        pd.Series([0.88, 0.88], index=idx[:2]),
+    )
     assert isinstance(lp_ser.moisture, pd.Series) and lp_ser.moisture.index.equals(idx[:2])
     np.testing.assert_allclose(lp_ser.h_elep.to_numpy(), lp_vec.h_elep, rtol=1e-13)
     assert isinstance(S.lp_expansion(0.95, 623.15, 0.005, 0.88).reason, int)
@@ -319,9 +329,17 @@ def test_efficiency_falls_as_outlet_temperature_rises(case, dt):
 
 def _unit_frame(n=1, **over):
     values = {
-        "throttle_p": 16.55, "throttle_t": 538 + C, "cold_reheat_p": 3.9, "cold_reheat_t": 330 + C,
-        "hot_reheat_p": 3.55, "hot_reheat_t": 538 + C, "crossover_p": 0.95, "crossover_t": 350 + C,
-        "condenser_p": 0.005, "gross_output": 520.0, "main_steam_flow": 430.0,
+        "throttle_p": 16.55,
+        "throttle_t": 538 + C,
+        "cold_reheat_p": 3.9,
+        "cold_reheat_t": 330 + C,
+        "hot_reheat_p": 3.55,
+        "hot_reheat_t": 538 + C,
+        "crossover_p": 0.95,
+        "crossover_t": 350 + C,
+        "condenser_p": 0.005,
+        "gross_output": 520.0,
+        "main_steam_flow": 430.0,
     }
     values.update(over)
     idx = pd.date_range("2026-05-04 10:00", periods=n, freq="min", tz="UTC", name="time")
@@ -332,7 +350,10 @@ def _unit_frame(n=1, **over):
 @given(st.floats(0.2, 3.0), st.floats(1.2, 4.0))
 def test_uncertainty_grows_with_instrument_uncertainty(u_t, factor):
     f = _unit_frame()
-    base = {r: S.InstrumentUncertainty(absolute=u_t) for r in ("throttle_t", "cold_reheat_t", "hot_reheat_t", "crossover_t")}
+    base = {
+        r: S.InstrumentUncertainty(absolute=u_t)
+        for r in ("throttle_t", "cold_reheat_t", "hot_reheat_t", "crossover_t")
+    }
     more = {r: S.InstrumentUncertainty(absolute=u_t * factor) for r in base}
     r1 = S.evaluate(f, uncertainty=base)
     r2 = S.evaluate(f, uncertainty=more)
@@ -453,7 +474,10 @@ def test_energy_balance_recovers_a_consistent_end_point():
     h_hr, h_xo = IAPWS97(P=3.55, T=538 + C).h, IAPWS97(P=0.95, T=350 + C).h
     kw = dict(annulus_area=30.0, lp_exhaust_flow_fraction=0.65)
     ref = S.evaluate(_unit_frame(), lp_mode="expansion", **kw).to_frame().iloc[0]
-    gross = m * (ff["hp"] * (h_tp - h_cr) + ff["ip"] * (h_hr - h_xo) + ff["lp"] * (h_xo - ref.lp_ueep)) / 1000 - losses
+    gross = (
+        m * (ff["hp"] * (h_tp - h_cr) + ff["ip"] * (h_hr - h_xo) + ff["lp"] * (h_xo - ref.lp_ueep)) / 1000
+        - losses
+    )
     f = _unit_frame(gross_output=gross, main_steam_flow=m)
     r = S.evaluate(f, lp_mode="auto", flow_fractions=ff, losses_mw=losses, **kw)
     o = r.to_frame().iloc[0]
@@ -487,8 +511,13 @@ def test_energy_balance_needs_its_roles_and_parameters():
 def test_energy_balance_implausible_output_is_flagged():
     # a gross output far too high for the flow: the LP would have to beat isentropic
     f = _unit_frame(gross_output=2000.0)
-    r = S.evaluate(f, flow_fractions={"hp": 1.0, "ip": 0.9, "lp": 0.75}, losses_mw=5.0, annulus_area=30.0,
-                   lp_exhaust_flow_fraction=0.65)
+    r = S.evaluate(
+        f,
+        flow_fractions={"hp": 1.0, "ip": 0.9, "lp": 0.75},
+        losses_mw=5.0,
+        annulus_area=30.0,
+        lp_exhaust_flow_fraction=0.65,
+    )
     o = r.to_frame().iloc[0]
     assert math.isnan(o.lp_ueep) and math.isnan(o.lp_moisture)
     assert S.decode_reason(o.reason)["lp_ueep"] == S.ENERGY_BALANCE_IMPLAUSIBLE
@@ -577,12 +606,21 @@ def test_fast_section_uncertainty_matches_whole_chain_propagation():
     cases = np.vstack([cases, near])
     names = ("p_in", "t_in", "p_out", "t_out")
     inputs = {k: cases[:, i].copy() for i, k in enumerate(names)}
-    u = {"p_in": 0.0025 * inputs["p_in"], "t_in": np.full(len(cases), 1.0),
-         "p_out": 0.0025 * inputs["p_out"], "t_out": np.full(len(cases), 1.0)}
+    u = {
+        "p_in": 0.0025 * inputs["p_in"],
+        "t_in": np.full(len(cases), 1.0),
+        "p_out": 0.0025 * inputs["p_out"],
+        "t_out": np.full(len(cases), 1.0),
+    }
     base = S._section_core(*(inputs[k] for k in names))
     fast = S._section_uncertainty(*(inputs[k] for k in names), base, u, u)
-    slow = S.propagate_uncertainty(lambda d: {"e": S._section_core(*(d[k] for k in names))["efficiency"]},
-                                   inputs, u, ("e",), base={"e": base["efficiency"]})["e"]
+    slow = S.propagate_uncertainty(
+        lambda d: {"e": S._section_core(*(d[k] for k in names))["efficiency"]},
+        inputs,
+        u,
+        ("e",),
+        base={"e": base["efficiency"]},
+    )["e"]
     np.testing.assert_allclose(fast, slow, rtol=2e-3)
 
 
@@ -592,7 +630,9 @@ def test_one_pass_inlet_differences_equal_the_per_property_differences_bit_for_b
     # the _u figures are stored. Points 0.5 K above saturation (iapws, reference library)
     # make the minus state wet (one-sided), a NaN pressure gives NaN.
     p = np.array([12.0, 16.0, 3.0, 0.5, 8.0, np.nan, 25.0])
-    t = np.array([800.0, 820.0, IAPWS97(P=3.0, x=1).T + 0.5, IAPWS97(P=0.5, x=1).T + 0.5, 700.0, 700.0, 900.0])
+    t = np.array(
+        [800.0, 820.0, IAPWS97(P=3.0, x=1).T + 0.5, IAPWS97(P=0.5, x=1).T + 0.5, 700.0, 700.0, 900.0]
+    )
     mask = np.isfinite(p)
     h0, s0 = steam.h_pt(p, t), steam.s_pt(p, t)
     for which, step in (("t", np.full(p.size, 1.0)), ("p", 0.0025 * p)):
@@ -613,8 +653,12 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
     # and the uncertainty the same within 1e-12 relative (both are IF97 at one state),
     # wet end points (LP-dry-like outlets near saturation) included.
     rng = np.random.default_rng(5)
-    cases = np.vstack([_random_sections(rng, 8, (10.0, 18.0), (780.0, 830.0), (0.15, 0.3)),
-                       _random_sections(rng, 8, (0.3, 0.5), (570.0, 600.0), (0.1, 0.15))])
+    cases = np.vstack(
+        [
+            _random_sections(rng, 8, (10.0, 18.0), (780.0, 830.0), (0.15, 0.3)),
+            _random_sections(rng, 8, (0.3, 0.5), (570.0, 600.0), (0.1, 0.15)),
+        ]
+    )
     args = [cases[:, i].copy() for i in range(4)]
     old = S._section_core(*args)
     new = S._section_core(*args, end_state=True)
@@ -622,8 +666,12 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
         assert np.array_equal(v, new[k], equal_nan=True), k
     wet_end = np.isfinite(steam.x_ps(args[2], new["s_in"]))
     assert wet_end.any() and (~wet_end).any()
-    u = {"p_in": 0.0025 * args[0], "t_in": np.full(len(cases), 1.0),
-         "p_out": 0.0025 * args[2], "t_out": np.full(len(cases), 1.0)}
+    u = {
+        "p_in": 0.0025 * args[0],
+        "t_in": np.full(len(cases), 1.0),
+        "p_out": 0.0025 * args[2],
+        "t_out": np.full(len(cases), 1.0),
+    }
     a = S._section_uncertainty(*args, old, u, u)
     differenced = {k: v for k, v in new.items() if not k.startswith("slopes")}
     b = S._section_uncertainty(*args, differenced, u, u)
@@ -638,13 +686,21 @@ def test_analytic_sensitivities_are_the_limit_of_the_differences():
     # (truncation ~ step^2, round-off ~ 1e-16 / step), while steps equal to the uncertainty
     # differ by the curvature over one step (seen: up to 5e-6 relative).
     rng = np.random.default_rng(5)
-    cases = np.vstack([_random_sections(rng, 8, (10.0, 18.0), (780.0, 830.0), (0.15, 0.3)),
-                       _random_sections(rng, 8, (0.3, 0.5), (570.0, 600.0), (0.1, 0.15))])
+    cases = np.vstack(
+        [
+            _random_sections(rng, 8, (10.0, 18.0), (780.0, 830.0), (0.15, 0.3)),
+            _random_sections(rng, 8, (0.3, 0.5), (570.0, 600.0), (0.1, 0.15)),
+        ]
+    )
     args = [cases[:, i].copy() for i in range(4)]
     new = S._section_core(*args, end_state=True)
     differenced = {k: v for k, v in new.items() if not k.startswith("slopes")}
-    u = {"p_in": 0.0025 * args[0], "t_in": np.full(len(cases), 1.0),
-         "p_out": 0.0025 * args[2], "t_out": np.full(len(cases), 1.0)}
+    u = {
+        "p_in": 0.0025 * args[0],
+        "t_in": np.full(len(cases), 1.0),
+        "p_out": 0.0025 * args[2],
+        "t_out": np.full(len(cases), 1.0),
+    }
     small = {k: v * 1e-3 for k, v in u.items()}
     analytic = S._section_uncertainty(*args, new, u, u)
     fine = S._section_uncertainty(*args, differenced, u, small)
@@ -653,8 +709,11 @@ def test_analytic_sensitivities_are_the_limit_of_the_differences():
     np.testing.assert_allclose(analytic, fine, rtol=1e-7)
     assert np.max(np.abs(coarse / analytic - 1)) < 2e-5
     # rows without analytic slopes (as region 3 states have) are differenced, the others not
-    mixed = {**new, "slopes_in": {k: v.copy() for k, v in new["slopes_in"].items()},
-             "slopes_out": {k: v.copy() for k, v in new["slopes_out"].items()}}
+    mixed = {
+        **new,
+        "slopes_in": {k: v.copy() for k, v in new["slopes_in"].items()},
+        "slopes_out": {k: v.copy() for k, v in new["slopes_out"].items()},
+    }
     holes = np.arange(len(cases)) % 3 == 0
     for k in ("dh_dt", "ds_dt", "dh_dp", "ds_dp"):
         mixed["slopes_in"][k][holes] = np.nan
@@ -734,17 +793,26 @@ def test_every_nan_figure_has_a_reason_and_no_row_is_lost():
         m = rng.random(n) < 0.05
         f.loc[m, col] = rng.choice([np.nan, 0.0, -1.0, np.inf, 1e6], m.sum())
     kw = dict(annulus_area=30.0, lp_exhaust_flow_fraction=0.65, uncertainty=False)
-    for extra in (dict(lp_mode="expansion"), dict(flow_fractions={"hp": 1.0, "ip": 0.9, "lp": 0.75}, losses_mw=5.0)):
+    for extra in (
+        dict(lp_mode="expansion"),
+        dict(flow_fractions={"hp": 1.0, "ip": 0.9, "lp": 0.75}, losses_mw=5.0),
+    ):
         out = S.evaluate(f, **kw, **extra).to_frame()
         assert out.index.equals(f.index)
-        for group, col in (("hp", "hp_efficiency"), ("ip", "ip_efficiency"), ("lp_dry", "lp_dry_efficiency"),
-                           ("lp", "lp_elep"), ("lp_ueep", "lp_ueep")):
+        for group, col in (
+            ("hp", "hp_efficiency"),
+            ("ip", "ip_efficiency"),
+            ("lp_dry", "lp_dry_efficiency"),
+            ("lp", "lp_elep"),
+            ("lp_ueep", "lp_ueep"),
+        ):
             codes = out.reason.map(lambda v, g=group: S.decode_reason(v)[g])
             assert ((codes != S.OK) == out[col].isna()).all(), (group, extra)
 
 
-@pytest.mark.parametrize("case", [(16.55, 538 + C, 3.9, 330 + C), (3.55, 538 + C, 0.95, 350 + C),
-                                  (3.0, 400 + C, 0.05, 100 + C)])
+@pytest.mark.parametrize(
+    "case", [(16.55, 538 + C, 3.9, 330 + C), (3.55, 538 + C, 0.95, 350 + C), (3.0, 400 + C, 0.05, 100 + C)]
+)
 def test_section_efficiency_against_coolprop_if97(case):
     # Second independent IF97 implementation: CoolProp, backend IF97::Water (SI units). Its
     # h(p, s) differs from ours by up to 0.006 kJ/kg here (measured; (p, s) inputs go through
@@ -778,4 +846,6 @@ def test_a_long_frame_is_evaluated_in_row_blocks_with_the_figures_of_one_piece(m
         if c == "lp_mode":
             continue
         rtol = 1e-9 if c.endswith("_u") else 1e-12
-        np.testing.assert_allclose(b[c].to_numpy(dtype=float), a[c].to_numpy(dtype=float), rtol=rtol, err_msg=c)
+        np.testing.assert_allclose(
+            b[c].to_numpy(dtype=float), a[c].to_numpy(dtype=float), rtol=rtol, err_msg=c
+        )

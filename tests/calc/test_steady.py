@@ -128,7 +128,10 @@ def test_gap_longer_than_max_gap_splits_windows():
     f = _history(np.full(240, 450.0)).drop(_index(240)[100:110])  # 10 min with no data
     res = tag_steady(f, rating_mw=RATING)  # default max_gap 5 min
     w = res.windows
-    gap_start, gap_end = pd.Timestamp("2031-06-01 01:39", tz="UTC"), pd.Timestamp("2031-06-01 01:50", tz="UTC")
+    gap_start, gap_end = (
+        pd.Timestamp("2031-06-01 01:39", tz="UTC"),
+        pd.Timestamp("2031-06-01 01:50", tz="UTC"),
+    )
     assert not ((w["start"] <= gap_start) & (w["end"] >= gap_end)).any()
     # a larger tolerated gap bridges it
     res = tag_steady(f, rating_mw=RATING, max_gap="15m")
@@ -194,7 +197,10 @@ def test_r_statistic_matches_its_recursion():
     x = np.random.default_rng(11).normal(0, 1, 500) + np.linspace(0, 5, 500)
     np.testing.assert_allclose(r_statistic(x), _r_loop(x), rtol=1e-10, equal_nan=True)
     np.testing.assert_allclose(
-        r_statistic(x, 0.3, 0.05, 0.15, warmup=10), _r_loop(x, 0.3, 0.05, 0.15, warmup=10), rtol=1e-10, equal_nan=True
+        r_statistic(x, 0.3, 0.05, 0.15, warmup=10),
+        _r_loop(x, 0.3, 0.05, 0.15, warmup=10),
+        rtol=1e-10,
+        equal_nan=True,
     )
 
 
@@ -260,7 +266,7 @@ def test_empty_result_has_the_columns():
     method=st.sampled_from(["ptc6", "r_statistic"]),
 )
 def test_window_invariants(levels, lengths, holes, method):
-    load = np.concatenate([np.full(k, lv) for lv, k in zip(levels, lengths)])
+    load = np.concatenate([np.full(k, lv) for lv, k in zip(levels, lengths, strict=True)])
     f = _history(load, seed=len(load))
     ok = pd.Series(True, index=f.index)
     ok.iloc[[h for h in holes if h < len(f)]] = False

@@ -144,6 +144,7 @@ def test_polished_inverse_at_table5_points(t, p):
 # ------------------------------------------------------------------------------------------
 # Against the iapws package on a dense grid of turbine duty.
 
+
 def _grid_pt():
     p = np.geomspace(0.001, 35.0, 36)
     t = np.linspace(273.16, 1073.15, 50)
@@ -161,7 +162,7 @@ def _grid_pt():
 def _iapws_pt(p, t):
     h = np.empty(p.size)
     s = np.empty(p.size)
-    for k, (a, b) in enumerate(zip(p, t)):
+    for k, (a, b) in enumerate(zip(p, t, strict=True)):
         w = IAPWS97(P=float(a), T=float(b))
         h[k], s[k] = w.h, w.s
     return h, s
@@ -190,7 +191,7 @@ def test_h_s_against_iapws_dense_grid():
 def test_region_against_iapws_dense_grid():
     p, t = _grid_pt()
     reg = steam.region(p, t)
-    ref = np.array([IAPWS97(P=float(a), T=float(b)).region for a, b in zip(p[::7], t[::7])])
+    ref = np.array([IAPWS97(P=float(a), T=float(b)).region for a, b in zip(p[::7], t[::7], strict=True)])
     assert np.array_equal(reg[::7], ref)
 
 
@@ -206,7 +207,7 @@ def test_h_ps_against_iapws_dense_grid():
     p, s = _grid_ps()
     h, d = steam.h_ps(p, s, return_details=True)
     ref = np.full(p.size, np.nan)
-    for k, (a, b) in enumerate(zip(p, s)):
+    for k, (a, b) in enumerate(zip(p, s, strict=True)):
         if d.region[k] in (3, 5):
             continue  # sent to iapws: nothing independent to compare
         try:
@@ -248,6 +249,7 @@ def test_t_ph_and_x_ph_against_iapws():
 # ------------------------------------------------------------------------------------------
 # Worked cross-checks (shared/REFERENCES.md, IF97 figures computed with iapws).
 
+
 def test_turbine_end_points_references_md():
     # Large reheat unit, HP section: 16.55 MPa / 538 degC -> 3.9 MPa: h_s 2988.58 kJ/kg.
     s_in = steam.s_pt(16.55, 538.0 + 273.15)
@@ -273,9 +275,17 @@ def test_wet_end_point_matches_iapws_exactly():
 
 def test_saturation_properties_against_iapws():
     p = np.array([0.001, 0.005, 0.1, 1.0, 5.0, 10.0, 16.0, 18.0, 21.0])
-    out = {f: getattr(steam, f)(p) for f in (
-        "h_sat_liquid", "h_sat_vapour", "s_sat_liquid", "s_sat_vapour",
-        "v_sat_liquid", "v_sat_vapour")}
+    out = {
+        f: getattr(steam, f)(p)
+        for f in (
+            "h_sat_liquid",
+            "h_sat_vapour",
+            "s_sat_liquid",
+            "s_sat_vapour",
+            "v_sat_liquid",
+            "v_sat_vapour",
+        )
+    }
     for k, pk in enumerate(p):
         liq, vap = IAPWS97(P=float(pk), x=0.0), IAPWS97(P=float(pk), x=1.0)
         assert out["h_sat_liquid"][k] == pytest.approx(liq.h, rel=1e-9)
@@ -344,6 +354,7 @@ def test_h_rises_with_t(p, t1, t2):
 # ------------------------------------------------------------------------------------------
 # Input types, errors, reason codes.
 
+
 def test_scalar_in_float_out():
     h = steam.h_pt(3.0, 300.0)
     assert type(h) is float
@@ -381,19 +392,22 @@ def test_series_with_different_index_is_an_error():
         steam.h_pt(a, b)
 
 
-@pytest.mark.parametrize("fn, args, code", [
-    (steam.h_pt, (120.0, 500.0), steam.OUT_OF_RANGE_P),
-    (steam.h_pt, (1.0, 200.0), steam.OUT_OF_RANGE_T),
-    (steam.h_pt, (60.0, 1500.0), steam.OUT_OF_RANGE_P),
-    (steam.h_pt, (-1.0, 500.0), steam.OUT_OF_RANGE_P),
-    (steam.s_pt, (float("nan"), 500.0), steam.NOT_FINITE),
-    (steam.t_sat, (30.0,), steam.OUT_OF_RANGE_P),
-    (steam.p_sat, (700.0,), steam.OUT_OF_RANGE_T),
-    (steam.h_ps, (1.0, -3.0), steam.OUT_OF_RANGE_S),
-    (steam.h_ps, (0.0001, 7.0), steam.OUT_OF_RANGE_P),
-    (steam.t_ph, (1.0, -500.0), steam.OUT_OF_RANGE_H),
-    (steam.h_sat_liquid, (23.0,), steam.OUT_OF_RANGE_P),
-])
+@pytest.mark.parametrize(
+    "fn, args, code",
+    [
+        (steam.h_pt, (120.0, 500.0), steam.OUT_OF_RANGE_P),
+        (steam.h_pt, (1.0, 200.0), steam.OUT_OF_RANGE_T),
+        (steam.h_pt, (60.0, 1500.0), steam.OUT_OF_RANGE_P),
+        (steam.h_pt, (-1.0, 500.0), steam.OUT_OF_RANGE_P),
+        (steam.s_pt, (float("nan"), 500.0), steam.NOT_FINITE),
+        (steam.t_sat, (30.0,), steam.OUT_OF_RANGE_P),
+        (steam.p_sat, (700.0,), steam.OUT_OF_RANGE_T),
+        (steam.h_ps, (1.0, -3.0), steam.OUT_OF_RANGE_S),
+        (steam.h_ps, (0.0001, 7.0), steam.OUT_OF_RANGE_P),
+        (steam.t_ph, (1.0, -500.0), steam.OUT_OF_RANGE_H),
+        (steam.h_sat_liquid, (23.0,), steam.OUT_OF_RANGE_P),
+    ],
+)
 def test_out_of_range_scalar_raises_array_flags(fn, args, code):
     with pytest.raises(ValueError, match="valid"):
         fn(*args)
@@ -426,9 +440,17 @@ def test_non_numeric_input_is_a_clear_error():
 
 
 def test_every_reason_has_a_text():
-    for code in (steam.OK, steam.OUT_OF_RANGE_P, steam.OUT_OF_RANGE_T, steam.OUT_OF_RANGE_H,
-                 steam.OUT_OF_RANGE_S, steam.NOT_FINITE, steam.NO_CONVERGENCE,
-                 steam.FALLBACK_FAILED, steam.SINGLE_PHASE):
+    for code in (
+        steam.OK,
+        steam.OUT_OF_RANGE_P,
+        steam.OUT_OF_RANGE_T,
+        steam.OUT_OF_RANGE_H,
+        steam.OUT_OF_RANGE_S,
+        steam.NOT_FINITE,
+        steam.NO_CONVERGENCE,
+        steam.FALLBACK_FAILED,
+        steam.SINGLE_PHASE,
+    ):
         assert steam.REASON_TEXT[code]
 
 
@@ -470,8 +492,9 @@ def test_wet_states_above_16_5_mpa_fall_back_to_iapws():
 def test_newton_that_cannot_converge_is_flagged_not_returned():
     # An entropy no region-1 temperature between the bounds reaches: not converged, no value.
     p = np.array([1.0])
-    t, conv, props = steam._newton(1, "s", p, np.array([5.0]), np.array([300.0]),
-                                   np.array([250.0]), np.array([400.0]), ("h",))
+    t, conv, props = steam._newton(
+        1, "s", p, np.array([5.0]), np.array([300.0]), np.array([250.0]), np.array([400.0]), ("h",)
+    )
     assert not conv[0]
     assert np.isnan(props["h"][0])
 
@@ -493,8 +516,7 @@ def test_benchmark_script_runs_and_reports_every_function(capsys):
     # A smoke run on tiny arrays: the script works and prints its table (no timing asserted).
     from isentrope.calc import bench
 
-    assert bench.main(["--n", "3000", "--sample", "10", "--repeat", "1",
-                       "--no-coolprop"]) == 0
+    assert bench.main(["--n", "3000", "--sample", "10", "--repeat", "1", "--no-coolprop"]) == 0
     out = capsys.readouterr().out
     for name in ("h_pt", "s_pt", "h_ps"):
         assert any(line.startswith(name) for line in out.splitlines())
@@ -562,17 +584,32 @@ def test_saturation_states_in_one_pass_equal_the_public_functions_bit_for_bit():
     # public saturation functions give, across blocks, near the critical point (their iapws
     # fallback) and NaN outside 611.213 Pa .. 22.064 MPa; and agree with iapws (reference).
     rng = np.random.default_rng(4)
-    p = np.concatenate([rng.uniform(0.002, 0.02, 20000), rng.uniform(0.001, 22.0, 2000),
-                        [16.6, 21.9, 22.064, 23.0, 0.0005, -1.0, np.nan]])
+    p = np.concatenate(
+        [
+            rng.uniform(0.002, 0.02, 20000),
+            rng.uniform(0.001, 22.0, 2000),
+            [16.6, 21.9, 22.064, 23.0, 0.0005, -1.0, np.nan],
+        ]
+    )
     d = steam._saturation_states(p)
-    for key, fn in (("hf", steam.h_sat_liquid), ("hg", steam.h_sat_vapour), ("sf", steam.s_sat_liquid),
-                    ("sg", steam.s_sat_vapour), ("vf", steam.v_sat_liquid), ("vg", steam.v_sat_vapour)):
+    for key, fn in (
+        ("hf", steam.h_sat_liquid),
+        ("hg", steam.h_sat_vapour),
+        ("sf", steam.s_sat_liquid),
+        ("sg", steam.s_sat_vapour),
+        ("vf", steam.v_sat_liquid),
+        ("vg", steam.v_sat_vapour),
+    ):
         assert np.array_equal(d[key], fn(p), equal_nan=True), key
     assert np.isnan(d["hf"][-4:]).all()
     liquid, vapour = IAPWS97(P=0.005, x=0.0), IAPWS97(P=0.005, x=1.0)
     d5 = steam._saturation_states(np.array([0.005]))
-    assert d5["hf"][0] == pytest.approx(liquid.h, rel=1e-9) and d5["hg"][0] == pytest.approx(vapour.h, rel=1e-9)
-    assert d5["sf"][0] == pytest.approx(liquid.s, rel=1e-9) and d5["vg"][0] == pytest.approx(vapour.v, rel=1e-9)
+    assert d5["hf"][0] == pytest.approx(liquid.h, rel=1e-9) and d5["hg"][0] == pytest.approx(
+        vapour.h, rel=1e-9
+    )
+    assert d5["sf"][0] == pytest.approx(liquid.s, rel=1e-9) and d5["vg"][0] == pytest.approx(
+        vapour.v, rel=1e-9
+    )
 
 
 def test_end_state_from_one_solve_matches_h_ps_t_ps_and_v_ph():

@@ -41,18 +41,19 @@ def test_rate_matches_scipy_theilslopes():
     r = degradation_rate(h, d)
     ref = stats.theilslopes(d, h / 1000.0, alpha=0.95)  # reference library
     assert (r.slope_per_1000h, r.low, r.high, r.intercept) == pytest.approx(
-        (ref.slope, ref.low_slope, ref.high_slope, ref.intercept), rel=1e-12)
+        (ref.slope, ref.low_slope, ref.high_slope, ref.intercept), rel=1e-12
+    )
     # the blocked estimator with one block (break before every point) is the same estimator
     rb = degradation_rate(h, d, breaks=[-1.0])
     assert (rb.slope_per_1000h, rb.low, rb.high, rb.intercept) == pytest.approx(
-        (ref.slope, ref.low_slope, ref.high_slope, ref.intercept), rel=1e-12)
+        (ref.slope, ref.low_slope, ref.high_slope, ref.intercept), rel=1e-12
+    )
 
 
 def test_rate_interval_coverage_over_seeds():
     # Sen's 95 % interval should cover the true slope about 95 % of the time (iid noise).
     hits = sum(
-        (lambda r: r.low <= -0.4 <= r.high)(degradation_rate(*series(n=80, seed=500 + s)))
-        for s in range(200)
+        (lambda r: r.low <= -0.4 <= r.high)(degradation_rate(*series(n=80, seed=500 + s))) for s in range(200)
     )
     assert 0.90 <= hits / 200 <= 0.99
 
@@ -157,6 +158,7 @@ def test_false_alarm_rate_on_pure_noise():
     h = 5: 68 % of series, consistent with the published in-control ARL of about 465 points
     (1 - exp(-495/465) = 0.66).
     """
+
     def rate(hh):
         hit = 0
         for s in range(200):

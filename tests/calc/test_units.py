@@ -101,8 +101,12 @@ def test_ambiguous_pressure_unit_is_refused():
     with pytest.raises(ValueError, match="absolute or gauge"):
         units.canonical_unit("bar")
     # the message says what to write instead, and that spelling is accepted
-    for said, instead in (("psi", "psia or psig"), ("bar", "bar(a) or bar(g)"), ("mbar", "mbar(a) or mbar(g)"),
-                          ("inHg", "inHgA")):
+    for said, instead in (
+        ("psi", "psia or psig"),
+        ("bar", "bar(a) or bar(g)"),
+        ("mbar", "mbar(a) or mbar(g)"),
+        ("inHg", "inHgA"),
+    ):
         with pytest.raises(ValueError, match=re.escape(f"write {instead}")):
             units.canonical_unit(said)
         units.canonical_unit(instead.split(" ")[0])
@@ -156,7 +160,7 @@ def test_to_internal_table_driven():
     out = to_internal(raw, unit_of, barometric_kpa=100.0)
     pd.testing.assert_frame_equal(raw, before)  # input untouched
     assert list(out.columns) == list(raw.columns) and out.index.equals(idx)
-    assert (out.dtypes == float).all()
+    assert all(dtype == np.float64 for dtype in out.dtypes)
     # psi factor NIST SP 811 B.8 (6.894 757 E+03 Pa) plus the configured 100 kPa
     assert out["throttle_p"].iloc[0] == pytest.approx(2400 * 6.894757e-3 + 0.1, rel=1e-7)
     assert np.isnan(out["throttle_p"].iloc[2])  # not a number -> NaN, row kept
@@ -170,12 +174,12 @@ def test_to_internal_table_driven():
 
 def test_to_internal_gauge_uses_barometric_column_then_constant():
     idx = _index(3)
-    raw = pd.DataFrame(
-        {"throttle_p": [100.0, 100.0, 100.0], "barometric_p": [29.0, np.nan, 30.0]}, index=idx
-    )
+    raw = pd.DataFrame({"throttle_p": [100.0, 100.0, 100.0], "barometric_p": [29.0, np.nan, 30.0]}, index=idx)
     out = to_internal(raw, {"throttle_p": "bar(g)", "barometric_p": "inHgA"}, barometric_kpa=98.0)
     inhg = 3.38638e-3  # MPa per inHg (32 degF), NIST SP 811 B.8
-    assert out["throttle_p"].tolist() == pytest.approx([10.0 + 29 * inhg, 10.098, 10.0 + 30 * inhg], rel=1e-12)
+    assert out["throttle_p"].tolist() == pytest.approx(
+        [10.0 + 29 * inhg, 10.098, 10.0 + 30 * inhg], rel=1e-12
+    )
     # the barometric column itself is converted like any absolute pressure; the hole stays NaN
     assert out["barometric_p"].iloc[0] == pytest.approx(29 * inhg, rel=1e-12)
     assert np.isnan(out["barometric_p"].iloc[1])

@@ -35,8 +35,10 @@ def _history(steps: list[tuple[pd.Timestamp, float]], noise: float = 0.05, seed:
     dev = np.random.default_rng(seed).normal(0.0, noise, len(times))
     for t, size in steps:
         dev[times >= t] += size
-    frame = pd.DataFrame({"deviation": dev, "deviation_u": 0.33, "extrapolated": False},
-                         index=pd.DatetimeIndex(times, name="time"))
+    frame = pd.DataFrame(
+        {"deviation": dev, "deviation_u": 0.33, "extrapolated": False},
+        index=pd.DatetimeIndex(times, name="time"),
+    )
     samples = pd.date_range(START, START + pd.Timedelta(days=DAYS), freq="1h", inclusive="left", tz="UTC")
     online = pd.Series(True, index=samples)
     output = pd.Series(450.0, index=samples)
@@ -61,7 +63,9 @@ def test_step_alarm_carries_the_signed_size_and_stays_raised_until_a_step_takes_
     assert cleared["value"] == pytest.approx(steps[0].size + steps[1].size, rel=1e-12)
     assert cleared["threshold"] == -0.5 * config.alarms.min_step_points
     # the series written: signed value and real threshold reach the store as they are
-    written = [f for m, f, t in result.writes({"unit": "U"}) if m == "alarm_events" and t["rule"] == "step_change"]
+    written = [
+        f for m, f, t in result.writes({"unit": "U"}) if m == "alarm_events" and t["rule"] == "step_change"
+    ]
     assert len(written) == 1
     assert list(written[0]["value"]) == [raised["value"], cleared["value"]]
     assert list(written[0]["threshold"]) == [-0.25, -0.125]
@@ -87,12 +91,15 @@ def test_a_step_at_a_trip_is_placed_at_the_first_window_after_the_restart(config
     dev = np.random.default_rng(0).normal(0.0, 0.05, len(times))
     dev[np.flatnonzero(times < trip)[-3:]] = -0.04
     dev[times >= first] -= 1.0
-    frame = pd.DataFrame({"deviation": dev, "deviation_u": 0.33, "extrapolated": False},
-                         index=pd.DatetimeIndex(times, name="time"))
+    frame = pd.DataFrame(
+        {"deviation": dev, "deviation_u": 0.33, "extrapolated": False},
+        index=pd.DatetimeIndex(times, name="time"),
+    )
     samples = pd.date_range(START, START + pd.Timedelta(days=60), freq="1h", inclusive="left", tz="UTC")
     online = pd.Series(~((samples >= trip) & (samples < first - pd.Timedelta(hours=14))), index=samples)
-    result = analyse({"ip": frame}, online, pd.Series(450.0, index=samples), config,
-                     START + pd.Timedelta(days=60))
+    result = analyse(
+        {"ip": frame}, online, pd.Series(450.0, index=samples), config, START + pd.Timedelta(days=60)
+    )
     steps = result.sections["ip"].steps
     assert [pd.Timestamp(s.time) for s in steps] == [first]
     assert steps[0].size == pytest.approx(-1.0, abs=0.05)
@@ -110,7 +117,9 @@ def test_the_current_deviation_carries_both_uncertainties(config):
     last = last[last.index >= end - pd.Timedelta(days=7)].to_numpy()
     med = np.median(last)
     assert o.current == pytest.approx(med, rel=1e-12)
-    assert o.current_u == pytest.approx(1.4826 * np.median(np.abs(last - med)) / np.sqrt(last.size), rel=1e-12)
+    assert o.current_u == pytest.approx(
+        1.4826 * np.median(np.abs(last - med)) / np.sqrt(last.size), rel=1e-12
+    )
     assert o.current_u < 0.01  # 42 windows of 0.05 pt noise: the level is known to < 0.01 pt
     assert o.current_window_u == pytest.approx(0.33, rel=1e-12)
     assert o.monthly["deviation_now_window_u"].iloc[-1] == pytest.approx(0.33, rel=1e-12)

@@ -17,7 +17,9 @@ END = START + pd.Timedelta(days=3)
 
 
 def _config(folder, base_start, base_end):
-    text = synthetic.config_toml(store_path="unit.sqlite") + f"""
+    text = (
+        synthetic.config_toml(store_path="unit.sqlite")
+        + f"""
 [baseline]
 start = "{base_start:%Y-%m-%dT%H:%M:%SZ}"
 end = "{base_end:%Y-%m-%dT%H:%M:%SZ}"
@@ -27,14 +29,26 @@ max_length = "20m"
 min_length = "10m"
 window = "20m"
 """
+    )
     path = folder / "unit.toml"
     path.write_text(text, encoding="utf-8")
     return path
 
 
 def _backfill(path, *extra):
-    return cli.main(["backfill", "-c", str(path), "--start", START.strftime("%Y-%m-%dT%H:%MZ"),
-                     "--end", END.strftime("%Y-%m-%dT%H:%MZ"), "--no-progress", *extra])
+    return cli.main(
+        [
+            "backfill",
+            "-c",
+            str(path),
+            "--start",
+            START.strftime("%Y-%m-%dT%H:%MZ"),
+            "--end",
+            END.strftime("%Y-%m-%dT%H:%MZ"),
+            "--no-progress",
+            *extra,
+        ]
+    )
 
 
 def _saved_reference(path):
@@ -88,7 +102,9 @@ def _models(folder):
 
     con = sqlite3.connect(folder / "unit.sqlite")
     try:
-        rows = con.execute("SELECT model, MIN(time) FROM deviation WHERE section = 'hp' GROUP BY model").fetchall()
+        rows = con.execute(
+            "SELECT model, MIN(time) FROM deviation WHERE section = 'hp' GROUP BY model"
+        ).fetchall()
     finally:
         con.close()
     return {m: pd.Timestamp(t, unit="ms", tz="UTC") for m, t in rows}
@@ -109,7 +125,9 @@ def test_no_reference_windows_is_said_not_silent(tmp_path, caplog):
     assert len(said) == 1 and "--refit" in said[0]
     assert not len(_saved_reference(path)[1])
     # it names the reference period to process first
-    assert (START - pd.Timedelta(days=2)).isoformat() in said[0] and (START - pd.Timedelta(days=1)).isoformat() in said[0]
+    assert (START - pd.Timedelta(days=2)).isoformat() in said[0] and (
+        START - pd.Timedelta(days=1)
+    ).isoformat() in said[0]
 
 
 def test_a_backfill_over_a_period_without_samples_says_so(tmp_path, caplog):

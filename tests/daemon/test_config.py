@@ -32,17 +32,26 @@ REPO = Path(__file__).resolve().parents[2]
 EXAMPLE = REPO / "deploy" / "example.toml"
 
 ROLE_UNITS = {
-    "throttle_p": "MPa(a)", "throttle_t": "degC", "cold_reheat_p": "MPa(a)", "cold_reheat_t": "degC",
-    "hot_reheat_p": "MPa(a)", "hot_reheat_t": "degC", "crossover_p": "kPa(a)", "crossover_t": "degC",
-    "condenser_p": "kPa(a)", "gross_output": "MW",
+    "throttle_p": "MPa(a)",
+    "throttle_t": "degC",
+    "cold_reheat_p": "MPa(a)",
+    "cold_reheat_t": "degC",
+    "hot_reheat_p": "MPa(a)",
+    "hot_reheat_t": "degC",
+    "crossover_p": "kPa(a)",
+    "crossover_t": "degC",
+    "condenser_p": "kPa(a)",
+    "gross_output": "MW",
 }
 
 
 def minimal(extra: str = "", store: str | None = None, roles: dict | None = None) -> str:
     """A small valid file (SQLite store, the required roles) with ``extra`` appended."""
     roles = ROLE_UNITS if roles is None else roles
-    parts = ['[unit]\nname = "Test unit"\nrating_mw = 500.0\n',
-             store if store is not None else '[store]\nkind = "sqlite"\npath = "t.sqlite"\n']
+    parts = [
+        '[unit]\nname = "Test unit"\nrating_mw = 500.0\n',
+        store if store is not None else '[store]\nkind = "sqlite"\npath = "t.sqlite"\n',
+    ]
     for role, unit in roles.items():
         parts.append(f'[roles.{role}]\ntag = "T-{role}"\nunit = "{unit}"\n')
     parts.append(textwrap.dedent(extra))
@@ -90,13 +99,22 @@ def _documented_keys(text: str) -> set[str]:
 def test_example_documents_every_option():
     text = EXAMPLE.read_text()
     keys = _documented_keys(text)
-    tables = [cfgmod.UnitConfig, cfgmod.ScreeningConfig, cfgmod.SteadyConfig, cfgmod.SectionsConfig,
-              cfgmod.BaselineConfig, cfgmod.AlarmsConfig, cfgmod.EconomicsConfig, cfgmod.ScheduleConfig,
-              cfgmod.SensitivityConfig, cfgmod.OverhaulCase]
+    tables = [
+        cfgmod.UnitConfig,
+        cfgmod.ScreeningConfig,
+        cfgmod.SteadyConfig,
+        cfgmod.SectionsConfig,
+        cfgmod.BaselineConfig,
+        cfgmod.AlarmsConfig,
+        cfgmod.EconomicsConfig,
+        cfgmod.ScheduleConfig,
+        cfgmod.SensitivityConfig,
+        cfgmod.OverhaulCase,
+    ]
     wanted = {f.name for t in tables for f in dataclasses.fields(t)} - {"sensitivity", "overhaul"}
     wanted |= set().union(*cfgmod._STORE_KEYS.values())
     wanted |= set(cfgmod._ROLE_KEYS)
-    role_keys_doc = text[text.index("Keys of each [roles.<role>] table"):]
+    role_keys_doc = text[text.index("Keys of each [roles.<role>] table") :]
     for k in cfgmod._ROLE_KEYS:  # documented in the comment block, as "#   key  ..."
         assert re.search(rf"^#\s+{k}\s", role_keys_doc, flags=re.MULTILINE), k
     missing = sorted(wanted - set(cfgmod._ROLE_KEYS) - keys)
@@ -115,7 +133,15 @@ def test_example_defaults_match_the_code():
             table = m.group(1)
             continue
         m = re.match(r"^([a-z_0-9]+)\s*=.*#\s*default:\s*(.+?)(?:;.*)?$", line)
-        if not m or table not in ("screening", "steady", "sections", "baseline", "alarms", "economics", "schedule"):
+        if not m or table not in (
+            "screening",
+            "steady",
+            "sections",
+            "baseline",
+            "alarms",
+            "economics",
+            "schedule",
+        ):
             continue
         key, literal = m.group(1), m.group(2).strip()
         try:
@@ -135,10 +161,20 @@ def test_example_defaults_match_the_code():
 
 
 # --- durations ----------------------------------------------------------------------------
-@pytest.mark.parametrize("text, seconds", [
-    ("30s", 30), ("15m", 900), ("2h", 7200), ("1d", 86400), ("1w", 604800), ("1h30m", 5400),
-    ("0.5h", 1800), ("250ms", 0.25), (" 5 m ", 300),
-])
+@pytest.mark.parametrize(
+    "text, seconds",
+    [
+        ("30s", 30),
+        ("15m", 900),
+        ("2h", 7200),
+        ("1d", 86400),
+        ("1w", 604800),
+        ("1h30m", 5400),
+        ("0.5h", 1800),
+        ("250ms", 0.25),
+        (" 5 m ", 300),
+    ],
+)
 def test_parse_duration(text, seconds):
     assert parse_duration(text).total_seconds() == pytest.approx(seconds)
 
@@ -159,7 +195,9 @@ def test_duration_round_trip(seconds):
 # --- every problem at once, with file, key and line ------------------------------------------
 def test_unknown_key_suggests_and_names_the_line():
     text = minimal('[steady]\nwindw = "30m"\n')
-    assert problems(text) == [f"unit.toml:{line_of(text, 'windw')}: steady.windw: unknown key; did you mean 'window'?"]
+    assert problems(text) == [
+        f"unit.toml:{line_of(text, 'windw')}: steady.windw: unknown key; did you mean 'window'?"
+    ]
 
 
 def test_all_problems_reported_together():
@@ -179,7 +217,7 @@ def test_all_problems_reported_together():
     got = problems(text)
     assert got == [
         f"unit.toml:{line_of(text, 'method')}: steady.method: expected one of 'ptc6', 'r_statistic', found 'ptc7'; did you mean 'ptc6'?",
-        f"unit.toml:{line_of(text, 'min_length')}: steady.min_length: expected a duration such as \"30s\", \"15m\", \"2h\", \"1d\" or \"1h30m\", found '2x'",
+        f'unit.toml:{line_of(text, "min_length")}: steady.min_length: expected a duration such as "30s", "15m", "2h", "1d" or "1h30m", found \'2x\'',
         f"unit.toml:{line_of(text, 'persistance')}: alarms.persistance: unknown key; did you mean 'persistence'?",
         f"unit.toml:{line_of(text, 'deviation_alarm')}: alarms.deviation_alarm: must be at or below deviation_warning (-2), found -1",
         f"unit.toml:{line_of(text, 'retries')}: schedule.retries: expected an integer, found a string ('four')",
@@ -190,14 +228,18 @@ def test_unknown_table_and_role():
     text = minimal('[roles.throtle_t]\ntag = "X"\nunit = "degC"\n\n[schedul]\ninterval = "5m"\n')
     got = problems(text)
     assert f"unit.toml:{line_of(text, '[schedul]')}: schedul: unknown key; did you mean 'schedule'?" in got
-    assert f"unit.toml:{line_of(text, '[roles.throtle_t]')}: roles.throtle_t: unknown role; did you mean 'throttle_t'?" in got
+    assert (
+        f"unit.toml:{line_of(text, '[roles.throtle_t]')}: roles.throtle_t: unknown role; did you mean 'throttle_t'?"
+        in got
+    )
 
 
 def test_missing_required_roles_and_tables():
     roles = {k: v for k, v in ROLE_UNITS.items() if k not in ("condenser_p", "gross_output")}
     text = minimal(roles=roles)
     assert problems(text) == [
-        f"unit.toml:{line_of(text, '[roles.')}: roles: required roles not mapped: condenser_p, gross_output"]
+        f"unit.toml:{line_of(text, '[roles.')}: roles: required roles not mapped: condenser_p, gross_output"
+    ]
     assert problems('[unit]\nname = "x"\nrating_mw = 1.0\n') == [
         "unit.toml: store: missing table [store]",
         "unit.toml: roles: missing table [roles]",
@@ -209,10 +251,15 @@ def test_unit_of_wrong_quantity_ambiguous_and_aliases():
     roles = dict(ROLE_UNITS, throttle_t="psia", crossover_p="bar", hot_reheat_p="mpaa")
     text = minimal(roles=roles)
     got = problems(text)
-    assert got[0] == f"unit.toml:{line_of(text, 'psia')}: roles.throttle_t.unit: 'psia' is a unit of pressure, but throttle_t is a temperature"
+    assert (
+        got[0]
+        == f"unit.toml:{line_of(text, 'psia')}: roles.throttle_t.unit: 'psia' is a unit of pressure, but throttle_t is a temperature"
+    )
     bar_line = line_of(text, 'unit = "bar"')
-    assert got[1].startswith(f"unit.toml:{bar_line}: roles.crossover_p.unit: unit 'bar' does not say "
-                             "whether the pressure is absolute or gauge")
+    assert got[1].startswith(
+        f"unit.toml:{bar_line}: roles.crossover_p.unit: unit 'bar' does not say "
+        "whether the pressure is absolute or gauge"
+    )
     assert len(got) == 2
     ok = parse_config(minimal(roles=dict(ROLE_UNITS, hot_reheat_p="mpaa")))
     assert ok.roles["hot_reheat_p"].unit == "MPa(a)"  # stored under the canonical name
@@ -220,13 +267,17 @@ def test_unit_of_wrong_quantity_ambiguous_and_aliases():
 
 def test_gauge_pressure_needs_a_barometric_pressure():
     text = minimal(roles=dict(ROLE_UNITS, throttle_p="psig"))
-    assert problems(text) == ["unit.toml: screening.barometric_kpa: gauge pressures are mapped (throttle_p): "
-                              "map the barometric_p role or set screening.barometric_kpa"]
+    assert problems(text) == [
+        "unit.toml: screening.barometric_kpa: gauge pressures are mapped (throttle_p): "
+        "map the barometric_p role or set screening.barometric_kpa"
+    ]
     parse_config(text + "\n[screening]\nbarometric_kpa = 100.2\n")
     parse_config(minimal(roles=dict(ROLE_UNITS, throttle_p="psig", barometric_p="kPa(a)")))
     got = problems(minimal(roles=dict(ROLE_UNITS, barometric_p="kPa(g)")))
-    assert got == [f"unit.toml:{line_of(minimal(roles=dict(ROLE_UNITS, barometric_p='kPa(g)')), 'kPa(g)')}: "
-                   "roles.barometric_p.unit: the barometric pressure must be absolute, found the gauge unit 'kPa(g)'"]
+    assert got == [
+        f"unit.toml:{line_of(minimal(roles=dict(ROLE_UNITS, barometric_p='kPa(g)')), 'kPa(g)')}: "
+        "roles.barometric_p.unit: the barometric pressure must be absolute, found the gauge unit 'kPa(g)'"
+    ]
 
 
 def test_not_toml_names_the_line():
@@ -246,14 +297,18 @@ def test_line_scan_is_not_fooled_by_multiline_arrays():
         ]
         eta_lp_desing = 0.88
         """)
-    assert problems(text) == [
-        f"unit.toml:{line_of(text, 'exhaust_loss_curve')}: sections.exhaust_loss_curve: velocities must rise strictly, found [100.0, 90.0]",
-        f"unit.toml:{line_of(text, 'eta_lp_desing')}: sections.eta_lp_desing: unknown key; did you mean 'eta_lp_design'?",
-    ][::-1]
+    assert (
+        problems(text)
+        == [
+            f"unit.toml:{line_of(text, 'exhaust_loss_curve')}: sections.exhaust_loss_curve: velocities must rise strictly, found [100.0, 90.0]",
+            f"unit.toml:{line_of(text, 'eta_lp_desing')}: sections.eta_lp_desing: unknown key; did you mean 'eta_lp_design'?",
+        ][::-1]
+    )
 
 
 def test_cross_checks():
-    got = problems(minimal("""
+    got = problems(
+        minimal("""
         [sections]
         lp_mode = "energy_balance"
 
@@ -268,18 +323,26 @@ def test_cross_checks():
         [economics]
         fuel_price_per_gj = 3.0
         currency = "euro"
-        """))
+        """)
+    )
     text = "\n".join(got)
-    assert "sections.lp_mode: \"energy_balance\" needs the main_steam_flow role mapped" in text
-    assert "sections.reheat_flow_fraction: lp_mode \"energy_balance\" needs reheat_flow_fraction" in text
-    assert "baseline.end: must be after start (2026-02-01T00:00:00+00:00), found 2026-01-01T00:00:00+00:00" in text
+    assert 'sections.lp_mode: "energy_balance" needs the main_steam_flow role mapped' in text
+    assert 'sections.reheat_flow_fraction: lp_mode "energy_balance" needs reheat_flow_fraction' in text
+    assert (
+        "baseline.end: must be after start (2026-02-01T00:00:00+00:00), found 2026-01-01T00:00:00+00:00"
+        in text
+    )
     assert "steady.min_length: must not exceed max_length (1h), found 2h" in text
-    assert "economics.heat_rate_kj_per_kwh: fuel_price_per_gj is given: heat_rate_kj_per_kwh is needed too" in text
+    assert (
+        "economics.heat_rate_kj_per_kwh: fuel_price_per_gj is given: heat_rate_kj_per_kwh is needed too"
+        in text
+    )
     assert "economics.currency: expected a three-letter ISO 4217 code such as \"EUR\", found 'euro'" in text
 
 
 def test_ranges_and_types():
-    got = problems(minimal("""
+    got = problems(
+        minimal("""
         [sections]
         eta_lp_design = 1.2
         [alarms]
@@ -289,11 +352,14 @@ def test_ranges_and_types():
         tag = "V"
         unit = "%"
         range = [100, 0]
-        """))
+        """)
+    )
     assert any("sections.eta_lp_design: expected a value >= 0.5 and <= 1.0, found 1.2" in p for p in got)
     assert any("alarms.persistence: expected a value >= 1, found 0" in p for p in got)
     assert any("alarms.moisture_limit_percent: expected a number, found a boolean (true)" in p for p in got)
-    assert any("roles.valve_position.range: expected [low, high] with low < high, found [100, 0]" in p for p in got)
+    assert any(
+        "roles.valve_position.range: expected [low, high] with low < high, found [100, 0]" in p for p in got
+    )
 
 
 # --- secrets ------------------------------------------------------------------------------
@@ -301,8 +367,9 @@ INFLUX2 = '[store]\nkind = "influx2"\nurl = "http://127.0.0.1:8086"\norg = "o"\n
 
 
 def test_secret_from_environment_is_never_shown():
-    c = parse_config(minimal(store=INFLUX2 + 'token = "${ISEN_TEST_TOKEN}"\n'),
-                     environ={"ISEN_TEST_TOKEN": "s3cr3t-value"})
+    c = parse_config(
+        minimal(store=INFLUX2 + 'token = "${ISEN_TEST_TOKEN}"\n'), environ={"ISEN_TEST_TOKEN": "s3cr3t-value"}
+    )
     assert c.store.token.reveal() == "s3cr3t-value"
     assert c.store.open_options()["token"] == "s3cr3t-value"
     for shown in (repr(c), str(c), repr(c.store), f"{c.store.token}"):
@@ -320,23 +387,34 @@ def test_secret_from_file(tmp_path):
 def test_secret_problems():
     text = minimal(store=INFLUX2 + 'token = "plain-token"\n')
     assert problems(text, environ={}) == [
-        f"unit.toml:{line_of(text, 'plain-token')}: store.token: write secrets as \"${{ENV_NAME}}\" or use "
-        "'token_file'; a secret written in the file is refused"]
+        f'unit.toml:{line_of(text, "plain-token")}: store.token: write secrets as "${{ENV_NAME}}" or use '
+        "'token_file'; a secret written in the file is refused"
+    ]
     got = problems(minimal(store=INFLUX2 + 'token = "${NOT_SET_ANYWHERE}"\n'), environ={})
     assert got[0].endswith("store.token: environment variable NOT_SET_ANYWHERE is not set")
     text = minimal(store=INFLUX2)
     assert problems(text, environ={}) == [
-        f"unit.toml:{line_of(text, '[store]')}: store.token: missing required key 'token' (or 'token_file')"]
-    got = problems(minimal(store='[store]\nkind = "influx1"\nurl = "http://127.0.0.1:8086"\n'
-                                 'database = "d"\nusername = "u"\ntoken = "${T}"\n'), environ={"T": "x"})
+        f"unit.toml:{line_of(text, '[store]')}: store.token: missing required key 'token' (or 'token_file')"
+    ]
+    got = problems(
+        minimal(
+            store='[store]\nkind = "influx1"\nurl = "http://127.0.0.1:8086"\n'
+            'database = "d"\nusername = "u"\ntoken = "${T}"\n'
+        ),
+        environ={"T": "x"},
+    )
     assert got[0].endswith("store.token: give either 'token' or 'username'/'password', not both")
 
 
 def test_store_kind_and_url():
     got = problems(minimal(store='[store]\nkind = "influx3"\n'))
-    assert got[0].endswith("store.kind: expected one of 'sqlite', 'influx2', 'influx1', found 'influx3'; did you mean 'influx2'?")
-    got = problems(minimal(store=INFLUX2.replace("http://127.0.0.1:8086", "127.0.0.1:8086") + 'token = "${T}"\n'),
-                   environ={"T": "x"})
+    assert got[0].endswith(
+        "store.kind: expected one of 'sqlite', 'influx2', 'influx1', found 'influx3'; did you mean 'influx2'?"
+    )
+    got = problems(
+        minimal(store=INFLUX2.replace("http://127.0.0.1:8086", "127.0.0.1:8086") + 'token = "${T}"\n'),
+        environ={"T": "x"},
+    )
     assert got[0].endswith("store.url: expected an http:// or https:// URL, found '127.0.0.1:8086'")
     got = problems(minimal(store='[store]\nkind = "sqlite"\npath = "x.sqlite"\nbucket = "b"\n'))
     assert got[0].endswith("store.bucket: unknown key; known keys: kind, path")
@@ -355,8 +433,10 @@ def test_bad_file_exits_2_before_any_connection(tmp_path, capsys):
     listener.setblocking(False)
     port = listener.getsockname()[1]
     try:
-        text = minimal('[steady]\nwindw = "30m"\n',
-                       store=INFLUX2.replace("8086", str(port)) + 'token = "${ISEN_TEST_TOKEN_2}"\n')
+        text = minimal(
+            '[steady]\nwindw = "30m"\n',
+            store=INFLUX2.replace("8086", str(port)) + 'token = "${ISEN_TEST_TOKEN_2}"\n',
+        )
         path = tmp_path / "bad.toml"
         path.write_text(text)
         rc = cli.main(["check", "-c", str(path)])
@@ -375,12 +455,13 @@ def test_bad_file_exits_2_before_any_connection(tmp_path, capsys):
 
 def test_single_problem_message(tmp_path, capsys):
     path = tmp_path / "one.toml"
-    text = minimal('[alarms]\nhysteresis = -1.0\n')
+    text = minimal("[alarms]\nhysteresis = -1.0\n")
     path.write_text(text)
     assert cli.main(["check", "-c", str(path)]) == 2
     assert capsys.readouterr().err == (
         f"isentrope: configuration error: {path}:{line_of(text, 'hysteresis')}: alarms.hysteresis: "
-        "expected a value >= 0, found -1.0\n")
+        "expected a value >= 0, found -1.0\n"
+    )
 
 
 TABLE_KEYS = {
@@ -392,8 +473,14 @@ TABLE_KEYS = {
 
 
 @settings(max_examples=40, deadline=None)
-@given(st.lists(st.tuples(st.sampled_from(sorted(TABLE_KEYS)), st.integers(0, 3), st.integers(0, 4)),
-                min_size=1, max_size=4, unique_by=lambda t: t[0]))
+@given(
+    st.lists(
+        st.tuples(st.sampled_from(sorted(TABLE_KEYS)), st.integers(0, 3), st.integers(0, 4)),
+        min_size=1,
+        max_size=4,
+        unique_by=lambda t: t[0],
+    )
+)
 def test_reported_lines_point_at_the_misspelt_key(picks):
     """Whatever tables hold misspelt keys, and wherever, each message names the right line."""
     extra, expected = [], {}
@@ -420,15 +507,21 @@ def test_flatline_tolerance_bounds_and_default():
     from isentrope.calc import quality
 
     assert cfgmod.ScreeningConfig().flatline_tolerance == quality.DEFAULT_FLATLINE_RELATIVE
-    assert parse_config(minimal("[screening]\nflatline_tolerance = 1e-4\n")).screening.flatline_tolerance == 1e-4
+    assert (
+        parse_config(minimal("[screening]\nflatline_tolerance = 1e-4\n")).screening.flatline_tolerance == 1e-4
+    )
     assert parse_config(minimal("[screening]\nflatline_tolerance = 0\n")).screening.flatline_tolerance == 0.0
-    assert parse_config(minimal("[screening]\nflatline_tolerance = 1e-3\n")).screening.flatline_tolerance == 1e-3
+    assert (
+        parse_config(minimal("[screening]\nflatline_tolerance = 1e-3\n")).screening.flatline_tolerance == 1e-3
+    )
     # 0.01 was accepted before: 1 % of 811 K is 8.1 K, and steady running reads as stuck
-    for bad, why in (("0.01", "expected a value >= 0 and <= 0.001, found 0.01"),
-                     ("0.002", "expected a value >= 0 and <= 0.001, found 0.002"),
-                     ("0.05", "expected a value >= 0 and <= 0.001, found 0.05"),
-                     ("-1e-6", "expected a value >= 0 and <= 0.001, found -1e-06"),
-                     ('"1e-6"', "expected a number, found a string ('1e-6')")):
+    for bad, why in (
+        ("0.01", "expected a value >= 0 and <= 0.001, found 0.01"),
+        ("0.002", "expected a value >= 0 and <= 0.001, found 0.002"),
+        ("0.05", "expected a value >= 0 and <= 0.001, found 0.05"),
+        ("-1e-6", "expected a value >= 0 and <= 0.001, found -1e-06"),
+        ('"1e-6"', "expected a number, found a string ('1e-6')"),
+    ):
         text = minimal(f"[screening]\nflatline_tolerance = {bad}\n")
         where = f"unit.toml:{line_of(text, 'flatline_tolerance')}"
         assert problems(text) == [f"{where}: screening.flatline_tolerance: {why}"]
@@ -461,47 +554,68 @@ def test_flatline_tolerance_cap_leaves_steady_running_unflagged():
 
 def test_lp_dry_efficiency_source_parses_with_its_default():
     assert parse_config(minimal()).sections.lp_dry_efficiency_source == "design"
-    c = parse_config(minimal('[sections]\nlp_dry_efficiency_source = "measured"\nlp_mode = "expansion"\n',
-                             roles=dict(ROLE_UNITS, **LP_EXTRACTION)))
+    c = parse_config(
+        minimal(
+            '[sections]\nlp_dry_efficiency_source = "measured"\nlp_mode = "expansion"\n',
+            roles=dict(ROLE_UNITS, **LP_EXTRACTION),
+        )
+    )
     assert c.sections.lp_dry_efficiency_source == "measured"
     # "auto" stays with the expansion when the flow fractions are not given
-    c = parse_config(minimal('[sections]\nlp_dry_efficiency_source = "measured"\n',
-                             roles=dict(ROLE_UNITS, main_steam_flow="kg/s", **LP_EXTRACTION)))
+    c = parse_config(
+        minimal(
+            '[sections]\nlp_dry_efficiency_source = "measured"\n',
+            roles=dict(ROLE_UNITS, main_steam_flow="kg/s", **LP_EXTRACTION),
+        )
+    )
     assert c.sections.lp_dry_efficiency_source == "measured"
 
 
 def test_lp_dry_efficiency_source_problems_name_file_line_and_key():
-    text = minimal('[sections]\nlp_dry_efficiency_source = "measurd"\n', roles=dict(ROLE_UNITS, **LP_EXTRACTION))
+    text = minimal(
+        '[sections]\nlp_dry_efficiency_source = "measurd"\n', roles=dict(ROLE_UNITS, **LP_EXTRACTION)
+    )
     assert problems(text) == [
         f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
-        "expected one of 'design', 'measured', found 'measurd'; did you mean 'measured'?"]
+        "expected one of 'design', 'measured', found 'measurd'; did you mean 'measured'?"
+    ]
     # "measured" without the LP dry stage group mapped
     text = minimal('[sections]\nlp_dry_efficiency_source = "measured"\n')
     assert problems(text) == [
         f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
-        "\"measured\" needs the LP dry stage group: map the roles lp_extraction_p and lp_extraction_t "
-        "(not mapped: lp_extraction_p, lp_extraction_t)"]
-    text = minimal('[sections]\nlp_dry_efficiency_source = "measured"\n',
-                   roles=dict(ROLE_UNITS, lp_extraction_p="kPa(a)"))
+        '"measured" needs the LP dry stage group: map the roles lp_extraction_p and lp_extraction_t '
+        "(not mapped: lp_extraction_p, lp_extraction_t)"
+    ]
+    text = minimal(
+        '[sections]\nlp_dry_efficiency_source = "measured"\n',
+        roles=dict(ROLE_UNITS, lp_extraction_p="kPa(a)"),
+    )
     assert problems(text) == [
         f"unit.toml:{line_of(text, '[roles.lp_extraction_p]')}: roles.lp_extraction_p: "
         "lp_extraction_p needs lp_extraction_t mapped too",
         f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
-        "\"measured\" needs the LP dry stage group: map the roles lp_extraction_p and lp_extraction_t "
-        "(not mapped: lp_extraction_t)"]
+        '"measured" needs the LP dry stage group: map the roles lp_extraction_p and lp_extraction_t '
+        "(not mapped: lp_extraction_t)",
+    ]
     # "measured" where the energy balance, not the expansion, gives the LP end point
-    flows = ("reheat_flow_fraction = 0.89\ncrossover_flow_fraction = 0.78\nlp_exhaust_flow_fraction = 0.66\n")
+    flows = "reheat_flow_fraction = 0.89\ncrossover_flow_fraction = 0.78\nlp_exhaust_flow_fraction = 0.66\n"
     roles = dict(ROLE_UNITS, main_steam_flow="kg/s", **LP_EXTRACTION)
-    text = minimal('[sections]\nlp_mode = "energy_balance"\nlp_dry_efficiency_source = "measured"\n' + flows,
-                   roles=roles)
+    text = minimal(
+        '[sections]\nlp_mode = "energy_balance"\nlp_dry_efficiency_source = "measured"\n' + flows, roles=roles
+    )
     assert problems(text) == [
         f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
-        "\"measured\" is used only by the expansion, but lp_mode is \"energy_balance\": the LP end point comes "
-        "from the energy balance; set lp_mode = \"expansion\" or leave the key out"]
+        '"measured" is used only by the expansion, but lp_mode is "energy_balance": the LP end point comes '
+        'from the energy balance; set lp_mode = "expansion" or leave the key out'
+    ]
     text = minimal('[sections]\nlp_dry_efficiency_source = "measured"\n' + flows, roles=roles)
     got = problems(text)
     assert len(got) == 1 and got[0].startswith(
         f"unit.toml:{line_of(text, 'lp_dry_efficiency_source')}: sections.lp_dry_efficiency_source: "
-        "\"measured\" is used only by the expansion, but lp_mode \"auto\" takes the energy balance here")
-    parse_config(minimal('[sections]\nlp_mode = "expansion"\nlp_dry_efficiency_source = "measured"\n' + flows,
-                         roles=roles))
+        '"measured" is used only by the expansion, but lp_mode "auto" takes the energy balance here'
+    )
+    parse_config(
+        minimal(
+            '[sections]\nlp_mode = "expansion"\nlp_dry_efficiency_source = "measured"\n' + flows, roles=roles
+        )
+    )

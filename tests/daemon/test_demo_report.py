@@ -53,8 +53,14 @@ def test_demo_writes_store_config_truth_and_report(demo_dir):
         text = (demo_dir / f"baseline-{section}.json").read_text()
         assert BaselineModel.from_json(text).to_json() == text
     tables = _tables(demo_dir / "greywater2.sqlite")
-    for measurement in ("section_samples", "steady_windows", "deviation", "degradation", "losses",
-                        "worker_status"):
+    for measurement in (
+        "section_samples",
+        "steady_windows",
+        "deviation",
+        "degradation",
+        "losses",
+        "worker_status",
+    ):
         assert measurement in tables, f"{measurement} missing; found {sorted(tables)}"
 
 
@@ -69,8 +75,10 @@ def test_demo_finds_the_injected_ip_step(demo_dir):
     con = sqlite3.connect(demo_dir / "greywater2.sqlite")
     try:
         rows = con.execute("SELECT time, size FROM steps WHERE section = 'ip'").fetchall()
-        first_after = con.execute("SELECT min(time) FROM deviation WHERE section = 'ip' AND time >= ?",
-                                  (int(t_true.value // 10**6),)).fetchone()[0]
+        first_after = con.execute(
+            "SELECT min(time) FROM deviation WHERE section = 'ip' AND time >= ?",
+            (int(t_true.value // 10**6),),
+        ).fetchone()[0]
     finally:
         con.close()
     assert len(rows) == 1, rows
@@ -83,8 +91,10 @@ def test_demo_finds_the_injected_ip_step(demo_dir):
     # threshold (-[alarms] min_step_points, 0.25 by default), and still raised at the end
     con = sqlite3.connect(demo_dir / "greywater2.sqlite")
     try:
-        events = con.execute("SELECT raised, value, threshold FROM alarm_events WHERE section = 'ip' AND "
-                             "rule = 'step_change' ORDER BY time").fetchall()
+        events = con.execute(
+            "SELECT raised, value, threshold FROM alarm_events WHERE section = 'ip' AND "
+            "rule = 'step_change' ORDER BY time"
+        ).fetchall()
     finally:
         con.close()
     assert len(events) == 1 and events[0][0] == 1.0
@@ -114,9 +124,18 @@ def _chrome_driver(tmp_path):
 
     opts = webdriver.ChromeOptions()
     opts.binary_location = chromium
-    for flag in ("--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
-                 "--disable-background-networking", "--disable-component-update", "--disable-sync",
-                 f"--user-data-dir={tmp_path / 'chrome-profile'}", "--window-size=1200,1600"):
+    for flag in (
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+        f"--user-data-dir={tmp_path / 'chrome-profile'}",
+        "--window-size=1200,1600",
+    ):
         opts.add_argument(flag)
     opts.set_capability("goog:loggingPrefs", {"browser": "ALL"})
     return webdriver.Chrome(service=Service(executable_path=chromedriver), options=opts)
@@ -129,7 +148,8 @@ def test_report_loads_in_a_real_browser(demo_dir, tmp_path):
         driver.get((demo_dir / "report" / "index.html").resolve().as_uri())
         n_images, broken = driver.execute_script(
             "const imgs = Array.from(document.images);"
-            "return [imgs.length, imgs.filter(i => !(i.complete && i.naturalWidth > 0)).length];")
+            "return [imgs.length, imgs.filter(i => !(i.complete && i.naturalWidth > 0)).length];"
+        )
         errors = [e for e in driver.get_log("browser") if e.get("level") == "SEVERE"]
         title = driver.title
         shot = tmp_path / "report.png"
@@ -144,7 +164,7 @@ def test_report_loads_in_a_real_browser(demo_dir, tmp_path):
 
 # --- the dashboard definition ------------------------------------------------------------------
 _FROM = re.compile(r'FROM\s+"([^"]+)"')
-_SELECT = re.compile(r'SELECT\s+(.*?)\s+FROM', re.S)
+_SELECT = re.compile(r"SELECT\s+(.*?)\s+FROM", re.S)
 _FIELD = re.compile(r'"([^"]+)"')
 
 
@@ -194,16 +214,30 @@ def test_test_eval_on_a_plateau_agrees_with_the_online_trend(demo_dir, capsys):
     w["time"] = pd.to_datetime(w["time"], unit="ms", utc=True)
     start = None
     for i in range(len(w) - 5):
-        part = w.iloc[i:i + 6]
+        part = w.iloc[i : i + 6]
         span = part["time"].iloc[-1] - part["time"].iloc[0]
-        if span <= pd.Timedelta(hours=5, minutes=30) and part["gross_output"].max() - part["gross_output"].min() < 3:
+        if (
+            span <= pd.Timedelta(hours=5, minutes=30)
+            and part["gross_output"].max() - part["gross_output"].min() < 3
+        ):
             start = part["time"].iloc[0].floor("h")
             break
     assert start is not None, "no steady plateau of 5 h in the demo history"
     end = start + pd.Timedelta(hours=5)
     prefix = demo_dir / "routine"
-    rc = cli.main(["test-eval", "-c", str(demo_dir / "greywater2.toml"), "--start", start.isoformat(),
-                   "--end", end.isoformat(), "-o", str(prefix)])
+    rc = cli.main(
+        [
+            "test-eval",
+            "-c",
+            str(demo_dir / "greywater2.toml"),
+            "--start",
+            start.isoformat(),
+            "--end",
+            end.isoformat(),
+            "-o",
+            str(prefix),
+        ]
+    )
     out = capsys.readouterr().out
     assert "not a protective function" in out
     result = pd.read_csv(f"{prefix}_result.csv", index_col=0)
@@ -319,7 +353,7 @@ def _table_after(page: str, heading_start: str) -> dict[str, dict[str, str]]:
     for heading, rows in parser.tables:
         if heading.startswith(heading_start):
             head = rows[0]
-            return {r[0]: dict(zip(head, r)) for r in rows[1:]}
+            return {r[0]: dict(zip(head, r, strict=True)) for r in rows[1:]}
     raise AssertionError(f"no table after a heading {heading_start!r}")
 
 
@@ -337,8 +371,22 @@ def test_a_short_report_keeps_the_stored_analysis_and_shows_the_period(demo_dir,
     before = {m: _rows(db, m) for m in _ANALYSIS_SERIES}
     assert before["losses"] and before["degradation"]
     start, end = pd.Timestamp("2025-01-22", tz="UTC"), pd.Timestamp("2025-02-05", tz="UTC")
-    assert cli.main(["report", "-c", str(tmp_path / "greywater2.toml"), "--start", start.isoformat(),
-                     "--end", end.isoformat(), "-o", str(tmp_path / "short")]) == 0
+    assert (
+        cli.main(
+            [
+                "report",
+                "-c",
+                str(tmp_path / "greywater2.toml"),
+                "--start",
+                start.isoformat(),
+                "--end",
+                end.isoformat(),
+                "-o",
+                str(tmp_path / "short"),
+            ]
+        )
+        == 0
+    )
     for m in _ANALYSIS_SERIES:
         assert _rows(db, m) == before[m], f"{m} rows changed by a report of a shorter period"
 
@@ -358,17 +406,25 @@ def test_a_short_report_keeps_the_stored_analysis_and_shows_the_period(demo_dir,
         inside = mine[(mine["time"] >= start) & (mine["time"] < end)]
         row = period[title]
         assert row["extra fuel cost in the period [USD]"] == f"{inside['fuel_cost'].sum():,.0f}"
-        assert row["extra fuel cost since the baseline end, to the period end [USD]"] == \
-            f"{inside['cumulative_fuel_cost'].iloc[-1]:,.0f}"
+        assert (
+            row["extra fuel cost since the baseline end, to the period end [USD]"]
+            == f"{inside['cumulative_fuel_cost'].iloc[-1]:,.0f}"
+        )
         # the history's cumulative cost is the planner table's, and differs from the period's
-        assert planner[title]["extra fuel cost since the baseline end [USD]"] == \
-            f"{mine['cumulative_fuel_cost'].iloc[-1]:,.0f}"
+        assert (
+            planner[title]["extra fuel cost since the baseline end [USD]"]
+            == f"{mine['cumulative_fuel_cost'].iloc[-1]:,.0f}"
+        )
         first = mine[mine["time"] < start]["cumulative_fuel_cost"].iloc[-1]
-        assert inside["fuel_cost"].sum() == pytest.approx(inside["cumulative_fuel_cost"].iloc[-1] - first,
-                                                          rel=1e-9)
-        d = dev[(dev["section"] == section) & (dev["time"] >= end - pd.Timedelta(days=7)) & (dev["time"] < end)]
+        assert inside["fuel_cost"].sum() == pytest.approx(
+            inside["cumulative_fuel_cost"].iloc[-1] - first, rel=1e-9
+        )
+        d = dev[
+            (dev["section"] == section) & (dev["time"] >= end - pd.Timedelta(days=7)) & (dev["time"] < end)
+        ]
         assert row["deviation at period end [pt] ± its standard error"].startswith(
-            f"{d['deviation'].median():+.2f} ± ")
+            f"{d['deviation'].median():+.2f} ± "
+        )
         assert row["one window's u [pt]"] == f"{d['deviation_u'].median():.2f}"
         n = ((dev["section"] == section) & (dev["time"] >= start) & (dev["time"] < end)).sum()
         assert row["steady windows"] == str(n)

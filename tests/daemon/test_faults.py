@@ -19,7 +19,6 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-
 import worker_support as ws
 
 from isentrope.daemon.cli import main as cli_main
@@ -42,7 +41,10 @@ def sqlite_unit(tmp_path: Path, name: str, raw: pd.DataFrame, schedule: str = ""
     return cfg, store
 
 
-def all_results(store, start=ws.START, end=ws.START + pd.Timedelta(days=3)):
+THREE_DAYS = pd.Timedelta(days=3)
+
+
+def all_results(store, start=ws.START, end=ws.START + THREE_DAYS):
     return {m: store.read_results(m, start, end, TAGS) for m in ws.RESULT_MEASUREMENTS}
 
 
@@ -56,11 +58,17 @@ def assert_same_store_results(a, b):
 
 def cli(*args: str) -> subprocess.Popen:
     env = {**os.environ, "PYTHONWARNINGS": "error"}
-    return subprocess.Popen([sys.executable, "-m", "isentrope.daemon.cli", *args], stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, env=env)
+    return subprocess.Popen(
+        [sys.executable, "-m", "isentrope.daemon.cli", *args],
+        stdout=subprocess.PIPE,
+        stderr=subprocess.PIPE,
+        text=True,
+        env=env,
+    )
 
 
 # --- SIGKILL in the middle of a backfill ------------------------------------------------------
+
 
 @pytest.mark.slow
 def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_results(tmp_path):
@@ -101,14 +109,16 @@ def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_
     # no duplicates, asked of the file with plain SQL, not through our store
     with sqlite3.connect(tmp_path / "victim.sqlite") as db:
         for table in ("section_samples", "steady_windows"):
-            dup = db.execute(f'SELECT unit, time, COUNT(*) FROM "{table}" GROUP BY unit, time '
-                             "HAVING COUNT(*) > 1").fetchall()
+            dup = db.execute(
+                f'SELECT unit, time, COUNT(*) FROM "{table}" GROUP BY unit, time HAVING COUNT(*) > 1'
+            ).fetchall()
             assert dup == [], table
             n = db.execute(f'SELECT COUNT(*) FROM "{table}"').fetchone()[0]
             assert n == len(results[table])
 
 
 # --- the InfluxDB server stopped part-way through a run of cycles ----------------------------
+
 
 @pytest.mark.influx
 @pytest.mark.slow
@@ -119,9 +129,14 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
 
     def unit(name: str):
         db = influxdb_v2.new_database(name)
-        store_table = ws.store_toml("influx2", url=influxdb_v2.url, org="isentrope",
-                                    bucket=influxdb_v2.bucket(db), token="${ISENTROPE_TEST_TOKEN}",
-                                    timeout="30s")  # generous: the test machine is shared
+        store_table = ws.store_toml(
+            "influx2",
+            url=influxdb_v2.url,
+            org="isentrope",
+            bucket=influxdb_v2.bucket(db),
+            token="${ISENTROPE_TEST_TOKEN}",
+            timeout="30s",
+        )  # generous: the test machine is shared
         path = ws.write_config(tmp_path / f"{name}.toml", store_table)
         config = load_config(path, environ={"ISENTROPE_TEST_TOKEN": "isentrope:unused"})
         store = open_store(config.store.kind, **config.store.open_options())
@@ -131,8 +146,15 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
     times = [ws.START + pd.Timedelta("10h") + k * pd.Timedelta("2h") for k in range(3)]
 
     def worker(config, store, clock):
-        return Worker.from_config(config, store, pipeline=pipeline, start_default=FIRST, clock=clock,
-                                  sleep=lambda s: None, rng=random.Random(5))
+        return Worker.from_config(
+            config,
+            store,
+            pipeline=pipeline,
+            start_default=FIRST,
+            clock=clock,
+            sleep=lambda s: None,
+            rng=random.Random(5),
+        )
 
     cfg_a, a = unit("steady")
     pipeline = Pipeline(cfg_a)
@@ -163,8 +185,9 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
     assert a.get_checkpoint(wa.checkpoint_name) == b.get_checkpoint(wb.checkpoint_name)
     results = assert_same_store_results(a, b)
     assert len(results["section_samples"]) > 50 and len(results["steady_windows"]) >= 2
-    status = b.read_results(STATUS_MEASUREMENT, times[0], times[-1] + pd.Timedelta("1h"),
-                            {**TAGS, "worker": wb.checkpoint_name})
+    status = b.read_results(
+        STATUS_MEASUREMENT, times[0], times[-1] + pd.Timedelta("1h"), {**TAGS, "worker": wb.checkpoint_name}
+    )
     # heartbeats of the cycles the server was up for (the store may deliver the one of the
     # outage later, from its kept batch: then it says the cycle failed)
     assert {times[0], times[2]} <= set(status.index)
@@ -176,6 +199,7 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
 
 
 # --- bad raw data -----------------------------------------------------------------------------
+
 
 def test_strings_nan_out_of_range_duplicates_and_gaps_are_flagged_and_nothing_stored_is_lost(tmp_path):
     raw = ws.plant_history(1.0, freq="5min")
@@ -191,7 +215,7 @@ def test_strings_nan_out_of_range_duplicates_and_gaps_are_flagged_and_nothing_st
     # then the historian delivers rubbish for the next hours (after the first cycle's end)
     t0 = ws.START + pd.Timedelta("10h30min")
     tags = {m.role: m.tag for m in ws.mappings()}
-    bad = raw.loc[t0 + pd.Timedelta("5min"): t0 + pd.Timedelta("3h")].copy()
+    bad = raw.loc[t0 + pd.Timedelta("5min") : t0 + pd.Timedelta("3h")].copy()
     bad.loc[t0 + pd.Timedelta("15min"), "cold_reheat_p"] = 5000.0  # outside its 0..60 bar(g) range
     bad.loc[t0 + pd.Timedelta("20min"), "gross_output"] = -500.0
     store.write_raw(ws.mappings(), bad.loc[[t0 + pd.Timedelta("25min")]].assign(hot_reheat_t=1.0))
@@ -199,12 +223,17 @@ def test_strings_nan_out_of_range_duplicates_and_gaps_are_flagged_and_nothing_st
     ms = {dt: int((t0 + pd.Timedelta(dt)).value // 1_000_000) for dt in ("0min", "10min")}
     with sqlite3.connect(tmp_path / "bad.sqlite") as db:
         # a string, as a careless import leaves it, and an empty (NULL) value
-        db.execute("UPDATE samples SET value = 'BAD' WHERE tag = ? AND time = ?", (tags["throttle_p"], ms["0min"]))
-        db.execute("UPDATE samples SET value = NULL WHERE tag = ? AND time = ?", (tags["throttle_t"], ms["10min"]))
+        db.execute(
+            "UPDATE samples SET value = 'BAD' WHERE tag = ? AND time = ?", (tags["throttle_p"], ms["0min"])
+        )
+        db.execute(
+            "UPDATE samples SET value = NULL WHERE tag = ? AND time = ?", (tags["throttle_t"], ms["10min"])
+        )
     gap = (raw.index > t0 + pd.Timedelta("1h")) & (raw.index < t0 + pd.Timedelta("2h"))
     with sqlite3.connect(tmp_path / "bad.sqlite") as db:  # a gap: an hour of samples never arrived
-        db.executemany("DELETE FROM samples WHERE time = ?",
-                       [(int(t.value // 1_000_000),) for t in raw.index[gap]])
+        db.executemany(
+            "DELETE FROM samples WHERE time = ?", [(int(t.value // 1_000_000),) for t in raw.index[gap]]
+        )
     raw_before = store.read_raw(ws.mappings(), ws.START, ws.START + pd.Timedelta(days=1))
 
     clock.now = ws.START + pd.Timedelta("17h")
@@ -221,14 +250,20 @@ def test_strings_nan_out_of_range_duplicates_and_gaps_are_flagged_and_nothing_st
     for m in ws.RESULT_MEASUREMENTS:
         if len(before[m]):
             ws.assert_same_results(before[m], after[m], rtol=0.0)  # earlier results untouched
-    pd.testing.assert_frame_equal(store.read_raw(ws.mappings(), ws.START, ws.START + pd.Timedelta(days=1)),
-                                  raw_before)  # the worker never changes raw data
-    status = store.read_results(STATUS_MEASUREMENT, ws.START, ws.START + pd.Timedelta(days=1),
-                                {**TAGS, "worker": worker.checkpoint_name})
+    pd.testing.assert_frame_equal(
+        store.read_raw(ws.mappings(), ws.START, ws.START + pd.Timedelta(days=1)), raw_before
+    )  # the worker never changes raw data
+    status = store.read_results(
+        STATUS_MEASUREMENT,
+        ws.START,
+        ws.START + pd.Timedelta(days=1),
+        {**TAGS, "worker": worker.checkpoint_name},
+    )
     assert status["rows_flagged"].max() >= 4
 
 
 # --- the daemon: APScheduler, heartbeat, SIGTERM ----------------------------------------------
+
 
 @pytest.mark.slow
 def test_run_serves_cycles_and_stops_cleanly_on_sigterm(tmp_path):
@@ -242,7 +277,9 @@ def test_run_serves_cycles_and_stops_cleanly_on_sigterm(tmp_path):
     deadline = time.monotonic() + 90
     rows = pd.DataFrame()
     while time.monotonic() < deadline and proc.poll() is None:
-        rows = store.read_results(STATUS_MEASUREMENT, now - pd.Timedelta("1h"), now + pd.Timedelta("1h"), TAGS)
+        rows = store.read_results(
+            STATUS_MEASUREMENT, now - pd.Timedelta("1h"), now + pd.Timedelta("1h"), TAGS
+        )
         if len(rows) >= 2:
             break
         time.sleep(0.2)
@@ -256,18 +293,31 @@ def test_run_serves_cycles_and_stops_cleanly_on_sigterm(tmp_path):
 
 def test_run_once_exits_3_when_the_store_stays_unreachable(tmp_path):
     port = ws.free_port()
-    text = ws.store_toml("influx1", url=f"http://127.0.0.1:{port}", database="nowhere", username="u",
-                         password="${ISENTROPE_TEST_PASSWORD}", timeout="1s")
+    text = ws.store_toml(
+        "influx1",
+        url=f"http://127.0.0.1:{port}",
+        database="nowhere",
+        username="u",
+        password="${ISENTROPE_TEST_PASSWORD}",
+        timeout="1s",
+    )
     cfg = ws.write_config(tmp_path / "down.toml", text, schedule="")
     cfg.write_text(cfg.read_text().replace("retries = 2", "retries = 0"))
     env = {**os.environ, "ISENTROPE_TEST_PASSWORD": "x"}
-    proc = subprocess.run([sys.executable, "-m", "isentrope.daemon.cli", "run", "-c", str(cfg), "--once"],
-                          capture_output=True, text=True, env=env, timeout=120)
+    proc = subprocess.run(
+        [sys.executable, "-m", "isentrope.daemon.cli", "run", "-c", str(cfg), "--once"],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
     assert proc.returncode == 3, proc.stderr
     assert "Traceback" not in proc.stderr
 
 
-@pytest.mark.parametrize("command", [["run", "--once"], ["backfill", "--start", "2025-03-03", "--end", "2025-03-04"]])
+@pytest.mark.parametrize(
+    "command", [["run", "--once"], ["backfill", "--start", "2025-03-03", "--end", "2025-03-04"]]
+)
 def test_a_bad_configuration_exits_2_before_any_connection(tmp_path, capsys, command):
     import socket
 
@@ -276,8 +326,13 @@ def test_a_bad_configuration_exits_2_before_any_connection(tmp_path, capsys, com
         listener.listen(1)
         listener.settimeout(0.2)
         port = listener.getsockname()[1]
-        text = ws.store_toml("influx1", url=f"http://127.0.0.1:{port}", database="unit2", username="u",
-                             password="${ISENTROPE_TEST_PASSWORD}")
+        text = ws.store_toml(
+            "influx1",
+            url=f"http://127.0.0.1:{port}",
+            database="unit2",
+            username="u",
+            password="${ISENTROPE_TEST_PASSWORD}",
+        )
         cfg = ws.write_config(tmp_path / "bad.toml", text)
         cfg.write_text(cfg.read_text().replace('lookback = "30m"', 'look_back = "30m"'))
         code = cli_main([command[0], "-c", str(cfg), *command[1:]])

@@ -27,7 +27,9 @@ MEASUREMENTS = ["section_samples", "steady_windows", "deviation", "alarm_events"
 
 
 def _config(folder, name):
-    text = synthetic.config_toml(store_path=f"{name}.sqlite") + f"""
+    text = (
+        synthetic.config_toml(store_path=f"{name}.sqlite")
+        + f"""
 [baseline]
 start = "{START:%Y-%m-%dT%H:%M:%SZ}"
 end = "{BASE_END:%Y-%m-%dT%H:%M:%SZ}"
@@ -38,6 +40,7 @@ max_length = "20m"
 min_length = "10m"
 window = "20m"
 """
+    )
     path = folder / f"{name}.toml"
     path.write_text(text, encoding="utf-8")
     return path
@@ -48,7 +51,9 @@ def raw():
     frame, _ = synthetic.generate(start=START, days=DAYS, freq="5min", seed=3)
     plant = synthetic.to_plant_units(frame)
     # a throttle temperature transmitter out from 22:30 on day 1 to 01:30 on day 2 (the baseline end)
-    out = (plant.index >= START + pd.Timedelta(days=1, hours=22, minutes=30)) & (plant.index < START + pd.Timedelta(days=2, hours=1, minutes=30))
+    out = (plant.index >= START + pd.Timedelta(days=1, hours=22, minutes=30)) & (
+        plant.index < START + pd.Timedelta(days=2, hours=1, minutes=30)
+    )
     plant.loc[out, "throttle_t"] = np.nan
     return plant
 
@@ -66,8 +71,10 @@ def _tables(store, unit):
         parts = []
         tag_sets = [{"unit": unit}] if m in ("section_samples", "steady_windows") else None
         if tag_sets is None:
-            keys = {"deviation": [("section", s) for s in ("hp", "ip", "lp")],
-                    "alarm_events": [("section", s) for s in ["hp", "ip", "lp", "throttle_t"]]}[m]
+            keys = {
+                "deviation": [("section", s) for s in ("hp", "ip", "lp")],
+                "alarm_events": [("section", s) for s in ["hp", "ip", "lp", "throttle_t"]],
+            }[m]
             tag_sets = [{"unit": unit, k: v} for k, v in keys]
         for tags in tag_sets:
             f = store.read_results(m, START - pd.Timedelta(days=1), END + pd.Timedelta(days=1), tags)
@@ -84,19 +91,34 @@ def test_fleet_on_two_processes_equals_a_sequential_backfill(tmp_path, raw):
     _, fleet_store = _load(fleet_path, raw)
     fleet_store.close()
     try:
-        worker = Worker.from_config(config, seq_store, checkpoint_name="backfill/seq", start_default=START,
-                                    lookback="0s", settle="0s", chunk="1d")
+        worker = Worker.from_config(
+            config,
+            seq_store,
+            checkpoint_name="backfill/seq",
+            start_default=START,
+            lookback="0s",
+            settle="0s",
+            chunk="1d",
+        )
         assert worker.run_cycle(until=END).ok
 
         parts = fleet.plan_partitions(str(fleet_path), config, START, END, period="1D")
         assert [(p.start, p.end, p.phase) for p in parts] == [
-            (START + pd.Timedelta(days=k), START + pd.Timedelta(days=k + 1), 1 if k < 2 else 2) for k in range(DAYS)]
+            (START + pd.Timedelta(days=k), START + pd.Timedelta(days=k + 1), 1 if k < 2 else 2)
+            for k in range(DAYS)
+        ]
 
-        with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None,
-                                      host="127.0.0.1") as cluster, distributed.Client(cluster) as client:
+        with (
+            distributed.LocalCluster(
+                n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None, host="127.0.0.1"
+            ) as cluster,
+            distributed.Client(cluster) as client,
+        ):
             first = fleet.run_fleet(client, [str(fleet_path)], START, END, period="1D", chunk="1d")
             again = fleet.run_fleet(client, [str(fleet_path)], START, END, period="1D", chunk="1d")
-            refit = fleet.run_fleet(client, [str(fleet_path)], START, END, period="1D", chunk="1d", refit=True)
+            refit = fleet.run_fleet(
+                client, [str(fleet_path)], START, END, period="1D", chunk="1d", refit=True
+            )
         assert first.partitions == DAYS and first.skipped == 0
         assert first.baselines[config.unit.name]  # a model was fitted between the phases
         assert again.skipped == DAYS and again.rows_read == 0  # re-run: every partition done
@@ -105,7 +127,9 @@ def test_fleet_on_two_processes_equals_a_sequential_backfill(tmp_path, raw):
         fleet_store = open_store("sqlite", path=str(tmp_path / "fleet.sqlite"))
         try:
             got, want = _tables(fleet_store, config.unit.name), _tables(seq_store, config.unit.name)
-            assert seq_store.load_state(worker.baseline_state_name) == fleet_store.load_state(worker.baseline_state_name)
+            assert seq_store.load_state(worker.baseline_state_name) == fleet_store.load_state(
+                worker.baseline_state_name
+            )
         finally:
             fleet_store.close()
     finally:
@@ -134,8 +158,10 @@ def test_partitions_are_calendar_months_cut_at_the_baseline_end(tmp_path):
     a = fleet.plan_partitions("plan.toml", config, "2025-03-10T05:00Z", "2025-04-10T00:00Z", period="7D")
     b = fleet.plan_partitions("plan.toml", config, "2025-03-12T00:00Z", "2025-04-10T00:00Z", period="7D")
     assert {p.end for p in b} <= {p.end for p in a}
-    assert all((p.end - pd.Timestamp("1970-01-01", tz="UTC")) % pd.Timedelta(days=7) == pd.Timedelta(0)
-               for p in a[:-1])
+    assert all(
+        (p.end - pd.Timestamp("1970-01-01", tz="UTC")) % pd.Timedelta(days=7) == pd.Timedelta(0)
+        for p in a[:-1]
+    )
     with pytest.raises(ValueError, match="must be after"):
         fleet.plan_partitions("plan.toml", config, "2025-03-10T00:00Z", "2025-03-01T00:00Z")
     with pytest.raises(ValueError, match="time zone"):
@@ -148,13 +174,15 @@ def test_a_row_outage_across_a_partition_boundary_raises_no_data_as_a_sequential
     # partition of day 2 sees no row before noon, so the absence it started in has to come
     # from the alarm state the day-1 partition left. The partition tasks are called in order
     # here (what the Dask graph runs); the orchestration on two processes is tested above.
-    outage = (raw.index >= START + pd.Timedelta(hours=19)) & (raw.index < START + pd.Timedelta(days=1, hours=12))
+    outage = (raw.index >= START + pd.Timedelta(hours=19)) & (
+        raw.index < START + pd.Timedelta(days=1, hours=12)
+    )
     plant = raw.loc[~outage]
 
     def config_at(name):
         path = _config(tmp_path, name)
         text = path.read_text(encoding="utf-8")
-        text = text[:text.index("[baseline]")] + text[text.index("[steady]"):]  # no model needed
+        text = text[: text.index("[baseline]")] + text[text.index("[steady]") :]  # no model needed
         path.write_text(text + '\n[alarms]\nno_data_limit = "6h"\n', encoding="utf-8")
         return path
 
@@ -166,8 +194,15 @@ def test_a_row_outage_across_a_partition_boundary_raises_no_data_as_a_sequential
     assert Worker.from_config(config, seq_store).pipeline.margins[0] < pd.Timedelta("6h")
     tags = {"unit": config.unit.name, "section": "historian", "rule": "no_data"}
     try:
-        worker = Worker.from_config(config, seq_store, checkpoint_name="backfill/seq", start_default=START,
-                                    lookback="0s", settle="0s", chunk="1d")
+        worker = Worker.from_config(
+            config,
+            seq_store,
+            checkpoint_name="backfill/seq",
+            start_default=START,
+            lookback="0s",
+            settle="0s",
+            chunk="1d",
+        )
         assert worker.run_cycle(until=END).ok
         want = seq_store.read_results("alarm_events", START, END, tags)
     finally:
@@ -182,7 +217,9 @@ def test_a_row_outage_across_a_partition_boundary_raises_no_data_as_a_sequential
         fleet_store.close()
     last = plant.index[plant.index < START + pd.Timedelta(hours=19)][-1]
     # (the synthetic history has its own 7.2 h data gap on day 3: a second alarm)
-    assert list(want.index[:2]) == [last + pd.Timedelta("5min") + pd.Timedelta("6h"),
-                                    START + pd.Timedelta(days=1, hours=12)]
+    assert list(want.index[:2]) == [
+        last + pd.Timedelta("5min") + pd.Timedelta("6h"),
+        START + pd.Timedelta(days=1, hours=12),
+    ]
     assert list(want["raised"]) == [1.0, 0.0] * (len(want) // 2)
     pd.testing.assert_frame_equal(got, want, check_exact=True)

@@ -3,6 +3,8 @@ and chunk invariance (a window processed in pieces gives what it gives in one go
 
 from __future__ import annotations
 
+from itertools import pairwise
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -21,12 +23,17 @@ def minute_frame(start: str, periods: int) -> pd.DataFrame:
 
 # --- align_steady_windows -----------------------------------------------------------------
 
+
 def test_a_long_plateau_is_cut_at_whole_hours_whatever_its_start():
     frame = minute_frame("2025-05-01 00:17", 200)  # 00:17 .. 03:36
     steady = pd.Series(True, index=frame.index)
     w = align_steady_windows(frame, steady, max_length="1h", max_gap="5min", min_length="20min")
-    assert list(w.index) == [utc("2025-05-01 00:17"), utc("2025-05-01 01:00"), utc("2025-05-01 02:00"),
-                             utc("2025-05-01 03:00")]
+    assert list(w.index) == [
+        utc("2025-05-01 00:17"),
+        utc("2025-05-01 01:00"),
+        utc("2025-05-01 02:00"),
+        utc("2025-05-01 03:00"),
+    ]
     assert list(w["n_samples"]) == [43.0, 60.0, 60.0, 37.0]
     assert w.loc[utc("2025-05-01 01:00"), "end"] == utc("2025-05-01 01:59")
     assert w.loc[utc("2025-05-01 01:00"), "duration_s"] == 3600.0
@@ -57,11 +64,13 @@ def test_windows_do_not_depend_on_how_time_is_cut_into_chunks():
     frame["x"] = rng.normal(size=len(frame))
     steady = pd.Series(rng.random(len(frame)) > 0.02, index=frame.index)
     kw = dict(max_length="1h", max_gap="5min", min_length="10min")
-    whole = align_steady_windows(frame, steady, start=utc("2025-05-01 00:00"), end=utc("2025-05-01 06:00"), **kw)
+    whole = align_steady_windows(
+        frame, steady, start=utc("2025-05-01 00:00"), end=utc("2025-05-01 06:00"), **kw
+    )
     parts = []
     for a, b in [("00:00", "01:37"), ("01:37", "04:02"), ("04:02", "06:00")]:
         s, e = utc(f"2025-05-01 {a}"), utc(f"2025-05-01 {b}")
-        sub = frame.loc[s - pd.Timedelta("2h"): e]  # the chunk and its margin
+        sub = frame.loc[s - pd.Timedelta("2h") : e]  # the chunk and its margin
         parts.append(align_steady_windows(sub, steady.reindex(sub.index), start=s, end=e, **kw))
     pd.testing.assert_frame_equal(pd.concat(parts), whole)
     assert len(whole) >= 6
@@ -69,8 +78,9 @@ def test_windows_do_not_depend_on_how_time_is_cut_into_chunks():
 
 def test_no_steady_sample_gives_an_empty_frame_with_the_columns():
     frame = minute_frame("2025-05-01 00:00", 30)
-    w = align_steady_windows(frame, pd.Series(False, index=frame.index), max_length="1h", max_gap="5min",
-                             min_length="20min")
+    w = align_steady_windows(
+        frame, pd.Series(False, index=frame.index), max_length="1h", max_gap="5min", min_length="20min"
+    )
     assert len(w) == 0 and {"end", "duration_s", "n_samples", "x"} <= set(w.columns)
 
 
@@ -84,8 +94,9 @@ from isentrope.daemon.pipeline import CycleResults, Pipeline, spike_samples  # n
 
 @pytest.fixture(scope="module")
 def pipeline(tmp_path_factory):
-    path = ws.write_config(tmp_path_factory.mktemp("cfg") / "unit.toml",
-                           ws.store_toml("sqlite", path="unit.sqlite"))
+    path = ws.write_config(
+        tmp_path_factory.mktemp("cfg") / "unit.toml", ws.store_toml("sqlite", path="unit.sqlite")
+    )
     return Pipeline(load_config(path))
 
 
@@ -109,8 +120,15 @@ def test_results_are_for_the_window_only_and_carry_flags_and_figures(pipeline):
     assert isinstance(r, CycleResults)
     assert r.samples.index.min() >= s and r.samples.index.max() < e
     assert r.counts["rows_in_window"] == len(r.samples) == ((frame.index >= s) & (frame.index < e)).sum()
-    for col in ("hp_efficiency", "hp_efficiency_u", "ip_efficiency", "lp_moisture", "quality_flags", "ok",
-                "steady"):
+    for col in (
+        "hp_efficiency",
+        "hp_efficiency_u",
+        "ip_efficiency",
+        "lp_moisture",
+        "quality_flags",
+        "ok",
+        "steady",
+    ):
         assert col in r.samples.columns
     # the synthetic unit's HP runs about 0.86, IP about 0.91 near rating (the generator's own
     # design curves; invented demo values): the chain recovers them within a point
@@ -121,7 +139,9 @@ def test_results_are_for_the_window_only_and_carry_flags_and_figures(pipeline):
     assert len(r.windows) >= 1
     assert (r.windows.index >= s - pd.Timedelta("1h")).all()
     assert ((r.windows.index.floor("1h") + pd.Timedelta("1h")) <= e).all()
-    assert {"hp_efficiency", "ip_efficiency", "throttle_p", "n_samples", "duration_s"} <= set(r.windows.columns)
+    assert {"hp_efficiency", "ip_efficiency", "throttle_p", "n_samples", "duration_s"} <= set(
+        r.windows.columns
+    )
 
 
 def test_the_same_input_gives_identical_output(pipeline):
@@ -136,7 +156,7 @@ def test_the_same_input_gives_identical_output(pipeline):
 
 def _chunked_equals_whole(pipeline, frame, S, E, cuts):
     whole = pipeline.process(_slice(frame, pipeline, S, E), S, E)
-    parts = [pipeline.process(_slice(frame, pipeline, s, e), s, e) for s, e in zip(cuts, cuts[1:])]
+    parts = [pipeline.process(_slice(frame, pipeline, s, e), s, e) for s, e in pairwise(cuts)]
     pd.testing.assert_frame_equal(pd.concat([p.samples for p in parts]), whole.samples)
     pd.testing.assert_frame_equal(pd.concat([p.windows for p in parts]), whole.windows)
     return whole
@@ -179,7 +199,9 @@ def test_bad_raw_data_is_flagged_never_a_crash(pipeline):
     dup = sub.loc[[t0 + pd.Timedelta("6min")]].copy()
     dup["gross_output"] = 1.0
     sub = pd.concat([sub, dup])  # a duplicate time stamp: the later sample wins
-    sub = sub.drop(sub.index[(sub.index > t0 + pd.Timedelta("20min")) & (sub.index < t0 + pd.Timedelta("50min"))])
+    sub = sub.drop(
+        sub.index[(sub.index > t0 + pd.Timedelta("20min")) & (sub.index < t0 + pd.Timedelta("50min"))]
+    )
     r = pipeline.process(sub, s, e)
     flags = r.samples["quality_flags"]
     for t in (t0, t0 + pd.Timedelta("2min"), t0 + pd.Timedelta("4min")):
@@ -200,6 +222,7 @@ def test_spike_window_in_samples_follows_the_sample_spacing():
 
 # --- baseline deviation and alarms ----------------------------------------------------------
 
+
 @pytest.fixture(scope="module")
 def baseline_pipeline(tmp_path_factory):
     # reference period: the first day of the history
@@ -208,8 +231,11 @@ def baseline_pipeline(tmp_path_factory):
 start = "{ws.START.isoformat()}"
 end = "{(ws.START + pd.Timedelta(days=1)).isoformat()}"
 """
-    path = ws.write_config(tmp_path_factory.mktemp("cfgb") / "unit.toml",
-                           ws.store_toml("sqlite", path="unit.sqlite"), extra=extra)
+    path = ws.write_config(
+        tmp_path_factory.mktemp("cfgb") / "unit.toml",
+        ws.store_toml("sqlite", path="unit.sqlite"),
+        extra=extra,
+    )
     return Pipeline(load_config(path))
 
 
@@ -236,7 +262,9 @@ def test_deviation_from_a_fitted_baseline_only_after_the_reference_period(baseli
 def test_alarm_events_are_not_raised_twice_when_a_window_is_processed_again(pipeline):
     frame = ws.history(1.0, freq="5min").copy()
     s, e = ws.START + pd.Timedelta("6h"), ws.START + pd.Timedelta("14h")
-    frame.loc[(frame.index >= s + pd.Timedelta("1h")) & (frame.index < s + pd.Timedelta("3h")), "crossover_t"] = np.nan
+    frame.loc[
+        (frame.index >= s + pd.Timedelta("1h")) & (frame.index < s + pd.Timedelta("3h")), "crossover_t"
+    ] = np.nan
     sub = _slice(frame, pipeline, s, e)
     first = pipeline.process(sub, s, e, alarm_state=None)
     ev = first.alarm_events
@@ -281,8 +309,11 @@ def test_absent_rows_raise_one_no_data_alarm_and_no_tag_alarms(pipeline):
 
 def test_no_data_limit_zero_switches_the_historian_alarm_off(tmp_path):
     # for historians that store exceptions only: [alarms] no_data_limit = "0s"
-    path = ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="unit.sqlite"),
-                           extra='[alarms]\nno_data_limit = "0s"\n')
+    path = ws.write_config(
+        tmp_path / "unit.toml",
+        ws.store_toml("sqlite", path="unit.sqlite"),
+        extra='[alarms]\nno_data_limit = "0s"\n',
+    )
     off = Pipeline(load_config(path))
     assert "no_data" not in [r.name for r in off.alarm_rules()]
     frame = ws.history(1.0, freq="5min")
@@ -308,6 +339,7 @@ def test_absent_row_times_marks_the_sample_grid_inside_gaps_only():
 
 
 # --- configuration keys the chain honours ---------------------------------------------------
+
 
 def _pipeline_with(folder, extra: str) -> Pipeline:
     folder.mkdir(parents=True, exist_ok=True)
@@ -393,24 +425,40 @@ def test_lp_dry_efficiency_source_measured_reaches_calc_sections(tmp_path):
     ok = a.samples["ok"] & np.isfinite(a.samples["lp_elep"]) & np.isfinite(b.samples["lp_elep"])
     assert ok.sum() >= 150
     # the LP dry group itself is the same figure either way; the expansion to the condenser is not
-    np.testing.assert_array_equal(a.samples["lp_dry_efficiency"].to_numpy(), b.samples["lp_dry_efficiency"].to_numpy())
+    np.testing.assert_array_equal(
+        a.samples["lp_dry_efficiency"].to_numpy(), b.samples["lp_dry_efficiency"].to_numpy()
+    )
     for col in ("lp_elep", "lp_efficiency", "lp_moisture"):
         assert (np.abs(a.samples.loc[ok, col] - b.samples.loc[ok, col]) > 1e-6).mean() > 0.9, col
     # the HP and IP figures do not depend on the option
-    np.testing.assert_array_equal(a.samples["hp_efficiency"].to_numpy(), b.samples["hp_efficiency"].to_numpy())
+    np.testing.assert_array_equal(
+        a.samples["hp_efficiency"].to_numpy(), b.samples["hp_efficiency"].to_numpy()
+    )
     # what the pipeline gives with "measured" is calc.sections.evaluate called with that option
     kwargs = dict(design._section_kwargs(), lp_dry_efficiency_source="measured")
     direct = sections.evaluate(sub[measured.roles], **kwargs).to_frame().set_axis(sub.index, axis=0)
     direct = direct.loc[(direct.index >= s) & (direct.index < e)]
-    for col in ("lp_elep", "lp_efficiency", "lp_used_energy_efficiency", "lp_moisture", "lp_x", "lp_enthalpy_drop",
-                "lp_elep_u", "lp_efficiency_u", "lp_moisture_u", "lp_dry_efficiency"):
+    for col in (
+        "lp_elep",
+        "lp_efficiency",
+        "lp_used_energy_efficiency",
+        "lp_moisture",
+        "lp_x",
+        "lp_enthalpy_drop",
+        "lp_elep_u",
+        "lp_efficiency_u",
+        "lp_moisture_u",
+        "lp_dry_efficiency",
+    ):
         rtol = ws.SAME_RTOL_U if col.endswith("_u") else ws.SAME_RTOL
-        np.testing.assert_allclose(b.samples[col].to_numpy(), direct[col].to_numpy(), rtol=rtol, atol=0,
-                                   equal_nan=True, err_msg=col)
+        np.testing.assert_allclose(
+            b.samples[col].to_numpy(), direct[col].to_numpy(), rtol=rtol, atol=0, equal_nan=True, err_msg=col
+        )
     # steady windows are computed from their mean readings with the same option
     assert len(b.windows) >= 1
     means = b.windows[measured.roles].reset_index(drop=True)
     of_windows = sections.evaluate(means, **kwargs).to_frame()
-    np.testing.assert_allclose(b.windows["lp_elep"].to_numpy(), of_windows["lp_elep"].to_numpy(),
-                               rtol=ws.SAME_RTOL, equal_nan=True)
+    np.testing.assert_allclose(
+        b.windows["lp_elep"].to_numpy(), of_windows["lp_elep"].to_numpy(), rtol=ws.SAME_RTOL, equal_nan=True
+    )
     assert not np.allclose(a.windows["lp_elep"].to_numpy(), b.windows["lp_elep"].to_numpy(), rtol=1e-6)

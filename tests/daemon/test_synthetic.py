@@ -11,6 +11,7 @@ from __future__ import annotations
 import json
 import math
 import tomllib
+from itertools import pairwise
 
 import numpy as np
 import pandas as pd
@@ -51,7 +52,9 @@ def _good_rows(frame, truth, state, min_load=0.3):
     for key in ("flatline", "spike"):
         fault = truth.get(key)
         if fault:
-            ok &= ~((frame.index >= pd.Timestamp(fault["start"])) & (frame.index < pd.Timestamp(fault["end"])))
+            ok &= ~(
+                (frame.index >= pd.Timestamp(fault["start"])) & (frame.index < pd.Timestamp(fault["end"]))
+            )
     # skip the first hours after each start-up (temperatures still rising)
     for t_on in truth["startups"]:
         t_on = pd.Timestamp(t_on)
@@ -80,8 +83,9 @@ def test_same_seed_same_history_other_seed_differs():
     c, _ = syn.generate(start="2025-05-01", days=3, seed=12)
     pd.testing.assert_frame_equal(a, b)
     assert json.dumps(ta, sort_keys=True) == json.dumps(tb, sort_keys=True)
-    assert not np.allclose(a["throttle_t"].to_numpy(), c["throttle_t"].reindex(a.index).to_numpy(),
-                           equal_nan=True)
+    assert not np.allclose(
+        a["throttle_t"].to_numpy(), c["throttle_t"].reindex(a.index).to_numpy(), equal_nan=True
+    )
 
 
 # --- physical consistency -------------------------------------------------------------------
@@ -89,9 +93,16 @@ def test_pressures_fall_through_the_cycle(history):
     frame, truth, state = history
     rows = _good_rows(frame, truth, state, min_load=0.05)
     f = frame.loc[rows]
-    chain = ["throttle_p", "first_stage_p", "cold_reheat_p", "hot_reheat_p", "crossover_p",
-             "lp_extraction_p", "condenser_p"]
-    for upstream, downstream in zip(chain, chain[1:]):
+    chain = [
+        "throttle_p",
+        "first_stage_p",
+        "cold_reheat_p",
+        "hot_reheat_p",
+        "crossover_p",
+        "lp_extraction_p",
+        "condenser_p",
+    ]
+    for upstream, downstream in pairwise(chain):
         assert (f[upstream] > f[downstream]).all(), (upstream, downstream)
     # reheater pressure drop 8 % of cold reheat (common practice: 7-10 %)
     drop = 1 - f["hot_reheat_p"] / f["cold_reheat_p"]
@@ -108,8 +119,11 @@ def test_outlet_temperatures_below_inlets_and_expansion_superheated(history):
     sample = f.iloc[:: max(1, len(f) // 60)]
     for _, r in sample.iterrows():
         # saturation temperature from iapws (reference library); 10 K margin of superheat
-        for p_role, t_role in (("cold_reheat_p", "cold_reheat_t"), ("crossover_p", "crossover_t"),
-                               ("lp_extraction_p", "lp_extraction_t")):
+        for p_role, t_role in (
+            ("cold_reheat_p", "cold_reheat_t"),
+            ("crossover_p", "crossover_t"),
+            ("lp_extraction_p", "lp_extraction_t"),
+        ):
             t_sat = IAPWS97(P=float(r[p_role]), x=0.0).T
             assert r[t_role] > t_sat + 10.0, (p_role, r[p_role], r[t_role], t_sat)
 
@@ -155,10 +169,12 @@ def test_noisy_readings_give_the_truth_within_noise(history):
     for t in sample:
         r = frame.loc[t]
         s = state.loc[t]
-        err["hp"].append(_eff_iapws(r["throttle_p"], r["throttle_t"], r["cold_reheat_p"], r["cold_reheat_t"])
-                         - s["eta_hp"])
-        err["ip"].append(_eff_iapws(r["hot_reheat_p"], r["hot_reheat_t"], r["crossover_p"], r["crossover_t"])
-                         - s["eta_ip"])
+        err["hp"].append(
+            _eff_iapws(r["throttle_p"], r["throttle_t"], r["cold_reheat_p"], r["cold_reheat_t"]) - s["eta_hp"]
+        )
+        err["ip"].append(
+            _eff_iapws(r["hot_reheat_p"], r["hot_reheat_t"], r["crossover_p"], r["crossover_t"]) - s["eta_ip"]
+        )
     for section, e in err.items():
         e = np.asarray(e)
         # 0.4 K on each temperature and 0.07 % on each pressure give a per-sample standard
@@ -178,9 +194,10 @@ def test_hp_loses_about_1_6_points_after_4000_operating_hours():
         out = []
         for t in rows:
             r = frame.loc[t]
-            out.append(_eff_iapws(r["throttle_p"], r["throttle_t"], r["cold_reheat_p"], r["cold_reheat_t"])
-                       - (syn.design_efficiency("hp", st.loc[t, "load_fraction"])
-                          - syn.design_efficiency("hp", 1.0)))  # refer to full load
+            out.append(
+                _eff_iapws(r["throttle_p"], r["throttle_t"], r["cold_reheat_p"], r["cold_reheat_t"])
+                - (syn.design_efficiency("hp", st.loc[t, "load_fraction"]) - syn.design_efficiency("hp", 1.0))
+            )  # refer to full load
         return np.mean(out)
 
     early = near_full & (st["operating_hours"] < 300)
@@ -211,11 +228,18 @@ def test_ip_steps_down_one_point_at_the_restart_after_the_trip(history):
     assert len(before) == 40 and len(after) == 40
 
     def implied(rows):
-        return np.mean([
-            _eff_iapws(frame.at[t, "hot_reheat_p"], frame.at[t, "hot_reheat_t"],
-                       frame.at[t, "crossover_p"], frame.at[t, "crossover_t"])
-            - syn.design_efficiency("ip", state.at[t, "load_fraction"])
-            for t in rows])
+        return np.mean(
+            [
+                _eff_iapws(
+                    frame.at[t, "hot_reheat_p"],
+                    frame.at[t, "hot_reheat_t"],
+                    frame.at[t, "crossover_p"],
+                    frame.at[t, "crossover_t"],
+                )
+                - syn.design_efficiency("ip", state.at[t, "load_fraction"])
+                for t in rows
+            ]
+        )
 
     step = 100 * (implied(after) - implied(before))
     assert step == pytest.approx(-1.0, abs=0.15)  # 40-sample means: noise ~0.035 point each
@@ -231,12 +255,19 @@ def test_lp_dry_efficiency_constant_and_recovered(history):
     first, last = rows[:1800:60], rows[-1800::60]
 
     def implied(rows):
-        return np.mean([
-            _eff_iapws(frame.at[t, "crossover_p"], frame.at[t, "crossover_t"],
-                       frame.at[t, "lp_extraction_p"], frame.at[t, "lp_extraction_t"])
-            - syn.design_efficiency("lp", state.at[t, "load_fraction"])
-            + syn.design_efficiency("lp", 1.0)
-            for t in rows])
+        return np.mean(
+            [
+                _eff_iapws(
+                    frame.at[t, "crossover_p"],
+                    frame.at[t, "crossover_t"],
+                    frame.at[t, "lp_extraction_p"],
+                    frame.at[t, "lp_extraction_t"],
+                )
+                - syn.design_efficiency("lp", state.at[t, "load_fraction"])
+                + syn.design_efficiency("lp", 1.0)
+                for t in rows
+            ]
+        )
 
     a, b = implied(first), implied(last)
     assert a == pytest.approx(0.880, abs=0.003)  # the scenario's LP dry design value
@@ -249,7 +280,7 @@ def test_outages_trip_and_startups(history):
     assert kinds.count("trip") == 1 and kinds.count("shutdown") >= 2
     for e in truth["outages"]:
         off, on = pd.Timestamp(e["offline"]), pd.Timestamp(e["online"])
-        inside = state.loc[off: on - pd.Timedelta("1min")]
+        inside = state.loc[off : on - pd.Timedelta("1min")]
         assert not inside["online"].any()
         assert state.loc[off - pd.Timedelta("1min"), "online"]
         assert state.loc[on, "online"]
@@ -284,8 +315,9 @@ def test_load_cycles_daily_with_weekend_lows_and_limited_ramps(history):
 
 
 def test_condenser_pressure_is_seasonal():
-    frame, truth, state = syn.generate_with_state(start="2025-01-01", days=365, freq="1h", seed=5,
-                                                  faults=False)
+    frame, truth, state = syn.generate_with_state(
+        start="2025-01-01", days=365, freq="1h", seed=5, faults=False
+    )
     st = state.reindex(frame.index)
     p = frame["condenser_p"][st["online"] & (st["load_fraction"] > 0.9)] * 1000  # kPa
     jan = p[p.index.month == 1].mean()
@@ -333,32 +365,44 @@ def test_flatline_gap_and_spike_are_where_the_truth_says(history):
 def test_faults_can_be_placed_and_switched_off():
     t0 = pd.Timestamp("2025-06-02", tz="UTC")
     frame, truth, state = syn.generate_with_state(
-        start=t0, days=6, seed=1, shutdowns=[], trip_at=t0 + pd.Timedelta(days=3, hours=15),
-        flatline_at=t0 + pd.Timedelta(days=1), flatline_role="crossover_p", flatline_days=1,
-        gap_at=t0 + pd.Timedelta(days=4), gap_hours=3, spike_at=None)
+        start=t0,
+        days=6,
+        seed=1,
+        shutdowns=[],
+        trip_at=t0 + pd.Timedelta(days=3, hours=15),
+        flatline_at=t0 + pd.Timedelta(days=1),
+        flatline_role="crossover_p",
+        flatline_days=1,
+        gap_at=t0 + pd.Timedelta(days=4),
+        gap_hours=3,
+        spike_at=None,
+    )
     assert truth["spike"] is None and truth["flatline"]["role"] == "crossover_p"
     assert truth["gap"]["missing_samples"] == 180
     assert [e["kind"] for e in truth["outages"]] == ["trip"]
     # a frozen gauge/absolute transmitter holds its *plant* reading
     plant = syn.to_plant_units(frame)
     fl = truth["flatline"]
-    held = plant.loc[fl["start"]: pd.Timestamp(fl["end"]) - pd.Timedelta("1min"), "crossover_p"]
+    held = plant.loc[fl["start"] : pd.Timestamp(fl["end"]) - pd.Timedelta("1min"), "crossover_p"]
     assert held.nunique() == 1 and len(held) == 1440
     frame2, truth2 = syn.generate(start=t0, days=6, seed=1, faults=False, trip_at=None, shutdowns=[])
     assert truth2["flatline"] is None and truth2["gap"] is None and truth2["trip"] is None
     assert truth2["ip"]["step_points"] == 0.0 and len(frame2) == 6 * 1440
 
 
-@pytest.mark.parametrize("kwargs, message", [
-    (dict(freq="2h"), "freq"),
-    (dict(days=0), "days"),
-    (dict(days=400, freq="1s"), "rows"),
-    (dict(flatline_role="boiler_drum_level"), "boiler_drum_level"),
-    (dict(trip_at="2024-12-01"), "outside"),
-    (dict(shutdowns=[("2025-01-02", 10)], trip_at="2025-01-02 05:00"), "starts before"),
-    (dict(gap_at="2026-01-01"), "outside"),
-    (dict(gap_at="2025-01-01 22:00", flatline_at="2025-01-02", flatline_days=1), "overlaps the flatline"),
-])
+@pytest.mark.parametrize(
+    "kwargs, message",
+    [
+        (dict(freq="2h"), "freq"),
+        (dict(days=0), "days"),
+        (dict(days=400, freq="1s"), "rows"),
+        (dict(flatline_role="boiler_drum_level"), "boiler_drum_level"),
+        (dict(trip_at="2024-12-01"), "outside"),
+        (dict(shutdowns=[("2025-01-02", 10)], trip_at="2025-01-02 05:00"), "starts before"),
+        (dict(gap_at="2026-01-01"), "outside"),
+        (dict(gap_at="2025-01-01 22:00", flatline_at="2025-01-02", flatline_days=1), "overlaps the flatline"),
+    ],
+)
 def test_bad_arguments_raise_clear_errors(kwargs, message):
     args = dict(start="2025-01-01", days=5, seed=1)
     args.update(kwargs)
@@ -372,8 +416,21 @@ def test_truth_is_json_and_round_trips(history, tmp_path):
     path = syn.write_truth(truth, tmp_path / "truth.json")
     back = syn.read_truth(path)
     assert back == json.loads(json.dumps(truth))
-    for key in ("hp", "ip", "trip", "outages", "startups", "shutdowns", "flatline", "gap", "spike",
-                "operating_hours", "efficiency_daily", "scenario", "generator"):
+    for key in (
+        "hp",
+        "ip",
+        "trip",
+        "outages",
+        "startups",
+        "shutdowns",
+        "flatline",
+        "gap",
+        "spike",
+        "operating_hours",
+        "efficiency_daily",
+        "scenario",
+        "generator",
+    ):
         assert key in back
     daily = back["efficiency_daily"]
     assert len(daily["date"]) == len(daily["eta_hp_mean"]) == 20
@@ -397,8 +454,9 @@ def test_plant_units_round_trip_and_match_calc_units(history):
     unit_of = {role: entry["unit"] for role, entry in syn.TAG_MAP.items()}
     internal = units.to_internal(plant.iloc[:3000], unit_of)
     for role in syn.TAG_MAP:
-        np.testing.assert_allclose(internal[role].to_numpy(), frame[role].iloc[:3000].to_numpy(),
-                                   rtol=1e-6, atol=1e-9, err_msg=role)
+        np.testing.assert_allclose(
+            internal[role].to_numpy(), frame[role].iloc[:3000].to_numpy(), rtol=1e-6, atol=1e-9, err_msg=role
+        )
 
 
 def test_tag_map_toml_and_role_mappings():
@@ -436,7 +494,7 @@ def _approx_equal(a, b, path="truth"):
             _approx_equal(a[k], b[k], f"{path}.{k}")
     elif isinstance(a, list):
         assert isinstance(b, list) and len(a) == len(b), path
-        for i, (x, y) in enumerate(zip(a, b)):
+        for i, (x, y) in enumerate(zip(a, b, strict=True)):
             _approx_equal(x, y, f"{path}[{i}]")
     elif isinstance(a, float) and isinstance(b, float):
         assert a == pytest.approx(b, rel=1e-7, abs=1e-9), path
@@ -452,8 +510,9 @@ def test_golden_case_regenerates_identically(tmp_path):
     assert list(new.index) == list(old.index) and list(new.columns) == list(old.columns)
     # the CSV keeps 6 significant digits
     np.testing.assert_allclose(new.to_numpy(), old.to_numpy(), rtol=2e-6, atol=1e-9)
-    _approx_equal(json.loads((tmp_path / "truth.json").read_text()),
-                  json.loads((CASE / "truth.json").read_text()))
+    _approx_equal(
+        json.loads((tmp_path / "truth.json").read_text()), json.loads((CASE / "truth.json").read_text())
+    )
     assert (tmp_path / "config.toml").read_text() == (CASE / "config.toml").read_text()
 
 
@@ -476,7 +535,7 @@ def test_events_table_lists_every_injection(history):
     assert {"ip_step", "flatline", "gap", "spike"} <= set(kinds)
     offline = table[table["kind"].isin(["shutdown", "trip"])]
     for _, row in offline.iterrows():
-        assert not state.loc[row["start"]: row["end"] - pd.Timedelta("1min"), "online"].any()
+        assert not state.loc[row["start"] : row["end"] - pd.Timedelta("1min"), "online"].any()
     # outside the offline rows the unit is online
     mask = pd.Series(True, index=state.index)
     for _, row in offline.iterrows():

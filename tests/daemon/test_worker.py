@@ -4,6 +4,7 @@ the checkpoint never moves past unwritten results."""
 from __future__ import annotations
 
 import random
+from itertools import pairwise
 
 import numpy as np
 import pandas as pd
@@ -21,6 +22,7 @@ def utc(s: str) -> pd.Timestamp:
 
 # --- plan_windows --------------------------------------------------------------------------
 
+
 def test_normal_cycle_processes_from_checkpoint_minus_lookback_to_now_minus_settle():
     windows = plan_windows(utc("2025-03-01 10:00"), utc("2025-03-01 10:07:30"), "2m", "30m", "1d")
     assert windows == [(utc("2025-03-01 09:30"), utc("2025-03-01 10:05:30"))]
@@ -33,7 +35,7 @@ def test_windows_are_contiguous_and_cover_the_whole_span_after_an_outage():
     windows = plan_windows(checkpoint, now, "2m", "30m", "1d")
     assert windows[0][0] == utc("2025-03-01 09:30")
     assert windows[-1][1] == utc("2025-03-04 21:58")
-    for (s0, e0), (s1, e1) in zip(windows, windows[1:]):
+    for (_, e0), (s1, _) in pairwise(windows):
         assert e0 == s1  # nothing skipped, nothing twice
     assert all(e - s <= pd.Timedelta(days=1) for s, e in windows)
     # Chunk boundaries fall on whole days (UTC), whatever the checkpoint was.
@@ -88,6 +90,7 @@ def test_floor_time_counts_from_the_epoch():
 
 # --- retries with a fake sleep ---------------------------------------------------------------
 
+
 class Flaky:
     """Fails with the given exception ``n`` times, then returns ``value``."""
 
@@ -104,12 +107,13 @@ class Flaky:
 def test_temporary_errors_are_retried_with_growing_capped_jittered_delays():
     slept: list[float] = []
     fn = Flaky(4, TemporaryStoreError("connection refused"))
-    out = call_with_retry(fn, what="test", retries=5, backoff="2s", backoff_max="10s",
-                          sleep=slept.append, rng=random.Random(1))
+    out = call_with_retry(
+        fn, what="test", retries=5, backoff="2s", backoff_max="10s", sleep=slept.append, rng=random.Random(1)
+    )
     assert out == "done" and fn.calls == 5
     assert len(slept) == 4
     nominal = [2, 4, 8, 10]  # doubling, capped at backoff_max
-    for d, n in zip(slept, nominal):
+    for d, n in zip(slept, nominal, strict=True):
         assert 0.5 * n <= d <= n
 
 
@@ -117,8 +121,15 @@ def test_retries_give_up_with_the_last_temporary_error():
     slept: list[float] = []
     fn = Flaky(10, TemporaryStoreError("timeout"))
     with pytest.raises(TemporaryStoreError, match="timeout"):
-        call_with_retry(fn, what="test", retries=3, backoff="1s", backoff_max="1m", sleep=slept.append,
-                        rng=random.Random(2))
+        call_with_retry(
+            fn,
+            what="test",
+            retries=3,
+            backoff="1s",
+            backoff_max="1m",
+            sleep=slept.append,
+            rng=random.Random(2),
+        )
     assert fn.calls == 4 and len(slept) == 3
 
 
@@ -151,7 +162,9 @@ FIRST = ws.START + pd.Timedelta("5h")  # leaves the pipeline its 3h50 of history
 
 @pytest.fixture(scope="module")
 def config(tmp_path_factory):
-    path = ws.write_config(tmp_path_factory.mktemp("cfg") / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"))
+    path = ws.write_config(
+        tmp_path_factory.mktemp("cfg") / "unit.toml", ws.store_toml("sqlite", path="x.sqlite")
+    )
     return load_config(path)
 
 
@@ -166,14 +179,23 @@ def raw():
 
 
 def make_worker(config, pipeline, store, clock, slept=None, **kw):
-    return Worker.from_config(config, store, pipeline=pipeline, start_default=FIRST, clock=clock,
-                              sleep=(slept.append if slept is not None else (lambda s: None)),
-                              rng=random.Random(3), **kw)
+    return Worker.from_config(
+        config,
+        store,
+        pipeline=pipeline,
+        start_default=FIRST,
+        clock=clock,
+        sleep=(slept.append if slept is not None else (lambda s: None)),
+        rng=random.Random(3),
+        **kw,
+    )
 
 
 def results_of(store):
-    return {m: store.read_results(m, ws.START, ws.START + pd.Timedelta(days=2), {"unit": "Greywater Bend 2"})
-            for m in ws.RESULT_MEASUREMENTS}
+    return {
+        m: store.read_results(m, ws.START, ws.START + pd.Timedelta(days=2), {"unit": "Greywater Bend 2"})
+        for m in ws.RESULT_MEASUREMENTS
+    }
 
 
 def run_cycles(worker, clock, times):
@@ -194,8 +216,9 @@ def test_the_checkpoint_trails_now_by_settle_and_look_ahead_and_results_are_writ
     assert store.checkpoints[worker.checkpoint_name] == clock.now - pd.Timedelta("2min") - after
     samples = results_of(store)["section_samples"]
     assert samples.index.min() == FIRST and samples.index.max() < clock.now - pd.Timedelta("2min")
-    status = store.read_results(STATUS_MEASUREMENT, ws.START, ws.START + pd.Timedelta(days=1),
-                                {"unit": "Greywater Bend 2"})
+    status = store.read_results(
+        STATUS_MEASUREMENT, ws.START, ws.START + pd.Timedelta(days=1), {"unit": "Greywater Bend 2"}
+    )
     assert len(status) == 1
     row = status.iloc[0]
     assert row["lag_s"] == (pd.Timedelta("2min") + after).total_seconds()
@@ -255,8 +278,11 @@ def test_a_failed_write_keeps_its_batch_and_the_checkpoint_stays(config, pipelin
     # ... and what is in the store equals a run that never failed
     clock_ref = ws.FakeClock(ws.START + pd.Timedelta("10h"))
     ref = ws.MemoryStore(raw, clock=clock_ref)
-    run_cycles(make_worker(config, pipeline, ref, clock_ref), clock_ref,
-               [ws.START + pd.Timedelta("10h"), ws.START + pd.Timedelta("11h30min")])
+    run_cycles(
+        make_worker(config, pipeline, ref, clock_ref),
+        clock_ref,
+        [ws.START + pd.Timedelta("10h"), ws.START + pd.Timedelta("11h30min")],
+    )
     ra, rb = results_of(ref), results_of(inner)
     for m in ws.RESULT_MEASUREMENTS:
         if len(ra[m]) or len(rb[m]):
@@ -304,8 +330,9 @@ def test_stop_ends_the_work_between_chunks(config, pipeline, raw):
 def test_the_baseline_is_fitted_once_the_reference_period_is_done_and_deviations_follow(tmp_path):
     first, ref_end = ws.START + pd.Timedelta("4h"), ws.START + pd.Timedelta("30h")
     extra = f'[baseline]\nstart = "{first.isoformat()}"\nend = "{ref_end.isoformat()}"\n'
-    cfg = load_config(ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"),
-                                      extra=extra))
+    cfg = load_config(
+        ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"), extra=extra)
+    )
     clock = ws.FakeClock(ref_end + pd.Timedelta("9h"))
     store = ws.MemoryStore(ws.plant_history(2.0, freq="5min"), clock=clock)
     worker = Worker.from_config(cfg, store, start_default=first, clock=clock, sleep=lambda s: None)
@@ -356,8 +383,11 @@ def test_a_historian_outage_raises_no_data_even_when_whole_cycles_see_no_row(tmp
     # The no_data limit (6 h here) is longer than the pipeline's before-margin (4 h 35),
     # so the alarm is raised in a cycle whose frame holds no row at all: the absence goes on
     # from the time the saved alarm state saw last. One alarm, cleared by the first row back.
-    path = ws.write_config(tmp_path / "unit.toml", ws.store_toml("sqlite", path="x.sqlite"),
-                           extra='[alarms]\nno_data_limit = "6h"\n')
+    path = ws.write_config(
+        tmp_path / "unit.toml",
+        ws.store_toml("sqlite", path="x.sqlite"),
+        extra='[alarms]\nno_data_limit = "6h"\n',
+    )
     config = load_config(path)
     pipeline = Pipeline(config)
     raw = ws.plant_history(1.5, freq="5min")
@@ -368,8 +398,12 @@ def test_a_historian_outage_raises_no_data_even_when_whole_cycles_see_no_row(tmp
     hours = pd.date_range(ws.START + pd.Timedelta("9h"), ws.START + pd.Timedelta("34h"), freq="1h")
     reports = run_cycles(worker, clock, hours)
     assert all(r.ok for r in reports)
-    events = store.read_results("alarm_events", ws.START, ws.START + pd.Timedelta(days=2),
-                                {"unit": "Greywater Bend 2", "section": "historian", "rule": "no_data"})
+    events = store.read_results(
+        "alarm_events",
+        ws.START,
+        ws.START + pd.Timedelta(days=2),
+        {"unit": "Greywater Bend 2", "section": "historian", "rule": "no_data"},
+    )
     last = raw.index[raw.index < stop][-1]
     assert list(events.index) == [last + pd.Timedelta("5min") + pd.Timedelta("6h"), back]
     assert list(events["raised"]) == [1.0, 0.0]
@@ -405,6 +439,7 @@ def test_a_live_outage_is_alarmed_a_settle_after_the_limit_not_an_after_margin_l
 
 # --- writes behind, in a second thread (stores with write_behind, e.g. InfluxDB) ---------------
 
+
 class _BehindStore(ws.FailingStore):
     """A MemoryStore behind the failure injector, written from the worker's second thread; each
     write waits a little so that the next chunk really is computed while it runs, and the
@@ -434,7 +469,10 @@ class _BehindStore(ws.FailingStore):
         return out
 
 
-def _backfill(config, pipeline, store, chunk="2h", until=ws.START + pd.Timedelta("20h"), **kw):
+TWENTY_HOURS = pd.Timedelta("20h")
+
+
+def _backfill(config, pipeline, store, chunk="2h", until=ws.START + TWENTY_HOURS, **kw):
     clock = ws.FakeClock(ws.START + pd.Timedelta(days=3))
     worker = make_worker(config, pipeline, store, clock, chunk=chunk, lookback="0s", settle="0s", **kw)
     return worker, worker.run_cycle(until=until)
@@ -465,7 +503,9 @@ def test_writes_behind_give_what_writes_in_line_give(config, pipeline, raw):
     assert cps == sorted(cps)
 
 
-def test_a_failed_write_behind_keeps_its_batch_drops_the_next_chunk_and_catches_up(config, pipeline, raw, caplog):
+def test_a_failed_write_behind_keeps_its_batch_drops_the_next_chunk_and_catches_up(
+    config, pipeline, raw, caplog
+):
     # The database refuses writes from the third chunk on: the cycle ends with the error of
     # that chunk, the checkpoint stays at the end of the last chunk written, the batch is kept,
     # and the chunk computed meanwhile is dropped (it is computed again). Back, the next cycle
@@ -566,10 +606,16 @@ def test_alarm_events_are_logged_once_when_written(config, pipeline, raw, caplog
         assert worker.run_cycle().ok
         clock.advance("30min")
         assert worker.run_cycle().ok
-    said = [r for r in caplog.records if "alarm raised" in r.getMessage() or "alarm cleared" in r.getMessage()]
+    said = [
+        r for r in caplog.records if "alarm raised" in r.getMessage() or "alarm cleared" in r.getMessage()
+    ]
     raised = [r for r in said if "crossover_t" in r.getMessage() and "raised" in r.getMessage()]
     assert len(raised) == 1 and raised[0].levelno == logging.WARNING
     assert "data" in raised[0].getMessage() or "tag" in raised[0].getMessage()
-    stored = store.read_results("alarm_events", ws.START, ws.START + pd.Timedelta(days=1),
-                                {"unit": "Greywater Bend 2", "section": "crossover_t", "rule": "data_quality"})
+    stored = store.read_results(
+        "alarm_events",
+        ws.START,
+        ws.START + pd.Timedelta(days=1),
+        {"unit": "Greywater Bend 2", "section": "crossover_t", "rule": "data_quality"},
+    )
     assert len(stored) == len([r for r in said if "crossover_t" in r.getMessage()])

@@ -21,7 +21,9 @@ def history(days: float = 1.0, faults: bool = False, seed: int = 11, freq: str =
     return frame
 
 
-def plant_history(days: float = 1.0, faults: bool = False, seed: int = 11, freq: str = "2min") -> pd.DataFrame:
+def plant_history(
+    days: float = 1.0, faults: bool = False, seed: int = 11, freq: str = "2min"
+) -> pd.DataFrame:
     """The same history in the plant units of the synthetic tag mapping."""
     return synthetic.to_plant_units(history(days, faults, seed, freq))
 
@@ -90,8 +92,9 @@ def assert_same_results(a: pd.DataFrame, b: pd.DataFrame, rtol: float = SAME_RTO
         x, y = a[c].to_numpy(), b[c].to_numpy()
         if x.dtype.kind in "fc" or y.dtype.kind in "fc":
             tol = max(rtol, SAME_RTOL_U) if c.endswith("_u") else rtol
-            np.testing.assert_allclose(x.astype(float), y.astype(float), rtol=tol, atol=0, equal_nan=True,
-                                       err_msg=c)
+            np.testing.assert_allclose(
+                x.astype(float), y.astype(float), rtol=tol, atol=0, equal_nan=True, err_msg=c
+            )
         else:
             assert (x == y).all(), c
 
@@ -141,8 +144,7 @@ class MemoryStore(Store):
         return int(frame.size)
 
     def read_results(self, measurement, start, end, tags):
-        parts = [f for (m, t), f in self.results.items()
-                 if m == measurement and set(tags.items()) <= set(t)]
+        parts = [f for (m, t), f in self.results.items() if m == measurement and set(tags.items()) <= set(t)]
         if not parts:
             return pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
         out = pd.concat(parts).sort_index()

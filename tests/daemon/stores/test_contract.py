@@ -49,8 +49,15 @@ def case(request, tmp_path):
         db = server.new_database("contract")
 
         def make(**o):
-            return open_store("influx2", url=o.get("url", server.url), org="-", bucket=o.get("bucket", server.bucket(db)),
-                              token="", timeout=5, retries=1)
+            return open_store(
+                "influx2",
+                url=o.get("url", server.url),
+                org="-",
+                bucket=o.get("bucket", server.bucket(db)),
+                token="",
+                timeout=5,
+                retries=1,
+            )
 
         c = Case(name, make, server)
     else:
@@ -58,8 +65,13 @@ def case(request, tmp_path):
         db = server.new_database("contract")
 
         def make(**o):
-            return open_store("influx1", url=o.get("url", server.url), database=o.get("database", db),
-                              retention_policy=o.get("retention_policy", "autogen"), timeout=5)
+            return open_store(
+                "influx1",
+                url=o.get("url", server.url),
+                database=o.get("database", db),
+                retention_policy=o.get("retention_policy", "autogen"),
+                timeout=5,
+            )
 
         c = Case(name, make, server)
     yield c
@@ -70,8 +82,14 @@ def mappings():
     return [
         RoleMapping(role="throttle_p", tag="U7.MS.P", unit="MPa", measurement="plant", tags={"unit": "U7"}),
         RoleMapping(role="throttle_t", tag="U7.MS.T", unit="degC", measurement="plant", tags={"unit": "U7"}),
-        RoleMapping(role="condenser_p", tag="U7.COND.P", unit="kPa", measurement="condenser", field="pabs",
-                    tags={"unit": "U7", "side": "A"}),
+        RoleMapping(
+            role="condenser_p",
+            tag="U7.COND.P",
+            unit="kPa",
+            measurement="condenser",
+            field="pabs",
+            tags={"unit": "U7", "side": "A"},
+        ),
     ]
 
 
@@ -249,7 +267,10 @@ def test_checkpoint_round_trip(case):
 
 def test_state_round_trip(case):
     assert case.store.load_state("alarms") == {}
-    state = {"hp": {"state": "raised", "since": "2026-03-01T00:00:00Z", "count": 3}, "text": 'say "hi", \\ ok'}
+    state = {
+        "hp": {"state": "raised", "since": "2026-03-01T00:00:00Z", "count": 3},
+        "text": 'say "hi", \\ ok',
+    }
     case.store.save_state("alarms", state)
     assert case.store.load_state("alarms") == state
     case.store.save_state("alarms", {"hp": {"state": "clear"}})
@@ -261,12 +282,12 @@ def test_state_round_trip(case):
 
 # --- awkward names ---------------------------------------------------------------------------
 AWKWARD = [
-    'with space',
-    'com,ma',
-    'eq=ual',
+    "with space",
+    "com,ma",
+    "eq=ual",
     'dq"uote',
     "sq'uote",
-    'back\\slash',
+    "back\\slash",
     'x") |> drop(columns: ["_value"]) //',
     "a' OR 1=1 --",
     'b" OR 1=1 --',
@@ -277,11 +298,31 @@ AWKWARD = [
 
 def test_awkward_names_round_trip(case):
     maps = [
-        RoleMapping(role=role, tag=f"tag {name}", unit="MPa", measurement=f"m {name}", field=f"f {name}",
-                    tags={f"k {name}": f"v {name}"})
-        for role, name in zip(["throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t", "hot_reheat_p",
-                               "hot_reheat_t", "crossover_p", "crossover_t", "condenser_p", "gross_output",
-                               "main_steam_flow"], AWKWARD)
+        RoleMapping(
+            role=role,
+            tag=f"tag {name}",
+            unit="MPa",
+            measurement=f"m {name}",
+            field=f"f {name}",
+            tags={f"k {name}": f"v {name}"},
+        )
+        for role, name in zip(
+            [
+                "throttle_p",
+                "throttle_t",
+                "cold_reheat_p",
+                "cold_reheat_t",
+                "hot_reheat_p",
+                "hot_reheat_t",
+                "crossover_p",
+                "crossover_t",
+                "condenser_p",
+                "gross_output",
+                "main_steam_flow",
+            ],
+            AWKWARD,
+            strict=True,
+        )
     ]
     idx = pd.date_range(T0, periods=3, freq="1min", tz="UTC")
     frame = pd.DataFrame({m.role: np.arange(3) + 10.0 * i for i, m in enumerate(maps)}, index=idx)
@@ -292,9 +333,16 @@ def test_awkward_names_round_trip(case):
     name = AWKWARD[6]
     res = pd.DataFrame({f"eff {n}": [0.5 + i / 100] for i, n in enumerate(AWKWARD)}, index=idx[:1])
     case.store.write_results(f"results {name}", res, {f"unit {AWKWARD[7]}": f"U7 {AWKWARD[8]}"})
-    back = case.store.read_results(f"results {name}", T0, T0 + pd.Timedelta("1h"), {f"unit {AWKWARD[7]}": f"U7 {AWKWARD[8]}"})
-    pd.testing.assert_frame_equal(back, res.reindex(columns=sorted(res.columns)).rename_axis("time")
-                                  .set_axis(idx[:1].as_unit("ns").rename("time")), check_freq=False)
+    back = case.store.read_results(
+        f"results {name}", T0, T0 + pd.Timedelta("1h"), {f"unit {AWKWARD[7]}": f"U7 {AWKWARD[8]}"}
+    )
+    pd.testing.assert_frame_equal(
+        back,
+        res.reindex(columns=sorted(res.columns))
+        .rename_axis("time")
+        .set_axis(idx[:1].as_unit("ns").rename("time")),
+        check_freq=False,
+    )
     case.store.set_checkpoint(name, T0)
     assert case.store.get_checkpoint(name) == T0
 
@@ -303,7 +351,13 @@ def test_names_cannot_change_query_meaning(case):
     """A name that looks like query syntax selects nothing, never other data."""
     plain = [RoleMapping(role="throttle_p", tag="a", unit="MPa", field="a", tags={"unit": "U7"})]
     case.store.write_raw(plain, raw_frame(n=3)[["throttle_p"]])
-    for evil in ["a' OR 1=1 --", 'a" OR 1=1 --', 'a") |> filter(fn: (r) => true) //', "a' OR 'a'='a", 'a" or r._field != "']:
+    for evil in [
+        "a' OR 1=1 --",
+        'a" OR 1=1 --',
+        'a") |> filter(fn: (r) => true) //',
+        "a' OR 'a'='a",
+        'a" or r._field != "',
+    ]:
         probe = [RoleMapping(role="throttle_p", tag=evil, unit="MPa", field=evil, tags={"unit": "U7"})]
         assert case.store.read_raw(probe, T0, T0 + pd.Timedelta("1h"))["throttle_p"].isna().all(), evil
         if case.name == "sqlite":
@@ -396,4 +450,6 @@ def test_a_refused_write_leaves_the_store_usable(case):
         case.store.write_results("sections", frame.rename(columns={"hp_efficiency": "unit"}), {"unit": "U7"})
     case.store.write_results("sections", frame + 0.01, {"unit": "U7"})
     got = case.store.read_results("sections", T0, T0 + pd.Timedelta("1D"), {"unit": "U7"})
-    np.testing.assert_allclose(got["hp_efficiency"].to_numpy(), (frame["hp_efficiency"] + 0.01).to_numpy(), rtol=0, atol=0)
+    np.testing.assert_allclose(
+        got["hp_efficiency"].to_numpy(), (frame["hp_efficiency"] + 0.01).to_numpy(), rtol=0, atol=0
+    )

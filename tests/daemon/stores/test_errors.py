@@ -21,7 +21,11 @@ def test_other_statuses_are_fatal(status):
 
 @pytest.mark.parametrize(
     "body",
-    ['{"error":"failed to initialize execute state: no database"}', 'database not found: "x"', "bucket not found"],
+    [
+        '{"error":"failed to initialize execute state: no database"}',
+        'database not found: "x"',
+        "bucket not found",
+    ],
 )
 def test_a_missing_target_is_fatal_even_as_500(body):
     assert isinstance(classify_http(500, body, "query"), FatalStoreError)

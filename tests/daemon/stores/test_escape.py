@@ -19,9 +19,9 @@ from isentrope.daemon.stores import escape as e
 
 
 def test_flux_string():
-    assert e.flux_string('plain') == '"plain"'
+    assert e.flux_string("plain") == '"plain"'
     assert e.flux_string('a"b') == '"a\\"b"'
-    assert e.flux_string('a\\b') == '"a\\\\b"'
+    assert e.flux_string("a\\b") == '"a\\\\b"'
     assert e.flux_string('x") |> drop(') == '"x\\") |> drop("'
     assert e.flux_string("cost ${x}") == '"cost \\${x}"'
 
@@ -46,7 +46,14 @@ def test_line_protocol_escaping():
 
 @pytest.mark.parametrize("bad", ["a\nb", "a\rb", "a\x00b", "a\tb", "a\x1fb", ""])
 def test_bad_names_rejected(bad):
-    for fn in (e.lp_measurement, e.lp_tag_key, e.lp_tag_value, e.lp_field_key, e.influxql_identifier, e.check_name):
+    for fn in (
+        e.lp_measurement,
+        e.lp_tag_key,
+        e.lp_tag_value,
+        e.lp_field_key,
+        e.influxql_identifier,
+        e.check_name,
+    ):
         with pytest.raises(ValueError):
             fn(bad)
 
@@ -66,13 +73,15 @@ def test_hash_measurement_rejected_and_nan_float():
         e.flux_string("a\nb")
 
 
-names = st.text(
-    alphabet=st.characters(blacklist_categories=("Cs", "Cc")), min_size=1, max_size=12
-).filter(lambda s: not s.endswith("\\") and not any(f"\\{c}" in s for c in ",= ") and not s.startswith("#"))
+names = st.text(alphabet=st.characters(blacklist_categories=("Cs", "Cc")), min_size=1, max_size=12).filter(
+    lambda s: not s.endswith("\\") and not any(f"\\{c}" in s for c in ",= ") and not s.startswith("#")
+)
 
 
 def _post(url, path, params, body=None, headers=None):
-    req = urllib.request.Request(url + path + "?" + urllib.parse.urlencode(params), data=body, headers=headers or {})
+    req = urllib.request.Request(
+        url + path + "?" + urllib.parse.urlencode(params), data=body, headers=headers or {}
+    )
     with urllib.request.urlopen(req, timeout=30) as resp:
         return resp.read()
 
@@ -98,5 +107,15 @@ def test_names_round_trip_on_a_real_server(influxdb_v1, measurement, key, value,
     assert series[0]["name"] == measurement
     assert series[0]["columns"] == ["time", field]
     assert series[0]["values"] == [[1000, 1.5]]
-    tags = json.loads(_post(server.url, "/query", {"db": db, "q": f"SHOW TAG VALUES FROM {e.influxql_identifier(measurement)} WITH KEY = {e.influxql_identifier(key)}"}, b""))
+    tags = json.loads(
+        _post(
+            server.url,
+            "/query",
+            {
+                "db": db,
+                "q": f"SHOW TAG VALUES FROM {e.influxql_identifier(measurement)} WITH KEY = {e.influxql_identifier(key)}",
+            },
+            b"",
+        )
+    )
     assert [v[1] for v in tags["results"][0]["series"][0]["values"]] == [value]

@@ -27,16 +27,36 @@ T0 = pd.Timestamp("2026-04-01T06:00:00Z")
 def results(n=5):
     idx = pd.date_range(T0, periods=n, freq="15min", tz="UTC")
     return pd.DataFrame(
-        {"hp_efficiency": 0.8612 + np.arange(n) / 1000, "hp efficiency, \"corrected\"": 0.85 + np.arange(n) / 1000},
+        {
+            "hp_efficiency": 0.8612 + np.arange(n) / 1000,
+            'hp efficiency, "corrected"': 0.85 + np.arange(n) / 1000,
+        },
         index=idx,
     )
 
 
 def run_cli(cli, server, db, q):
     out = subprocess.run(
-        [cli, "-host", "127.0.0.1", "-port", str(server.port), "-database", db, "-execute", q,
-         "-format", "csv", "-precision", "rfc3339"],
-        capture_output=True, text=True, timeout=60, check=True, stdin=subprocess.DEVNULL,
+        [
+            cli,
+            "-host",
+            "127.0.0.1",
+            "-port",
+            str(server.port),
+            "-database",
+            db,
+            "-execute",
+            q,
+            "-format",
+            "csv",
+            "-precision",
+            "rfc3339",
+        ],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        check=True,
+        stdin=subprocess.DEVNULL,
     ).stdout
     return list(csv.DictReader(io.StringIO(out)))
 
@@ -54,19 +74,26 @@ def test_results_read_by_the_influx_cli(request, influx_cli, which):
     with store:
         store.write_results("sections", frame, {"unit": "U7 north"})
         store.write_results("sections", frame, {"unit": "U7 north"})  # idempotent
-        maps = [RoleMapping(role="throttle_p", tag="MS_P", unit="MPa", measurement="plant", tags={"unit": "U7"})]
+        maps = [
+            RoleMapping(role="throttle_p", tag="MS_P", unit="MPa", measurement="plant", tags={"unit": "U7"})
+        ]
         store.write_raw(maps, pd.DataFrame({"throttle_p": [16.51, 16.49]}, index=frame.index[:2]))
         store.set_checkpoint("U7", T0)
-    rows = run_cli(influx_cli, server, db, "SELECT * FROM \"sections\" WHERE \"unit\" = 'U7 north'")
+    rows = run_cli(influx_cli, server, db, 'SELECT * FROM "sections" WHERE "unit" = \'U7 north\'')
     assert len(rows) == 5
     assert [r["time"] for r in rows] == [t.strftime("%Y-%m-%dT%H:%M:%SZ") for t in frame.index]
-    np.testing.assert_array_equal([float(r["hp_efficiency"]) for r in rows], frame["hp_efficiency"].to_numpy())
-    np.testing.assert_array_equal([float(r['hp efficiency, "corrected"']) for r in rows],
-                                  frame['hp efficiency, "corrected"'].to_numpy())
+    np.testing.assert_array_equal(
+        [float(r["hp_efficiency"]) for r in rows], frame["hp_efficiency"].to_numpy()
+    )
+    np.testing.assert_array_equal(
+        [float(r['hp efficiency, "corrected"']) for r in rows], frame['hp efficiency, "corrected"'].to_numpy()
+    )
     assert {r["unit"] for r in rows} == {"U7 north"}
     raw = run_cli(influx_cli, server, db, 'SELECT "MS_P" FROM "plant"')
     assert [float(r["MS_P"]) for r in raw] == [16.51, 16.49]
-    state = run_cli(influx_cli, server, db, "SELECT last(\"value\") FROM \"isentrope_worker\" WHERE \"name\" = 'U7'")
+    state = run_cli(
+        influx_cli, server, db, 'SELECT last("value") FROM "isentrope_worker" WHERE "name" = \'U7\''
+    )
     assert pd.Timestamp(state[0]["last"]) == T0
 
 
@@ -107,7 +134,7 @@ def test_sqlite_results_read_with_plain_sql(tmp_path):
     db = sqlite3.connect(path)
     assert db.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
     rows = db.execute(
-        "SELECT time_utc, hp_efficiency, \"hp efficiency, \"\"corrected\"\"\" FROM sections "
+        'SELECT time_utc, hp_efficiency, "hp efficiency, ""corrected""" FROM sections '
         "WHERE unit = 'U7' ORDER BY time"
     ).fetchall()
     assert [r[0] for r in rows] == [t.strftime("%Y-%m-%dT%H:%M:%S.000Z") for t in frame.index]

@@ -49,21 +49,29 @@ T = RoleMapping(role="throttle_t", tag="T", unit="degC", measurement="plant", ta
 
 def line_protocol(server, db: str, *lines: str) -> requests.Response:
     """Write as a historian would, straight to /write (what the stores must then cope with)."""
-    return requests.post(server.url + "/write", params={"db": db, "precision": "ns"},
-                         data="\n".join(lines).encode(), timeout=30)
+    return requests.post(
+        server.url + "/write",
+        params={"db": db, "precision": "ns"},
+        data="\n".join(lines).encode(),
+        timeout=30,
+    )
 
 
 def write_text_then_numbers(server, db: str) -> None:
     """P as a string at T_A (shard A), as floats in shard B; T always a float."""
-    for text in (f'plant,unit=U7 P="BAD",T=538.0 {T_A.value}',
-                 f"plant,unit=U7 T=538.1 {(T_A + MIN).value}",
-                 f"plant,unit=U7 P=16.6,T=538.2 {T_B.value}",
-                 f"plant,unit=U7 P=16.7,T=538.3 {(T_B + MIN).value}"):
+    for text in (
+        f'plant,unit=U7 P="BAD",T=538.0 {T_A.value}',
+        f"plant,unit=U7 T=538.1 {(T_A + MIN).value}",
+        f"plant,unit=U7 P=16.6,T=538.2 {T_B.value}",
+        f"plant,unit=U7 P=16.7,T=538.3 {(T_B + MIN).value}",
+    ):
         assert line_protocol(server, db, text).status_code == 204, text
 
 
 def influx2(server, db: str):
-    return open_store("influx2", url=server.url, org="-", bucket=server.bucket(db), token="", timeout=10, retries=0)
+    return open_store(
+        "influx2", url=server.url, org="-", bucket=server.bucket(db), token="", timeout=10, retries=0
+    )
 
 
 def influx1(server, db: str):
@@ -78,13 +86,18 @@ def assert_names_field_and_cure(err: Exception, field: str, measurement: str) ->
 
 # --- classification without a server (the bodies measured on the servers, see above) -----------
 
-WRITE_CONFLICT = ('{"error":"partial write: field type conflict: input field \\"P\\" on measurement \\"plant\\" '
-                  'is type float, already exists as type string dropped=1"}')
-SCHEMA_COLLISION = '{"error":"schema collision detected: column \\"_value\\" is both of type float and string"}'
+WRITE_CONFLICT = (
+    '{"error":"partial write: field type conflict: input field \\"P\\" on measurement \\"plant\\" '
+    'is type float, already exists as type string dropped=1"}'
+)
+SCHEMA_COLLISION = (
+    '{"error":"schema collision detected: column \\"_value\\" is both of type float and string"}'
+)
 
 
-@pytest.mark.parametrize("status, body", [(400, WRITE_CONFLICT), (500, SCHEMA_COLLISION),
-                                          (400, '{"error":"field type conflict"}')])
+@pytest.mark.parametrize(
+    "status, body", [(400, WRITE_CONFLICT), (500, SCHEMA_COLLISION), (400, '{"error":"field type conflict"}')]
+)
 def test_type_conflicts_are_fatal_whatever_the_status(status, body):
     err = classify_http(status, body, "write_raw")
     assert isinstance(err, FatalStoreError) and f"HTTP {status}" in str(err)
@@ -109,9 +122,13 @@ def test_a_write_conflict_names_the_batch_and_a_delete_that_its_export_covers():
     # time >= ... AND time < ..." and no export of the other series.
     err = classify_http(400, WRITE_CONFLICT, "write_raw")
     assert isinstance(err, FieldTypeConflictError)
-    lines = [f"plant,unit=U7 P=16.4,T=538.9 {(T_A + 2 * MIN).value}", f"plant,unit=U7 T=538.0 {(T_A + 3 * MIN).value}",
-             f"plant,unit=U8 P=15.0 {(T_A + 4 * MIN).value}", f"other,unit=U7 P=1.0 {T_A.value}",
-             f"plant,unit=U7 P=16.5 {(T_A + 5 * MIN).value}"]
+    lines = [
+        f"plant,unit=U7 P=16.4,T=538.9 {(T_A + 2 * MIN).value}",
+        f"plant,unit=U7 T=538.0 {(T_A + 3 * MIN).value}",
+        f"plant,unit=U8 P=15.0 {(T_A + 4 * MIN).value}",
+        f"other,unit=U7 P=1.0 {T_A.value}",
+        f"plant,unit=U7 P=16.5 {(T_A + 5 * MIN).value}",
+    ]
 
     class Store:
         batch_size, pending = 4, []
@@ -119,7 +136,7 @@ def test_a_write_conflict_names_the_batch_and_a_delete_that_its_export_covers():
     keep_unwritten(Store, err, lines)
     text = str(err)
     # the failed batch is its first batch_size lines; only those of "plant" with field P
-    assert ("plant,unit=U7: 1 point 2026-03-02T00:02:00Z; plant,unit=U8: 1 point 2026-03-02T00:04:00Z." in text)
+    assert "plant,unit=U7: 1 point 2026-03-02T00:02:00Z; plant,unit=U8: 1 point 2026-03-02T00:04:00Z." in text
     assert "1 point dropped whole" in text and "in any series" in text
     window = "WHERE time >= '<start_time>' AND time < '<end_time>'"
     assert statements(err) == [
@@ -148,9 +165,12 @@ def test_a_conflict_named_late_in_a_long_answer_is_still_recognised():
     # The answer is classified whole and only cut for display: a conflict named after the
     # 300th character was a plain 400 before, without field, measurement or cure. The padding
     # stands for a long answer (e.g. several points named); the wording is the servers' above.
-    body = ('{"error":"partial write: ' + "unable to parse 'x': bad timestamp; " * 12
-            + 'field type conflict: input field \\"P\\" on measurement \\"plant\\" is type float, '
-            'already exists as type string dropped=1"}')
+    body = (
+        '{"error":"partial write: '
+        + "unable to parse 'x': bad timestamp; " * 12
+        + 'field type conflict: input field \\"P\\" on measurement \\"plant\\" is type float, '
+        'already exists as type string dropped=1"}'
+    )
     assert body.index("field type conflict") > 300
     err = classify_http(400, body, "write_raw")
     assert isinstance(err, FatalStoreError) and "no retry" in str(err)
@@ -168,13 +188,17 @@ def test_other_5xx_stay_temporary():
 
 # --- Influx2Store (v2 API, Flux, influxd 1.8.10) ------------------------------------------------
 
+
 def flux_values(server, db: str, measurement: str, start: pd.Timestamp, stop: pd.Timestamp) -> list[str]:
     """The raw answer of a plain Flux read of field P, one CSV value per point (no pivot)."""
-    flux = (f'from(bucket: "{server.bucket(db)}") |> range(start: {start.isoformat().replace("+00:00", "Z")}, '
-            f'stop: {stop.isoformat().replace("+00:00", "Z")}) '
-            f'|> filter(fn: (r) => r._measurement == "{measurement}" and r._field == "P")')
-    answer = requests.post(server.url + "/api/v2/query", json={"query": flux, "dialect": {"annotations": []}},
-                           timeout=60)
+    flux = (
+        f'from(bucket: "{server.bucket(db)}") |> range(start: {start.isoformat().replace("+00:00", "Z")}, '
+        f"stop: {stop.isoformat().replace('+00:00', 'Z')}) "
+        f'|> filter(fn: (r) => r._measurement == "{measurement}" and r._field == "P")'
+    )
+    answer = requests.post(
+        server.url + "/api/v2/query", json={"query": flux, "dialect": {"annotations": []}}, timeout=60
+    )
     assert answer.status_code == 200, answer.text
     rows = [r.split(",") for r in answer.text.replace("\r\n", "\n").split("\n") if r.startswith(",_result")]
     return [r[6] for r in rows]  # ,result,table,_start,_stop,_time,_value,...
@@ -193,8 +217,11 @@ def test_flux_reader_of_1_8_stops_a_field_at_the_first_shard_of_another_type(inf
     assert flux_values(influxdb_v2, db, "plant", T_A, END) == ["BAD"]
     # numbers first, text in the next shard, numbers again: neither the text nor what follows
     t_c = T_B + pd.Timedelta(days=28)
-    for text in (f"later,unit=U7 P=1.0 {T_A.value}", f'later,unit=U7 P="BAD" {T_B.value}',
-                 f"later,unit=U7 P=1.2 {t_c.value}"):
+    for text in (
+        f"later,unit=U7 P=1.0 {T_A.value}",
+        f'later,unit=U7 P="BAD" {T_B.value}',
+        f"later,unit=U7 P=1.2 {t_c.value}",
+    ):
         assert line_protocol(influxdb_v2, db, text).status_code == 204, text
     assert flux_values(influxdb_v2, db, "later", T_A, t_c + MIN) == ["1"]
     values = influxdb_v2.query('SELECT "P"::field FROM "plant"', db)["results"][0]["series"][0]["values"]
@@ -226,8 +253,15 @@ def test_influx2_read_raw_over_a_field_with_text_is_fatal_and_names_it(influxdb_
 def test_influx2_read_results_over_a_field_with_text_is_fatal_and_names_it(influxdb_v2):
     # Before: 500 "schema collision" -> TemporaryStoreError, retried forever.
     db = influxdb_v2.new_database("type2res")
-    assert line_protocol(influxdb_v2, db, f'sections,unit=U7 hp_efficiency="n/a",ip_efficiency=0.91 {T_A.value}',
-                         f"sections,unit=U7 hp_efficiency=0.85,ip_efficiency=0.9 {T_B.value}").status_code == 204
+    assert (
+        line_protocol(
+            influxdb_v2,
+            db,
+            f'sections,unit=U7 hp_efficiency="n/a",ip_efficiency=0.91 {T_A.value}',
+            f"sections,unit=U7 hp_efficiency=0.85,ip_efficiency=0.9 {T_B.value}",
+        ).status_code
+        == 204
+    )
     store = influx2(influxdb_v2, db)
     with pytest.raises(FatalStoreError) as caught:
         store.read_results("sections", T_A, END, {"unit": "U7"})
@@ -242,10 +276,21 @@ def test_influx2_text_at_the_window_end_belongs_to_the_next_window(influxdb_v2):
     # for the text point at T_A + 2 min, outside it. All points lie in shard A.
     db = influxdb_v2.new_database("type2edge")
     t1, t2 = T_A + MIN, T_A + 2 * MIN
-    assert line_protocol(influxdb_v2, db, f"plant,unit=U7 T=538.1 {t1.value}",
-                         f'plant,unit=U7 P="BAD2",T=538.2 {t2.value}').status_code == 204
-    assert line_protocol(influxdb_v2, db, f"sections,unit=U7 ip_efficiency=0.9 {t1.value}",
-                         f'sections,unit=U7 hp_efficiency="n/a",ip_efficiency=0.91 {t2.value}').status_code == 204
+    assert (
+        line_protocol(
+            influxdb_v2, db, f"plant,unit=U7 T=538.1 {t1.value}", f'plant,unit=U7 P="BAD2",T=538.2 {t2.value}'
+        ).status_code
+        == 204
+    )
+    assert (
+        line_protocol(
+            influxdb_v2,
+            db,
+            f"sections,unit=U7 ip_efficiency=0.9 {t1.value}",
+            f'sections,unit=U7 hp_efficiency="n/a",ip_efficiency=0.91 {t2.value}',
+        ).status_code
+        == 204
+    )
     store = influx2(influxdb_v2, db)
     got = store.read_raw([P, T], t1, t2)
     assert got.index.tolist() == [t1] and got["throttle_t"].tolist() == [538.1]
@@ -265,8 +310,15 @@ def test_influx2_text_at_the_window_end_belongs_to_the_next_window(influxdb_v2):
 def test_influx2_reads_an_integer_field_beside_float_ones(influxdb_v2):
     # Before: group() put long and double values in one column: 500 "schema collision", retried.
     db = influxdb_v2.new_database("type2int")
-    assert line_protocol(influxdb_v2, db, f"plant,unit=U7 P=17i,T=538.0 {T_A.value}",
-                         f"plant,unit=U7 P=16i,T=538.5 {(T_A + MIN).value}").status_code == 204
+    assert (
+        line_protocol(
+            influxdb_v2,
+            db,
+            f"plant,unit=U7 P=17i,T=538.0 {T_A.value}",
+            f"plant,unit=U7 P=16i,T=538.5 {(T_A + MIN).value}",
+        ).status_code
+        == 204
+    )
     got = influx2(influxdb_v2, db).read_raw([P, T], T_A, END)
     assert got["throttle_p"].tolist() == [17.0, 16.0] and got["throttle_t"].tolist() == [538.0, 538.5]
 
@@ -275,16 +327,17 @@ def block_of(server, db: str, t: pd.Timestamp) -> tuple[int, str, str]:
     """(id, start_time, end_time) of the shard of ``db`` holding ``t``, from SHOW SHARDS."""
     for series in server.query("SHOW SHARDS")["results"][0]["series"]:
         for row in series.get("values", []):  # a database without shards has none
-            shard = dict(zip(series["columns"], row))
-            if shard["database"] == db and pd.Timestamp(shard["start_time"]) <= t < pd.Timestamp(shard["end_time"]):
+            shard = dict(zip(series["columns"], row, strict=True))
+            if shard["database"] == db and pd.Timestamp(shard["start_time"]) <= t < pd.Timestamp(
+                shard["end_time"]
+            ):
                 return shard["id"], shard["start_time"], shard["end_time"]
     raise AssertionError(f"no shard of {db} holds {t}")
 
 
 def filled(statement: str, block: tuple[int, str, str]) -> str:
     shard_id, start, end = block
-    return (statement.replace("<start_time>", start).replace("<end_time>", end)
-            .replace("<id>", str(shard_id)))
+    return statement.replace("<start_time>", start).replace("<end_time>", end).replace("<id>", str(shard_id))
 
 
 def export_back(server, db: str, answer: dict) -> int:
@@ -293,10 +346,13 @@ def export_back(server, db: str, answer: dict) -> int:
     lines = []
     for series in answer["results"][0].get("series", []):
         for row in series["values"]:
-            point = dict(zip(series["columns"], row))
+            point = dict(zip(series["columns"], row, strict=True))
             t = point.pop("time")
-            fields = ",".join(f"{escape.lp_field_key(k)}={escape.lp_float(v)}" for k, v in sorted(point.items())
-                              if isinstance(v, (int, float)) and not isinstance(v, bool) and k not in series["tags"])
+            fields = ",".join(
+                f"{escape.lp_field_key(k)}={escape.lp_float(v)}"
+                for k, v in sorted(point.items())
+                if isinstance(v, (int, float)) and not isinstance(v, bool) and k not in series["tags"]
+            )
             if fields:
                 lines.append(f"{escape.lp_series_key(series['name'], series['tags'])} {fields} {t}")
     if lines:
@@ -307,9 +363,13 @@ def export_back(server, db: str, answer: dict) -> int:
 def every_value(server, db: str) -> set:
     """(measurement, tags, time, field, value) of every value stored in ``db``."""
     answer = server.query("SELECT * FROM /.*/ GROUP BY *", db)["results"][0].get("series", [])
-    return {(s["name"], tuple(sorted(s["tags"].items())), row[0], field, value)
-            for s in answer for row in s["values"] for field, value in zip(s["columns"][1:], row[1:])
-            if value is not None}
+    return {
+        (s["name"], tuple(sorted(s["tags"].items())), row[0], field, value)
+        for s in answer
+        for row in s["values"]
+        for field, value in zip(s["columns"][1:], row[1:], strict=True)
+        if value is not None
+    }
 
 
 @pytest.mark.influx
@@ -324,7 +384,7 @@ def test_deleting_only_the_text_points_does_not_clear_the_type(version, request)
     db = server.new_database("typedel")
     write_text_then_numbers(server, db)
     float_p = f"plant,unit=U7 P=16.4 {(T_A + 2 * MIN).value}"
-    server.query(f"DELETE FROM \"plant\" WHERE \"unit\" = 'U7' AND time = {T_A.value}", db)
+    server.query(f'DELETE FROM "plant" WHERE "unit" = \'U7\' AND time = {T_A.value}', db)
     assert server.query('SELECT "P"::string FROM "plant"', db)["results"][0].get("series") is None  # gone
     assert line_protocol(server, db, float_p).status_code == 400  # T_A + 1 min keeps the type
     if version == "1.8":
@@ -348,11 +408,20 @@ def test_following_the_write_message_clears_the_conflict_and_loses_nothing(kind,
     server = request.getfixturevalue("influxdb_v1" if kind.endswith("1.6") else "influxdb_v2")
     db = server.new_database("typecure")
     write_text_then_numbers(server, db)
-    assert line_protocol(server, db, f"plant,unit=U8 T=500.0 {(T_A + 5 * MIN).value}",
-                         f"sections,unit=U8 hp_efficiency=0.84 {(T_A + 5 * MIN).value}").status_code == 204
+    assert (
+        line_protocol(
+            server,
+            db,
+            f"plant,unit=U8 T=500.0 {(T_A + 5 * MIN).value}",
+            f"sections,unit=U8 hp_efficiency=0.84 {(T_A + 5 * MIN).value}",
+        ).status_code
+        == 204
+    )
     before = every_value(server, db)
     store = influx2(server, db) if kind.startswith("influx2") else influx1(server, db)
-    frame = pd.DataFrame({"throttle_p": [16.4], "throttle_t": [538.9]}, index=pd.DatetimeIndex([T_A + 2 * MIN]))
+    frame = pd.DataFrame(
+        {"throttle_p": [16.4], "throttle_t": [538.9]}, index=pd.DatetimeIndex([T_A + 2 * MIN])
+    )
     with pytest.raises(FatalStoreError) as caught:
         store.write_raw([P, T], frame)
     assert "plant,unit=U7: 1 point 2026-03-02T00:02:00Z." in str(caught.value)
@@ -370,8 +439,13 @@ def test_following_the_write_message_clears_the_conflict_and_loses_nothing(kind,
     assert export_back(server, db, exported) == 3 + (0 if kind.endswith("1.8") else 1)
     store.write_raw([P, T], frame)  # these points again
     u7 = (("unit", "U7"),)
-    written = {("plant", u7, (T_A + 2 * MIN).value, "P", 16.4), ("plant", u7, (T_A + 2 * MIN).value, "T", 538.9)}
-    assert every_value(server, db) == before - {("plant", u7, T_A.value, "P", "BAD")} | written  # only the text lost
+    written = {
+        ("plant", u7, (T_A + 2 * MIN).value, "P", 16.4),
+        ("plant", u7, (T_A + 2 * MIN).value, "T", 538.9),
+    }
+    assert (
+        every_value(server, db) == before - {("plant", u7, T_A.value, "P", "BAD")} | written
+    )  # only the text lost
     store.close()
 
 
@@ -385,8 +459,10 @@ def test_following_the_read_message_clears_the_read(influxdb_v2):
         store.read_raw([P, T], T_A, END)
     listing, show, _, export, delete, *_ = statements(caught.value)
     # the points named, with the series' tags and the read's window
-    assert listing == ('SELECT "P"::string FROM "plant" WHERE "unit" = \'U7\' AND time >= \'2026-03-02T00:00:00Z\' '
-                       "AND time < '2026-03-30T07:00:00Z'")
+    assert listing == (
+        'SELECT "P"::string FROM "plant" WHERE "unit" = \'U7\' AND time >= \'2026-03-02T00:00:00Z\' '
+        "AND time < '2026-03-30T07:00:00Z'"
+    )
     assert influxdb_v2.query(listing, db)["results"][0]["series"][0]["values"] == [[T_A.value, "BAD"]]
     assert "on influxd 1.8 (measured on 1.8.10) the Flux reader" in str(caught.value)
     block = block_of(influxdb_v2, db, T_A)
@@ -405,6 +481,7 @@ def test_following_the_read_message_clears_the_read(influxdb_v2):
 
 
 # --- Influx1Store (v1 API, InfluxQL): the text reads as missing samples, the numbers are kept ---
+
 
 @pytest.fixture(params=["1.6", "1.8"])
 def v1_server(request):
@@ -431,6 +508,7 @@ def test_influx1_reads_text_as_missing_samples_that_screening_flags(v1_server):
 
 # --- writes: both stores, every server ----------------------------------------------------------
 
+
 @pytest.mark.influx
 @pytest.mark.parametrize("kind", ["influx2-1.8", "influx1-1.6", "influx1-1.8"])
 def test_a_float_written_where_the_shard_holds_text_is_fatal_and_not_kept(kind, request):
@@ -438,7 +516,9 @@ def test_a_float_written_where_the_shard_holds_text_is_fatal_and_not_kept(kind, 
     db = server.new_database("typewrite")
     write_text_then_numbers(server, db)
     store = influx2(server, db) if kind.startswith("influx2") else influx1(server, db)
-    frame = pd.DataFrame({"throttle_p": [16.4], "throttle_t": [538.9]}, index=pd.DatetimeIndex([T_A + 2 * MIN]))
+    frame = pd.DataFrame(
+        {"throttle_p": [16.4], "throttle_t": [538.9]}, index=pd.DatetimeIndex([T_A + 2 * MIN])
+    )
     with pytest.raises(FatalStoreError) as caught:
         store.write_raw([P, T], frame)
     assert_names_field_and_cure(caught.value, "P", "plant")
@@ -446,8 +526,10 @@ def test_a_float_written_where_the_shard_holds_text_is_fatal_and_not_kept(kind, 
     assert store.pending == [] and len(caught.value.unwritten) == 1  # not sent again by the next write
 
     # a batch of two points, one refused: the server writes the other (a partial write)
-    results = pd.DataFrame({"hp_efficiency": [0.8, np.nan], "ip_efficiency": [np.nan, 0.9]},
-                           index=pd.DatetimeIndex([T_A + MIN, T_A + 2 * MIN]))
+    results = pd.DataFrame(
+        {"hp_efficiency": [0.8, np.nan], "ip_efficiency": [np.nan, 0.9]},
+        index=pd.DatetimeIndex([T_A + MIN, T_A + 2 * MIN]),
+    )
     assert line_protocol(server, db, f'sections,unit=U7 hp_efficiency="n/a" {T_A.value}').status_code == 204
     with pytest.raises(FatalStoreError) as caught:
         store.write_results("sections", results, {"unit": "U7"})
@@ -460,6 +542,7 @@ def test_a_float_written_where_the_shard_holds_text_is_fatal_and_not_kept(kind, 
 
 # --- the worker: a fatal read ends the cycle at once, without retries ---------------------------
 
+
 @pytest.mark.influx
 def test_the_worker_stops_at_once_on_text_in_a_raw_field(influxdb_v2, tmp_path):
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/daemon: worker_support
@@ -469,20 +552,35 @@ def test_the_worker_stops_at_once_on_text_in_a_raw_field(influxdb_v2, tmp_path):
     from isentrope.daemon.worker import Worker
 
     db = influxdb_v2.new_database("typeworker")
-    table = ws.store_toml("influx2", url=influxdb_v2.url, org="isentrope", bucket=influxdb_v2.bucket(db),
-                          token="${ISENTROPE_TEST_TOKEN}", timeout="30s")
-    config = load_config(ws.write_config(tmp_path / "unit.toml", table), environ={"ISENTROPE_TEST_TOKEN": "u:p"})
+    table = ws.store_toml(
+        "influx2",
+        url=influxdb_v2.url,
+        org="isentrope",
+        bucket=influxdb_v2.bucket(db),
+        token="${ISENTROPE_TEST_TOKEN}",
+        timeout="30s",
+    )
+    config = load_config(
+        ws.write_config(tmp_path / "unit.toml", table), environ={"ISENTROPE_TEST_TOKEN": "u:p"}
+    )
     store = open_store(config.store.kind, **config.store.open_options())
     # the week before the history (another shard) has the throttle pressure as text
     m = next(m for m in config.mappings if m.role == "throttle_p")
     bad = ws.START - pd.Timedelta("1h")
-    lp = (f"{escape.lp_series_key(m.measurement, m.tags)} "
-          f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}")
+    lp = (
+        f"{escape.lp_series_key(m.measurement, m.tags)} "
+        f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}"
+    )
     assert line_protocol(influxdb_v2, db, lp).status_code == 204
     store.write_raw(config.mappings, ws.plant_history(0.5, freq="5min"))
     sleeps = []
-    worker = Worker.from_config(config, store, start_default=ws.START + pd.Timedelta("3h"),
-                                clock=ws.FakeClock(ws.START + pd.Timedelta("10h")), sleep=sleeps.append)
+    worker = Worker.from_config(
+        config,
+        store,
+        start_default=ws.START + pd.Timedelta("3h"),
+        clock=ws.FakeClock(ws.START + pd.Timedelta("10h")),
+        sleep=sleeps.append,
+    )
     with pytest.raises(FatalStoreError) as caught:
         worker.run_cycle()
     assert_names_field_and_cure(caught.value, m.field_name, m.measurement)
@@ -498,15 +596,22 @@ def test_every_test_here_that_starts_a_server_is_marked_influx():
 
     # "request": the test picks its server with request.getfixturevalue
     servers = {"influxdb_v1", "influxdb_v2", "v1_server", "request"}
-    needing = [name for name, fn in globals().items() if name.startswith("test_") and callable(fn)
-               and servers & set(inspect.signature(fn).parameters)]
+    needing = [
+        name
+        for name, fn in globals().items()
+        if name.startswith("test_") and callable(fn) and servers & set(inspect.signature(fn).parameters)
+    ]
     assert "test_influx1_reads_text_as_missing_samples_that_screening_flags" in needing
-    unmarked = [name for name in needing
-                if "influx" not in {m.name for m in getattr(globals()[name], "pytestmark", [])}]
+    unmarked = [
+        name
+        for name in needing
+        if "influx" not in {m.name for m in getattr(globals()[name], "pytestmark", [])}
+    ]
     assert unmarked == []
 
 
 # --- isentrope check: a refused role is that role's verdict, the others are still judged --------
+
 
 def test_check_reads_role_by_role_when_the_store_refuses_one():
     from isentrope.daemon.commands import check
@@ -542,16 +647,24 @@ def test_check_shows_a_text_field_as_its_roles_verdict(influxdb_v2, tmp_path, ca
     from isentrope.daemon.config import load_config
 
     db = influxdb_v2.new_database("typecheck")
-    table = ws.store_toml("influx2", url=influxdb_v2.url, org="isentrope", bucket=influxdb_v2.bucket(db),
-                          token="${ISENTROPE_TEST_TOKEN}", timeout="30s")
+    table = ws.store_toml(
+        "influx2",
+        url=influxdb_v2.url,
+        org="isentrope",
+        bucket=influxdb_v2.bucket(db),
+        token="${ISENTROPE_TEST_TOKEN}",
+        timeout="30s",
+    )
     monkeypatch.setenv("ISENTROPE_TEST_TOKEN", "u:p")
     path = ws.write_config(tmp_path / "unit.toml", table)
     config = load_config(path)
     store = open_store(config.store.kind, **config.store.open_options())
     m = next(m for m in config.mappings if m.role == "throttle_p")
     bad = ws.START - pd.Timedelta("1h")  # the shard before the history's
-    lp = (f"{escape.lp_series_key(m.measurement, m.tags)} "
-          f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}")
+    lp = (
+        f"{escape.lp_series_key(m.measurement, m.tags)} "
+        f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}"
+    )
     assert line_protocol(influxdb_v2, db, lp).status_code == 204
     store.write_raw(config.mappings, ws.plant_history(0.25, freq="5min"))
     store.close()
@@ -560,12 +673,17 @@ def test_check_shows_a_text_field_as_its_roles_verdict(influxdb_v2, tmp_path, ca
     captured = capsys.readouterr()
     assert rc == 1 and "error:" not in captured.err, captured.err
     tags = {mm.role: mm.tag for mm in config.mappings}
-    rows = {line.split()[0]: line for line in captured.out.splitlines()
-            if len(line.split()) > 1 and tags.get(line.split()[0]) == line.split()[1]}
+    rows = {
+        line.split()[0]: line
+        for line in captured.out.splitlines()
+        if len(line.split()) > 1 and tags.get(line.split()[0]) == line.split()[1]
+    }
     assert set(rows) == {mm.role for mm in config.mappings}  # the whole table
     assert rows["throttle_p"].endswith("PROBLEM: the store refused to read it (error below)")
     assert " 0 " in rows["throttle_p"]
     assert not any("refused" in line for role, line in rows.items() if role != "throttle_p")
     assert rows["throttle_t"].split()[3] == "72"  # 6 h at 5 min: still read and judged
-    detail = next(line for line in captured.out.splitlines() if line.startswith(f"throttle_p ({m.tag}): store error:"))
+    detail = next(
+        line for line in captured.out.splitlines() if line.startswith(f"throttle_p ({m.tag}): store error:")
+    )
     assert "holds string values" in detail and "'I/O BAD'" in detail and 'kind = "influx1"' in detail
