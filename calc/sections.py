@@ -61,13 +61,13 @@ T_CRIT = 647.096
 T_MAX = 1073.15
 
 #: Default Baumann coefficient ``a`` [-]: wet-stage efficiency = dry efficiency
-#: x (1 - a * mean wetness). Baumann rule, a about 1 (REFERENCES.md, from memory).
+#: x (1 - a * mean wetness). Baumann rule, a about 1 (calc/REFERENCES.md, from memory).
 BAUMANN_DEFAULT = 1.0
 #: Largest Baumann coefficient accepted [-] (published values lie well below; common practice).
 BAUMANN_MAX = 3.0
 
 #: Default LP dry efficiency [-] used when no design value is configured: the middle of the
-#: typical 85-90 % of large reheat units (REFERENCES.md, from memory). Set the maker's value.
+#: typical 85-90 % of large reheat units (calc/REFERENCES.md, from memory). Set the maker's value.
 ETA_LP_DESIGN_DEFAULT = 0.88
 
 #: Default half-width of the band around the LP efficiency the expansion assumes in which the
@@ -84,7 +84,7 @@ EXHAUST_LOSS_WETNESS_1 = 0.01
 EXHAUST_LOSS_WETNESS_2 = 0.0065
 
 #: Default exhaust-loss curve, annulus velocity [m/s] -> loss [kJ/kg] (dry basis). Only the
-#: *shape* of the Spencer-Cotton-Cannon curve (REFERENCES.md, from memory): high at low
+#: *shape* of the Spencer-Cotton-Cannon curve (calc/REFERENCES.md, from memory): high at low
 #: velocity (turn-up loss), lowest at about 23-35 kJ/kg near 150-180 m/s, rising steeply above
 #: about 275 m/s towards choking. Not any maker's curve: give the maker's curve for real use.
 DEFAULT_EXHAUST_LOSS_POINTS = (
@@ -801,7 +801,7 @@ def lp_expansion(p_in, t_in, p_exhaust, eta_dry, baumann=BAUMANN_DEFAULT):
 
     References
     ----------
-    Baumann rule (REFERENCES.md, from memory). IAPWS R7-97(2012) for the properties.
+    Baumann rule (calc/REFERENCES.md, from memory). IAPWS R7-97(2012) for the properties.
     """
     a = _check_baumann(baumann)
     shape = _Shape(("p_in", "t_in", "p_exhaust", "eta_dry"), (p_in, t_in, p_exhaust, eta_dry))

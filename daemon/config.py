@@ -372,7 +372,7 @@ class AlarmsConfig:
     cusum_h: float = 8.0  # about 7.5 % false steps per 500 windows of pure noise (calc.trend tests)
     # A CUSUM on low-scatter deviations also finds steps of hundredths of a point: real, but
     # not what a planner acts on. 0.25 point is well below the 0.5-2 points of a rub or a trip
-    # (REFERENCES.md, from memory); project choice, no source.
+    # (calc/REFERENCES.md, from memory); project choice, no source.
     min_step_points: float = 0.25
 
 

@@ -668,9 +668,9 @@ class Pipeline:
         for term in usable:
             if term not in taken:
                 self.baseline_notes.append(
-                    f"{section}: term {term} left out: the reference windows do not tell it from load "
-                    f"and {', '.join(taken) or 'nothing else'} (variance inflation "
-                    f"{vifs.get(term, math.inf):.3g} > {baseline.MAX_VIF:g})"
+                    f"{section}: term {term} left out: in the reference windows load and the terms "
+                    f"before it explain it (variance inflation {vifs.get(term, math.inf):.3g} > "
+                    f"{baseline.MAX_VIF:g})"
                 )
         return taken
 

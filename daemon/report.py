@@ -389,6 +389,8 @@ def write_report(
         col = EFFICIENCY_COLUMNS[s]
         if not len(windows) or col not in windows.columns or not np.isfinite(windows[col]).any():
             continue
+        if s == "lp" and not Pipeline(config).lp_energy_balance:
+            continue  # the whole LP from an assumed efficiency: an estimate, not trended
         fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
         ax1.plot(
             windows.index,
@@ -449,7 +451,8 @@ def write_report(
         ax1.legend(fontsize=8, loc="lower left")
         ax2.set_ylabel("deviation [points]")
         ax2.grid(True, lw=0.3)
-        ax2.legend(fontsize=8, loc="lower left", ncol=3)
+        if ax2.get_legend_handles_labels()[0]:
+            ax2.legend(fontsize=8, loc="lower left", ncol=3)
         fig.autofmt_xdate()
         parts.append(f"<h3>{SECTION_TITLES[s]}</h3>")
         parts.append(
