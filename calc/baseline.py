@@ -72,6 +72,14 @@ DEFAULT_EXTRA_MARGIN = 0.10
 DEFAULT_MIN_WINDOWS = 10
 
 
+#: Largest variance inflation factor accepted for an extra regressor by ``select_terms``: an
+#: operating-mode term that the load polynomial and the terms already taken explain to
+#: R^2 > 0.9 in the reference windows adds variance, not information (rule of thumb of
+#: regression practice, e.g. Kutner, Nachtsheim & Neter, Applied Linear Regression Models,
+#: 4th ed., section 10.5; from memory).
+MAX_VIF = 10.0
+
+
 def _iso(t) -> str | None:
     if t is None:
         return None
@@ -518,6 +526,94 @@ def fit_baseline(
     )
     model = BaselineModel(**fields)
     return BaselineModel(**fields, model_id=_model_id(model._content()))
+
+
+def variance_inflation(z: np.ndarray, others: np.ndarray) -> float:
+    """Variance inflation factor of regressor ``z`` given the columns ``others``.
+
+    Parameters
+    ----------
+    z : numpy.ndarray
+        One regressor over the reference windows [its unit].
+    others : numpy.ndarray
+        The other columns of the design, shape (n, k), a constant column among them [-].
+
+    Returns
+    -------
+    float
+        ``1 / (1 - R^2)`` of the least-squares fit of ``z`` on ``others`` [-]; inf where
+        ``others`` explain ``z`` exactly or ``z`` does not vary.
+
+    References
+    ----------
+    Kutner, Nachtsheim & Neter, Applied Linear Regression Models, 4th ed. (2004), section 10.5.
+    """
+    z = np.asarray(z, dtype=float)
+    beta, *_ = np.linalg.lstsq(others, z, rcond=None)
+    resid = z - others @ beta
+    total = float(np.sum((z - z.mean()) ** 2))
+    left = float(np.sum(resid**2))
+    if total <= 0 or left <= 1e-12 * total:
+        return math.inf
+    return total / left
+
+
+def select_terms(
+    windows: pd.DataFrame,
+    candidates: Sequence[str],
+    *,
+    load_col: str = "gross_output",
+    rating_mw: float,
+    degree: int = 2,
+    max_vif: float = MAX_VIF,
+) -> tuple[list[str], dict[str, float]]:
+    """The extra regressors the reference windows can tell apart from load and each other.
+
+    Greedy, in the order given: a candidate is taken when its variance inflation factor
+    against the polynomial in load fraction and the candidates already taken is at most
+    ``max_vif``. A reference period run in one operating mode has valve position, throttle
+    pressure and first-stage pressure ratio all fixed by load: such a term would get an
+    arbitrary coefficient and read any later change of it (a degrading section draws more
+    steam at the same output, which moves them) as operating mode, so it is left out.
+
+    Parameters
+    ----------
+    windows : pandas.DataFrame
+        The reference windows with ``load_col`` [MW] and the candidate columns.
+    candidates : sequence of str
+        Extra regressor columns in order of preference.
+    load_col : str
+        Column with the load [MW].
+    rating_mw : float
+        Load defining load fraction 1 [MW].
+    degree : int
+        Degree of the load polynomial of the fit (1 or 2) [-].
+    max_vif : float
+        Largest variance inflation factor accepted [-].
+
+    Returns
+    -------
+    (list of str, dict)
+        The terms taken, and the variance inflation factor of every candidate examined
+        (column -> factor [-]; candidates absent or all NaN are not in it).
+    """
+    present = [c for c in candidates if c in windows.columns]
+    data = windows[[load_col, *present]].astype(float)
+    x = data[load_col].to_numpy() / float(rating_mw)
+    fin = np.isfinite(x)
+    base = [np.ones_like(x), x] + ([x * x] if degree == 2 else [])
+    taken: list[str] = []
+    vifs: dict[str, float] = {}
+    for c in present:
+        cols = [c, *taken]
+        ok = fin & np.isfinite(data[cols].to_numpy()).all(axis=1)
+        if ok.sum() < 3 + len(base) + len(taken):
+            continue
+        others = np.column_stack([b[ok] for b in base] + [data[t].to_numpy()[ok] for t in taken])
+        vifs[c] = variance_inflation(data[c].to_numpy()[ok], others)
+        if vifs[c] <= max_vif:
+            taken.append(c)
+    return taken, vifs
 
 
 def deviation(

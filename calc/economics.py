@@ -33,6 +33,9 @@ import pandas as pd
 #: From memory: HP 0.15-0.25, IP 0.10-0.20, LP 0.40-0.50 for large reheat units; the
 #: midpoints are used. Replace with the unit's own heat balance.
 HEAT_RATE_PCT_PER_POINT: dict[str, float] = {"hp": 0.20, "ip": 0.15, "lp": 0.45}
+# The LP figures are per point of the *whole* LP (crossover to exhaust). The LP dry stage
+# group (crossover to an LP extraction) is priced by its weight in the LP
+# (``stage_group_coefficient``), not with these.
 
 #: Output change per percentage point of section efficiency [% of output per point].
 #: From memory: HP 0.25-0.3, IP 0.2-0.3, LP about 0.5; midpoints. Replace with the unit's
@@ -41,6 +44,39 @@ OUTPUT_PCT_PER_POINT: dict[str, float] = {"hp": 0.275, "ip": 0.25, "lp": 0.50}
 
 #: kJ per GJ.
 _KJ_PER_GJ = 1.0e6
+
+
+def stage_group_coefficient(whole_section_per_point, weight):
+    """Sensitivity per point of a stage group's efficiency from the whole section's.
+
+    One point of the group's efficiency is ``weight`` points of the whole section's
+    (``isentrope.calc.sections.stage_group_weight``: the group's share of the section's
+    isentropic drop, less what the stages after it recover), so its heat-rate and output
+    coefficients are ``weight`` times the section's.
+
+    Parameters
+    ----------
+    whole_section_per_point : float or array_like
+        Heat-rate [% per point] or output [% per point] coefficient of the whole section.
+    weight : float or array_like
+        Points of the section's efficiency per point of the group's, in (0, 1] [-].
+
+    Returns
+    -------
+    float or ndarray
+        The coefficient per point of the group's efficiency, in the unit of
+        ``whole_section_per_point``.
+
+    Raises
+    ------
+    ValueError
+        When a share lies outside (0, 1].
+    """
+    share = np.asarray(weight, dtype=float)
+    if not np.all(np.isfinite(share) & (share > 0) & (share <= 1)):
+        raise ValueError(f"weight: expected numbers in (0, 1], found {weight!r}")
+    out = np.asarray(whole_section_per_point, dtype=float) * share
+    return float(out) if out.ndim == 0 else out
 
 
 @dataclass(frozen=True)

@@ -192,7 +192,7 @@ SPIKE_SCALE_BLOCK = "1h"
 #: MAD to standard deviation for Gaussian noise: 1 / Phi^-1(3/4) = 1.4826.
 MAD_TO_SIGMA = 1.482602218505602
 #: Plausible HP/IP/LP-dry-group efficiency band [fraction] (issue default; typical large
-#: reheat units run HP 0.82-0.88 and IP 0.89-0.93, from memory, REFERENCES.md).
+#: reheat units run HP 0.82-0.88 and IP 0.89-0.93, from memory, calc/REFERENCES.md).
 DEFAULT_EFFICIENCY_BAND = (0.5, 1.0)
 
 _HINT_TRIGGERS = Reason.P_NOT_FALLING | Reason.INLET_NOT_SUPERHEATED | Reason.EFFICIENCY_IMPLAUSIBLE

@@ -61,14 +61,20 @@ T_CRIT = 647.096
 T_MAX = 1073.15
 
 #: Default Baumann coefficient ``a`` [-]: wet-stage efficiency = dry efficiency
-#: x (1 - a * mean wetness). Baumann rule, a about 1 (REFERENCES.md, from memory).
+#: x (1 - a * mean wetness). Baumann rule, a about 1 (calc/REFERENCES.md, from memory).
 BAUMANN_DEFAULT = 1.0
 #: Largest Baumann coefficient accepted [-] (published values lie well below; common practice).
 BAUMANN_MAX = 3.0
 
 #: Default LP dry efficiency [-] used when no design value is configured: the middle of the
-#: typical 85-90 % of large reheat units (REFERENCES.md, from memory). Set the maker's value.
+#: typical 85-90 % of large reheat units (calc/REFERENCES.md, from memory). Set the maker's value.
 ETA_LP_DESIGN_DEFAULT = 0.88
+
+#: Default half-width of the band around the LP efficiency the expansion assumes in which the
+#: true one may lie [-]: +/- 2 points (project choice: the typical LP efficiencies of large
+#: reheat units span 85-90 %, calc/REFERENCES.md, from memory). Taken as a rectangular
+#: distribution, standard uncertainty band / sqrt(3) (JCGM 100:2008, 4.3.7).
+ETA_LP_BAND_DEFAULT = 0.02
 
 #: Exhaust-loss wetness correction, Spencer, Cotton & Cannon (1963), from memory:
 #: total exhaust loss = curve loss x 0.87 x (1 - 0.01 Y) x (1 - 0.0065 Y), Y = moisture at the
@@ -78,7 +84,7 @@ EXHAUST_LOSS_WETNESS_1 = 0.01
 EXHAUST_LOSS_WETNESS_2 = 0.0065
 
 #: Default exhaust-loss curve, annulus velocity [m/s] -> loss [kJ/kg] (dry basis). Only the
-#: *shape* of the Spencer-Cotton-Cannon curve (REFERENCES.md, from memory): high at low
+#: *shape* of the Spencer-Cotton-Cannon curve (calc/REFERENCES.md, from memory): high at low
 #: velocity (turn-up loss), lowest at about 23-35 kJ/kg near 150-180 m/s, rising steeply above
 #: about 275 m/s towards choking. Not any maker's curve: give the maker's curve for real use.
 DEFAULT_EXHAUST_LOSS_POINTS = (
@@ -795,7 +801,7 @@ def lp_expansion(p_in, t_in, p_exhaust, eta_dry, baumann=BAUMANN_DEFAULT):
 
     References
     ----------
-    Baumann rule (REFERENCES.md, from memory). IAPWS R7-97(2012) for the properties.
+    Baumann rule (calc/REFERENCES.md, from memory). IAPWS R7-97(2012) for the properties.
     """
     a = _check_baumann(baumann)
     shape = _Shape(("p_in", "t_in", "p_exhaust", "eta_dry"), (p_in, t_in, p_exhaust, eta_dry))
@@ -1447,6 +1453,12 @@ _SERIES_FIELDS = (
     ("lp_moisture_u", "-", "standard uncertainty of lp_moisture"),
     ("lp_exhaust_loss", "kJ/kg", "wetness-corrected exhaust loss, UEEP - ELEP"),
     ("lp_annulus_velocity", "m/s", "last-stage annulus velocity"),
+    (
+        "lp_estimate",
+        "-",
+        "1 where the LP efficiency, ELEP, UEEP and moisture rest on an assumed LP efficiency "
+        "(expansion), 0 where they come from the energy balance",
+    ),
     ("reason", "-", "packed reason codes, 4 bits per group (decode_reason)"),
 )
 
@@ -1480,6 +1492,11 @@ class SectionResults:
         Wetness-corrected exhaust loss [kJ/kg].
     lp_annulus_velocity : Series
         Last-stage annulus velocity [m/s].
+    lp_estimate : Series
+        1.0 where the LP efficiency, used-energy efficiency, ELEP, UEEP and moisture follow
+        from an assumed LP efficiency (the expansion: a design value, or the LP dry group's
+        efficiency taken for the whole LP), so that they are estimates whose ``_u`` includes
+        the band of that assumption; 0.0 where the energy balance gives them [-].
     reason : Series
         Packed reason codes (int64), 4 bits per group of ``REASON_GROUPS``; 0 = all valid.
     lp_mode : str
@@ -1519,6 +1536,7 @@ class SectionResults:
     lp_moisture_u: pd.Series
     lp_exhaust_loss: pd.Series
     lp_annulus_velocity: pd.Series
+    lp_estimate: pd.Series
     reason: pd.Series
     lp_mode: str
     notes: tuple
@@ -1588,6 +1606,7 @@ def _lp_figures(inp, cfg):
                 eta = _section_group(inp, _LPD)["efficiency"]
             else:
                 eta = np.full(n, cfg["eta_lp_design"])
+            eta = eta + cfg.get("eta_shift", 0.0)  # the band of the assumed efficiency
             r = _lp_core(
                 p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat, inlet_states=cfg.get("inlet_states")
             )
@@ -1694,6 +1713,68 @@ def _lp_figures(inp, cfg):
     }
 
 
+def stage_group_weight(group_isentropic_drop, section_isentropic_drop, t_group_out, p_exhaust, eta_rest):
+    """Points of a whole section's efficiency per point of the efficiency of its first stages.
+
+    A stage group (the LP dry group: crossover to an LP extraction) that loses one point does
+    ``0.01 dh_s,group`` less work per kg and leaves that energy in its exhaust. The stages
+    after it expand from the hotter state and recover the part ``eta_rest (1 - T_exh / T_out)``
+    of it: their isentropic drop grows by ``(1 - T_exh / T_out)`` per kJ/kg of inlet
+    enthalpy at constant pressure, since ``(dh/ds)_p = T``. So
+
+        weight = dh_s,group / dh_s,section x (1 - eta_rest (1 - T_exh / T_out)),
+
+    with ``T_exh`` the saturation temperature at the exhaust pressure (a wet exhaust).
+    Checked against a stage-by-stage integration with IF97 (tests/calc/test_sections.py).
+
+    Parameters
+    ----------
+    group_isentropic_drop : array_like
+        Isentropic drop of the group, inlet to its outlet pressure [kJ/kg].
+    section_isentropic_drop : array_like
+        Isentropic drop of the whole section, inlet to the exhaust pressure [kJ/kg].
+    t_group_out : array_like
+        Temperature at the group's outlet (the LP extraction) [K].
+    p_exhaust : array_like
+        Section exhaust (condenser) pressure, absolute [MPa].
+    eta_rest : float or array_like
+        Efficiency of the stages after the group [-].
+
+    Returns
+    -------
+    ndarray or float
+        The weight [-]; NaN where an input is missing or the weight falls outside (0, 1].
+    """
+    g = np.asarray(group_isentropic_drop, dtype=float)
+    sec = np.asarray(section_isentropic_drop, dtype=float)
+    t_out = np.asarray(t_group_out, dtype=float)
+    p = np.atleast_1d(np.asarray(p_exhaust, dtype=float))
+    ok = np.isfinite(p) & (p > 0.000611213) & (p < P_CRIT)
+    t_exh = np.full(p.shape, np.nan)
+    if ok.any():
+        t_exh[ok] = steam.t_sat(p[ok])
+    if np.ndim(p_exhaust) == 0:
+        t_exh = t_exh[0]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        w = g / sec * (1.0 - np.asarray(eta_rest, dtype=float) * (1.0 - t_exh / t_out))
+        w = np.where((w > 0) & (w <= 1), w, np.nan)
+    return float(w) if w.ndim == 0 else w
+
+
+def _add_assumption_uncertainty(out, base, inp, cfg, band, keys):
+    """Combine into ``out[<key>_u]`` the uncertainty of the LP efficiency the expansion
+    assumes: rectangular over +/- ``band``, u = band / sqrt(3) (JCGM 100:2008, 4.3.7),
+    sensitivity by a central difference of the whole LP chain (one-sided where the upper
+    step leaves (0, 1])."""
+    u_eta = band / np.sqrt(3.0)
+    hi = _lp_figures(inp, {**cfg, "eta_shift": u_eta, "lp_core_cache": None})
+    lo = _lp_figures(inp, {**cfg, "eta_shift": -u_eta, "lp_core_cache": None})
+    for k in keys:
+        with np.errstate(invalid="ignore"):
+            slope = np.where(np.isfinite(hi[k]), (hi[k] - lo[k]) / (2.0 * u_eta), (base[k] - lo[k]) / u_eta)
+            out[f"{k}_u"] = np.hypot(out[f"{k}_u"], slope * u_eta)
+
+
 #: ``evaluate`` works through longer frames in row blocks of this size: its temporaries then
 #: stay in the caches. Measured on a synthetic unit-year (525,600 rows, every role, with
 #: uncertainty): 7.48 s in one piece, 5.97 s in blocks of 43,200 rows (6.28 s at 86,400,
@@ -1705,6 +1786,7 @@ def evaluate(
     frame,
     *,
     eta_lp_design=ETA_LP_DESIGN_DEFAULT,
+    eta_lp_band=ETA_LP_BAND_DEFAULT,
     lp_dry_efficiency_source="design",
     baumann=BAUMANN_DEFAULT,
     annulus_area=None,
@@ -1730,6 +1812,11 @@ def evaluate(
     eta_lp_design : float, optional
         LP dry efficiency for the expansion mode, in (0, 1] (default 0.88, typical; set the
         maker's design value) [-].
+    eta_lp_band : float, optional
+        Half-width of the band around the LP efficiency the expansion assumes (the design
+        value, or the LP dry group's efficiency) in which the true one may lie, >= 0 (default
+        0.02, +/- 2 points); its rectangular standard uncertainty, band / sqrt(3) (JCGM
+        100:2008, 4.3.7), enters the ``_u`` of every LP figure the expansion gives [-].
     lp_dry_efficiency_source : {"design", "measured"}, optional
         "design" expands with ``eta_lp_design``; "measured" with the LP dry stage-group
         efficiency of the same row (needs the LP extraction roles; rows where it is NaN get
@@ -1789,6 +1876,7 @@ def evaluate(
         # the iterated solvers, as any other cut of the rows).
         kwargs = dict(
             eta_lp_design=eta_lp_design,
+            eta_lp_band=eta_lp_band,
             lp_dry_efficiency_source=lp_dry_efficiency_source,
             baumann=baumann,
             annulus_area=annulus_area,
@@ -1805,6 +1893,9 @@ def evaluate(
         series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in _SERIES_FIELDS}
         return SectionResults(**series, lp_mode=parts[0].lp_mode, notes=parts[0].notes)
     a = _check_baumann(baumann)
+    band = float(eta_lp_band)
+    if not (np.isfinite(band) and 0 <= band < 0.5):
+        raise ValueError(f"eta_lp_band: expected a number in [0, 0.5), found {eta_lp_band!r}")
     eta_d = float(eta_lp_design) if eta_lp_design is not None else np.nan
     if lp_dry_efficiency_source not in ("design", "measured"):
         raise ValueError(
@@ -1998,6 +2089,8 @@ def evaluate(
             )
             for k in lp_u_keys:
                 out[f"{k}_u"] = np.where(np.isfinite(out[k]), res[k], np.nan)
+            if mode == "expansion" and band > 0:
+                _add_assumption_uncertainty(out, r, inp, cfg, band, lp_u_keys)
 
     # Shares of the expansion-line drop (per kg): HP + IP + LP to the ELEP.
     total = out["hp_enthalpy_drop"] + out["ip_enthalpy_drop"] + out["lp_enthalpy_drop"]
@@ -2007,6 +2100,7 @@ def evaluate(
 
     if groups_missing["lp_dry"]:
         codes["lp_dry"] = np.full(n, NOT_MAPPED, dtype=np.int64)
+    out["lp_estimate"] = np.full(n, 1.0 if mode == "expansion" else 0.0)
     out["reason"] = _pack_reason(codes)
     series = {name: pd.Series(out[name], index=idx, name=name) for name, _, _ in _SERIES_FIELDS}
     return SectionResults(**series, lp_mode=mode, notes=tuple(notes))
@@ -2036,6 +2130,7 @@ __all__ = [
     "DEFAULT_EXHAUST_LOSS_CURVE",
     "DEFAULT_EXHAUST_LOSS_POINTS",
     "ETA_LP_DESIGN_DEFAULT",
+    "ETA_LP_BAND_DEFAULT",
     "ExhaustLossCurve",
     "FIGURE_UNITS",
     "FlowFractions",
@@ -2055,5 +2150,6 @@ __all__ = [
     "reason_names",
     "section_efficiency",
     "section_expansion",
+    "stage_group_weight",
     "wetness_corrected_exhaust_loss",
 ]

@@ -60,7 +60,7 @@ __all__ = [
 
 #: Permissible fluctuation during a run, role -> (relative to the window mean [-], absolute
 #: [internal unit]); the larger of the two applies. ASME PTC 6-2004 Table 3-1 (2006 erratum;
-#: REFERENCES.md, read from a poor copy):
+#: calc/REFERENCES.md, read from a poor copy):
 #: throttle pressure +/-0.25 % of absolute or 34.5 kPa (5 psi), whichever larger;
 #: throttle and reheat temperature +/-4 K (7 degF);
 #: exhaust pressure +/-1.0 % of absolute or 0.14 kPa, whichever larger.

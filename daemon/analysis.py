@@ -67,8 +67,9 @@ OUTLOOK_MEASUREMENT = "outlook"
 #: (project choice, no source: long enough to average out day-to-day scatter).
 CURRENT_WINDOW_DAYS = 7.0
 
-#: Sections analysed, in report order.
-SECTIONS = ("hp", "ip", "lp")
+#: Sections analysed, in report order: HP, IP, the LP dry stage group (crossover -> LP
+#: extraction) and the whole LP (from the energy balance, where it is mapped).
+SECTIONS = ("hp", "ip", "lp_dry", "lp")
 
 _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 
@@ -80,7 +81,7 @@ class SectionOutlook:
     Attributes
     ----------
     section : str
-        "hp", "ip" or "lp".
+        "hp", "ip", "lp_dry" (LP dry stage group) or "lp" (whole LP, energy balance).
     deviation : pandas.Series
         Deviation of each steady window after the reference period [points], UTC index.
     hours : numpy.ndarray
@@ -114,6 +115,10 @@ class SectionOutlook:
         one window's deviation, i.e. what a change of instrument bias since the baseline
         (recalibration, replacement) could shift the level by, which ``current_u`` does not
         cover [points].
+    heat_rate_per_point, output_per_point : float
+        Sensitivity coefficients the losses were priced with [% per point]; NaN unpriced.
+    pricing : str
+        Where they come from (configured, default, or the LP dry group's share of the LP).
     """
 
     section: str
@@ -130,6 +135,9 @@ class SectionOutlook:
     overhaul: object | None = None
     deviation_u: pd.Series | None = None
     current_window_u: float = math.nan
+    heat_rate_per_point: float = math.nan
+    output_per_point: float = math.nan
+    pricing: str = ""
 
 
 @dataclass
@@ -417,10 +425,12 @@ def analyse(
             deviation_u=dev_u,
             current_window_u=_window_u(dev_u, end),
         )
-        if basis is not None and math.isfinite(mean_output):
-            sens = econ.sensitivity.get(name)
-            hr = {name: sens.heat_rate_percent_per_point} if sens else None
-            oc = {name: sens.output_percent_per_point} if sens else None
+        coefficients = _coefficients(name, frame, econ, notes)
+        if coefficients is not None:
+            out.heat_rate_per_point, out.output_per_point, out.pricing = coefficients
+        if basis is not None and math.isfinite(mean_output) and coefficients is not None:
+            hr = {name: coefficients[0]}
+            oc = {name: coefficients[1]}
             daily_online = on.groupby(on.index.floor("D")).sum() * _sample_hours(on)
             out.losses = economics.daily_losses(
                 dev,
@@ -500,6 +510,41 @@ def analyse(
         availability=availability,
         mean_output_mw=mean_output,
         notes=notes,
+    )
+
+
+def _coefficients(name: str, frame: pd.DataFrame, econ, notes: list) -> tuple[float, float, str] | None:
+    """Heat-rate and output coefficients of a section [% per point] and their source.
+
+    Configured ones first. The LP dry stage group has no default: it is priced with the whole
+    LP's coefficients times its weight in the LP (median over its windows of
+    ``calc.sections.stage_group_weight``: its share of the LP's isentropic drop less what the
+    stages after it recover), since a point of the group is only that part of a point of
+    the LP (``calc.economics.stage_group_coefficient``)."""
+    from isentrope.calc import economics
+    from isentrope.daemon.config import DEFAULT_SENSITIVITY
+    from isentrope.daemon.pipeline import WORK_SHARE
+
+    sens = econ.sensitivity.get(name)
+    if sens is not None:
+        given = name in DEFAULT_SENSITIVITY and sens == DEFAULT_SENSITIVITY[name]
+        source = "typical values (from memory)" if given else "configured"
+        return sens.heat_rate_percent_per_point, sens.output_percent_per_point, source
+    if name != "lp_dry":
+        return None
+    share = pd.to_numeric(frame.get(WORK_SHARE, pd.Series(dtype=float)), errors="coerce").to_numpy(
+        dtype=float
+    )
+    share = share[np.isfinite(share) & (share > 0) & (share <= 1)]
+    whole = econ.sensitivity.get("lp")
+    if not len(share) or whole is None:
+        notes.append("LP dry stage group not priced: no weight in the LP stored with its deviation")
+        return None
+    f = float(np.median(share))
+    return (
+        economics.stage_group_coefficient(whole.heat_rate_percent_per_point, f),
+        economics.stage_group_coefficient(whole.output_percent_per_point, f),
+        f"whole-LP coefficients x its weight {f:.2f} in the LP",
     )
 
 

@@ -72,7 +72,9 @@ __all__ = [
     "STORE_KINDS",
 ]
 
-SECTIONS = ("hp", "ip", "lp")
+#: Sections trended and priced: HP, IP, the LP dry stage group (crossover -> LP extraction)
+#: and the whole LP (crossover -> exhaust, from the energy balance).
+SECTIONS = ("hp", "ip", "lp_dry", "lp")
 STORE_KINDS = ("sqlite", "influx2", "influx1")
 
 
@@ -305,7 +307,9 @@ class SectionsConfig:
     flow role and fractions are there, else expansion). ``lp_dry_efficiency_source``: the LP
     efficiency the expansion uses, "design" (``eta_lp_design``) or "measured" (the LP dry
     stage-group efficiency of the same sample, from the LP extraction roles).
-    ``eta_lp_design`` [-], ``baumann``
+    ``eta_lp_design`` [-], ``eta_lp_band_points`` half-width of the band around the LP
+    efficiency the expansion assumes in which the true one may lie [points] (enters the
+    uncertainty of the estimated LP figures), ``baumann``
     factor a [-], ``annulus_area_m2`` LP last-stage annulus area, all exhaust flows
     together [m2], ``lp_exhaust_flow_fraction`` LP exhaust flow / main steam flow [-],
     ``exhaust_loss_curve`` pairs (annulus velocity [m/s], exhaust loss [kJ/kg]) with rising
@@ -317,6 +321,7 @@ class SectionsConfig:
     lp_mode: str = "auto"
     lp_dry_efficiency_source: str = "design"
     eta_lp_design: float = 0.88
+    eta_lp_band_points: float = 2.0
     baumann: float = 1.0
     annulus_area_m2: float | None = None
     lp_exhaust_flow_fraction: float | None = None
@@ -367,7 +372,7 @@ class AlarmsConfig:
     cusum_h: float = 8.0  # about 7.5 % false steps per 500 windows of pure noise (calc.trend tests)
     # A CUSUM on low-scatter deviations also finds steps of hundredths of a point: real, but
     # not what a planner acts on. 0.25 point is well below the 0.5-2 points of a rub or a trip
-    # (REFERENCES.md, from memory); project choice, no source.
+    # (calc/REFERENCES.md, from memory); project choice, no source.
     min_step_points: float = 0.25
 
 
@@ -379,8 +384,10 @@ class SensitivityConfig:
     output_percent_per_point: float
 
 
-#: Mid-range values of REFERENCES.md "Degradation and its cost" (from memory; the unit's own
-#: heat balance replaces them).
+#: Mid-range values of calc/REFERENCES.md "Degradation and its cost" (from memory; the unit's
+#: own heat balance replaces them). The LP ones are per point of the whole LP; the LP dry stage
+#: group has no default: without ``[economics.sensitivity.lp_dry]`` it is priced by its share
+#: of the LP's isentropic drop (``calc.economics.stage_group_coefficient``).
 DEFAULT_SENSITIVITY = {
     "hp": SensitivityConfig(0.20, 0.28),
     "ip": SensitivityConfig(0.15, 0.25),
@@ -1012,6 +1019,9 @@ def _read_sections(r: _Reader, top: dict, roles: dict) -> SectionsConfig:
         choices=("design", "measured"),
     )
     v["eta_lp_design"] = r.value(d, p + ("eta_lp_design",), "float", D.eta_lp_design, low=0.5, high=1.0)
+    v["eta_lp_band_points"] = r.value(
+        d, p + ("eta_lp_band_points",), "float", D.eta_lp_band_points, low=0.0, high=10.0
+    )
     v["baumann"] = r.value(d, p + ("baumann",), "float", D.baumann, low=0.0, high=2.0)
     v["annulus_area_m2"] = r.value(d, p + ("annulus_area_m2",), "float", None, low=0, low_open=True)
     for k in ("lp_exhaust_flow_fraction", "reheat_flow_fraction", "crossover_flow_fraction"):
@@ -1107,7 +1117,7 @@ def _read_baseline(r: _Reader, top: dict) -> BaselineConfig:
         start=start,
         end=end,
         margin_percent=r.value(d, p + ("margin_percent",), "float", D.margin_percent, low=0, high=100),
-        degree=r.value(d, p + ("degree",), "int", D.degree, low=0, high=3),
+        degree=r.value(d, p + ("degree",), "int", D.degree, low=1, high=2),
     )
 
 
@@ -1179,25 +1189,23 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
         body = r.table(sd, sp)
         r.unknown(body, sp, _fields(SensitivityConfig))
         if body:
-            base = DEFAULT_SENSITIVITY[sec]
-            sens[sec] = SensitivityConfig(
-                heat_rate_percent_per_point=r.value(
+            base = DEFAULT_SENSITIVITY.get(sec)
+            values = [
+                r.value(
                     body,
-                    sp + ("heat_rate_percent_per_point",),
+                    sp + (key,),
                     "float",
-                    base.heat_rate_percent_per_point,
+                    getattr(base, key) if base is not None else None,
                     low=0,
                     high=5,
-                ),
-                output_percent_per_point=r.value(
-                    body,
-                    sp + ("output_percent_per_point",),
-                    "float",
-                    base.output_percent_per_point,
-                    low=0,
-                    high=5,
-                ),
-            )
+                )
+                for key in ("heat_rate_percent_per_point", "output_percent_per_point")
+            ]
+            if None in values:
+                if not r.problems_for(sp):
+                    r.problem(sp, "no default for this section: give both coefficients (with their source)")
+                continue
+            sens[sec] = SensitivityConfig(*values)
     overhaul: dict[str, OverhaulCase] = {}
     od = r.table(d, p + ("overhaul",))
     r.unknown(od, p + ("overhaul",), SECTIONS)

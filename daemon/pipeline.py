@@ -33,6 +33,7 @@ limits, local codes and licensed engineering practice take precedence.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -249,8 +250,44 @@ def align_steady_windows(
 # --------------------------------------------------------------------------------------
 # the pipeline
 # --------------------------------------------------------------------------------------
-#: Section -> efficiency column of calc.sections that its baseline model is fitted to.
-BASELINE_COLUMNS = {"hp": "hp_efficiency", "ip": "ip_efficiency", "lp": "lp_dry_efficiency"}
+#: Section -> efficiency column of calc.sections that its baseline model is fitted to. "lp_dry"
+#: is the LP dry stage group (crossover -> LP extraction); "lp" is the whole LP, its used-energy
+#: efficiency (crossover -> UEEP), trended only where the energy balance gives it (main steam
+#: flow and flow fractions mapped): from an assumed LP efficiency it would trend the assumption.
+BASELINE_COLUMNS = {
+    "hp": "hp_efficiency",
+    "ip": "ip_efficiency",
+    "lp_dry": "lp_dry_efficiency",
+    "lp": "lp_used_energy_efficiency",
+}
+
+#: Deviation column of the LP dry stage group: points of the whole LP's efficiency per point of
+#: the group's in the window [-] (``calc.sections.stage_group_weight``), by which it is priced.
+WORK_SHARE = "lp_weight"
+
+#: Window column of the pressure ratio across the control valves and the first-stage nozzles,
+#: first-stage pressure over throttle pressure [-] (added where both are in the windows).
+FIRST_STAGE_RATIO = "first_stage_ratio"
+
+#: Sections whose baseline carries the operating-mode terms. The control valves stand in front
+#: of the HP and their throttling counts against it (inlet upstream of the stop valves, ASME
+#: PTC 6 enthalpy-drop method), so at one load another valve point or sliding-pressure curve
+#: moves the HP efficiency; the IP and LP inlets lie behind the reheater and do not see it
+#: (common practice, no source).
+MODE_SECTIONS = ("hp",)
+
+
+def with_mode_terms(windows: pd.DataFrame) -> pd.DataFrame:
+    """``windows`` with ``first_stage_ratio`` (first-stage over throttle pressure [-]) added
+    where both pressures are columns; the frame itself when they are not."""
+    if not {"first_stage_p", "throttle_p"} <= set(windows.columns) or FIRST_STAGE_RATIO in windows:
+        return windows
+    out = windows.copy()
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out[FIRST_STAGE_RATIO] = out["first_stage_p"].to_numpy(dtype=float) / out["throttle_p"].to_numpy(
+            dtype=float
+        )
+    return out
 
 
 class Pipeline:
@@ -272,6 +309,8 @@ class Pipeline:
         from isentrope.calc import units
 
         self.config = config
+        #: What the last ``fit_baselines`` left out of the models, one line each.
+        self.baseline_notes: list[str] = []
         self.roles = [r for r in ROLES if r in config.roles]
         baro = config.screening.barometric_kpa
         if baro is None:
@@ -302,6 +341,30 @@ class Pipeline:
         self._after = look
 
     @property
+    def lp_energy_balance(self) -> bool:
+        """True when ``calc.sections.evaluate`` takes the LP exhaust from the energy balance
+        (the flow fractions configured, ``gross_output`` and ``main_steam_flow`` mapped, the
+        mode not forced to the expansion); the LP figures are then measured, not estimates."""
+        sc = self.config.sections
+        return (
+            sc.lp_mode != "expansion"
+            and sc.reheat_flow_fraction is not None
+            and sc.crossover_flow_fraction is not None
+            and {"gross_output", "main_steam_flow"} <= set(self.roles)
+        )
+
+    def moisture_label(self) -> str:
+        """What the moisture alarm rests on: measured (energy balance) or an assumption."""
+        sc = self.config.sections
+        if self.lp_energy_balance:
+            return "LP exhaust moisture (energy balance)"
+        if sc.lp_dry_efficiency_source == "measured":
+            assumed = "the LP dry stage-group efficiency taken for the whole LP"
+        else:
+            assumed = f"an assumed LP efficiency of {sc.eta_lp_design:g}"
+        return f"LP exhaust moisture, an estimate from {assumed} (+/- {sc.eta_lp_band_points:g} pt)"
+
+    @property
     def margins(self) -> tuple[pd.Timedelta, pd.Timedelta]:
         """(before, after): data needed around a window for final results there."""
         return self._before, self._after
@@ -313,6 +376,7 @@ class Pipeline:
         sc, unit = self.config.sections, self.config.unit
         kwargs: dict = dict(
             eta_lp_design=sc.eta_lp_design,
+            eta_lp_band=sc.eta_lp_band_points / 100.0,
             lp_dry_efficiency_source=sc.lp_dry_efficiency_source,
             baumann=sc.baumann,
             lp_mode=sc.lp_mode,
@@ -461,7 +525,7 @@ class Pipeline:
             of_windows = sections.evaluate(windows[self.roles].reset_index(drop=True), **section_kwargs)
             windows = windows.join(of_windows.to_frame().set_axis(windows.index, axis=0))
 
-        deviation = self._deviation(windows, baselines or {}, notes)
+        deviation = self.deviation(windows, baselines or {}, notes)
         events, new_state = self._alarms(
             windows,
             deviation,
@@ -532,8 +596,12 @@ class Pipeline:
 
         cfg = self.config.baseline
         models, problems = {}, []
+        self.baseline_notes = []
+        windows = with_mode_terms(windows)
         for section, col in BASELINE_COLUMNS.items():
             if col not in windows.columns or not np.isfinite(windows[col].to_numpy(dtype=float)).any():
+                continue
+            if section == "lp" and not self.lp_energy_balance:
                 continue
             try:
                 models[section] = baseline.fit_baseline(
@@ -542,6 +610,7 @@ class Pipeline:
                     efficiency_col=col,
                     load_col="gross_output",
                     rating_mw=float(self.config.unit.rating_mw),
+                    extra_cols=self.mode_terms(section, windows),
                     degree=int(cfg.degree),
                     reference_period=(cfg.start, cfg.end),
                     load_margin=float(cfg.margin_percent) / 100.0,
@@ -550,8 +619,67 @@ class Pipeline:
                 problems.append(f"{section}: {exc}")
         return models, problems
 
-    def _deviation(self, windows: pd.DataFrame, baselines: dict, notes: list) -> pd.DataFrame:
+    def mode_terms(self, section: str, windows: pd.DataFrame | None = None) -> list[str]:
+        """The operating-mode regressors of ``section``'s baseline (``calc.baseline`` extra
+        columns): for the sections of ``MODE_SECTIONS``, ``valve_position`` [%] where mapped,
+        ``first_stage_ratio`` [-] where ``first_stage_p`` is mapped, and ``throttle_p`` [MPa]
+        (the sliding-pressure curve) with either; none for the others.
+
+        With ``windows`` (all steady windows; the reference period is taken from them), a term
+        is left out where its column is missing, finite in fewer than half of the reference
+        windows or constant there (a broken or unused valve transmitter then costs the term,
+        not the section's whole baseline), and where load and the terms before it explain it
+        (``calc.baseline.select_terms``: a reference period in one operating mode cannot
+        tell a mode term from load). What was left out and why is in ``baseline_notes``.
+        """
         from isentrope.calc import baseline
+
+        if section not in MODE_SECTIONS:
+            return []
+        mapped = set(self.roles)
+        terms = []
+        if "valve_position" in mapped:
+            terms.append("valve_position")
+        if "first_stage_p" in mapped:
+            terms.append(FIRST_STAGE_RATIO)
+        if terms:
+            terms.append("throttle_p")
+        if windows is None:
+            return terms
+        cfg = self.config.baseline
+        ref = windows
+        if cfg.start is not None and isinstance(windows.index, pd.DatetimeIndex):
+            ref = windows[
+                (windows.index >= pd.Timestamp(cfg.start)) & (windows.index <= pd.Timestamp(cfg.end))
+            ]
+        usable = []
+        for term in terms:
+            v = ref[term].to_numpy(dtype=float) if term in ref.columns else np.empty(0)
+            fin = np.isfinite(v)
+            if len(v) and fin.mean() >= 0.5 and np.ptp(v[fin]) > 0:
+                usable.append(term)
+            else:
+                self.baseline_notes.append(f"{section}: term {term} left out: missing or constant")
+        if not usable or "gross_output" not in ref.columns:
+            return usable
+        taken, vifs = baseline.select_terms(
+            ref, usable, rating_mw=float(self.config.unit.rating_mw), degree=int(cfg.degree)
+        )
+        for term in usable:
+            if term not in taken:
+                self.baseline_notes.append(
+                    f"{section}: term {term} left out: in the reference windows load and the terms "
+                    f"before it explain it (variance inflation {vifs.get(term, math.inf):.3g} > "
+                    f"{baseline.MAX_VIF:g})"
+                )
+        return taken
+
+    def deviation(self, windows: pd.DataFrame, baselines: dict, notes: list | None = None) -> pd.DataFrame:
+        """Deviation rows of the steady ``windows`` from the ``baselines`` (section -> model),
+        windows of the reference period left out (see ``CycleResults.deviation``)."""
+        from isentrope.calc import baseline, sections
+
+        notes = [] if notes is None else notes
 
         cols = [
             "section",
@@ -573,6 +701,8 @@ class Pipeline:
             col = BASELINE_COLUMNS.get(section, model.efficiency_col)
             if not len(windows) or col not in windows.columns:
                 continue
+            if section == "lp" and not self.lp_energy_balance:
+                continue
             # only windows after the reference period: whether a model existed when a reference
             # window was processed depends on the cycle, so those windows get no deviation at all
             ref_end = self.config.baseline.end or model.reference_end
@@ -585,9 +715,18 @@ class Pipeline:
             if not len(w):
                 continue
             u_col = f"{col}_u" if f"{col}_u" in w.columns else None
-            dev = baseline.deviation(model, w, efficiency_col=col, efficiency_u_col=u_col)
+            dev = baseline.deviation(model, with_mode_terms(w), efficiency_col=col, efficiency_u_col=u_col)
             dev.insert(0, "efficiency", w[col].to_numpy(dtype=float))
             dev.insert(0, "section", section)
+            needed = {"lp_dry_isentropic_drop", "lp_isentropic_drop", "lp_extraction_t", "condenser_p"}
+            if section == "lp_dry" and needed <= set(w.columns):
+                dev[WORK_SHARE] = sections.stage_group_weight(
+                    w["lp_dry_isentropic_drop"].to_numpy(dtype=float),
+                    w["lp_isentropic_drop"].to_numpy(dtype=float),
+                    w["lp_extraction_t"].to_numpy(dtype=float),
+                    w["condenser_p"].to_numpy(dtype=float),
+                    float(self.config.sections.eta_lp_design),
+                )
             parts.append(dev)
         if not parts:
             return empty
@@ -659,7 +798,7 @@ class Pipeline:
                 n,
                 n,
                 sections=("lp",),
-                label="LP exhaust moisture",
+                label=self.moisture_label(),
             ),
             alarms.Rule(
                 "data_quality",

@@ -26,9 +26,19 @@ import pandas as pd
 from isentrope.daemon import __version__
 
 #: Section colours of this report (our own choice, for print contrast).
-SECTION_COLOURS = {"hp": "#1b4f72", "ip": "#7d3c98", "lp": "#117864"}
-SECTION_TITLES = {"hp": "HP section", "ip": "IP section", "lp": "LP dry stage group"}
-EFFICIENCY_COLUMNS = {"hp": "hp_efficiency", "ip": "ip_efficiency", "lp": "lp_dry_efficiency"}
+SECTION_COLOURS = {"hp": "#1b4f72", "ip": "#7d3c98", "lp_dry": "#117864", "lp": "#7e5109"}
+SECTION_TITLES = {
+    "hp": "HP section",
+    "ip": "IP section",
+    "lp_dry": "LP dry stage group (crossover to LP extraction)",
+    "lp": "LP section, whole (energy balance)",
+}
+EFFICIENCY_COLUMNS = {
+    "hp": "hp_efficiency",
+    "ip": "ip_efficiency",
+    "lp_dry": "lp_dry_efficiency",
+    "lp": "lp_used_energy_efficiency",
+}
 
 CAUTION = (
     "Advisory performance information only. isentrope is not a protective function and is "
@@ -142,8 +152,12 @@ def _hs_diagram(fig_ax, window: pd.Series, config):
     if len(pts) == 4 and "condenser_p" in window and np.isfinite(window.get("lp_elep", np.nan)):
         h_e = float(window["lp_elep"])
         s_e = float(steam.s_ph(window["condenser_p"], h_e))
-        ax.plot([pts[3][1], s_e], [pts[3][2], h_e], "-o", color=SECTION_COLOURS["lp"], lw=2)
-        ax.annotate("ELEP", (s_e, h_e), textcoords="offset points", xytext=(6, -10), fontsize=8)
+        estimate = float(window.get("lp_estimate", 0.0)) > 0.5
+        ax.plot(
+            [pts[3][1], s_e], [pts[3][2], h_e], "--o" if estimate else "-o", color=SECTION_COLOURS["lp"], lw=2
+        )
+        label = "ELEP (estimate)" if estimate else "ELEP"
+        ax.annotate(label, (s_e, h_e), textcoords="offset points", xytext=(6, -10), fontsize=8)
         s_lo, s_hi = pts[0][1] - 0.3, s_e + 0.3
     else:
         s_lo, s_hi = 5.5, 8.2
@@ -308,6 +322,21 @@ def write_report(
             "Costs use the sensitivity coefficients of the configuration: replace them with the "
             "unit's own heat balance before using them in a business case.</p>"
         )
+        pricing = [
+            f"{SECTION_TITLES[s]}: {_fmt(o.heat_rate_per_point, '.3f')} % heat rate and "
+            f"{_fmt(o.output_per_point, '.3f')} % output per point ({html.escape(o.pricing)})"
+            for s, o in (analysis.sections.items() if analysis is not None else ())
+            if o.pricing
+        ]
+        if pricing:
+            parts.append(
+                "<p>Priced per point of each trended figure. The LP dry stage group is the stages "
+                "between the crossover and the LP extraction only: a point of it is worth its weight "
+                "in the whole LP (its share of the LP's isentropic drop, less what the stages after "
+                "it recover) times the whole LP's coefficients.</p><ul>"
+                + "".join(f"<li>{p}</li>" for p in pricing)
+                + "</ul>"
+            )
     else:
         parts.append(
             "<p>No baseline model yet: configure <code>[baseline]</code> and process the reference "
@@ -360,6 +389,8 @@ def write_report(
         col = EFFICIENCY_COLUMNS[s]
         if not len(windows) or col not in windows.columns or not np.isfinite(windows[col]).any():
             continue
+        if s == "lp" and not Pipeline(config).lp_energy_balance:
+            continue  # the whole LP from an assumed efficiency: an estimate, not trended
         fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
         ax1.plot(
             windows.index,
@@ -420,7 +451,8 @@ def write_report(
         ax1.legend(fontsize=8, loc="lower left")
         ax2.set_ylabel("deviation [points]")
         ax2.grid(True, lw=0.3)
-        ax2.legend(fontsize=8, loc="lower left", ncol=3)
+        if ax2.get_legend_handles_labels()[0]:
+            ax2.legend(fontsize=8, loc="lower left", ncol=3)
         fig.autofmt_xdate()
         parts.append(f"<h3>{SECTION_TITLES[s]}</h3>")
         parts.append(
@@ -460,7 +492,23 @@ def write_report(
         ax.legend(fontsize=8)
         fig.autofmt_xdate()
         parts.append("<h2>LP exhaust moisture</h2>")
-        mode = "expansion line from the LP dry efficiency with the Baumann rule, or energy balance"
+        estimate = "lp_estimate" in windows and bool((windows["lp_estimate"] > 0.5).any())
+        sc = config.sections
+        if estimate:
+            assumed = (
+                "the LP dry stage-group efficiency taken for the whole LP"
+                if sc.lp_dry_efficiency_source == "measured"
+                else f"an assumed LP efficiency of {sc.eta_lp_design:g}"
+            )
+            mode = f"estimate: expansion line from {assumed} with the Baumann rule"
+            parts.append(
+                f"<p><strong>Estimates.</strong> No energy balance is mapped (main steam flow and flow "
+                f"fractions), so the LP efficiency, ELEP, UEEP and exhaust moisture follow from {assumed} "
+                f"and are not measured. Their uncertainty includes a band of ± {sc.eta_lp_band_points:g} "
+                "points on that efficiency, and the moisture alarm rests on the same assumption.</p>"
+            )
+        else:
+            mode = "from the energy balance on the generator output"
         parts.append(
             figs.add(
                 fig,
@@ -522,6 +570,7 @@ def write_report(
 
     # --- alarms ---------------------------------------------------------------------------
     ev_rows = []
+    moisture_estimate = not Pipeline(config).lp_energy_balance
     for s, rule in alarm_series(config):
         e = _read(store, ALARMS_MEASUREMENT, start, end, {**tags, "section": s, "rule": rule})
         for t, r in e.iterrows():
@@ -529,7 +578,8 @@ def write_report(
                 {
                     "time [UTC]": f"{t:%Y-%m-%d %H:%M}",
                     "section or tag": s,
-                    "rule": rule,
+                    "rule": rule
+                    + (" (estimate)" if rule == "exhaust_moisture" and moisture_estimate else ""),
                     "event": "raised" if bool(r.get("raised")) else "cleared",
                     "value": _fmt(r.get("value"), ".3g"),
                     "threshold": _fmt(r.get("threshold"), ".3g"),

@@ -25,16 +25,16 @@ Operating model (all invented, documented so that a reader can check the output)
   sliding with steam flow below, never under 5 MPa (the valves then close further).
 * Cold reheat, crossover, LP extraction and first-stage pressures are proportional to the
   steam flow (Stodola's cone law with the flow-pressure ratio held; common practice, no
-  source). The reheater loses 8 % of the cold reheat pressure (REFERENCES.md: 7-10 % is
+  source). The reheater loses 8 % of the cold reheat pressure (calc/REFERENCES.md: 7-10 % is
   common practice).
 * Condenser pressure: seasonal (about 3.5 kPa in winter to 8.5 kPa in summer), a daily
   cycle of the cooling water and a load dependence.
 * True efficiencies: a design curve against load fraction (HP 0.862, IP 0.912, LP dry
-  stage group 0.880 at rating, within the typical ranges in REFERENCES.md), the HP losing
+  stage group 0.880 at rating, within the typical ranges in calc/REFERENCES.md), the HP losing
   ``hp_rate`` points per 1000 operating hours (deposits), the IP stepping by ``ip_step``
   points from the restart after the trip (a rub), the LP dry group constant.
 * The unit holds output: as a section loses efficiency the steam flow rises by the output
-  sensitivities in REFERENCES.md (HP 0.25 %, IP 0.2 % per point; from memory).
+  sensitivities in calc/REFERENCES.md (HP 0.25 %, IP 0.2 % per point; from memory).
 * Offline: output, flow and valve position are zero; pressures and temperatures decay
   towards ambient and come back during the two hours before a start-up.
 * Sensor noise (standard deviations, common practice, no source): pressure 0.07 % of
@@ -98,15 +98,15 @@ STEAM_T_SET = 538.0 + 273.15  # K, throttle and hot reheat (common practice: 538
 FLOW_AT_ZERO_LOAD = 0.04  # no-load steam flow, fraction of rated (invented)
 
 # Design efficiency at load fraction L: eta = at_rating - droop * (1 - L)**2 (invented;
-# at-rating values inside REFERENCES.md "typical section efficiencies").
+# at-rating values inside calc/REFERENCES.md "typical section efficiencies").
 DESIGN_CURVES = {
     "hp": {"at_rating": 0.862, "droop": 0.060},
     "ip": {"at_rating": 0.912, "droop": 0.020},
     "lp": {"at_rating": 0.880, "droop": 0.040},
 }
-HP_RATE_POINTS_PER_1000H = -0.4  # injected deposits (REFERENCES.md: 0.3-0.5 point a year is common)
-IP_STEP_POINTS = -1.0  # injected rub at the trip (REFERENCES.md: 0.5-2 points is common)
-# Output sensitivity per point of section efficiency (REFERENCES.md, from memory): the unit
+HP_RATE_POINTS_PER_1000H = -0.4  # injected deposits (calc/REFERENCES.md: 0.3-0.5 point a year is common)
+IP_STEP_POINTS = -1.0  # injected rub at the trip (calc/REFERENCES.md: 0.5-2 points is common)
+# Output sensitivity per point of section efficiency (calc/REFERENCES.md, from memory): the unit
 # holds output, so the steam flow rises by this fraction per point lost.
 FLOW_PER_POINT = {"hp": 0.0025, "ip": 0.0020}
 

@@ -644,6 +644,14 @@ class Worker:
             f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}",
         )
         models, problems = self.pipeline.fit_baselines(windows)
+        for line in self.pipeline.baseline_notes:
+            logger.info(
+                "unit %s: baseline over %s to %s: %s",
+                self.unit,
+                ref_start.isoformat(),
+                ref_end.isoformat(),
+                line,
+            )
         if not len(windows):
             logger.warning(
                 "unit %s: no steady windows are stored for the reference period %s to %s, so no "

@@ -36,6 +36,10 @@ PLANNED_OUTAGE = "2026-04-01"
 DEMO_CHUNK = "30d"
 
 
+#: Section labels of the summary table (the LP dry stage group is not the whole LP).
+SUMMARY_NAMES = {"hp": "HP", "ip": "IP", "lp_dry": "LP dry", "lp": "LP"}
+
+
 def add_arguments(parser) -> None:
     parser.add_argument(
         "-d",
@@ -225,11 +229,15 @@ def summary_text(config, analysis, truth: dict | None = None, raised: dict | Non
         )
         proj = s.projected_loss.fuel_cost if s.projected_loss is not None else math.nan
         lines.append(
-            f"{name.upper():8}{_fmt(s.current, '+.2f') + ' pt':>14}{rate_txt:>32}{len(s.steps):>7}"
+            f"{SUMMARY_NAMES.get(name, name):8}{_fmt(s.current, '+.2f') + ' pt':>14}{rate_txt:>32}{len(s.steps):>7}"
             f"{n_alarm:>8}{_fmt(cost, ',.0f') + ' ' + cur:>16}{_fmt(proj, ',.0f') + ' ' + cur:>14}"
         )
         for st in s.steps:
             lines.append(f"{'':8}step {_fmt(st.size, '+.2f')} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}")
+        if name == "lp_dry":
+            lines.append(
+                f"{'':8}LP dry stage group, crossover to LP extraction; priced: {s.pricing or 'not priced'}"
+            )
     tags = {k: v for k, v in (raised or {}).items() if k not in analysis.sections}
     for tag, items in sorted(tags.items()):
         rules = sorted({r for _, r in items})

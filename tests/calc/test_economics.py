@@ -1,7 +1,7 @@
 """Economics: a hand-worked case written out, plus the daily, projected and overhaul figures.
 
 Sensitivity coefficients: the module defaults (HP 0.20 % heat rate and 0.275 % output per
-point; from memory, midpoints of the ranges in REFERENCES.md). Plant figures and prices are
+point; from memory, midpoints of the ranges in calc/REFERENCES.md). Plant figures and prices are
 invented for the check (a fictional 500 MW unit).
 
 Hand-worked case (HP 2.0 points below baseline, 500 MW, heat rate 8000 kJ/kWh, boiler 88 %,
@@ -86,8 +86,34 @@ def test_daily_losses_output_series():
     assert len(empty) == 0 and "cumulative_fuel_cost" in empty.columns
 
 
+@pytest.mark.parametrize(
+    "section, heat_rate, output",
+    # calc/REFERENCES.md "Degradation and its cost" (from memory): heat rate HP 0.15-0.25,
+    # IP 0.10-0.20, LP 0.40-0.50 % per point; output HP 0.25-0.3, IP 0.2-0.3, LP about 0.5 %
+    [
+        ("hp", (0.15, 0.25), (0.25, 0.30)),
+        ("ip", (0.10, 0.20), (0.20, 0.30)),
+        ("lp", (0.40, 0.50), (0.45, 0.55)),
+    ],
+)
+def test_default_coefficients_lie_in_the_ranges_of_the_trade(section, heat_rate, output):
+    assert heat_rate[0] <= -ec.heat_rate_change(1.0, section) <= heat_rate[1]
+    assert output[0] <= ec.output_change(1.0, section, 100.0) <= output[1]
+
+
+def test_a_stage_group_is_priced_by_its_weight_in_the_section():
+    # A point of the LP dry group is 0.2446 point of the whole LP at a 0.25 MPa extraction
+    # (two-group IF97 integration with iapws, tests/calc/test_sections.py): priced at that part
+    # of the whole LP's coefficient, not at all of it.
+    assert ec.stage_group_coefficient(0.45, 0.2446) == pytest.approx(0.45 * 0.2446)
+    np.testing.assert_allclose(ec.stage_group_coefficient([0.45, 0.5], [0.2, 0.3]), [0.09, 0.15])
+    for bad in (0.0, 1.2, float("nan")):
+        with pytest.raises(ValueError, match="weight"):
+            ec.stage_group_coefficient(0.45, bad)
+
+
 def test_gain_has_opposite_sign_and_coefficient_override():
-    assert ec.heat_rate_change(1.0, "lp") == pytest.approx(-0.45)
+    assert ec.heat_rate_change(1.0, "lp") < 0 < ec.heat_rate_change(-1.0, "lp")
     assert ec.heat_rate_change(-1.0, "lp", coefficients={"lp": 0.6}) == pytest.approx(0.6)
     arr = ec.heat_rate_change(np.array([-1.0, 0.0, 1.0]), "ip")
     np.testing.assert_allclose(arr, [0.15, 0.0, -0.15])

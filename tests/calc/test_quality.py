@@ -1,5 +1,5 @@
 """Checks of isentrope.calc.quality: each reason code from a constructed frame; a clean frame
-raises none. Section states are the "large reheat unit" cases of REFERENCES.md (invented for
+raises none. Section states are the "large reheat unit" cases of calc/REFERENCES.md (invented for
 checks, computed with iapws); saturation and efficiency oracles are the iapws package (IF97).
 """
 
@@ -13,7 +13,7 @@ from iapws import IAPWS97
 from isentrope.calc import quality
 from isentrope.calc.quality import Reason, screen
 
-# REFERENCES.md, "Large reheat unit, section by section" (invented for checks, iapws):
+# calc/REFERENCES.md, "Large reheat unit, section by section" (invented for checks, iapws):
 # HP 16.55 MPa / 538 degC -> 3.9 MPa / 330 degC, efficiency 0.8626;
 # IP 3.55 MPa / 538 degC -> 0.95 MPa / 350 degC, efficiency 0.9022.
 STATE = {
@@ -25,7 +25,7 @@ STATE = {
     "hot_reheat_t": 538.0 + 273.15,
     "crossover_p": 0.95,
     "crossover_t": 350.0 + 273.15,
-    "condenser_p": 0.005,  # 5 kPa, REFERENCES.md LP case
+    "condenser_p": 0.005,  # 5 kPa, calc/REFERENCES.md LP case
     "gross_output": 480.0,  # invented (demo-style) load of the fictional unit [MW]
 }
 # Noise levels: invented, typical transmitter noise (common practice, no source).
@@ -74,7 +74,7 @@ def test_clean_frame_triggers_nothing():
 
 def test_efficiencies_in_details_match_reference_cases():
     res = screen(_plant(n=20, noise=False), return_details=True)
-    # REFERENCES.md large reheat unit (iapws): HP 0.8626, IP 0.9022
+    # calc/REFERENCES.md large reheat unit (iapws): HP 0.8626, IP 0.9022
     assert res.details["hp_efficiency"].to_numpy() == pytest.approx(0.8626, abs=1e-4)
     assert res.details["ip_efficiency"].to_numpy() == pytest.approx(0.9022, abs=1e-4)
 

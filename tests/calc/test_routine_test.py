@@ -1,6 +1,6 @@
 """Routine test evaluation: stabilisation, sub-periods, PTC 6 fluctuation checks, result.
 
-Readings are held at the "large reheat unit" conditions of REFERENCES.md (values invented
+Readings are held at the "large reheat unit" conditions of calc/REFERENCES.md (values invented
 for checks, efficiencies computed there with iapws): HP 16.55 MPa / 538 C -> 3.9 MPa / 330 C,
 efficiency 0.8626; IP 3.55 MPa / 538 C -> 0.95 MPa / 350 C, efficiency 0.9022. Noise and
 disturbances are invented for the checks. Fluctuation limits: ASME PTC 6-2004 Table 3-1 via
@@ -53,8 +53,8 @@ def test_clean_test_gives_reference_efficiencies():
     assert (r.sub_periods["steady_fraction"] == 1.0).all()
     hp = r.result.loc["hp_efficiency"]
     ip = r.result.loc["ip_efficiency"]
-    assert hp["mean"] == pytest.approx(0.8626, abs=0.001)  # REFERENCES.md, computed with iapws
-    assert ip["mean"] == pytest.approx(0.9022, abs=0.001)  # REFERENCES.md, computed with iapws
+    assert hp["mean"] == pytest.approx(0.8626, abs=0.001)  # calc/REFERENCES.md, computed with iapws
+    assert ip["mean"] == pytest.approx(0.9022, abs=0.001)  # calc/REFERENCES.md, computed with iapws
     assert hp["n"] == 3
     assert hp["u"] == pytest.approx(math.hypot(hp["u_spread"], hp["u_instrument"]))
     assert hp["U95"] == pytest.approx(2 * hp["u"])

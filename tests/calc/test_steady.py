@@ -1,7 +1,7 @@
 """Checks of isentrope.calc.steady: PTC 6 fluctuation windows and the Cao & Rhinehart R statistic.
 
 The load histories are invented (a fictional 600 MW unit); the limits are those of ASME PTC 6-2004
-Table 3-1 as listed in REFERENCES.md; the R statistic is checked against its defining recursion
+Table 3-1 as listed in calc/REFERENCES.md; the R statistic is checked against its defining recursion
 (Cao & Rhinehart 1995) written out as a plain loop, and against its expected value of about 1 on
 white noise (Cao & Rhinehart 1995: R near 1 when steady).
 """
@@ -140,7 +140,7 @@ def test_gap_longer_than_max_gap_splits_windows():
 
 @pytest.mark.parametrize("amplitude,is_steady", [(3.8, True), (4.2, False)])
 def test_temperature_fluctuation_limit_4k(amplitude, is_steady):
-    # ASME PTC 6-2004 Table 3-1 (REFERENCES.md): throttle temperature +/-4 K about the average.
+    # ASME PTC 6-2004 Table 3-1 (calc/REFERENCES.md): throttle temperature +/-4 K about the average.
     n = 120
     f = pd.DataFrame(
         {
@@ -159,7 +159,7 @@ def test_pressure_limits_follow_ptc6_table_3_1():
     res = tag_steady(f, rating_mw=RATING, return_details=True)
     d = res.details.iloc[-1]
     # throttle: max(0.25 % of 16.55 MPa, 34.5 kPa) = 41.4 kPa; condenser: max(1 % of 5 kPa, 0.14 kPa)
-    # = 0.14 kPa (ASME PTC 6-2004 Table 3-1, REFERENCES.md)
+    # = 0.14 kPa (ASME PTC 6-2004 Table 3-1, calc/REFERENCES.md)
     assert d["throttle_p_limit"] == pytest.approx(0.0025 * 16.55, rel=1e-3)
     assert d["condenser_p_limit"] == pytest.approx(0.00014, rel=1e-12)
     # load: +/-1 % of rating (common practice, no source)

@@ -39,7 +39,7 @@ TABLE15 = [
     (700.0, 30.0, 0.542946619e-2, 0.263149474e4, 0.517540298e1, 0.103505092e2),
 ]
 
-# R7-97(2012) Table 35 (p_sat) and Table 36 (T_sat); also in shared/REFERENCES.md.
+# R7-97(2012) Table 35 (p_sat) and Table 36 (T_sat); also in calc/REFERENCES.md.
 TABLE35 = [(300.0, 0.353658941e-2), (500.0, 0.263889776e1), (600.0, 0.123443146e2)]
 TABLE36 = [(0.1, 0.372755919e3), (1.0, 0.453035632e3), (10.0, 0.584149488e3)]
 
@@ -247,7 +247,7 @@ def test_t_ph_and_x_ph_against_iapws():
 
 
 # ------------------------------------------------------------------------------------------
-# Worked cross-checks (shared/REFERENCES.md, IF97 figures computed with iapws).
+# Worked cross-checks (calc/REFERENCES.md, IF97 figures computed with iapws).
 
 
 def test_turbine_end_points_references_md():

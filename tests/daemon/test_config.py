@@ -12,6 +12,8 @@ import textwrap
 import tomllib
 from pathlib import Path
 
+import numpy as np
+import pandas as pd
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
@@ -360,6 +362,30 @@ def test_ranges_and_types():
     assert any(
         "roles.valve_position.range: expected [low, high] with low < high, found [100, 0]" in p for p in got
     )
+
+
+@pytest.mark.parametrize("degree, ok", [(0, False), (1, True), (2, True), (3, False)])
+def test_the_baseline_degree_is_what_the_fit_accepts(degree, ok):
+    # calc.baseline.fit_baseline fits a straight line or a quadratic in load fraction: the
+    # configuration accepts exactly those, so a valid file never fails at fitting time
+    from isentrope.calc import baseline
+
+    text = minimal(f"""
+        [baseline]
+        degree = {degree}
+        """)
+    if ok:
+        assert parse_config(text).baseline.degree == degree
+    else:
+        assert any("baseline.degree: expected a value >= 1 and <= 2" in p for p in problems(text))
+    rng = np.random.default_rng(1)
+    load = rng.uniform(300, 500, 40)
+    w = pd.DataFrame({"gross_output": load, "eta": 0.85 + 0.0001 * load + rng.normal(0, 1e-3, 40)})
+    if ok:
+        baseline.fit_baseline(w, "hp", efficiency_col="eta", rating_mw=500.0, degree=degree)
+    else:
+        with pytest.raises(ValueError, match="degree must be 1 or 2"):
+            baseline.fit_baseline(w, "hp", efficiency_col="eta", rating_mw=500.0, degree=degree)
 
 
 # --- secrets ------------------------------------------------------------------------------

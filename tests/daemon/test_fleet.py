@@ -72,8 +72,8 @@ def _tables(store, unit):
         tag_sets = [{"unit": unit}] if m in ("section_samples", "steady_windows") else None
         if tag_sets is None:
             keys = {
-                "deviation": [("section", s) for s in ("hp", "ip", "lp")],
-                "alarm_events": [("section", s) for s in ["hp", "ip", "lp", "throttle_t"]],
+                "deviation": [("section", s) for s in ("hp", "ip", "lp_dry", "lp")],
+                "alarm_events": [("section", s) for s in ["hp", "ip", "lp_dry", "lp", "throttle_t"]],
             }[m]
             tag_sets = [{"unit": unit, k: v} for k, v in keys]
         for tags in tag_sets:

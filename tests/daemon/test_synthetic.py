@@ -132,7 +132,7 @@ def test_full_load_figures_match_the_scenario(history):
     frame, truth, state = history
     st = state.reindex(frame.index)
     full = frame[(st["load_fraction"] > 0.97) & st["online"]]
-    # Invented design point of the scenario (fixtures/README.md), cf. REFERENCES.md "large
+    # Invented design point of the scenario (fixtures/README.md), cf. calc/REFERENCES.md "large
     # reheat unit": cold reheat ~330 degC, crossover ~350 degC at full load.
     assert 590 < full["cold_reheat_t"].median() < 610
     assert 615 < full["crossover_t"].median() < 635
@@ -178,7 +178,7 @@ def test_noisy_readings_give_the_truth_within_noise(history):
     for section, e in err.items():
         e = np.asarray(e)
         # 0.4 K on each temperature and 0.07 % on each pressure give a per-sample standard
-        # deviation of roughly 0.15-0.3 point (REFERENCES.md: 5 K -> 2.5-3 points); the mean
+        # deviation of roughly 0.15-0.3 point (calc/REFERENCES.md: 5 K -> 2.5-3 points); the mean
         # of ~60 samples (standard error ~0.03 point) must sit within 0.1 point of the truth.
         assert 0.0005 < e.std() < 0.005, (section, e.std())
         assert abs(e.mean()) < 0.001, (section, e.mean())
