@@ -47,6 +47,7 @@ from typing import Any
 import pandas as pd
 
 from isentrope.daemon.errors import ConfigError
+from isentrope.daemon.redact import remember
 from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
 
 __all__ = [
@@ -87,6 +88,7 @@ class Secret:
     def __init__(self, value: str, source: str = ""):
         self._value = value
         self.source = source  # "env:NAME" or "file:/path", safe to show
+        remember(value)  # redacted from every message from now on
 
     def reveal(self) -> str:
         return self._value
@@ -158,7 +160,8 @@ class StoreConfig:
 
     sqlite: ``path``. influx2: ``url``, ``org``, ``bucket``, ``token``. influx1: ``url``,
     ``database``, ``retention_policy``, ``username``/``password`` or ``token``. Both InfluxDB
-    kinds: ``verify_ssl``, ``timeout``, ``batch_size``.
+    kinds: ``verify_ssl``, ``ca_bundle`` (PEM file of the CAs to trust; the environment's CA
+    settings are never read), ``timeout``, ``batch_size``.
     """
 
     kind: str
@@ -172,6 +175,7 @@ class StoreConfig:
     token: Secret | None = None
     password: Secret | None = None
     verify_ssl: bool = True
+    ca_bundle: Path | None = None
     timeout: dt.timedelta = dt.timedelta(seconds=10)
     batch_size: int = 5000
 
@@ -198,6 +202,7 @@ class StoreConfig:
         opts: dict[str, Any] = {
             "url": self.url,
             "verify_ssl": self.verify_ssl,
+            "ca_bundle": str(self.ca_bundle) if self.ca_bundle else "",
             "timeout": self.timeout.total_seconds(),
             "batch_size": self.batch_size,
         }
@@ -776,7 +781,18 @@ def _read_unit(r: _Reader, top: dict) -> UnitConfig:
 
 _STORE_KEYS = {
     "sqlite": {"kind", "path"},
-    "influx2": {"kind", "url", "org", "bucket", "token", "token_file", "verify_ssl", "timeout", "batch_size"},
+    "influx2": {
+        "kind",
+        "url",
+        "org",
+        "bucket",
+        "token",
+        "token_file",
+        "verify_ssl",
+        "ca_bundle",
+        "timeout",
+        "batch_size",
+    },
     "influx1": {
         "kind",
         "url",
@@ -788,10 +804,34 @@ _STORE_KEYS = {
         "token",
         "token_file",
         "verify_ssl",
+        "ca_bundle",
         "timeout",
         "batch_size",
     },
 }
+
+
+def _read_ca_bundle(r: _Reader, d: dict, p: tuple[str, ...], base_dir: Path, verify: bool) -> Path | None:
+    """``[store] ca_bundle``: a readable file, relative to the configuration's directory."""
+    raw = r.value(d, p + ("ca_bundle",), "str", default=None)
+    if raw is None:
+        return None
+    path = Path(raw).expanduser()
+    if not path.is_absolute():
+        path = base_dir / path
+    if not verify:
+        r.problem(p + ("ca_bundle",), "verify_ssl = false checks no certificate: give one of the two")
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(16 << 20)
+    except OSError as exc:
+        r.problem(p + ("ca_bundle",), f"cannot read {path}: {exc.strerror or exc}")
+        return None
+    if b"-----BEGIN CERTIFICATE-----" not in head:
+        r.problem(
+            p + ("ca_bundle",), f"{path} is not a PEM file of CA certificates (no BEGIN CERTIFICATE line)"
+        )
+    return path
 
 
 def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
@@ -812,9 +852,11 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
     url = r.value(d, p + ("url",), "str")
     if url is not None and not re.match(r"^https?://[^/\s]+", url):
         r.problem(p + ("url",), f"expected an http:// or https:// URL, found {url!r}")
+    verify = r.value(d, p + ("verify_ssl",), "bool", default=True)
     common = dict(
         url=url or "",
-        verify_ssl=r.value(d, p + ("verify_ssl",), "bool", default=True),
+        verify_ssl=verify,
+        ca_bundle=_read_ca_bundle(r, d, p, base_dir, verify),
         timeout=r.value(
             d, p + ("timeout",), "duration", default=dt.timedelta(seconds=10), low=0, low_open=True
         ),
