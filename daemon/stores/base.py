@@ -68,6 +68,9 @@ class Store(ABC):
     #: the CPU in this process (SQLite: each row is bound by the interpreter) gains nothing.
     write_behind: bool = False
 
+    #: The smallest time step the store keeps: samples closer than this are one sample.
+    time_resolution: pd.Timedelta = pd.Timedelta(1, "ns")
+
     # --- raw samples --------------------------------------------------------------------
     @abstractmethod
     def read_raw(

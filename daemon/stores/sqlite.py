@@ -94,6 +94,7 @@ class SqliteStore(Store):
     """
 
     kind = "sqlite"
+    time_resolution = pd.Timedelta(1, "ms")  # times are kept in milliseconds (floored)
 
     def __init__(self, path: str | Path, timeout: float = 30.0):
         self.path = str(path)
