@@ -105,6 +105,10 @@ class Secret:
         return hash(self._value)
 
 
+#: No duration of the configuration or the command line is longer (ten years of 365 days): a
+#: longer one is a typing error, and beyond about 2.7 million years a timedelta overflows.
+LONGEST_DURATION = dt.timedelta(days=3650)
+
 _DURATION_PART = re.compile(r"(\d+(?:\.\d+)?)\s*(ms|s|m|h|d|w)")
 _DURATION_UNIT = {"ms": 0.001, "s": 1.0, "m": 60.0, "h": 3600.0, "d": 86400.0, "w": 604800.0}
 
@@ -125,6 +129,10 @@ def parse_duration(text: str) -> dt.timedelta:
         pos = m.end()
     if not s or pos != len(s):
         raise ValueError(f'expected a duration such as "30s", "15m", "2h", "1d" or "1h30m", found {text!r}')
+    if seconds > LONGEST_DURATION.total_seconds():
+        raise ValueError(
+            f"expected a duration of at most {format_duration(LONGEST_DURATION)}, found {text!r}"
+        )
     return dt.timedelta(seconds=seconds)
 
 
@@ -848,6 +856,10 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
             path = Path(raw).expanduser()
             if not path.is_absolute():
                 path = base_dir / path
+            if not path.parent.is_dir():
+                r.problem(p + ("path",), f"the directory {path.parent} does not exist (create it first)")
+            elif path.is_dir():
+                r.problem(p + ("path",), f"{path} is a directory; give the SQLite file in it")
         return StoreConfig(kind=kind, path=path)
     url = r.value(d, p + ("url",), "str")
     if url is not None and not re.match(r"^https?://[^/\s]+", url):
@@ -888,6 +900,23 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
         password=password,
         **common,
     )
+
+
+def _check_unit_name(r: _Reader, name: str, kind: str) -> None:
+    """The unit name is a tag value of every result and part of the checkpoint and state
+    names: refuse at load what the store would refuse at its first write."""
+    from isentrope.daemon.stores import escape
+
+    if not name or r.problems_for(("unit", "name")):
+        return
+    try:
+        escape.check_name(name, "the unit name")
+        if kind in ("influx1", "influx2"):
+            escape.lp_tag_value(name)
+            escape.influxql_string(name)
+            escape.flux_string(name)
+    except ValueError as exc:
+        r.problem(("unit", "name"), f"the {kind} store cannot write it: {exc}")
 
 
 def _units_module():
@@ -1266,6 +1295,14 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
     )
 
 
+#: Longest ``[schedule] settle`` and ``lookback`` (project choice, no source).
+SCHEDULE_LONGEST = {"settle": dt.timedelta(days=1), "lookback": dt.timedelta(days=31)}
+SCHEDULE_WHY = {
+    "settle": "results come this late; data arriving later is reprocessed by the look-back",
+    "lookback": "every cycle reads and computes this much again",
+}
+
+
 def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
     p = ("schedule",)
     d = r.table(top, p)
@@ -1276,6 +1313,13 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0, low_open=True)
     for k in ("settle", "lookback"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0)
+        longest = SCHEDULE_LONGEST[k]
+        if v[k] is not None and v[k] > longest:
+            r.problem(
+                p + (k,),
+                f"expected at most {format_duration(longest)} ({SCHEDULE_WHY[k]}), found {format_duration(v[k])}",
+            )
+            v[k] = getattr(D, k)
     v["retries"] = r.value(d, p + ("retries",), "int", D.retries, low=0, high=20)
     if v["backoff"] > v["backoff_max"]:
         r.problem(
@@ -1335,6 +1379,7 @@ def parse_config(
     r.unknown(top, (), _TOP)
     unit = _read_unit(r, top)
     store = _read_store(r, top, base_dir, environ)
+    _check_unit_name(r, unit.name, store.kind)
     roles, unc = _read_roles(r, top)
     screening = _read_screening(r, top)
     steady = _read_steady(r, top)
