@@ -229,3 +229,27 @@ def test_command_line_process_never_shows_a_secret(tmp_path, store, status, debu
     assert done.returncode in (1, 3), text
     assert "***" in text, text
     assert not leaks(text), text
+
+
+# --------------------------------------------------------------------------------------
+# files the commands write
+# --------------------------------------------------------------------------------------
+def test_an_export_that_would_hold_a_secret_is_refused(tmp_path, capsys):
+    from test_cli_tools import write_config
+
+    from isentrope.daemon.config import load_config
+
+    secret = "exp0rt-Secret-9Qw7"
+    remember(secret)
+    path = write_config(tmp_path)
+    index = pd.DatetimeIndex(["2026-05-04T10:00:00Z"], name="time")
+    with load_config(path).store.open() as store:
+        store.write_results(
+            "section_samples", pd.DataFrame({secret: [1.0]}, index=index), {"unit": "Test Unit 7"}
+        )
+    out = tmp_path / "out.csv"
+    argv = ["export", "-c", str(path), "--start", "2026-05-04", "--end", "2026-05-05", "-o", str(out)]
+    assert cli.main(argv) == 1
+    err = capsys.readouterr().err
+    assert "would contain a configured secret" in err and "nothing written" in err and secret not in err
+    assert not out.exists()

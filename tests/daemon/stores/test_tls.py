@@ -93,9 +93,22 @@ def test_verify_ssl_false_checks_nothing_on_both(https, kind):
         store.close()
 
 
-def _config(tmp_path, url: str, kind: str, extra: str = "") -> str:
-    from test_secrets import ROLES  # the same ten roles
+#: The required roles: tag and plant unit (invented demo names).
+ROLES = {
+    "throttle_p": ("U7-MS-P", "MPa(a)"),
+    "throttle_t": ("U7-MS-T", "degC"),
+    "cold_reheat_p": ("U7-CRH-P", "MPa(a)"),
+    "cold_reheat_t": ("U7-CRH-T", "degC"),
+    "hot_reheat_p": ("U7-HRH-P", "MPa(a)"),
+    "hot_reheat_t": ("U7-HRH-T", "degC"),
+    "crossover_p": ("U7-XO-P", "kPa(a)"),
+    "crossover_t": ("U7-XO-T", "degC"),
+    "condenser_p": ("U7-CND-P", "kPa(a)"),
+    "gross_output": ("U7-GEN-MW", "MW"),
+}
 
+
+def _config(tmp_path, url: str, kind: str, extra: str = "") -> str:
     body = 'database = "units"\n' if kind == "influx1" else 'org = "plant"\nbucket = "units"\n'
     parts = [
         '[unit]\nname = "U7"\nrating_mw = 500.0\n',
@@ -110,10 +123,6 @@ def _config(tmp_path, url: str, kind: str, extra: str = "") -> str:
 
 @pytest.mark.parametrize("kind", list(KINDS))
 def test_command_line_exits_2_on_a_refused_certificate(tmp_path, https, monkeypatch, capsys, kind):
-    import sys
-    from pathlib import Path
-
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/daemon: test_secrets
     monkeypatch.setenv("ISEN_TLS_TOKEN", "t0ken-for-tls")
     path = _config(tmp_path, https.url, kind)
     for argv in (
@@ -128,12 +137,8 @@ def test_command_line_exits_2_on_a_refused_certificate(tmp_path, https, monkeypa
 
 
 def test_ca_bundle_is_checked_when_the_configuration_loads(tmp_path, certs, monkeypatch):
-    import sys
-    from pathlib import Path
-
     from isentrope.daemon.config import load_config
 
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     monkeypatch.setenv("ISEN_TLS_TOKEN", "t")
     good = load_config(
         _config(tmp_path, "https://127.0.0.1:9", "influx2", f'ca_bundle = "{certs["server"][0]}"\n')
