@@ -167,7 +167,12 @@ class RedactingFilter(logging.Filter):
 
 
 def install_log_filter(logger: logging.Logger | None = None) -> None:
-    """Put one ``RedactingFilter`` on every handler of ``logger`` (default: the root logger)."""
-    for handler in (logger or logging.getLogger()).handlers:
+    """Put one ``RedactingFilter`` on every handler of ``logger`` (default: the root logger) and
+    on ``logging.lastResort``, which prints warnings when a process has no handler at all (the
+    fleet's worker processes)."""
+    handlers = list((logger or logging.getLogger()).handlers)
+    if logging.lastResort is not None:
+        handlers.append(logging.lastResort)
+    for handler in handlers:
         if not any(isinstance(f, RedactingFilter) for f in handler.filters):
             handler.addFilter(RedactingFilter())

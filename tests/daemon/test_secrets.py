@@ -253,3 +253,16 @@ def test_an_export_that_would_hold_a_secret_is_refused(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "would contain a configured secret" in err and "nothing written" in err and secret not in err
     assert not out.exists()
+
+
+def test_a_process_without_log_handlers_redacts_too(capsys):
+    """The fleet's worker processes may have no handler: Python's last-resort handler prints."""
+    from isentrope.daemon.redact import install_log_filter
+
+    remember(TOKEN)
+    log = logging.getLogger("isentrope.test.nohandlers")
+    install_log_filter(log)
+    log.propagate = False  # as in a process whose root logger has no handler
+    log.warning("server said Authorization: Token %s", TOKEN)
+    err = capsys.readouterr().err
+    assert "Token ***" in err and not leaks(err)
