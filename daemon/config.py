@@ -47,6 +47,7 @@ from typing import Any
 import pandas as pd
 
 from isentrope.daemon.errors import ConfigError
+from isentrope.daemon.redact import remember
 from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
 
 __all__ = [
@@ -89,6 +90,7 @@ class Secret:
     def __init__(self, value: str, source: str = ""):
         self._value = value
         self.source = source  # "env:NAME" or "file:/path", safe to show
+        remember(value)  # redacted from every message from now on
 
     def reveal(self) -> str:
         return self._value
@@ -104,6 +106,10 @@ class Secret:
     def __hash__(self) -> int:
         return hash(self._value)
 
+
+#: No duration of the configuration or the command line is longer (ten years of 365 days): a
+#: longer one is a typing error, and beyond about 2.7 million years a timedelta overflows.
+LONGEST_DURATION = dt.timedelta(days=3650)
 
 _DURATION_PART = re.compile(r"(\d+(?:\.\d+)?)\s*(ms|s|m|h|d|w)")
 _DURATION_UNIT = {"ms": 0.001, "s": 1.0, "m": 60.0, "h": 3600.0, "d": 86400.0, "w": 604800.0}
@@ -125,6 +131,10 @@ def parse_duration(text: str) -> dt.timedelta:
         pos = m.end()
     if not s or pos != len(s):
         raise ValueError(f'expected a duration such as "30s", "15m", "2h", "1d" or "1h30m", found {text!r}')
+    if seconds > LONGEST_DURATION.total_seconds():
+        raise ValueError(
+            f"expected a duration of at most {format_duration(LONGEST_DURATION)}, found {text!r}"
+        )
     return dt.timedelta(seconds=seconds)
 
 
@@ -160,7 +170,8 @@ class StoreConfig:
 
     sqlite: ``path``. influx2: ``url``, ``org``, ``bucket``, ``token``. influx1: ``url``,
     ``database``, ``retention_policy``, ``username``/``password`` or ``token``. Both InfluxDB
-    kinds: ``verify_ssl``, ``timeout``, ``batch_size``.
+    kinds: ``verify_ssl``, ``ca_bundle`` (PEM file of the CAs to trust; the environment's CA
+    settings are never read), ``timeout``, ``batch_size``.
     """
 
     kind: str
@@ -174,6 +185,7 @@ class StoreConfig:
     token: Secret | None = None
     password: Secret | None = None
     verify_ssl: bool = True
+    ca_bundle: Path | None = None
     timeout: dt.timedelta = dt.timedelta(seconds=10)
     batch_size: int = 5000
 
@@ -200,6 +212,7 @@ class StoreConfig:
         opts: dict[str, Any] = {
             "url": self.url,
             "verify_ssl": self.verify_ssl,
+            "ca_bundle": str(self.ca_bundle) if self.ca_bundle else "",
             "timeout": self.timeout.total_seconds(),
             "batch_size": self.batch_size,
         }
@@ -783,7 +796,18 @@ def _read_unit(r: _Reader, top: dict) -> UnitConfig:
 
 _STORE_KEYS = {
     "sqlite": {"kind", "path"},
-    "influx2": {"kind", "url", "org", "bucket", "token", "token_file", "verify_ssl", "timeout", "batch_size"},
+    "influx2": {
+        "kind",
+        "url",
+        "org",
+        "bucket",
+        "token",
+        "token_file",
+        "verify_ssl",
+        "ca_bundle",
+        "timeout",
+        "batch_size",
+    },
     "influx1": {
         "kind",
         "url",
@@ -795,10 +819,34 @@ _STORE_KEYS = {
         "token",
         "token_file",
         "verify_ssl",
+        "ca_bundle",
         "timeout",
         "batch_size",
     },
 }
+
+
+def _read_ca_bundle(r: _Reader, d: dict, p: tuple[str, ...], base_dir: Path, verify: bool) -> Path | None:
+    """``[store] ca_bundle``: a readable file, relative to the configuration's directory."""
+    raw = r.value(d, p + ("ca_bundle",), "str", default=None)
+    if raw is None:
+        return None
+    path = Path(raw).expanduser()
+    if not path.is_absolute():
+        path = base_dir / path
+    if not verify:
+        r.problem(p + ("ca_bundle",), "verify_ssl = false checks no certificate: give one of the two")
+    try:
+        with path.open("rb") as fh:
+            head = fh.read(16 << 20)
+    except OSError as exc:
+        r.problem(p + ("ca_bundle",), f"cannot read {path}: {exc.strerror or exc}")
+        return None
+    if b"-----BEGIN CERTIFICATE-----" not in head:
+        r.problem(
+            p + ("ca_bundle",), f"{path} is not a PEM file of CA certificates (no BEGIN CERTIFICATE line)"
+        )
+    return path
 
 
 def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
@@ -815,13 +863,19 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
             path = Path(raw).expanduser()
             if not path.is_absolute():
                 path = base_dir / path
+            if not path.parent.is_dir():
+                r.problem(p + ("path",), f"the directory {path.parent} does not exist (create it first)")
+            elif path.is_dir():
+                r.problem(p + ("path",), f"{path} is a directory; give the SQLite file in it")
         return StoreConfig(kind=kind, path=path)
     url = r.value(d, p + ("url",), "str")
     if url is not None and not re.match(r"^https?://[^/\s]+", url):
         r.problem(p + ("url",), f"expected an http:// or https:// URL, found {url!r}")
+    verify = r.value(d, p + ("verify_ssl",), "bool", default=True)
     common = dict(
         url=url or "",
-        verify_ssl=r.value(d, p + ("verify_ssl",), "bool", default=True),
+        verify_ssl=verify,
+        ca_bundle=_read_ca_bundle(r, d, p, base_dir, verify),
         timeout=r.value(
             d, p + ("timeout",), "duration", default=dt.timedelta(seconds=10), low=0, low_open=True
         ),
@@ -853,6 +907,23 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
         password=password,
         **common,
     )
+
+
+def _check_unit_name(r: _Reader, name: str, kind: str) -> None:
+    """The unit name is a tag value of every result and part of the checkpoint and state
+    names: refuse at load what the store would refuse at its first write."""
+    from isentrope.daemon.stores import escape
+
+    if not name or r.problems_for(("unit", "name")):
+        return
+    try:
+        escape.check_name(name, "the unit name")
+        if kind in ("influx1", "influx2"):
+            escape.lp_tag_value(name)
+            escape.influxql_string(name)
+            escape.flux_string(name)
+    except ValueError as exc:
+        r.problem(("unit", "name"), f"the {kind} store cannot write it: {exc}")
 
 
 def _units_module():
@@ -1232,6 +1303,14 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
     )
 
 
+#: Longest ``[schedule] settle`` and ``lookback`` (project choice, no source).
+SCHEDULE_LONGEST = {"settle": dt.timedelta(days=1), "lookback": dt.timedelta(days=31)}
+SCHEDULE_WHY = {
+    "settle": "results come this late; data arriving later is reprocessed by the look-back",
+    "lookback": "every cycle reads and computes this much again",
+}
+
+
 def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
     p = ("schedule",)
     d = r.table(top, p)
@@ -1242,6 +1321,13 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0, low_open=True)
     for k in ("settle", "lookback"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0)
+        longest = SCHEDULE_LONGEST[k]
+        if v[k] is not None and v[k] > longest:
+            r.problem(
+                p + (k,),
+                f"expected at most {format_duration(longest)} ({SCHEDULE_WHY[k]}), found {format_duration(v[k])}",
+            )
+            v[k] = getattr(D, k)
     v["retries"] = r.value(d, p + ("retries",), "int", D.retries, low=0, high=20)
     if v["backoff"] > v["backoff_max"]:
         r.problem(
@@ -1301,6 +1387,7 @@ def parse_config(
     r.unknown(top, (), _TOP)
     unit = _read_unit(r, top)
     store = _read_store(r, top, base_dir, environ)
+    _check_unit_name(r, unit.name, store.kind)
     roles, unc = _read_roles(r, top)
     screening = _read_screening(r, top)
     steady = _read_steady(r, top)

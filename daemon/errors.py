@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
-from isentrope.daemon.stores.base import FatalStoreError, StoreError, TemporaryStoreError
+from isentrope.daemon.stores.base import CertificateError, FatalStoreError, StoreError, TemporaryStoreError
 
 __all__ = [
     "ConfigError",
     "StoreError",
     "TemporaryStoreError",
     "FatalStoreError",
+    "CertificateError",
     "EXIT_OK",
     "EXIT_OTHER",
     "EXIT_CONFIG",

@@ -181,8 +181,10 @@ class _ObservingPipeline(Pipeline):
 
 def _open(config_path: str):
     from isentrope.daemon.config import load_config
+    from isentrope.daemon.redact import install_log_filter
     from isentrope.daemon.stores import open_store
 
+    install_log_filter()  # in a worker process too: no secret in its log lines
     config = load_config(config_path)
     return config, open_store(config.store.kind, **config.store.open_options())
 

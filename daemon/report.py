@@ -24,6 +24,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.daemon import __version__
+from isentrope.daemon.redact import redact
 
 #: Section colours of this report (our own choice, for print contrast).
 SECTION_COLOURS = {"hp": "#1b4f72", "ip": "#7d3c98", "lp_dry": "#117864", "lp": "#7e5109"}
@@ -643,5 +644,5 @@ def write_report(
         + "</body></html>"
     )
     path = out / "index.html"
-    path.write_text(page, encoding="utf-8")
+    path.write_text(redact(page), encoding="utf-8")
     return path

@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.daemon.config import Config, load_config, parse_duration
-from isentrope.daemon.stores.base import FatalStoreError
+from isentrope.daemon.stores.base import CertificateError, FatalStoreError
 
 NAME = "check"
 HELP = "validate a configuration, connect to its store and check every mapped tag's recent data"
@@ -146,6 +146,8 @@ def read_roles(
     """
     try:
         return store.read_raw(list(mappings), start, end), {}
+    except CertificateError:
+        raise  # the store's configuration, no role's
     except FatalStoreError:
         pass
     frames, errors, first = [], {}, None

@@ -23,6 +23,8 @@ from pathlib import Path
 import pandas as pd
 
 from isentrope.daemon.config import load_config
+from isentrope.daemon.files import chmod_created
+from isentrope.daemon.redact import redact
 
 NAME = "export"
 HELP = "export result series over a time window as CSV (ISO UTC times, one column per field)"
@@ -150,6 +152,7 @@ def _write_atomically(path: Path, text: str) -> None:
     try:
         with os.fdopen(fd, "w", encoding="utf-8", newline="") as fh:
             fh.write(text)
+        chmod_created(tmp)  # mkstemp makes 0600; the umask's mode (0640 by default) instead
         os.replace(tmp, path)
     except BaseException:
         if os.path.exists(tmp):
@@ -170,6 +173,11 @@ def run(args: argparse.Namespace) -> int:
     with config.store.open(create=False) as store:
         frame = collect(store, measurements, start, end, tags)
     text = to_csv_text(frame)
+    if redact(text) != text:
+        raise ValueError(
+            "the export would contain a configured secret (the store's token or password) or an "
+            "Authorization header: nothing written"
+        )
     if args.output is None:
         sys.stdout.write(text)
     else:

@@ -15,7 +15,14 @@ import logging
 import signal
 import threading
 
-from isentrope.daemon.errors import EXIT_OK, EXIT_OTHER, EXIT_UNREACHABLE, FatalStoreError
+from isentrope.daemon.errors import (
+    EXIT_CONFIG,
+    EXIT_OK,
+    EXIT_OTHER,
+    EXIT_UNREACHABLE,
+    CertificateError,
+    FatalStoreError,
+)
 
 NAME = "run"
 HELP = (
@@ -81,7 +88,7 @@ def _serve(worker, config) -> int:
             worker.run_cycle()  # temporary store trouble is handled (logged) inside
         except FatalStoreError as exc:  # retrying will not help: stop with exit 1
             logger.error("unit %s: stopping the worker: %s", config.unit.name, exc)
-            exit_code[0] = EXIT_OTHER
+            exit_code[0] = EXIT_CONFIG if isinstance(exc, CertificateError) else EXIT_OTHER
             stop.set()
 
     previous = _install_signal_handlers(on_signal)

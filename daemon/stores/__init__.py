@@ -10,14 +10,19 @@ STORE_KINDS = {
 }
 
 
-def open_store(kind: str, **options) -> Store:
-    """Open a store by kind ("sqlite", "influx2", "influx1") with its constructor's options."""
+def store_class(kind: str) -> type[Store]:
+    """The class of a store kind ("sqlite", "influx2", "influx1")."""
     import importlib
 
     if kind not in STORE_KINDS:
         raise ValueError(f"unknown store kind {kind!r}; valid kinds: {', '.join(STORE_KINDS)}")
     module, cls = STORE_KINDS[kind].split(":")
-    return getattr(importlib.import_module(module), cls)(**options)
+    return getattr(importlib.import_module(module), cls)
 
 
-__all__ = ["Store", "TemporaryStoreError", "FatalStoreError", "open_store", "STORE_KINDS"]
+def open_store(kind: str, **options) -> Store:
+    """Open a store by kind ("sqlite", "influx2", "influx1") with its constructor's options."""
+    return store_class(kind)(**options)
+
+
+__all__ = ["Store", "TemporaryStoreError", "FatalStoreError", "open_store", "store_class", "STORE_KINDS"]

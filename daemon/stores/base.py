@@ -31,11 +31,16 @@ from collections.abc import Mapping, Sequence
 
 import pandas as pd
 
+from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
 
 
 class StoreError(Exception):
-    """Base of the store errors."""
+    """Base of the store errors. A text argument is redacted (``isentrope.daemon.redact``) when
+    the error is made: a server's answer quoted in the message may echo the credentials."""
+
+    def __init__(self, *args):
+        super().__init__(*(redact(a) if isinstance(a, str) else a for a in args))
 
 
 class TemporaryStoreError(StoreError):
@@ -44,6 +49,11 @@ class TemporaryStoreError(StoreError):
 
 class FatalStoreError(StoreError):
     """Retrying will not help: bad credentials, missing database or bucket, malformed request."""
+
+
+class CertificateError(FatalStoreError):
+    """The server's TLS certificate failed verification: a configuration problem (the URL, the
+    ``ca_bundle`` or ``verify_ssl``), never an outage; the command line exits 2."""
 
 
 class Store(ABC):
@@ -57,6 +67,9 @@ class Store(ABC):
     #: writes must then be safe to call from two threads at once. A store whose writes need
     #: the CPU in this process (SQLite: each row is bound by the interpreter) gains nothing.
     write_behind: bool = False
+
+    #: The smallest time step the store keeps: samples closer than this are one sample.
+    time_resolution: pd.Timedelta = pd.Timedelta(1, "ns")
 
     # --- raw samples --------------------------------------------------------------------
     @abstractmethod

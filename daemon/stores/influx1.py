@@ -35,6 +35,7 @@ import numpy as np
 import pandas as pd
 import requests
 
+from isentrope.daemon.redact import remember, remember_basic
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
@@ -42,9 +43,11 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LineProtocolWriter,
     StateClock,
+    certificate_failure,
     classify_http,
     state_line,
     time_windows,
+    tls_verify,
 )
 
 
@@ -70,6 +73,9 @@ class Influx1Store(LineProtocolWriter, Store):
         Lines per write request.
     verify_ssl : bool
         Verify the server's TLS certificate (https URLs).
+    ca_bundle : str, optional
+        PEM file of the CA certificates to trust (default: certifi's; see
+        ``influx_common.tls_verify``: the environment is never read).
     read_chunk : str or Timedelta
         Longest time span per read request.
     """
@@ -88,6 +94,7 @@ class Influx1Store(LineProtocolWriter, Store):
         batch_size: int = 5000,
         verify_ssl: bool = True,
         read_chunk: str | pd.Timedelta = "31D",
+        ca_bundle: str = "",
     ):
         if not url.startswith(("http://", "https://")):
             raise ValueError(f"url {url!r} must start with http:// or https://")
@@ -106,8 +113,11 @@ class Influx1Store(LineProtocolWriter, Store):
         self._write_lock = threading.Lock()
         self._clock = StateClock()
         self._db_checked = False
+        remember(token)
+        remember_basic(username, password)
         self._session = requests.Session()
-        self._session.verify = verify_ssl
+        self._session.trust_env = False  # no CA bundle, proxy or .netrc from the environment
+        self._session.verify = tls_verify(verify_ssl, ca_bundle)
         self._session.headers["User-Agent"] = "isentrope"
         if token:
             self._session.headers["Authorization"] = f"Token {token}"
@@ -121,6 +131,11 @@ class Influx1Store(LineProtocolWriter, Store):
     def _request(self, method: str, path: str, what: str, **kw) -> requests.Response:
         try:
             resp = self._session.request(method, self.url + path, timeout=self.timeout, **kw)
+        except requests.exceptions.SSLError as exc:
+            cert = certificate_failure(exc, f"{what}: {self.url}")
+            if cert is not None:
+                raise cert from None
+            raise TemporaryStoreError(f"{what}: {self.url} unreachable: {type(exc).__name__}") from None
         except (requests.ConnectionError, requests.Timeout) as exc:
             raise TemporaryStoreError(f"{what}: {self.url} unreachable: {type(exc).__name__}") from None
         except requests.RequestException as exc:

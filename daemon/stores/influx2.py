@@ -57,6 +57,7 @@ from influxdb_client.client.write_api import SYNCHRONOUS
 from influxdb_client.domain.dialect import Dialect
 from influxdb_client.rest import ApiException
 
+from isentrope.daemon.redact import remember
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
@@ -64,11 +65,14 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LineProtocolWriter,
     StateClock,
+    certificate_detail,
+    certificate_failure,
     classify_http,
     clear_type_text,
     influxql_time,
     state_line,
     time_windows,
+    tls_verify,
 )
 
 _DIALECT = Dialect(
@@ -77,6 +81,16 @@ _DIALECT = Dialect(
 
 #: Flux column types that are numbers; a field column of another type holds text (or bools).
 _NUMERIC_TYPES = ("double", "long", "unsignedLong")
+
+
+class _Retry(WritesRetry):
+    """The client's retry, which gives up at once when the server's certificate is refused: a
+    configuration problem, which no retry fixes."""
+
+    def increment(self, method=None, url=None, response=None, error=None, _pool=None, _stacktrace=None):
+        if error is not None and certificate_detail(error) is not None:
+            raise urllib3.exceptions.MaxRetryError(_pool, url, error)
+        return super().increment(method, url, response, error, _pool, _stacktrace)
 
 
 def flux_time(t: pd.Timestamp) -> str:
@@ -102,6 +116,9 @@ class Influx2Store(LineProtocolWriter, Store):
         Read the token from this environment variable or file instead.
     verify_ssl : bool
         Verify the server's TLS certificate (https URLs).
+    ca_bundle : str, optional
+        PEM file of the CA certificates to trust (default: certifi's; see
+        ``influx_common.tls_verify``: the environment is never read).
     timeout : float
         Seconds per HTTP request [s].
     batch_size : int
@@ -127,6 +144,7 @@ class Influx2Store(LineProtocolWriter, Store):
         token_file: str = "",
         retries: int = 2,
         read_chunk: str | pd.Timedelta = "31D",
+        ca_bundle: str = "",
     ):
         if not url.startswith(("http://", "https://")):
             raise ValueError(f"url {url!r} must start with http:// or https://")
@@ -151,7 +169,9 @@ class Influx2Store(LineProtocolWriter, Store):
         self.pending: list[str] = []
         self._write_lock = threading.Lock()
         self._clock = StateClock()
-        retry = WritesRetry(
+        remember(token)
+        verify = tls_verify(verify_ssl, ca_bundle)
+        retry = _Retry(
             total=retries,
             retry_interval=0.2,
             max_retry_delay=2,
@@ -163,7 +183,8 @@ class Influx2Store(LineProtocolWriter, Store):
             token=token or None,
             org=org or "-",
             timeout=int(self.timeout * 1000),
-            verify_ssl=verify_ssl,
+            verify_ssl=bool(verify),
+            ssl_ca_cert=verify or None,
             retries=retry,
         )
         self._write_api = self._client.write_api(write_options=SYNCHRONOUS)
@@ -175,6 +196,9 @@ class Influx2Store(LineProtocolWriter, Store):
     # --- errors --------------------------------------------------------------------------
     def _error(self, exc: Exception, what: str) -> Exception:
         where = f"{what} ({self.url}, bucket {self.bucket!r})"
+        cert = certificate_failure(exc, where)
+        if cert is not None:
+            return cert
         if isinstance(exc, ApiException):
             body = exc.body
             if isinstance(body, bytes):

@@ -6,13 +6,16 @@ import re
 import threading
 import time
 from collections.abc import Iterator, Mapping, Sequence
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import requests
 
+from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
-from isentrope.daemon.stores.base import FatalStoreError, TemporaryStoreError
+from isentrope.daemon.stores.base import CertificateError, FatalStoreError, TemporaryStoreError
 
 #: Measurement holding checkpoints and saved state: tags ``kind`` ("checkpoint" or "state")
 #: and ``name``; one string field ``value`` (ISO time or JSON). Each save is a new point at the
@@ -55,7 +58,7 @@ def classify_http(status: int, body: str, what: str) -> Exception:
     ``FieldTypeConflictError``. The whole answer is classified; only its first
     ``_SHOWN_BODY`` characters go into the message.
     """
-    full = (body or "").strip().replace("\n", " ")
+    full = redact((body or "").strip().replace("\n", " "))  # a proxy may echo the credentials
     shown = full if len(full) <= _SHOWN_BODY else full[:_SHOWN_BODY] + "..."
     lower = full.lower()
     if any(s in lower for s in _TYPE_CONFLICT_BODY):
@@ -79,6 +82,53 @@ def classify_http(status: int, body: str, what: str) -> Exception:
             return FatalStoreError(msg)
         return TemporaryStoreError(msg)
     return FatalStoreError(msg)
+
+
+def tls_verify(verify_ssl: bool, ca_bundle: str = "") -> bool | str:
+    """What both InfluxDB stores check the server's TLS certificate against: False (no check),
+    the PEM file ``ca_bundle``, or else the CA bundle that requests ships (certifi's). Never the
+    environment (REQUESTS_CA_BUNDLE, CURL_CA_BUNDLE, SSL_CERT_FILE, SSL_CERT_DIR): the v1 store
+    (requests) would read the first two and the v2 store (urllib3, OpenSSL's defaults) the last
+    two, so the same setting would trust different CAs on the two stores."""
+    if not verify_ssl:
+        return False
+    if ca_bundle:
+        if not Path(ca_bundle).is_file():
+            raise ValueError(f"ca_bundle {str(ca_bundle)!r} is not a file (a PEM file of CA certificates)")
+        return str(ca_bundle)
+    return requests.certs.where()
+
+
+_VERIFY_FAILED = re.compile(r"certificate verify failed:?\s*(.*?)\s*(?:\(_ssl\.c|['\"]|$)", re.IGNORECASE)
+
+
+def certificate_detail(exc: BaseException) -> str | None:
+    """Why the server's certificate was refused ("self-signed certificate", ...), when ``exc``
+    (or an exception it wraps: requests and urllib3 nest them) is a verification failure."""
+    seen: list[BaseException] = []
+    todo: list = [exc]
+    while todo and len(seen) < 12:
+        e = todo.pop()
+        if not isinstance(e, BaseException) or any(e is s for s in seen):
+            continue
+        seen.append(e)
+        m = _VERIFY_FAILED.search(str(e))
+        if m:
+            return m.group(1).rstrip(". ")
+        todo += [e.__cause__, e.__context__, getattr(e, "reason", None), *e.args]
+    return None
+
+
+def certificate_failure(exc: BaseException, where: str) -> CertificateError | None:
+    """A ``CertificateError`` for a certificate verification failure, else None."""
+    detail = certificate_detail(exc)
+    if detail is None:
+        return None
+    return CertificateError(
+        f"{where}: certificate verify failed{': ' + detail if detail else ''}. The server's TLS "
+        "certificate is not trusted: give [store] ca_bundle (the PEM file of the CA that signed it) "
+        "or correct [store] url; verify_ssl = false switches the check off (not advised)"
+    )
 
 
 def _dropped(body: str) -> int | None:
@@ -228,7 +278,7 @@ class FieldTypeConflictError(FatalStoreError):
             (series, pd.Timestamp(min(t), tz="UTC"), pd.Timestamp(max(t), tz="UTC"), len(t))
             for series, t in found.items()
         ]
-        self.args = (self._message(),)
+        self.args = (redact(self._message()),)
 
 
 def _split_unescaped_space(line: str) -> tuple[str, str, str]:

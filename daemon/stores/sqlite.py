@@ -44,6 +44,7 @@ from __future__ import annotations
 
 import itertools
 import json
+import os
 import sqlite3
 import threading
 from collections.abc import Mapping, Sequence
@@ -93,6 +94,7 @@ class SqliteStore(Store):
     """
 
     kind = "sqlite"
+    time_resolution = pd.Timedelta(1, "ms")  # times are kept in milliseconds (floored)
 
     def __init__(self, path: str | Path, timeout: float = 30.0):
         self.path = str(path)
@@ -102,6 +104,14 @@ class SqliteStore(Store):
                 parent = Path(self.path).parent
                 if not parent.is_dir():
                     raise FatalStoreError(f"sqlite store {self.path}: directory {parent} does not exist")
+                try:  # owner and group only (0640 less the umask); SQLite gives -wal/-shm the same
+                    os.close(os.open(self.path, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o640))
+                except FileExistsError:
+                    pass
+                except OSError as exc:
+                    raise FatalStoreError(
+                        f"sqlite store {self.path}: cannot create it: {exc.strerror}"
+                    ) from None
             self._db = sqlite3.connect(
                 self.path, timeout=timeout, check_same_thread=False, isolation_level=None
             )
