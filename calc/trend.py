@@ -649,12 +649,13 @@ def detect_steps(
         raise ValueError(
             f"need warmup_points >= 1 and min_points >= 2; found {warmup_points!r}, {min_points!r}"
         )
+    if isinstance(t_in, pd.DatetimeIndex) or np.issubdtype(np.asarray(t_in).dtype, np.datetime64):
+        tt = pd.DatetimeIndex(t_in)
+        clock = np.asarray((tt - tt[0]) / pd.Timedelta(hours=1), dtype=float) if len(tt) else np.zeros(0)
+    else:
+        clock = np.asarray(t_in, dtype=float)
     if hours is None:
-        if isinstance(t_in, pd.DatetimeIndex) or np.issubdtype(np.asarray(t_in).dtype, np.datetime64):
-            tt = pd.DatetimeIndex(t_in)
-            x_all = np.asarray((tt - tt[0]) / pd.Timedelta(hours=1), dtype=float) if len(tt) else np.zeros(0)
-        else:
-            x_all = np.asarray(t_in, dtype=float)
+        x_all = clock
     else:
         x_all = np.asarray(hours, dtype=float).ravel()
         if x_all.size != d.size:
@@ -663,6 +664,7 @@ def detect_steps(
     d = d[ok]
     t = t_in[ok]
     x = (x_all[ok] - (x_all[ok][0] if ok.any() else 0.0)) / 1000.0
+    gaps = np.diff(clock[ok]) if np.isfinite(clock[ok]).all() else None
     n = int(d.size)
     if n < min_points:
         return Steps(
@@ -677,15 +679,15 @@ def detect_steps(
     rule = (method, k, h, float(threshold), warmup_points)
     if phi is None:
         phi_used = variogram_phi(d)
-        steps = _find_steps(t, x, d, phi_used, sigma, rule, drift, refine)
+        steps = _find_steps(t, x, d, phi_used, sigma, rule, drift, refine, gaps=gaps)
         if steps.status == "ok" and len(steps):
             bounds = [0] + [s.index for s in steps] + [n]
             phi_used = _fit_phi(x, d, bounds, drift)
-            steps = _find_steps(t, x, d, phi_used, sigma, rule, drift, refine, bounds)
+            steps = _find_steps(t, x, d, phi_used, sigma, rule, drift, refine, bounds, gaps)
         return steps
     if not 0.0 <= phi < 1.0:
         raise ValueError(f"phi must lie in [0, 1) or be None; found {phi!r}")
-    return _find_steps(t, x, d, float(phi), sigma, rule, drift, refine)
+    return _find_steps(t, x, d, float(phi), sigma, rule, drift, refine, gaps=gaps)
 
 
 #: Lags of the robust variogram that ``variogram_phi`` fits (project choice: phi = 0.9 still
@@ -749,12 +751,40 @@ def _fit_phi(x: np.ndarray, y: np.ndarray, bounds: list[int], drift: bool) -> fl
     return min(max(phi, 0.0), MAX_PHI) if math.isfinite(phi) else 0.0
 
 
-def _prewhiten(v: np.ndarray, phi: float) -> np.ndarray:
-    """v_i - phi v_(i-1) for i >= 1 (one element shorter)."""
-    return v[1:] - phi * v[:-1]
+#: A gap between points longer than this many median spacings decorrelates the noise as the
+#: time passes: the correlation across it is ``phi ** (gap / (GAP_SPACINGS * median gap))``
+#: instead of ``phi`` (project choice: an outage of days leaves the windows either side
+#: nearly independent, and the prewhitened jump across it is then no longer a step; within
+#: normal spacing the correlation is taken per window, as the AR(1) between windows).
+GAP_SPACINGS = 2.0
 
 
-def _noise_scale(x: np.ndarray, d: np.ndarray, phi: float, bounds: list[int], drift: bool) -> float:
+def _row_rho(phi: float, gaps) -> np.ndarray | None:
+    """Correlation between each point and the next: phi, less across long gaps (or None)."""
+    if gaps is None or phi == 0.0 or gaps.size == 0:
+        return None
+    positive = gaps[gaps > 0]
+    ref = GAP_SPACINGS * float(np.median(positive)) if positive.size else 0.0
+    if not ref > 0:
+        return None
+    return phi ** np.maximum(1.0, gaps / ref)
+
+
+def _prewhiten(v: np.ndarray, phi: float, rho: np.ndarray | None = None) -> np.ndarray:
+    """v_i - phi v_(i-1) for i >= 1 (one element shorter), along the first axis.
+
+    With ``rho`` (the correlation of each point with the previous one), the transform of a
+    first-order autoregression sampled at uneven times: ``(v_i - rho_i v_(i-1))
+    sqrt((1 - phi^2) / (1 - rho_i^2))``, whose noise has the innovation variance of ``phi``
+    on every row.
+    """
+    if rho is None:
+        return v[1:] - phi * v[:-1]
+    r = rho if v.ndim == 1 else rho[:, None]
+    return (v[1:] - r * v[:-1]) * np.sqrt((1.0 - phi * phi) / (1.0 - r * r))
+
+
+def _noise_scale(x: np.ndarray, d: np.ndarray, phi: float, bounds: list[int], drift: bool, rho=None) -> float:
     """Robust standard deviation of the prewhitened noise (see ``detect_steps``) [points].
 
     The larger of two robust estimates: the scaled MAD of the first differences of the
@@ -763,15 +793,16 @@ def _noise_scale(x: np.ndarray, d: np.ndarray, phi: float, bounds: list[int], dr
     AR(1)), and the scaled MAD of the residuals of the prewhitened base fit (level, and
     slope) within each segment between ``bounds``.
     """
-    e = _prewhiten(d, phi)
+    e = _prewhiten(d, phi, rho)
     de = np.diff(e)
     from_diffs = _DIFF_MAD_TO_SIGMA * float(np.median(np.abs(de - np.median(de))))
     parts = []
     for lo, hi in pairwise(bounds):
         if hi - lo < 4:
             continue
-        yy = _prewhiten(d[lo:hi], phi)
-        cols = [np.full(yy.size, 1.0 - phi)] + ([_prewhiten(x[lo:hi], phi)] if drift else [])
+        rs = None if rho is None else rho[lo : hi - 1]
+        yy = _prewhiten(d[lo:hi], phi, rs)
+        cols = [_prewhiten(np.ones(hi - lo), phi, rs)] + ([_prewhiten(x[lo:hi], phi, rs)] if drift else [])
         B = np.column_stack(cols)
         beta, *_ = np.linalg.lstsq(B, yy, rcond=None)
         parts.append(yy - B @ beta)
@@ -782,7 +813,7 @@ def _noise_scale(x: np.ndarray, d: np.ndarray, phi: float, bounds: list[int], dr
     return max(from_diffs, from_level)
 
 
-def _scan_changes(x, d, phi, sigma, threshold, min_seg, drift) -> list[tuple[int, int, str]]:
+def _scan_changes(x, d, phi, sigma, threshold, min_seg, drift, rho=None) -> list[tuple[int, int, str]]:
     """Binary segmentation by the largest GLS step statistic (see ``detect_steps``)."""
     n = d.size
     found = []
@@ -791,7 +822,8 @@ def _scan_changes(x, d, phi, sigma, threshold, min_seg, drift) -> list[tuple[int
         lo, hi = todo.pop()
         if hi - lo < 2 * min_seg + 1:
             continue
-        stat = _step_statistics(x[lo:hi], d[lo:hi], phi, drift) / sigma
+        rs = None if rho is None else rho[lo : hi - 1]
+        stat = _step_statistics(x[lo:hi], d[lo:hi], phi, drift, rs) / sigma
         cand = np.arange(lo + 1, hi)  # element j of stat is a step at point lo + 1 + j
         inside = (cand >= lo + min_seg) & (cand <= hi - min_seg)
         stat = np.where(inside & np.isfinite(stat), stat, 0.0)
@@ -804,42 +836,48 @@ def _scan_changes(x, d, phi, sigma, threshold, min_seg, drift) -> list[tuple[int
     return sorted(found)
 
 
-def _step_statistics(x: np.ndarray, y: np.ndarray, phi: float, drift: bool) -> np.ndarray:
+def _step_statistics(x: np.ndarray, y: np.ndarray, phi: float, drift: bool, rho=None) -> np.ndarray:
     """GLS estimate of a step at each point 1..m-1 over its standard error, times sigma.
 
     In the prewhitened rows (one per point after the first) a step at point i is the column
-    s with 1 at row i - 1 and 1 - phi below it; the statistic is ``s'r / sqrt(s'Ms)`` with r
-    the residuals of the base fit (level, and slope) and M its residual projector, all from
-    running sums, so every candidate costs O(1).
+    s with g at row i - 1 and the prewhitened level column c below it (g = 1, c = 1 - phi at
+    even spacing); the statistic is ``s'r / sqrt(s'Ms)`` with r the residuals of the base
+    fit (level, and slope) and M its residual projector, all from running sums, so every
+    candidate costs O(1).
     """
-    yy = _prewhiten(y, phi)
+    yy = _prewhiten(y, phi, rho)
     m = yy.size
-    cols = [np.full(m, 1.0 - phi)]
+    c = _prewhiten(np.ones(y.size), phi, rho)
+    g = np.ones(m) if rho is None else np.sqrt((1.0 - phi * phi) / (1.0 - rho * rho))
+    cols = [c]
     if drift:
-        cols.append(_prewhiten(x, phi))
+        cols.append(_prewhiten(x, phi, rho))
     B = np.column_stack(cols)
     gram = B.T @ B
     if np.linalg.matrix_rank(gram) < B.shape[1]:
         return np.full(m, np.nan)
     inv = np.linalg.inv(gram)
     r = yy - B @ (inv @ (B.T @ yy))
-    c = 1.0 - phi
-    tail_r = np.concatenate([np.cumsum(r[::-1])[::-1][1:], [0.0]])  # sum of r below each row
-    tail_b = np.vstack([np.cumsum(B[::-1], axis=0)[::-1][1:], np.zeros((1, B.shape[1]))])
-    below = np.arange(m - 1, -1, -1, dtype=float)  # rows below each row
-    num = r + c * tail_r
-    bs = B + c * tail_b
-    den2 = 1.0 + c * c * below - np.einsum("ij,jk,ik->i", bs, inv, bs)
+
+    def below(v):  # sum over the rows below each row
+        tail = np.cumsum(v[::-1], axis=0)[::-1]
+        return np.concatenate([tail[1:], np.zeros((1,) + v.shape[1:])])
+
+    num = g * r + below(c * r)
+    bs = g[:, None] * B + below(c[:, None] * B)
+    den2 = g * g + below(c * c) - np.einsum("ij,jk,ik->i", bs, inv, bs)
     with np.errstate(divide="ignore", invalid="ignore"):
         return np.where(den2 > 1e-12, num / np.sqrt(den2), np.nan)
 
 
-def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None) -> Steps:
+def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None, gaps=None) -> Steps:
     """The passes of ``detect_steps`` for a given phi (see there)."""
     method, k, h, threshold, warmup_points = rule
     n = int(d.size)
+    # the CUSUM's recursive residuals need an even level column: no gap correction there
+    rho = _row_rho(phi, gaps) if method == "scan" else None
     if sigma is None:
-        sigma = _noise_scale(x, d, phi, bounds or [0, n], drift)
+        sigma = _noise_scale(x, d, phi, bounds or [0, n], drift, rho)
     if not (math.isfinite(sigma) and sigma > 0):
         return Steps(
             status="insufficient data",
@@ -854,7 +892,7 @@ def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None) -> Steps:
     changes: list[tuple[int, int, str]] = []  # (step index, alarm index, direction)
     start = 0 if method == "cusum" else n
     if method == "scan":
-        changes = _scan_changes(x, d, phi, sigma, threshold, warmup_points, drift)
+        changes = _scan_changes(x, d, phi, sigma, threshold, warmup_points, drift, rho)
         refine = False  # the scan's change point is already the least-squares one
     while start < n - 2:
         z = _recursive_residuals(_prewhiten(x[start:], phi), _prewhiten(d[start:], phi), drift) / sigma
@@ -892,14 +930,16 @@ def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None) -> Steps:
             lo, hi = bounds[j], bounds[j + 2]
             first = max(lo + 1, tau - (alarm - tau) - 5)
             best = min(
-                range(first, alarm + 1), key=lambda c: _step_rss(x[lo:hi], d[lo:hi], c - lo, drift, phi)
+                range(first, alarm + 1),
+                key=lambda c: _step_rss(x[lo:hi], d[lo:hi], c - lo, drift, phi),
             )
             changes[j] = (best, alarm, direction)
             bounds[j + 1] = best
     steps = []
     for j, (tau, alarm, direction) in enumerate(changes):
         lo, hi = bounds[j], bounds[j + 2]
-        size, size_u = _step_size(x[lo:hi], d[lo:hi], tau - lo, drift, sigma, phi)
+        rs = None if rho is None else rho[lo : hi - 1]
+        size, size_u = _step_size(x[lo:hi], d[lo:hi], tau - lo, drift, sigma, phi, rs)
         if not math.isfinite(size):
             continue
         steps.append(
@@ -944,18 +984,18 @@ def _recursive_residuals(x: np.ndarray, y: np.ndarray, drift: bool) -> np.ndarra
     return w
 
 
-def _step_design(x: np.ndarray, n: int, at: int, drift: bool, phi: float = 0.0) -> np.ndarray:
+def _step_design(x: np.ndarray, n: int, at: int, drift: bool, phi: float = 0.0, rho=None) -> np.ndarray:
     """Columns level, (slope), step offset; prewhitened by phi (one row fewer) when phi > 0."""
     cols = [np.ones_like(x), (np.arange(n) >= at).astype(float)]
     if drift:
         cols.insert(1, x)
     X = np.column_stack(cols)
-    return X if phi == 0.0 else X[1:] - phi * X[:-1]
+    return X if phi == 0.0 else _prewhiten(X, phi, rho)
 
 
-def _step_fit(x: np.ndarray, y: np.ndarray, at: int, drift: bool, phi: float):
-    X = _step_design(x, y.size, at, drift, phi)
-    yy = y if phi == 0.0 else _prewhiten(y, phi)
+def _step_fit(x: np.ndarray, y: np.ndarray, at: int, drift: bool, phi: float, rho=None):
+    X = _step_design(x, y.size, at, drift, phi, rho)
+    yy = y if phi == 0.0 else _prewhiten(y, phi, rho)
     beta, *_ = np.linalg.lstsq(X, yy, rcond=None)
     return X, yy, beta
 
@@ -970,7 +1010,7 @@ def _step_rss(x: np.ndarray, y: np.ndarray, at: int, drift: bool, phi: float = 0
 
 
 def _step_size(
-    x: np.ndarray, y: np.ndarray, at: int, drift: bool, sigma: float, phi: float = 0.0
+    x: np.ndarray, y: np.ndarray, at: int, drift: bool, sigma: float, phi: float = 0.0, rho=None
 ) -> tuple[float, float]:
     """Offset of y from index ``at`` on, fitted jointly with a level (and slope) [points].
 
@@ -979,7 +1019,7 @@ def _step_size(
     """
     if at <= 0 or at >= y.size:
         return float("nan"), float("nan")
-    X, yy, beta = _step_fit(x, y, at, drift, phi)
+    X, yy, beta = _step_fit(x, y, at, drift, phi, rho)
     if np.linalg.matrix_rank(X) < X.shape[1]:
         return float("nan"), float("nan")
     cov = np.linalg.inv(X.T @ X)
