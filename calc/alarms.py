@@ -325,7 +325,7 @@ def rate_alarm_value(rate) -> float:
         or wholly above it; 0.0 when the interval includes zero (the data do not tell a trend
         from the wander of correlated windows); NaN when the status is not "ok". On flat
         series with AR(1) windows (phi 0.9, 400 windows) the bare slope crossed -1 point per
-        1000 h in 4.5-6 % of series and this value in 1.5-3 % (calc/DECISIONS.md).
+        1000 h in 4.5 % of series and this value in 1.5-2 % (calc/DECISIONS.md).
     """
     if rate.status != "ok" or not math.isfinite(rate.slope_per_1000h):
         return float("nan")
