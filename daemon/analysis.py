@@ -329,9 +329,10 @@ def analyse(
         hours = _hours_at(pd.DatetimeIndex(dev.index), on)
         h0 = hours[0]
         rel = hours - h0
-        # refine: the step time is the least-squares change point, not the point after the
-        # CUSUM's last zero, which can fall windows before the cause (a trip's step is then
-        # placed at the first steady window after the restart, where the loss first shows)
+        # the step time is the least-squares change point (the scan's own; with
+        # step_method "cusum", refine replaces the point after the CUSUM's last zero, which
+        # can fall windows before the cause): a trip's step is placed at the first steady
+        # window after the restart, where the loss first shows
         found = trend.detect_steps(
             dev.index,
             dev.to_numpy(dtype=float),
