@@ -875,30 +875,15 @@ def _step_statistics(x: np.ndarray, y: np.ndarray, phi: float, drift: bool, rho=
         return np.where(den2 > 1e-12, num / np.sqrt(den2), np.nan)
 
 
-def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None, gaps=None) -> Steps:
-    """The passes of ``detect_steps`` for a given phi (see there)."""
-    method, k, h, threshold, warmup_points = rule
-    n = int(d.size)
-    # the CUSUM's recursive residuals need an even level column: no gap correction there
-    rho = _row_rho(phi, gaps) if method == "scan" else None
-    if sigma is None:
-        sigma = _noise_scale(x, d, phi, bounds or [0, n], drift, rho)
-    if not (math.isfinite(sigma) and sigma > 0):
-        return Steps(
-            status="insufficient data",
-            n=n,
-            sigma=float(sigma),
-            reason="no noise scale (series constant)",
-            phi=phi,
-        )
+def _cusum_changes(x, d, phi, sigma, k, h, warmup_points, drift) -> list[tuple[int, int, str]]:
+    """(step index, alarm index, direction) of the two-sided CUSUM (see ``detect_steps``).
 
-    # Pass 1: change points and alarm points, on the prewhitened segment from ``start``:
-    # element j of z belongs to point start + 1 + j.
-    changes: list[tuple[int, int, str]] = []  # (step index, alarm index, direction)
-    start = 0 if method == "cusum" else n
-    if method == "scan":
-        changes = _scan_changes(x, d, phi, sigma, threshold, warmup_points, drift, rho)
-        refine = False  # the scan's change point is already the least-squares one
+    Runs on the prewhitened segment from ``start``: element j of z belongs to point
+    start + 1 + j.
+    """
+    n = d.size
+    changes: list[tuple[int, int, str]] = []
+    start = 0
     while start < n - 2:
         z = _recursive_residuals(_prewhiten(x[start:], phi), _prewhiten(d[start:], phi), drift) / sigma
         s_hi = s_lo = 0.0
@@ -921,12 +906,37 @@ def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None, gaps=None
                 break
         if found is None:
             break
-        tau, alarm, direction = found
-        changes.append((tau, alarm, direction))
+        changes.append(found)
         # Restart after the alarm point: the points between the estimated step and the alarm
         # may still hold some of the old level when the estimate is early, and would read as
         # a second step if they seeded the new segment's fit.
-        start = alarm + 1
+        start = found[1] + 1
+    return changes
+
+
+def _find_steps(t, x, d, phi, sigma, rule, drift, refine, bounds=None, gaps=None) -> Steps:
+    """The passes of ``detect_steps`` for a given phi (see there)."""
+    method, k, h, threshold, warmup_points = rule
+    n = int(d.size)
+    # the CUSUM's recursive residuals need an even level column: no gap correction there
+    rho = _row_rho(phi, gaps) if method == "scan" else None
+    if sigma is None:
+        sigma = _noise_scale(x, d, phi, bounds or [0, n], drift, rho)
+    if not (math.isfinite(sigma) and sigma > 0):
+        return Steps(
+            status="insufficient data",
+            n=n,
+            sigma=float(sigma),
+            reason="no noise scale (series constant)",
+            phi=phi,
+        )
+
+    # Pass 1: change points and alarm points.
+    if method == "scan":
+        changes = _scan_changes(x, d, phi, sigma, threshold, warmup_points, drift, rho)
+        refine = False  # the scan's change point is already the least-squares one
+    else:
+        changes = _cusum_changes(x, d, phi, sigma, k, h, warmup_points, drift)
 
     # Pass 2: sizes from the neighbouring segments, fitted jointly.
     bounds = [0] + [c[0] for c in changes] + [n]
