@@ -9,9 +9,16 @@ of every role over each window:
     fluctuation of the window average. A sample is steady when it lies inside at least one
     such window.
 ``method="r_statistic"``
-    The ratio-of-variances statistic of Cao & Rhinehart (1995) on load and throttle pressure:
-    R near 1 when steady, large during a transient. A sample is steady when R is below the
-    critical value for every variable.
+    The ratio-of-variances statistic of Cao & Rhinehart (1995) on every quantity the ptc6
+    method watches (load, throttle pressure and temperature, hot reheat temperature,
+    condenser pressure): R near 1 when steady, large during a transient. A sample is steady
+    when R is below the critical value for every variable. R assumes noise that is
+    uncorrelated from sample to sample; on steady samples with AR(1) noise it reads
+    transients falsely, measured on 20 000 one-minute samples of the five roles (default
+    factors, R_critical 2): lag-1 correlation 0 -> about 1-2 % of samples, 0.3 -> about
+    25 %, 0.5 -> about 75 %, 0.8 -> nearly all (``tests/calc/test_steady.py``;
+    calc/DECISIONS.md). Historian data a minute apart are usually that correlated; the
+    ptc6 method is the default for that reason.
 
 For both, samples that failed screening (``ok=False``), samples with a criterion role missing
 and samples with the unit offline (gross output below ``offline_mw``) are never steady.
@@ -92,8 +99,9 @@ R_CRITICAL = 2.0
 #: Filter factors lambda1 (mean), lambda2 (variance about the filtered mean), lambda3
 #: (variance of successive differences): Cao & Rhinehart (1995), recommended 0.2, 0.1, 0.1.
 R_LAMBDAS = (0.2, 0.1, 0.1)
-#: Variables the R statistic watches.
-R_ROLES = ("gross_output", "throttle_p")
+#: Variables the R statistic watches: every quantity the PTC 6 method watches (load and the
+#: Table 3-1 roles of ``PTC6_LIMITS``).
+R_ROLES = ("gross_output", "throttle_p", "throttle_t", "hot_reheat_t", "condenser_p")
 LOAD_ROLE = "gross_output"
 
 

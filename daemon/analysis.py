@@ -34,7 +34,7 @@ Result series (also in DEVELOPERS.md, "Result series"):
   ``overhaul_break_even_s`` [s since 1970, UTC].
 * ``alarm_events`` rows for the rules ``degradation_rate`` and ``step_change``, evaluated
   at each month end (and the end of the history). ``degradation_rate``: ``value`` the rate
-  [points per 1000 h], raised below ``-[alarms] rate_limit_per_1000h``, cleared above 80 %
+  [points per 1000 h] where its interval excludes zero, else 0 (``calc.alarms.rate_alarm_value``), raised below ``-[alarms] rate_limit_per_1000h``, cleared above 80 %
   of it. ``step_change``: ``value`` the net offset of the steps found up to then, signed
   (the sum of their sizes; a single step's size) [points], raised below
   ``-[alarms] min_step_points`` (the ``threshold`` written), cleared only when later steps
@@ -337,15 +337,18 @@ def analyse(
         hours = _hours_at(pd.DatetimeIndex(dev.index), on)
         h0 = hours[0]
         rel = hours - h0
-        # refine: the step time is the least-squares change point, not the point after the
-        # CUSUM's last zero, which can fall windows before the cause (a trip's step is then
-        # placed at the first steady window after the restart, where the loss first shows)
+        # the step time is the least-squares change point (the scan's own; with
+        # step_method "cusum", refine replaces the point after the CUSUM's last zero, which
+        # can fall windows before the cause): a trip's step is placed at the first steady
+        # window after the restart, where the loss first shows
         found = trend.detect_steps(
             dev.index,
             dev.to_numpy(dtype=float),
             hours=rel,
             k=float(a.cusum_k),
             h=float(a.cusum_h),
+            method=a.step_method,
+            threshold=float(a.step_threshold),
             refine=True,
         )
         steps = [s for s in found if abs(float(s.size)) >= float(a.min_step_points)]
@@ -386,12 +389,14 @@ def analyse(
             # while no later step takes it back, so the step alarm stays raised with it
             step_offset = float(sum(float(s.size) for s in steps if pd.Timestamp(s.time) <= t))
             if r.status == "ok":
+                # the rate where its interval excludes zero, else 0: a wander of correlated
+                # windows is not a trend (calc.alarms.rate_alarm_value)
                 obs_parts.append(
                     {
                         "time": t,
                         "section": name,
                         "quantity": alarms.QUANTITY_RATE,
-                        "value": float(r.slope_per_1000h),
+                        "value": alarms.rate_alarm_value(r),
                         "steady": True,
                     }
                 )

@@ -368,9 +368,11 @@ class AlarmsConfig:
     ``moisture_limit_percent`` [%], ``data_quality_limit`` how long a mapped tag may be
     missing/flat/out of range, ``no_data_limit`` how long no row at all may arrive from the
     historian (0 switches that alarm off, e.g. for historians that store exceptions only),
-    ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision interval [multiples of the
-    deviation's standard deviation], ``min_step_points`` smallest step change reported
-    [points].
+    ``step_method`` "scan" (the GLS step scan of ``calc.trend.detect_steps``) or "cusum",
+    ``step_threshold`` the scan's decision threshold [standard errors of the step],
+    ``cusum_k`` / ``cusum_h`` CUSUM reference value and decision interval (method "cusum"
+    only) [multiples of the prewhitened noise's standard deviation], ``min_step_points``
+    smallest step change reported [points].
     """
 
     deviation_warning: float = -1.0
@@ -381,6 +383,9 @@ class AlarmsConfig:
     moisture_limit_percent: float = 12.0
     data_quality_limit: dt.timedelta = dt.timedelta(hours=1)
     no_data_limit: dt.timedelta = dt.timedelta(hours=1)
+    # the GLS step scan holds its false-step rate under correlated windows (calc/DECISIONS.md)
+    step_method: str = "scan"
+    step_threshold: float = 4.25
     cusum_k: float = 0.5
     cusum_h: float = 8.0  # about 7.5 % false steps per 500 windows of pure noise (calc.trend tests)
     # A CUSUM on low-scatter deviations also finds steps of hundredths of a point: real, but
@@ -1216,6 +1221,8 @@ def _read_alarms(r: _Reader, top: dict) -> AlarmsConfig:
         d, p + ("data_quality_limit",), "duration", D.data_quality_limit, low=0, low_open=True
     )
     v["no_data_limit"] = r.value(d, p + ("no_data_limit",), "duration", D.no_data_limit, low=0)
+    v["step_method"] = r.value(d, p + ("step_method",), "str", D.step_method, choices=("scan", "cusum"))
+    v["step_threshold"] = r.value(d, p + ("step_threshold",), "float", D.step_threshold, low=0, low_open=True)
     v["cusum_k"] = r.value(d, p + ("cusum_k",), "float", D.cusum_k, low=0)
     v["cusum_h"] = r.value(d, p + ("cusum_h",), "float", D.cusum_h, low=0, low_open=True)
     v["min_step_points"] = r.value(d, p + ("min_step_points",), "float", D.min_step_points, low=0)

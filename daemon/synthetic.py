@@ -33,6 +33,9 @@ Operating model (all invented, documented so that a reader can check the output)
   stage group 0.880 at rating, within the typical ranges in calc/REFERENCES.md), the HP losing
   ``hp_rate`` points per 1000 operating hours (deposits), the IP stepping by ``ip_step``
   points from the restart after the trip (a rub), the LP dry group constant.
+* Every section's true efficiency also wanders slowly (``WANDER``: 0.15 point, correlation
+  time 12 h; its own random stream, in ``state`` as ``wander_<section>`` [points]), so that
+  successive steady windows are correlated as on a real unit.
 * The unit holds output: as a section loses efficiency the steam flow rises by the output
   sensitivities in calc/REFERENCES.md (HP 0.25 %, IP 0.2 % per point; from memory).
 * Offline: output, flow and valve position are zero; pressures and temperatures decay
@@ -67,7 +70,7 @@ from scipy.signal import lfilter
 
 from isentrope.daemon.roles import ROLES, RoleMapping
 
-GENERATOR_VERSION = 1
+GENERATOR_VERSION = 2
 MAX_ROWS = 6_000_000  # about 11 years at one minute; guards against runaway memory use
 DEFAULT_SEED = 20250101
 
@@ -109,6 +112,13 @@ IP_STEP_POINTS = -1.0  # injected rub at the trip (calc/REFERENCES.md: 0.5-2 poi
 # Output sensitivity per point of section efficiency (calc/REFERENCES.md, from memory): the unit
 # holds output, so the steam flow rises by this fraction per point lost.
 FLOW_PER_POINT = {"hp": 0.0025, "ip": 0.0020}
+
+# Slow wander of every section's true efficiency (ambient and cooling water, soot blowing,
+# control tuning, washing and fouling): first-order autoregressive with this standard
+# deviation [points] and correlation time [h] (invented). Steady windows 1-5 h apart then
+# share most of it: lag-1 correlation exp(-3/12) = 0.78 between windows 3 h apart, so the
+# demo's deviations are serially correlated as a real unit's are.
+WANDER = {"sd_points": 0.15, "tau_hours": 12.0}
 
 RAMP_PER_MIN = 0.015  # load ramp, fraction of rating per minute (common practice 1-3 %/min)
 MIN_DISPATCH = 0.35  # minimum dispatched load fraction (invented)
@@ -486,6 +496,7 @@ def generate_with_state(
     hp_rate: float = HP_RATE_POINTS_PER_1000H,
     ip_step: float = IP_STEP_POINTS,
     initial_hours: float = 0.0,
+    wander: float = 1.0,
     shutdowns="auto",
     trip_at="auto",
     trip_hours: float = 7.0,
@@ -514,6 +525,8 @@ def generate_with_state(
         IP efficiency step from the restart after the trip [percentage points].
     initial_hours : float
         Operating hours already run at ``start`` with no HP loss counted [h].
+    wander : float
+        Scale of the slow wander of the true efficiencies (1 = ``WANDER``; 0 = none) [-].
     shutdowns : "auto", None or sequence of (start, hours)
         Planned or reserve shutdowns: the load ramps down, the unit is offline for
         ``hours`` [h] and starts up again.
@@ -532,7 +545,8 @@ def generate_with_state(
         As ``generate``.
     state : DataFrame
         Full index (gap rows included): ``online``, ``load_fraction``, ``operating_hours``
-        [h], ``eta_hp``, ``eta_ip``, ``eta_lp`` (true fractions), ``in_gap`` and
+        [h], ``eta_hp``, ``eta_ip``, ``eta_lp`` (true fractions, wander included),
+        ``wander_hp``, ``wander_ip``, ``wander_lp`` (the wander in them [points]), ``in_gap`` and
         ``true_<role>`` for every role (noise-free, fault-free, internal units).
     """
     start = _ts(start)
@@ -655,6 +669,15 @@ def generate_with_state(
         eta_ip = eta_ip + np.where(after_rub, ip_step / 100.0, 0.0)
         if after_rub.any():
             ip_step_time = index[np.argmax(after_rub & online)]
+    # the wander: its own random stream, so the other draws do not change with it
+    wander_rng = np.random.default_rng([int(seed), 1])
+    wander_pts = {
+        sec: wander * _ar1(wander_rng, n, WANDER["sd_points"], WANDER["tau_hours"] * 60.0 / step_min)
+        for sec in ("hp", "ip", "lp")
+    }
+    eta_hp = eta_hp + wander_pts["hp"] / 100.0
+    eta_ip = eta_ip + wander_pts["ip"] / 100.0
+    eta_lp = eta_lp + wander_pts["lp"] / 100.0
     hp_loss_pts = -hp_rate * counted / 1000.0
     ip_loss_pts = np.where(after_rub, -ip_step, 0.0) if trip is not None else 0.0
     flow_frac = (FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * load) * (
@@ -843,6 +866,9 @@ def generate_with_state(
         "eta_hp": eta_hp,
         "eta_ip": eta_ip,
         "eta_lp": eta_lp,
+        "wander_hp": wander_pts["hp"],
+        "wander_ip": wander_pts["ip"],
+        "wander_lp": wander_pts["lp"],
         "in_gap": in_gap,
     }
     if _full_state:
@@ -866,6 +892,7 @@ def generate_with_state(
         initial_hours,
         truth_faults,
     )
+    truth["wander"]["scale"] = wander
     return frame, truth, state
 
 
@@ -981,6 +1008,7 @@ def _truth(
         "operating_hours": round(float(online.sum() * step_h), 3),
         "online_fraction": round(float(online.mean()), 6),
         "noise_sd": dict(NOISE),
+        "wander": dict(WANDER),
         "efficiency_daily": {
             "date": [d.strftime("%Y-%m-%d") for d in daily.index],
             "eta_hp_mean": series(daily["eta_hp"]),

@@ -5,6 +5,7 @@ practice, no source); the observation values are invented for the checks.
 """
 
 import json
+import math
 
 import numpy as np
 import pandas as pd
@@ -230,13 +231,29 @@ def test_step_and_rate_observations_from_trend():
     assert len(o) == 1 and o["time"].iloc[0] == steps[0].detected_at
     rate = trend.degradation_rate(np.arange(300) * 8.0, d, breaks=[steps[0].index * 8.0])
     r = alarms.rate_observation(t[-1], "hp", rate)
-    assert len(r) == 1 and r["value"].iloc[0] == rate.slope_per_1000h
+    # flat after the step: the interval includes zero, so the rule sees no rate
+    assert rate.low < 0.0 < rate.high
+    assert len(r) == 1 and r["value"].iloc[0] == 0.0
     _, ev = evaluate_alarms(
         {}, pd.concat([o, r]), [x for x in default_rules() if x.name in ("step", "degradation_rate")]
     )
     assert kinds(ev) == [("step", "raised")]  # the step, blocked out of the rate, raises only itself
     short = trend.degradation_rate(np.arange(3.0), np.zeros(3))
     assert len(alarms.rate_observation(t[-1], "hp", short)) == 0
+
+
+def test_rate_alarm_watches_the_rate_only_where_its_interval_excludes_zero():
+    from isentrope.calc import trend
+
+    h = np.arange(400) * 3.0
+    noise = np.random.default_rng(4).normal(0.0, 0.2, 400)  # invented
+    steep = trend.degradation_rate(h, noise - 2.0 * h / 1000.0)
+    assert steep.high < 0 and alarms.rate_alarm_value(steep) == steep.slope_per_1000h
+    flat = trend.degradation_rate(h, noise)
+    assert flat.low < 0 < flat.high and alarms.rate_alarm_value(flat) == 0.0
+    rising = trend.degradation_rate(h, noise + 2.0 * h / 1000.0)
+    assert rising.low > 0 and alarms.rate_alarm_value(rising) == rising.slope_per_1000h
+    assert math.isnan(alarms.rate_alarm_value(trend.degradation_rate(h[:3], noise[:3])))
 
 
 # --- the run-at-a-time machines against the plain observation-by-observation machine -------

@@ -645,3 +645,13 @@ def test_lp_dry_efficiency_source_problems_name_file_line_and_key():
             '[sections]\nlp_mode = "expansion"\nlp_dry_efficiency_source = "measured"\n' + flows, roles=roles
         )
     )
+
+
+def test_step_method_and_threshold_are_read_and_checked():
+    cfg = parse_config(minimal('[alarms]\nstep_method = "cusum"\nstep_threshold = 5.0\n'), source="unit.toml")
+    assert cfg.alarms.step_method == "cusum" and cfg.alarms.step_threshold == 5.0
+    default = parse_config(minimal(), source="unit.toml").alarms
+    assert default.step_method == "scan" and default.step_threshold == 4.25
+    got = problems(minimal('[alarms]\nstep_method = "page"\nstep_threshold = 0\n'))
+    assert any("alarms.step_method" in p and "'scan', 'cusum'" in p for p in got), got
+    assert any("alarms.step_threshold" in p for p in got), got

@@ -197,6 +197,7 @@ def test_hp_loses_about_1_6_points_after_4000_operating_hours():
             out.append(
                 _eff_iapws(r["throttle_p"], r["throttle_t"], r["cold_reheat_p"], r["cold_reheat_t"])
                 - (syn.design_efficiency("hp", st.loc[t, "load_fraction"]) - syn.design_efficiency("hp", 1.0))
+                - st.loc[t, "wander_hp"] / 100.0  # the slow wander the generator records
             )  # refer to full load
         return np.mean(out)
 
@@ -237,6 +238,7 @@ def test_ip_steps_down_one_point_at_the_restart_after_the_trip(history):
                     frame.at[t, "crossover_t"],
                 )
                 - syn.design_efficiency("ip", state.at[t, "load_fraction"])
+                - state.at[t, "wander_ip"] / 100.0  # the slow wander the generator records
                 for t in rows
             ]
         )
@@ -245,7 +247,7 @@ def test_ip_steps_down_one_point_at_the_restart_after_the_trip(history):
     assert step == pytest.approx(-1.0, abs=0.15)  # 40-sample means: noise ~0.035 point each
     # no change in the true IP efficiency apart from the step
     st = state[state["online"]]
-    resid = st["eta_ip"] - syn.design_efficiency("ip", st["load_fraction"])
+    resid = st["eta_ip"] - syn.design_efficiency("ip", st["load_fraction"]) - st["wander_ip"] / 100.0
     assert set(np.round(resid.unique() * 100, 9)) == {0.0, -1.0}
 
 
@@ -265,6 +267,7 @@ def test_lp_dry_efficiency_constant_and_recovered(history):
                 )
                 - syn.design_efficiency("lp", state.at[t, "load_fraction"])
                 + syn.design_efficiency("lp", 1.0)
+                - state.at[t, "wander_lp"] / 100.0  # the slow wander the generator records
                 for t in rows
             ]
         )
@@ -500,6 +503,20 @@ def _approx_equal(a, b, path="truth"):
         assert a == pytest.approx(b, rel=1e-7, abs=1e-9), path
     else:
         assert a == b, path
+
+
+def test_wander_correlates_successive_windows_and_can_be_switched_off():
+    frame, truth, state = syn.generate_with_state(start="2025-02-01", days=60, freq="10min", seed=5)
+    w = state["wander_lp"].to_numpy()
+    # AR(1) at 10-minute steps with a 12 h correlation time (the generator's WANDER, invented)
+    assert np.std(w) == pytest.approx(0.15, rel=0.35)
+    lag3h = np.corrcoef(w[:-18], w[18:])[0, 1]
+    assert lag3h == pytest.approx(np.exp(-3.0 / 12.0), abs=0.1)
+    assert truth["wander"]["sd_points"] == 0.15
+    _, _, still = syn.generate_with_state(start="2025-02-01", days=5, freq="10min", seed=5, wander=0.0)
+    assert (still["wander_hp"] == 0.0).all()
+    eta = still["eta_lp"][still["online"]]
+    np.testing.assert_allclose(eta, syn.design_efficiency("lp", still["load_fraction"][still["online"]]))
 
 
 def test_golden_case_regenerates_identically(tmp_path):
