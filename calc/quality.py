@@ -50,6 +50,8 @@ __all__ = [
     "SPIKE_FLOOR",
     "flatline_limit",
     "flatline_samples",
+    "unit_online",
+    "LOAD_ROLE",
 ]
 
 
@@ -688,6 +690,49 @@ def _physics(frame_values, roles, band, margin, given=None):
     if with_eff:
         eff[sel] = e
     return codes, eff
+
+
+# --- unit state ----------------------------------------------------------------------------
+#: The role whose reading says whether the unit runs: generator gross output [MW].
+LOAD_ROLE = "gross_output"
+
+
+def unit_online(frame: pd.DataFrame, online_mw: float) -> pd.Series:
+    """Whether the unit is online at each sample: gross output at or above ``online_mw``.
+
+    Tag-quality rules judge the tags only while the unit runs: offline, pressures and
+    temperatures decay, transmitters leave their ranges and historians stop storing, and none
+    of that is an instrument fault.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Readings in internal units with a "gross_output" column [MW].
+    online_mw : float
+        Below this gross output the unit is offline [MW].
+
+    Returns
+    -------
+    pandas.Series
+        bool per sample, same index. A sample without a gross output reading counts as
+        offline when more than half of the other columns are missing as well (no output at
+        all: the historian has next to nothing for the unit), and as online otherwise (a
+        failed output transmitter on a running unit keeps its own MISSING flag in force).
+    """
+    if not isinstance(frame, pd.DataFrame) or LOAD_ROLE not in frame.columns:
+        raise ValueError(f"unit_online needs a DataFrame with a {LOAD_ROLE!r} column (gross output, MW)")
+    limit = _number(online_mw)
+    if limit is None or not np.isfinite(limit):
+        raise ValueError(f"online_mw must be a finite number of MW, found {online_mw!r}")
+    load = frame[LOAD_ROLE].to_numpy(dtype=float, na_value=np.nan)
+    others = frame.drop(columns=[LOAD_ROLE])
+    with np.errstate(invalid="ignore"):
+        online = load >= limit
+    absent = ~np.isfinite(load)
+    if absent.any() and len(others.columns):
+        missing_share = others.isna().to_numpy().mean(axis=1)
+        online |= absent & (missing_share <= 0.5)
+    return pd.Series(online, index=frame.index, name="online")
 
 
 # --- entry point ---------------------------------------------------------------------------

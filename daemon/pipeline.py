@@ -48,6 +48,18 @@ ALARMS_MEASUREMENT = "alarm_events"
 
 #: The section of the ``no_data`` alarm: no row at all came from the plant historian.
 HISTORIAN_SECTION = "historian"
+#: The section of the unit-level ``unit_offline`` state (one event when the unit goes offline,
+#: one when it returns), and the quantity it watches: 1 offline, 0 online, per row.
+UNIT_SECTION = "unit"
+QUANTITY_OFFLINE = "unit_offline"
+#: How long the unit must be offline before the ``unit_offline`` event: a dip of output
+#: below ``online_mw`` while synchronising is not an outage (project choice, no source).
+OFFLINE_AFTER = "10min"
+#: Tag-quality observation while the unit is offline: between the clearing (0.25) and the
+#: raising (0.5) level of the ``data_quality`` rule, so that it neither raises nor clears an
+#: alarm and restarts a pending streak: the rule is suspended, and a tag that goes bad at a
+#: trip does not raise at once after the restart.
+TAG_SUSPENDED = 0.4
 
 _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 
@@ -472,6 +484,7 @@ class Pipeline:
             start=start,
             rows=frame.index,
             rows_end=end,
+            online=quality.unit_online(frame, float(self.config.unit.online_mw)),
         )
 
         counts = {
@@ -666,15 +679,35 @@ class Pipeline:
                 alarms.QUANTITY_TAG_BAD,
                 "above",
                 0.5,
-                0.5,
+                0.25,  # TAG_SUSPENDED lies between: neither raises nor clears
                 raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
-                label="tag missing, flatlined or out of range",
+                label="tag missing, flatlined or out of range while the unit runs",
+            ),
+            alarms.Rule(
+                "unit_offline",
+                QUANTITY_OFFLINE,
+                "above",
+                0.5,
+                0.5,
+                raise_after_duration=OFFLINE_AFTER,
+                sections=(UNIT_SECTION,),
+                label=f"unit offline (gross output below online_mw {self.config.unit.online_mw:g} MW)",
             ),
             *no_data,
         ]
 
     def _alarms(
-        self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None, rows_end=None
+        self,
+        windows,
+        deviation,
+        state,
+        final_end,
+        notes,
+        screen=None,
+        start=None,
+        rows=None,
+        rows_end=None,
+        online=None,
     ):
         """Alarm events from the final results (before ``final_end``) only; absent rows up to
         ``rows_end`` (see ``alarm_observations``).
@@ -693,6 +726,7 @@ class Pipeline:
             rows=rows,
             state=state,
             rows_end=rows_end,
+            online=online,
         )
         if obs is None:
             return _no_events(), (dict(state) if state else None)
@@ -700,7 +734,16 @@ class Pipeline:
         return events, new_state
 
     def alarm_observations(
-        self, windows, deviation, final_end, screen=None, start=None, rows=None, state=None, rows_end=None
+        self,
+        windows,
+        deviation,
+        final_end,
+        screen=None,
+        start=None,
+        rows=None,
+        state=None,
+        rows_end=None,
+        online=None,
     ):
         """The observation frame ``calc.alarms.evaluate_alarms`` reads for one window, or None.
 
@@ -714,6 +757,11 @@ class Pipeline:
         passes the window end and a live outage is seen ``settle`` after it happens, not also
         the after-margin later. (A separate method so that ``isentrope.daemon.fleet`` can run
         the machines after the partitions, in time order.)
+
+        With ``online`` (bool per row, ``calc.quality.unit_online``), the unit state: 1/0 per
+        row in ``[start, final_end)`` for the ``unit_offline`` rule, and the tag-quality
+        observations of offline rows become ``TAG_SUSPENDED`` (the tag rules are suspended
+        while the unit is offline; ``no_data`` is not: a silent historian is still seen).
         """
         from isentrope.calc import alarms
 
@@ -761,6 +809,22 @@ class Pipeline:
                     }
                 )
             )
+        offline = None
+        if online is not None and start is not None:
+            sel = (online.index >= start) & (online.index < final_end)
+            if sel.any():
+                offline = ~online.to_numpy(dtype=bool)[sel]
+                parts.append(
+                    pd.DataFrame(
+                        {
+                            "time": online.index[sel],
+                            "section": UNIT_SECTION,
+                            "quantity": QUANTITY_OFFLINE,
+                            "value": offline.astype(float),
+                            "steady": True,
+                        }
+                    )
+                )
         if screen is not None:
             flags = screen.flags
             sel = (flags.index >= start) & (flags.index < final_end)
@@ -768,6 +832,9 @@ class Pipeline:
             if sel.any() and roles:
                 bad = (flags.loc[sel, roles].to_numpy() != 0).astype(float)
                 times = flags.index[sel]
+                if online is not None:
+                    off = ~online.reindex(times).fillna(True).to_numpy(dtype=bool)
+                    bad[off, :] = TAG_SUSPENDED
                 for j, role in enumerate(roles):
                     parts.append(
                         pd.DataFrame(
