@@ -170,6 +170,11 @@ SPIKE_FLOOR: Mapping[str, tuple[float, float]] = {
     "valve_position": (0.0, 2.0),
 }
 
+#: Smallest spike on data stored by exception, in deadbands of the role [-]: the historian
+#: keeps a reading only when it moved beyond its deadband, so an excursion of up to about two
+#: deadbands from a held value is what ordinary noise looks like there (project choice, no
+#: source). Raises the absolute part of ``SPIKE_FLOOR``.
+DEADBAND_SPIKE_FACTOR = 2.0
 #: Flatline duration: common practice, no source (a live transmitter moves within minutes).
 DEFAULT_FLATLINE = "2h"
 #: Relative flatline tolerance [-]: a stretch is "unchanged" while its readings span no more
@@ -751,6 +756,7 @@ def screen(
     superheat_margin: float = 0.0,
     needed: tuple[str, ...] | None = None,
     efficiencies: Mapping[str, object] | None = None,
+    deadband: Mapping[str, float] | None = None,
     return_details: bool = False,
 ) -> ScreenResult:
     """Flag every sample of every role with the reasons it cannot be trusted.
@@ -800,6 +806,15 @@ def screen(
         instead of calling ``section_efficiency`` again (it dominates the run time of a
         screen: 1.5-4.5 s per section for a year of one-minute rows, measured on the
         shared 2-core project machine).
+    deadband : mapping of str to float, optional
+        Role -> exception deadband of the historian [internal unit], for readings taken onto a
+        grid from data stored by exception (isentrope.daemon.stores.grid). The spike floor of
+        the role becomes at least ``DEADBAND_SPIKE_FACTOR`` deadbands (held readings have no
+        scatter, so the noise level of the spike test falls to its floor). The flatline test
+        is left as it is: a held value is an exact copy, so a flat stretch longer than the
+        longest hold holds two stored readings, and a live transmitter's stored readings
+        differ by its noise while a stuck one repeats its value (the caller keeps
+        ``flatline`` longer than every hold; ``isentrope.daemon.config`` checks it).
     return_details : bool, optional
         Also return section efficiencies and spike scores in ``details``.
 
@@ -849,6 +864,13 @@ def screen(
     floors = dict(SPIKE_FLOOR)
     if spike_floor is not None:
         floors.update(spike_floor)
+    for role, band in (deadband or {}).items():
+        b = _number(band)
+        if b is None or not (np.isfinite(b) and b >= 0):
+            raise ValueError(f"deadband of {role} must be a finite number >= 0, found {band!r}")
+        if role in floors:
+            rel, absolute = floors[role]
+            floors[role] = (rel, max(absolute, DEADBAND_SPIKE_FACTOR * b))
     for role, tol in tolerance.items():
         if tol is not None:
             try:

@@ -285,6 +285,10 @@ class Pipeline:
 
         self.config = config
         self.roles = [r for r in ROLES if r in config.roles]
+        # The historian's deadbands (internal units) where the reads come onto a grid: they
+        # widen the spike floor (calc.quality) and narrow the PTC 6 fluctuation limits
+        # (calc.steady); rows as stored carry none.
+        self.deadbands = dict(config.deadbands) if config.read_grid is not None else {}
         baro = config.screening.barometric_kpa
         if baro is None:
             baro = units.STANDARD_ATMOSPHERE_KPA
@@ -366,6 +370,7 @@ class Pipeline:
             spike=spike_samples(frame.index, sc.spike_window),
             spike_threshold=float(sc.spike_threshold),
             efficiency_band=tuple(sc.efficiency_band),
+            deadband=self.deadbands,
         )
 
     def _steady_kwargs(self) -> dict:
@@ -388,6 +393,7 @@ class Pipeline:
             max_length=_td(st.max_length),
             r_critical=float(st.r_critical),
             r_lambdas=tuple(st.r_filter),
+            deadband=self.deadbands,
         )
 
     # --- the chain ------------------------------------------------------------------------

@@ -121,7 +121,7 @@ class Store(ABC):
                     if s is None or not len(s):
                         continue
                     values = g.hold_on_grid(
-                        s.index.asi8,
+                        pd.DatetimeIndex(s.index).as_unit("ns").asi8,
                         s.to_numpy(dtype=float),
                         times,
                         grid.fill_of(m.role).max_age,
@@ -135,7 +135,10 @@ class Store(ABC):
                 for m in linear:
                     col = raw[m.role]
                     values = g.linear_on_grid(
-                        raw.index.asi8, col.to_numpy(dtype=float), times, grid.fill_of(m.role).max_age
+                        raw.index.as_unit("ns").asi8,
+                        col.to_numpy(dtype=float),
+                        times,
+                        grid.fill_of(m.role).max_age,
                     )
                     series[m.role] = g.series_on_grid(values, times)
         frame = common.role_frame(mappings, series)
@@ -158,7 +161,9 @@ class Store(ABC):
         raw = self.read_raw(mappings, after + one_ns, until + one_ns)
         out = {}
         for m in mappings:
-            stamps, values = g.window_last(raw.index.asi8, raw[m.role].to_numpy(dtype=float), interval)
+            stamps, values = g.window_last(
+                raw.index.as_unit("ns").asi8, raw[m.role].to_numpy(dtype=float), interval
+            )
             out[m.role] = pd.Series(values, index=pd.to_datetime(stamps, unit="ns", utc=True))
         return out
 
