@@ -38,6 +38,11 @@ Behaviour worth knowing:
 * Result bools and integers are stored as REAL (0.0/1.0).
 * A new tag key on an existing measurement rebuilds its table once with the wider key.
 * Table names ``samples`` and those starting with ``isentrope_`` or ``sqlite_`` are reserved.
+* Grid reads (``Store.read_grid``) take the plain ``read_raw`` SELECT and the numpy windowing of
+  ``Store.read_window_last``. A SQL ``GROUP BY (time + iv - 1) / iv`` with ``MAX(time)`` gives
+  the same values but was slower: 30 days of one-minute rows of 16 tags, 2.2-3.2 s against
+  1.3-2.4 s for SELECT and numpy (1.3-2.0 s for the SELECT alone), on the shared 2-core machine
+  at a load average near 9; SQLite groups an expression through a temporary b-tree.
 """
 
 from __future__ import annotations
@@ -177,39 +182,6 @@ class SqliteStore(Store):
             return out
 
         return common.role_frame(mappings, self._run("read_raw", go))
-
-    def read_window_last(
-        self, mappings: Sequence[RoleMapping], after, until, interval
-    ) -> dict[str, pd.Series]:
-        """The last stored number of each grid interval ``(t - interval, t]``, by SQL: one
-        ``GROUP BY`` on the interval end, the bare ``value`` column taken from the row of
-        ``MAX(time)`` (SQLite's documented rule for a bare column beside max()); see
-        ``Store.read_window_last``."""
-        mappings = common.check_mappings(mappings)
-        for m in mappings:
-            check_name(m.tag, "tag")
-        after, until = common.window(after, until)
-        iv = int(pd.Timedelta(interval).value // _NS_PER_MS)
-        if iv < 1 or pd.Timedelta(interval).value % _NS_PER_MS:
-            raise ValueError(f"grid interval must be a whole number of milliseconds, found {interval!r}")
-        lo = after.value // _NS_PER_MS  # ms times > after (grid times are whole ms)
-        hi = until.value // _NS_PER_MS
-        sql = (
-            "SELECT (time + ?1 - 1) / ?1 AS k, value, MAX(time) FROM samples "
-            "WHERE tag = ?2 AND time > ?3 AND time <= ?4 AND typeof(value) IN ('real', 'integer') "
-            "GROUP BY k ORDER BY k"
-        )
-
-        def go(db):
-            out = {}
-            for m in mappings:
-                rows = db.execute(sql, (iv, m.tag, lo, hi)).fetchall()
-                flat = np.fromiter(itertools.chain.from_iterable(rows), dtype=np.float64, count=3 * len(rows))
-                stamps = flat[0::3].astype(np.int64) * (iv * _NS_PER_MS)
-                out[m.role] = pd.Series(flat[1::3], index=pd.to_datetime(stamps, unit="ns", utc=True))
-            return out
-
-        return self._run("read_window_last", go)
 
     def write_raw(self, mappings: Sequence[RoleMapping], frame: pd.DataFrame) -> int:
         mappings = common.check_mappings(mappings)
