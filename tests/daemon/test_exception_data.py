@@ -48,9 +48,14 @@ def _iso(t):
     return pd.Timestamp(t).strftime("%Y-%m-%dT%H:%MZ")
 
 
-def _run(folder, name, extra, load):
+def _run(folder, name, extra, load, store_table=None):
     path = folder / f"{name}.toml"
-    path.write_text(demo_config_toml(f"{name}.sqlite", START, DAYS) + FAST + extra, encoding="utf-8")
+    text = demo_config_toml(f"{name}.sqlite", START, DAYS)
+    if store_table is not None:
+        sqlite_table = f'[store]\nkind = "sqlite"\npath = "{name}.sqlite"'
+        assert sqlite_table in text
+        text = text.replace(sqlite_table, store_table)
+    path.write_text(text + FAST + extra, encoding="utf-8")
     config = load_config(path)
     load(config, path)
     rc = cli.main(
@@ -66,7 +71,7 @@ def _run(folder, name, extra, load):
         ]
     )
     assert rc == 0
-    store = open_store("sqlite", path=folder / f"{name}.sqlite")
+    store = config.store.open()
     try:
         analysis = run_analysis(store, config, write=False)
         events = []
@@ -92,22 +97,18 @@ def _series(config):
     return alarm_series(config)
 
 
-@pytest.fixture(scope="module")
-def runs(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("exception")
+def _history():
     frame, truth = synthetic.generate(start=START, days=DAYS, seed=5, faults=True, freq="5min")
     plant = synthetic.to_plant_units(frame)
-    mappings = synthetic.role_mappings()
-    kept = synthetic.exception_report(plant, synthetic.EXCEPTION_DEADBANDS, "1h")
+    return plant, truth, synthetic.exception_report(plant, synthetic.EXCEPTION_DEADBANDS, "1h")
 
-    def load_regular(config, path):
-        store = open_store("sqlite", path=folder / "regular.sqlite")
-        store.write_raw(mappings, plant)
-        store.close()
 
-    def load_exceptions(config, path):
-        # the historian's compressed export: long time,tag,value rows at irregular times
-        tag = {m.role: m.tag for m in mappings}
+def _import_export(folder, kept):
+    """The historian's compressed export (long time,tag,value rows at irregular times) loaded
+    with ``isentrope import-csv``."""
+
+    def load(config, path):
+        tag = {m.role: m.tag for m in synthetic.role_mappings()}
         rows = sorted((t, tag[role], v) for role, s in kept.items() for t, v in s.items())
         export = folder / "export.csv"
         with export.open("w", newline="", encoding="utf-8") as f:
@@ -116,8 +117,21 @@ def runs(tmp_path_factory):
             w.writerows((t.strftime("%Y-%m-%dT%H:%M:%SZ"), name, repr(v)) for t, name, v in rows)
         assert cli.main(["import-csv", "-c", str(path), str(export)]) == 0
 
+    return load
+
+
+@pytest.fixture(scope="module")
+def runs(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("exception")
+    plant, truth, kept = _history()
+
+    def load_regular(config, path):
+        store = open_store("sqlite", path=folder / "regular.sqlite")
+        store.write_raw(synthetic.role_mappings(), plant)
+        store.close()
+
     regular = _run(folder, "regular", "", load_regular)
-    exceptional = _run(folder, "exception", READ, load_exceptions)
+    exceptional = _run(folder, "exception", READ, _import_export(folder, kept))
     return plant, kept, truth, regular, exceptional
 
 
@@ -154,6 +168,35 @@ def test_rates_steps_and_alarms_agree_with_the_regular_export(runs):
     assert [round(s.size) for s in a_exc.sections["ip"].steps] == [-1]
     _same_events(a_reg.alarm_events, a_exc.alarm_events)
     _same_events(ev_reg, ev_exc)
+
+
+@pytest.mark.slow
+@pytest.mark.influx
+@pytest.mark.parametrize("kind", ["influx2", "influx1"])
+def test_the_same_exception_export_gives_the_same_results_on_an_influxdb_store(
+    kind, runs, request, tmp_path, monkeypatch
+):
+    # The grid read is native on each store (Flux aggregateWindow; InfluxQL GROUP BY time()) and
+    # must give the SQLite run's grid values, hence the same figures (to round-off of sums).
+    server = request.getfixturevalue("influxdb_v2" if kind == "influx2" else "influxdb_v1")
+    db = server.new_database("exc")
+    if kind == "influx2":
+        monkeypatch.setenv("ISENTROPE_TEST_TOKEN", "isentrope:unused")  # auth is off on the test server
+        table = (
+            f'[store]\nkind = "influx2"\nurl = "{server.url}"\norg = "-"\nbucket = "{server.bucket(db)}"\n'
+            'token = "${ISENTROPE_TEST_TOKEN}"\ntimeout = "60s"'
+        )
+    else:
+        table = f'[store]\nkind = "influx1"\nurl = "{server.url}"\ndatabase = "{db}"\ntimeout = "60s"'
+    _, kept, _, _, (a_sql, ev_sql) = runs
+    a_inf, ev_inf = _run(tmp_path, "exception", READ, _import_export(tmp_path, kept), store_table=table)
+    for sec, o in a_sql.sections.items():
+        p = a_inf.sections[sec]
+        assert len(p.deviation) == len(o.deviation), sec
+        np.testing.assert_allclose(p.deviation.to_numpy(), o.deviation.to_numpy(), rtol=0, atol=1e-9)
+        assert p.rate.slope_per_1000h == pytest.approx(o.rate.slope_per_1000h, abs=1e-9)
+        assert [(s.time, round(s.size, 9)) for s in p.steps] == [(s.time, round(s.size, 9)) for s in o.steps]
+    assert ev_inf == ev_sql
 
 
 def _same_events(one, other):
