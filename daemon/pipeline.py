@@ -626,7 +626,9 @@ class Pipeline:
         Deviation warning and alarm per section (persistence in steady windows, hysteresis in
         points), LP exhaust moisture on the steady windows, data quality per mapped tag (bad
         for longer than ``data_quality_limit``) and no data at all (no row for
-        ``no_data_limit``; none when that is 0). Degradation-rate and step rules need the
+        ``no_data_limit``; none when that is 0), and the unit-level ``unit_offline`` state
+        (offline for ``OFFLINE_AFTER``; the data-quality rule is suspended meanwhile, see
+        ``alarm_observations``). Degradation-rate and step rules need the
         deviation history over months; they belong to the trend report, not to one cycle.
         """
         from isentrope.calc import alarms
@@ -890,8 +892,9 @@ def absent_row_times(
     The stretch after the last row is an absence too: that is how an outage is seen while it
     lasts. A backfill whose end lies after the last stored row therefore ends with the
     ``no_data`` alarm raised; the next run with the same alarm state clears it at the first
-    row. Rows are assumed periodic: for historians that store exceptions only, switch the
-    alarm off (``[alarms] no_data_limit = "0s"``).
+    row. Rows are assumed periodic: read a historian that stores exceptions only on a grid
+    (``[read]``; its rows stop once every hold has aged out), or switch the alarm off
+    (``[alarms] no_data_limit = "0s"``).
 
     Returns
     -------
