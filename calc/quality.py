@@ -50,6 +50,8 @@ __all__ = [
     "SPIKE_FLOOR",
     "flatline_limit",
     "flatline_samples",
+    "unit_online",
+    "LOAD_ROLE",
 ]
 
 
@@ -168,6 +170,11 @@ SPIKE_FLOOR: Mapping[str, tuple[float, float]] = {
     "valve_position": (0.0, 2.0),
 }
 
+#: Smallest spike on data stored by exception, in deadbands of the role [-]: the historian
+#: keeps a reading only when it moved beyond its deadband, so an excursion of up to about two
+#: deadbands from a held value is what ordinary noise looks like there (project choice, no
+#: source). Raises the absolute part of ``SPIKE_FLOOR``.
+DEADBAND_SPIKE_FACTOR = 2.0
 #: Flatline duration: common practice, no source (a live transmitter moves within minutes).
 DEFAULT_FLATLINE = "2h"
 #: Relative flatline tolerance [-]: a stretch is "unchanged" while its readings span no more
@@ -690,6 +697,49 @@ def _physics(frame_values, roles, band, margin, given=None):
     return codes, eff
 
 
+# --- unit state ----------------------------------------------------------------------------
+#: The role whose reading says whether the unit runs: generator gross output [MW].
+LOAD_ROLE = "gross_output"
+
+
+def unit_online(frame: pd.DataFrame, online_mw: float) -> pd.Series:
+    """Whether the unit is online at each sample: gross output at or above ``online_mw``.
+
+    Tag-quality rules judge the tags only while the unit runs: offline, pressures and
+    temperatures decay, transmitters leave their ranges and historians stop storing, and none
+    of that is an instrument fault.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        Readings in internal units with a "gross_output" column [MW].
+    online_mw : float
+        Below this gross output the unit is offline [MW].
+
+    Returns
+    -------
+    pandas.Series
+        bool per sample, same index. A sample without a gross output reading counts as
+        offline when more than half of the other columns are missing as well (no output at
+        all: the historian has next to nothing for the unit), and as online otherwise (a
+        failed output transmitter on a running unit keeps its own MISSING flag in force).
+    """
+    if not isinstance(frame, pd.DataFrame) or LOAD_ROLE not in frame.columns:
+        raise ValueError(f"unit_online needs a DataFrame with a {LOAD_ROLE!r} column (gross output, MW)")
+    limit = _number(online_mw)
+    if limit is None or not np.isfinite(limit):
+        raise ValueError(f"online_mw must be a finite number of MW, found {online_mw!r}")
+    load = frame[LOAD_ROLE].to_numpy(dtype=float, na_value=np.nan)
+    others = frame.drop(columns=[LOAD_ROLE])
+    with np.errstate(invalid="ignore"):
+        online = load >= limit
+    absent = ~np.isfinite(load)
+    if absent.any() and len(others.columns):
+        missing_share = others.isna().to_numpy().mean(axis=1)
+        online |= absent & (missing_share <= 0.5)
+    return pd.Series(online, index=frame.index, name="online")
+
+
 # --- entry point ---------------------------------------------------------------------------
 def screen(
     frame: pd.DataFrame,
@@ -706,6 +756,7 @@ def screen(
     superheat_margin: float = 0.0,
     needed: tuple[str, ...] | None = None,
     efficiencies: Mapping[str, object] | None = None,
+    deadband: Mapping[str, float] | None = None,
     return_details: bool = False,
 ) -> ScreenResult:
     """Flag every sample of every role with the reasons it cannot be trusted.
@@ -755,6 +806,15 @@ def screen(
         instead of calling ``section_efficiency`` again (it dominates the run time of a
         screen: 1.5-4.5 s per section for a year of one-minute rows, measured on the
         shared 2-core project machine).
+    deadband : mapping of str to float, optional
+        Role -> exception deadband of the historian [internal unit], for readings taken onto a
+        grid from data stored by exception (isentrope.daemon.stores.grid). The spike floor of
+        the role becomes at least ``DEADBAND_SPIKE_FACTOR`` deadbands (held readings have no
+        scatter, so the noise level of the spike test falls to its floor). The flatline test
+        is left as it is: a held value is an exact copy, so a flat stretch longer than the
+        longest hold holds two stored readings, and a live transmitter's stored readings
+        differ by its noise while a stuck one repeats its value (the caller keeps
+        ``flatline`` longer than every hold; ``isentrope.daemon.config`` checks it).
     return_details : bool, optional
         Also return section efficiencies and spike scores in ``details``.
 
@@ -804,6 +864,13 @@ def screen(
     floors = dict(SPIKE_FLOOR)
     if spike_floor is not None:
         floors.update(spike_floor)
+    for role, band in (deadband or {}).items():
+        b = _number(band)
+        if b is None or not (np.isfinite(b) and b >= 0):
+            raise ValueError(f"deadband of {role} must be a finite number >= 0, found {band!r}")
+        if role in floors:
+            rel, absolute = floors[role]
+            floors[role] = (rel, max(absolute, DEADBAND_SPIKE_FACTOR * b))
     for role, tol in tolerance.items():
         if tol is not None:
             try:

@@ -338,6 +338,7 @@ def tag_steady(
     r_critical: float = R_CRITICAL,
     r_roles: Sequence[str] = R_ROLES,
     r_lambdas: tuple[float, float, float] = R_LAMBDAS,
+    deadband: Mapping[str, float] | None = None,
 ) -> SteadyResult:
     """Tag steady-state samples and collect the steady windows.
 
@@ -379,6 +380,11 @@ def tag_steady(
         r_statistic only: the variables R is computed on (those present in the frame).
     r_lambdas : (float, float, float), optional
         r_statistic only: filter factors lambda1, lambda2, lambda3 [-].
+    deadband : mapping of str to float, optional
+        ptc6 only: role -> exception deadband of the historian [internal unit]. A reading
+        stored by exception may move by up to its deadband unseen, so the role's observed
+        fluctuation is taken as at least its deadband (a noise floor): a value held unchanged
+        over the window counts as moving by its deadband, never as perfectly steady.
 
     Returns
     -------
@@ -446,7 +452,7 @@ def tag_steady(
     reach = check = None
     if method == "ptc6":
         steady, usable, reach, check = _ptc6(
-            frame, t, window_ns, max_gap_ns, limits, rating_mw, online & screened, details
+            frame, t, window_ns, max_gap_ns, limits, rating_mw, online & screened, details, deadband or {}
         )
     else:
         if r_critical is None or not r_critical > 0:
@@ -469,7 +475,7 @@ def tag_steady(
     )
 
 
-def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details):
+def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details, deadband):
     merged: dict[str, tuple[float, float] | None] = dict(PTC6_LIMITS)
     merged[LOAD_ROLE] = (LOAD_BAND, 0.0)
     if limits is not None:
@@ -502,6 +508,8 @@ def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details):
                 limit = np.full(len(t), max(rel * rating_mw, absolute))
             else:
                 limit = np.maximum(rel * np.abs(mean), absolute)
+            # a held reading never fluctuates less than its deadband: the noise floor
+            deviation = np.maximum(deviation, float(deadband.get(role, 0.0)))
             within = deviation <= limit
         window_ok &= within
         details[f"{role}_deviation"] = deviation
@@ -530,7 +538,7 @@ def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details):
                 limit = max(rel * rating_mw, absolute)
             else:
                 limit = np.maximum(rel * np.abs(mean), absolute)
-            ok &= np.maximum(hi - mean, mean - lo) <= limit
+            ok &= np.maximum(np.maximum(hi - mean, mean - lo), float(deadband.get(role, 0.0))) <= limit
         return ok
 
     return steady, usable, reach, check

@@ -760,7 +760,11 @@ def run_analysis(
         return empty
     gross = [m for m in config.mappings if m.role == "gross_output"]
     power = store.read(
-        gross, start, end if end is not None else ahead, barometric_kpa=config.screening.barometric_kpa
+        gross,
+        start,
+        end if end is not None else ahead,
+        barometric_kpa=config.screening.barometric_kpa,
+        grid=config.read_grid,  # exception-reported output on the worker's grid: regular samples
     )["gross_output"]
     if end is None:
         spacing = (

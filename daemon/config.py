@@ -8,8 +8,9 @@ The dataclass tree (these names are stable; other modules build on them):
 
 * ``Config``: ``path``, ``unit``, ``store``, ``roles`` (role -> ``RoleMapping``),
   ``uncertainties`` (role -> standard uncertainty, see ``RoleUncertainty``), ``screening``,
-  ``steady``, ``sections``, ``baseline``, ``alarms``, ``economics``, ``schedule``; the
-  property ``mappings`` (tuple of ``RoleMapping`` in ``ROLES`` order).
+  ``steady``, ``sections``, ``baseline``, ``alarms``, ``economics``, ``schedule``, ``read``;
+  the property ``mappings`` (tuple of ``RoleMapping`` in ``ROLES`` order), ``read_grid``
+  (the ``ReadGrid`` of the worker's reads, None for rows as stored) and ``deadbands``.
 * ``UnitConfig``: ``name``, ``plant``, ``rating_mw``, ``online_mw``.
 * ``StoreConfig``: ``kind`` ("sqlite", "influx2", "influx1") and the per-kind settings;
   ``open_options()`` gives the keyword arguments for
@@ -20,7 +21,8 @@ The dataclass tree (these names are stable; other modules build on them):
   flow; "kelvin" for temperature; "percent_points" for valve position).
 * ``ScreeningConfig``, ``SteadyConfig``, ``SectionsConfig``, ``BaselineConfig``,
   ``AlarmsConfig``, ``SensitivityConfig``, ``OverhaulCase``, ``EconomicsConfig``,
-  ``ScheduleConfig``: one per table, fields as in ``deploy/example.toml``.
+  ``ScheduleConfig``, ``ReadConfig`` (with ``ReadRule`` per quantity and per role): one per
+  table, fields as in ``deploy/example.toml``.
 * ``parse_duration(text) -> timedelta``: "30s", "15m", "2h", "1d", "1h30m".
 
 Durations are strings ("15m"), times are ISO 8601 (naive means UTC), secrets are
@@ -65,6 +67,8 @@ __all__ = [
     "OverhaulCase",
     "EconomicsConfig",
     "ScheduleConfig",
+    "ReadConfig",
+    "ReadRule",
     "load_config",
     "parse_config",
     "parse_duration",
@@ -459,6 +463,57 @@ class ScheduleConfig:
     backoff_max: dt.timedelta = dt.timedelta(seconds=60)
 
 
+#: Fills of ``[read]``: see isentrope.daemon.stores.grid.
+READ_FILLS = ("hold", "linear")
+#: Quantities a ``[read.quantity.<name>]`` table may name (isentrope.daemon.roles.ROLES).
+READ_QUANTITIES = ("pressure", "temperature", "flow", "power", "percent")
+
+
+@dataclass(frozen=True)
+class ReadRule:
+    """``[read.quantity.<quantity>]`` or ``[read.roles.<role>]``: what differs from ``[read]``.
+
+    ``fill`` "hold" or "linear" (None: inherit), ``max_age`` (None: inherit) [duration],
+    ``deadband`` the historian's exception deadband in the plant unit of the role(s) (None:
+    inherit; 0 when nowhere given) [plant unit].
+    """
+
+    fill: str | None = None
+    max_age: dt.timedelta | None = None
+    deadband: float | None = None
+
+
+@dataclass(frozen=True)
+class ReadConfig:
+    """How the worker reads raw samples.
+
+    ``interval``: the grid [duration]; 0 reads the rows as stored (regular exports).
+    ``fill`` and ``max_age``: how a value between stored points is obtained on the grid: "hold"
+    the last stored value while younger than ``max_age`` (a whole number of grid intervals),
+    "linear" interpolation between stored points at most ``max_age`` apart
+    (isentrope.daemon.stores.grid). ``quantity`` and ``roles``: per quantity, then per role,
+    overrides, with the historian's ``deadband`` in the role's plant unit.
+    """
+
+    interval: dt.timedelta = dt.timedelta(0)
+    fill: str = "hold"
+    max_age: dt.timedelta = dt.timedelta(hours=1, minutes=30)
+    quantity: dict[str, ReadRule] = field(default_factory=dict)
+    roles: dict[str, ReadRule] = field(default_factory=dict)
+
+    def rule_of(self, role: str) -> tuple[str, dt.timedelta, float]:
+        """(fill, max_age, deadband [plant unit]) of one role: the role's table, else its
+        quantity's, else ``[read]``."""
+        fill, age, band = self.fill, self.max_age, 0.0
+        for rule in (self.quantity.get(ROLES[role][0]), self.roles.get(role)):
+            if rule is None:
+                continue
+            fill = rule.fill if rule.fill is not None else fill
+            age = rule.max_age if rule.max_age is not None else age
+            band = rule.deadband if rule.deadband is not None else band
+        return fill, age, band
+
+
 @dataclass(frozen=True)
 class Config:
     """One unit's whole configuration."""
@@ -475,6 +530,34 @@ class Config:
     alarms: AlarmsConfig = AlarmsConfig()
     economics: EconomicsConfig = field(default_factory=EconomicsConfig)
     schedule: ScheduleConfig = ScheduleConfig()
+    read: ReadConfig = field(default_factory=ReadConfig)
+
+    @property
+    def read_grid(self):
+        """The ``isentrope.daemon.stores.grid.ReadGrid`` of ``[read]`` for the mapped roles, or
+        None when ``[read] interval`` is 0 (rows as stored)."""
+        from isentrope.daemon.stores.grid import Fill, ReadGrid
+
+        if self.read.interval <= dt.timedelta(0):
+            return None
+        fills = {}
+        for role in self.roles:
+            fill, age, _ = self.read.rule_of(role)
+            fills[role] = Fill(fill, pd.Timedelta(age))
+        return ReadGrid(
+            pd.Timedelta(self.read.interval), fills, Fill(self.read.fill, pd.Timedelta(self.read.max_age))
+        )
+
+    @property
+    def deadbands(self) -> dict[str, float]:
+        """Role -> the historian's deadband in internal units (MPa, K, MW, kg/s, %), for the
+        roles with a deadband above 0."""
+        out = {}
+        for role, m in self.roles.items():
+            band = self.read.rule_of(role)[2]
+            if band > 0:
+                out[role] = _band_internal(band, m.unit)
+        return out
 
     @property
     def mappings(self) -> tuple[RoleMapping, ...]:
@@ -1351,6 +1434,118 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
     return ScheduleConfig(**v)
 
 
+def _band_internal(band: float, unit: str) -> float:
+    """A deadband (a difference of readings) in the plant ``unit`` in internal units: only the
+    scale of the unit counts (a gauge offset or a zero shift cancels)."""
+    units = _units_module()
+    internal = units.INTERNAL_UNIT[units.quantity(unit)]
+    kpa = units.STANDARD_ATMOSPHERE_KPA
+    return float(units.convert(band, unit, internal, kpa) - units.convert(0.0, unit, internal, kpa))
+
+
+def _read_rule(r: _Reader, d: dict, p: tuple[str, ...]) -> ReadRule:
+    r.unknown(d, p, _fields(ReadRule))
+    return ReadRule(
+        fill=r.value(d, p + ("fill",), "str", None, choices=READ_FILLS),
+        max_age=r.value(d, p + ("max_age",), "duration", None, low=0, low_open=True),
+        deadband=r.value(d, p + ("deadband",), "float", None, low=0),
+    )
+
+
+def _read_read(r: _Reader, top: dict, roles: dict) -> ReadConfig:
+    p = ("read",)
+    d = r.table(top, p)
+    r.unknown(d, p, _fields(ReadConfig))
+    D = ReadConfig()
+    interval = r.value(d, p + ("interval",), "duration", D.interval, low=0)
+    if interval and (interval.total_seconds() < 1 or interval.total_seconds() % 1):
+        r.problem(p + ("interval",), f"expected 0 or a whole number of seconds, found {d.get('interval')!r}")
+        interval = D.interval
+    quantity: dict[str, ReadRule] = {}
+    qd = r.table(d, p + ("quantity",))
+    r.unknown(qd, p + ("quantity",), READ_QUANTITIES)
+    for name in READ_QUANTITIES:
+        body = r.table(qd, p + ("quantity", name))
+        if body:
+            quantity[name] = _read_rule(r, body, p + ("quantity", name))
+    rules: dict[str, ReadRule] = {}
+    rd = r.table(d, p + ("roles",))
+    r.unknown(rd, p + ("roles",), list(ROLES))
+    for role in ROLES:
+        body = r.table(rd, p + ("roles", role))
+        if body:
+            rules[role] = _read_rule(r, body, p + ("roles", role))
+    cfg = ReadConfig(
+        interval=interval,
+        fill=r.value(d, p + ("fill",), "str", D.fill, choices=READ_FILLS),
+        max_age=r.value(d, p + ("max_age",), "duration", D.max_age, low=0, low_open=True),
+        quantity=quantity,
+        roles=rules,
+    )
+    if interval:
+        for role in [*roles, None]:
+            fill, age, _ = cfg.rule_of(role) if role else (cfg.fill, cfg.max_age, 0.0)
+            if fill == "hold" and age and age.total_seconds() % interval.total_seconds():
+                r.problem(
+                    _read_key(cfg, role, "max_age"),
+                    f"a hold's max_age must be a whole number of grid intervals "
+                    f"({format_duration(interval)}), found {format_duration(age)}"
+                    + (f" (for role {role})" if role else ""),
+                )
+    return cfg
+
+
+def _read_key(cfg: ReadConfig, role: str | None, key: str) -> tuple[str, ...]:
+    """Where a role's ``key`` of ``[read]`` is written: its role table, its quantity's, or [read]."""
+    if role is not None:
+        rule = cfg.roles.get(role)
+        if rule is not None and getattr(rule, key) is not None:
+            return ("read", "roles", role, key)
+        q = ROLES[role][0]
+        rule = cfg.quantity.get(q)
+        if rule is not None and getattr(rule, key) is not None:
+            return ("read", "quantity", q, key)
+    return ("read", key)
+
+
+def _check_read_against(r: _Reader, cfg: ReadConfig, roles: dict, screening, steady, unit) -> None:
+    """What a grid read needs of the other tables: a held value must not look like a stuck
+    transmitter (``[screening] flatline`` longer than every held role's max_age, so that a
+    flat stretch holds two stored values), and a deadband must leave room for the steadiness
+    limits (it is added to each limited role's fluctuation, see ``Pipeline``)."""
+    if not cfg.interval:
+        return
+    for role in roles:
+        fill, age, band = cfg.rule_of(role)
+        if fill == "hold" and screening.flatline <= age:
+            r.problem(
+                ("screening", "flatline"),
+                f"must be longer than the max_age of every held role ({format_duration(age)} for {role}, "
+                f"from {'.'.join(_read_key(cfg, role, 'max_age'))}): a held value is unchanged by "
+                f"construction, found {format_duration(screening.flatline)}",
+            )
+            break
+    limits = {
+        "throttle_p": steady.throttle_p_kpa / 1000.0,  # [MPa]
+        "throttle_t": steady.temperature_k,  # [K]
+        "hot_reheat_t": steady.temperature_k,
+        "condenser_p": steady.exhaust_p_kpa / 1000.0,
+        "gross_output": steady.load_band_percent / 100.0 * unit.rating_mw,  # [MW]
+    }
+    for role, m in roles.items():
+        band = cfg.rule_of(role)[2]
+        if band <= 0 or role not in limits or not limits[role]:
+            continue
+        internal = _band_internal(band, m.unit)
+        if internal >= limits[role]:
+            r.problem(
+                _read_key(cfg, role, "deadband"),
+                f"the deadband of {role} ({band:g} {m.unit}) is not below its permissible fluctuation in "
+                f"[steady] ({limits[role]:g} in internal units, {internal:g} found): a reading that may "
+                "move by its deadband unseen could never be judged steady",
+            )
+
+
 def _is_gauge(unit: str) -> bool:
     """Whether a (canonical) pressure unit is a gauge unit, needing the barometric pressure."""
     return bool(_units_module().UNITS[unit].gauge)
@@ -1367,6 +1562,7 @@ _TOP = [
     "alarms",
     "economics",
     "schedule",
+    "read",
 ]
 
 
@@ -1403,6 +1599,8 @@ def parse_config(
     alarms = _read_alarms(r, top)
     economics = _read_economics(r, top)
     schedule = _read_schedule(r, top)
+    read = _read_read(r, top, roles)
+    _check_read_against(r, read, roles, screening, steady, unit)
     gauge = [m.role for m in roles.values() if ROLES[m.role][0] == "pressure" and _is_gauge(m.unit)]
     if gauge and "barometric_p" not in roles and screening.barometric_kpa is None:
         r.problem(
@@ -1425,6 +1623,7 @@ def parse_config(
         alarms=alarms,
         economics=economics,
         schedule=schedule,
+        read=read,
     )
 
 

@@ -146,7 +146,17 @@ class _ObservingPipeline(Pipeline):
         self.spacing = None  # sample spacing of the last frame with rows
 
     def _alarms(
-        self, windows, deviation, state, final_end, notes, screen=None, start=None, rows=None, rows_end=None
+        self,
+        windows,
+        deviation,
+        state,
+        final_end,
+        notes,
+        screen=None,
+        start=None,
+        rows=None,
+        rows_end=None,
+        online=None,
     ):
         # The alarm state is not at hand here (the machines run later, in alarm_partition):
         # an absence of rows that goes on from the previous chunk continues from this
@@ -167,6 +177,7 @@ class _ObservingPipeline(Pipeline):
             rows=rows,
             state=seen,
             rows_end=rows_end,
+            online=online,
         )
         if obs is not None:
             mine = obs["time"][obs["section"] == HISTORIAN_SECTION]

@@ -604,7 +604,9 @@ def write_report(
     if readings is not None:
         raw = readings.loc[(readings.index >= start) & (readings.index < end)]
     else:
-        raw = store.read(config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa)
+        raw = store.read(
+            config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa, grid=config.read_grid
+        )
     pipe = Pipeline(config)
     if len(raw):
         screen = quality.screen(raw, **pipe._screen_kwargs(raw))

@@ -276,6 +276,8 @@ class Worker:
         Where to start when there is no checkpoint.
     barometric_kpa : float or None
         Constant barometric pressure for gauge transmitters when no barometric tag is mapped.
+    grid : isentrope.daemon.stores.grid.ReadGrid or None
+        Read onto this fixed grid (``[read]``); None reads the rows as stored.
     clock : callable
         Returns the current UTC time; injectable for tests.
     sleep : callable
@@ -300,6 +302,7 @@ class Worker:
         checkpoint_name: str | None = None,
         start_default: pd.Timestamp | None = None,
         barometric_kpa: float | None = None,
+        grid=None,
         clock: Callable[[], pd.Timestamp] | None = None,
         sleep: Callable[[float], None] = _time.sleep,
         rng: random.Random | None = None,
@@ -317,6 +320,7 @@ class Worker:
         self.checkpoint_name = checkpoint_name or f"run/{unit}"
         self.start_default = None if start_default is None else _utc(start_default)
         self.barometric_kpa = barometric_kpa
+        self.grid = grid
         self.clock = clock or (lambda: pd.Timestamp.now(tz="UTC"))
         self.sleep = sleep
         self.rng = rng or random.Random()
@@ -343,6 +347,7 @@ class Worker:
             backoff=sch.backoff,
             backoff_max=sch.backoff_max,
             barometric_kpa=config.screening.barometric_kpa,
+            grid=config.read_grid,
         )
         kwargs.update(overrides)
         pipeline = kwargs.pop("pipeline", None) or Pipeline(config)
@@ -536,7 +541,9 @@ class Worker:
         read_start, read_end = start - before, end + after
         final_end = min(end, data_end - after)
         frame = self._retry(
-            lambda: self.store.read(self.mappings, read_start, read_end, barometric_kpa=self.barometric_kpa),
+            lambda: self.store.read(
+                self.mappings, read_start, read_end, barometric_kpa=self.barometric_kpa, grid=self.grid
+            ),
             f"reading unit {self.unit} from {read_start.isoformat()} to {read_end.isoformat()}",
         )
         if alarm_state is None:

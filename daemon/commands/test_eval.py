@@ -73,7 +73,9 @@ def run(args) -> int:
     sub_period = pd.Timedelta(parse_duration(args.sub_period))
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        frame = store.read(config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa)
+        frame = store.read(
+            config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa, grid=config.read_grid
+        )
         week = pd.Timedelta(days=7)
         trend = store.read_results(WINDOWS_MEASUREMENT, start - week, end + week, {"unit": config.unit.name})
     finally:

@@ -13,6 +13,10 @@ Contract (checked by tests/daemon/stores/test_contract.py against every implemen
   per role in ``mappings`` in the *plant* unit, NaN where a sample is missing or not a number.
   The window is half-open, ``start <= t < end``. ``read`` does the same and converts to
   internal units through ``isentrope.calc.units``.
+* ``read_grid(mappings, start, end, grid)``: the same frame on the fixed grid of a
+  ``grid.ReadGrid`` (values held up to a maximum age, or interpolated, between stored points;
+  see ``isentrope.daemon.stores.grid``); ``read(..., grid=...)`` converts it. Its native
+  step, ``read_window_last``, is the last stored value of each grid interval.
 * ``write_raw(mappings, frame)`` writes a wide role frame (plant units) as raw samples; used
   by the demo, ``import-csv`` and tests.
 * ``write_results(measurement, frame, tags)`` writes every numeric/bool column of ``frame``
@@ -33,6 +37,7 @@ import pandas as pd
 
 from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores.grid import ReadGrid
 
 
 class StoreError(Exception):
@@ -88,13 +93,92 @@ class Store(ABC):
         start: pd.Timestamp,
         end: pd.Timestamp,
         barometric_kpa: float | None = None,
+        grid: ReadGrid | None = None,
     ) -> pd.DataFrame:
-        """Like ``read_raw``, converted to internal units (MPa abs, K, kg/s, MW, %)."""
+        """Like ``read_raw`` (or ``read_grid`` with a ``grid``), converted to internal units
+        (MPa abs, K, kg/s, MW, %)."""
         from isentrope.calc import units
 
-        raw = self.read_raw(mappings, start, end)
+        raw = (
+            self.read_raw(mappings, start, end)
+            if grid is None
+            else self.read_grid(mappings, start, end, grid)
+        )
         unit_of = {m.role: m.unit for m in mappings}
         return units.to_internal(raw, unit_of, barometric_kpa=barometric_kpa)
+
+    def read_grid(
+        self, mappings: Sequence[RoleMapping], start: pd.Timestamp, end: pd.Timestamp, grid: ReadGrid
+    ) -> pd.DataFrame:
+        """Each mapped role on the grid times of ``grid`` in ``[start, end)`` (plant units):
+        held roles from ``read_window_last`` (one request for all of them, reaching back the
+        longest max_age), interpolated roles from ``read_raw`` around the window. Rows where
+        no role has a value are left out. See ``isentrope.daemon.stores.grid``."""
+        from isentrope.daemon.stores import common
+        from isentrope.daemon.stores import grid as g
+
+        mappings = common.check_mappings(mappings)
+        start, end = common.window(start, end)
+        times = g.grid_ns(start, end, grid.interval)
+        series: dict[str, pd.Series] = {}
+        if len(times):
+            one_ns = pd.Timedelta(1, unit="ns")
+            first = pd.Timestamp(int(times[0]), unit="ns", tz="UTC")
+            last = pd.Timestamp(int(times[-1]), unit="ns", tz="UTC")
+            held = [m for m in mappings if grid.fill_of(m.role).method == g.HOLD]
+            if held:
+                back = max(grid.fill_of(m.role).max_age for m in held)
+                lasts = self.read_window_last(held, first - back, last, grid.interval)
+                for m in held:
+                    s = lasts.get(m.role)
+                    if s is None or not len(s):
+                        continue
+                    values = g.hold_on_grid(
+                        pd.DatetimeIndex(s.index).as_unit("ns").asi8,
+                        s.to_numpy(dtype=float),
+                        times,
+                        grid.fill_of(m.role).max_age,
+                        grid.interval,
+                    )
+                    series[m.role] = g.series_on_grid(values, times)
+            linear = [m for m in mappings if grid.fill_of(m.role).method == g.LINEAR]
+            if linear:
+                reach = max(grid.fill_of(m.role).max_age for m in linear)
+                raw = self.read_raw(linear, first - reach, last + reach + one_ns)
+                for m in linear:
+                    col = raw[m.role]
+                    values = g.linear_on_grid(
+                        raw.index.as_unit("ns").asi8,
+                        col.to_numpy(dtype=float),
+                        times,
+                        grid.fill_of(m.role).max_age,
+                    )
+                    series[m.role] = g.series_on_grid(values, times)
+        frame = common.role_frame(mappings, series)
+        return frame.dropna(how="all")
+
+    def read_window_last(
+        self,
+        mappings: Sequence[RoleMapping],
+        after: pd.Timestamp,
+        until: pd.Timestamp,
+        interval: pd.Timedelta,
+    ) -> dict[str, pd.Series]:
+        """Per role: the last stored number in each grid interval ``(t - interval, t]`` that
+        holds one, stamped ``t``, for the stored points in ``(after, until]`` (``after`` and
+        ``until`` on the grid). Stores override this with their native windowing; here it is
+        ``read_raw`` and numpy (``grid.window_last``)."""
+        from isentrope.daemon.stores import grid as g
+
+        one_ns = pd.Timedelta(1, unit="ns")
+        raw = self.read_raw(mappings, after + one_ns, until + one_ns)
+        out = {}
+        for m in mappings:
+            stamps, values = g.window_last(
+                raw.index.as_unit("ns").asi8, raw[m.role].to_numpy(dtype=float), interval
+            )
+            out[m.role] = pd.Series(values, index=pd.to_datetime(stamps, unit="ns", utc=True))
+        return out
 
     # --- results ------------------------------------------------------------------------
     @abstractmethod

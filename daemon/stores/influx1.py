@@ -238,6 +238,65 @@ class Influx1Store(LineProtocolWriter, Store):
         series = {role: (pd.concat(ps) if ps else None) for role, ps in parts.items()}
         return common.role_frame(mappings, {k: v for k, v in series.items() if v is not None})
 
+    def read_window_last(
+        self, mappings: Sequence[RoleMapping], after, until, interval
+    ) -> dict[str, pd.Series]:
+        """The last stored number of each grid interval ``(t - interval, t]`` by InfluxQL:
+        ``SELECT last("<field>"::field) ... WHERE time > <after> AND time <= <until> GROUP BY
+        time(<interval>, 1ns) fill(none)``; the 1 ns offset makes the server's intervals
+        ``(t - interval, t]`` (stamped ``t - interval + 1ns``) instead of ``[t, t + interval)``.
+        ``fill(previous)`` is not used: it holds a value for ever (no maximum age) and only
+        from inside the query's range, and it makes the server send every grid row; the hold
+        is ``grid.hold_on_grid`` over these interval values (see ``Store.read_grid``).
+        ``fill(linear)`` is not used either: it interpolates between interval values placed
+        at the interval starts, not at the stored times, and across gaps of any length."""
+        mappings = common.check_mappings(mappings)
+        after, until = common.window(after, until)
+        iv = pd.Timedelta(interval)
+        groups: dict[tuple, list[RoleMapping]] = {}
+        for m in mappings:
+            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        if not self._db_checked:
+            self._check_database()
+        parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}
+        chunk = max(1, -(-self.read_chunk.value // iv.value)) * iv  # whole grid intervals
+        every = f"{iv.value}ns"
+        for lo, hi in time_windows(after, until, chunk):
+            statements, order = [], []
+            for g, ((measurement, tags), ms) in enumerate(groups.items()):
+                fields = list(dict.fromkeys(m.field_name for m in ms))
+                select = ", ".join(
+                    f'last({escape.influxql_identifier(f, "field")}::field) AS "s{g}f{i}"'
+                    for i, f in enumerate(fields)
+                )
+                conds = [
+                    f"{escape.influxql_identifier(k, 'tag key')}::tag = {escape.influxql_string(v)}"
+                    for k, v in dict(tags).items()
+                ]
+                conds += [f"time > {lo.value}", f"time <= {hi.value}"]
+                statements.append(
+                    f"SELECT {select} FROM {self._from(measurement)} WHERE {' AND '.join(conds)} "
+                    f"GROUP BY time({every}, 1ns) fill(none)"
+                )
+                order.append((fields, ms))
+            for block in self.query_csv("; ".join(statements), "read_window_last"):
+                fcols = [c for c in block.columns[3:] if str(c).startswith("s")] if len(block) else []
+                if not fcols:
+                    continue
+                g = int(str(fcols[0])[1:].split("f")[0])
+                fields, ms = order[g]
+                ends = block["time"].to_numpy(dtype=np.int64) - 1 + iv.value
+                idx = pd.to_datetime(ends, unit="ns", utc=True)
+                for m in ms:
+                    col = f"s{g}f{fields.index(m.field_name)}"
+                    if col in block.columns:
+                        s = pd.Series(pd.to_numeric(block[col], errors="coerce").to_numpy(), index=idx)
+                        parts[m.role].append(s.dropna())
+        return {
+            role: (pd.concat(ps).sort_index() if ps else pd.Series([], dtype=float))
+            for role, ps in parts.items()
+        }
+
     def _send_batch(self, text: str, what: str) -> None:
         """One batch of line protocol to /write (``LineProtocolWriter`` does the batching)."""
         params = {"db": self.database, "precision": "ns"}

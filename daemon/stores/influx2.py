@@ -356,6 +356,60 @@ class Influx2Store(LineProtocolWriter, Store):
         series = {role: pd.concat(ps) for role, ps in parts.items() if ps}
         return common.role_frame(mappings, series)
 
+    def read_window_last(
+        self, mappings: Sequence[RoleMapping], after, until, interval
+    ) -> dict[str, pd.Series]:
+        """The last stored number of each grid interval ``(t - interval, t]`` by Flux::
+
+            range(start: <after> + 1ns, stop: <until> + 1ns) |> filter(...)
+              |> timeShift(duration: -1ns)
+              |> aggregateWindow(every: <interval>, fn: last, createEmpty: false)
+
+        The shift by -1 ns turns Flux's windows ``[t - interval, t)`` (stamped with their stop
+        ``t``) into ``(t - interval, t]`` of the stored times. No ``fill(usePrevious: true)``:
+        it holds a value for ever (no maximum age) and makes the server send every grid row;
+        the hold is ``grid.hold_on_grid`` over these interval values (``Store.read_grid``)."""
+        mappings = common.check_mappings(mappings)
+        after, until = common.window(after, until)
+        iv = pd.Timedelta(interval)
+        one = pd.Timedelta(1, unit="ns")
+        groups: dict[tuple, list[RoleMapping]] = {}
+        for m in mappings:
+            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}
+        chunk = max(1, -(-self.read_chunk.value // iv.value)) * iv  # whole grid intervals
+        for lo, hi in time_windows(after, until, chunk):
+            for (measurement, tags), ms in groups.items():
+                fields = list(dict.fromkeys(m.field_name for m in ms))
+                flux = (
+                    f"from(bucket: {escape.flux_string(self.bucket)})\n"
+                    f"  |> range(start: {flux_time(lo + one)}, stop: {flux_time(hi + one)})\n"
+                    f"  |> filter(fn: (r) => {self._filter(measurement, fields, dict(tags))})\n"
+                    '  |> keep(columns: ["_start", "_stop", "_time", "_field", "_value"])\n'
+                    "  |> timeShift(duration: -1ns)\n"
+                    f"  |> aggregateWindow(every: {iv.value}ns, fn: last, createEmpty: false)\n"
+                    '  |> keep(columns: ["_time", "_field", "_value"])\n'
+                    '  |> pivot(rowKey: ["_time"], columnKey: ["_field"], valueColumn: "_value")'
+                )
+                for block in self.query_csv(flux, "read_window_last"):
+                    if not len(block) or "_time" not in block.columns:
+                        continue
+                    idx = self._block_times(block)
+                    inside = np.ones(len(block), dtype=bool)
+                    self._refuse_text_fields(
+                        "read_window_last", block, inside, fields, measurement, dict(tags), lo, hi
+                    )
+                    for m in ms:
+                        if m.field_name in block.columns:
+                            values = pd.to_numeric(block[m.field_name], errors="coerce").to_numpy(
+                                dtype=np.float64
+                            )
+                            parts[m.role].append(pd.Series(values, index=idx).dropna())
+        return {
+            role: (pd.concat(ps).sort_index() if ps else pd.Series([], dtype=float))
+            for role, ps in parts.items()
+        }
+
     def _send_batch(self, text: str, what: str) -> None:
         """One batch of line protocol through the client's write API (``LineProtocolWriter``
         does the batching)."""

@@ -38,6 +38,11 @@ Behaviour worth knowing:
 * Result bools and integers are stored as REAL (0.0/1.0).
 * A new tag key on an existing measurement rebuilds its table once with the wider key.
 * Table names ``samples`` and those starting with ``isentrope_`` or ``sqlite_`` are reserved.
+* Grid reads (``Store.read_grid``) take the plain ``read_raw`` SELECT and the numpy windowing of
+  ``Store.read_window_last``. A SQL ``GROUP BY (time + iv - 1) / iv`` with ``MAX(time)`` gives
+  the same values but was slower: 30 days of one-minute rows of 16 tags, 2.2-3.2 s against
+  1.3-2.4 s for SELECT and numpy (1.3-2.0 s for the SELECT alone), on the shared 2-core machine
+  at a load average near 9; SQLite groups an expression through a temporary b-tree.
 """
 
 from __future__ import annotations
