@@ -1,6 +1,7 @@
 """The `isentrope` command line.
 
-Exit codes: 0 ok, 2 configuration error, 3 store unreachable, 1 anything else. Errors are one
+Exit codes: 0 ok, 2 configuration error (the store refusing the credentials or their rights,
+401/403, counts as one), 3 store unreachable, 1 anything else. Errors are one
 clear line on stderr, not a traceback, unless ``--debug`` is given.
 """
 
@@ -17,6 +18,7 @@ from isentrope.daemon.errors import (
     EXIT_CONFIG,
     EXIT_OTHER,
     EXIT_UNREACHABLE,
+    AuthorizationError,
     ConfigError,
     FatalStoreError,
     TemporaryStoreError,
@@ -65,6 +67,11 @@ def main(argv: list[str] | None = None) -> int:
     try:
         return int(modules[args.command].run(args) or 0)
     except ConfigError as exc:
+        if debug:
+            raise
+        print(f"isentrope: configuration error: {exc}", file=sys.stderr)
+        return EXIT_CONFIG
+    except AuthorizationError as exc:
         if debug:
             raise
         print(f"isentrope: configuration error: {exc}", file=sys.stderr)

@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
-from isentrope.daemon.stores.base import FatalStoreError, StoreError, TemporaryStoreError
+from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, StoreError, TemporaryStoreError
 
 __all__ = [
     "ConfigError",
+    "AuthorizationError",
     "StoreError",
     "TemporaryStoreError",
     "FatalStoreError",

@@ -1,6 +1,6 @@
 """Stores: where raw plant samples are read and results, checkpoints and alarm state written."""
 
-from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
 
 #: ``[store] kind`` -> "module:class" of the implementation (imported on first use).
 STORE_KINDS = {
@@ -20,4 +20,11 @@ def open_store(kind: str, **options) -> Store:
     return getattr(importlib.import_module(module), cls)(**options)
 
 
-__all__ = ["Store", "TemporaryStoreError", "FatalStoreError", "open_store", "STORE_KINDS"]
+__all__ = [
+    "AuthorizationError",
+    "Store",
+    "TemporaryStoreError",
+    "FatalStoreError",
+    "open_store",
+    "STORE_KINDS",
+]

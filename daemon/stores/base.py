@@ -46,6 +46,12 @@ class FatalStoreError(StoreError):
     """Retrying will not help: bad credentials, missing database or bucket, malformed request."""
 
 
+class AuthorizationError(FatalStoreError):
+    """The server refused the credentials (401) or what they allow (403): a configuration error,
+    never retried as an outage. The message names the store key and what the token lacks and
+    never shows the token."""
+
+
 class Store(ABC):
     """Abstract store. Subclasses implement the raw I/O; conversion lives here."""
 

@@ -223,8 +223,9 @@ class Influx1Store(LineProtocolWriter, Store):
         series = {role: (pd.concat(ps) if ps else None) for role, ps in parts.items()}
         return common.role_frame(mappings, {k: v for k, v in series.items() if v is not None})
 
-    def _send_batch(self, text: str, what: str) -> None:
-        """One batch of line protocol to /write (``LineProtocolWriter`` does the batching)."""
+    def _send_batch(self, text: str, what: str, target: str) -> None:
+        """One batch of line protocol to /write (``LineProtocolWriter`` does the batching); one
+        database for every ``target``."""
         params = {"db": self.database, "precision": "ns"}
         if self.retention_policy:
             params["rp"] = self.retention_policy
