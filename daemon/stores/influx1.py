@@ -42,6 +42,7 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LineProtocolWriter,
     StateClock,
+    authorization_error,
     classify_http,
     state_line,
     time_windows,
@@ -109,10 +110,15 @@ class Influx1Store(LineProtocolWriter, Store):
         self._session = requests.Session()
         self._session.verify = verify_ssl
         self._session.headers["User-Agent"] = "isentrope"
+        self._secrets = [s for s in (token, password) if s]
         if token:
             self._session.headers["Authorization"] = f"Token {token}"
+            self._credentials = "[store] token (or token_file)"
         elif username:
             self._session.auth = (username, password)
+            self._credentials = "[store] username and password (or password_file)"
+        else:
+            self._credentials = "[store] (none given: set token, or username and password)"
 
     def __repr__(self) -> str:  # never the password or token
         return f"Influx1Store(url={self.url!r}, database={self.database!r}, retention_policy={self.retention_policy!r})"
@@ -126,9 +132,18 @@ class Influx1Store(LineProtocolWriter, Store):
         except requests.RequestException as exc:
             raise FatalStoreError(f"{what}: {self.url}: {exc}") from None
         if resp.status_code >= 300:
-            raise classify_http(
-                resp.status_code, resp.text, f"{what} ({self.url}, database {self.database!r})"
-            )
+            where = f"{what} ({self.url}, database {self.database!r})"
+            if resp.status_code in (401, 403):
+                access = "write" if path == "/write" else "read"
+                raise authorization_error(
+                    resp.status_code,
+                    resp.text,
+                    where,
+                    self._credentials,
+                    f"{access} access to database {self.database!r} ([store] database)",
+                    secrets=self._secrets,
+                )
+            raise classify_http(resp.status_code, resp.text, where)
         return resp
 
     def _from(self, measurement: str) -> str:
