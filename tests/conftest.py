@@ -93,7 +93,43 @@ def influxd_version(binary: str) -> str:
     return "unknown"
 
 
-class InfluxServer:
+class _ServerProcess:
+    """What both server classes share: the process (``_proc``), its log (``log_path``)."""
+
+    _proc: subprocess.Popen | None = None
+    log_path: Path
+
+    @property
+    def running(self) -> bool:
+        return self._proc is not None and self._proc.poll() is None
+
+    def stop(self, timeout: float = 30.0) -> None:
+        """Stop the server (SIGTERM, then SIGKILL); data stays for ``start()``."""
+        if self._proc is None:
+            return
+        if self._proc.poll() is None:
+            self._proc.send_signal(signal.SIGTERM)
+            try:
+                self._proc.wait(timeout)
+            except subprocess.TimeoutExpired:
+                self._proc.kill()
+                self._proc.wait(timeout)
+        self._proc = None
+
+    def kill(self) -> None:
+        if self._proc is not None and self._proc.poll() is None:
+            self._proc.kill()
+            self._proc.wait(30)
+        self._proc = None
+
+    def log_tail(self, lines: int = 30) -> str:
+        try:
+            return "\n".join(self.log_path.read_text(errors="replace").splitlines()[-lines:])
+        except OSError:
+            return "(no log)"
+
+
+class InfluxServer(_ServerProcess):
     """One influxd process on loopback ports, in its own temporary directory."""
 
     def __init__(self, binary: str, root: Path, *, flux: bool, auth: bool = False):
@@ -143,10 +179,6 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         )
 
     # --- process -------------------------------------------------------------------------
-    @property
-    def running(self) -> bool:
-        return self._proc is not None and self._proc.poll() is None
-
     def ping(self, timeout: float = 1.0) -> bool:
         try:
             with urllib.request.urlopen(self.url + "/ping", timeout=timeout) as resp:
@@ -180,31 +212,6 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         raise RuntimeError(
             f"influxd did not answer /ping on {self.url} within {timeout} s:\n{self.log_tail()}"
         )
-
-    def stop(self, timeout: float = 30.0) -> None:
-        """Stop the server (SIGTERM, then SIGKILL); data stays for ``start()``."""
-        if self._proc is None:
-            return
-        if self._proc.poll() is None:
-            self._proc.send_signal(signal.SIGTERM)
-            try:
-                self._proc.wait(timeout)
-            except subprocess.TimeoutExpired:
-                self._proc.kill()
-                self._proc.wait(timeout)
-        self._proc = None
-
-    def kill(self) -> None:
-        if self._proc is not None and self._proc.poll() is None:
-            self._proc.kill()
-            self._proc.wait(30)
-        self._proc = None
-
-    def log_tail(self, lines: int = 30) -> str:
-        try:
-            return "\n".join(self.log_path.read_text(errors="replace").splitlines()[-lines:])
-        except OSError:
-            return "(no log)"
 
     # --- helpers -------------------------------------------------------------------------
     def query(self, q: str, db: str | None = None, auth: tuple[str, str] | None = None) -> dict:
@@ -280,7 +287,7 @@ def influxdb_v2(_influx_tmp):
     server.kill()
 
 
-class Influx2xServer:
+class Influx2xServer(_ServerProcess):
     """One InfluxDB 2.x influxd on a loopback port, in its own temporary directory, set up with
     a user, an organisation and an operator token (all permissions; for the fixture only)."""
 
@@ -300,10 +307,6 @@ class Influx2xServer:
         self._names = itertools.count(1)
 
     # --- process -------------------------------------------------------------------------
-    @property
-    def running(self) -> bool:
-        return self._proc is not None and self._proc.poll() is None
-
     def ping(self, timeout: float = 1.0) -> bool:
         try:
             with urllib.request.urlopen(self.url + "/health", timeout=timeout) as resp:
@@ -371,10 +374,6 @@ class Influx2xServer:
             token=None,
         )
         self.org_id = body["org"]["id"]
-
-    stop = InfluxServer.stop
-    kill = InfluxServer.kill
-    log_tail = InfluxServer.log_tail
 
     # --- API -----------------------------------------------------------------------------
     def request(

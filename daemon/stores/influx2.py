@@ -220,7 +220,9 @@ class Influx2Store(LineProtocolWriter, Store):
             body = getattr(exc, "message", "") or str(exc)
             if not status:
                 return TemporaryStoreError(f"{where}: {type(exc).__name__}")
-        if status in (401, 403):
+        lower = (body or "").lower()
+        missing = status == 404 and "bucket" in lower and ("not found" in lower or "could not find" in lower)
+        if status in (401, 403) or (missing and self._token):
             needs = f"{access} access to bucket {bucket!r} ({self._bucket_key(target)}) in org {self.org!r} ([store] org)"
             return authorization_error(
                 status, body, where, "[store] token (or token_file)", needs, secrets=[self._token]

@@ -91,7 +91,9 @@ def authorization_error(
     status: int, body: str, what: str, credentials: str, needs: str, secrets: Sequence[str] = ()
 ) -> AuthorizationError:
     """The error of a 401 or 403 answer: a configuration error (nothing a retry changes) that names
-    the configuration keys of the credentials and what they lack, and never shows a secret.
+    the configuration keys of the credentials and what they lack, and never shows a secret. Also
+    for a 404 "bucket not found" of InfluxDB 2.x to a token: it answers so both for a bucket that
+    does not exist and for one the token may not read (measured on 2.9.1).
 
     ``credentials``: where the credentials are configured ("[store] token or token_file");
     ``needs``: what the call needs ("read access to bucket 'plant' ([store] bucket)");
@@ -104,7 +106,12 @@ def authorization_error(
     if status == 401:
         lacks = (
             f"the server did not accept the credentials of {credentials} (wrong, expired, revoked or "
-            f"not given); {what} needs {needs}"
+            f"not given); the call needs {needs}"
+        )
+    elif status == 404:
+        lacks = (
+            f"{needs} failed: the bucket does not exist, or the credentials of {credentials} may not "
+            "see it (the server gives the same answer for both)"
         )
     else:
         lacks = f"the credentials of {credentials} are valid but lack {needs}"

@@ -26,17 +26,10 @@ def buckets(influxdb_2x):
 
 
 def _store(server, w, token, **o):
-    return open_store(
-        "influx2",
-        url=server.url,
-        org=server.ORG,
-        bucket=w.raw,
-        results_bucket=w.results,
-        token=token,
-        timeout=5,
-        retries=0,
-        **o,
+    options = dict(
+        url=server.url, org=server.ORG, bucket=w.raw, results_bucket=w.results, timeout=5, retries=0
     )
+    return open_store("influx2", token=token, **{**options, **o})
 
 
 def _refused(exc_info, token, *words):
