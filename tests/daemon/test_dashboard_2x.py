@@ -81,7 +81,7 @@ def demo_on_2x(influxdb_2x, tmp_path_factory):
     finally:
         store.close()
     dash_token = server.new_token("dashboard", read=(w.results_id,))
-    return server, w.results, dash_token, config.unit.name, start, end
+    return server, w.results, dash_token, config.unit.name, start
 
 
 def _influxql(server, bucket: str, token: str, q: str) -> dict:
@@ -99,15 +99,18 @@ def _influxql(server, bucket: str, token: str, q: str) -> dict:
     return body
 
 
-def _fill(q: str, unit: str, start: pd.Timestamp, end: pd.Timestamp) -> str:
-    """The query as a dashboard sends it: the unit chosen, the time range the whole history."""
-    window = f"time >= '{start:%Y-%m-%dT%H:%M:%SZ}' AND time < '{end:%Y-%m-%dT%H:%M:%SZ}'"
+def _fill(q: str, unit: str, start: pd.Timestamp) -> str:
+    """The query as a dashboard sends it: the unit chosen, the time range from the start of the
+    history to now (the heartbeat rows carry the wall-clock time of the run), both ends
+    included as in a dashboard's time filter."""
+    now = pd.Timestamp.now(tz="UTC") + pd.Timedelta("1h")
+    window = f"time >= {start.value // 1_000_000}ms AND time <= {now.value // 1_000_000}ms"
     return q.replace("$unit", re.escape(unit)).replace("$timeFilter", window)
 
 
 @pytest.mark.influx
 def test_unit_variable_lists_the_unit(demo_on_2x):
-    server, bucket, token, unit, start, end = demo_on_2x
+    server, bucket, token, unit, start = demo_on_2x
     dash = json.loads(DASHBOARD.read_text())
     (variable,) = [v for v in dash["templating"]["list"] if v["name"] == "unit"]
     body = _influxql(server, bucket, token, variable["query"])
@@ -117,13 +120,13 @@ def test_unit_variable_lists_the_unit(demo_on_2x):
 
 @pytest.mark.influx
 def test_every_panel_query_returns_its_series(demo_on_2x):
-    server, bucket, token, unit, start, end = demo_on_2x
+    server, bucket, token, unit, start = demo_on_2x
     dash = json.loads(DASHBOARD.read_text())
     targets = list(_targets(dash))
     assert len(targets) >= 20
     empty = []
     for title, target in targets:
-        q = _fill(target["query"], unit, start, end)
+        q = _fill(target["query"], unit, start)
         series = _influxql(server, bucket, token, q)["results"][0].get("series", [])
         if not series:
             empty.append(f"{title} [{target['refId']}]: no series for {q}")
@@ -137,7 +140,7 @@ def test_every_panel_query_returns_its_series(demo_on_2x):
 
 @pytest.mark.influx
 def test_the_dashboard_token_cannot_write(demo_on_2x):
-    server, bucket, token, unit, start, end = demo_on_2x
+    server, bucket, token, unit, start = demo_on_2x
     status, _ = server.request(
         "POST", "/write?" + urllib.parse.urlencode({"db": bucket}), b"probe value=1 0", token
     )
