@@ -159,8 +159,15 @@ class Influx1Store(LineProtocolWriter, Store):
         result = body.get("results", [{}])[0]
         if "error" in result:
             raise FatalStoreError(f"database {self.database!r} on {self.url}: {result['error']}")
+        names = [row[0] for s in result.get("series", []) for row in s.get("values", [])]
+        if not names:
+            # InfluxDB 2.x answers a database (bucket) that does not exist, or that the token
+            # may not read, with no retention policy and no error (measured on 2.9.1)
+            raise FatalStoreError(
+                f"database {self.database!r} ([store] database) on {self.url} has no retention policy: it "
+                "does not exist, or the credentials may not read it"
+            )
         if self.retention_policy:
-            names = [row[0] for s in result.get("series", []) for row in s.get("values", [])]
             if self.retention_policy not in names:
                 raise FatalStoreError(
                     f"retention policy {self.retention_policy!r} not found in database {self.database!r}; found {names}"

@@ -452,6 +452,10 @@ def test_missing_database_is_fatal(case, tmp_path):
     if case.name.startswith("influx1"):
         with pytest.raises(FatalStoreError):
             case.other(retention_policy="no_such_rp").read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+        with pytest.raises(FatalStoreError):  # the database's default policy: still found missing
+            case.other(database="no_such_db", retention_policy="").read_raw(
+                mappings(), T0, T0 + pd.Timedelta("1h")
+            )
     wrong.close()
 
 
