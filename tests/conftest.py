@@ -60,7 +60,7 @@ HOW_TO_GET = {
     "(or set ISENTROPE_INFLUXD_V1 to an influxd 1.x binary)",
     "v2": "build it: `bash deploy/servers/influxd-1.8.10.sh` "
     "(or set ISENTROPE_INFLUXD_18 to an influxd 1.8.x binary)",
-    "2x": "build it: `bash deploy/servers/influxd-2.9.1.sh` (about 5 minutes cold; needs go and cargo) "
+    "2x": "build it: `bash deploy/servers/influxd-2.9.1.sh` (11 minutes or more cold; needs go and cargo) "
     "(or set ISENTROPE_INFLUXD_2X to an influxd 2.x binary)",
 }
 
