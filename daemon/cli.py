@@ -1,8 +1,8 @@
 """The `isentrope` command line.
 
-Exit codes: 0 ok, 2 configuration error (a refused TLS certificate included), 3 store
-unreachable, 1 anything else. Errors are one clear line on stderr, not a traceback, unless
-``--debug`` is given. Every error line, log line and traceback goes through
+Exit codes: 0 ok, 2 configuration error (a refused TLS certificate, and the store refusing the
+credentials or their rights, 401/403, included), 3 store unreachable, 1 anything else. Errors
+are one clear line on stderr, not a traceback, unless ``--debug`` is given. Every error line, log line and traceback goes through
 ``isentrope.daemon.redact`` first: no configured secret leaves the process.
 """
 
@@ -22,6 +22,7 @@ from isentrope.daemon.errors import (
     EXIT_OK,
     EXIT_OTHER,
     EXIT_UNREACHABLE,
+    AuthorizationError,
     CertificateError,
     ConfigError,
     FatalStoreError,
@@ -97,6 +98,7 @@ def main(argv: list[str] | None = None) -> int:
 _EXITS = (
     (ConfigError, EXIT_CONFIG, "configuration error"),
     (CertificateError, EXIT_CONFIG, "configuration error"),
+    (AuthorizationError, EXIT_CONFIG, "configuration error"),
     (TemporaryStoreError, EXIT_UNREACHABLE, "store unreachable"),
     ((FatalStoreError, OSError, ValueError, RuntimeError), EXIT_OTHER, "error"),
 )

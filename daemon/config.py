@@ -51,6 +51,7 @@ import pandas as pd
 from isentrope.daemon.errors import ConfigError
 from isentrope.daemon.redact import remember
 from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
+from isentrope.daemon.stores import escape
 
 __all__ = [
     "Config",
@@ -172,7 +173,8 @@ class UnitConfig:
 class StoreConfig:
     """Where raw samples are read and results written.
 
-    sqlite: ``path``. influx2: ``url``, ``org``, ``bucket``, ``token``. influx1: ``url``,
+    sqlite: ``path``. influx2: ``url``, ``org``, ``bucket`` (raw samples), ``results_bucket``
+    (results, checkpoints and state; empty: ``bucket``), ``token``. influx1: ``url``,
     ``database``, ``retention_policy``, ``username``/``password`` or ``token``. Both InfluxDB
     kinds: ``verify_ssl``, ``ca_bundle`` (PEM file of the CAs to trust; the environment's CA
     settings are never read), ``timeout``, ``batch_size``.
@@ -183,6 +185,7 @@ class StoreConfig:
     url: str = ""
     org: str = ""
     bucket: str = ""
+    results_bucket: str = ""
     database: str = ""
     retention_policy: str = ""
     username: str = ""
@@ -222,6 +225,8 @@ class StoreConfig:
         }
         if self.kind == "influx2":
             opts.update(org=self.org, bucket=self.bucket, token=self.token.reveal() if self.token else "")
+            if self.results_bucket:
+                opts["results_bucket"] = self.results_bucket
         else:
             opts.update(database=self.database, retention_policy=self.retention_policy)
             if self.token is not None:
@@ -889,6 +894,7 @@ _STORE_KEYS = {
         "url",
         "org",
         "bucket",
+        "results_bucket",
         "token",
         "token_file",
         "verify_ssl",
@@ -972,10 +978,25 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
     if kind == "influx2":
         org = r.value(d, p + ("org",), "str")
         bucket = r.value(d, p + ("bucket",), "str")
+        results_bucket = r.value(d, p + ("results_bucket",), "str", default="")
+        key_given = "results_bucket" in d  # given empty is a mistake; left out means 'bucket'
+        for key, name in (("bucket", bucket), ("results_bucket", results_bucket if key_given else None)):
+            if name is not None:
+                try:
+                    escape.check_name(name, key)
+                except ValueError as exc:
+                    r.problem(p + (key,), str(exc))
         token = _secret(r, d, p + ("token",), base_dir, environ)
         if token is None and "token" not in d and "token_file" not in d:
             r.problem(p + ("token",), "missing required key 'token' (or 'token_file')")
-        return StoreConfig(kind=kind, org=org or "", bucket=bucket or "", token=token, **common)
+        return StoreConfig(
+            kind=kind,
+            org=org or "",
+            bucket=bucket or "",
+            results_bucket=results_bucket or "",
+            token=token,
+            **common,
+        )
     database = r.value(d, p + ("database",), "str")
     token = _secret(r, d, p + ("token",), base_dir, environ)
     password = _secret(r, d, p + ("password",), base_dir, environ)

@@ -2,10 +2,17 @@
 
 from __future__ import annotations
 
-from isentrope.daemon.stores.base import CertificateError, FatalStoreError, StoreError, TemporaryStoreError
+from isentrope.daemon.stores.base import (
+    AuthorizationError,
+    CertificateError,
+    FatalStoreError,
+    StoreError,
+    TemporaryStoreError,
+)
 
 __all__ = [
     "ConfigError",
+    "AuthorizationError",
     "StoreError",
     "TemporaryStoreError",
     "FatalStoreError",

@@ -47,7 +47,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
 
 logger = logging.getLogger("isentrope.worker")
 
@@ -757,11 +757,15 @@ class Worker:
         )
 
     def _heartbeat(self, report: CycleReport) -> None:
-        """One row of ``worker_status``; a failure here is logged and never ends the worker."""
+        """One row of ``worker_status``; a failure here is logged and never ends the worker,
+        except a refused token or permission (``AuthorizationError``): a configuration error
+        that every later cycle would meet too."""
         last = report.checkpoint
         if last is None:
             try:
                 last = self.store.get_checkpoint(self.checkpoint_name)
+            except AuthorizationError:
+                raise
             except (TemporaryStoreError, FatalStoreError):
                 last = None
         lag = (report.started - last).total_seconds() if last is not None else np.nan
@@ -782,6 +786,8 @@ class Worker:
         )
         try:
             self.store.write_results(STATUS_MEASUREMENT, row, {**self.tags, "worker": self.checkpoint_name})
+        except AuthorizationError:
+            raise
         except (TemporaryStoreError, FatalStoreError) as exc:
             logger.warning(
                 "unit %s: heartbeat at %s not written: %s", self.unit, report.started.isoformat(), exc

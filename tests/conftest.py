@@ -14,8 +14,18 @@ and killed at the end of the session. The yielded ``InfluxServer`` has ``url``, 
 ``version``, ``port`` and helpers: ``stop()``, ``start()`` (same ports and data, for fault
 tests), ``query(q, db=None)``, ``new_database(prefix)`` and ``bucket(db)``.
 
-Binaries come from ``ISENTROPE_INFLUXD_V1`` (default /usr/bin/influxd) and
-``ISENTROPE_INFLUXD_18`` (default /var/cache/isentrope/influxd-1.8.10/influxd). When one is
+``influxdb_2x``: InfluxDB 2.9.1 (``Influx2xServer``): organisation, buckets, token
+authorisation, /api/v2/write, Flux on /api/v2/query, /api/v2/delete, and the v1 endpoints
+/query and /write. Started on a free 127.0.0.1 port in a temporary directory with usage
+reporting off, waited for on /health, set up through ``POST /api/v2/setup`` (user, org, first
+bucket, operator token). ``new_bucket(prefix)`` creates a bucket and ``new_token(read=...,
+write=...)`` a token with exactly those bucket permissions; ``worker_buckets(prefix)`` gives a
+raw bucket, a results bucket and the worker's least-privilege token (read on raw; read and
+write on results), plus a loader token that may write raw samples.
+
+Binaries come from ``ISENTROPE_INFLUXD_V1`` (default /usr/bin/influxd),
+``ISENTROPE_INFLUXD_18`` (default /var/cache/isentrope/influxd-1.8.10/influxd) and
+``ISENTROPE_INFLUXD_2X`` (default /var/cache/isentrope/influxd-2.9.1/influxd). When one is
 missing the tests that need it skip with a message saying how to get it, unless
 ``ISENTROPE_REQUIRE_INFLUX`` is set (CI sets it), in which case they fail.
 """
@@ -36,11 +46,13 @@ import urllib.error
 import urllib.parse
 import urllib.request
 from pathlib import Path
+from types import SimpleNamespace
 
 import pytest
 
 INFLUXD_V1 = os.environ.get("ISENTROPE_INFLUXD_V1", "/usr/bin/influxd")
 INFLUXD_18 = os.environ.get("ISENTROPE_INFLUXD_18", "/var/cache/isentrope/influxd-1.8.10/influxd")
+INFLUXD_2X = os.environ.get("ISENTROPE_INFLUXD_2X", "/var/cache/isentrope/influxd-2.9.1/influxd")
 INFLUX_CLI = os.environ.get("ISENTROPE_INFLUX_CLI", "/usr/bin/influx")
 
 HOW_TO_GET = {
@@ -48,6 +60,8 @@ HOW_TO_GET = {
     "(or set ISENTROPE_INFLUXD_V1 to an influxd 1.x binary)",
     "v2": "build it: `bash deploy/servers/influxd-1.8.10.sh` "
     "(or set ISENTROPE_INFLUXD_18 to an influxd 1.8.x binary)",
+    "2x": "build it: `bash deploy/servers/influxd-2.9.1.sh` (11 minutes or more cold; needs go and cargo) "
+    "(or set ISENTROPE_INFLUXD_2X to an influxd 2.x binary)",
 }
 
 
@@ -79,7 +93,43 @@ def influxd_version(binary: str) -> str:
     return "unknown"
 
 
-class InfluxServer:
+class _ServerProcess:
+    """What both server classes share: the process (``_proc``), its log (``log_path``)."""
+
+    _proc: subprocess.Popen | None = None
+    log_path: Path
+
+    @property
+    def running(self) -> bool:
+        return self._proc is not None and self._proc.poll() is None
+
+    def stop(self, timeout: float = 30.0) -> None:
+        """Stop the server (SIGTERM, then SIGKILL); data stays for ``start()``."""
+        if self._proc is None:
+            return
+        if self._proc.poll() is None:
+            self._proc.send_signal(signal.SIGTERM)
+            try:
+                self._proc.wait(timeout)
+            except subprocess.TimeoutExpired:
+                self._proc.kill()
+                self._proc.wait(timeout)
+        self._proc = None
+
+    def kill(self) -> None:
+        if self._proc is not None and self._proc.poll() is None:
+            self._proc.kill()
+            self._proc.wait(30)
+        self._proc = None
+
+    def log_tail(self, lines: int = 30) -> str:
+        try:
+            return "\n".join(self.log_path.read_text(errors="replace").splitlines()[-lines:])
+        except OSError:
+            return "(no log)"
+
+
+class InfluxServer(_ServerProcess):
     """One influxd process on loopback ports, in its own temporary directory."""
 
     def __init__(self, binary: str, root: Path, *, flux: bool, auth: bool = False):
@@ -129,10 +179,6 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         )
 
     # --- process -------------------------------------------------------------------------
-    @property
-    def running(self) -> bool:
-        return self._proc is not None and self._proc.poll() is None
-
     def ping(self, timeout: float = 1.0) -> bool:
         try:
             with urllib.request.urlopen(self.url + "/ping", timeout=timeout) as resp:
@@ -166,31 +212,6 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         raise RuntimeError(
             f"influxd did not answer /ping on {self.url} within {timeout} s:\n{self.log_tail()}"
         )
-
-    def stop(self, timeout: float = 30.0) -> None:
-        """Stop the server (SIGTERM, then SIGKILL); data stays for ``start()``."""
-        if self._proc is None:
-            return
-        if self._proc.poll() is None:
-            self._proc.send_signal(signal.SIGTERM)
-            try:
-                self._proc.wait(timeout)
-            except subprocess.TimeoutExpired:
-                self._proc.kill()
-                self._proc.wait(timeout)
-        self._proc = None
-
-    def kill(self) -> None:
-        if self._proc is not None and self._proc.poll() is None:
-            self._proc.kill()
-            self._proc.wait(30)
-        self._proc = None
-
-    def log_tail(self, lines: int = 30) -> str:
-        try:
-            return "\n".join(self.log_path.read_text(errors="replace").splitlines()[-lines:])
-        except OSError:
-            return "(no log)"
 
     # --- helpers -------------------------------------------------------------------------
     def query(self, q: str, db: str | None = None, auth: tuple[str, str] | None = None) -> dict:
@@ -262,6 +283,192 @@ def influxdb_v2(_influx_tmp):
     root = _influx_tmp / "v18"
     root.mkdir()
     server = start_influxd("v2", INFLUXD_18, root, flux=True)
+    yield server
+    server.kill()
+
+
+class Influx2xServer(_ServerProcess):
+    """One InfluxDB 2.x influxd on a loopback port, in its own temporary directory, set up with
+    a user, an organisation and an operator token (all permissions; for the fixture only)."""
+
+    ORG = "brackwater"
+    USER = "fixture-admin"
+
+    def __init__(self, binary: str, root: Path):
+        self.binary = binary
+        self.version = influxd_version(binary)
+        self.root = Path(root)
+        self.port = free_port()
+        self.url = f"http://127.0.0.1:{self.port}"
+        self.log_path = self.root / "influxd.log"
+        self.operator_token = "fixture-operator-" + base64.b32encode(os.urandom(15)).decode().lower()
+        self.org_id = ""
+        self._proc: subprocess.Popen | None = None
+        self._names = itertools.count(1)
+
+    # --- process -------------------------------------------------------------------------
+    def ping(self, timeout: float = 1.0) -> bool:
+        try:
+            with urllib.request.urlopen(self.url + "/health", timeout=timeout) as resp:
+                return resp.status == 200
+        except (urllib.error.URLError, OSError):
+            return False
+
+    def start(self, timeout: float = 120.0) -> Influx2xServer:
+        """Start (or restart after ``stop()``) on the same port and data; wait for /health;
+        set up user, org and operator token on the first start."""
+        if self.running:
+            return self
+        r = self.root
+        log = open(self.log_path, "ab")
+        try:
+            self._proc = subprocess.Popen(
+                [
+                    self.binary,
+                    "--bolt-path",
+                    str(r / "influxd.bolt"),
+                    "--engine-path",
+                    str(r / "engine"),
+                    "--sqlite-path",
+                    str(r / "influxd.sqlite"),
+                    "--http-bind-address",
+                    f"127.0.0.1:{self.port}",
+                    "--reporting-disabled",
+                    "--log-level",
+                    "warn",
+                ],
+                stdout=log,
+                stderr=subprocess.STDOUT,
+                stdin=subprocess.DEVNULL,
+                start_new_session=True,
+            )
+        finally:
+            log.close()
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            if self._proc.poll() is not None:
+                raise RuntimeError(f"influxd exited with {self._proc.returncode}:\n{self.log_tail()}")
+            if self.ping():
+                break
+            time.sleep(0.05)
+        else:
+            self.kill()
+            raise RuntimeError(
+                f"influxd did not answer /health on {self.url} within {timeout} s:\n{self.log_tail()}"
+            )
+        if not self.org_id:
+            self._setup()
+        return self
+
+    def _setup(self) -> None:
+        body = self.api(
+            "POST",
+            "/api/v2/setup",
+            {
+                "username": self.USER,
+                "password": "fixture-password-" + os.urandom(6).hex(),
+                "org": self.ORG,
+                "bucket": "setup",
+                "token": self.operator_token,
+            },
+            token=None,
+        )
+        self.org_id = body["org"]["id"]
+
+    # --- API -----------------------------------------------------------------------------
+    def request(
+        self, method: str, path: str, data: bytes | None = None, token: str | None = "", headers=None
+    ) -> tuple[int, bytes]:
+        """One HTTP request; ``token=""`` means the operator token, None no token. Returns
+        (status, body) for any status."""
+        req = urllib.request.Request(self.url + path, data=data, method=method)
+        token = self.operator_token if token == "" else token
+        if token is not None:
+            req.add_header("Authorization", f"Token {token}")
+        for k, v in (headers or {}).items():
+            req.add_header(k, v)
+        try:
+            with urllib.request.urlopen(req, timeout=30) as resp:
+                return resp.status, resp.read()
+        except urllib.error.HTTPError as exc:
+            return exc.code, exc.read()
+
+    def api(self, method: str, path: str, body: dict | None = None, token: str | None = "") -> dict:
+        """JSON API call; raises RuntimeError on a status of 300 or more."""
+        data = None if body is None else json.dumps(body).encode()
+        status, raw = self.request(method, path, data, token, {"Content-Type": "application/json"})
+        if status >= 300:
+            raise RuntimeError(f"{method} {path}: HTTP {status}: {raw[:500]!r}")
+        return json.loads(raw) if raw.strip() else {}
+
+    def new_bucket(self, prefix: str = "b") -> tuple[str, str]:
+        """A fresh bucket (kept forever); returns (name, id)."""
+        name = f"{prefix}_{os.getpid()}_{next(self._names)}"
+        body = self.api("POST", "/api/v2/buckets", {"orgID": self.org_id, "name": name, "retentionRules": []})
+        return name, body["id"]
+
+    def new_token(self, description: str, read: tuple[str, ...] = (), write: tuple[str, ...] = ()) -> str:
+        """A token of this org allowed exactly to read the buckets of ids ``read`` and write
+        those of ids ``write`` (what an operator would create for the worker)."""
+        permissions = [
+            {"action": action, "resource": {"type": "buckets", "id": bucket_id, "orgID": self.org_id}}
+            for action, ids in (("read", read), ("write", write))
+            for bucket_id in ids
+        ]
+        body = self.api(
+            "POST",
+            "/api/v2/authorizations",
+            {"orgID": self.org_id, "description": description, "permissions": permissions},
+        )
+        return body["token"]
+
+    def worker_buckets(self, prefix: str = "w") -> SimpleNamespace:
+        """A raw bucket, a results bucket and tokens for them: ``token`` (the worker's least
+        rights: read raw; read and write results) and ``loader`` (write raw, for tests that put
+        raw samples in as a plant's collector would)."""
+        raw, raw_id = self.new_bucket(prefix + "_raw")
+        results, results_id = self.new_bucket(prefix + "_results")
+        return SimpleNamespace(
+            raw=raw,
+            raw_id=raw_id,
+            results=results,
+            results_id=results_id,
+            token=self.new_token(f"{prefix} worker", read=(raw_id, results_id), write=(results_id,)),
+            loader=self.new_token(f"{prefix} loader", read=(raw_id,), write=(raw_id,)),
+        )
+
+    def flux(self, query: str, token: str | None = "") -> str:
+        """Run Flux through /api/v2/query; returns the annotated CSV (raises on HTTP errors)."""
+        status, raw = self.request(
+            "POST",
+            f"/api/v2/query?org={urllib.parse.quote(self.ORG)}",
+            json.dumps({"query": query, "type": "flux"}).encode(),
+            token,
+            {"Content-Type": "application/json", "Accept": "application/csv"},
+        )
+        if status >= 300:
+            raise RuntimeError(f"Flux query: HTTP {status}: {raw[:500]!r}")
+        return raw.decode()
+
+    def __repr__(self) -> str:
+        return f"Influx2xServer({self.version} at {self.url}, running={self.running})"
+
+
+@pytest.fixture(scope="session")
+def influxdb_2x(_influx_tmp):
+    """InfluxDB 2.9.1 with token authorisation, set up with an org and an operator token."""
+    root = _influx_tmp / "v2x"
+    root.mkdir()
+    if not (os.path.isfile(INFLUXD_2X) and os.access(INFLUXD_2X, os.X_OK)):
+        missing_server("2x", f"no influxd binary at {INFLUXD_2X}")
+    server = Influx2xServer(INFLUXD_2X, root)
+    if not server.version.startswith("2."):
+        missing_server("2x", f"{INFLUXD_2X} is influxd {server.version}, not 2.x")
+    try:
+        server.start()
+    except BaseException:
+        server.kill()
+        raise
     yield server
     server.kill()
 

@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.daemon.config import Config, load_config, parse_duration
-from isentrope.daemon.stores.base import CertificateError, FatalStoreError
+from isentrope.daemon.stores.base import AuthorizationError, CertificateError, FatalStoreError
 
 NAME = "check"
 HELP = "validate a configuration, connect to its store and check every mapped tag's recent data"
@@ -146,8 +146,8 @@ def read_roles(
     """
     try:
         return store.read_raw(list(mappings), start, end), {}
-    except CertificateError:
-        raise  # the store's configuration, no role's
+    except (CertificateError, AuthorizationError):
+        raise  # the store's configuration (its certificate, its credentials), no role's
     except FatalStoreError:
         pass
     frames, errors, first = [], {}, None

@@ -20,6 +20,7 @@ from isentrope.daemon.errors import (
     EXIT_OK,
     EXIT_OTHER,
     EXIT_UNREACHABLE,
+    AuthorizationError,
     CertificateError,
     FatalStoreError,
 )
@@ -86,6 +87,10 @@ def _serve(worker, config) -> int:
     def cycle():
         try:
             worker.run_cycle()  # temporary store trouble is handled (logged) inside
+        except AuthorizationError as exc:  # credentials or their rights: exit 2, not restarted
+            logger.error("unit %s: stopping the worker: configuration error: %s", config.unit.name, exc)
+            exit_code[0] = EXIT_CONFIG
+            stop.set()
         except FatalStoreError as exc:  # retrying will not help: stop with exit 1
             logger.error("unit %s: stopping the worker: %s", config.unit.name, exc)
             exit_code[0] = EXIT_CONFIG if isinstance(exc, CertificateError) else EXIT_OTHER

@@ -1,6 +1,6 @@
 """Stores: where raw plant samples are read and results, checkpoints and alarm state written."""
 
-from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
 
 #: ``[store] kind`` -> "module:class" of the implementation (imported on first use).
 STORE_KINDS = {
@@ -25,4 +25,12 @@ def open_store(kind: str, **options) -> Store:
     return store_class(kind)(**options)
 
 
-__all__ = ["Store", "TemporaryStoreError", "FatalStoreError", "open_store", "store_class", "STORE_KINDS"]
+__all__ = [
+    "AuthorizationError",
+    "Store",
+    "TemporaryStoreError",
+    "FatalStoreError",
+    "open_store",
+    "store_class",
+    "STORE_KINDS",
+]

@@ -61,6 +61,12 @@ class CertificateError(FatalStoreError):
     ``ca_bundle`` or ``verify_ssl``), never an outage; the command line exits 2."""
 
 
+class AuthorizationError(FatalStoreError):
+    """The server refused the credentials (401) or what they allow (403): a configuration error,
+    never retried as an outage. The message names the store key and what the token lacks and
+    never shows the token."""
+
+
 class Store(ABC):
     """Abstract store. Subclasses implement the raw I/O; conversion lives here."""
 

@@ -43,6 +43,7 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LineProtocolWriter,
     StateClock,
+    authorization_error,
     certificate_failure,
     classify_http,
     state_line,
@@ -121,8 +122,12 @@ class Influx1Store(LineProtocolWriter, Store):
         self._session.headers["User-Agent"] = "isentrope"
         if token:
             self._session.headers["Authorization"] = f"Token {token}"
+            self._credentials = "[store] token (or token_file)"
         elif username:
             self._session.auth = (username, password)
+            self._credentials = "[store] username and password (or password_file)"
+        else:
+            self._credentials = "[store] (none given: set token, or username and password)"
 
     def __repr__(self) -> str:  # never the password or token
         return f"Influx1Store(url={self.url!r}, database={self.database!r}, retention_policy={self.retention_policy!r})"
@@ -141,9 +146,17 @@ class Influx1Store(LineProtocolWriter, Store):
         except requests.RequestException as exc:
             raise FatalStoreError(f"{what}: {self.url}: {exc}") from None
         if resp.status_code >= 300:
-            raise classify_http(
-                resp.status_code, resp.text, f"{what} ({self.url}, database {self.database!r})"
-            )
+            where = f"{what} ({self.url}, database {self.database!r})"
+            if resp.status_code in (401, 403):
+                access = "write" if path == "/write" else "read"
+                raise authorization_error(
+                    resp.status_code,
+                    resp.text,
+                    where,
+                    self._credentials,
+                    f"{access} access to database {self.database!r} ([store] database)",
+                )
+            raise classify_http(resp.status_code, resp.text, where)
         return resp
 
     def _from(self, measurement: str) -> str:
@@ -159,8 +172,15 @@ class Influx1Store(LineProtocolWriter, Store):
         result = body.get("results", [{}])[0]
         if "error" in result:
             raise FatalStoreError(f"database {self.database!r} on {self.url}: {result['error']}")
+        names = [row[0] for s in result.get("series", []) for row in s.get("values", [])]
+        if not names:
+            # InfluxDB 2.x answers a database (bucket) that does not exist, or that the token
+            # may not read, with no retention policy and no error (measured on 2.9.1)
+            raise FatalStoreError(
+                f"database {self.database!r} ([store] database) on {self.url} has no retention policy: it "
+                "does not exist, or the credentials may not read it"
+            )
         if self.retention_policy:
-            names = [row[0] for s in result.get("series", []) for row in s.get("values", [])]
             if self.retention_policy not in names:
                 raise FatalStoreError(
                     f"retention policy {self.retention_policy!r} not found in database {self.database!r}; found {names}"
@@ -297,8 +317,9 @@ class Influx1Store(LineProtocolWriter, Store):
             for role, ps in parts.items()
         }
 
-    def _send_batch(self, text: str, what: str) -> None:
-        """One batch of line protocol to /write (``LineProtocolWriter`` does the batching)."""
+    def _send_batch(self, text: str, what: str, target: str) -> None:
+        """One batch of line protocol to /write (``LineProtocolWriter`` does the batching); one
+        database for every ``target``."""
         params = {"db": self.database, "precision": "ns"}
         if self.retention_policy:
             params["rp"] = self.retention_policy

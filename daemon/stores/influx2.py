@@ -1,8 +1,15 @@
 """InfluxDB through its v2 HTTP API (influxdb-client): Flux reads, line protocol writes.
 
-Tested against influxd 1.8.10 with ``flux-enabled = true`` (org ignored, bucket
-``"database/retention_policy"``, token ``"user:password"`` or empty when auth is off); the same
-calls serve InfluxDB 2.x.
+Tested against InfluxDB 2.9.1 (organisation, buckets, a token with read access to the raw
+bucket and read/write access to the results bucket) and against influxd 1.8.10 with
+``flux-enabled = true`` (org ignored, bucket ``"database/retention_policy"``, token
+``"user:password"`` or empty when auth is off).
+
+Buckets: raw samples are read from (and ``write_raw`` writes to) ``bucket``; results,
+checkpoints and state go to ``results_bucket`` (``bucket`` when not given).
+
+Authorisation: a 401 or 403 raises ``AuthorizationError`` (a ``FatalStoreError``, never retried)
+naming the bucket, its configuration key and the access the call needed.
 
 Reads: one Flux query per group of roles sharing a measurement and tag filters::
 
@@ -62,9 +69,12 @@ from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
+    RAW,
+    RESULTS,
     STATE_MEASUREMENT,
     LineProtocolWriter,
     StateClock,
+    authorization_error,
     certificate_detail,
     certificate_failure,
     classify_http,
@@ -109,7 +119,11 @@ class Influx2Store(LineProtocolWriter, Store):
     org : str
         Organisation (ignored by 1.8 servers).
     bucket : str
-        Bucket with raw samples and results (``"db/rp"`` on 1.8).
+        Bucket with the raw samples (``"db/rp"`` on 1.8); also the results' unless
+        ``results_bucket`` is given.
+    results_bucket : str, optional
+        Bucket receiving results, checkpoints and state (empty: ``bucket``). A worker's token
+        then needs read access to ``bucket`` and read and write access to ``results_bucket``.
     token : str, optional
         API token (``"user:password"`` on 1.8 with auth on).
     token_env, token_file : str, optional
@@ -145,10 +159,13 @@ class Influx2Store(LineProtocolWriter, Store):
         retries: int = 2,
         read_chunk: str | pd.Timedelta = "31D",
         ca_bundle: str = "",
+        results_bucket: str = "",
     ):
         if not url.startswith(("http://", "https://")):
             raise ValueError(f"url {url!r} must start with http:// or https://")
         escape.check_name(bucket, "bucket")
+        if results_bucket:
+            escape.check_name(results_bucket, "results_bucket")
         if batch_size < 1:
             raise ValueError(f"batch_size must be at least 1, found {batch_size}")
         if not token and token_env:
@@ -163,6 +180,8 @@ class Influx2Store(LineProtocolWriter, Store):
         self.url = url.rstrip("/")
         self.org = org
         self.bucket = bucket
+        self.results_bucket = results_bucket or bucket
+        self._token = token
         self.timeout = float(timeout)
         self.batch_size = int(batch_size)
         self.read_chunk = pd.Timedelta(read_chunk)
@@ -191,25 +210,47 @@ class Influx2Store(LineProtocolWriter, Store):
         self._query_api = self._client.query_api()
 
     def __repr__(self) -> str:  # never the token
-        return f"Influx2Store(url={self.url!r}, org={self.org!r}, bucket={self.bucket!r})"
+        results = f", results_bucket={self.results_bucket!r}" if self.results_bucket != self.bucket else ""
+        return f"Influx2Store(url={self.url!r}, org={self.org!r}, bucket={self.bucket!r}{results})"
+
+    def _bucket(self, target: str) -> str:
+        return self.bucket if target == RAW else self.results_bucket
+
+    def _bucket_key(self, target: str) -> str:
+        """The configuration key naming the bucket of ``target``."""
+        return (
+            "[store] bucket"
+            if target == RAW or self.results_bucket == self.bucket
+            else "[store] results_bucket"
+        )
 
     # --- errors --------------------------------------------------------------------------
-    def _error(self, exc: Exception, what: str) -> Exception:
-        where = f"{what} ({self.url}, bucket {self.bucket!r})"
+    def _error(self, exc: Exception, what: str, target: str = RAW, access: str = "read") -> Exception:
+        """The store error for an exception of the client while ``what`` needed ``access``
+        ("read" or "write") to the bucket of ``target``."""
+        bucket = self._bucket(target)
+        where = f"{what} ({self.url}, bucket {bucket!r})"
         cert = certificate_failure(exc, where)
         if cert is not None:
             return cert
+        status, body = None, ""
         if isinstance(exc, ApiException):
-            body = exc.body
+            status, body = exc.status, exc.body
             if isinstance(body, bytes):
                 body = body.decode("utf-8", "replace")
-            return classify_http(exc.status or 0, body or str(exc.reason), where)
-        if isinstance(exc, InfluxDBError):
-            resp = getattr(exc, "response", None)
-            status = getattr(resp, "status", None)
-            if status:
-                return classify_http(status, getattr(exc, "message", "") or str(exc), where)
-            return TemporaryStoreError(f"{where}: {type(exc).__name__}")
+            body = body or str(exc.reason)
+        elif isinstance(exc, InfluxDBError):
+            status = getattr(getattr(exc, "response", None), "status", None)
+            body = getattr(exc, "message", "") or str(exc)
+            if not status:
+                return TemporaryStoreError(f"{where}: {type(exc).__name__}")
+        lower = (body or "").lower()
+        missing = status == 404 and "bucket" in lower and ("not found" in lower or "could not find" in lower)
+        if status in (401, 403) or (missing and self._token):
+            needs = f"{access} access to bucket {bucket!r} ({self._bucket_key(target)}) in org {self.org!r} ([store] org)"
+            return authorization_error(status, body, where, "[store] token (or token_file)", needs)
+        if status:
+            return classify_http(status, body, where)
         if isinstance(exc, (urllib3.exceptions.HTTPError, OSError, TimeoutError)):
             return TemporaryStoreError(f"{where}: server unreachable: {type(exc).__name__}")
         return FatalStoreError(f"{where}: {type(exc).__name__}: {exc}")
@@ -217,14 +258,15 @@ class Influx2Store(LineProtocolWriter, Store):
     _CAUGHT = (ApiException, InfluxDBError, urllib3.exceptions.HTTPError, OSError, TimeoutError)
 
     # --- queries -------------------------------------------------------------------------
-    def query_csv(self, flux: str, what: str = "query") -> list[pd.DataFrame]:
+    def query_csv(self, flux: str, what: str = "query", target: str = RAW) -> list[pd.DataFrame]:
         """Run Flux; one DataFrame per CSV table block, its Flux column types (the ``#datatype``
-        annotation) in ``block.attrs["datatype"]`` as {column: type}."""
+        annotation) in ``block.attrs["datatype"]`` as {column: type}. ``target``: which bucket
+        the query reads (``RAW`` or ``RESULTS``), for error messages."""
         try:
             resp = self._query_api.query_raw(flux, org=self.org or "-", dialect=_DIALECT)
             text = resp.data.decode("utf-8")
         except self._CAUGHT as exc:
-            raise self._error(exc, what) from None
+            raise self._error(exc, what, target, "read") from None
         blocks = []
         for block in text.replace("\r\n", "\n").split("\n\n"):
             if not block.strip():
@@ -249,6 +291,7 @@ class Influx2Store(LineProtocolWriter, Store):
         tags: Mapping[str, str],
         lo: pd.Timestamp,
         hi: pd.Timestamp,
+        target: str = RAW,
     ) -> None:
         """FatalStoreError when a field of ``block`` is not numeric in the server's answer and has
         a point in [lo, hi) (``inside``; see the module docstring: 1.8.10 would have left out the
@@ -287,7 +330,7 @@ class Influx2Store(LineProtocolWriter, Store):
                 f"{escape.influxql_identifier(measurement, 'measurement')} WHERE {where}"
             )
             raise FatalStoreError(
-                f"{what} ({self.url}, bucket {self.bucket!r}): field {field!r} of measurement {measurement!r}"
+                f"{what} ({self.url}, bucket {self._bucket(target)!r}): field {field!r} of measurement {measurement!r}"
                 f"{tag_text} holds {kind} values, not numbers, in [{lo.isoformat()}, {hi.isoformat()}): "
                 f"{found}. Nothing was read: on influxd 1.8 (measured on 1.8.10) the Flux reader stops reading a "
                 "field where its type changes from one shard (block of time) to the next, for every series of the "
@@ -304,9 +347,11 @@ class Influx2Store(LineProtocolWriter, Store):
         conds += [f"r[{escape.flux_string(k)}] == {escape.flux_string(v)}" for k, v in tags.items()]
         return " and ".join(conds)
 
-    def _pivot_query(self, measurement: str, fields, tags, lo: pd.Timestamp, hi: pd.Timestamp) -> str:
+    def _pivot_query(
+        self, measurement: str, fields, tags, lo: pd.Timestamp, hi: pd.Timestamp, target: str = RAW
+    ) -> str:
         return (
-            f"from(bucket: {escape.flux_string(self.bucket)})\n"
+            f"from(bucket: {escape.flux_string(self._bucket(target))})\n"
             f"  |> range(start: {flux_time(lo)}, stop: {flux_time(hi)})\n"
             f"  |> filter(fn: (r) => {self._filter(measurement, fields, tags)})\n"
             '  |> keep(columns: ["_time", "_field", "_value"])\n'
@@ -410,15 +455,18 @@ class Influx2Store(LineProtocolWriter, Store):
             for role, ps in parts.items()
         }
 
-    def _send_batch(self, text: str, what: str) -> None:
-        """One batch of line protocol through the client's write API (``LineProtocolWriter``
-        does the batching)."""
+    def _send_batch(self, text: str, what: str, target: str) -> None:
+        """One batch of line protocol through the client's write API to the bucket of
+        ``target`` (``LineProtocolWriter`` does the batching)."""
         try:
             self._write_api.write(
-                bucket=self.bucket, org=self.org or "-", record=text, write_precision=WritePrecision.NS
+                bucket=self._bucket(target),
+                org=self.org or "-",
+                record=text,
+                write_precision=WritePrecision.NS,
             )
         except self._CAUGHT as exc:
-            raise self._error(exc, what) from None
+            raise self._error(exc, what, target, "write") from None
 
     # --- results -------------------------------------------------------------------------
     def read_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> pd.DataFrame:
@@ -428,7 +476,9 @@ class Influx2Store(LineProtocolWriter, Store):
         frames = []
         for lo, hi in time_windows(start, end, self.read_chunk):
             for block in self.query_csv(
-                self._pivot_query(measurement, None, tags, lo, hi), f"read_results {measurement}"
+                self._pivot_query(measurement, None, tags, lo, hi, RESULTS),
+                f"read_results {measurement}",
+                RESULTS,
             ):
                 if len(block) and "_time" in block.columns:
                     drop = [
@@ -439,7 +489,15 @@ class Influx2Store(LineProtocolWriter, Store):
                     fields = [c for c in block.columns if c not in drop]
                     idx, inside = self._inside(block, lo, hi)
                     self._refuse_text_fields(
-                        f"read_results {measurement}", block, inside, fields, measurement, tags, lo, hi
+                        f"read_results {measurement}",
+                        block,
+                        inside,
+                        fields,
+                        measurement,
+                        tags,
+                        lo,
+                        hi,
+                        RESULTS,
                     )
                     block, idx = block[inside], idx[inside]
                     frames.append(block.drop(columns=drop).set_axis(idx, axis=0))
@@ -451,14 +509,14 @@ class Influx2Store(LineProtocolWriter, Store):
     def _last_state(self, kind: str, name: str) -> str | None:
         escape.check_name(name, f"{kind} name")
         flux = (
-            f"from(bucket: {escape.flux_string(self.bucket)})\n"
+            f"from(bucket: {escape.flux_string(self.results_bucket)})\n"
             "  |> range(start: 1970-01-01T00:00:00Z)\n"
             f"  |> filter(fn: (r) => {self._filter(STATE_MEASUREMENT, ['value'], {'kind': kind, 'name': name})})\n"
             '  |> keep(columns: ["_time", "_value"])\n'
             "  |> group()\n"
             "  |> last()"
         )
-        blocks = [b for b in self.query_csv(flux, f"load {kind} {name!r}") if len(b)]
+        blocks = [b for b in self.query_csv(flux, f"load {kind} {name!r}", RESULTS) if len(b)]
         if not blocks:
             return None
         return str(blocks[-1]["_value"].iloc[-1])

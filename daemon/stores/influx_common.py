@@ -15,12 +15,21 @@ import requests
 from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
-from isentrope.daemon.stores.base import CertificateError, FatalStoreError, TemporaryStoreError
+from isentrope.daemon.stores.base import (
+    AuthorizationError,
+    CertificateError,
+    FatalStoreError,
+    TemporaryStoreError,
+)
 
 #: Measurement holding checkpoints and saved state: tags ``kind`` ("checkpoint" or "state")
 #: and ``name``; one string field ``value`` (ISO time or JSON). Each save is a new point at the
 #: time of saving; reads take the last one.
 STATE_MEASUREMENT = "isentrope_worker"
+
+#: Write targets of ``LineProtocolWriter``: raw samples, and everything the worker writes
+#: (results, checkpoints, state).
+RAW, RESULTS = "raw", "results"
 
 #: 1.x refuses string fields longer than this (64 KiB) [bytes].
 MAX_STRING_FIELD = 64 * 1024
@@ -77,6 +86,8 @@ def classify_http(status: int, body: str, what: str) -> Exception:
             )
         return FatalStoreError(f"{what}: HTTP {status}: {type_conflict_text(full)} (server: {shown})")
     msg = f"{what}: HTTP {status}: {shown}"
+    if status in (401, 403):
+        return AuthorizationError(msg)
     if status in _TEMPORARY_STATUS or status >= 500:
         if any(s in lower for s in _FATAL_BODY):
             return FatalStoreError(msg)
@@ -128,6 +139,37 @@ def certificate_failure(exc: BaseException, where: str) -> CertificateError | No
         f"{where}: certificate verify failed{': ' + detail if detail else ''}. The server's TLS "
         "certificate is not trusted: give [store] ca_bundle (the PEM file of the CA that signed it) "
         "or correct [store] url; verify_ssl = false switches the check off (not advised)"
+    )
+
+
+def authorization_error(
+    status: int, body: str, what: str, credentials: str, needs: str
+) -> AuthorizationError:
+    """The error of a 401 or 403 answer: a configuration error (nothing a retry changes) that names
+    the configuration keys of the credentials and what they lack, and never shows a secret. Also
+    for a 404 "bucket not found" of InfluxDB 2.x to a token: it answers so both for a bucket that
+    does not exist and for one the token may not read (measured on 2.9.1).
+
+    ``credentials``: where the credentials are configured ("[store] token or token_file");
+    ``needs``: what the call needs ("read access to bucket 'plant' ([store] bucket)"). The
+    server's answer is shown redacted (``isentrope.daemon.redact``: it may repeat the headers).
+    """
+    shown = redact((body or "").strip().replace("\n", " "))[:_SHOWN_BODY]
+    if status == 401:
+        lacks = (
+            f"the server did not accept the credentials of {credentials} (wrong, expired, revoked or "
+            f"not given); the call needs {needs}"
+        )
+    elif status == 404:
+        lacks = (
+            f"{needs} failed: the bucket does not exist, or the credentials of {credentials} may not "
+            "see it (the server gives the same answer for both)"
+        )
+    else:
+        lacks = f"the credentials of {credentials} are valid but lack {needs}"
+    return AuthorizationError(
+        f"{what}: HTTP {status}: {lacks}. This is a configuration error: not retried; fix the "
+        f"credentials or their permissions and start again (server: {shown})"
     )
 
 
@@ -321,7 +363,11 @@ class LineProtocolWriter:
     in batches of ``batch_size`` under one lock, with unwritten lines kept (``keep_unwritten``).
 
     A store using it sets ``batch_size``, ``pending`` (list) and ``_write_lock`` and implements
-    ``_send_batch(text, what)``, raising ``TemporaryStoreError`` or ``FatalStoreError``.
+    ``_send_batch(text, what, target)``, raising ``TemporaryStoreError`` or ``FatalStoreError``.
+    ``target`` is ``RAW`` for raw samples and ``RESULTS`` for results, checkpoints and state: a
+    store that keeps them apart (``Influx2Store`` with ``results_bucket``) sends each to its own
+    place. Lines kept in ``pending`` are for one target (``pending_target``); a write to the
+    other target sends them first.
 
     ``write_behind``: the server parses and stores the lines in its own process, so the
     worker sends a chunk's results from a second thread while it computes the next one
@@ -330,10 +376,11 @@ class LineProtocolWriter:
     """
 
     write_behind = True
+    pending_target = RESULTS
 
     def write_raw(self, mappings, frame) -> int:
         lines, samples = raw_lines(mappings, frame)
-        self._write(lines, "write_raw")
+        self._write(lines, "write_raw", RAW)
         return samples
 
     def write_results(self, measurement, frame, tags) -> int:
@@ -352,18 +399,30 @@ class LineProtocolWriter:
         self._write(lines, f"write_results {measurement}")
         return n
 
-    def _write(self, lines: list[str], what: str) -> None:
+    def _write(self, lines: list[str], what: str, target: str = RESULTS) -> None:
         with self._write_lock:  # the worker may write from scheduler threads
-            todo = self.pending + list(lines)
-            self.pending = []
-            for i in range(0, len(todo), self.batch_size):
-                try:
-                    self._send_batch("\n".join(todo[i : i + self.batch_size]), what)
+            if self.pending and self.pending_target != target:
+                try:  # kept lines of the other target first, to their own place
+                    self._send_all([], what, self.pending_target)
                 except (TemporaryStoreError, FatalStoreError) as err:
-                    keep_unwritten(self, err, todo[i:])
+                    err.unwritten = err.unwritten + list(lines)  # these were not sent either
                     raise
+            self._send_all(lines, what, target)
 
-    def _send_batch(self, text: str, what: str) -> None:  # pragma: no cover - abstract
+    def _send_all(self, lines: list[str], what: str, target: str) -> None:
+        """``pending`` (lines of ``target``), then ``lines``, in batches; on failure the rest is
+        kept (``keep_unwritten``) for ``target``."""
+        todo = self.pending + list(lines)
+        self.pending = []
+        for i in range(0, len(todo), self.batch_size):
+            try:
+                self._send_batch("\n".join(todo[i : i + self.batch_size]), what, target)
+            except (TemporaryStoreError, FatalStoreError) as err:
+                self.pending_target = target
+                keep_unwritten(self, err, todo[i:])
+                raise
+
+    def _send_batch(self, text: str, what: str, target: str) -> None:  # pragma: no cover - abstract
         raise NotImplementedError
 
 

@@ -436,6 +436,24 @@ def test_secret_problems():
     assert got[0].endswith("store.token: give either 'token' or 'username'/'password', not both")
 
 
+def test_results_bucket_defaults_to_bucket_and_is_checked():
+    env = {"T": "x"}
+    c = parse_config(minimal(store=INFLUX2 + 'token = "${T}"\n'), environ=env)
+    assert c.store.results_bucket == "" and "results_bucket" not in c.store.open_options()
+    c = parse_config(minimal(store=INFLUX2 + 'results_bucket = "b_perf"\ntoken = "${T}"\n'), environ=env)
+    assert c.store.open_options()["results_bucket"] == "b_perf"
+    assert c.store.open_options()["bucket"] == "b"
+    text = minimal(store=INFLUX2 + 'results_bucket = ""\ntoken = "${T}"\n')
+    assert problems(text, environ=env) == [
+        f"unit.toml:{line_of(text, 'results_bucket')}: store.results_bucket: results_bucket is empty; "
+        "give a non-empty name"
+    ]
+    got = problems(minimal(store=INFLUX2 + 'results_bucket = "a\\tb"\ntoken = "${T}"\n'), environ=env)
+    assert got[0].endswith("names may not contain newlines, tabs or other control characters")
+    got = problems(minimal(store=INFLUX2 + 'result_bucket = "p"\ntoken = "${T}"\n'), environ=env)
+    assert "did you mean 'results_bucket'" in got[0]
+
+
 def test_store_kind_and_url():
     got = problems(minimal(store='[store]\nkind = "influx3"\n'))
     assert got[0].endswith(

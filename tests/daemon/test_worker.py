@@ -361,6 +361,32 @@ def test_the_daemon_stops_with_exit_1_on_a_fatal_store_error(config, pipeline, r
     assert lines == ["unit Greywater Bend 2: stopping the worker: bucket 'unit2' not found"]
 
 
+def test_a_refused_token_stops_the_daemon_with_exit_2_after_one_attempt(config, pipeline, raw, caplog):
+    """401/403 is a configuration error: no retry, exit 2 (which the systemd unit does not restart),
+    even when only the heartbeat meets it."""
+    from isentrope.daemon.commands.run import _serve
+    from isentrope.daemon.stores.base import AuthorizationError
+
+    class Refused(ws.MemoryStore):
+        calls = 0
+
+        def write_results(self, measurement, frame, tags):
+            Refused.calls += 1
+            raise AuthorizationError("write_results: HTTP 403: lacks write access ([store] results_bucket)")
+
+    slept: list[float] = []
+    worker = Worker.from_config(config, Refused(raw), pipeline=pipeline, sleep=slept.append, retries=5)
+    worker.clock = lambda: ws.START  # nothing to process yet: only the heartbeat writes
+    with caplog.at_level(logging.ERROR, logger="isentrope.run"):
+        assert _serve(worker, config) == 2
+    assert Refused.calls == 1 and slept == []
+    lines = [r.getMessage() for r in caplog.records if r.name == "isentrope.run"]
+    assert lines == [
+        "unit Greywater Bend 2: stopping the worker: configuration error: "
+        "write_results: HTTP 403: lacks write access ([store] results_bucket)"
+    ]
+
+
 def test_a_late_sample_inside_the_lookback_is_picked_up_by_the_next_cycle(config, pipeline, raw):
     clock = ws.FakeClock(ws.START + pd.Timedelta("10h"))
     _, after = pipeline.margins

@@ -1,8 +1,15 @@
 """The store contract (isentrope.daemon.stores.base), run against every implementation.
 
-Cases: SQLite (always); Influx2Store on influxd 1.8.10 (v2 API, Flux); Influx1Store on Debian's
-influxd 1.6.7 and on 1.8.10 (v1 API, InfluxQL). The real-server cases are marked ``influx``
-and need the session servers of tests/conftest.py. Each test gets a fresh database.
+Cases: SQLite (always); Influx2Store on InfluxDB 2.9.1 and on influxd 1.8.10 (v2 API, Flux);
+Influx1Store on Debian's influxd 1.6.7, on 1.8.10 and on the v1 endpoints of 2.9.1 (v1 API,
+InfluxQL). The real-server cases are marked ``influx`` and need the session servers of
+tests/conftest.py. Each test gets a fresh database (fresh buckets on 2.9.1).
+
+On 2.9.1 authorisation is on. The Influx2Store under test keeps raw samples and results in two
+buckets and holds the worker's least-privilege token (read on the raw bucket; read and write on
+the results bucket), so raw samples are put in through ``case.loader``: the same store class
+with a token that may write the raw bucket, as a plant's collector would hold. The Influx1Store
+case there has one bucket (the v1 API names one database) and a token to read and write it.
 Values are invented test data; the expectations are the contract itself.
 """
 
@@ -17,7 +24,9 @@ from isentrope.daemon.stores import FatalStoreError, TemporaryStoreError, open_s
 
 CASES = [
     "sqlite",
+    pytest.param("influx2-2.9", marks=pytest.mark.influx),
     pytest.param("influx2-1.8", marks=pytest.mark.influx),
+    pytest.param("influx1-2.9", marks=pytest.mark.influx),
     pytest.param("influx1-1.6", marks=pytest.mark.influx),
     pytest.param("influx1-1.8", marks=pytest.mark.influx),
 ]
@@ -26,16 +35,23 @@ T0 = pd.Timestamp("2026-03-01T00:00:00Z")
 
 
 class Case:
-    """A store under test, plus how to make another one on the same server/database."""
+    """A store under test, plus how to make another one on the same server/database, and
+    ``loader``: the store that writes raw samples (``store`` itself unless its token may not)."""
 
-    def __init__(self, name, make, server=None):
+    def __init__(self, name, make, server=None, make_loader=None):
         self.name = name
         self.make = make  # (**overrides) -> Store
         self.server = server
         self.store = make()
+        self.loader = make_loader() if make_loader else self.store
 
     def other(self, **overrides):
         return self.make(**overrides)
+
+    def close(self):
+        self.store.close()
+        if self.loader is not self.store:
+            self.loader.close()
 
 
 @pytest.fixture(params=CASES)
@@ -44,6 +60,40 @@ def case(request, tmp_path):
     if name == "sqlite":
         path = tmp_path / "unit.sqlite"
         c = Case(name, lambda **o: open_store("sqlite", path=o.get("path", path)))
+    elif name == "influx2-2.9":
+        server = request.getfixturevalue("influxdb_2x")
+        w = server.worker_buckets("contract")
+
+        def make(token=w.token, **o):
+            bucket = o.get("bucket", w.raw)
+            return open_store(
+                "influx2",
+                url=o.get("url", server.url),
+                org=server.ORG,
+                bucket=bucket,
+                results_bucket=o.get("results_bucket", w.results if "bucket" not in o else bucket),
+                token=token,
+                timeout=5,
+                retries=1,
+            )
+
+        c = Case(name, make, server, make_loader=lambda: make(token=w.loader))
+    elif name == "influx1-2.9":
+        server = request.getfixturevalue("influxdb_2x")
+        bucket, bucket_id = server.new_bucket("contract_v1")
+        token = server.new_token("contract v1", read=(bucket_id,), write=(bucket_id,))
+
+        def make(**o):
+            return open_store(
+                "influx1",
+                url=o.get("url", server.url),
+                database=o.get("database", bucket),
+                retention_policy=o.get("retention_policy", "autogen"),
+                token=token,
+                timeout=5,
+            )
+
+        c = Case(name, make, server)
     elif name.startswith("influx2"):
         server = request.getfixturevalue("influxdb_v2")
         db = server.new_database("contract")
@@ -75,7 +125,7 @@ def case(request, tmp_path):
 
         c = Case(name, make, server)
     yield c
-    c.store.close()
+    c.close()
 
 
 def mappings():
@@ -123,7 +173,7 @@ def test_raw_round_trip_with_nan(case):
     frame = raw_frame()
     frame.iloc[2, 0] = np.nan  # one missing sample
     frame.iloc[5, :] = np.nan  # a timestamp with nothing at all
-    assert case.store.write_raw(mappings(), frame) == int(frame.notna().sum().sum())
+    assert case.loader.write_raw(mappings(), frame) == int(frame.notna().sum().sum())
     got = case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
     assert list(got.columns) == ["throttle_p", "throttle_t", "condenser_p"]
     assert got.index.name == "time" and str(got.index.tz) == "UTC"
@@ -132,7 +182,7 @@ def test_raw_round_trip_with_nan(case):
 
 
 def test_raw_empty_window_and_unmapped_role(case):
-    case.store.write_raw(mappings(), raw_frame())
+    case.loader.write_raw(mappings(), raw_frame())
     got = case.store.read_raw(mappings(), T0 - pd.Timedelta("2h"), T0 - pd.Timedelta("1h"))
     assert got.empty and list(got.columns) == ["throttle_p", "throttle_t", "condenser_p"]
     nothing = [RoleMapping(role="gross_output", tag="U7.GEN.MW", unit="MW", tags={"unit": "U7"})]
@@ -141,7 +191,7 @@ def test_raw_empty_window_and_unmapped_role(case):
 
 
 def test_raw_window_is_half_open(case):
-    case.store.write_raw(mappings(), raw_frame(n=10))
+    case.loader.write_raw(mappings(), raw_frame(n=10))
     start, end = T0 + pd.Timedelta("2min"), T0 + pd.Timedelta("5min")
     got = case.store.read_raw(mappings(), start, end)
     assert list(got.index) == [start, start + pd.Timedelta("1min"), start + pd.Timedelta("2min")]
@@ -149,12 +199,12 @@ def test_raw_window_is_half_open(case):
 
 def test_raw_duplicates_last_wins(case):
     frame = raw_frame(n=6)
-    case.store.write_raw(mappings(), frame)
+    case.loader.write_raw(mappings(), frame)
     again = frame.iloc[2:4] + 1.0  # rewrite two timestamps with new values
-    case.store.write_raw(mappings(), again)
+    case.loader.write_raw(mappings(), again)
     dup = frame.iloc[[4, 4]].copy()  # the same timestamp twice in one write: the last row wins
     dup.iloc[1] = [20.0, 540.0, 6.0]
-    case.store.write_raw(mappings(), dup)
+    case.loader.write_raw(mappings(), dup)
     want = frame.copy()
     want.iloc[2:4] = again.to_numpy()
     want.iloc[4] = [20.0, 540.0, 6.0]
@@ -166,20 +216,20 @@ def test_times_are_utc(case):
     frame = raw_frame(n=4)
     local = frame.copy()
     local.index = frame.index.tz_convert("America/Chicago")
-    case.store.write_raw(mappings(), local)
+    case.loader.write_raw(mappings(), local)
     got = case.store.read_raw(mappings(), "2026-02-28T18:00:00-06:00", T0 + pd.Timedelta("1h"))
     assert_same(got, expected(frame))
     with pytest.raises(ValueError, match="time zone"):
         case.store.read_raw(mappings(), pd.Timestamp("2026-03-01"), T0 + pd.Timedelta("1h"))
     naive = frame.tz_localize(None)
     with pytest.raises(ValueError, match="time zone"):
-        case.store.write_raw(mappings(), naive)
+        case.loader.write_raw(mappings(), naive)
 
 
 def test_unmapped_column_is_an_error(case):
     frame = raw_frame(n=2).rename(columns={"throttle_p": "nonsense"})
     with pytest.raises(ValueError, match="not mapped roles"):
-        case.store.write_raw(mappings(), frame)
+        case.loader.write_raw(mappings(), frame)
 
 
 # --- results ---------------------------------------------------------------------------------
@@ -326,7 +376,7 @@ def test_awkward_names_round_trip(case):
     ]
     idx = pd.date_range(T0, periods=3, freq="1min", tz="UTC")
     frame = pd.DataFrame({m.role: np.arange(3) + 10.0 * i for i, m in enumerate(maps)}, index=idx)
-    case.store.write_raw(maps, frame)
+    case.loader.write_raw(maps, frame)
     got = case.store.read_raw(maps, T0, T0 + pd.Timedelta("1h"))
     assert_same(got, expected(frame))
 
@@ -350,7 +400,7 @@ def test_awkward_names_round_trip(case):
 def test_names_cannot_change_query_meaning(case):
     """A name that looks like query syntax selects nothing, never other data."""
     plain = [RoleMapping(role="throttle_p", tag="a", unit="MPa", field="a", tags={"unit": "U7"})]
-    case.store.write_raw(plain, raw_frame(n=3)[["throttle_p"]])
+    case.loader.write_raw(plain, raw_frame(n=3)[["throttle_p"]])
     for evil in [
         "a' OR 1=1 --",
         'a" OR 1=1 --',
@@ -370,7 +420,7 @@ def test_names_cannot_change_query_meaning(case):
 def test_newlines_in_names_rejected(case):
     bad = [RoleMapping(role="throttle_p", tag="a\nb", unit="MPa", field="a\nb")]
     with pytest.raises(ValueError, match="newline"):
-        case.store.write_raw(bad, raw_frame(n=1)[["throttle_p"]])
+        case.loader.write_raw(bad, raw_frame(n=1)[["throttle_p"]])
     with pytest.raises(ValueError, match="newline"):
         case.store.write_results("sections", results_frame(n=1), {"unit": "U7\nx"})
     with pytest.raises(ValueError, match="newline"):
@@ -402,6 +452,10 @@ def test_missing_database_is_fatal(case, tmp_path):
     if case.name.startswith("influx1"):
         with pytest.raises(FatalStoreError):
             case.other(retention_policy="no_such_rp").read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
+        with pytest.raises(FatalStoreError):  # the database's default policy: still found missing
+            case.other(database="no_such_db", retention_policy="").read_raw(
+                mappings(), T0, T0 + pd.Timedelta("1h")
+            )
     wrong.close()
 
 
@@ -425,15 +479,20 @@ def test_stopped_server_is_temporary_and_nothing_is_lost(case):
         with pytest.raises(TemporaryStoreError):
             case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h"))
         with pytest.raises(TemporaryStoreError):
-            case.store.write_raw(mappings(), frame)
-        assert case.store.pending, "the failed batch must be kept"
-        assert len(case.store.pending) == 8  # 4 times x 2 series
+            case.loader.write_raw(mappings(), frame)
+        assert case.loader.pending, "the failed batch must be kept"
+        assert len(case.loader.pending) == 8  # 4 times x 2 series
         with pytest.raises(TemporaryStoreError):
             case.store.get_checkpoint("U7-worker")
     finally:
         case.server.start()
-    case.store.set_checkpoint("U7-worker", T0)  # the next write sends the kept batch first
-    assert not case.store.pending
+    if case.loader is case.store:
+        # the next write sends the kept batch first, to where raw samples go, then the checkpoint
+        case.store.set_checkpoint("U7-worker", T0)
+        assert case.store.get_checkpoint("U7-worker") == T0
+    else:
+        case.loader.write_raw(mappings(), frame.iloc[:0])  # the loader's next write sends it
+    assert not case.loader.pending
     assert_same(case.store.read_raw(mappings(), T0, T0 + pd.Timedelta("1h")), expected(frame))
 
 
