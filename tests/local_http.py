@@ -11,6 +11,7 @@ import ipaddress
 import json
 import ssl
 import threading
+import urllib.parse
 from pathlib import Path
 
 
@@ -79,13 +80,22 @@ class _Echo(_Base):
 
 class _Influx(_Base):
     """Just enough of both InfluxDB APIs for a store to read no data and write: /write and
-    /api/v2/write take anything, /query and /api/v2/query answer with nothing."""
+    /api/v2/write take anything, SHOW RETENTION POLICIES names "autogen", other queries on
+    /query and /api/v2/query answer with nothing."""
 
     def _answer(self):
-        self._body()
+        asked = urllib.parse.unquote_plus(self.path + "&" + self._body().decode("utf-8", "replace"))
         self.server.requests.append(self.path)
         if self.path.startswith(("/write", "/api/v2/write")):
             self._send(204, b"")
+        elif self.path.startswith("/query") and "SHOW RETENTION POLICIES" in asked.upper():
+            # the database exists with its default retention policy (as influxd 1.x answers)
+            series = {
+                "name": "",
+                "columns": ["name", "duration", "default"],
+                "values": [["autogen", "0s", True]],
+            }
+            self._send(200, json.dumps({"results": [{"statement_id": 0, "series": [series]}]}).encode())
         elif self.path.startswith("/query") and "csv" not in (self.headers.get("Accept") or ""):
             self._send(200, b'{"results":[{"statement_id":0}]}')
         else:

@@ -91,7 +91,7 @@ def expected_grid(points, start, end):
 
 def test_grid_read_holds_up_to_max_age_and_interpolates_within_it(case):
     points = exception_points()
-    write_points(case.store, points)
+    write_points(case.loader, points)
     # the window starts after the first points: its first grid times take them (hold and linear)
     start, end = T0 + 30 * S, T0 + 40 * M
     got = case.store.read_grid(mappings(), start, end, GRID)
@@ -120,7 +120,7 @@ def test_grid_read_holds_up_to_max_age_and_interpolates_within_it(case):
 
 def test_grid_read_does_not_depend_on_where_the_window_starts(case):
     points = exception_points()
-    write_points(case.store, points)
+    write_points(case.loader, points)
     whole = case.store.read_grid(mappings(), T0 - 10 * M, T0 + 40 * M, GRID)
     parts = [
         case.store.read_grid(mappings(), a, b, GRID)
@@ -144,7 +144,7 @@ def test_grid_read_of_regular_data_on_its_own_grid_is_the_stored_rows(case):
         },
         index=idx,
     )
-    case.store.write_raw(mappings(), frame)
+    case.loader.write_raw(mappings(), frame)
     raw = case.store.read_raw(mappings(), T0, T0 + 30 * M)
     got = case.store.read_grid(mappings(), T0, T0 + 30 * M, GRID)
     pd.testing.assert_frame_equal(got, raw, check_freq=False, rtol=0, atol=0)
