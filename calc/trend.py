@@ -29,6 +29,7 @@ Montgomery, D. C., Introduction to Statistical Quality Control, the CUSUM chapte
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import asdict, dataclass
 
@@ -227,15 +228,27 @@ def _group_medians(h: np.ndarray, d: np.ndarray, block: np.ndarray, max_points: 
     size = int(math.ceil(h.size / max_points))
     first = np.searchsorted(block, block, side="left")  # blocks are ascending with h
     group = block.astype(np.int64) * (h.size + 1) + (np.arange(h.size) - first) // size
-    frame = pd.DataFrame({"g": group, "h": h, "d": d, "b": block}).groupby("g", sort=True)
-    med = frame[["h", "d"]].median()
-    return med["h"].to_numpy(), med["d"].to_numpy(), frame["b"].first().to_numpy()
+    # groups are consecutive runs (ids ascend with h): medians from one sort by (group, value),
+    # no pandas groupby (a groupby took ~30 ms a call, measured; the analysis fits a rate at
+    # every day end). The middle pair's mean is what numpy.median gives.
+    starts = np.flatnonzero(np.concatenate([[True], group[1:] != group[:-1]]))
+    counts = np.diff(np.append(starts, h.size))
+    lo, hi = starts + (counts - 1) // 2, starts + counts // 2
+    hs = h[np.lexsort((h, group))]
+    ds = d[np.lexsort((d, group))]
+    return (hs[lo] + hs[hi]) / 2.0, (ds[lo] + ds[hi]) / 2.0, block[starts]
 
 
 def _tie_term(v: np.ndarray) -> float:
     _, counts = np.unique(v, return_counts=True)
     counts = counts[counts > 1].astype(float)
     return float(np.sum(counts * (counts - 1) * (2 * counts + 5)))
+
+
+@functools.lru_cache(maxsize=16)
+def _normal_quantile(p: float) -> float:
+    """``scipy.stats.norm.ppf`` (about 1 ms a call; the analysis fits thousands of rates)."""
+    return float(stats.norm.ppf(p))
 
 
 def _blocked_theil_sen(x: np.ndarray, y: np.ndarray, block: np.ndarray, confidence: float):
@@ -268,7 +281,7 @@ def _blocked_theil_sen(x: np.ndarray, y: np.ndarray, block: np.ndarray, confiden
     all_slopes = np.sort(np.concatenate(slopes))
     n_pairs = all_slopes.size
     slope = float(np.median(all_slopes))
-    z = stats.norm.ppf(0.5 * (1.0 - confidence))  # negative
+    z = _normal_quantile(0.5 * (1.0 - confidence))  # negative
     sd = math.sqrt(var_s)
     i_hi = min(int(np.round((n_pairs - z * sd) / 2.0)), n_pairs - 1)
     i_lo = max(int(np.round((n_pairs + z * sd) / 2.0)) - 1, 0)
@@ -510,7 +523,9 @@ def detect_steps(
         for j, (tau, alarm, direction) in enumerate(changes):
             lo, hi = bounds[j], bounds[j + 2]
             first = max(lo + 1, tau - (alarm - tau) - 5)
-            best = min(range(first, alarm + 1), key=lambda c: _step_rss(x[lo:hi], d[lo:hi], c - lo, drift))
+            candidates = np.arange(first, alarm + 1)
+            rss = _step_rss_many(x[lo:hi], d[lo:hi], candidates - lo, drift)
+            best = int(candidates[int(np.argmin(rss))])  # the first of equal minima, as min() did
             changes[j] = (best, alarm, direction)
             bounds[j + 1] = best
     steps = []
@@ -576,6 +591,53 @@ def _step_rss(x: np.ndarray, y: np.ndarray, at: int, drift: bool) -> float:
     beta, *_ = np.linalg.lstsq(X, y, rcond=None)
     r = y - X @ beta
     return float(r @ r)
+
+
+def _step_rss_many(x: np.ndarray, y: np.ndarray, ats: np.ndarray, drift: bool) -> np.ndarray:
+    """``_step_rss`` at each index of ``ats`` at once, from the normal equations of the
+    centred data and suffix sums: O(len(y) + len(ats)) instead of one least-squares fit per
+    candidate. Measured on 55 000 windows (ten years): the refinement took 3.1 s with a
+    ``_step_rss`` per candidate, a few milliseconds this way. Centring keeps the sums small, so
+    the residual sums agree with ``_step_rss`` to about 1e-9 relative (tests/calc/test_trend.py)."""
+    m = y.size
+    ats = np.asarray(ats, dtype=int)
+    out = np.full(ats.size, np.inf)
+    ok = (ats > 0) & (ats < m)
+    if not ok.any():
+        return out
+    xc = x - x.mean()
+    yc = y - y.mean()
+    suffix_x = np.concatenate([np.cumsum(xc[::-1])[::-1], [0.0]])
+    suffix_y = np.concatenate([np.cumsum(yc[::-1])[::-1], [0.0]])
+    a = ats[ok]
+    k = (m - a).astype(float)
+    xs, ys = suffix_x[a], suffix_y[a]
+    syy = float(yc @ yc)
+    if drift:
+        sxx, sxy = float(xc @ xc), float(xc @ yc)
+        gram = np.zeros((a.size, 3, 3))
+        gram[:, 0, 0] = m
+        gram[:, 0, 2] = gram[:, 2, 0] = k
+        gram[:, 1, 1] = sxx
+        gram[:, 1, 2] = gram[:, 2, 1] = xs
+        gram[:, 2, 2] = k
+        rhs = np.stack([np.zeros(a.size), np.full(a.size, sxy), ys], axis=1)
+    else:
+        gram = np.zeros((a.size, 2, 2))
+        gram[:, 0, 0] = m
+        gram[:, 0, 1] = gram[:, 1, 0] = k
+        gram[:, 1, 1] = k
+        rhs = np.stack([np.zeros(a.size), ys], axis=1)
+    with np.errstate(all="ignore"):
+        det = np.linalg.det(gram)
+        good = np.abs(det) > 1e-12 * np.abs(gram).max(axis=(1, 2)) ** gram.shape[1]
+        beta = np.zeros_like(rhs)
+        if good.any():
+            beta[good] = np.linalg.solve(gram[good], rhs[good][..., None])[..., 0]
+        rss = syy - np.einsum("ij,ij->i", beta, rhs)
+    rss[~good] = np.inf
+    out[ok] = np.maximum(rss, 0.0)
+    return out
 
 
 def _step_size(x: np.ndarray, y: np.ndarray, at: int, drift: bool, sigma: float) -> tuple[float, float]:
