@@ -278,3 +278,52 @@ def test_an_analysis_in_daily_runs_equals_one_run(tmp_path):
         )
     finally:
         store.close()
+
+
+def test_status_reads_the_heartbeats_and_exits_with_the_documented_codes(kind, tmp_path, capsys):
+    from isentrope.daemon.worker import Worker
+
+    place = Place(kind, tmp_path, "status")
+    path = place.config(START, START + pd.Timedelta(days=2))
+    config, store = place.open(path)
+    store.write_raw(config.mappings, _raw())
+    assert cli.main(["status", "-c", str(path)]) == 5  # never ran
+    assert "NEVER RAN" in capsys.readouterr().out
+    clock = ws.FakeClock(START + pd.Timedelta(days=3))
+    worker = Worker.from_config(config, store, clock=clock, start_default=START)
+    assert worker.run_cycle().ok
+    assert worker.analyse() is not None
+    store.close()
+    # the data are of 2025: behind now by far more than the default lag
+    assert cli.main(["status", "-c", str(path)]) == 4
+    out = capsys.readouterr().out
+    assert "LAGGING" in out and "checkpoint" in out
+    assert cli.main(["status", "-c", str(path), "--max-lag", "100000d", "--max-analysis-lag", "1d"]) == 0
+    out = capsys.readouterr().out
+    assert "verdict           OK (exit 0)" in out
+    assert (
+        "HP" in out and "processed up to   2025-03-05" in out and "analysis          up to 2025-03-05" in out
+    )
+    assert len(out.splitlines()) <= 24  # one screen
+    # the analysis lagging behind the checkpoint is lagging too
+    clock.advance("1D")
+    config, store = place.open(path)
+    worker = Worker.from_config(config, store, clock=clock, start_default=START)
+    assert worker.run_cycle().ok
+    store.close()
+    assert cli.main(["status", "-c", str(path), "--max-lag", "100000d", "--max-analysis-lag", "6h"]) == 4
+    assert "analysis" in capsys.readouterr().out
+
+
+def test_status_of_an_unreachable_store_exits_3(tmp_path, capsys):
+    place = Place("sqlite", tmp_path, "gone")
+    place.store_toml = ws.store_toml("influx1", url=f"http://127.0.0.1:{ws.free_port()}", database="x")
+    path = place.config(
+        START,
+        START + pd.Timedelta(days=2),
+    )
+    assert cli.main(["status", "-c", str(path)]) == 3
+    assert "STORE UNREACHABLE" in capsys.readouterr().out
+    place.store_toml = ws.store_toml("sqlite", path=str(tmp_path / "no" / "such" / "dir.sqlite"))
+    path = place.config(START, START + pd.Timedelta(days=2))
+    assert cli.main(["status", "-c", str(path)]) == 3
