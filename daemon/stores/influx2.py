@@ -50,6 +50,7 @@ Token: ``token`` itself, or the name of an environment variable (``token_env``) 
 from __future__ import annotations
 
 import io
+import logging
 import json
 import os
 import re
@@ -81,6 +82,8 @@ from isentrope.daemon.stores.influx_common import (
     state_line,
     time_windows,
 )
+
+logger = logging.getLogger(__name__)
 
 _DIALECT = Dialect(
     header=True, delimiter=",", annotations=["datatype"], comment_prefix="#", date_time_format="RFC3339Nano"
@@ -421,6 +424,11 @@ class Influx2Store(LineProtocolWriter, Store):
                 if getattr(exc, "status", None) != 404 or "bucket" in body:
                     raise err from None  # a 2.x server's 404 names the missing bucket
             self._v1_delete = True
+            logger.info(
+                "%s has no /api/v2/delete (HTTP 404, as influxd 1.8): deleting through the v1 /query "
+                "endpoint with InfluxQL DELETE",
+                self.url,
+            )
         self._delete_v1(measurement, start, end, tags, what)
 
     def _delete_v1(self, measurement: str, start, end, tags: Mapping[str, str], what: str) -> None:
