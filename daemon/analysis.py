@@ -1044,8 +1044,10 @@ def run_analysis(
     *,
     final_until: pd.Timestamp | None = None,
     rebuild: bool = False,
+    load: bool = True,
 ) -> Analysis:
-    """Bring the stored analysis of a unit up to ``end`` and return it (``load_analysis``).
+    """Bring the stored analysis of a unit up to ``end`` and return it (``load_analysis``;
+    with ``load=False`` what this run computed: the rows since the last final day).
 
     Each run picks up where the saved state ``analysis/<unit>`` says the last one was final
     (a UTC midnight): it deletes the analysis rows from there on (its provisional rows, and
@@ -1073,6 +1075,8 @@ def run_analysis(
         longer change.
     rebuild : bool
         Analyse the whole history again.
+    load : bool
+        Return the stored analysis read back (the default), or only this run's part.
 
     The baseline models' ids come from the worker's saved state ``baseline/<unit>``; without a
     saved baseline there is nothing to analyse and an empty ``Analysis`` is returned.
@@ -1124,7 +1128,7 @@ def run_analysis(
         until = final  # final days stay final
     new_final = until if until > read_from else final
     if end <= read_from:
-        return load_analysis(store, config)
+        return load_analysis(store, config) if load else Analysis(end, {}, _no_events(), math.nan, math.nan)
     power = power[power.index < end]
     online = power > float(config.unit.online_mw)
     new_ops = daily_operation(online, power, read_from, end, hours_before=float(state.get("hours", 0.0)))
@@ -1172,7 +1176,7 @@ def run_analysis(
             "end": end.isoformat(),
         },
     )
-    return load_analysis(store, config)
+    return load_analysis(store, config) if load else result
 
 
 def _rate_from_row(row: pd.Series):

@@ -397,8 +397,9 @@ class Worker:
         """Bring the stored degradation analysis (``isentrope.daemon.analysis.run_analysis``)
         up to ``end`` (None: this worker's checkpoint); days before the checkpoint less the
         look-back and one steady window, whose results no later cycle changes, become final.
-        Writes one ``worker_status`` row (tag ``worker`` = ``analysis/<unit>``) and returns the
-        stored ``Analysis``; None when there is nothing processed yet. Temporary store trouble
+        Writes one ``worker_status`` row (tag ``worker`` = ``analysis/<unit>``) and returns what
+        this run computed (``run_analysis(..., load=False)``: the rows and alarm events since
+        the last final day); None when there is nothing processed yet. Temporary store trouble
         is logged and the job tried again at its next run; it is serialised with the cycles."""
         from isentrope.daemon import analysis
 
@@ -418,7 +419,7 @@ class Worker:
             ok, result, error = True, None, ""
             try:
                 result = analysis.run_analysis(
-                    self.store, self.config, end, final_until=final_until, rebuild=rebuild
+                    self.store, self.config, end, final_until=final_until, rebuild=rebuild, load=False
                 )
             except TemporaryStoreError as exc:
                 ok, error = False, str(exc)

@@ -93,7 +93,7 @@ def run(args) -> int:
     from tqdm import tqdm
 
     from isentrope.daemon import synthetic
-    from isentrope.daemon.analysis import raised_alarms
+    from isentrope.daemon.analysis import load_analysis, raised_alarms
     from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
@@ -158,9 +158,9 @@ def run(args) -> int:
             (folder / f"baseline-{section}.json").write_text(text, encoding="utf-8")
         # the worker's analysis job, as the scheduled worker runs it; the summary and the
         # report below read what it stored (load_analysis), nothing is computed again
-        analysis = worker.analyse(end=end, rebuild=True)
-        if analysis is None:
+        if worker.analyse(end=end, rebuild=True) is None:
             raise RuntimeError("demo analysis not stored")
+        analysis = load_analysis(store, config)
         raised = raised_alarms(store, config, start, end)
         t_ana = time.perf_counter()
         report_path = None

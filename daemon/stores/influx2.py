@@ -50,8 +50,8 @@ Token: ``token`` itself, or the name of an environment variable (``token_env``) 
 from __future__ import annotations
 
 import io
-import logging
 import json
+import logging
 import os
 import re
 import threading
