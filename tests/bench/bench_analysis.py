@@ -59,7 +59,7 @@ def _history(config, store, years: float, seed: int = 5) -> pd.Timestamp:
     end = START + pd.Timedelta(days=round(365.25 * years))
     minutes = pd.date_range(START, end, freq="1min", inclusive="left", tz="UTC")
     online = np.ones(len(minutes), dtype=bool)
-    for k in range(int(years * 6)):  # six stops a year, 1-4 days each
+    for _ in range(int(years * 6)):  # six stops a year, 1-4 days each
         a = int(rng.integers(0, len(minutes)))
         online[a : a + int(rng.integers(1440, 4 * 1440))] = False
     power = np.where(online, 420.0 + 60.0 * np.sin(np.arange(len(minutes)) * 2 * np.pi / 1440.0), 0.0)
