@@ -240,6 +240,9 @@ def _group_medians(h: np.ndarray, d: np.ndarray, block: np.ndarray, max_points: 
 
 
 def _tie_term(v: np.ndarray) -> float:
+    v = np.sort(v)
+    if not (v[1:] == v[:-1]).any():  # no ties (the usual case): no correction
+        return 0.0
     _, counts = np.unique(v, return_counts=True)
     counts = counts[counts > 1].astype(float)
     return float(np.sum(counts * (counts - 1) * (2 * counts + 5)))

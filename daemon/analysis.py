@@ -240,6 +240,7 @@ RATE_MAX_POINTS = 150
 LOSS_FILL_DAYS = 7
 
 _DAY = pd.Timedelta(days=1)
+_RECENT_NS = int(CURRENT_WINDOW_DAYS * 86400 * 1e9)
 
 
 def daily_operation(
@@ -353,7 +354,7 @@ def _rate_until(dev: pd.Series, rel: np.ndarray, steps, t: pd.Timestamp):
 
 def _recent(idx_ns: np.ndarray, n: int, t: pd.Timestamp) -> int:
     """First of the ``n`` windows inside the ``CURRENT_WINDOW_DAYS`` before ``t``."""
-    return int(np.searchsorted(idx_ns[:n], (t - pd.Timedelta(days=CURRENT_WINDOW_DAYS)).value, side="left"))
+    return int(np.searchsorted(idx_ns[:n], t.value - _RECENT_NS, side="left"))
 
 
 def _current_values(values: np.ndarray, idx_ns: np.ndarray, n: int, t: pd.Timestamp) -> tuple[float, float]:
