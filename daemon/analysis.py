@@ -4,18 +4,22 @@ The worker's cycles write per-window deviations from the baseline (measurement `
 What a planner needs comes from the whole history of those deviations, not from one cycle:
 the degradation rate with its interval, the step changes, the projection to the planned
 outage, the cost of the lost efficiency and the payback of an overhaul. ``analyse`` computes
-all of it from in-memory inputs (no I/O, deterministic); ``run_analysis`` reads the inputs
-of the whole stored history (from the baseline's reference start to the last reading) from a
-store, calls ``analyse`` and writes the results back. Re-running it over the same history
-gives identical rows at identical times, so the writes replace and never duplicate. It
-refuses to write an analysis of part of the history, whose rates, steps and cumulative costs
-would overwrite the whole history's; a report of a shorter period takes its figures from the
-whole-history analysis with ``period_view``.
+all of it from in-memory inputs (no I/O, deterministic). ``run_analysis`` is the worker's
+second job (``Worker.analyse``): it brings the stored analysis up to a time, day by day. Each
+UTC midnight is an evaluation time: the rate as it stood then (the windows before it, blocked
+at the steps the CUSUM had detected by then), the current deviation, the net of the steps, and
+the rate and step alarm machines; a midnight's rows are written once it is final and kept,
+the rows after the last final midnight are provisional and replaced by the next run. The
+saved state ``analysis/<unit>`` carries the alarm machines, operating hours and costs from one
+run to the next, so a run reads only the deviations and the new days' gross output. A
+backfill or refit rebuilds it from the reference start (every analysis row deleted first).
+``load_analysis`` reads the stored analysis back for the report, the demo and ``status``.
 
 Result series (also in DEVELOPERS.md, "Result series"):
 
-* ``degradation`` (tags unit, section): one row per month end (and one at the end of the
-  history): ``rate_per_1000h``, ``rate_low``, ``rate_high`` [points per 1000 operating h],
+* ``degradation`` (tags unit, section): one row per UTC midnight (and one at the end of the
+  history): ``rate_intercept`` [points], ``rate_span_h`` [h], ``step_offset`` [points: net of
+  the steps detected by then], ``rate_per_1000h``, ``rate_low``, ``rate_high`` [points per 1000 operating h],
   ``rate_per_month`` [points per 730 operating h], ``rate_ok`` (bool: enough data),
   ``n_windows`` [-], ``operating_hours`` [h since the first deviation], ``deviation_now``
   and ``deviation_now_u`` [points; median of the last week's windows and its standard error
@@ -23,8 +27,11 @@ Result series (also in DEVELOPERS.md, "Result series"):
   windows: one window's measurement and model uncertainty], ``projected``,
   ``projected_low``, ``projected_high`` [points at the planned outage; last row only].
 * ``steps`` (tags unit, section): one row per step found, at the first window at the new
-  level (least-squares change point): ``size``, ``size_u`` [points].
-* ``losses`` (tags unit, section): one row per UTC day (``calc.economics.daily_losses``):
+  level (least-squares change point): ``size``, ``size_u`` [points], ``detected_at_s`` [s
+  since 1970: the window at which the CUSUM crossed its limit].
+* ``operation`` (tags unit): one row per UTC day (``daily_operation``).
+* ``losses`` (tags unit, section): one row per UTC day (as ``calc.economics.daily_losses``,
+  at the day's own online hours and mean online output):
   ``deviation`` [points], ``heat_rate_change`` [%], ``output_change_mw`` [MW], ``lost_mwh``
   [MWh], ``fuel_cost`` [currency], ``cumulative_lost_mwh`` [MWh], ``cumulative_fuel_cost``
   [currency].
@@ -33,7 +40,7 @@ Result series (also in DEVELOPERS.md, "Result series"):
   ``_high``), ``overhaul_payback_years``, ``overhaul_saving_per_year`` [currency/yr],
   ``overhaul_break_even_s`` [s since 1970, UTC].
 * ``alarm_events`` rows for the rules ``degradation_rate`` and ``step_change``, evaluated
-  at each month end (and the end of the history). ``degradation_rate``: ``value`` the rate
+  at each UTC midnight (and the end of the history). ``degradation_rate``: ``value`` the rate
   [points per 1000 h], raised below ``-[alarms] rate_limit_per_1000h``, cleared above 80 %
   of it. ``step_change``: ``value`` the net offset of the steps found up to then, signed
   (the sum of their sizes; a single step's size) [points], raised below
