@@ -1117,6 +1117,8 @@ def run_analysis(
         state = {}
     final = pd.Timestamp(state["final"]) if state.get("final") else None
     read_from = final if final is not None else ref
+    if end is not None and pd.Timestamp(end) <= read_from:  # nothing after what is final
+        return load_analysis(store, config) if load else Analysis(end, {}, _no_events(), math.nan, math.nan)
     gross = [m for m in config.mappings if m.role == "gross_output"]
     ahead = pd.Timestamp.now(tz="UTC") + _READ_AHEAD
     power = store.read(
