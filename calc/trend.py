@@ -492,25 +492,37 @@ def detect_steps(
     changes: list[tuple[int, int, str]] = []  # (step index, alarm index, direction)
     start = 0
     while start < n - 1:
-        z = _recursive_residuals(x[start:], d[start:], drift) / sigma
         s_hi = s_lo = 0.0
         # index of the last zero of each sum: the sums start at zero after the warm-up
         zero_hi = zero_lo = start + warmup_points - 1
         found = None
-        for j in range(warmup_points, z.size):
-            zj = z[j]
-            if not math.isfinite(zj):
-                continue
-            i = start + j
-            s_hi = max(0.0, s_hi + zj - k)
-            s_lo = max(0.0, s_lo - zj - k)
-            if s_hi == 0.0:
-                zero_hi = i
-            if s_lo == 0.0:
-                zero_lo = i
-            if s_hi > h or s_lo > h:
-                found = (zero_hi + 1, i, "up") if s_hi > h else (zero_lo + 1, i, "down")
+        j = warmup_points
+        # The residuals of the segment are computed over a growing stretch from its start, not
+        # to the end of the series at each restart: element j depends on the points before it
+        # only, so the values are the same, and a series with many restarts costs O(n) instead
+        # of O(n x restarts) (ten years of correlated windows: 13 s -> well under 1 s, measured).
+        width = 512
+        while True:
+            stop = min(n, start + width)
+            z = _recursive_residuals(x[start:stop], d[start:stop], drift) / sigma
+            while j < z.size:
+                zj = z[j]
+                i = start + j
+                j += 1
+                if not math.isfinite(zj):
+                    continue
+                s_hi = max(0.0, s_hi + zj - k)
+                s_lo = max(0.0, s_lo - zj - k)
+                if s_hi == 0.0:
+                    zero_hi = i
+                if s_lo == 0.0:
+                    zero_lo = i
+                if s_hi > h or s_lo > h:
+                    found = (zero_hi + 1, i, "up") if s_hi > h else (zero_lo + 1, i, "down")
+                    break
+            if found is not None or stop >= n:
                 break
+            width *= 4
         if found is None:
             break
         tau, alarm, direction = found
