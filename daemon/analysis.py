@@ -1243,6 +1243,9 @@ def load_analysis(store, config) -> Analysis:
             notes=notes,
         )
     end = pd.Timestamp(state["end"])
+    # rows lie at or before the end (reads to a far date would cost an InfluxDB store one
+    # query per read_chunk of the empty years)
+    until = end + _DAY
     _cost_basis(config, notes)
     if config.economics.planned_outage is None:
         notes.append("no planned outage in [economics]: no projection")
@@ -1263,7 +1266,7 @@ def load_analysis(store, config) -> Analysis:
     events = []
     for sec, model in models.items():
         t = {**tags, "section": sec}
-        rows = store.read_results(DEGRADATION_MEASUREMENT, ref, _FAR, t)
+        rows = store.read_results(DEGRADATION_MEASUREMENT, ref, until, t)
         if not len(rows):
             continue
         last = rows.iloc[-1]
@@ -1274,7 +1277,7 @@ def load_analysis(store, config) -> Analysis:
         dev, hours = dev[keep], hours[keep]
         dev_u = dev_u[keep] if dev_u is not None else None
         rel = hours - hours[0] if len(hours) else hours
-        st = store.read_results(STEPS_MEASUREMENT, ref, _FAR, t)
+        st = store.read_results(STEPS_MEASUREMENT, ref, until, t)
         steps = [
             _Step(
                 time=pd.Timestamp(ts),
@@ -1315,9 +1318,9 @@ def load_analysis(store, config) -> Analysis:
             deviation_u=dev_u,
             current_window_u=float(last.get("deviation_now_window_u", math.nan)),
         )
-        losses = store.read_results(LOSSES_MEASUREMENT, ref.floor("D"), _FAR, t)
+        losses = store.read_results(LOSSES_MEASUREMENT, ref.floor("D"), until, t)
         o.losses = losses if len(losses) else None
-        ol = store.read_results(OUTLOOK_MEASUREMENT, ref, _FAR, t)
+        ol = store.read_results(OUTLOOK_MEASUREMENT, ref, until, t)
         if len(ol):
             r = ol.iloc[-1]
             if pd.notna(r.get("projected_fuel_cost", math.nan)):
@@ -1351,7 +1354,7 @@ def load_analysis(store, config) -> Analysis:
                 )
         sections[sec] = o
         for rule in ANALYSIS_RULES:
-            ev = store.read_results(ALARMS_MEASUREMENT, ref, _FAR, {**t, "rule": rule})
+            ev = store.read_results(ALARMS_MEASUREMENT, ref, until, {**t, "rule": rule})
             if len(ev) and "raised" in ev:
                 raised = ev["raised"].to_numpy(dtype=float) > 0.5
                 events.append(
