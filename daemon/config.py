@@ -457,9 +457,17 @@ class EconomicsConfig:
 class ScheduleConfig:
     """Worker timing: run every ``interval``; process up to now - ``settle``; start each
     cycle ``lookback`` before the checkpoint; catch up in ``chunk`` pieces; retry a store
-    call ``retries`` times with exponential backoff from ``backoff`` up to ``backoff_max``."""
+    call ``retries`` times with exponential backoff from ``backoff`` up to ``backoff_max``.
+    Every ``analysis_interval`` the worker also brings the degradation analysis up to its
+    checkpoint (``isentrope.daemon.analysis.run_analysis``); "0s" switches that job off."""
 
     interval: dt.timedelta = dt.timedelta(minutes=5)
+    #: Hourly: the analysis finalises whole UTC days, so the step and rate alarms come at the
+    #: end of the day at the latest whatever the interval; an hourly run shows a new step or
+    #: rate on the dashboards within the hour (provisional rows, replaced by the next run) at
+    #: about a second a run on ten years of history (tests/bench/bench_analysis.py), which
+    #: a five-minute cycle would spend twelve times over for little (project choice).
+    analysis_interval: dt.timedelta = dt.timedelta(hours=1)
     settle: dt.timedelta = dt.timedelta(minutes=2)
     lookback: dt.timedelta = dt.timedelta(minutes=30)
     chunk: dt.timedelta = dt.timedelta(days=1)
@@ -1415,10 +1423,15 @@ def _read_economics(r: _Reader, top: dict) -> EconomicsConfig:
 
 
 #: Longest ``[schedule] settle`` and ``lookback`` (project choice, no source).
-SCHEDULE_LONGEST = {"settle": dt.timedelta(days=1), "lookback": dt.timedelta(days=31)}
+SCHEDULE_LONGEST = {
+    "settle": dt.timedelta(days=1),
+    "lookback": dt.timedelta(days=31),
+    "analysis_interval": dt.timedelta(days=1),
+}
 SCHEDULE_WHY = {
     "settle": "results come this late; data arriving later is reprocessed by the look-back",
     "lookback": "every cycle reads and computes this much again",
+    "analysis_interval": "a step alarm must come within a day of the step",
 }
 
 
@@ -1430,7 +1443,7 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
     v = {}
     for k in ("interval", "chunk", "backoff", "backoff_max"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0, low_open=True)
-    for k in ("settle", "lookback"):
+    for k in ("settle", "lookback", "analysis_interval"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0)
         longest = SCHEDULE_LONGEST[k]
         if v[k] is not None and v[k] > longest:

@@ -368,6 +368,100 @@ class Worker:
     def tags(self) -> dict[str, str]:
         return {"unit": self.unit}
 
+    # --- the analysis job and owned periods ------------------------------------------------
+    @property
+    def analysis_status_name(self) -> str:
+        return f"analysis/{self.unit}"
+
+    def own_period(self, start: pd.Timestamp, end: pd.Timestamp) -> None:
+        """Delete every result row of the unit's cycle series (per-sample figures, steady
+        windows, deviations of any baseline model, alarm events) in ``[start, end)``: a
+        backfill or refit that processes the period again owns it, so rows an earlier run wrote
+        where this one writes none do not stay behind."""
+        from isentrope.daemon.pipeline import (
+            ALARMS_MEASUREMENT,
+            DEVIATION_MEASUREMENT,
+            SAMPLES_MEASUREMENT,
+            WINDOWS_MEASUREMENT,
+        )
+
+        start, end = _utc(start), _utc(end)
+        for m in (SAMPLES_MEASUREMENT, WINDOWS_MEASUREMENT, DEVIATION_MEASUREMENT, ALARMS_MEASUREMENT):
+            self._retry(
+                lambda m=m: self.store.delete_results(m, start, end, self.tags),
+                f"deleting {m} of unit {self.unit} from {start.isoformat()} to {end.isoformat()}",
+            )
+        logger.info(
+            "unit %s: results from %s to %s deleted before processing the period again",
+            self.unit,
+            start.isoformat(),
+            end.isoformat(),
+        )
+
+    def analyse(self, end: pd.Timestamp | None = None, *, rebuild: bool = False):
+        """Bring the stored degradation analysis (``isentrope.daemon.analysis.run_analysis``)
+        up to ``end`` (None: this worker's checkpoint); days before the checkpoint less the
+        look-back and one steady window, whose results no later cycle changes, become final.
+        Writes one ``worker_status`` row (tag ``worker`` = ``analysis/<unit>``) and returns what
+        this run computed (``run_analysis(..., load=False)``: the rows and alarm events since
+        the last final day); None when there is nothing processed yet. Temporary store trouble
+        is logged and the job tried again at its next run; it is serialised with the cycles."""
+        from isentrope.daemon import analysis
+
+        with self._lock:
+            t0 = _time.monotonic()
+            started = self.clock()
+            checkpoint = self._retry(
+                lambda: self.store.get_checkpoint(self.checkpoint_name),
+                f"reading checkpoint {self.checkpoint_name!r}",
+            )
+            end = _utc(end) if end is not None else checkpoint
+            if end is None:
+                return None
+            final_until = end
+            if checkpoint is not None and self.config is not None:
+                final_until = min(end, checkpoint - self.lookback - self.config.steady.max_length)
+            ok, result, error = True, None, ""
+            try:
+                result = analysis.run_analysis(
+                    self.store, self.config, end, final_until=final_until, rebuild=rebuild, load=False
+                )
+            except TemporaryStoreError as exc:
+                ok, error = False, str(exc)
+                logger.warning(
+                    "unit %s: analysis up to %s not done: %s; tried again at its next run",
+                    self.unit,
+                    end.isoformat(),
+                    exc,
+                )
+            duration = _time.monotonic() - t0
+            row = pd.DataFrame(
+                {
+                    "analysis_end_s": [float((end - _EPOCH).total_seconds())],
+                    "duration_s": [float(duration)],
+                    "ok": [ok],
+                    "sections": [float(len(result.sections)) if result is not None else np.nan],
+                },
+                index=pd.DatetimeIndex([floor_time(started, DEFAULT_RESOLUTION)], name="time"),
+            )
+            try:
+                self.store.write_results(
+                    STATUS_MEASUREMENT, row, {**self.tags, "worker": self.analysis_status_name}
+                )
+            except (TemporaryStoreError, FatalStoreError) as exc:
+                logger.warning("unit %s: analysis heartbeat not written: %s", self.unit, exc)
+            if ok:
+                logger.info(
+                    "unit %s: analysis up to %s in %.1f s%s",
+                    self.unit,
+                    end.isoformat(),
+                    duration,
+                    "" if result is None or result.sections else " (nothing to analyse yet: no baseline)",
+                )
+            elif error:
+                return None
+            return result
+
     # --- control --------------------------------------------------------------------------
     def stop(self) -> None:
         """Ask the worker to stop after the chunk in progress."""

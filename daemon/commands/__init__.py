@@ -10,6 +10,7 @@ import re
 COMMAND_MODULES: list[str] = [
     "isentrope.daemon.commands.run",
     "isentrope.daemon.commands.backfill",
+    "isentrope.daemon.commands.status",
     "isentrope.daemon.commands.fleet",
     "isentrope.daemon.commands.check",
     "isentrope.daemon.commands.import_csv",

@@ -2,7 +2,11 @@
 
 The backfill keeps its own checkpoint, named after the unit and the period, so it never moves
 the scheduled worker's checkpoint, and running the same command again after an interruption
-(even SIGKILL) resumes after the last chunk whose results were fully written. One chunk
+(even SIGKILL) resumes after the last chunk whose results were fully written. The backfill
+owns the period it processes: before it starts (or resumes) it deletes the unit's results in
+what is left of the period (``Worker.own_period``), so rows of an earlier run stay nowhere
+this one writes none. At its end it analyses the whole history again (``Worker.analyse``
+with ``rebuild``): every analysis row is replaced, as if only this run had happened. One chunk
 (``[schedule] chunk``, or ``--chunk``) is in memory at a time. A progress bar goes to stderr.
 Results are advisory performance information, not a protective function.
 """
@@ -83,6 +87,8 @@ def run(args) -> int:
             )
         else:
             worker.warn_if_baseline_changed()
+        resumed_at = store.get_checkpoint(name)
+        worker.own_period(start if resumed_at is None else max(start, min(resumed_at, end)), end)
         received: list[int] = []
 
         def on_signal(signum, _frame):
@@ -128,6 +134,8 @@ def run(args) -> int:
                 file=sys.stderr,
             )
             return EXIT_UNREACHABLE
+        live = store.get_checkpoint(f"run/{config.unit.name}")  # the scheduled worker's
+        worker.analyse(end=max(end, live) if live is not None else end, rebuild=True)
         if report.chunks_done and not report.rows_read:
             logger.warning(
                 "unit %s: no sample of any mapped tag between %s and %s: nothing was computed; "

@@ -1,12 +1,13 @@
 """`isentrope report -c FILE --start T --end T -o DIR`: the HTML report for a period.
 
-Runs the degradation analysis over the whole stored history, from the baseline's reference
-start to the last reading, whatever the period asked for, and writes its result series back
-(idempotently: the same history gives the same rows). Then writes ``DIR/index.html`` with
-its PNG figures for the period ``[--start, --end)``: the planner summary is the state at the
-end of the history, the period table and the figures are the period's, taken from that
-analysis. A short period therefore never rewrites the stored rates, steps or cumulative costs
-with those of the period alone. Advisory performance information, not a protective function.
+Reads the degradation analysis the worker stored (``analysis.load_analysis``: the whole
+history from the baseline's reference start, whatever the period asked for); when none is
+stored yet it brings it up to the last reading first (``run_analysis``, as the worker's job
+does). Then writes ``DIR/index.html`` with its PNG figures for the period ``[--start,
+--end)``: the planner summary is the state at the end of the analysed history, the period
+table and the figures are the period's, taken from that analysis. A report never rewrites the
+stored rates, steps or cumulative costs with those of its period alone. Advisory performance
+information, not a protective function.
 """
 
 from __future__ import annotations
@@ -28,7 +29,7 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from isentrope.daemon.analysis import run_analysis
+    from isentrope.daemon.analysis import load_analysis, run_analysis, state_name
     from isentrope.daemon.config import load_config
     from isentrope.daemon.report import write_report
     from isentrope.daemon.stores import open_store
@@ -39,7 +40,10 @@ def run(args) -> int:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        analysis = run_analysis(store, config)  # the whole history, not the period
+        if store.load_state(state_name(config)).get("end"):
+            analysis = load_analysis(store, config)  # what the worker stored
+        else:
+            analysis = run_analysis(store, config)  # none yet: the whole history, not the period
         path = write_report(
             store,
             config,

@@ -2,7 +2,10 @@
 
 Every ``[schedule] interval`` the worker processes the data from its checkpoint (minus the
 look-back) to now minus the settle delay, in chunks, and writes the results and a heartbeat
-(``worker_status``). ``--once`` runs a single cycle and exits (for cron or a systemd timer).
+(``worker_status``). Every ``[schedule] analysis_interval`` (default 1 h; "0s" turns it off) it
+also brings the degradation analysis up to its checkpoint and writes rates, steps, the rate
+and step alarms, losses and the outlook back for dashboards (``Worker.analyse``).
+``--once`` runs a single cycle and then the analysis, and exits (for cron or a systemd timer).
 Without a checkpoint (first start) it processes only the last look-back; process the history
 before that with ``isentrope backfill``.
 SIGTERM and SIGINT stop it cleanly after the chunk in progress. Results are advisory
@@ -14,6 +17,8 @@ from __future__ import annotations
 import logging
 import signal
 import threading
+
+import pandas as pd
 
 from isentrope.daemon.errors import (
     EXIT_CONFIG,
@@ -64,6 +69,9 @@ def run(args) -> int:
         worker = Worker.from_config(config, store)
         if args.once:
             report = worker.run_cycle()
+            if report.ok and config.schedule.analysis_interval.total_seconds() > 0:
+                if worker.analyse() is None and worker.last_report.checkpoint is not None:
+                    return EXIT_UNREACHABLE
             return EXIT_OK if report.ok else EXIT_UNREACHABLE
         return _serve(worker, config)
     finally:
@@ -96,6 +104,16 @@ def _serve(worker, config) -> int:
             exit_code[0] = EXIT_CONFIG if isinstance(exc, CertificateError) else EXIT_OTHER
             stop.set()
 
+    def analysis():
+        try:
+            worker.analyse()  # temporary store trouble is logged inside
+        except FatalStoreError as exc:
+            logger.error("unit %s: stopping the worker: %s", config.unit.name, exc)
+            exit_code[0] = (
+                EXIT_CONFIG if isinstance(exc, (AuthorizationError, CertificateError)) else EXIT_OTHER
+            )
+            stop.set()
+
     previous = _install_signal_handlers(on_signal)
     scheduler = BackgroundScheduler(timezone="UTC")
     interval = config.schedule.interval.total_seconds()
@@ -108,10 +126,24 @@ def _serve(worker, config) -> int:
         misfire_grace_time=None,
         next_run_time=worker.clock().to_pydatetime(),
     )
+    every = config.schedule.analysis_interval.total_seconds()
+    if every > 0:
+        scheduler.add_job(
+            analysis,
+            IntervalTrigger(seconds=every, timezone="UTC"),
+            id=f"analysis/{config.unit.name}",
+            max_instances=1,
+            coalesce=True,
+            misfire_grace_time=None,
+            # after the first cycle has had its start (the two share the worker's lock)
+            next_run_time=(worker.clock() + pd.Timedelta(seconds=min(every, interval))).to_pydatetime(),
+        )
     logger.info(
-        "unit %s: worker started, a cycle every %.0f s (settle %s, look-back %s, chunk %s)",
+        "unit %s: worker started, a cycle every %.0f s, the analysis every %s (settle %s, "
+        "look-back %s, chunk %s)",
         config.unit.name,
         interval,
+        f"{every:.0f} s" if every > 0 else "never",
         config.schedule.settle,
         config.schedule.lookback,
         config.schedule.chunk,

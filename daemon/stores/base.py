@@ -23,6 +23,10 @@ Contract (checked by tests/daemon/stores/test_contract.py against every implemen
   (UTC index) as a field of ``measurement`` with the given tags. Idempotent: writing the same
   (measurement, tags, time, field) again replaces the value, never duplicates it.
 * ``read_results(measurement, start, end, tags)`` reads them back, one column per field.
+* ``delete_results(measurement, start, end, tags)`` deletes every row of ``measurement`` in
+  ``[start, end)`` whose tags include ``tags`` (all fields): what a re-run owns before it
+  writes again, so that the store reads as if only that run had happened. An unknown
+  measurement or tag is no error (there is nothing to delete).
 * ``get_checkpoint(name)`` / ``set_checkpoint(name, time)``: the worker's progress.
 * ``load_state(name)`` / ``save_state(name, dict)``: JSON-serialisable state (alarm state
   machines, baseline model references) that must survive a restart.
@@ -211,6 +215,16 @@ class Store(ABC):
         tags: Mapping[str, str],
     ) -> pd.DataFrame:
         """Result fields of ``measurement`` in ``[start, end)``, one column per field."""
+
+    @abstractmethod
+    def delete_results(
+        self,
+        measurement: str,
+        start: pd.Timestamp,
+        end: pd.Timestamp,
+        tags: Mapping[str, str],
+    ) -> None:
+        """Delete the rows of ``measurement`` in ``[start, end)`` whose tags include ``tags``."""
 
     # --- worker state -------------------------------------------------------------------
     @abstractmethod

@@ -19,6 +19,10 @@ and the rest) on ``err.unwritten``; after a temporary failure they are also kept
 and written first by the next write call, so nothing is lost while the server is away (writing
 them again is harmless: writes are idempotent).
 
+Deletes: ``DELETE FROM "<measurement>" WHERE "<tag>" = '<value>' AND time >= <start> AND
+time < <end>`` (``influx_common.delete_statement``). InfluxQL's DELETE takes no retention
+policy: it deletes the points of every retention policy of the database.
+
 Checkpoints and state are points of the measurement ``isentrope_worker`` (see
 ``influx_common.STATE_MEASUREMENT``).
 """
@@ -46,6 +50,7 @@ from isentrope.daemon.stores.influx_common import (
     authorization_error,
     certificate_failure,
     classify_http,
+    delete_statement,
     state_line,
     time_windows,
     tls_verify,
@@ -342,6 +347,28 @@ class Influx1Store(LineProtocolWriter, Store):
         if not frames:
             return common.results_frame({}, np.array([], dtype=np.int64))
         return common.results_frame(pd.concat(frames))
+
+    def execute(self, q: str, what: str) -> dict:
+        """Run one InfluxQL statement that returns no rows (DELETE, DROP); FatalStoreError on
+        the server's error."""
+        params = {"db": self.database}
+        if self.retention_policy:
+            params["rp"] = self.retention_policy
+        body = self._request("POST", "/query", what, params=params, data={"q": q}).json()
+        result = (body.get("results") or [{}])[0]
+        if "error" in result or "error" in body:
+            raise FatalStoreError(
+                f"{what} ({self.url}, database {self.database!r}): {result.get('error') or body['error']}"
+            )
+        return result
+
+    def delete_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> None:
+        escape.check_name(measurement, "measurement")
+        tags = common.check_tags(tags)
+        start, end = common.window(start, end)
+        if not self._db_checked:
+            self._check_database()
+        self.execute(delete_statement(measurement, start, end, tags), f"delete_results {measurement}")
 
     # --- worker state --------------------------------------------------------------------
     def _last_state(self, kind: str, name: str) -> str | None:

@@ -41,6 +41,15 @@ still fails raises ``TemporaryStoreError``/``FatalStoreError`` with its lines (a
 ``err.unwritten``; after a temporary failure they also stay in ``pending`` and go first in the
 next write call.
 
+Deletes (``delete_results``): ``/api/v2/delete`` with the predicate
+``_measurement="<m>" AND <tag>="<value>"`` from ``start`` to ``end`` less 1 ns (the endpoint's
+stop is taken as inclusive, so the window stays half-open either way). influxd 1.8 (OSS,
+measured on 1.8.10) has no such endpoint and answers 404: the store then sends the same delete
+as InfluxQL (``DELETE FROM ... WHERE ... AND time >= .. AND time < ..``) to the v1 ``/query``
+endpoint that 1.8 serves, on the database of ``bucket`` ("db/rp"), and remembers to do so. A
+server with neither raises ``FatalStoreError`` saying so. The v2 path was not tried on a 2.x
+server here.
+
 Token: ``token`` itself, or the name of an environment variable (``token_env``) or a file
 (``token_file``) holding it; it never appears in ``repr`` or an error message.
 """
@@ -49,7 +58,9 @@ from __future__ import annotations
 
 import io
 import json
+import logging
 import os
+import re
 import threading
 from collections.abc import Mapping, Sequence
 from pathlib import Path
@@ -79,11 +90,14 @@ from isentrope.daemon.stores.influx_common import (
     certificate_failure,
     classify_http,
     clear_type_text,
+    delete_statement,
     influxql_time,
     state_line,
     time_windows,
     tls_verify,
 )
+
+logger = logging.getLogger(__name__)
 
 _DIALECT = Dialect(
     header=True, delimiter=",", annotations=["datatype"], comment_prefix="#", date_time_format="RFC3339Nano"
@@ -101,6 +115,16 @@ class _Retry(WritesRetry):
         if error is not None and certificate_detail(error) is not None:
             raise urllib3.exceptions.MaxRetryError(_pool, url, error)
         return super().increment(method, url, response, error, _pool, _stacktrace)
+
+
+def _predicate_string(value: str) -> str:
+    """A double-quoted string of the v2 delete predicate."""
+    return '"' + value.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def _predicate_key(key: str) -> str:
+    """A tag key of the v2 delete predicate: bare when it is a plain word, else quoted."""
+    return key if re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*", key) else _predicate_string(key)
 
 
 def flux_time(t: pd.Timestamp) -> str:
@@ -207,6 +231,10 @@ class Influx2Store(LineProtocolWriter, Store):
             retries=retry,
         )
         self._write_api = self._client.write_api(write_options=SYNCHRONOUS)
+        self._delete_api = self._client.delete_api()
+        self._token = token
+        self._verify = verify  # False, or the CA file (tls_verify): for the v1 delete below
+        self._v1_delete = False  # True once the server answered 404 on /api/v2/delete
         self._query_api = self._client.query_api()
 
     def __repr__(self) -> str:  # never the token
@@ -504,6 +532,83 @@ class Influx2Store(LineProtocolWriter, Store):
         if not frames:
             return common.results_frame({}, np.array([], dtype=np.int64))
         return common.results_frame(pd.concat(frames))
+
+    def delete_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> None:
+        escape.check_name(measurement, "measurement")
+        tags = common.check_tags(tags)
+        start, end = common.window(start, end)
+        if end <= start:
+            return
+        what = f"delete_results {measurement}"
+        if not self._v1_delete:
+            predicate = " AND ".join(
+                [f"_measurement={_predicate_string(measurement)}"]
+                + [f"{_predicate_key(k)}={_predicate_string(v)}" for k, v in tags.items()]
+            )
+            try:
+                self._delete_api.delete(
+                    start=flux_time(start),
+                    stop=flux_time(end - pd.Timedelta(1, unit="ns")),
+                    predicate=predicate,
+                    bucket=self.results_bucket,
+                    org=self.org or "-",
+                )
+                return
+            except self._CAUGHT as exc:
+                err = self._error(exc, what, RESULTS, "write")
+                body = str(getattr(exc, "body", "") or "").lower()
+                if getattr(exc, "status", None) != 404 or "bucket" in body:
+                    raise err from None  # a 2.x server's 404 names the missing bucket
+            self._v1_delete = True
+            logger.info(
+                "%s has no /api/v2/delete (HTTP 404, as influxd 1.8): deleting through the v1 /query "
+                "endpoint with InfluxQL DELETE",
+                self.url,
+            )
+        self._delete_v1(measurement, start, end, tags, what)
+
+    def _delete_v1(self, measurement: str, start, end, tags: Mapping[str, str], what: str) -> None:
+        """The delete as InfluxQL on the v1 /query endpoint (influxd 1.8 has no /api/v2/delete)."""
+        import requests
+
+        db, _, rp = self.results_bucket.partition("/")
+        headers = {"User-Agent": "isentrope"}
+        if self._token:
+            headers["Authorization"] = f"Token {self._token}"
+        params = {"db": db}
+        if rp:
+            params["rp"] = rp
+        try:
+            resp = requests.post(
+                self.url + "/query",
+                params=params,
+                data={"q": delete_statement(measurement, start, end, tags)},
+                headers=headers,
+                timeout=self.timeout,
+                verify=self._verify,
+            )
+        except (requests.ConnectionError, requests.Timeout) as exc:
+            cert = certificate_failure(exc, what)
+            if cert is not None:
+                raise cert from None
+            raise TemporaryStoreError(f"{what}: {self.url} unreachable: {type(exc).__name__}") from None
+        where = f"{what} ({self.url}, bucket {self.results_bucket!r})"
+        if resp.status_code in (401, 403):
+            needs = f"write access to bucket {self.results_bucket!r} ({self._bucket_key(RESULTS)})"
+            raise authorization_error(
+                resp.status_code, resp.text, where, "[store] token (or token_file)", needs
+            )
+        if resp.status_code == 404:
+            raise FatalStoreError(
+                f"{where}: the server has neither /api/v2/delete nor the v1 /query endpoint (HTTP 404); "
+                "results of an earlier run cannot be deleted here: delete them on the server"
+            )
+        if resp.status_code >= 300:
+            raise classify_http(resp.status_code, resp.text, where)
+        body = resp.json()
+        result = (body.get("results") or [{}])[0]
+        if "error" in result or "error" in body:
+            raise FatalStoreError(f"{where}: {result.get('error') or body['error']}")
 
     # --- worker state --------------------------------------------------------------------
     def _last_state(self, kind: str, name: str) -> str | None:

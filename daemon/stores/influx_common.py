@@ -522,6 +522,18 @@ def state_line(kind: str, name: str, value: str, t_ns: int) -> str:
     return f"{key} value={escape.lp_string_value(value)} {t_ns}"
 
 
+def delete_statement(
+    measurement: str, start: pd.Timestamp, end: pd.Timestamp, tags: Mapping[str, str]
+) -> str:
+    """InfluxQL DELETE of the points of ``measurement`` in ``[start, end)`` whose tags include
+    ``tags`` (every name quoted by ``escape``; times as integer nanoseconds)."""
+    conds = [
+        f"{escape.influxql_identifier(k, 'tag key')} = {escape.influxql_string(v)}" for k, v in tags.items()
+    ]
+    conds += [f"time >= {int(start.value)}", f"time < {int(end.value)}"]
+    return f"DELETE FROM {escape.influxql_identifier(measurement, 'measurement')} WHERE {' AND '.join(conds)}"
+
+
 def time_windows(
     start: pd.Timestamp, end: pd.Timestamp, chunk: pd.Timedelta
 ) -> Iterator[tuple[pd.Timestamp, pd.Timestamp]]:

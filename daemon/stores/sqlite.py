@@ -37,6 +37,7 @@ Behaviour worth knowing:
   that field in place, the same as the InfluxDB stores, whose line protocol has no NaN.
 * Result bools and integers are stored as REAL (0.0/1.0).
 * A new tag key on an existing measurement rebuilds its table once with the wider key.
+* ``delete_results`` is a plain ``DELETE ... WHERE <tags> AND time >= ? AND time < ?``.
 * Table names ``samples`` and those starting with ``isentrope_`` or ``sqlite_`` are reserved.
 * Grid reads (``Store.read_grid``) take the plain ``read_raw`` SELECT and the numpy windowing of
   ``Store.read_window_last``. A SQL ``GROUP BY (time + iv - 1) / iv`` with ``MAX(time)`` gives
@@ -347,6 +348,22 @@ class SqliteStore(Store):
         times = np.array([r[0] for r in rows], dtype=np.int64) * _NS_PER_MS
         data = np.array([r[1:] for r in rows], dtype=np.float64).reshape(len(rows), -1)
         return common.results_frame({f: data[:, i] for i, f in enumerate(fields)}, times)
+
+    def delete_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> None:
+        self._check_measurement(measurement)
+        tags = common.check_tags(tags)
+        start, end = common.window(start, end)
+        lo = -(-start.value // _NS_PER_MS)
+        hi = -(-end.value // _NS_PER_MS)
+
+        def go(db):
+            keys = self._tag_keys(db, measurement)
+            if keys is None or any(k not in keys for k in tags):
+                return  # no such table or tag key: no such rows
+            where = " AND ".join([f"{_ident(k)} = ?" for k in tags] + ["time >= ?", "time < ?"])
+            db.execute(f"DELETE FROM {_ident(measurement)} WHERE {where}", (*tags.values(), lo, hi))
+
+        self._run("delete_results", go)
 
     # --- worker state --------------------------------------------------------------------
     def get_checkpoint(self, name: str) -> pd.Timestamp | None:

@@ -215,3 +215,30 @@ def test_many_points_are_grouped_into_medians():
     assert small.n_used == 800
     with pytest.raises(ValueError, match="max_points"):
         degradation_rate(h, d, max_points=5)
+
+
+def test_refined_step_is_the_least_squares_change_point_of_a_direct_fit():
+    # The refinement solves all candidates at once from sums; here each candidate is fitted
+    # directly (numpy.linalg.lstsq of level, slope and offset) and the smallest residual sum
+    # of squares must be where detect_steps put the step. Invented series (one step of -0.8
+    # point in 0.2 point noise with a slope), the answer set by the direct fit itself.
+    rng = np.random.default_rng(11)
+    n = 3000
+    hours = np.arange(n) * 2.0
+    dev = -0.3 * hours / 1000.0 + rng.normal(0.0, 0.2, n)
+    dev[1700:] -= 0.8
+    times = pd.date_range("2024-01-01", periods=n, freq="2h", tz="UTC")
+    rough = trend.detect_steps(times, dev, hours=hours)
+    fine = trend.detect_steps(times, dev, hours=hours, refine=True)
+    assert len(rough) == len(fine) == 1
+    tau, alarm = rough[0].index, int(np.searchsorted(times, rough[0].detected_at))
+    x = hours / 1000.0
+    best, best_rss = None, np.inf
+    for c in range(max(1, tau - (alarm - tau) - 5), alarm + 1):
+        design = np.column_stack([np.ones(n), x, (np.arange(n) >= c).astype(float)])
+        beta, *_ = np.linalg.lstsq(design, dev, rcond=None)
+        r = dev - design @ beta
+        if float(r @ r) < best_rss:
+            best, best_rss = c, float(r @ r)
+    assert fine[0].index == best
+    assert abs(best - 1700) <= 3

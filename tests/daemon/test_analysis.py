@@ -52,11 +52,13 @@ def test_step_alarm_carries_the_signed_size_and_stays_raised_until_a_step_takes_
     assert [s.direction for s in steps] == ["down", "up"]
     assert steps[0].size == pytest.approx(-1.0, abs=0.05)  # injected above
     ev = result.alarm_events[result.alarm_events["rule"] == "step_change"]
-    # raised at the first month end after the loss, with the signed size and the configured
-    # threshold; not cleared at the month ends while the loss stands (04-01, 05-01); cleared
-    # at the month end after the step back (06-01), with the net offset left
+    # evaluated at each UTC midnight: raised at the first midnight after the loss (within a day
+    # of steady running after it), with the signed size and the configured threshold; not
+    # cleared at the midnights while the loss stands; cleared at the first midnight after the
+    # step back, with the net offset left
     assert list(ev["kind"]) == ["raised", "cleared"]
-    assert list(ev.index) == [pd.Timestamp("2025-03-01", tz="UTC"), pd.Timestamp("2025-06-01", tz="UTC")]
+    assert list(ev.index) == [STEP_DOWN.ceil("D"), STEP_UP.ceil("D")]
+    assert all(ev.index - pd.DatetimeIndex([STEP_DOWN, STEP_UP]) <= pd.Timedelta(days=1))
     raised, cleared = ev.iloc[0], ev.iloc[1]
     assert raised["value"] == pytest.approx(steps[0].size, rel=1e-12)
     assert raised["threshold"] == -config.alarms.min_step_points
@@ -122,4 +124,4 @@ def test_the_current_deviation_carries_both_uncertainties(config):
     )
     assert o.current_u < 0.01  # 42 windows of 0.05 pt noise: the level is known to < 0.01 pt
     assert o.current_window_u == pytest.approx(0.33, rel=1e-12)
-    assert o.monthly["deviation_now_window_u"].iloc[-1] == pytest.approx(0.33, rel=1e-12)
+    assert o.daily["deviation_now_window_u"].iloc[-1] == pytest.approx(0.33, rel=1e-12)

@@ -91,7 +91,9 @@ def test_a_changed_baseline_is_reported_and_refit_takes_it_up(tmp_path, caplog):
     assert ref2 == (second[0].isoformat(), second[1].isoformat())
     models_after = _models(tmp_path)
     new = set(models_after) - set(models_before)
-    assert len(new) == 1  # one new model id (the deviation series of the old one stay, tagged with it)
+    assert (
+        len(new) == 1
+    )  # one new model id (the refit owns its period: the old one's deviations in it are gone)
     first_new = models_after[new.pop()]
     assert first_new >= second[1]  # deviations of the new model after its reference period only
 

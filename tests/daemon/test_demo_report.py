@@ -431,8 +431,12 @@ def test_a_short_report_keeps_the_stored_analysis_and_shows_the_period(demo_dir,
         assert row["steady windows"] == str(n)
 
 
-def test_run_analysis_refuses_to_write_part_of_the_history(demo_dir, tmp_path):
-    from isentrope.daemon.analysis import run_analysis
+def test_the_demo_and_its_report_show_the_analysis_the_worker_stored(demo_dir, tmp_path):
+    # The demo runs the worker's analysis job; its report reads the stored rows: the planner
+    # table's rate is the last stored degradation row's, and running the analysis again up
+    # to the same end (the worker's next run with no new data) leaves every row as it was.
+    # Consistency checks between the report and the store (no outside source).
+    from isentrope.daemon.analysis import load_analysis, run_analysis
     from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
 
@@ -443,16 +447,22 @@ def test_run_analysis_refuses_to_write_part_of_the_history(demo_dir, tmp_path):
     config = load_config(tmp_path / "greywater2.toml")
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        whole = run_analysis(store, config, write=False)
-        # the end of the history: one sample spacing after the demo's last reading
-        assert whole.end == pd.Timestamp("2025-01-01", tz="UTC") + pd.Timedelta(days=DAYS)
-        with pytest.raises(ValueError, match="partial analysis"):
-            run_analysis(store, config, pd.Timestamp("2025-01-20", tz="UTC"), whole.end)
-        with pytest.raises(ValueError, match="partial analysis"):
-            run_analysis(store, config, None, pd.Timestamp("2025-01-25", tz="UTC"))
-        part = run_analysis(store, config, None, pd.Timestamp("2025-01-25", tz="UTC"), write=False)
-        assert part.end == pd.Timestamp("2025-01-25", tz="UTC")
+        stored = load_analysis(store, config)
+        assert stored.end == pd.Timestamp("2025-01-01", tz="UTC") + pd.Timedelta(days=DAYS)
+        run_analysis(store, config, stored.end)
+        again = load_analysis(store, config)
+        last = store.read_results(
+            "degradation",
+            stored.end,
+            stored.end + pd.Timedelta(1, unit="s"),
+            {"unit": config.unit.name, "section": "hp"},
+        )
     finally:
         store.close()
     for m in _ANALYSIS_SERIES:
         assert _rows(db, m) == before[m], m
+    hp = again.sections["hp"]
+    assert hp.rate.slope_per_1000h == last["rate_per_1000h"].iloc[-1]
+    page = (demo_dir / "report" / "index.html").read_text()
+    planner = _table_after(page, "Summary for the planner")
+    assert planner["HP section"]["rate [pt/1000 h] (95 %)"].startswith(f"{hp.rate.slope_per_1000h:+.2f} (")

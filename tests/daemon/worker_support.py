@@ -150,6 +150,12 @@ class MemoryStore(Store):
         out = pd.concat(parts).sort_index()
         return out.loc[(out.index >= start) & (out.index < end)]
 
+    def delete_results(self, measurement, start, end, tags):
+        self.calls.append(f"delete_results:{measurement}")
+        for (m, t), f in list(self.results.items()):
+            if m == measurement and set(tags.items()) <= set(t):
+                self.results[(m, t)] = f.loc[(f.index < start) | (f.index >= end)]
+
     def get_checkpoint(self, name):
         self.calls.append("get_checkpoint")
         return self.checkpoints.get(name)
@@ -194,6 +200,10 @@ class FailingStore(Store):
     def read_results(self, measurement, start, end, tags):
         self._maybe_fail("read_results")
         return self.inner.read_results(measurement, start, end, tags)
+
+    def delete_results(self, measurement, start, end, tags):
+        self._maybe_fail("delete_results")
+        return self.inner.delete_results(measurement, start, end, tags)
 
     def get_checkpoint(self, name):
         self._maybe_fail("get_checkpoint")

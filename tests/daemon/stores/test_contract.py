@@ -298,6 +298,51 @@ def test_results_window_half_open_and_unknown_measurement(case):
     assert empty.empty
 
 
+def test_delete_results_takes_the_window_and_the_tags_only(case, caplog):
+    """delete_results removes [start, end) of the series whose tags include the given ones, and
+    nothing else: not the other unit, not another measurement, not the rows either side; then
+    a write into the emptied window reads as if it had been the only one."""
+    frame = results_frame()[["hp_efficiency", "ip_efficiency"]]  # 8 rows, one an hour
+    for unit in ("U7", "U8"):
+        for rule in ("a", "b"):
+            case.store.write_results("alarm_events", frame, {"unit": unit, "section": "hp", "rule": rule})
+    case.store.write_results("sections", frame, {"unit": "U7"})
+    day = T0 + pd.Timedelta("1D")
+    lo, hi = frame.index[2], frame.index[5]
+    with caplog.at_level("INFO", logger="isentrope.daemon.stores.influx2"):
+        case.store.delete_results("alarm_events", lo, hi, {"unit": "U7", "section": "hp"})
+    if case.name == "influx2-1.8":  # 1.8 has no /api/v2/delete: the v1 InfluxQL DELETE did it
+        assert any("no /api/v2/delete (HTTP 404" in r.getMessage() for r in caplog.records)
+    for rule in ("a", "b"):
+        got = case.store.read_results("alarm_events", T0, day, {"unit": "U7", "section": "hp", "rule": rule})
+        assert list(got.index) == list(frame.index[:2]) + list(frame.index[5:])  # end excluded
+        other = case.store.read_results(
+            "alarm_events", T0, day, {"unit": "U8", "section": "hp", "rule": rule}
+        )
+        assert len(other) == 8
+    assert len(case.store.read_results("sections", T0, day, {"unit": "U7"})) == 8
+    # only one rule's series
+    case.store.delete_results("alarm_events", T0, day, {"unit": "U8", "rule": "b"})
+    assert case.store.read_results(
+        "alarm_events", T0, day, {"unit": "U8", "section": "hp", "rule": "b"}
+    ).empty
+    assert (
+        len(case.store.read_results("alarm_events", T0, day, {"unit": "U8", "section": "hp", "rule": "a"}))
+        == 8
+    )
+    # a later write into the emptied window: only its own rows (and fields) are there
+    again = frame.iloc[3:4][["hp_efficiency"]] + 1.0
+    case.store.write_results("alarm_events", again, {"unit": "U7", "section": "hp", "rule": "a"})
+    got = case.store.read_results("alarm_events", lo, hi, {"unit": "U7", "section": "hp", "rule": "a"})
+    assert list(got.index) == [frame.index[3]]
+    assert got["hp_efficiency"].iloc[0] == frame["hp_efficiency"].iloc[3] + 1.0
+    assert "ip_efficiency" not in got or np.isnan(got["ip_efficiency"].iloc[0])
+    # nothing to delete is no error: an unknown measurement, an unknown tag key
+    case.store.delete_results("never_written", T0, day, {"unit": "U7"})
+    case.store.delete_results("sections", T0, day, {"no_such_key": "x"})
+    assert len(case.store.read_results("sections", T0, day, {"unit": "U7"})) == 8
+
+
 # --- worker state ----------------------------------------------------------------------------
 def test_checkpoint_round_trip(case):
     assert case.store.get_checkpoint("U7-worker") is None
