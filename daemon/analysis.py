@@ -549,18 +549,28 @@ class _Evaluation:
 
 
 def _evaluate(dev: pd.Series, dev_u, rel: np.ndarray, found, times, a) -> list[_Evaluation]:
-    """The section's figures at each of ``times``: the windows before the time, the steps the
-    CUSUM had detected by then (at their latest estimated times and sizes, ``found``), the
-    rate blocked at those steps. A time with no new window and no newly detected step reuses
+    """The section's figures at each of ``times``: the windows before the time, the steps
+    found by then (``found`` None: a scan of the windows before the time; else the steps of
+    ``found`` detected before it), the rate blocked at those steps. A time with no new window and no newly detected step reuses
     the previous fit (the same inputs give the same fit)."""
     out = []
     last_key, last_rate = None, None
     idx_ns = dev.index.as_unit("ns").asi8
     values = dev.to_numpy(dtype=float)
     u_values = dev_u.to_numpy(dtype=float) if dev_u is not None else None
+    known: dict[int, list] = {}
     for t in times:
         n = int(np.searchsorted(idx_ns, t.value, side="left"))  # windows before t
-        steps = [s for s in found if pd.Timestamp(s.detected_at) < t]
+        if found is None:
+            # the steps as a scan of the windows before t finds them (their times and sizes
+            # as known then): a retrospective scan knows a step only from the data it is
+            # given, so each time sees only its past and a run split into days gives the
+            # figures of one run
+            if n not in known:
+                known[n] = _find_steps(dev.iloc[:n], rel[:n], a) if n else []
+            steps = known[n]
+        else:
+            steps = [s for s in found if pd.Timestamp(s.detected_at) < t]
         key = (n, len(steps))
         if key != last_key:
             from isentrope.calc import trend
@@ -767,12 +777,12 @@ def _compute(
         start = final_after if final_after is not None else dev.index[0]
         finals = _day_ends(start, final_until)
         times = list(finals) + ([end] if end > (finals[-1] if len(finals) else start) else [])
-        evals = _evaluate(dev, dev_u, rel, found, times, a)
+        evals = _evaluate(dev, dev_u, rel, None, times, a)
         final_evals = [e for e in evals if e.time in finals]
         final_obs += _observations(final_evals, name)
         end_obs += _observations([e for e in evals if e.time not in finals], name)
         rows[name] = pd.DataFrame([_row(e) for e in evals]).set_index("time") if evals else None
-        last = evals[-1] if evals else _evaluate(dev, dev_u, rel, found, [end], a)[0]
+        last = evals[-1] if evals else _evaluate(dev, dev_u, rel, None, [end], a)[0]
         rate, current, current_u = last.rate, last.current, last.current_u
         projection = None
         hours_ahead = math.nan
