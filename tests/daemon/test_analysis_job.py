@@ -300,7 +300,7 @@ def test_status_reads_the_heartbeats_and_exits_with_the_documented_codes(kind, t
     assert cli.main(["status", "-c", str(path)]) == 4
     out = capsys.readouterr().out
     assert "LAGGING" in out and "checkpoint" in out
-    assert cli.main(["status", "-c", str(path), "--max-lag", "100000d", "--max-analysis-lag", "1d"]) == 0
+    assert cli.main(["status", "-c", str(path), "--max-lag", "3650d", "--max-analysis-lag", "1d"]) == 0
     out = capsys.readouterr().out
     assert "verdict           OK (exit 0)" in out
     assert (
@@ -313,7 +313,7 @@ def test_status_reads_the_heartbeats_and_exits_with_the_documented_codes(kind, t
     worker = Worker.from_config(config, store, clock=clock, start_default=START)
     assert worker.run_cycle().ok
     store.close()
-    assert cli.main(["status", "-c", str(path), "--max-lag", "100000d", "--max-analysis-lag", "6h"]) == 4
+    assert cli.main(["status", "-c", str(path), "--max-lag", "3650d", "--max-analysis-lag", "6h"]) == 4
     assert "analysis" in capsys.readouterr().out
 
 
@@ -326,6 +326,16 @@ def test_status_of_an_unreachable_store_exits_3(tmp_path, capsys):
     )
     assert cli.main(["status", "-c", str(path)]) == 3
     assert "STORE UNREACHABLE" in capsys.readouterr().out
+    # a SQLite file whose directory does not exist: the configuration is refused at load
+    # (exit 2, nothing read)
     place.store_toml = ws.store_toml("sqlite", path=str(tmp_path / "no" / "such" / "dir.sqlite"))
     path = place.config(START, START + pd.Timedelta(days=2))
+    assert cli.main(["status", "-c", str(path)]) == 2
+    capsys.readouterr()
+    # a SQLite path that passes the load (its directory exists) but cannot be opened (the
+    # file is not a database): the store is unreachable
+    (tmp_path / "not_a_database.sqlite").write_bytes(b"not a database\n" * 100)
+    place.store_toml = ws.store_toml("sqlite", path=str(tmp_path / "not_a_database.sqlite"))
+    path = place.config(START, START + pd.Timedelta(days=2))
     assert cli.main(["status", "-c", str(path)]) == 3
+    assert "STORE UNREACHABLE" in capsys.readouterr().out
