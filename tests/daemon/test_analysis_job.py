@@ -3,7 +3,8 @@
 Data: six days of the fictional Greywater Bend Unit 2 (isentrope.daemon.synthetic) at five
 minutes, with its trip on 2025-03-06 and the IP step of -1 point from the restart (21:25,
 set by construction in the generator's truth). Every store kind: SQLite, and InfluxDB through
-the v2 API on 1.8.10 and the v1 API on 1.6.7 and 1.8.10 (marked ``influx``).
+the v2 API on 2.9.1 (authorisation on: a worker's token, raw samples through a loader's)
+and 1.8.10, and the v1 API on 1.6.7 and 1.8.10 (marked ``influx``).
 """
 
 from __future__ import annotations
@@ -31,6 +32,7 @@ FAR = END + pd.Timedelta(days=2)  # not a far date: an InfluxDB read costs one q
 
 KINDS = [
     "sqlite",
+    pytest.param("influx2-2.9", marks=pytest.mark.influx),
     pytest.param("influx2-1.8", marks=pytest.mark.influx),
     pytest.param("influx1-1.6", marks=pytest.mark.influx),
     pytest.param("influx1-1.8", marks=pytest.mark.influx),
@@ -53,8 +55,24 @@ class Place:
         kind = request.param if hasattr(request, "param") else request
         self.tmp = tmp_path
         self.name = name
+        self.loader = None
         if kind == "sqlite":
             self.store_toml = ws.store_toml("sqlite", path=str(tmp_path / f"{name}.sqlite"))
+        elif kind == "influx2-2.9":
+            # authorisation on: the worker's token reads the raw bucket and writes only the
+            # results bucket; raw samples go in through a loader's token
+            server = request.getfixturevalue("influxdb_2x")
+            w = server.worker_buckets(name)
+            request.getfixturevalue("monkeypatch").setenv(f"ISENTROPE_TEST_TOKEN_{name.upper()}", w.token)
+            self.store_toml = ws.store_toml(
+                "influx2",
+                url=server.url,
+                org=server.ORG,
+                bucket=w.raw,
+                results_bucket=w.results,
+                token=f"${{ISENTROPE_TEST_TOKEN_{name.upper()}}}",
+            )
+            self.loader = dict(url=server.url, org=server.ORG, bucket=w.raw, token=w.loader)
         elif kind.startswith("influx2"):
             server = request.getfixturevalue("influxdb_v2")
             db = server.new_database(name)
@@ -80,6 +98,17 @@ end = "{base_end:%Y-%m-%dT%H:%M:%SZ}"
             self.tmp / f"{self.name}.toml", self.store_toml, schedule=schedule, extra=extra
         )
         return path
+
+    def write_raw(self, config, frame):
+        """The raw samples into the unit's store (through the loader's token where there is one)."""
+        if self.loader is None:
+            _, store = self.open(self.tmp / f"{self.name}.toml")
+        else:
+            store = open_store("influx2", **self.loader)
+        try:
+            store.write_raw(config.mappings, frame)
+        finally:
+            store.close()
 
     def open(self, path):
         config = load_config(path)
@@ -142,7 +171,7 @@ def test_a_refit_after_overlapping_backfills_leaves_the_store_as_the_refit_alone
     a = Place(kind, tmp_path, "a")
     path_a = a.config(*first)
     config, store = a.open(path_a)
-    store.write_raw(config.mappings, _raw())
+    a.write_raw(config, _raw())
     store.close()
     assert _backfill(path_a, START, END, "--chunk", "2d") == 0
     config, store = a.open(path_a)
@@ -157,7 +186,7 @@ def test_a_refit_after_overlapping_backfills_leaves_the_store_as_the_refit_alone
     b = Place(kind, tmp_path, "b")
     path_b = b.config(*second)
     config_b, store_b = b.open(path_b)
-    store_b.write_raw(config_b.mappings, _raw())
+    b.write_raw(config_b, _raw())
     store_b.close()
     assert _backfill(path_b, START, END, "--refit", "--chunk", "2d") == 0
 
@@ -268,7 +297,7 @@ def test_status_reads_the_heartbeats_and_exits_with_the_documented_codes(kind, t
     place = Place(kind, tmp_path, "status")
     path = place.config(START, START + pd.Timedelta(days=2))
     config, store = place.open(path)
-    store.write_raw(config.mappings, _raw())
+    place.write_raw(config, _raw())
     assert cli.main(["status", "-c", str(path)]) == 5  # never ran
     assert "NEVER RAN" in capsys.readouterr().out
     clock = ws.FakeClock(START + pd.Timedelta(days=3))
