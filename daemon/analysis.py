@@ -548,7 +548,52 @@ class _Evaluation:
     operating_hours: float
 
 
-def _evaluate(dev: pd.Series, dev_u, rel: np.ndarray, found, times, a) -> list[_Evaluation]:
+def _latch(held: list, now: list, idx_ns: np.ndarray) -> list:
+    """The steps of a scan (``now``) plus those found at an earlier time (``held``) that this
+    scan does not place within a few windows of one of its own: a step once found stays
+    (with its last estimated size) until a later step takes it back, so a scan that misses
+    it on one day (its noise model refitted on a few more windows) does not clear its alarm."""
+    from isentrope.calc import trend
+
+    near = trend.DEFAULT_WARMUP_POINTS
+    out = list(now)
+    for h in held:
+        i = int(np.searchsorted(idx_ns, pd.Timestamp(h.time).value, side="left"))
+        if all(abs(i - int(s.index)) > near for s in now) and i < len(idx_ns):
+            out.append(trend.Step(h.time, h.size, h.size_u, h.direction, h.detected_at, i))
+    return sorted(out, key=lambda s: int(s.index))
+
+
+def _held_to_json(steps) -> list[dict]:
+    return [
+        {
+            "time": pd.Timestamp(s.time).isoformat(),
+            "size": float(s.size),
+            "size_u": float(s.size_u),
+            "direction": s.direction,
+            "detected_at": pd.Timestamp(s.detected_at).isoformat(),
+        }
+        for s in steps
+    ]
+
+
+def _held_from_json(rows) -> list:
+    from isentrope.calc import trend
+
+    return [
+        trend.Step(
+            pd.Timestamp(r["time"]),
+            r["size"],
+            r["size_u"],
+            r["direction"],
+            pd.Timestamp(r["detected_at"]),
+            -1,
+        )
+        for r in rows or []
+    ]
+
+
+def _evaluate(dev: pd.Series, dev_u, rel: np.ndarray, found, times, a, held=None) -> list[_Evaluation]:
     """The section's figures at each of ``times``: the windows before the time, the steps
     found by then (``found`` None: a scan of the windows before the time; else the steps of
     ``found`` detected before it), the rate blocked at those steps. A time with no new window and no newly detected step reuses
@@ -559,6 +604,7 @@ def _evaluate(dev: pd.Series, dev_u, rel: np.ndarray, found, times, a) -> list[_
     values = dev.to_numpy(dtype=float)
     u_values = dev_u.to_numpy(dtype=float) if dev_u is not None else None
     known: dict[int, list] = {}
+    held = list(held or [])
     for t in times:
         n = int(np.searchsorted(idx_ns, t.value, side="left"))  # windows before t
         if found is None:
@@ -568,7 +614,8 @@ def _evaluate(dev: pd.Series, dev_u, rel: np.ndarray, found, times, a) -> list[_
             # figures of one run
             if n not in known:
                 known[n] = _find_steps(dev.iloc[:n], rel[:n], a) if n else []
-            steps = known[n]
+            steps = _latch(held, known[n], idx_ns[:n])
+            held = steps
         else:
             steps = [s for s in found if pd.Timestamp(s.detected_at) < t]
         key = (n, len(steps))
@@ -731,6 +778,7 @@ def _compute(
     final_until: pd.Timestamp,
     alarm_state: dict | None,
     cumulative: dict,
+    held: dict | None = None,
 ) -> dict:
     """The analysis rows from ``final_after`` (exclusive; None: from the first window) to
     ``end``: final rows at each UTC midnight up to ``final_until``, provisional ones at
@@ -760,6 +808,7 @@ def _compute(
     final_obs, end_obs = [], []
     rows, losses = {}, {}
     new_cum = {}
+    new_held: dict = dict(held or {})
     for name, (dev, dev_u) in _sections_input(deviation).items():
         dev = dev[dev.index < end]
         if not len(dev):
@@ -777,8 +826,12 @@ def _compute(
         start = final_after if final_after is not None else dev.index[0]
         finals = _day_ends(start, final_until)
         times = list(finals) + ([end] if end > (finals[-1] if len(finals) else start) else [])
-        evals = _evaluate(dev, dev_u, rel, None, times, a)
+        evals = _evaluate(dev, dev_u, rel, None, times, a, _held_from_json((held or {}).get(name)))
         final_evals = [e for e in evals if e.time in finals]
+        if final_evals:
+            new_held[name] = _held_to_json(final_evals[-1].steps)
+        elif held and name in held:
+            new_held[name] = held[name]
         final_obs += _observations(final_evals, name)
         end_obs += _observations([e for e in evals if e.time not in finals], name)
         rows[name] = pd.DataFrame([_row(e) for e in evals]).set_index("time") if evals else None
@@ -873,6 +926,7 @@ def _compute(
             notes=notes,
         ),
         "alarm_state": state,
+        "held_steps": new_held,
         "cumulative": new_cum,
     }
 
@@ -1234,6 +1288,7 @@ def run_analysis(
         final_after=final,
         final_until=until,
         alarm_state=state.get("alarm_state"),
+        held=state.get("held_steps"),
         cumulative={k: tuple(v) for k, v in state.get("cumulative", {}).items()},
     )
     result = done["analysis"]
@@ -1255,6 +1310,7 @@ def run_analysis(
             "hours": hours,
             "cumulative": cumulative,
             "alarm_state": done["alarm_state"],
+            "held_steps": done["held_steps"],
             "end": end.isoformat(),
         },
     )
