@@ -448,6 +448,8 @@ class Worker:
                 self.store.write_results(
                     STATUS_MEASUREMENT, row, {**self.tags, "worker": self.analysis_status_name}
                 )
+            except AuthorizationError:
+                raise  # a refused token or permission is a configuration error, as in _heartbeat
             except (TemporaryStoreError, FatalStoreError) as exc:
                 logger.warning("unit %s: analysis heartbeat not written: %s", self.unit, exc)
             if ok:

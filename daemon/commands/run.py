@@ -105,6 +105,8 @@ def _serve(worker, config) -> int:
             stop.set()
 
     def analysis():
+        if stop.is_set():  # a cycle has stopped the worker
+            return
         try:
             worker.analyse()  # temporary store trouble is logged inside
         except FatalStoreError as exc:
@@ -135,8 +137,11 @@ def _serve(worker, config) -> int:
             max_instances=1,
             coalesce=True,
             misfire_grace_time=None,
-            # after the first cycle has had its start (the two share the worker's lock)
-            next_run_time=(worker.clock() + pd.Timedelta(seconds=min(every, interval))).to_pydatetime(),
+            # after the first cycle has had its start (the two share the worker's lock); on the
+            # scheduler's own clock, which a worker's injected clock need not follow
+            next_run_time=(
+                pd.Timestamp.now(tz="UTC") + pd.Timedelta(seconds=min(every, interval))
+            ).to_pydatetime(),
         )
     logger.info(
         "unit %s: worker started, a cycle every %.0f s, the analysis every %s (settle %s, "
