@@ -43,8 +43,9 @@ Result series (also in DEVELOPERS.md, "Result series"):
   at each UTC midnight (and the end of the history). ``degradation_rate``: ``value`` the rate
   [points per 1000 h] where its interval excludes zero, else 0
   (``calc.alarms.rate_alarm_value``), raised below ``-[alarms] rate_limit_per_1000h``, cleared above 80 %
-  of it. ``step_change``: ``value`` the net offset of the steps found up to then, signed
-  (the sum of their sizes; a single step's size) [points], raised below
+  of it. ``step_change``: ``value`` the net offset of the steps found up to then (a scan of
+  the windows before the time; a step once found is kept, with its last size, while later
+  scans do not place it), signed (the sum of their sizes; a single step's size) [points], raised below
   ``-[alarms] min_step_points`` (the ``threshold`` written), cleared only when later steps
   up bring it back above half of that (an overhaul, a cleaning, an instrument change) or a
   new baseline starts the steps anew; a slow recovery without a step does not clear it.
