@@ -77,7 +77,7 @@ def demo_on_2x(influxdb_2x, tmp_path_factory):
         )
         report = worker.run_cycle(until=end)
         assert report.ok, report.error
-        run_analysis(store, config, start, end)
+        run_analysis(store, config, end)
     finally:
         store.close()
     dash_token = server.new_token("dashboard", read=(w.results_id,))
