@@ -27,7 +27,7 @@ import pandas as pd
 import pytest
 
 from isentrope.daemon import cli, synthetic
-from isentrope.daemon.analysis import run_analysis
+from isentrope.daemon.analysis import load_analysis
 from isentrope.daemon.commands.demo import demo_config_toml
 from isentrope.daemon.config import load_config
 from isentrope.daemon.stores import open_store
@@ -73,7 +73,7 @@ def _run(folder, name, extra, load, store_table=None):
     assert rc == 0
     store = config.store.open()
     try:
-        analysis = run_analysis(store, config, write=False)
+        analysis = load_analysis(store, config)  # the backfill ran the analysis
         events = []
         for section, rule in sorted(set(_series(config))):
             ev = store.read_results(
