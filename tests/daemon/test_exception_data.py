@@ -172,7 +172,7 @@ def test_rates_steps_and_alarms_agree_with_the_regular_export(runs):
     # HP warning of the regular run is in the compressed run within a day; the rest agree fully.
     _same_events([e for e in ev_reg if e[1] != "hp"], [e for e in ev_exc if e[1] != "hp"])
     exc_hp = [e for e in ev_exc if e[1] == "hp"]
-    for t, section, rule, kind in (e for e in ev_reg if e[1] == "hp"):
+    for t, _, rule, kind in (e for e in ev_reg if e[1] == "hp"):
         assert any(r == rule and k == kind and abs(u - t) <= DAY for u, _, r, k in exc_hp), (t, rule, exc_hp)
 
 
