@@ -128,6 +128,25 @@ class _ServerProcess:
         except OSError:
             return "(no log)"
 
+    def _launch(self, argv: list[str], timeout: float, what: str) -> None:
+        """Start ``argv`` with its output in the log and wait until ``ping()`` answers (``what``:
+        the endpoint, for the message); RuntimeError with the log's tail otherwise."""
+        with open(self.log_path, "ab") as log:
+            self._proc = subprocess.Popen(
+                argv, stdout=log, stderr=subprocess.STDOUT, stdin=subprocess.DEVNULL, start_new_session=True
+            )
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            if self._proc.poll() is not None:
+                raise RuntimeError(f"influxd exited with {self._proc.returncode}:\n{self.log_tail()}")
+            if self.ping():
+                return
+            time.sleep(0.05)
+        self.kill()
+        raise RuntimeError(
+            f"influxd did not answer {what} on {self.url} within {timeout} s:\n{self.log_tail()}"
+        )
+
 
 class InfluxServer(_ServerProcess):
     """One influxd process on loopback ports, in its own temporary directory."""
@@ -190,28 +209,8 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         """Start (or restart after ``stop()``) on the same ports and data; wait for /ping."""
         if self.running:
             return self
-        log = open(self.log_path, "ab")
-        try:
-            self._proc = subprocess.Popen(
-                [self.binary, "run", "-config", str(self.config_path)],
-                stdout=log,
-                stderr=subprocess.STDOUT,
-                stdin=subprocess.DEVNULL,
-                start_new_session=True,
-            )
-        finally:
-            log.close()
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            if self._proc.poll() is not None:
-                raise RuntimeError(f"influxd exited with {self._proc.returncode}:\n{self.log_tail()}")
-            if self.ping():
-                return self
-            time.sleep(0.05)
-        self.kill()
-        raise RuntimeError(
-            f"influxd did not answer /ping on {self.url} within {timeout} s:\n{self.log_tail()}"
-        )
+        self._launch([self.binary, "run", "-config", str(self.config_path)], timeout, "/ping")
+        return self
 
     # --- helpers -------------------------------------------------------------------------
     def query(self, q: str, db: str | None = None, auth: tuple[str, str] | None = None) -> dict:
@@ -320,42 +319,21 @@ class Influx2xServer(_ServerProcess):
         if self.running:
             return self
         r = self.root
-        log = open(self.log_path, "ab")
-        try:
-            self._proc = subprocess.Popen(
-                [
-                    self.binary,
-                    "--bolt-path",
-                    str(r / "influxd.bolt"),
-                    "--engine-path",
-                    str(r / "engine"),
-                    "--sqlite-path",
-                    str(r / "influxd.sqlite"),
-                    "--http-bind-address",
-                    f"127.0.0.1:{self.port}",
-                    "--reporting-disabled",
-                    "--log-level",
-                    "warn",
-                ],
-                stdout=log,
-                stderr=subprocess.STDOUT,
-                stdin=subprocess.DEVNULL,
-                start_new_session=True,
-            )
-        finally:
-            log.close()
-        deadline = time.monotonic() + timeout
-        while time.monotonic() < deadline:
-            if self._proc.poll() is not None:
-                raise RuntimeError(f"influxd exited with {self._proc.returncode}:\n{self.log_tail()}")
-            if self.ping():
-                break
-            time.sleep(0.05)
-        else:
-            self.kill()
-            raise RuntimeError(
-                f"influxd did not answer /health on {self.url} within {timeout} s:\n{self.log_tail()}"
-            )
+        argv = [
+            self.binary,
+            "--bolt-path",
+            str(r / "influxd.bolt"),
+            "--engine-path",
+            str(r / "engine"),
+            "--sqlite-path",
+            str(r / "influxd.sqlite"),
+            "--http-bind-address",
+            f"127.0.0.1:{self.port}",
+            "--reporting-disabled",
+            "--log-level",
+            "warn",
+        ]
+        self._launch(argv, timeout, "/health")
         if not self.org_id:
             self._setup()
         return self

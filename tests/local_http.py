@@ -14,6 +14,21 @@ import threading
 import urllib.parse
 from pathlib import Path
 
+#: The required roles of the test units that talk to these servers: tag and plant unit (invented
+#: demo names).
+ROLES = {
+    "throttle_p": ("U7-MS-P", "MPa(a)"),
+    "throttle_t": ("U7-MS-T", "degC"),
+    "cold_reheat_p": ("U7-CRH-P", "MPa(a)"),
+    "cold_reheat_t": ("U7-CRH-T", "degC"),
+    "hot_reheat_p": ("U7-HRH-P", "MPa(a)"),
+    "hot_reheat_t": ("U7-HRH-T", "degC"),
+    "crossover_p": ("U7-XO-P", "kPa(a)"),
+    "crossover_t": ("U7-XO-T", "degC"),
+    "condenser_p": ("U7-CND-P", "kPa(a)"),
+    "gross_output": ("U7-GEN-MW", "MW"),
+}
+
 
 class _Server(http.server.ThreadingHTTPServer):
     daemon_threads = True

@@ -18,7 +18,7 @@ from pathlib import Path
 
 import pandas as pd
 import pytest
-from local_http import LocalServer
+from local_http import ROLES, LocalServer
 
 from isentrope.daemon import cli
 from isentrope.daemon.redact import redact, remember, remember_basic
@@ -145,18 +145,6 @@ def test_store_errors_never_show_a_secret(name, status):
 # --------------------------------------------------------------------------------------
 # the command line
 # --------------------------------------------------------------------------------------
-ROLES = {
-    "throttle_p": ("U7-MS-P", "MPa(a)"),
-    "throttle_t": ("U7-MS-T", "degC"),
-    "cold_reheat_p": ("U7-CRH-P", "MPa(a)"),
-    "cold_reheat_t": ("U7-CRH-T", "degC"),
-    "hot_reheat_p": ("U7-HRH-P", "MPa(a)"),
-    "hot_reheat_t": ("U7-HRH-T", "degC"),
-    "crossover_p": ("U7-XO-P", "kPa(a)"),
-    "crossover_t": ("U7-XO-T", "degC"),
-    "condenser_p": ("U7-CND-P", "kPa(a)"),
-    "gross_output": ("U7-GEN-MW", "MW"),
-}
 CLI_STORES = {
     "influx1-token": 'kind = "influx1"\ndatabase = "units"\ntoken = "${ISEN_SECRET_TOKEN}"\n',
     "influx1-basic": f'kind = "influx1"\ndatabase = "units"\nusername = "{USER}"\npassword = "${{ISEN_SECRET_PASSWORD}}"\n',

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import pandas as pd
 import pytest
-from local_http import LocalServer, self_signed
+from local_http import ROLES, LocalServer, self_signed
 
 from isentrope.daemon import cli
 from isentrope.daemon.errors import ConfigError
@@ -91,21 +91,6 @@ def test_verify_ssl_false_checks_nothing_on_both(https, kind):
         _use(store)
     finally:
         store.close()
-
-
-#: The required roles: tag and plant unit (invented demo names).
-ROLES = {
-    "throttle_p": ("U7-MS-P", "MPa(a)"),
-    "throttle_t": ("U7-MS-T", "degC"),
-    "cold_reheat_p": ("U7-CRH-P", "MPa(a)"),
-    "cold_reheat_t": ("U7-CRH-T", "degC"),
-    "hot_reheat_p": ("U7-HRH-P", "MPa(a)"),
-    "hot_reheat_t": ("U7-HRH-T", "degC"),
-    "crossover_p": ("U7-XO-P", "kPa(a)"),
-    "crossover_t": ("U7-XO-T", "degC"),
-    "condenser_p": ("U7-CND-P", "kPa(a)"),
-    "gross_output": ("U7-GEN-MW", "MW"),
-}
 
 
 def _config(tmp_path, url: str, kind: str, extra: str = "") -> str:
