@@ -53,16 +53,18 @@ def test_step_alarm_carries_the_signed_size_and_stays_raised_until_a_step_takes_
     assert [s.direction for s in steps] == ["down", "up"]
     assert steps[0].size == pytest.approx(-1.0, abs=0.05)  # injected above
     ev = result.alarm_events[result.alarm_events["rule"] == "step_change"]
-    # evaluated at each UTC midnight: raised at the first midnight after the loss (within a day
-    # of steady running after it), with the signed size and the configured threshold; not
-    # cleared at the midnights while the loss stands; cleared at the first midnight after the
-    # step back, with the net offset left
+    # evaluated at each UTC midnight: the scan at the first midnight after the loss finds it,
+    # the next midnight's confirms it (daemon.analysis._confirmed) and raises the alarm, with
+    # the signed size and the configured threshold; not cleared at the midnights while the
+    # loss stands; cleared at the second midnight after the step back (found, then confirmed),
+    # with the net offset left
+    day = pd.Timedelta(days=1)
     assert list(ev["kind"]) == ["raised", "cleared"]
-    assert list(ev.index) == [STEP_DOWN.ceil("D"), STEP_UP.ceil("D")]
-    assert all(ev.index - pd.DatetimeIndex([STEP_DOWN, STEP_UP]) <= pd.Timedelta(days=1))
+    assert list(ev.index) == [STEP_DOWN.ceil("D") + day, STEP_UP.ceil("D") + day]
+    assert all(ev.index - pd.DatetimeIndex([STEP_DOWN, STEP_UP]) <= 2 * day)
     raised, cleared = ev.iloc[0], ev.iloc[1]
     # each midnight sees the steps as a scan of the windows before it found them: the loss
-    # as five windows after it measured it (within 0.05 point of the injected -1.0), and
+    # as the windows of a day and a half after it measured it (within 0.05 point of the injected -1.0), and
     # the net offset once the recovery shows (near 0, above half the threshold)
     frame = deviation["ip"]
     for event, row in zip(ev.index, (raised, cleared), strict=True):
