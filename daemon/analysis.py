@@ -15,7 +15,7 @@ run to the next, so a run reads only the deviations and the new days' gross outp
 backfill or refit rebuilds it from the reference start (every analysis row deleted first).
 ``load_analysis`` reads the stored analysis back for the report, the demo and ``status``.
 
-Result series (also in DEVELOPERS.md, "Result series"):
+Result series (also in daemon/DECISIONS.md, "Result series"):
 
 * ``degradation`` (tags unit, section): one row per UTC midnight (and one at the end of the
   history): ``rate_intercept`` [points], ``rate_span_h`` [h], ``step_offset`` [points: net of

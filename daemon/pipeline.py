@@ -41,7 +41,7 @@ import pandas as pd
 
 from isentrope.daemon.roles import ROLES
 
-#: Result series (measurement names); DEVELOPERS.md "Result series" documents every field.
+#: Result series (measurement names); daemon/DECISIONS.md "Result series" documents every field.
 SAMPLES_MEASUREMENT = "section_samples"
 WINDOWS_MEASUREMENT = "steady_windows"
 DEVIATION_MEASUREMENT = "deviation"

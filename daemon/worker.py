@@ -57,7 +57,7 @@ _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 #: Window boundaries are floored to this resolution (stable keys; common practice, no source).
 DEFAULT_RESOLUTION = pd.Timedelta("1s")
 
-#: Name of the measurement that records one heartbeat per cycle (see DEVELOPERS.md).
+#: Name of the measurement that records one heartbeat per cycle (see daemon/DECISIONS.md, "Result series").
 STATUS_MEASUREMENT = "worker_status"
 
 

@@ -75,7 +75,7 @@ def run(args) -> int:
             if worker._baseline_period() is None:
                 raise ValueError("--refit needs a [baseline] period (start and end) in the configuration")
             # Fresh models, fresh alarm machines, from the start: results are replaced where they
-            # are written again; events of the old models at other instants stay (DEVELOPERS.md).
+            # are written again; events of the old models at other instants stay (daemon/DECISIONS.md).
             store.save_state(worker.baseline_state_name, {})
             store.save_state(worker.alarm_state_name, {})
             store.set_checkpoint(name, start)
