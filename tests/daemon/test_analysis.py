@@ -139,3 +139,25 @@ def test_the_current_deviation_carries_both_uncertainties(config):
     assert o.current_u < 0.01  # 42 windows of 0.05 pt noise: the level is known to < 0.01 pt
     assert o.current_window_u == pytest.approx(0.33, rel=1e-12)
     assert o.daily["deviation_now_window_u"].iloc[-1] == pytest.approx(0.33, rel=1e-12)
+
+
+def test_the_sections_scanned_in_threads_give_the_figures_of_one_after_another(config, monkeypatch):
+    """The scans run in threads (daemon.analysis.SCAN_THREADS); each section's figures must be
+    those of a run with one thread, bit for bit (no shared state between the scans)."""
+    from isentrope.daemon import analysis
+
+    deviation, online, output, end = _history([(STEP_DOWN, -1.0), (STEP_UP, +1.0)])
+    other = deviation["ip"].copy()
+    other["deviation"] = other["deviation"].to_numpy()[::-1]
+    deviation = {"hp": other, "ip": deviation["ip"], "lp": deviation["ip"] * 0.5}
+    monkeypatch.setattr(analysis, "SCAN_THREADS", 1)
+    one = analyse(deviation, online, output, config, end)
+    monkeypatch.setattr(analysis, "SCAN_THREADS", 3)
+    many = analyse(deviation, online, output, config, end)
+    assert set(one.sections) == set(many.sections) == {"hp", "ip", "lp"}
+    for name in one.sections:
+        pd.testing.assert_frame_equal(one.sections[name].daily, many.sections[name].daily, check_exact=True)
+        assert [(s.time, s.size) for s in one.sections[name].steps] == [
+            (s.time, s.size) for s in many.sections[name].steps
+        ]
+    pd.testing.assert_frame_equal(one.alarm_events, many.alarm_events, check_exact=True)
