@@ -34,6 +34,7 @@ import pandas as pd
 from scipy import ndimage
 
 from isentrope.calc import _windows
+from isentrope.calc.names import REQUIRED_ROLES
 
 __all__ = [
     "Reason",
@@ -98,20 +99,8 @@ T_MIN_IF97, T_MAX_IF97, P_MAX_IF97 = 273.15, 1073.15, 100.0
 P_ATM = 0.101325
 
 # --- roles ---------------------------------------------------------------------------------
-#: Roles whose flags spoil a sample by default: the required roles of the role table
-#: (isentrope.daemon.roles.REQUIRED_ROLES; calc/ does not import daemon/, a test keeps them equal).
-NEEDED_ROLES = (
-    "throttle_p",
-    "throttle_t",
-    "cold_reheat_p",
-    "cold_reheat_t",
-    "hot_reheat_p",
-    "hot_reheat_t",
-    "crossover_p",
-    "crossover_t",
-    "condenser_p",
-    "gross_output",
-)
+#: Roles whose flags spoil a sample by default: the required roles of the role table.
+NEEDED_ROLES = REQUIRED_ROLES
 
 #: Sections checked for physical consistency:
 #: name -> (inlet p, inlet T, outlet p, outlet T or None, check the efficiency band).

@@ -45,6 +45,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.calc import steam
+from isentrope.calc.names import FIGURE_FIELDS, ROLES, SECTION_ROLES
 
 # --------------------------------------------------------------------------------------------
 # Constants
@@ -113,22 +114,8 @@ DEFAULT_UNCERTAINTY_BY_QUANTITY = {
     "power": (0.0, 0.0025),
 }
 
-#: Quantity of each role this module reads (matches isentrope.daemon.roles.ROLES).
-ROLE_QUANTITY = {
-    "throttle_p": "pressure",
-    "throttle_t": "temperature",
-    "cold_reheat_p": "pressure",
-    "cold_reheat_t": "temperature",
-    "hot_reheat_p": "pressure",
-    "hot_reheat_t": "temperature",
-    "crossover_p": "pressure",
-    "crossover_t": "temperature",
-    "lp_extraction_p": "pressure",
-    "lp_extraction_t": "temperature",
-    "condenser_p": "pressure",
-    "gross_output": "power",
-    "main_steam_flow": "flow",
-}
+#: Quantity of each role this module reads (``calc.names``).
+ROLE_QUANTITY = {role: ROLES[role][0] for role in SECTION_ROLES}
 
 #: Smallest finite-difference step per quantity [internal unit] (keeps the central difference
 #: above the solvers' round-off when a configured uncertainty is tiny; common practice).
@@ -1420,50 +1407,9 @@ def _fd_steps(u_roles, inputs):
 # --------------------------------------------------------------------------------------------
 # Orchestration over a frame of role columns
 # --------------------------------------------------------------------------------------------
-_SERIES_FIELDS = (
-    # name, unit, description
-    ("hp_efficiency", "-", "HP enthalpy-drop efficiency, throttle -> cold reheat"),
-    ("hp_efficiency_u", "-", "standard uncertainty of hp_efficiency"),
-    ("hp_enthalpy_drop", "kJ/kg", "HP actual enthalpy drop"),
-    ("hp_isentropic_drop", "kJ/kg", "HP isentropic enthalpy drop"),
-    ("hp_share", "-", "HP share of the expansion-line enthalpy drop (HP + IP + LP to ELEP)"),
-    ("ip_efficiency", "-", "IP enthalpy-drop efficiency, hot reheat -> crossover"),
-    ("ip_efficiency_u", "-", "standard uncertainty of ip_efficiency"),
-    ("ip_enthalpy_drop", "kJ/kg", "IP actual enthalpy drop"),
-    ("ip_isentropic_drop", "kJ/kg", "IP isentropic enthalpy drop"),
-    ("ip_share", "-", "IP share of the expansion-line enthalpy drop"),
-    ("lp_dry_efficiency", "-", "LP dry stage-group efficiency, crossover -> LP extraction"),
-    ("lp_dry_efficiency_u", "-", "standard uncertainty of lp_dry_efficiency"),
-    ("lp_dry_enthalpy_drop", "kJ/kg", "LP dry stage-group actual enthalpy drop"),
-    ("lp_dry_isentropic_drop", "kJ/kg", "LP dry stage-group isentropic drop"),
-    ("lp_efficiency", "-", "LP efficiency crossover -> ELEP, wetness losses included"),
-    ("lp_efficiency_u", "-", "standard uncertainty of lp_efficiency"),
-    ("lp_used_energy_efficiency", "-", "LP efficiency crossover -> UEEP"),
-    ("lp_used_energy_efficiency_u", "-", "standard uncertainty of lp_used_energy_efficiency"),
-    ("lp_enthalpy_drop", "kJ/kg", "LP enthalpy drop crossover -> ELEP"),
-    ("lp_isentropic_drop", "kJ/kg", "LP isentropic drop crossover -> condenser pressure"),
-    ("lp_share", "-", "LP share of the expansion-line enthalpy drop"),
-    ("lp_saturation_p", "MPa", "pressure where the LP expansion line crosses saturation"),
-    ("lp_elep", "kJ/kg", "expansion-line end point enthalpy"),
-    ("lp_elep_u", "kJ/kg", "standard uncertainty of lp_elep"),
-    ("lp_ueep", "kJ/kg", "used-energy end point enthalpy"),
-    ("lp_ueep_u", "kJ/kg", "standard uncertainty of lp_ueep"),
-    ("lp_x", "-", "vapour fraction at the ELEP (1 where dry)"),
-    ("lp_moisture", "-", "exhaust moisture at the ELEP, fraction"),
-    ("lp_moisture_u", "-", "standard uncertainty of lp_moisture"),
-    ("lp_exhaust_loss", "kJ/kg", "wetness-corrected exhaust loss, UEEP - ELEP"),
-    ("lp_annulus_velocity", "m/s", "last-stage annulus velocity"),
-    (
-        "lp_estimate",
-        "-",
-        "1 where the LP efficiency, ELEP, UEEP and moisture rest on an assumed LP efficiency "
-        "(expansion), 0 where they come from the energy balance",
-    ),
-    ("reason", "-", "packed reason codes, 4 bits per group (decode_reason)"),
-)
 
 #: Column name -> unit of every figure column of ``SectionResults.to_frame()``.
-FIGURE_UNITS = {name: unit for name, unit, _ in _SERIES_FIELDS}
+FIGURE_UNITS = {name: unit for name, unit, _ in FIGURE_FIELDS}
 
 
 @dataclass
@@ -1543,7 +1489,7 @@ class SectionResults:
 
     def to_frame(self):
         """All figures as one DataFrame (frame's index), plus a constant ``lp_mode`` column."""
-        cols = {name: getattr(self, name) for name, _, _ in _SERIES_FIELDS}
+        cols = {name: getattr(self, name) for name, _, _ in FIGURE_FIELDS}
         df = pd.DataFrame(cols)
         df["lp_mode"] = self.lp_mode
         return df
@@ -1890,7 +1836,7 @@ def evaluate(
         parts = [
             evaluate(frame.iloc[i : i + EVALUATE_ROWS], **kwargs) for i in range(0, len(frame), EVALUATE_ROWS)
         ]
-        series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in _SERIES_FIELDS}
+        series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in FIGURE_FIELDS}
         return SectionResults(**series, lp_mode=parts[0].lp_mode, notes=parts[0].notes)
     a = _check_baumann(baumann)
     band = float(eta_lp_band)
@@ -2102,7 +2048,7 @@ def evaluate(
         codes["lp_dry"] = np.full(n, NOT_MAPPED, dtype=np.int64)
     out["lp_estimate"] = np.full(n, 1.0 if mode == "expansion" else 0.0)
     out["reason"] = _pack_reason(codes)
-    series = {name: pd.Series(out[name], index=idx, name=name) for name, _, _ in _SERIES_FIELDS}
+    series = {name: pd.Series(out[name], index=idx, name=name) for name, _, _ in FIGURE_FIELDS}
     return SectionResults(**series, lp_mode=mode, notes=tuple(notes))
 
 
@@ -2127,6 +2073,7 @@ __all__ = [
     "LP_P_MAX",
     "T_MAX",
     "ROLE_QUANTITY",
+    "FIGURE_FIELDS",
     "DEFAULT_EXHAUST_LOSS_CURVE",
     "DEFAULT_EXHAUST_LOSS_POINTS",
     "ETA_LP_DESIGN_DEFAULT",

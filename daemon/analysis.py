@@ -64,14 +64,18 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from isentrope.daemon.pipeline import ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT
+from isentrope.daemon.series import (
+    ALARMS_MEASUREMENT,
+    DEGRADATION_MEASUREMENT,
+    DEVIATION_MEASUREMENT,
+    LOSSES_MEASUREMENT,
+    OPERATION_MEASUREMENT,
+    OUTLOOK_MEASUREMENT,
+    STEPS_MEASUREMENT,
+)
 
 logger = logging.getLogger(__name__)
 
-DEGRADATION_MEASUREMENT = "degradation"
-STEPS_MEASUREMENT = "steps"
-LOSSES_MEASUREMENT = "losses"
-OUTLOOK_MEASUREMENT = "outlook"
 
 #: Window over which the "current" deviation is the median of the steady windows [days]
 #: (project choice, no source: long enough to average out day-to-day scatter).
@@ -1158,7 +1162,6 @@ _READ_AHEAD = pd.Timedelta(days=1)
 
 
 #: Measurement of the daily operation rows (``daily_operation``): tags unit.
-OPERATION_MEASUREMENT = "operation"
 
 #: Measurements the analysis writes; each run owns them from where its last run was final.
 ANALYSIS_MEASUREMENTS = (DEGRADATION_MEASUREMENT, LOSSES_MEASUREMENT)

@@ -41,11 +41,13 @@ import pandas as pd
 
 from isentrope.daemon.roles import ROLES
 
-#: Result series (measurement names); daemon/DECISIONS.md "Result series" documents every field.
-SAMPLES_MEASUREMENT = "section_samples"
-WINDOWS_MEASUREMENT = "steady_windows"
-DEVIATION_MEASUREMENT = "deviation"
-ALARMS_MEASUREMENT = "alarm_events"
+# the result series (measurement, tags, fields, units) are data in daemon.series
+from isentrope.daemon.series import (
+    ALARMS_MEASUREMENT,
+    DEVIATION_MEASUREMENT,
+    SAMPLES_MEASUREMENT,
+    WINDOWS_MEASUREMENT,
+)
 
 #: The section of the ``no_data`` alarm: no row at all came from the plant historian.
 HISTORIAN_SECTION = "historian"

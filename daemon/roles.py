@@ -10,29 +10,10 @@ from __future__ import annotations
 import dataclasses
 from dataclasses import dataclass
 
-#: Role name -> (quantity, required, description). Quantity selects the unit table in
-#: isentrope.calc.units ("pressure", "temperature", "flow", "power", "percent").
-ROLES: dict[str, tuple[str, bool, str]] = {
-    "throttle_p": ("pressure", True, "throttle (turbine inlet, upstream of the stop valves) pressure"),
-    "throttle_t": ("temperature", True, "throttle temperature"),
-    "cold_reheat_p": ("pressure", True, "HP exhaust (cold reheat) pressure"),
-    "cold_reheat_t": ("temperature", True, "HP exhaust (cold reheat) temperature"),
-    "hot_reheat_p": ("pressure", True, "hot reheat pressure, upstream of the intercept valves"),
-    "hot_reheat_t": ("temperature", True, "hot reheat temperature"),
-    "crossover_p": ("pressure", True, "IP exhaust (crossover, LP inlet) pressure"),
-    "crossover_t": ("temperature", True, "IP exhaust (crossover, LP inlet) temperature"),
-    "lp_extraction_p": ("pressure", False, "LP extraction pressure (a point still superheated)"),
-    "lp_extraction_t": ("temperature", False, "LP extraction temperature"),
-    "condenser_p": ("pressure", True, "condenser (LP exhaust) pressure"),
-    "gross_output": ("power", True, "generator gross output"),
-    "main_steam_flow": ("flow", False, "main steam flow"),
-    "first_stage_p": ("pressure", False, "HP first-stage (control stage) pressure"),
-    "valve_position": ("percent", False, "HP control valve position"),
-    "barometric_p": ("pressure", False, "barometric pressure, for gauge transmitters"),
-}
+# the role table lives in calc (calc.sections and calc.quality read it); re-exported here
+from isentrope.calc.names import OPTIONAL_ROLES, REQUIRED_ROLES, ROLES
 
-REQUIRED_ROLES = tuple(name for name, (_, required, _) in ROLES.items() if required)
-OPTIONAL_ROLES = tuple(name for name, (_, required, _) in ROLES.items() if not required)
+__all__ = ["OPTIONAL_ROLES", "REQUIRED_ROLES", "ROLES", "RoleMapping"]
 
 
 @dataclass(frozen=True)

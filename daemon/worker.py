@@ -47,6 +47,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from isentrope.daemon.series import STATUS_MEASUREMENT
 from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
 
 logger = logging.getLogger("isentrope.worker")
@@ -56,9 +57,6 @@ _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 
 #: Window boundaries are floored to this resolution (stable keys; common practice, no source).
 DEFAULT_RESOLUTION = pd.Timedelta("1s")
-
-#: Name of the measurement that records one heartbeat per cycle (see daemon/DECISIONS.md, "Result series").
-STATUS_MEASUREMENT = "worker_status"
 
 
 def _utc(t) -> pd.Timestamp:

@@ -25,20 +25,10 @@ import pandas as pd
 from isentrope.daemon.config import load_config
 from isentrope.daemon.files import chmod_created
 from isentrope.daemon.redact import redact
+from isentrope.daemon.series import SAMPLES_MEASUREMENT
 
 NAME = "export"
 HELP = "export result series over a time window as CSV (ISO UTC times, one column per field)"
-
-#: Used when the pipeline module does not name its result series (should not happen).
-_FALLBACK_MEASUREMENT = "section_samples"
-
-
-def _default_measurement() -> str:
-    try:
-        from isentrope.daemon import pipeline
-    except ImportError:
-        return _FALLBACK_MEASUREMENT
-    return getattr(pipeline, "SAMPLES_MEASUREMENT", _FALLBACK_MEASUREMENT)
 
 
 def _series_tags() -> dict[str, tuple[str, ...]]:
@@ -167,7 +157,7 @@ def run(args: argparse.Namespace) -> int:
     if end <= start:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     tags = {"unit": config.unit.name, **parse_tags(args.tag)}
-    measurements = args.measurement or [_default_measurement()]
+    measurements = args.measurement or [SAMPLES_MEASUREMENT]
     if args.output is not None and not Path(args.output).expanduser().parent.is_dir():
         raise ValueError(f"-o: no such directory: {Path(args.output).expanduser().parent}")
     with config.store.open(create=False) as store:

@@ -104,6 +104,28 @@ def test_demo_finds_the_injected_ip_step(demo_dir):
     assert events[0][2] == -0.25
 
 
+def test_the_demo_stores_exactly_the_registered_series_and_fields(demo_dir):
+    """Every table the demo wrote is a series of isentrope.daemon.series with its tags, no
+    field outside the registry, and every registered field written at least once (the demo
+    unit maps every role and prices the losses)."""
+    from isentrope.daemon.series import BY_MEASUREMENT, SERIES
+
+    tables = _tables(demo_dir / "greywater2.sqlite")
+    assert set(tables) == {s.measurement for s in SERIES}
+    for name, cols in tables.items():
+        s = BY_MEASUREMENT[name]
+        tags = {"unit"} | {t for t, _ in s.tags}
+        assert tags <= cols, (name, sorted(tags - cols))
+        written = cols - tags - {"time", "time_utc"}
+        assert written == set(s.field_names), (
+            name,
+            "not registered:",
+            sorted(written - set(s.field_names)),
+            "never written:",
+            sorted(set(s.field_names) - written),
+        )
+
+
 def test_report_images_are_embedded_pngs(demo_dir):
     page = (demo_dir / "report" / "index.html").read_text()
     uris = re.findall(r'src="data:image/png;base64,([^"]+)"', page)
