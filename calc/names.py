@@ -32,6 +32,10 @@ ROLES: dict[str, tuple[str, bool, str]] = {
 REQUIRED_ROLES = tuple(name for name, (_, required, _) in ROLES.items() if required)
 OPTIONAL_ROLES = tuple(name for name, (_, required, _) in ROLES.items() if not required)
 
+#: The sections whose efficiency is trended against a baseline: HP, IP, the LP dry stage group
+#: (crossover -> LP extraction) and the whole LP (energy balance only).
+TRENDED_SECTIONS = ("hp", "ip", "lp_dry", "lp")
+
 #: Roles ``calc.sections`` reads (the others serve screening, the load or unit conversion).
 SECTION_ROLES = (
     "throttle_p",

@@ -44,7 +44,7 @@ __all__ = [
     "reason_names",
     "describe",
     "NEEDED_ROLES",
-    "SECTIONS",
+    "CONSISTENCY_PAIRS",
     "DEFAULT_RANGES",
     "FLATLINE_TOLERANCE",
     "DEFAULT_FLATLINE_RELATIVE",
@@ -102,9 +102,9 @@ P_ATM = 0.101325
 #: Roles whose flags spoil a sample by default: the required roles of the role table.
 NEEDED_ROLES = REQUIRED_ROLES
 
-#: Sections checked for physical consistency:
+#: Inlet/outlet pairs checked for physical consistency (not the trended sections of calc.names):
 #: name -> (inlet p, inlet T, outlet p, outlet T or None, check the efficiency band).
-SECTIONS: Mapping[str, tuple[str, str, str, str | None, bool]] = {
+CONSISTENCY_PAIRS: Mapping[str, tuple[str, str, str, str | None, bool]] = {
     "hp": ("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t", True),
     "ip": ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t", True),
     "lp": ("crossover_p", "crossover_t", "condenser_p", None, False),
@@ -884,7 +884,7 @@ def screen(
     block_ns = _windows.to_ns(spike_scale_block, "spike_scale_block")
     given: dict[str, np.ndarray] = {}
     for name, e in (efficiencies or {}).items():
-        if name not in SECTIONS or not SECTIONS[name][4]:
+        if name not in CONSISTENCY_PAIRS or not CONSISTENCY_PAIRS[name][4]:
             raise ValueError(f"efficiencies: unknown section {name!r}; give 'hp', 'ip' or 'lp_group'")
         if isinstance(e, pd.Series) and not e.index.equals(frame.index):
             raise ValueError(f"efficiencies[{name!r}] must have the same index as frame")
@@ -923,7 +923,7 @@ def screen(
 
     section_codes: dict[str, np.ndarray] = {}
     efficiencies: dict[str, np.ndarray] = {}
-    for name, roles in SECTIONS.items():
+    for name, roles in CONSISTENCY_PAIRS.items():
         cols = [r for r in roles[:4] if r]
         if not all(r in values for r in cols):
             continue
@@ -945,7 +945,7 @@ def screen(
         row |= flags[r]
     section_flags = {}
     for name, codes in section_codes.items():
-        members = [r for r in SECTIONS[name][:4] if r]
+        members = [r for r in CONSISTENCY_PAIRS[name][:4] if r]
         combined = codes.copy()
         for r in members:
             combined |= flags[r]

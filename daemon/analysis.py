@@ -64,6 +64,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from isentrope.calc.names import TRENDED_SECTIONS
 from isentrope.daemon.series import (
     ALARMS_MEASUREMENT,
     DEGRADATION_MEASUREMENT,
@@ -83,7 +84,7 @@ CURRENT_WINDOW_DAYS = 7.0
 
 #: Sections analysed, in report order: HP, IP, the LP dry stage group (crossover -> LP
 #: extraction) and the whole LP (from the energy balance, where it is mapped).
-SECTIONS = ("hp", "ip", "lp_dry", "lp")
+SECTIONS = TRENDED_SECTIONS  # calc.names
 
 _EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 

@@ -48,10 +48,13 @@ from typing import Any
 
 import pandas as pd
 
+from isentrope.calc.names import TRENDED_SECTIONS
 from isentrope.daemon.errors import ConfigError
 from isentrope.daemon.redact import remember
 from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
+from isentrope.daemon.stores import STORE_KINDS as _STORE_CLASSES
 from isentrope.daemon.stores import escape
+from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S
 
 __all__ = [
     "Config",
@@ -78,10 +81,10 @@ __all__ = [
     "STORE_KINDS",
 ]
 
-#: Sections trended and priced: HP, IP, the LP dry stage group (crossover -> LP extraction)
-#: and the whole LP (crossover -> exhaust, from the energy balance).
-SECTIONS = ("hp", "ip", "lp_dry", "lp")
-STORE_KINDS = ("sqlite", "influx2", "influx1")
+#: Sections trended and priced (``calc.names.TRENDED_SECTIONS``).
+SECTIONS = TRENDED_SECTIONS
+#: ``[store] kind`` values: the kinds ``daemon.stores`` implements.
+STORE_KINDS = tuple(_STORE_CLASSES)
 
 
 # --------------------------------------------------------------------------------------
@@ -193,7 +196,7 @@ class StoreConfig:
     password: Secret | None = None
     verify_ssl: bool = True
     ca_bundle: Path | None = None
-    timeout: dt.timedelta = dt.timedelta(seconds=10)
+    timeout: dt.timedelta = dt.timedelta(seconds=DEFAULT_TIMEOUT_S)
     batch_size: int = 5000
 
     def open(self, create: bool = True):
@@ -979,7 +982,12 @@ def _read_store(r: _Reader, top: dict, base_dir: Path, environ) -> StoreConfig:
         verify_ssl=verify,
         ca_bundle=_read_ca_bundle(r, d, p, base_dir, verify),
         timeout=r.value(
-            d, p + ("timeout",), "duration", default=dt.timedelta(seconds=10), low=0, low_open=True
+            d,
+            p + ("timeout",),
+            "duration",
+            default=dt.timedelta(seconds=DEFAULT_TIMEOUT_S),
+            low=0,
+            low_open=True,
         ),
         batch_size=r.value(d, p + ("batch_size",), "int", default=5000, low=1),
     )

@@ -43,6 +43,10 @@ from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores.grid import ReadGrid
 
+#: Default ``timeout`` of every store [s]: an HTTP request to InfluxDB, or SQLite's wait for a
+#: locked database. ``[store] timeout`` has the same default (project choice, no source).
+DEFAULT_TIMEOUT_S = 10.0
+
 
 class StoreError(Exception):
     """Base of the store errors. A text argument is redacted (``isentrope.daemon.redact``) when

@@ -42,7 +42,7 @@ import requests
 from isentrope.daemon.redact import remember, remember_basic
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
-from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LineProtocolWriter,
@@ -96,7 +96,7 @@ class Influx1Store(LineProtocolWriter, Store):
         username: str = "",
         password: str = "",
         token: str = "",
-        timeout: float = 30.0,
+        timeout: float = DEFAULT_TIMEOUT_S,
         batch_size: int = 5000,
         verify_ssl: bool = True,
         read_chunk: str | pd.Timedelta = "31D",

@@ -78,7 +78,7 @@ from influxdb_client.rest import ApiException
 from isentrope.daemon.redact import remember
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
-from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     RAW,
     RESULTS,
@@ -176,7 +176,7 @@ class Influx2Store(LineProtocolWriter, Store):
         bucket: str,
         token: str = "",
         verify_ssl: bool = True,
-        timeout: float = 30.0,
+        timeout: float = DEFAULT_TIMEOUT_S,
         batch_size: int = 5000,
         token_env: str = "",
         token_file: str = "",

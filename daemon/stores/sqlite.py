@@ -61,7 +61,7 @@ import pandas as pd
 
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common
-from isentrope.daemon.stores.base import FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.escape import check_name
 
 _SCHEMA = """
@@ -102,7 +102,7 @@ class SqliteStore(Store):
     kind = "sqlite"
     time_resolution = pd.Timedelta(1, "ms")  # times are kept in milliseconds (floored)
 
-    def __init__(self, path: str | Path, timeout: float = 30.0):
+    def __init__(self, path: str | Path, timeout: float = DEFAULT_TIMEOUT_S):
         self.path = str(path)
         self._lock = threading.RLock()
         try:
