@@ -1329,6 +1329,25 @@ class _PowerPlan:
         return out
 
 
+def _rows_sum(b, w=None):
+    """Sum of the rows of ``b`` (each weighted by ``w[r]`` when given), added one row after
+    the other: every point's sum is made by the same operations in the same order, however
+    many points are in the block. numpy's ``b.sum(axis=0)`` and ``einsum`` choose their
+    summation order by the array's shape (pairwise over a single column, row by row over
+    many), so a point's properties changed in the last bits with the number of points
+    evaluated with it, and results depended on how a period was cut into chunks."""
+    out = b[0].copy() if w is None else b[0] * w[0]
+    if w is None:
+        for r in range(1, b.shape[0]):
+            out += b[r]
+    else:
+        tmp = np.empty_like(out)
+        for r in range(1, b.shape[0]):
+            np.multiply(b[r], w[r], out=tmp)
+            out += tmp
+    return out
+
+
 class _PowerSum:
     """sum_k n_k x^I_k y^J_k and its derivatives, for integer exponents I and J.
 
@@ -1389,7 +1408,7 @@ class _PowerSum:
             m = x[sl].shape[0]
             b = self._accumulate(self.rows, self.xplan.build(x[sl]), m)
             b *= self.yplan.build(y[sl])
-            out[sl] = b.sum(axis=0)
+            out[sl] = _rows_sum(b)
         return out
 
     def derivatives(self, x, y, order_y=2, with_x=False, with_xy=False):
@@ -1412,15 +1431,15 @@ class _PowerSum:
             yp = self.yplan.build(y[sl])
             b = self._accumulate(self.rows, xp, m)
             b *= yp
-            out[0, sl] = b.sum(axis=0)
+            out[0, sl] = _rows_sum(b)
             for r in range(1, rows):
-                out[r, sl] = np.einsum("j,jm->m", self.w[r], b)
+                out[r, sl] = _rows_sum(b, self.w[r])
             if with_x:
                 bx = self._accumulate(self.rows_di, xp, m)
                 bx *= yp
-                out[rows, sl] = bx.sum(axis=0)
+                out[rows, sl] = _rows_sum(bx)
                 if with_xy:
-                    out[rows + 1, sl] = np.einsum("j,jm->m", self.w[1], bx)
+                    out[rows + 1, sl] = _rows_sum(bx, self.w[1])
         if order_y >= 1:
             out[1] /= y
         if order_y >= 2:
