@@ -1272,7 +1272,7 @@ _R2_N0 = (
 # --------------------------------------------------------------------------------------------
 # Evaluation of the polynomial sums sum_k n_k x^I_k y^J_k.
 
-_BLOCK = 8192  # points per block; keeps the power tables in cache (measured in calc/bench.py)
+_BLOCK = 8192  # points per block; keeps the power tables in cache (measured with tests/bench/bench_steam.py)
 
 
 def _frozen(a):

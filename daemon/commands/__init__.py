@@ -14,5 +14,5 @@ COMMAND_MODULES: list[str] = [
     "isentrope.daemon.commands.export",
     "isentrope.daemon.commands.demo",
     "isentrope.daemon.commands.report",
-    "isentrope.daemon.commands.test_eval",
+    "isentrope.daemon.commands.routine_eval",
 ]
