@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 from scipy import ndimage
 
-from isentrope.calc import _windows
+from isentrope.calc import rolling
 from isentrope.calc.names import REQUIRED_ROLES
 
 __all__ = [
@@ -287,9 +287,9 @@ class _Grid:
 
     @classmethod
     def build(cls, t: np.ndarray, window_ns: int) -> _Grid:
-        step = _windows.regular_step(t)
-        grace = step if step is not None else _windows.typical_step(t)
-        start = _windows.window_start(t, window_ns)
+        step = rolling.regular_step(t)
+        grace = step if step is not None else rolling.typical_step(t)
+        start = rolling.window_start(t, window_ns)
         rows = np.arange(len(t))
         spans = (t[start] <= t - window_ns + grace) & (start < rows)
         return cls(t, start, window_ns, step, grace, spans, rows)
@@ -385,7 +385,7 @@ def _flatline(values: np.ndarray, grid: _Grid, tol: float, rel: float = 0.0) -> 
         v = values[idx]
         step_tol = tol if rel == 0 else np.maximum(tol, rel_step * np.maximum(np.abs(v[1:]), np.abs(v[:-1])))
         moves[idx[1:]] = np.abs(np.diff(v)) > step_tol
-        first = np.minimum(_windows.next_valid(valid)[grid.start], n - 1)
+        first = np.minimum(rolling.next_valid(valid)[grid.start], n - 1)
         spans = (grid.t[first] <= grid.t - grid.window_ns + grid.grace) & (first < grid.rows)
     cm = np.cumsum(moves)
     # moves in (first, e] = cm[e] - cm[first]
@@ -394,10 +394,10 @@ def _flatline(values: np.ndarray, grid: _Grid, tol: float, rel: float = 0.0) -> 
         candidate &= valid
     if not candidate.any():
         return np.zeros(n, dtype=bool)
-    hi, lo = _windows.trailing_max_min(values, grid.t, grid.window_ns, grid.step)
+    hi, lo = rolling.trailing_max_min(values, grid.t, grid.window_ns, grid.step)
     with np.errstate(invalid="ignore"):
         end_ok = candidate & (hi - lo <= (tol if rel == 0 else flatline_limit(hi, lo, tol, rel)))
-    return _windows.covered(end_ok, grid.start) & valid
+    return rolling.covered(end_ok, grid.start) & valid
 
 
 def flatline_samples(
@@ -437,8 +437,8 @@ def flatline_samples(
     if not isinstance(values, pd.Series):
         raise ValueError(f"values must be a pandas Series, found {type(values).__name__}")
     _check_flatline_tolerances(tolerance, relative)
-    t = _windows.times_ns(values.index)
-    grid = _Grid.build(t, _windows.to_ns(flatline, "flatline"))
+    t = rolling.times_ns(values.index)
+    grid = _Grid.build(t, rolling.to_ns(flatline, "flatline"))
     try:
         v = values.to_numpy(dtype=float, na_value=np.nan)
     except (TypeError, ValueError):
@@ -497,7 +497,7 @@ def _noise_scale(values: np.ndarray, t: np.ndarray, block_ns: int) -> np.ndarray
     if n < 2:
         return np.full(n, np.nan)
     factor = MAD_TO_SIGMA / np.sqrt(2.0)
-    step = _windows.regular_step(t)
+    step = rolling.regular_step(t)
     if step is not None and block_ns % step == 0 and block_ns // step >= 2:
         m = block_ns // step
         first_block_end = (t[0] // block_ns + 1) * block_ns
@@ -829,7 +829,7 @@ def screen(
     """
     if not isinstance(frame, pd.DataFrame):
         raise ValueError(f"frame must be a pandas DataFrame, found {type(frame).__name__}")
-    t = _windows.times_ns(frame.index)
+    t = rolling.times_ns(frame.index)
     n = len(frame)
     values: dict[str, np.ndarray] = {}
     for c in frame.columns:
@@ -869,7 +869,7 @@ def screen(
                     f"flatline tolerance of {role} must be a finite number >= 0 or None, found {tol!r}"
                 ) from None
     _check_flatline_tolerances(0.0, flatline_relative)
-    flat_ns = None if flatline is None else _windows.to_ns(flatline, "flatline")
+    flat_ns = None if flatline is None else rolling.to_ns(flatline, "flatline")
     if spike is not None:
         if isinstance(spike, bool) or not isinstance(spike, (int, np.integer)) or spike < 3 or spike % 2 == 0:
             raise ValueError(f"spike window must be an odd number of samples >= 3, found {spike!r}")
@@ -881,7 +881,7 @@ def screen(
             f"efficiency_band must be (low, high) with 0 <= low < high, found {efficiency_band!r}"
         )
     grid = _Grid.build(t, flat_ns) if flat_ns is not None else None
-    block_ns = _windows.to_ns(spike_scale_block, "spike_scale_block")
+    block_ns = rolling.to_ns(spike_scale_block, "spike_scale_block")
     given: dict[str, np.ndarray] = {}
     for name, e in (efficiencies or {}).items():
         if name not in CONSISTENCY_PAIRS or not CONSISTENCY_PAIRS[name][4]:

@@ -326,7 +326,7 @@ def _section_core(p_in, t_in, p_out, t_out, end_state=False):
     and volume of the isentropic end point from the same solve that gives its enthalpy (for
     ``_section_uncertainty``; the other figures are the same bit for bit), and "slopes_in",
     "slopes_out": dicts of the partial derivatives of h and s at the inlet and outlet
-    (``steam._hs_slopes_pt``, NaN where not OK or outside IF97 regions 1 and 2)."""
+    (``steam.hs_slopes_pt``, NaN where not OK or outside IF97 regions 1 and 2)."""
     n = p_in.size
     reason = np.zeros(n, dtype=np.int64)
     finite = np.isfinite(p_in) & np.isfinite(t_in) & np.isfinite(p_out) & np.isfinite(t_out)
@@ -354,7 +354,7 @@ def _section_core(p_in, t_in, p_out, t_out, end_state=False):
         t_s = np.full(n, np.nan)
         v_s = np.full(n, np.nan)
         if ok.any():
-            h_s[ok], t_s[ok], v_s[ok] = steam._end_state_ps(p_out[ok], s_in[ok])
+            h_s[ok], t_s[ok], v_s[ok] = steam.end_state_ps(p_out[ok], s_in[ok])
     else:
         h_s = _call(steam.h_ps, ok, p_out, s_in)
     _mark(reason, (reason == OK) & ~(ok & np.isfinite(h_s)), OUT_OF_RANGE)
@@ -611,13 +611,13 @@ def _crossing_pressure(h_in, s_in, eta, p_lo, p_hi):
 
 def _exhaust_states(p_exh, mask):
     """Exact h', h'', s', s'' and v', v'' at the exhaust pressure where ``mask`` (NaN
-    elsewhere): ``steam._saturation_states``, the public saturation functions bit for bit in
+    elsewhere): ``steam.saturation_states``, the public saturation functions bit for bit in
     one pass. Measured on 86,400 condenser pressures (60 days of one-minute rows): 0.171 s
     for the six functions one by one, 0.055 s in one pass."""
     n = mask.shape[0]
     out = {k: np.full(n, np.nan) for k in ("hf", "hg", "sf", "sg", "vf", "vg")}
     if mask.any():
-        got = steam._saturation_states(p_exh[mask])
+        got = steam.saturation_states(p_exh[mask])
         for k, v in got.items():
             out[k][mask] = v
     return (out["hf"], out["hg"], out["sf"], out["sg"]), (out["vf"], out["vg"])
@@ -1240,22 +1240,22 @@ def _pt_derivative(func, p, t, step, which, f0, mask):
 
 
 def _call_slopes(mask, p, t):
-    """``steam._hs_slopes_pt`` on the points selected by ``mask``; NaN elsewhere."""
+    """``steam.hs_slopes_pt`` on the points selected by ``mask``; NaN elsewhere."""
     n = mask.shape[0]
     out = {k: np.full(n, np.nan) for k in ("h", "s", "dh_dt", "ds_dt", "dh_dp", "ds_dp")}
     if mask.any():
-        got = steam._hs_slopes_pt(p[mask], t[mask])
+        got = steam.hs_slopes_pt(p[mask], t[mask])
         for k, v in got.items():
             out[k][mask] = v
     return out
 
 
 def _call_hs(mask, p, t):
-    """h and s (``steam._hs_pt``, one pass) on the points selected by ``mask``; NaN elsewhere."""
+    """h and s (``steam.hs_pt``, one pass) on the points selected by ``mask``; NaN elsewhere."""
     h = np.full(mask.shape, np.nan)
     s = np.full(mask.shape, np.nan)
     if mask.any():
-        h[mask], s[mask] = steam._hs_pt(p[mask], t[mask])
+        h[mask], s[mask] = steam.hs_pt(p[mask], t[mask])
     return h, s
 
 
@@ -1289,7 +1289,7 @@ class _InletStates:
             h[hit], s[hit] = eh[hit], es[hit]
             todo &= ~em
         if todo.any():
-            h[todo], s[todo] = steam._hs_pt(p[todo], t[todo])
+            h[todo], s[todo] = steam.hs_pt(p[todo], t[todo])
             self.add(p, t, mask, h, s)
         return h, s
 

@@ -51,7 +51,7 @@ import numpy as np
 import pandas as pd
 from scipy.signal import lfilter
 
-from isentrope.calc import _windows
+from isentrope.calc import rolling
 
 __all__ = [
     "SteadyResult",
@@ -415,22 +415,22 @@ def tag_steady(
         raise ValueError(f"frame must be a pandas DataFrame, found {type(frame).__name__}")
     if method not in ("ptc6", "r_statistic"):
         raise ValueError(f"method must be 'ptc6' or 'r_statistic', found {method!r}")
-    t = _windows.times_ns(frame.index)
+    t = rolling.times_ns(frame.index)
     n = len(t)
     if LOAD_ROLE not in frame.columns:
         raise ValueError(f"steady-state tagging needs the {LOAD_ROLE!r} column (generator gross output, MW)")
-    window_ns = _windows.to_ns(window, "window")
-    min_length_ns = window_ns if min_length is None else _windows.to_ns(min_length, "min_length")
-    max_length_ns = _windows.to_ns(max_length, "max_length")
+    window_ns = rolling.to_ns(window, "window")
+    min_length_ns = window_ns if min_length is None else rolling.to_ns(min_length, "min_length")
+    max_length_ns = rolling.to_ns(max_length, "max_length")
     if max_length_ns < min_length_ns:
         raise ValueError(
             f"max_length ({max_length}) must not be shorter than min_length ({min_length or window})"
         )
-    step = _windows.typical_step(t)
+    step = rolling.typical_step(t)
     if max_gap is None:
-        max_gap_ns = max(_windows.to_ns(MIN_MAX_GAP, "max_gap"), 3 * step)
+        max_gap_ns = max(rolling.to_ns(MIN_MAX_GAP, "max_gap"), 3 * step)
     else:
-        max_gap_ns = _windows.to_ns(max_gap, "max_gap")
+        max_gap_ns = rolling.to_ns(max_gap, "max_gap")
     if rating_mw is not None and not (np.isfinite(rating_mw) and rating_mw > 0):
         raise ValueError(f"rating_mw must be a positive number of MW, found {rating_mw!r}")
     if offline_mw is None:
@@ -495,13 +495,13 @@ def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details, dea
     values = {role: _float(frame, role) for role in criteria}
     usable = base & np.logical_and.reduce([np.isfinite(v) for v in values.values()])
 
-    step = _windows.regular_step(t)
-    start = _windows.window_start(t, window_ns)
+    step = rolling.regular_step(t)
+    start = rolling.window_start(t, window_ns)
     window_ok = usable.copy()
     for role, (rel, absolute) in criteria.items():
         x = np.where(usable, values[role], np.nan)
-        hi, lo = _windows.trailing_max_min(x, t, window_ns, step)
-        mean = _windows.trailing_mean(x, start)
+        hi, lo = rolling.trailing_max_min(x, t, window_ns, step)
+        mean = rolling.trailing_mean(x, start)
         with np.errstate(invalid="ignore"):
             deviation = np.maximum(hi - mean, mean - lo)
             if role == LOAD_ROLE and rating_mw is not None:
@@ -517,15 +517,15 @@ def _ptc6(frame, t, window_ns, max_gap_ns, limits, rating_mw, base, details, dea
         details[f"{role}_within"] = within
     # The window must be filled: its first usable sample within one sampling step of the
     # window start, and no gap longer than max_gap between usable samples inside it.
-    first = np.minimum(_windows.next_valid(usable)[start], len(t) - 1)
+    first = np.minimum(rolling.next_valid(usable)[start], len(t) - 1)
     brk = np.concatenate(([0], np.cumsum(_breaks(t, usable, max_gap_ns))))
     breaks_inside = brk[np.arange(1, len(t) + 1)] - brk[first + 1]
-    grace = _windows.typical_step(t)
+    grace = rolling.typical_step(t)
     filled = (t[first] <= t - window_ns + grace) & (breaks_inside == 0) & (first < np.arange(len(t)))
     window_ok &= filled
     details["window_covered"] = filled & usable
     details["window_ok"] = window_ok
-    reach = _windows.reach(window_ok, start)
+    reach = rolling.reach(window_ok, start)
     steady = (reach <= np.arange(len(t))) & usable
 
     def check(group, idx):

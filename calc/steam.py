@@ -64,6 +64,10 @@ __all__ = [
     "x_ph",
     "s_ph",
     "v_ph",
+    "hs_pt",
+    "hs_slopes_pt",
+    "saturation_states",
+    "end_state_ps",
     "PropertyDetails",
     "OK",
     "OUT_OF_RANGE_P",
@@ -1268,7 +1272,7 @@ _R2_N0 = (
 # --------------------------------------------------------------------------------------------
 # Evaluation of the polynomial sums sum_k n_k x^I_k y^J_k.
 
-_BLOCK = 8192  # points per block; keeps the power tables in cache (measured in calc/bench.py)
+_BLOCK = 8192  # points per block; keeps the power tables in cache (measured with tests/bench/bench_steam.py)
 
 
 def _frozen(a):
@@ -1327,6 +1331,25 @@ class _PowerPlan:
             for k, d in enumerate(self.steps, start=1):
                 np.multiply(out[k - 1], ladder[d], out=out[k])
         return out
+
+
+def _rows_sum(b, w=None):
+    """Sum of the rows of ``b`` (each weighted by ``w[r]`` when given), added one row after
+    the other: every point's sum is made by the same operations in the same order, however
+    many points are in the block. numpy's ``b.sum(axis=0)`` and ``einsum`` choose their
+    summation order by the array's shape (pairwise over a single column, row by row over
+    many), so a point's properties changed in the last bits with the number of points
+    evaluated with it, and results depended on how a period was cut into chunks."""
+    out = b[0].copy() if w is None else b[0] * w[0]
+    if w is None:
+        for r in range(1, b.shape[0]):
+            out += b[r]
+    else:
+        tmp = np.empty_like(out)
+        for r in range(1, b.shape[0]):
+            np.multiply(b[r], w[r], out=tmp)
+            out += tmp
+    return out
 
 
 class _PowerSum:
@@ -1389,7 +1412,7 @@ class _PowerSum:
             m = x[sl].shape[0]
             b = self._accumulate(self.rows, self.xplan.build(x[sl]), m)
             b *= self.yplan.build(y[sl])
-            out[sl] = b.sum(axis=0)
+            out[sl] = _rows_sum(b)
         return out
 
     def derivatives(self, x, y, order_y=2, with_x=False, with_xy=False):
@@ -1412,15 +1435,15 @@ class _PowerSum:
             yp = self.yplan.build(y[sl])
             b = self._accumulate(self.rows, xp, m)
             b *= yp
-            out[0, sl] = b.sum(axis=0)
+            out[0, sl] = _rows_sum(b)
             for r in range(1, rows):
-                out[r, sl] = np.einsum("j,jm->m", self.w[r], b)
+                out[r, sl] = _rows_sum(b, self.w[r])
             if with_x:
                 bx = self._accumulate(self.rows_di, xp, m)
                 bx *= yp
-                out[rows, sl] = bx.sum(axis=0)
+                out[rows, sl] = _rows_sum(bx)
                 if with_xy:
-                    out[rows + 1, sl] = np.einsum("j,jm->m", self.w[1], bx)
+                    out[rows + 1, sl] = _rows_sum(bx, self.w[1])
         if order_y >= 1:
             out[1] /= y
         if order_y >= 2:
@@ -1928,11 +1951,11 @@ def _core_hs_pt(p, t):
     return h, s
 
 
-def _hs_pt(p, t):
+def hs_pt(p, t):
     """Specific enthalpy [kJ/kg] and entropy [kJ/(kg K)] at flat float arrays p [MPa] and
     T [K] in one pass: the same values, bit for bit, as ``h_pt`` and ``s_pt`` (same region
-    choice and the same sums; NaN outside IF97), at about the cost of one of them. Private:
-    used by calc/sections.py for the perturbed states of its uncertainty propagation.
+    choice and the same sums; NaN outside IF97), at about the cost of one of them. A kernel of calc/sections.py (the perturbed states of its
+    uncertainty propagation): flat float arrays in, no broadcasting or reason codes.
 
     References
     ----------
@@ -1950,14 +1973,14 @@ def _hs_pt(p, t):
     return h, s
 
 
-def _hs_slopes_pt(p, t):
+def hs_slopes_pt(p, t):
     """h [kJ/kg], s [kJ/(kg K)] and their partial derivatives at flat float arrays p [MPa] and
     T [K] from one region-1/2 Gibbs evaluation: (dh/dT)_p = cp, (ds/dT)_p = cp / T,
     (dh/dp)_T = v - T (dv/dT)_p and (ds/dp)_T = -(dv/dT)_p (Maxwell; per MPa: kJ/kg/MPa and
-    kJ/(kg K)/MPa). h and s are bit for bit those of ``_hs_pt`` (region 3 and 5 points
+    kJ/(kg K)/MPa). h and s are bit for bit those of ``hs_pt`` (region 3 and 5 points
     included, from the same fallback); the derivatives are NaN outside regions 1 and 2
-    (callers difference there). Private: the sensitivity coefficients of calc/sections.py's
-    uncertainty propagation.
+    (callers difference there). A kernel of calc/sections.py (the sensitivity coefficients of
+    its uncertainty propagation).
 
     Returns
     -------
@@ -2000,12 +2023,12 @@ def _hs_slopes_pt(p, t):
     return out
 
 
-def _saturation_states(p):
+def saturation_states(p):
     """h [kJ/kg], s [kJ/(kg K)] and v [m3/kg] of saturated liquid and vapour at flat float
     pressures p [MPa] in one pass (one T_sat(p), one region-1 and one region-2 evaluation
     instead of one of each per property): bit for bit ``h_sat_liquid`` ... ``v_sat_vapour``,
-    NaN where those are NaN. Private: the exhaust saturation of calc/sections.py's LP chain,
-    evaluated again for every condenser-pressure difference of its uncertainty.
+    NaN where those are NaN. A kernel of calc/sections.py (the exhaust saturation of its LP
+    chain, evaluated again for every condenser-pressure difference of its uncertainty).
 
     Returns
     -------
@@ -2040,12 +2063,12 @@ def _saturation_states(p):
     return out
 
 
-def _end_state_ps(p, s):
+def end_state_ps(p, s):
     """h [kJ/kg], T [K] and v [m3/kg] at flat float arrays p [MPa] and s [kJ/(kg K)] from
     one solve: h is bit for bit ``h_ps`` (the Newton iterates do not depend on the extra
     properties asked for); T and v are those of the same solution (NaN outside IF97).
-    Private: the isentropic end point of calc/sections.py and its sensitivities
-    (dh_s = T ds + v dp) without a second solve.
+    A kernel of calc/sections.py (the isentropic end point and its sensitivities,
+    dh_s = T ds + v dp, without a second solve).
 
     References
     ----------

@@ -64,7 +64,17 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from isentrope.calc import alarms, economics, trend
+from isentrope.calc.baseline import BaselineModel
+from isentrope.calc.economics import OverhaulCase, ProjectedLoss
 from isentrope.calc.names import TRENDED_SECTIONS
+from isentrope.calc.trend import HOURS_PER_MONTH, Projection, RateResult
+from isentrope.daemon.config import DEFAULT_SENSITIVITY
+from isentrope.daemon.pipeline import (
+    WORK_SHARE,
+    Pipeline,
+    no_events,
+)
 from isentrope.daemon.series import (
     ALARMS_MEASUREMENT,
     DEGRADATION_MEASUREMENT,
@@ -74,6 +84,7 @@ from isentrope.daemon.series import (
     OUTLOOK_MEASUREMENT,
     STEPS_MEASUREMENT,
 )
+from isentrope.daemon.timeutil import epoch_seconds
 
 logger = logging.getLogger(__name__)
 
@@ -85,8 +96,6 @@ CURRENT_WINDOW_DAYS = 7.0
 #: Sections analysed, in report order: HP, IP, the LP dry stage group (crossover -> LP
 #: extraction) and the whole LP (from the energy balance, where it is mapped).
 SECTIONS = TRENDED_SECTIONS  # calc.names
-
-_EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
 
 
 @dataclass
@@ -178,9 +187,7 @@ class Analysis:
                     {
                         "size": [float(x.size) for x in s.steps],
                         "size_u": [float(x.size_u) for x in s.steps],
-                        "detected_at_s": [
-                            float((pd.Timestamp(x.detected_at) - _EPOCH).total_seconds()) for x in s.steps
-                        ],
+                        "detected_at_s": [epoch_seconds(x.detected_at) for x in s.steps],
                     },
                     index=pd.DatetimeIndex([pd.Timestamp(x.time) for x in s.steps], name="time"),
                 )
@@ -241,11 +248,7 @@ def _outlook_row(s: SectionOutlook) -> dict:
             overhaul_payback_hours=[float(o.payback_hours)],
             overhaul_saving_per_hour=[float(o.saving_per_hour)],
             overhaul_saving_per_year=[float(o.saving_per_year)],
-            overhaul_break_even_s=[
-                float((pd.Timestamp(o.break_even) - _EPOCH).total_seconds())
-                if o.break_even is not None
-                else math.nan
-            ],
+            overhaul_break_even_s=[epoch_seconds(o.break_even) if o.break_even is not None else math.nan],
         )
     return row
 
@@ -365,7 +368,6 @@ def _current(dev: pd.Series, end: pd.Timestamp) -> tuple[float, float]:
 def _rate_until(dev: pd.Series, rel: np.ndarray, steps, t: pd.Timestamp):
     """The degradation rate as it stood at ``t``: the windows at or before ``t``, blocked at
     the steps known by then (``rel``: operating hours of each window since the first)."""
-    from isentrope.calc import trend
 
     sel = dev.index <= t
     breaks = [rel[int(s.index)] for s in steps if pd.Timestamp(s.detected_at) <= t] or None
@@ -408,7 +410,6 @@ def _window_u(dev_u: pd.Series | None, end: pd.Timestamp) -> float:
 
 
 def _cost_basis(config, notes: list[str]):
-    from isentrope.calc import economics
 
     econ = config.economics
     if econ.fuel_price_per_gj is not None and econ.heat_rate_kj_per_kwh is not None:
@@ -423,7 +424,6 @@ def _cost_basis(config, notes: list[str]):
 
 
 def _rules(config) -> list:
-    from isentrope.calc import alarms
 
     a = config.alarms
     return [
@@ -457,13 +457,6 @@ def _rules(config) -> list:
     ]
 
 
-def _no_events() -> pd.DataFrame:
-    return pd.DataFrame(
-        columns=["section", "rule", "kind", "value", "threshold", "message"],
-        index=pd.DatetimeIndex([], tz="UTC", name="time"),
-    )
-
-
 def _coefficients(name: str, frame: pd.DataFrame, econ, notes: list) -> tuple[float, float, str] | None:
     """Heat-rate and output coefficients of a section [% per point] and their source.
 
@@ -472,9 +465,6 @@ def _coefficients(name: str, frame: pd.DataFrame, econ, notes: list) -> tuple[fl
     ``calc.sections.stage_group_weight``: its share of the LP's isentropic drop less what the
     stages after it recover), since a point of the group is only that part of a point of
     the LP (``calc.economics.stage_group_coefficient``)."""
-    from isentrope.calc import economics
-    from isentrope.daemon.config import DEFAULT_SENSITIVITY
-    from isentrope.daemon.pipeline import WORK_SHARE
 
     sens = econ.sensitivity.get(name)
     if sens is not None:
@@ -507,7 +497,6 @@ def _losses(
     only, so a day's row never changes once the day is over); the day's own online hours and
     mean online output. ``coefficients``: (heat rate, output) [% per point] of ``_coefficients``;
     ``prev``: (lost MWh, fuel cost) accumulated before ``days[0]``."""
-    from isentrope.calc import economics
 
     hr_c = {name: coefficients[0]}
     out_c = {name: coefficients[1]}
@@ -570,7 +559,6 @@ def _confirmed(before: list, now: list, idx_ns: np.ndarray) -> list:
     tests/daemon/test_step_confirmation.py): a false step alarm on some day in 8.5 % of the
     series without confirmation, 6.0 % with it (1.0 % against 3.5 % at phi 0.5); a -1 point
     step raised in 99.5 % of the series, a median 47 h after it (23 h unconfirmed)."""
-    from isentrope.calc import trend
 
     near = trend.DEFAULT_WARMUP_POINTS
     out = []
@@ -597,7 +585,6 @@ def _steps_to_json(steps) -> list[dict]:
 
 
 def _steps_from_json(rows) -> list:
-    from isentrope.calc import trend
 
     return [
         trend.Step(
@@ -619,7 +606,6 @@ def _evaluate(dev: pd.Series, dev_u, rel: np.ndarray, times, a, before=None) -> 
     steps, and the steps confirmed by the scan of the time before (``before``: the steps found
     at the evaluation preceding ``times[0]``; see ``_confirmed``). A time with no new window
     reuses the previous scan and fit (the same inputs give the same results)."""
-    from isentrope.calc import trend
 
     out = []
     last_key, last_rate = None, None
@@ -678,7 +664,6 @@ def _row(e: _Evaluation) -> dict:
 
 
 def _observations(evals: list[_Evaluation], name: str) -> list[dict]:
-    from isentrope.calc import alarms
 
     obs = []
     for e in evals:
@@ -709,10 +694,9 @@ def _observations(evals: list[_Evaluation], name: str) -> list[dict]:
 
 
 def _alarm_events(state, obs: list[dict], rules):
-    from isentrope.calc import alarms
 
     if not obs:
-        return dict(state or {}), _no_events()
+        return dict(state or {}), no_events()
     frame = pd.DataFrame(obs).sort_values(["time", "section", "quantity"], kind="stable")
     return alarms.evaluate_alarms(state or None, frame.reset_index(drop=True), rules)
 
@@ -735,7 +719,6 @@ def _in_threads(func, names: list[str]) -> dict:
 
 
 def _find_steps(dev: pd.Series, rel: np.ndarray, a):
-    from isentrope.calc import trend
 
     # the step time is the least-squares change point (the scan's own; with step_method
     # "cusum", refine replaces the point after the CUSUM's last zero, which can fall windows
@@ -815,7 +798,6 @@ def _compute(
     ``end``: final rows at each UTC midnight up to ``final_until``, provisional ones at
     ``end`` (no I/O). ``operation``: every day's operation rows from the reference start;
     ``cumulative``: section -> (lost MWh, fuel cost) up to ``final_after``."""
-    from isentrope.calc import economics, trend
 
     notes: list[str] = []
     a = config.alarms
@@ -956,7 +938,7 @@ def _compute(
     events = (
         pd.concat([e for e in (final_events, end_events) if len(e)])
         if len(final_events) or len(end_events)
-        else _no_events()
+        else no_events()
     )
     return {
         "analysis": Analysis(
@@ -1023,8 +1005,6 @@ def alarm_series(config) -> list[tuple[str, str]]:
     """Every (section or tag, rule) pair whose ``alarm_events`` series the worker or the
     analysis can write for ``config``: per-tag rules for each mapped role, rules limited to
     some sections for those, the others (and the analysis rules) for each section."""
-    from isentrope.calc import alarms
-    from isentrope.daemon.pipeline import Pipeline
 
     roles = [m.role for m in config.mappings]
     out = []
@@ -1252,7 +1232,6 @@ def run_analysis(
     The baseline models' ids come from the worker's saved state ``baseline/<unit>``; without a
     saved baseline there is nothing to analyse and an empty ``Analysis`` is returned.
     """
-    from isentrope.calc.baseline import BaselineModel
 
     unit = config.unit.name
     tags = {"unit": unit}
@@ -1263,7 +1242,7 @@ def run_analysis(
         return Analysis(
             end=pd.Timestamp(end) if end is not None else pd.Timestamp.now(tz="UTC").floor("min"),
             sections={},
-            alarm_events=_no_events(),
+            alarm_events=no_events(),
             availability=math.nan,
             mean_output_mw=math.nan,
             notes=["no baseline model saved yet: nothing to analyse"],
@@ -1281,7 +1260,7 @@ def run_analysis(
     final = pd.Timestamp(state["final"]) if state.get("final") else None
     read_from = final if final is not None else ref
     if end is not None and pd.Timestamp(end) <= read_from:  # nothing after what is final
-        return load_analysis(store, config) if load else Analysis(end, {}, _no_events(), math.nan, math.nan)
+        return load_analysis(store, config) if load else Analysis(end, {}, no_events(), math.nan, math.nan)
     gross = [m for m in config.mappings if m.role == "gross_output"]
     ahead = pd.Timestamp.now(tz="UTC") + _READ_AHEAD
     power = store.read(
@@ -1305,7 +1284,7 @@ def run_analysis(
         until = final  # final days stay final
     new_final = until if until > read_from else final
     if end <= read_from:
-        return load_analysis(store, config) if load else Analysis(end, {}, _no_events(), math.nan, math.nan)
+        return load_analysis(store, config) if load else Analysis(end, {}, no_events(), math.nan, math.nan)
     power = power[power.index < end]
     online = power > float(config.unit.online_mw)
     new_ops = daily_operation(online, power, read_from, end, hours_before=float(state.get("hours", 0.0)))
@@ -1359,7 +1338,6 @@ def run_analysis(
 
 
 def _rate_from_row(row: pd.Series):
-    from isentrope.calc.trend import HOURS_PER_MONTH, RateResult
 
     def g(k):
         v = row.get(k, math.nan)
@@ -1388,9 +1366,6 @@ def load_analysis(store, config) -> Analysis:
     ``steps``, ``losses`` and ``outlook`` rows and the analysis's alarm events. Nothing is
     computed again except what the stored rows are drawn against (the windows' deviations and
     operating hours). What the demo's summary, the report and ``status`` show."""
-    from isentrope.calc.baseline import BaselineModel
-    from isentrope.calc.economics import OverhaulCase, ProjectedLoss
-    from isentrope.calc.trend import Projection
 
     unit = config.unit.name
     tags = {"unit": unit}
@@ -1406,7 +1381,7 @@ def load_analysis(store, config) -> Analysis:
         return Analysis(
             end=pd.Timestamp(state["end"]) if state.get("end") else pd.Timestamp.now(tz="UTC").floor("min"),
             sections={},
-            alarm_events=_no_events(),
+            alarm_events=no_events(),
             availability=math.nan,
             mean_output_mw=math.nan,
             notes=notes,
@@ -1541,7 +1516,7 @@ def load_analysis(store, config) -> Analysis:
                         index=pd.DatetimeIndex(ev.index, name="time"),
                     )
                 )
-    alarm_events = pd.concat(events).sort_index(kind="stable") if events else _no_events()
+    alarm_events = pd.concat(events).sort_index(kind="stable") if events else no_events()
     return Analysis(
         end=end,
         sections=sections,

@@ -23,9 +23,8 @@ The dataclass tree (these names are stable; other modules build on them):
   ``AlarmsConfig``, ``SensitivityConfig``, ``OverhaulCase``, ``EconomicsConfig``,
   ``ScheduleConfig``, ``ReadConfig`` (with ``ReadRule`` per quantity and per role): one per
   table, fields as in ``deploy/example.toml``.
-* ``parse_duration(text) -> timedelta``: "30s", "15m", "2h", "1d", "1h30m".
-
-Durations are strings ("15m"), times are ISO 8601 (naive means UTC), secrets are
+Durations are strings ("15m") and times ISO 8601 (naive means UTC), both of the grammar of
+``isentrope.daemon.timeutil``; secrets are
 ``"${ENV_NAME}"`` or a ``*_file`` key naming a file whose first line is the secret; a secret
 written literally in the file is refused. ``deploy/example.toml`` documents every key with its
 default. Units of each role are checked against ``isentrope.calc.units.KNOWN_UNITS`` (accepted
@@ -55,6 +54,7 @@ from isentrope.daemon.roles import REQUIRED_ROLES, ROLES, RoleMapping
 from isentrope.daemon.stores import STORE_KINDS as _STORE_CLASSES
 from isentrope.daemon.stores import escape
 from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S
+from isentrope.daemon.timeutil import format_duration, parse_duration, parse_time
 
 __all__ = [
     "Config",
@@ -75,8 +75,6 @@ __all__ = [
     "ReadRule",
     "load_config",
     "parse_config",
-    "parse_duration",
-    "format_duration",
     "SECTIONS",
     "STORE_KINDS",
 ]
@@ -113,50 +111,6 @@ class Secret:
 
     def __hash__(self) -> int:
         return hash(self._value)
-
-
-#: No duration of the configuration or the command line is longer (ten years of 365 days): a
-#: longer one is a typing error, and beyond about 2.7 million years a timedelta overflows.
-LONGEST_DURATION = dt.timedelta(days=3650)
-
-_DURATION_PART = re.compile(r"(\d+(?:\.\d+)?)\s*(ms|s|m|h|d|w)")
-_DURATION_UNIT = {"ms": 0.001, "s": 1.0, "m": 60.0, "h": 3600.0, "d": 86400.0, "w": 604800.0}
-
-
-def parse_duration(text: str) -> dt.timedelta:
-    """A duration string ("30s", "15m", "2h", "1d", "1w", "1h30m") as a timedelta.
-
-    Raises ValueError naming what was found and the accepted form.
-    """
-    if not isinstance(text, str):
-        raise ValueError(f'expected a duration string such as "15m", found {text!r}')
-    s = text.strip().lower().replace(" ", "")
-    pos, seconds = 0, 0.0
-    for m in _DURATION_PART.finditer(s):
-        if m.start() != pos:
-            break
-        seconds += float(m.group(1)) * _DURATION_UNIT[m.group(2)]
-        pos = m.end()
-    if not s or pos != len(s):
-        raise ValueError(f'expected a duration such as "30s", "15m", "2h", "1d" or "1h30m", found {text!r}')
-    if seconds > LONGEST_DURATION.total_seconds():
-        raise ValueError(
-            f"expected a duration of at most {format_duration(LONGEST_DURATION)}, found {text!r}"
-        )
-    return dt.timedelta(seconds=seconds)
-
-
-def format_duration(value: dt.timedelta) -> str:
-    """The shortest duration string for a timedelta ("90m" -> "1h30m")."""
-    total = int(round(value.total_seconds()))
-    if total == 0:
-        return "0s"
-    out = []
-    for unit, size in (("d", 86400), ("h", 3600), ("m", 60), ("s", 1)):
-        n, total = divmod(total, size)
-        if n:
-            out.append(f"{n}{unit}")
-    return "".join(out)
 
 
 # --------------------------------------------------------------------------------------
@@ -773,12 +727,7 @@ def _convert(raw: Any, kind: str) -> Any:
         if isinstance(raw, (dt.datetime, dt.date)):
             ts = pd.Timestamp(raw)
         elif isinstance(raw, str):
-            try:
-                ts = pd.Timestamp(raw)
-            except (ValueError, TypeError):
-                raise ValueError(
-                    f'expected an ISO 8601 time such as "2026-03-01T00:00:00Z", found {raw!r}'
-                ) from None
+            ts = parse_time(raw)
         else:
             raise ValueError(f"expected an ISO 8601 time, found {_kind(raw)}")
         if ts is pd.NaT or pd.isna(ts):

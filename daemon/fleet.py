@@ -44,14 +44,20 @@ from itertools import pairwise
 
 import pandas as pd
 
+from isentrope.calc import alarms
+from isentrope.daemon.config import load_config
 from isentrope.daemon.pipeline import (
     HISTORIAN_SECTION,
+    CycleResults,
     Pipeline,
-    _no_events,
     absent_row_times,
+    no_events,
     sample_spacing,
 )
-from isentrope.daemon.worker import _utc
+from isentrope.daemon.redact import install_log_filter
+from isentrope.daemon.stores import open_store
+from isentrope.daemon.timeutil import utc
+from isentrope.daemon.worker import Worker
 
 logger = logging.getLogger("isentrope.fleet")
 
@@ -109,7 +115,7 @@ def plan_partitions(config_path: str, config, start, end, period=DEFAULT_PERIOD)
     list of Partition
         In time order.
     """
-    start, end = _utc(start), _utc(end)
+    start, end = utc(start), utc(end)
     if end <= start:
         raise ValueError(f"end ({end.isoformat()}) must be after start ({start.isoformat()})")
     try:  # a fixed length ("7D", "12h"): boundaries on its multiples from the epoch
@@ -126,7 +132,7 @@ def plan_partitions(config_path: str, config, start, end, period=DEFAULT_PERIOD)
         offset = pd.tseries.frequencies.to_offset(period)
         edges = set(pd.date_range(start, end, freq=offset, inclusive="neither"))
     ref_end = config.baseline.end
-    ref_end = None if ref_end is None else _utc(ref_end)
+    ref_end = None if ref_end is None else utc(ref_end)
     if ref_end is not None and start < ref_end < end:
         edges.add(ref_end)
     cuts = [start, *sorted(t for t in edges if start < t < end), end]
@@ -187,13 +193,10 @@ class _ObservingPipeline(Pipeline):
             obs["section"] = obs["section"].astype("category")  # smaller between processes
             obs["quantity"] = obs["quantity"].astype("category")
             self.observations.append(obs)
-        return _no_events(), None
+        return no_events(), None
 
 
 def _open(config_path: str):
-    from isentrope.daemon.config import load_config
-    from isentrope.daemon.redact import install_log_filter
-    from isentrope.daemon.stores import open_store
 
     install_log_filter()  # in a worker process too: no secret in its log lines
     config = load_config(config_path)
@@ -208,7 +211,6 @@ def compute_partition(part: Partition, chunk=None, redo: bool = False, *_after) 
     chunk inside the partition (default ``[schedule] chunk``); ``_after`` are futures this
     task waits for (the baseline fit).
     """
-    from isentrope.daemon.worker import Worker
 
     t0 = time.perf_counter()
     config, store = _open(part.config_path)
@@ -257,17 +259,16 @@ def _summary(computed: dict) -> dict:
 def fit_baseline(config_path: str, refit: bool = False, *_after) -> list[str]:
     """Task: fit and save ``baseline/<unit>`` from the stored reference-period windows, the
     way ``Worker`` does for a sequential backfill. Returns the sections fitted."""
-    from isentrope.daemon.worker import Worker
 
     config, store = _open(config_path)
     try:
         worker = Worker.from_config(config, store, checkpoint_name=f"fleet/{config.unit.name}/baseline")
         if refit:
             store.save_state(worker.baseline_state_name, {})
-        period = worker._baseline_period()
+        period = worker.baseline_period()
         if period is None:
             return []
-        return sorted(worker._baselines(period[1]))
+        return sorted(worker.baselines(period[1]))
     finally:
         store.close()
 
@@ -276,8 +277,6 @@ def alarm_partition(part: Partition, previous: dict | None, computed: dict, redo
     """Task: run the alarm machines over one partition's observations, starting from the
     state ``previous`` left (None: the state saved by the partition before, or fresh), write the
     events and save the completion state. Returns the alarm state."""
-    from isentrope.calc import alarms
-    from isentrope.daemon.pipeline import CycleResults
 
     config, store = _open(part.config_path)
     try:
@@ -318,7 +317,6 @@ def _continue_absence(pipeline: Pipeline, part: Partition, state: dict, obs, spa
     this partition's first ``no_data`` observation (its compute task could not see it when its
     before-margin held no row), on a grid from the last observation the state saw, with this
     partition's sample spacing."""
-    from isentrope.calc import alarms
 
     if not any(r.name == "no_data" for r in pipeline.alarm_rules()):
         return obs
@@ -387,7 +385,6 @@ def run_fleet(
     -------
     FleetReport
     """
-    from isentrope.daemon.config import load_config
 
     t0 = time.perf_counter()
     plans = []
@@ -430,8 +427,8 @@ def run_fleet(
     logger.info(
         "fleet backfill of %d unit(s) from %s to %s: %d partitions (%d already done) in %.1f s",
         len(plans),
-        _utc(start).isoformat(),
-        _utc(end).isoformat(),
+        utc(start).isoformat(),
+        utc(end).isoformat(),
         report.partitions,
         report.skipped,
         report.seconds,

@@ -39,6 +39,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from isentrope.calc import alarms, baseline, quality, sections, steady, units
 from isentrope.daemon.roles import ROLES
 
 # the result series (measurement, tags, fields, units) are data in daemon.series
@@ -48,6 +49,7 @@ from isentrope.daemon.series import (
     SAMPLES_MEASUREMENT,
     WINDOWS_MEASUREMENT,
 )
+from isentrope.daemon.timeutil import as_timedelta
 
 #: The section of the ``no_data`` alarm: no row at all came from the plant historian.
 HISTORIAN_SECTION = "historian"
@@ -63,15 +65,6 @@ OFFLINE_AFTER = "10min"
 #: alarm and restarts a pending streak: the rule is suspended, and a tag that goes bad at a
 #: trip does not raise at once after the restart.
 TAG_SUSPENDED = 0.4
-
-_EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
-
-
-def _td(value) -> pd.Timedelta:
-    """A duration: "15m", "2h", "1d", a timedelta or a Timedelta."""
-    from isentrope.daemon.worker import as_timedelta
-
-    return as_timedelta(value)
 
 
 @dataclass
@@ -211,7 +204,11 @@ def align_steady_windows(
         Index = first sample time (``time``); ``end`` (last sample time), ``duration_s`` [s],
         ``n_samples`` [-] and the mean of each column, in its own unit.
     """
-    max_length, max_gap, min_length = _td(max_length), _td(max_gap), _td(min_length)
+    max_length, max_gap, min_length = (
+        as_timedelta(max_length),
+        as_timedelta(max_gap),
+        as_timedelta(min_length),
+    )
     if max_length <= pd.Timedelta(0):
         raise ValueError(f"max_length must be positive, found {max_length}")
     columns = list(frame.columns) if columns is None else list(columns)
@@ -320,7 +317,6 @@ class Pipeline:
     """
 
     def __init__(self, config):
-        from isentrope.calc import units
 
         self.config = config
         #: What the last ``fit_baselines`` left out of the models, one line each.
@@ -356,11 +352,10 @@ class Pipeline:
         # *covers* it passes, so it looks ahead by one window too. A window's results are
         # final once this much data before and after it has been seen (plus, before, one
         # steady-window clock bucket and a gap).
-        from isentrope.calc import quality
 
-        spike = max(_td(sc.spike_window), _td(getattr(quality, "SPIKE_SCALE_BLOCK", "0s")))
-        look = _td(st.window) + _td(sc.flatline) + spike
-        self._before = look + _td(st.max_length) + _td(st.max_gap)
+        spike = max(as_timedelta(sc.spike_window), as_timedelta(getattr(quality, "SPIKE_SCALE_BLOCK", "0s")))
+        look = as_timedelta(st.window) + as_timedelta(sc.flatline) + spike
+        self._before = look + as_timedelta(st.max_length) + as_timedelta(st.max_gap)
         self._after = look
 
     @property
@@ -394,7 +389,6 @@ class Pipeline:
 
     # --- calc arguments from the configuration -------------------------------------------
     def _section_kwargs(self) -> dict:
-        from isentrope.calc import sections
 
         sc, unit = self.config.sections, self.config.unit
         kwargs: dict = dict(
@@ -430,13 +424,15 @@ class Pipeline:
         kwargs["uncertainty"] = unc
         return kwargs
 
-    def _screen_kwargs(self, frame: pd.DataFrame) -> dict:
+    def screen_kwargs(self, frame: pd.DataFrame) -> dict:
+        """Keyword arguments of ``calc.quality.screen`` for ``frame`` under this configuration
+        (ranges, rates, flatline tolerances, spike window, deadbands), as ``process`` screens."""
         sc = self.config.screening
         # flatline_tolerance is relative to the reading; calc.quality keeps its per-role
         # absolute tolerances as floors (FLATLINE_TOLERANCE), as `isentrope check` does.
         return dict(
             ranges=self.ranges,
-            flatline=_td(sc.flatline),
+            flatline=as_timedelta(sc.flatline),
             flatline_relative=float(sc.flatline_tolerance),
             spike=spike_samples(frame.index, sc.spike_window),
             spike_threshold=float(sc.spike_threshold),
@@ -455,13 +451,13 @@ class Pipeline:
         }
         return dict(
             method=st.method,
-            window=_td(st.window),
-            min_length=_td(st.min_length),
-            max_gap=_td(st.max_gap),
+            window=as_timedelta(st.window),
+            min_length=as_timedelta(st.min_length),
+            max_gap=as_timedelta(st.max_gap),
             limits=limits,
             offline_mw=unit.online_mw or None,
             rating_mw=unit.rating_mw or None,
-            max_length=_td(st.max_length),
+            max_length=as_timedelta(st.max_length),
             r_critical=float(st.r_critical),
             r_lambdas=tuple(st.r_filter),
             deadband=self.deadbands,
@@ -502,7 +498,6 @@ class Pipeline:
         -------
         CycleResults
         """
-        from isentrope.calc import quality, sections, steady
 
         start, end = pd.Timestamp(start), pd.Timestamp(end)
         final_end = end if final_end is None else min(pd.Timestamp(final_end), end)
@@ -523,7 +518,7 @@ class Pipeline:
         given = {"hp": per_sample["hp_efficiency"], "ip": per_sample["ip_efficiency"]}
         if {"lp_extraction_p", "lp_extraction_t"} <= set(frame.columns) and "lp_dry_efficiency" in per_sample:
             given["lp_group"] = per_sample["lp_dry_efficiency"]
-        screen = quality.screen(frame, efficiencies=given, **self._screen_kwargs(frame))
+        screen = quality.screen(frame, efficiencies=given, **self.screen_kwargs(frame))
         ok = screen.ok.reindex(frame.index).fillna(False).astype(bool)
         st = steady.tag_steady(frame, ok=ok, **self._steady_kwargs())
         steady_flag = st.steady.reindex(frame.index).fillna(False).astype(bool) & ok
@@ -618,7 +613,6 @@ class Pipeline:
         Returns ``(models, problems)``: section -> ``BaselineModel``, and one line per section
         that could not be fitted (too few windows, missing figures).
         """
-        from isentrope.calc import baseline
 
         cfg = self.config.baseline
         models, problems = {}, []
@@ -658,7 +652,6 @@ class Pipeline:
         (``calc.baseline.select_terms``: a reference period in one operating mode cannot
         tell a mode term from load). What was left out and why is in ``baseline_notes``.
         """
-        from isentrope.calc import baseline
 
         if section not in MODE_SECTIONS:
             return []
@@ -703,7 +696,6 @@ class Pipeline:
     def deviation(self, windows: pd.DataFrame, baselines: dict, notes: list | None = None) -> pd.DataFrame:
         """Deviation rows of the steady ``windows`` from the ``baselines`` (section -> model),
         windows of the reference period left out (see ``CycleResults.deviation``)."""
-        from isentrope.calc import baseline, sections
 
         notes = [] if notes is None else notes
 
@@ -772,13 +764,12 @@ class Pipeline:
         ``alarm_observations``). Degradation-rate and step rules need the
         deviation history over months; they belong to the trend report, not to one cycle.
         """
-        from isentrope.calc import alarms
 
         a = self.config.alarms
         n = int(a.persistence)
         limit = a.moisture_limit_percent / 100.0
         no_data = []
-        if _td(a.no_data_limit) > pd.Timedelta(0):
+        if as_timedelta(a.no_data_limit) > pd.Timedelta(0):
             no_data.append(
                 alarms.Rule(
                     "no_data",
@@ -786,7 +777,7 @@ class Pipeline:
                     "above",
                     0.5,
                     0.5,
-                    raise_after_duration=f"{int(_td(a.no_data_limit).total_seconds())}s",
+                    raise_after_duration=f"{int(as_timedelta(a.no_data_limit).total_seconds())}s",
                     sections=(HISTORIAN_SECTION,),
                     label="no rows from the historian",
                 )
@@ -834,7 +825,7 @@ class Pipeline:
                 "above",
                 0.5,
                 0.25,  # TAG_SUSPENDED lies between: neither raises nor clears
-                raise_after_duration=f"{int(_td(a.data_quality_limit).total_seconds())}s",
+                raise_after_duration=f"{int(as_timedelta(a.data_quality_limit).total_seconds())}s",
                 label="tag missing, flatlined or out of range while the unit runs",
             ),
             alarms.Rule(
@@ -869,7 +860,6 @@ class Pipeline:
         The state machines of ``calc.alarms`` skip observations at or before the last one
         they consumed, so the look-back overlap of consecutive cycles raises nothing twice.
         """
-        from isentrope.calc import alarms
 
         obs = self.alarm_observations(
             windows,
@@ -883,7 +873,7 @@ class Pipeline:
             online=online,
         )
         if obs is None:
-            return _no_events(), (dict(state) if state else None)
+            return no_events(), (dict(state) if state else None)
         new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())
         return events, new_state
 
@@ -917,10 +907,13 @@ class Pipeline:
         observations of offline rows become ``TAG_SUSPENDED`` (the tag rules are suspended
         while the unit is offline; ``no_data`` is not: a silent historian is still seen).
         """
-        from isentrope.calc import alarms
 
         parts = []
-        if rows is not None and start is not None and _td(self.config.alarms.no_data_limit) > pd.Timedelta(0):
+        if (
+            rows is not None
+            and start is not None
+            and as_timedelta(self.config.alarms.no_data_limit) > pd.Timedelta(0)
+        ):
             machine = ((state or {}).get("machines") or {}).get(f"no_data|{HISTORIAN_SECTION}") or {}
             seen = machine.get("last_time")
             got, absent = absent_row_times(
@@ -1069,12 +1062,13 @@ def spike_samples(index: pd.DatetimeIndex, spike_window) -> int:
     """The Hampel window of ``calc.quality.screen`` in samples: ``spike_window`` divided by the
     typical sample spacing (median, whole seconds), odd, at least 3."""
     spacing = sample_spacing(index)
-    n = int(round(_td(spike_window) / spacing))
+    n = int(round(as_timedelta(spike_window) / spacing))
     n = max(3, n)
     return n if n % 2 == 1 else n + 1
 
 
-def _no_events() -> pd.DataFrame:
+def no_events() -> pd.DataFrame:
+    """An empty alarm-event frame with the columns and dtypes of ``alarm_events``."""
     return pd.DataFrame(
         {
             c: np.array([], dtype=float if c in ("value", "threshold") else object)

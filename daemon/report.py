@@ -23,7 +23,18 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from isentrope.calc import quality, steam
+from isentrope.calc.baseline import BaselineModel
 from isentrope.daemon import __version__
+from isentrope.daemon.analysis import (
+    CURRENT_WINDOW_DAYS,
+    DEGRADATION_MEASUREMENT,
+    SECTIONS,
+    STEPS_MEASUREMENT,
+    alarm_series,
+    period_view,
+)
+from isentrope.daemon.pipeline import ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT, Pipeline
 from isentrope.daemon.redact import redact
 
 #: Section colours of this report (our own choice, for print contrast).
@@ -125,7 +136,6 @@ def _read(store, measurement, start, end, tags) -> pd.DataFrame:
 
 def _hs_diagram(fig_ax, window: pd.Series, config):
     """Expansion of one steady window on an h-s diagram, with the saturation line."""
-    from isentrope.calc import steam
 
     ax = fig_ax
     p = np.geomspace(0.001, 22.0, 200)
@@ -204,20 +214,6 @@ def write_report(
         The raw readings of the period in internal units when the caller already holds them
         (the demo does); None reads them from the store for the data-quality table.
     """
-    from isentrope.daemon.analysis import (
-        CURRENT_WINDOW_DAYS,
-        DEGRADATION_MEASUREMENT,
-        SECTIONS,
-        STEPS_MEASUREMENT,
-        alarm_series,
-        period_view,
-    )
-    from isentrope.daemon.pipeline import (
-        ALARMS_MEASUREMENT,
-        DEVIATION_MEASUREMENT,
-        WINDOWS_MEASUREMENT,
-        Pipeline,
-    )
 
     plt = _plt()
     start, end = pd.Timestamp(start), pd.Timestamp(end)
@@ -229,7 +225,6 @@ def write_report(
     cur = config.economics.currency
     windows = _read(store, WINDOWS_MEASUREMENT, start, end, tags)
     saved = store.load_state(f"baseline/{unit}") or {}
-    from isentrope.calc.baseline import BaselineModel
 
     models = {s: BaselineModel.from_json(t) for s, t in sorted(saved.get("models", {}).items())}
     dev = {
@@ -599,7 +594,6 @@ def write_report(
         parts.append("<p>No alarm events in the period.</p>")
 
     # --- data quality ---------------------------------------------------------------------
-    from isentrope.calc import quality
 
     if readings is not None:
         raw = readings.loc[(readings.index >= start) & (readings.index < end)]
@@ -609,7 +603,7 @@ def write_report(
         )
     pipe = Pipeline(config)
     if len(raw):
-        screen = quality.screen(raw, **pipe._screen_kwargs(raw))
+        screen = quality.screen(raw, **pipe.screen_kwargs(raw))
         summ = screen.summary()
         tagged = {m.role: m.tag for m in config.mappings}
         keep = [r for r in summ.index if r in tagged]

@@ -37,7 +37,6 @@ import functools
 import json
 import logging
 import random
-import re
 import threading
 import time as _time
 from collections.abc import Callable
@@ -47,63 +46,25 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from isentrope.daemon.series import STATUS_MEASUREMENT
+from isentrope.calc.baseline import BaselineModel
+from isentrope.daemon import analysis
+from isentrope.daemon.pipeline import (
+    Pipeline,
+)
+from isentrope.daemon.series import (
+    ALARMS_MEASUREMENT,
+    DEVIATION_MEASUREMENT,
+    SAMPLES_MEASUREMENT,
+    STATUS_MEASUREMENT,
+    WINDOWS_MEASUREMENT,
+)
 from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.timeutil import as_timedelta, epoch_seconds, floor_time, utc
 
 logger = logging.getLogger("isentrope.worker")
 
-#: Epoch used to align chunk boundaries, so that any two runs cut time at the same instants.
-_EPOCH = pd.Timestamp("1970-01-01", tz="UTC")
-
 #: Window boundaries are floored to this resolution (stable keys; common practice, no source).
 DEFAULT_RESOLUTION = pd.Timedelta("1s")
-
-
-def _utc(t) -> pd.Timestamp:
-    ts = pd.Timestamp(t)
-    if ts.tzinfo is None:
-        raise ValueError(f"time {t!r} has no time zone; expected a UTC time such as '2025-01-01T00:00Z'")
-    return ts.tz_convert("UTC")
-
-
-_DURATION = re.compile(r"^\s*(-?\d+(?:\.\d+)?)\s*(ms|s|m|min|h|d|w)\s*$")
-_DURATION_UNIT = {
-    "ms": "milliseconds",
-    "s": "seconds",
-    "m": "minutes",
-    "min": "minutes",
-    "h": "hours",
-    "d": "days",
-    "w": "weeks",
-}
-
-
-def as_timedelta(value) -> pd.Timedelta:
-    """A duration from a string such as "15m", "2h", "1d", a timedelta, or seconds."""
-    if isinstance(value, str):
-        m = _DURATION.match(value)
-        if m:
-            return pd.Timedelta(**{_DURATION_UNIT[m.group(2)]: float(m.group(1))})
-        raise ValueError(f"duration {value!r} not understood; expected e.g. '30s', '15m', '2h', '1d'")
-    if isinstance(value, (int, float)):
-        return pd.Timedelta(seconds=float(value))
-    return pd.Timedelta(value)
-
-
-def _td(value, name: str) -> pd.Timedelta:
-    try:
-        td = as_timedelta(value)
-    except ValueError as exc:
-        raise ValueError(f"{name}: {exc}") from None
-    if pd.isna(td) or td < pd.Timedelta(0):
-        raise ValueError(f"{name} must be a non-negative duration, found {value!r}")
-    return td
-
-
-def floor_time(t: pd.Timestamp, step: pd.Timedelta) -> pd.Timestamp:
-    """Floor ``t`` to a multiple of ``step`` counted from the Unix epoch (UTC)."""
-    n = (t - _EPOCH) // step
-    return _EPOCH + n * step
 
 
 def plan_windows(
@@ -142,18 +103,18 @@ def plan_windows(
         Contiguous, non-overlapping chunks covering ``[start, now - settle)``; empty when
         there is nothing to do. Nothing is skipped, however long the outage was.
     """
-    now = _utc(now)
-    settle = _td(settle, "settle")
-    lookback = _td(lookback, "lookback")
-    chunk = _td(chunk, "chunk")
-    resolution = _td(resolution, "resolution")
+    now = utc(now)
+    settle = as_timedelta(settle, "settle")
+    lookback = as_timedelta(lookback, "lookback")
+    chunk = as_timedelta(chunk, "chunk")
+    resolution = as_timedelta(resolution, "resolution")
     if chunk <= pd.Timedelta(0):
         raise ValueError(f"chunk must be a positive duration, found {chunk!r}")
     end = floor_time(now - settle, resolution) if resolution > pd.Timedelta(0) else now - settle
     if checkpoint is not None:
-        start = _utc(checkpoint) - lookback
+        start = utc(checkpoint) - lookback
     elif start_default is not None:
-        start = _utc(start_default)
+        start = utc(start_default)
     else:
         start = end - lookback
     if start >= end:
@@ -309,14 +270,14 @@ class Worker:
         self.pipeline = pipeline
         self.mappings = list(mappings)
         self.unit = unit
-        self.settle = _td(settle, "settle")
-        self.lookback = _td(lookback, "lookback")
-        self.chunk = _td(chunk, "chunk")
+        self.settle = as_timedelta(settle, "settle")
+        self.lookback = as_timedelta(lookback, "lookback")
+        self.chunk = as_timedelta(chunk, "chunk")
         self.retries = int(retries)
-        self.backoff = _td(backoff, "backoff")
-        self.backoff_max = _td(backoff_max, "backoff_max")
+        self.backoff = as_timedelta(backoff, "backoff")
+        self.backoff_max = as_timedelta(backoff_max, "backoff_max")
         self.checkpoint_name = checkpoint_name or f"run/{unit}"
-        self.start_default = None if start_default is None else _utc(start_default)
+        self.start_default = None if start_default is None else utc(start_default)
         self.barometric_kpa = barometric_kpa
         self.grid = grid
         self.clock = clock or (lambda: pd.Timestamp.now(tz="UTC"))
@@ -334,7 +295,6 @@ class Worker:
     def from_config(cls, config, store: Store, **overrides) -> Worker:
         """A worker for ``config`` (``isentrope.daemon.config.Config``); keyword arguments
         override the ``[schedule]`` values and the other constructor arguments."""
-        from isentrope.daemon.pipeline import Pipeline
 
         sch = config.schedule
         kwargs = dict(
@@ -376,14 +336,8 @@ class Worker:
         windows, deviations of any baseline model, alarm events) in ``[start, end)``: a
         backfill or refit that processes the period again owns it, so rows an earlier run wrote
         where this one writes none do not stay behind."""
-        from isentrope.daemon.pipeline import (
-            ALARMS_MEASUREMENT,
-            DEVIATION_MEASUREMENT,
-            SAMPLES_MEASUREMENT,
-            WINDOWS_MEASUREMENT,
-        )
 
-        start, end = _utc(start), _utc(end)
+        start, end = utc(start), utc(end)
         for m in (SAMPLES_MEASUREMENT, WINDOWS_MEASUREMENT, DEVIATION_MEASUREMENT, ALARMS_MEASUREMENT):
             self._retry(
                 lambda m=m: self.store.delete_results(m, start, end, self.tags),
@@ -404,7 +358,6 @@ class Worker:
         this run computed (``run_analysis(..., load=False)``: the rows and alarm events since
         the last final day); None when there is nothing processed yet. Temporary store trouble
         is logged and the job tried again at its next run; it is serialised with the cycles."""
-        from isentrope.daemon import analysis
 
         with self._lock:
             t0 = _time.monotonic()
@@ -413,7 +366,7 @@ class Worker:
                 lambda: self.store.get_checkpoint(self.checkpoint_name),
                 f"reading checkpoint {self.checkpoint_name!r}",
             )
-            end = _utc(end) if end is not None else checkpoint
+            end = utc(end) if end is not None else checkpoint
             if end is None:
                 return None
             final_until = end
@@ -435,7 +388,7 @@ class Worker:
             duration = _time.monotonic() - t0
             row = pd.DataFrame(
                 {
-                    "analysis_end_s": [float((end - _EPOCH).total_seconds())],
+                    "analysis_end_s": [epoch_seconds(end)],
                     "duration_s": [float(duration)],
                     "ok": [ok],
                     "sections": [float(len(result.sections)) if result is not None else np.nan],
@@ -493,7 +446,7 @@ class Worker:
         )
         windows = plan_windows(checkpoint, now, self.settle, self.lookback, self.chunk, self.start_default)
         if until is not None:
-            until = _utc(until)
+            until = utc(until)
             windows = [(s, min(e, until)) for s, e in windows if s < until]
         return windows
 
@@ -519,7 +472,7 @@ class Worker:
                 report.checkpoint = self.pending.end
                 self.pending = None
             windows = self.plan(now, until)
-            period = self._baseline_period()
+            period = self.baseline_period()
             if period is not None:  # the chunk after the reference period sees the fitted model
                 windows = [
                     w
@@ -645,7 +598,7 @@ class Worker:
                 lambda: self.store.load_state(self.alarm_state_name),
                 f"loading state {self.alarm_state_name!r}",
             )
-        baselines = self._baselines(start)
+        baselines = self.baselines(start)
         results = self.pipeline.process(
             frame, start, end, final_end=final_end, alarm_state=alarm_state or None, baselines=baselines
         )
@@ -701,17 +654,18 @@ class Worker:
         self._account(batch, start, end, rows_read, rows_flagged, report, progress)
 
     def _fit_reads_windows(self, chunk_start: pd.Timestamp) -> bool:
-        """Whether ``_baselines(chunk_start)`` may read the steady windows just written."""
-        period = self._baseline_period()
+        """Whether ``baselines(chunk_start)`` may read the steady windows just written."""
+        period = self.baseline_period()
         return self._models is None and period is not None and chunk_start >= period[1]
 
-    def _baseline_period(self):
+    def baseline_period(self) -> tuple[pd.Timestamp, pd.Timestamp] | None:
+        """The reference period ``[baseline] start..end`` (UTC), None when not configured."""
         cfg = getattr(self.config, "baseline", None)
         if cfg is None or cfg.start is None or cfg.end is None:
             return None
-        return _utc(cfg.start), _utc(cfg.end)
+        return utc(cfg.start), utc(cfg.end)
 
-    def _baselines(self, chunk_start: pd.Timestamp) -> dict:
+    def baselines(self, chunk_start: pd.Timestamp) -> dict:
         """Baseline models for a chunk starting at ``chunk_start`` (section -> model).
 
         A model saved in the store (state ``baseline/<unit>``) is used as it is. Otherwise,
@@ -726,10 +680,8 @@ class Worker:
             lambda: self.store.load_state(self.baseline_state_name),
             f"loading state {self.baseline_state_name!r}",
         )
-        period = self._baseline_period()
+        period = self.baseline_period()
         if saved and saved.get("models"):
-            from isentrope.calc.baseline import BaselineModel
-
             self._models = {
                 sec: BaselineModel.from_json(text) for sec, text in sorted(saved["models"].items())
             }
@@ -737,7 +689,6 @@ class Worker:
             return self._models
         if period is None or chunk_start < period[1]:
             return {}
-        from isentrope.daemon.pipeline import WINDOWS_MEASUREMENT
 
         ref_start, ref_end = period
         windows = self._retry(
@@ -806,7 +757,7 @@ class Worker:
         return bool(saved and saved.get("models")) and self._say_if_baseline_changed(saved)
 
     def _say_if_baseline_changed(self, saved: dict) -> bool:
-        period = self._baseline_period()
+        period = self.baseline_period()
         fitted_on = (saved.get("reference_start"), saved.get("reference_end"))
         if period is None or fitted_on == (period[0].isoformat(), period[1].isoformat()):
             return False
@@ -865,7 +816,7 @@ class Worker:
         lag = (report.started - last).total_seconds() if last is not None else np.nan
         row = pd.DataFrame(
             {
-                "last_processed_s": [float((last - _EPOCH).total_seconds()) if last is not None else np.nan],
+                "last_processed_s": [epoch_seconds(last) if last is not None else np.nan],
                 "lag_s": [float(lag)],
                 "rows_read": [float(report.rows_read)],
                 "rows_flagged": [float(report.rows_flagged)],

@@ -29,7 +29,6 @@ PYPROJECT = tomllib.loads((ROOT / "pyproject.toml").read_text())["project"]
 
 #: Files of the package whose (lazy) imports need an extra: path -> the extra that brings them.
 NEEDS_EXTRA = {
-    "calc/bench.py": "bench",
     "daemon/commands/fleet.py": "fleet",
 }
 

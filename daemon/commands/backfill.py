@@ -19,8 +19,8 @@ import sys
 
 import pandas as pd
 
-from isentrope.daemon.commands import parse_time
 from isentrope.daemon.errors import EXIT_OK, EXIT_UNREACHABLE
+from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "backfill"
 HELP = (
@@ -56,7 +56,7 @@ def checkpoint_name(unit: str, start: pd.Timestamp, end: pd.Timestamp) -> str:
 def run(args) -> int:
     from tqdm import tqdm
 
-    from isentrope.daemon.config import load_config, parse_duration
+    from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
 
@@ -72,7 +72,7 @@ def run(args) -> int:
             config, store, checkpoint_name=name, start_default=start, lookback="0s", settle="0s", chunk=chunk
         )
         if args.refit:
-            if worker._baseline_period() is None:
+            if worker.baseline_period() is None:
                 raise ValueError("--refit needs a [baseline] period (start and end) in the configuration")
             # Fresh models, fresh alarm machines, from the start: results are replaced where they
             # are written again; events of the old models at other instants stay (daemon/DECISIONS.md).

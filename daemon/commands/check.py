@@ -27,8 +27,9 @@ import sys
 import numpy as np
 import pandas as pd
 
-from isentrope.daemon.config import Config, load_config, parse_duration
+from isentrope.daemon.config import Config, load_config
 from isentrope.daemon.stores.base import AuthorizationError, CertificateError, FatalStoreError
+from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "check"
 HELP = "validate a configuration, connect to its store and check every mapped tag's recent data"
@@ -78,12 +79,7 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
 def _end_time(text: str | None) -> pd.Timestamp:
     if text is None:
         return pd.Timestamp.now(tz="UTC")
-    from isentrope.daemon.commands import parse_time  # ISO 8601 only, as every command
-
-    try:
-        return parse_time(text)
-    except ValueError as exc:
-        raise ValueError(f"--end: {exc}") from None
+    return parse_time(text, "--end")
 
 
 def _barometric_kpa(config: Config, raw: pd.DataFrame) -> float:

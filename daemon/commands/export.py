@@ -26,6 +26,7 @@ from isentrope.daemon.config import load_config
 from isentrope.daemon.files import chmod_created
 from isentrope.daemon.redact import redact
 from isentrope.daemon.series import SAMPLES_MEASUREMENT
+from isentrope.daemon.timeutil import parse_time
 
 NAME = "export"
 HELP = "export result series over a time window as CSV (ISO UTC times, one column per field)"
@@ -69,17 +70,6 @@ def add_arguments(parser: argparse.ArgumentParser) -> None:
         metavar="KEY=VALUE",
         help="extra tag filter, e.g. section=hp; repeatable",
     )
-
-
-def parse_time(text: str, what: str) -> pd.Timestamp:
-    """ISO 8601 -> UTC timestamp (naive means UTC), as every command reads times
-    (``commands.parse_time``); ValueError naming the option."""
-    from isentrope.daemon.commands import parse_time as parse_iso
-
-    try:
-        return parse_iso(text)
-    except ValueError as exc:
-        raise ValueError(f"{what}: {exc}") from None
 
 
 def parse_tags(items: list[str]) -> dict[str, str]:

@@ -14,8 +14,8 @@ from __future__ import annotations
 import logging
 import sys
 
-from isentrope.daemon.commands import parse_time
 from isentrope.daemon.errors import EXIT_OK
+from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "fleet-backfill"
 HELP = (
@@ -70,7 +70,7 @@ def add_arguments(parser) -> None:
 
 def run(args) -> int:
     from isentrope.daemon import fleet
-    from isentrope.daemon.config import load_config, parse_duration
+    from isentrope.daemon.config import load_config
 
     start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:

@@ -61,8 +61,8 @@ from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
 import numpy as np
 import pandas as pd
 
-from isentrope.daemon.commands import ISO_8601
 from isentrope.daemon.config import Config, load_config
+from isentrope.daemon.timeutil import ISO_8601
 
 NAME = "import-csv"
 HELP = "import historian CSV exports (long time,tag,value or wide time,<tag>,...) into the store"

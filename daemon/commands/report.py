@@ -12,7 +12,7 @@ information, not a protective function.
 
 from __future__ import annotations
 
-from isentrope.daemon.commands import parse_time
+from isentrope.daemon.timeutil import parse_time
 
 NAME = "report"
 HELP = "write the HTML performance report for a period (advisory information, not a protective function)"

@@ -200,10 +200,11 @@ def summary(info: dict, code: int, reasons: list[str]) -> str:
 
 
 def run(args) -> int:
-    from isentrope.daemon.config import load_config, parse_duration
+    from isentrope.daemon.config import load_config
     from isentrope.daemon.errors import EXIT_UNREACHABLE
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.stores.base import StoreError
+    from isentrope.daemon.timeutil import parse_duration
 
     config = load_config(args.config)  # ConfigError (exit 2) before any connection
     sch = config.schedule

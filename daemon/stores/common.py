@@ -1,4 +1,7 @@
-"""Small helpers the store implementations share: times, frame checks, shaping results."""
+"""Small helpers the store implementations share: times, frame checks, shaping results.
+
+``utc`` is ``isentrope.daemon.timeutil.utc``, here for the stores' ``common.utc``.
+"""
 
 from __future__ import annotations
 
@@ -8,22 +11,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.daemon.roles import RoleMapping
-
-
-def utc(ts, what: str = "time") -> pd.Timestamp:
-    """A timezone-aware UTC ``Timestamp`` (ns) from a Timestamp, datetime or ISO string.
-
-    A naive time is refused: a store cannot guess the plant's time zone.
-    """
-    try:
-        t = pd.Timestamp(ts)
-    except (TypeError, ValueError) as exc:
-        raise ValueError(f"{what} {ts!r} is not a time: {exc}") from None
-    if t is pd.NaT:
-        raise ValueError(f"{what} is NaT; give a UTC time")
-    if t.tzinfo is None:
-        raise ValueError(f"{what} {ts!r} has no time zone; give a UTC time (e.g. '2026-01-01T00:00Z')")
-    return t.tz_convert("UTC").as_unit("ns")
+from isentrope.daemon.timeutil import utc
 
 
 def window(start, end) -> tuple[pd.Timestamp, pd.Timestamp]:

@@ -4,6 +4,7 @@ The efficiency curves here are synthetic (invented for the checks); the referenc
 fit is numpy.polyfit (ordinary least squares, a reference library) on outlier-free data.
 """
 
+import dataclasses
 import json
 
 import numpy as np
@@ -238,3 +239,49 @@ def test_nan_rows_dropped():
     w.iloc[:5, 0] = np.nan
     m = fit_baseline(w, "hp", efficiency_col="hp_efficiency", rating_mw=RATING)
     assert m.n_windows == 25
+
+
+def _perturbed(model: BaselineModel, rel: float, seed: int) -> BaselineModel:
+    """``model`` with every coefficient and covariance entry moved by ``rel`` relative, in a
+    random direction each, and its id made again from that content."""
+    rng = np.random.default_rng(seed)
+
+    def move(v: float) -> float:
+        return v * (1.0 + rel * rng.choice([-1.0, 1.0]))
+
+    moved = dataclasses.replace(
+        model,
+        coefficients=tuple(move(v) for v in model.coefficients),
+        covariance=tuple(tuple(move(v) for v in r) for r in model.covariance),
+        residual_std=move(model.residual_std),
+        rmse=move(model.rmse),
+    )
+    return dataclasses.replace(moved, model_id=baseline.content_id(moved._content()))
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_model_id_does_not_change_with_rounding_noise(seed):
+    # Windows whose figures differ in the last bits (a period cut into other chunks) give fits
+    # that differ by about 1e-12 relative: the same model, so the same id and series key.
+    m = fit_baseline(
+        make_windows(seed=seed),
+        "hp",
+        efficiency_col="hp_efficiency",
+        rating_mw=RATING,
+        extra_cols=["valve_position"],
+    )
+    noisy = _perturbed(m, 1e-12, seed)
+    assert noisy.coefficients != m.coefficients  # the perturbation is there
+    assert noisy.model_id == m.model_id
+    # a real change of the model (1e-4 relative) gives another id
+    assert _perturbed(m, 1e-4, seed).model_id != m.model_id
+    assert BaselineModel.from_json(noisy.to_json()) == noisy
+
+
+def test_model_id_made_before_the_rounding_is_still_accepted():
+    m = fit_baseline(make_windows(seed=4), "hp", efficiency_col="hp_efficiency", rating_mw=RATING)
+    d = json.loads(m.to_json())
+    d["model_id"] = baseline.content_id(m._content(), digits=None)  # an artefact of an earlier version
+    assert d["model_id"] != m.model_id
+    back = BaselineModel.from_json(json.dumps(d))
+    assert back.model_id == d["model_id"] and back.coefficients == m.coefficients

@@ -692,7 +692,7 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
 
 def test_analytic_sensitivities_are_the_limit_of_the_differences():
     # With end_state the sensitivity coefficients come from cp and (dv/dT)_p of the IF97
-    # Gibbs equations (steam._hs_slopes_pt, checked against iapws in test_steam.py); central
+    # Gibbs equations (steam.hs_slopes_pt, checked against iapws in test_steam.py); central
     # differences with steps 1000 times smaller than the uncertainty must converge to them
     # (truncation ~ step^2, round-off ~ 1e-16 / step), while steps equal to the uncertainty
     # differ by the curvature over one step (seen: up to 5e-6 relative).

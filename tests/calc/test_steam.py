@@ -540,13 +540,13 @@ def test_h_and_s_in_one_pass_equal_h_pt_and_s_pt_bit_for_bit():
     p, t = _grid_pt()
     p = np.concatenate([p, [25.0, 5.0, -1.0, np.nan, 200.0], np.full(20000, 10.0)])
     t = np.concatenate([t, [650.0, 1200.0, 600.0, 600.0, 600.0], np.linspace(600.0, 900.0, 20000)])
-    h, s = steam._hs_pt(p, t)
+    h, s = steam.hs_pt(p, t)
     assert np.array_equal(h, steam.h_pt(p, t), equal_nan=True)
     assert np.array_equal(s, steam.s_pt(p, t), equal_nan=True)
     assert np.isnan(h[-20003:-20000]).all() and np.isnan(s[-20003:-20000]).all()
     # iapws (reference library) at a region-1, a region-2, a region-3 and a region-5 point
     for pk, tk in ((3.0, 500.0), (0.0035, 700.0), (25.0, 650.0), (5.0, 1200.0)):
-        hk, sk = steam._hs_pt(np.array([pk]), np.array([tk]))
+        hk, sk = steam.hs_pt(np.array([pk]), np.array([tk]))
         ref = IAPWS97(P=pk, T=tk)
         assert hk[0] == pytest.approx(ref.h, rel=1e-9)
         assert sk[0] == pytest.approx(ref.s, rel=1e-9)
@@ -556,13 +556,13 @@ def test_h_s_and_their_partial_derivatives_in_one_pass_match_iapws():
     # The sensitivity coefficients of the section uncertainty: (dh/dT)_p = cp,
     # (ds/dT)_p = cp/T, (dh/dp)_T = v - T (dv/dT)_p, (ds/dp)_T = -(dv/dT)_p (Maxwell), from
     # cp and alpha_v of R7-97(2012) Tables 3 and 12; reference: iapws's cp, alfav and v at the
-    # same state (independent implementation). h and s bit for bit _hs_pt, region 3/5 points
+    # same state (independent implementation). h and s bit for bit hs_pt, region 3/5 points
     # included (their derivatives NaN: the caller differences there).
     p, t = _grid_pt()
     p = np.concatenate([p, [25.0, 5.0, -1.0, np.nan], np.full(20000, 10.0)])
     t = np.concatenate([t, [650.0, 1200.0, 600.0, 600.0], np.linspace(600.0, 900.0, 20000)])
-    d = steam._hs_slopes_pt(p, t)
-    h, s = steam._hs_pt(p, t)
+    d = steam.hs_slopes_pt(p, t)
+    h, s = steam.hs_pt(p, t)
     assert np.array_equal(d["h"], h, equal_nan=True) and np.array_equal(d["s"], s, equal_nan=True)
     reg = steam.region(p, t)
     in12 = (reg == 1) | (reg == 2)
@@ -591,7 +591,7 @@ def test_saturation_states_in_one_pass_equal_the_public_functions_bit_for_bit():
             [16.6, 21.9, 22.064, 23.0, 0.0005, -1.0, np.nan],
         ]
     )
-    d = steam._saturation_states(p)
+    d = steam.saturation_states(p)
     for key, fn in (
         ("hf", steam.h_sat_liquid),
         ("hg", steam.h_sat_vapour),
@@ -603,7 +603,7 @@ def test_saturation_states_in_one_pass_equal_the_public_functions_bit_for_bit():
         assert np.array_equal(d[key], fn(p), equal_nan=True), key
     assert np.isnan(d["hf"][-4:]).all()
     liquid, vapour = IAPWS97(P=0.005, x=0.0), IAPWS97(P=0.005, x=1.0)
-    d5 = steam._saturation_states(np.array([0.005]))
+    d5 = steam.saturation_states(np.array([0.005]))
     assert d5["hf"][0] == pytest.approx(liquid.h, rel=1e-9) and d5["hg"][0] == pytest.approx(
         vapour.h, rel=1e-9
     )
@@ -618,7 +618,7 @@ def test_end_state_from_one_solve_matches_h_ps_t_ps_and_v_ph():
     # and iapws (reference library) at a dry and a wet point.
     p = np.array([3.0, 0.05, 0.01, 8.0, 25.0, -1.0, 0.5])
     s = np.array([7.0, 7.0, 8.3, 6.0, 5.0, 7.0, np.nan])
-    h, t, v = steam._end_state_ps(p, s)
+    h, t, v = steam.end_state_ps(p, s)
     assert np.array_equal(h, steam.h_ps(p, s), equal_nan=True)
     assert np.array_equal(t, steam.t_ps(p, s), equal_nan=True)
     np.testing.assert_allclose(v[:5], steam.v_ph(p[:5], h[:5]), rtol=1e-12)

@@ -853,7 +853,7 @@ def test_import_names_the_lines_of_a_few_rejected_rows(tmp_path, capsys):
     ],
 )
 def test_command_line_times_accept_iso_8601(text, expected):
-    from isentrope.daemon.commands import parse_time
+    from isentrope.daemon.timeutil import parse_time
 
     assert parse_time(text).isoformat() == expected
 
@@ -874,7 +874,7 @@ def test_command_line_times_accept_iso_8601(text, expected):
     ],
 )
 def test_command_line_times_refuse_other_forms(text, hint):
-    from isentrope.daemon.commands import parse_time
+    from isentrope.daemon.timeutil import parse_time
 
     with pytest.raises(ValueError) as err:
         parse_time(text)

@@ -57,7 +57,7 @@ def test_a_trip_gives_one_unit_event_and_its_return_not_one_alarm_per_tag(run):
     trip, restart = _t(truth["trip"]["time"]), _t(truth["trip"]["restart"])
     # Without the suspension the trip would raise tag alarms: screening flags several roles
     # bad through the whole outage, far longer than data_quality_limit (1 h).
-    screen = quality.screen(frame, **pipe._screen_kwargs(frame))
+    screen = quality.screen(frame, **pipe.screen_kwargs(frame))
     during = (screen.flags.index >= trip + pd.Timedelta("10min")) & (screen.flags.index < restart)
     bad_all_along = [r for r in pipe.roles if (screen.flags.loc[during, r] != 0).all()]
     assert len(bad_all_along) >= 3, bad_all_along

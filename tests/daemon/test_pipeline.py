@@ -366,8 +366,8 @@ def test_screening_flatline_tolerance_changes_what_the_worker_flags(tmp_path):
     s, e = ws.START + pd.Timedelta("1h"), ws.START + pd.Timedelta("9h")
     default = _pipeline_with(tmp_path / "a", "")
     wide = _pipeline_with(tmp_path / "b", "[screening]\nflatline_tolerance = 1e-4\n")
-    assert default._screen_kwargs(frame)["flatline_relative"] == 1e-6
-    assert wide._screen_kwargs(frame)["flatline_relative"] == 1e-4
+    assert default.screen_kwargs(frame)["flatline_relative"] == 1e-6
+    assert wide.screen_kwargs(frame)["flatline_relative"] == 1e-4
 
     def flat(pl):
         r = pl.process(_slice(frame, pl, s, e), s, e)

@@ -11,7 +11,8 @@ import pandas as pd
 import pytest
 
 from isentrope.daemon.stores.base import FatalStoreError, TemporaryStoreError
-from isentrope.daemon.worker import backoff_delays, call_with_retry, floor_time, plan_windows
+from isentrope.daemon.timeutil import floor_time
+from isentrope.daemon.worker import backoff_delays, call_with_retry, plan_windows
 
 T = pd.Timestamp
 
@@ -79,7 +80,7 @@ def test_plan_windows_rejects_bad_arguments():
         plan_windows(None, T("2025-03-01"), "2m", "30m", "1d")
     with pytest.raises(ValueError, match="chunk must be a positive duration"):
         plan_windows(None, utc("2025-03-01"), "2m", "30m", "0s")
-    with pytest.raises(ValueError, match="settle must be a non-negative"):
+    with pytest.raises(ValueError, match="settle: expected a duration .* no sign"):
         plan_windows(None, utc("2025-03-01"), "-2m", "30m", "1d")
 
 

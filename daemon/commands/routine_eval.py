@@ -16,7 +16,7 @@ import sys
 
 import pandas as pd
 
-from isentrope.daemon.commands import parse_time
+from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "test-eval"
 HELP = (
@@ -61,7 +61,7 @@ def _fmt(x, spec) -> str:
 
 def run(args) -> int:
     from isentrope.calc import routine_test
-    from isentrope.daemon.config import load_config, parse_duration
+    from isentrope.daemon.config import load_config
     from isentrope.daemon.pipeline import WINDOWS_MEASUREMENT, Pipeline
     from isentrope.daemon.stores import open_store
 

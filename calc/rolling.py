@@ -1,4 +1,5 @@
-"""Trailing time-window statistics shared by screening and steady-state tagging (private).
+"""Trailing time-window statistics shared by screening (``calc.quality``) and steady-state
+tagging (``calc.steady``).
 
 All windows are closed on both ends, ``[t - W, t]``, over samples whose values are finite;
 NaN samples are skipped, never propagated. Times are int64 nanoseconds, strictly increasing.

@@ -1,6 +1,6 @@
 """Speed of isentrope.calc.steam against the iapws package and CoolProp's IF97 backend.
 
-Run as ``python -m isentrope.calc.bench [--n 1000000] [--sample 2000] [--repeat 3]``.
+Run as ``python tests/bench/bench_steam.py [--n 1000000] [--sample 2000] [--repeat 3]``.
 
 Everything is measured in one run on the same machine, so the ratios are fair even on a busy
 machine (absolute times are not). The arrays are turbine duty, in IF97 regions 1, 2 and 4:
@@ -15,7 +15,7 @@ iapws is timed point by point on a sample of ``--sample`` points and extrapolate
 CoolProp (an optional extra) is timed with array input to ``PropsSI`` on the full (p, T)
 arrays and on a sample of the (p, s) arrays (its h(p, s) is slower), when it is installed.
 
-Targets (issue 2): at least 200x faster than iapws for h_pt and s_pt and 500x for h_ps; no
+Targets: at least 200x faster than iapws for h_pt and s_pt and 500x for h_ps; no
 slower than CoolProp's array call for h_pt and at least 10x faster than it for h_ps.
 """
 
@@ -90,7 +90,7 @@ def coolprop():
 
 
 def main(argv=None):
-    ap = argparse.ArgumentParser(prog="python -m isentrope.calc.bench", description=__doc__.split("\n")[0])
+    ap = argparse.ArgumentParser(prog="python tests/bench/bench_steam.py", description=__doc__.split("\n")[0])
     ap.add_argument("--n", type=int, default=1_000_000, help="points per array (default 1e6)")
     ap.add_argument("--sample", type=int, default=2000, help="points timed with iapws (default 2000)")
     ap.add_argument(
