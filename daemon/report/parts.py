@@ -1,143 +1,34 @@
-"""The HTML report: one self-contained page with its PNG figures, for real or demo data.
+"""The report's sections, one renderer each: ``(data, figures) -> list of HTML parts``.
 
-``write_report(store, config, start, end, out_dir)`` reads the result series the worker and
-the analysis wrote (``section_samples``, ``steady_windows``, ``deviation``, ``alarm_events``,
-``degradation``, ``steps``, ``losses``, ``outlook``), re-screens the raw readings for the
-data-quality table, draws the figures with matplotlib (Agg, no display), and writes
-``index.html`` (figures embedded as data URIs, so the one file can be mailed or printed)
-plus the PNG files beside it.
-
-The page is plain and printable: black text, one accent colour per section chosen here for
-contrast in print, no decoration. Every figure states its units; every number in the
-tables states its unit. The cautions open and close the page.
+Each renderer reads only its ``ReportData`` and returns the HTML of its section (an empty list
+when there is nothing to show); figures go through ``Figures.add``. ``RENDERERS`` is the
+page's order.
 """
 
 from __future__ import annotations
 
-import base64
 import html
-import io
 import math
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
-from isentrope.calc import quality, steam
-from isentrope.calc.baseline import BaselineModel
-from isentrope.daemon import __version__
-from isentrope.daemon.analysis import (
-    CURRENT_WINDOW_DAYS,
-    DEGRADATION_MEASUREMENT,
-    SECTIONS,
-    STEPS_MEASUREMENT,
-    alarm_series,
-    period_view,
-)
-from isentrope.daemon.pipeline import ALARMS_MEASUREMENT, DEVIATION_MEASUREMENT, WINDOWS_MEASUREMENT, Pipeline
-from isentrope.daemon.redact import redact
-
-#: Section colours of this report (our own choice, for print contrast).
-SECTION_COLOURS = {"hp": "#1b4f72", "ip": "#7d3c98", "lp_dry": "#117864", "lp": "#7e5109"}
-SECTION_TITLES = {
-    "hp": "HP section",
-    "ip": "IP section",
-    "lp_dry": "LP dry stage group (crossover to LP extraction)",
-    "lp": "LP section, whole (energy balance)",
-}
-EFFICIENCY_COLUMNS = {
-    "hp": "hp_efficiency",
-    "ip": "ip_efficiency",
-    "lp_dry": "lp_dry_efficiency",
-    "lp": "lp_used_energy_efficiency",
-}
-
-CAUTION = (
-    "Advisory performance information only. isentrope is not a protective function and is "
-    "not part of any turbine control or protection system. Its figures carry measurement "
-    "uncertainty, stated beside them. The turbine maker's limits and instructions, local codes "
-    "and licensed engineering practice take precedence over anything in this report."
+from isentrope.calc import steam
+from isentrope.daemon.analysis import CURRENT_WINDOW_DAYS, SECTIONS
+from isentrope.daemon.report.data import ReportData
+from isentrope.daemon.report.page import (
+    EFFICIENCY_COLUMNS,
+    SECTION_COLOURS,
+    SECTION_TITLES,
+    Figures,
+    fmt,
+    plt,
+    table,
 )
 
-CSS = """
-body { font-family: Georgia, 'DejaVu Serif', serif; color: #111; max-width: 60rem; margin: 2rem auto;
-       padding: 0 1rem; line-height: 1.45; }
-h1 { font-size: 1.6rem; margin-bottom: 0.2rem; } h2 { font-size: 1.25rem; border-bottom: 1px solid #999;
-     margin-top: 2.2rem; } h3 { font-size: 1.05rem; }
-.caution { border: 2px solid #111; padding: 0.6rem 0.9rem; margin: 1rem 0; font-size: 0.95rem; }
-table { border-collapse: collapse; margin: 0.6rem 0; font-size: 0.9rem; }
-th, td { border: 1px solid #bbb; padding: 0.25rem 0.5rem; text-align: right; }
-th { background: #eee; } td.l, th.l { text-align: left; }
-figure { margin: 1rem 0; page-break-inside: avoid; } figure img { width: 100%; height: auto; }
-figcaption { font-size: 0.85rem; color: #333; }
-.meta { color: #444; font-size: 0.9rem; }
-@media print { body { margin: 0; max-width: none; } h2 { page-break-after: avoid; } }
-"""
 
-
-def _plt():
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    return plt
-
-
-def _fmt(x, spec=".2f", missing="n/a") -> str:
-    try:
-        v = float(x)
-    except (TypeError, ValueError):
-        return missing
-    return format(v, spec) if math.isfinite(v) else missing
-
-
-class _Figures:
-    """Collects figures as PNG files and data URIs."""
-
-    def __init__(self, out_dir: Path):
-        self.out_dir = out_dir
-        self.items: list[tuple[str, str, str]] = []  # (file name, data uri, caption)
-
-    def add(self, fig, name: str, caption: str) -> str:
-        plt = _plt()
-        buf = io.BytesIO()
-        fig.savefig(buf, format="png", dpi=110, bbox_inches="tight")
-        plt.close(fig)
-        data = buf.getvalue()
-        (self.out_dir / f"{name}.png").write_bytes(data)
-        uri = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
-        self.items.append((f"{name}.png", uri, caption))
-        return (
-            f'<figure><img src="{uri}" alt="{html.escape(caption)}" data-file="{name}.png">'
-            f"<figcaption>{html.escape(caption)}</figcaption></figure>"
-        )
-
-
-def _table(frame: pd.DataFrame, left: tuple = ()) -> str:
-    head = "".join(
-        f'<th class="{"l" if c in left else ""}">{html.escape(str(c))}</th>' for c in frame.columns
-    )
-    rows = []
-    for _, r in frame.iterrows():
-        rows.append(
-            "".join(
-                f'<td class="{"l" if c in left else ""}">{html.escape(str(r[c]))}</td>' for c in frame.columns
-            )
-        )
-    body = "".join(f"<tr>{r}</tr>" for r in rows)
-    return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>"
-
-
-def _read(store, measurement, start, end, tags) -> pd.DataFrame:
-    frame = store.read_results(measurement, start, end, tags)
-    return frame.sort_index() if len(frame) else frame
-
-
-def _hs_diagram(fig_ax, window: pd.Series, config):
+def hs_diagram(ax, window: pd.Series) -> None:
     """Expansion of one steady window on an h-s diagram, with the saturation line."""
-
-    ax = fig_ax
     p = np.geomspace(0.001, 22.0, 200)
     ax.plot(steam.s_sat_liquid(p), steam.h_sat_liquid(p), color="#777", lw=1)
     ax.plot(steam.s_sat_vapour(p), steam.h_sat_vapour(p), color="#777", lw=1, label="saturation line")
@@ -180,67 +71,10 @@ def _hs_diagram(fig_ax, window: pd.Series, config):
     ax.legend(loc="lower right", fontsize=8)
 
 
-def write_report(
-    store,
-    config,
-    start,
-    end,
-    out_dir,
-    *,
-    analysis=None,
-    hs_window: pd.Timestamp | None = None,
-    readings: pd.DataFrame | None = None,
-) -> Path:
-    """Write the report for ``[start, end)`` into ``out_dir``; returns the path of index.html.
-
-    Parameters
-    ----------
-    store : isentrope.daemon.stores.base.Store
-    config : isentrope.daemon.config.Config
-    start, end : pandas.Timestamp
-        Period reported (UTC).
-    out_dir : path
-        Folder for index.html and the PNG files (created).
-    analysis : isentrope.daemon.analysis.Analysis or None
-        The analysis of the unit's whole history (``run_analysis``), which may reach past the
-        period: the planner summary shows its state at the end of the history, the period
-        table and the figures the period's part of it (``analysis.period_view``). None reads
-        the stored ``degradation``/``steps`` series of the period instead (and the planner
-        table then shows what was stored at the period end).
-    hs_window : Timestamp or None
-        Start of the steady window drawn on the h-s diagram; None: the highest-load steady
-        window of the last 30 days.
-    readings : pandas.DataFrame or None
-        The raw readings of the period in internal units when the caller already holds them
-        (the demo does); None reads them from the store for the data-quality table.
-    """
-
-    plt = _plt()
-    start, end = pd.Timestamp(start), pd.Timestamp(end)
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    figs = _Figures(out)
-    unit = config.unit.name
-    tags = {"unit": unit}
-    cur = config.economics.currency
-    windows = _read(store, WINDOWS_MEASUREMENT, start, end, tags)
-    saved = store.load_state(f"baseline/{unit}") or {}
-
-    models = {s: BaselineModel.from_json(t) for s, t in sorted(saved.get("models", {}).items())}
-    dev = {
-        s: _read(store, DEVIATION_MEASUREMENT, start, end, {**tags, "section": s, "model": m.model_id})
-        for s, m in models.items()
-    }
-    a = config.alarms
-    parts = [
-        f"<h1>Turbine section performance: {html.escape(config.unit.plant or '')} {html.escape(unit)}</h1>",
-        f'<p class="meta">Period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC; rating '
-        f"{config.unit.rating_mw:g} MW; produced by isentrope {html.escape(__version__)} on "
-        f"{pd.Timestamp.now(tz='UTC'):%Y-%m-%d %H:%M} UTC.</p>",
-        f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>',
-    ]
-
-    # --- planner table ------------------------------------------------------------------
+def planner(d: ReportData, figs: Figures) -> list[str]:
+    """Summary for the planner: the state at the end of the stored history, per section."""
+    parts: list[str] = []
+    analysis, cur = d.analysis, d.config.economics.currency
     parts.append("<h2>Summary for the planner</h2>")
     if analysis is not None and analysis.sections:
         parts.append(
@@ -250,7 +84,7 @@ def write_report(
         )
     cost_col = f"extra fuel cost since the baseline end [{cur}]"
     rows = []
-    outage = config.economics.planned_outage
+    outage = d.config.economics.planned_outage
     for s in SECTIONS:
         if analysis is not None and s in analysis.sections:
             o = analysis.sections[s]
@@ -261,47 +95,46 @@ def write_report(
             rows.append(
                 {
                     "section": SECTION_TITLES[s],
-                    "deviation now [pt] ± its standard error": f"{_fmt(o.current, '+.2f')} ± {_fmt(o.current_u, '.3f')}",
-                    "one window's u [pt]": _fmt(o.current_window_u, ".2f"),
+                    "deviation now [pt] ± its standard error": f"{fmt(o.current, '+.2f')} ± {fmt(o.current_u, '.3f')}",
+                    "one window's u [pt]": fmt(o.current_window_u, ".2f"),
                     "rate [pt/1000 h] (95 %)": (
-                        f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to {_fmt(r.high, '+.2f')})"
+                        f"{fmt(r.slope_per_1000h, '+.2f')} ({fmt(r.low, '+.2f')} to {fmt(r.high, '+.2f')})"
                         if r.status == "ok"
                         else r.status
                     ),
                     "steps": str(len(o.steps)),
                     f"at outage {outage or 'n/a'} [pt]": (
-                        f"{_fmt(proj.value, '+.2f')} ({_fmt(proj.low, '+.2f')} to {_fmt(proj.high, '+.2f')})"
+                        f"{fmt(proj.value, '+.2f')} ({fmt(proj.low, '+.2f')} to {fmt(proj.high, '+.2f')})"
                         if proj is not None and proj.status == "ok"
                         else "n/a"
                     ),
-                    cost_col: _fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
+                    cost_col: fmt(o.losses["cumulative_fuel_cost"].iloc[-1], ",.0f")
                     if o.losses is not None and len(o.losses)
                     else "n/a",
-                    f"cost to outage [{cur}]": _fmt(pl.fuel_cost, ",.0f") if pl is not None else "n/a",
-                    "overhaul payback [years]": _fmt(oh.payback_years, ".1f") if oh is not None else "n/a",
+                    f"cost to outage [{cur}]": fmt(pl.fuel_cost, ",.0f") if pl is not None else "n/a",
+                    "overhaul payback [years]": fmt(oh.payback_years, ".1f") if oh is not None else "n/a",
                 }
             )
-        elif s in models:
-            d = _read(store, DEGRADATION_MEASUREMENT, start, end, {**tags, "section": s})
-            last = d.iloc[-1] if len(d) else pd.Series(dtype=float)
+        elif s in d.stored:
+            last, n_steps = d.stored[s]
             rows.append(
                 {
                     "section": SECTION_TITLES[s],
-                    "deviation now [pt] ± its standard error": f"{_fmt(last.get('deviation_now'), '+.2f')} ± "
-                    f"{_fmt(last.get('deviation_now_u'), '.3f')}",
-                    "one window's u [pt]": _fmt(last.get("deviation_now_window_u"), ".2f"),
-                    "rate [pt/1000 h] (95 %)": f"{_fmt(last.get('rate_per_1000h'), '+.2f')} "
-                    f"({_fmt(last.get('rate_low'), '+.2f')} to "
-                    f"{_fmt(last.get('rate_high'), '+.2f')})",
-                    "steps": str(len(_read(store, STEPS_MEASUREMENT, start, end, {**tags, "section": s}))),
-                    f"at outage {outage or 'n/a'} [pt]": _fmt(last.get("projected"), "+.2f"),
+                    "deviation now [pt] ± its standard error": f"{fmt(last.get('deviation_now'), '+.2f')} ± "
+                    f"{fmt(last.get('deviation_now_u'), '.3f')}",
+                    "one window's u [pt]": fmt(last.get("deviation_now_window_u"), ".2f"),
+                    "rate [pt/1000 h] (95 %)": f"{fmt(last.get('rate_per_1000h'), '+.2f')} "
+                    f"({fmt(last.get('rate_low'), '+.2f')} to "
+                    f"{fmt(last.get('rate_high'), '+.2f')})",
+                    "steps": str(n_steps),
+                    f"at outage {outage or 'n/a'} [pt]": fmt(last.get("projected"), "+.2f"),
                     cost_col: "see losses",
                     f"cost to outage [{cur}]": "n/a",
                     "overhaul payback [years]": "n/a",
                 }
             )
     if rows:
-        parts.append(_table(pd.DataFrame(rows), left=("section",)))
+        parts.append(table(pd.DataFrame(rows), left=("section",)))
         parts.append(
             "<p>Deviation is actual minus baseline expectation in percentage points (negative is "
             f"worse): the median of the steady windows of the last {CURRENT_WINDOW_DAYS:g} days. The ± "
@@ -319,8 +152,8 @@ def write_report(
             "unit's own heat balance before using them in a business case.</p>"
         )
         pricing = [
-            f"{SECTION_TITLES[s]}: {_fmt(o.heat_rate_per_point, '.3f')} % heat rate and "
-            f"{_fmt(o.output_per_point, '.3f')} % output per point ({html.escape(o.pricing)})"
+            f"{SECTION_TITLES[s]}: {fmt(o.heat_rate_per_point, '.3f')} % heat rate and "
+            f"{fmt(o.output_per_point, '.3f')} % output per point ({html.escape(o.pricing)})"
             for s, o in (analysis.sections.items() if analysis is not None else ())
             if o.pricing
         ]
@@ -340,7 +173,13 @@ def write_report(
         )
     if analysis is not None and analysis.notes:
         parts.append("<ul>" + "".join(f"<li>{html.escape(n)}</li>" for n in analysis.notes) + "</ul>")
-    views = period_view(analysis, start, end) if analysis is not None else {}
+    return parts
+
+
+def period(d: ReportData, figs: Figures) -> list[str]:
+    """The period's part of the whole-history analysis."""
+    parts: list[str] = []
+    start, end, cur, views = d.start, d.end, d.config.economics.currency, d.views
     if views:
         parts.append(f"<h3>The period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC</h3>")
         prow = []
@@ -353,10 +192,10 @@ def write_report(
                 {
                     "section": SECTION_TITLES[s],
                     "steady windows": str(v.n_windows),
-                    "deviation at period end [pt] ± its standard error": f"{_fmt(v.deviation_end, '+.2f')} ± {_fmt(v.deviation_end_u, '.3f')}",
-                    "one window's u [pt]": _fmt(v.window_u, ".2f"),
+                    "deviation at period end [pt] ± its standard error": f"{fmt(v.deviation_end, '+.2f')} ± {fmt(v.deviation_end_u, '.3f')}",
+                    "one window's u [pt]": fmt(v.window_u, ".2f"),
                     "rate at period end [pt/1000 h] (95 %)": (
-                        f"{_fmt(r.slope_per_1000h, '+.2f')} ({_fmt(r.low, '+.2f')} to {_fmt(r.high, '+.2f')})"
+                        f"{fmt(r.slope_per_1000h, '+.2f')} ({fmt(r.low, '+.2f')} to {fmt(r.high, '+.2f')})"
                         if r.status == "ok"
                         else r.status
                     ),
@@ -364,30 +203,37 @@ def write_report(
                         f"{st.size:+.2f} pt at {pd.Timestamp(st.time):%Y-%m-%d %H:%M}" for st in v.steps
                     )
                     or "none",
-                    "lost energy in the period [MWh]": _fmt(v.lost_mwh, ",.0f"),
-                    f"extra fuel cost in the period [{cur}]": _fmt(v.fuel_cost, ",.0f"),
-                    f"extra fuel cost since the baseline end, to the period end [{cur}]": _fmt(
+                    "lost energy in the period [MWh]": fmt(v.lost_mwh, ",.0f"),
+                    f"extra fuel cost in the period [{cur}]": fmt(v.fuel_cost, ",.0f"),
+                    f"extra fuel cost since the baseline end, to the period end [{cur}]": fmt(
                         v.cumulative_fuel_cost, ",.0f"
                     ),
                 }
             )
-        parts.append(_table(pd.DataFrame(prow), left=("section", "steps in the period")))
+        parts.append(table(pd.DataFrame(prow), left=("section", "steps in the period")))
         parts.append(
             "<p>Figures of the period from the whole-history analysis: the deviation and rate as the "
             "history up to the period end gives them; costs in the period are the sums over the UTC "
             "days that overlap it, and the cost since the baseline end runs to the last of those "
             "days.</p>"
         )
+    return parts
 
-    # --- efficiency and deviation per section ----------------------------------------------
+
+def efficiency(d: ReportData, figs: Figures) -> list[str]:
+    """Per section: the efficiency of each steady window with the baseline expectation, and
+    the deviation with its alarm levels, fitted trend, projection and steps."""
+    parts: list[str] = []
+    analysis, start, end, windows = d.analysis, d.start, d.end, d.windows
+    a, outage, pyplot = d.config.alarms, d.config.economics.planned_outage, plt()
     parts.append("<h2>Section efficiency and deviation</h2>")
     for s in SECTIONS:
         col = EFFICIENCY_COLUMNS[s]
         if not len(windows) or col not in windows.columns or not np.isfinite(windows[col]).any():
             continue
-        if s == "lp" and not Pipeline(config).lp_energy_balance:
+        if s == "lp" and not d.lp_energy_balance:
             continue  # the whole LP from an assumed efficiency: an estimate, not trended
-        fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(9, 6), sharex=True)
+        fig, (ax1, ax2) = pyplot.subplots(2, 1, figsize=(9, 6), sharex=True)
         ax1.plot(
             windows.index,
             100 * windows[col],
@@ -397,15 +243,15 @@ def write_report(
             alpha=0.6,
             label="steady window",
         )
-        d = dev.get(s)
-        if d is not None and len(d) and "expected" in d:
-            e, eu = 100 * d["expected"], 100 * d.get("expected_u", 0 * d["expected"])
-            ax1.plot(d.index, e, "-", color="#111", lw=0.6, label="baseline expectation")
+        dv = d.deviation.get(s)
+        if dv is not None and len(dv) and "expected" in dv:
+            e, eu = 100 * dv["expected"], 100 * dv.get("expected_u", 0 * dv["expected"])
+            ax1.plot(dv.index, e, "-", color="#111", lw=0.6, label="baseline expectation")
             ax1.fill_between(
-                d.index, e - 2 * eu, e + 2 * eu, color="#999", alpha=0.35, lw=0, label="expectation ± 2 u"
+                dv.index, e - 2 * eu, e + 2 * eu, color="#999", alpha=0.35, lw=0, label="expectation ± 2 u"
             )
             ax2.plot(
-                d.index, d["deviation"], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6, label="deviation"
+                dv.index, dv["deviation"], ".", ms=2, color=SECTION_COLOURS[s], alpha=0.6, label="deviation"
             )
             ax2.axhline(a.deviation_warning, color="#b9770e", ls="--", lw=1, label="warning level")
             ax2.axhline(a.deviation_alarm, color="#922b21", ls="--", lw=1, label="alarm level")
@@ -460,11 +306,16 @@ def write_report(
                 "projection and steps (bottom).",
             )
         )
+    return parts
 
-    # --- steady coverage ------------------------------------------------------------------
+
+def coverage(d: ReportData, figs: Figures) -> list[str]:
+    """Share of each week inside steady windows."""
+    parts: list[str] = []
+    windows, pyplot = d.windows, plt()
     if len(windows) and "duration_s" in windows:
         weekly = windows["duration_s"].resample("W").sum() / (7 * 86400.0) * 100.0
-        fig, ax = plt.subplots(figsize=(9, 2.6))
+        fig, ax = pyplot.subplots(figsize=(9, 2.6))
         ax.bar(weekly.index, weekly.to_numpy(), width=5, color="#555")
         ax.set_ylabel("steady time [% of week]")
         ax.grid(True, lw=0.3, axis="y")
@@ -477,10 +328,15 @@ def write_report(
                 "Share of each week inside steady windows (the only periods used for trending).",
             )
         )
+    return parts
 
-    # --- LP exhaust moisture --------------------------------------------------------------
+
+def moisture(d: ReportData, figs: Figures) -> list[str]:
+    """LP exhaust moisture per steady window against its limit."""
+    parts: list[str] = []
+    windows, config, a, pyplot = d.windows, d.config, d.config.alarms, plt()
     if len(windows) and "lp_moisture" in windows and np.isfinite(windows["lp_moisture"]).any():
-        fig, ax = plt.subplots(figsize=(9, 2.8))
+        fig, ax = pyplot.subplots(figsize=(9, 2.8))
         ax.plot(windows.index, 100 * windows["lp_moisture"], ".", ms=2, color=SECTION_COLOURS["lp"])
         ax.axhline(a.moisture_limit_percent, color="#922b21", ls="--", lw=1, label="limit")
         ax.set_ylabel("exhaust moisture [%]")
@@ -513,16 +369,21 @@ def write_report(
                 f"configured limit of {a.moisture_limit_percent:g} %.",
             )
         )
+    return parts
 
-    # --- h-s diagram ----------------------------------------------------------------------
+
+def expansion(d: ReportData, figs: Figures) -> list[str]:
+    """The expansion of one steady window on the h-s diagram."""
+    parts: list[str] = []
+    windows, hs_window, pyplot = d.windows, d.hs_window, plt()
     if len(windows) and "gross_output" in windows:
         if hs_window is not None and pd.Timestamp(hs_window) in windows.index:
             w = windows.loc[pd.Timestamp(hs_window)]
         else:
             recent = windows[windows.index >= windows.index[-1] - pd.Timedelta(days=30)]
             w = recent.loc[recent["gross_output"].idxmax()]
-        fig, ax = plt.subplots(figsize=(7, 5.5))
-        _hs_diagram(ax, w, config)
+        fig, ax = pyplot.subplots(figsize=(7, 5.5))
+        hs_diagram(ax, w)
         parts.append("<h2>Expansion on the h-s diagram</h2>")
         parts.append(
             figs.add(
@@ -532,10 +393,15 @@ def write_report(
                 f"UTC at {w['gross_output']:.0f} MW: HP, IP and the LP expansion line to the ELEP.",
             )
         )
+    return parts
 
-    # --- cost ----------------------------------------------------------------------------
+
+def cost(d: ReportData, figs: Figures) -> list[str]:
+    """Cumulative extra fuel cost per section over the period."""
+    parts: list[str] = []
+    analysis, start, end, cur, pyplot = d.analysis, d.start, d.end, d.config.economics.currency, plt()
     if analysis is not None and any(o.losses is not None for o in analysis.sections.values()):
-        fig, ax = plt.subplots(figsize=(9, 3))
+        fig, ax = pyplot.subplots(figsize=(9, 3))
         for s, o in analysis.sections.items():
             part = (
                 o.losses[(o.losses.index < end) & (o.losses.index + pd.Timedelta(days=1) > start)]
@@ -563,13 +429,16 @@ def write_report(
                 "sensitivities.",
             )
         )
+    return parts
 
-    # --- alarms ---------------------------------------------------------------------------
+
+def alarms(d: ReportData, figs: Figures) -> list[str]:
+    """The period's alarm events."""
+    parts: list[str] = []
     ev_rows = []
-    moisture_estimate = not Pipeline(config).lp_energy_balance
-    for s, rule in alarm_series(config):
-        e = _read(store, ALARMS_MEASUREMENT, start, end, {**tags, "section": s, "rule": rule})
-        for t, r in e.iterrows():
+    moisture_estimate = not d.lp_energy_balance
+    for s, rule, events in d.alarm_events:
+        for t, r in events.iterrows():
             ev_rows.append(
                 {
                     "time [UTC]": f"{t:%Y-%m-%d %H:%M}",
@@ -577,14 +446,14 @@ def write_report(
                     "rule": rule
                     + (" (estimate)" if rule == "exhaust_moisture" and moisture_estimate else ""),
                     "event": "raised" if bool(r.get("raised")) else "cleared",
-                    "value": _fmt(r.get("value"), ".3g"),
-                    "threshold": _fmt(r.get("threshold"), ".3g"),
+                    "value": fmt(r.get("value"), ".3g"),
+                    "threshold": fmt(r.get("threshold"), ".3g"),
                 }
             )
     parts.append("<h2>Alarm events</h2>")
     if ev_rows:
         ev = pd.DataFrame(ev_rows).sort_values("time [UTC]", kind="stable")
-        parts.append(_table(ev.head(200), left=("time [UTC]", "section or tag", "rule", "event")))
+        parts.append(table(ev.head(200), left=("time [UTC]", "section or tag", "rule", "event")))
         if len(ev) > 200:
             parts.append(
                 f"<p>{len(ev) - 200} further events not shown; export them with "
@@ -592,53 +461,42 @@ def write_report(
             )
     else:
         parts.append("<p>No alarm events in the period.</p>")
+    return parts
 
-    # --- data quality ---------------------------------------------------------------------
 
-    if readings is not None:
-        raw = readings.loc[(readings.index >= start) & (readings.index < end)]
-    else:
-        raw = store.read(
-            config.mappings, start, end, barometric_kpa=config.screening.barometric_kpa, grid=config.read_grid
-        )
-    pipe = Pipeline(config)
-    if len(raw):
-        screen = quality.screen(raw, **pipe.screen_kwargs(raw))
-        summ = screen.summary()
-        tagged = {m.role: m.tag for m in config.mappings}
-        keep = [r for r in summ.index if r in tagged]
-        q = summ.loc[keep].copy()
-        reasons = [c for c in q.columns if c not in ("flagged", "samples") and q[c].sum() > 0]
-        table = pd.DataFrame(
-            {
-                "role": keep,
-                "tag": [tagged[r] for r in keep],
-                "samples": q["samples"].to_numpy(),
-                "flagged": q["flagged"].to_numpy(),
-                "flagged [%]": [
-                    _fmt(100 * f / n if n else math.nan, ".2f")
-                    for f, n in zip(q["flagged"], q["samples"], strict=True)
-                ],
-            }
-        )
-        for c in reasons:
-            table[c.lower()] = q[c].to_numpy()
-        parts.append("<h2>Data quality per tag</h2>")
-        parts.append(_table(table, left=("role", "tag")))
-        expected = int(round((end - start) / pd.Timedelta(minutes=1)))
-        parts.append(
-            f"<p>Samples found: {len(raw):,} rows against {expected:,} one-minute intervals in the "
-            "period (missing rows are gaps in the store). Flagged samples are excluded from steady "
-            "windows and trends.</p>"
-        )
-
-    parts.append(f'<div class="caution"><strong>Caution.</strong> {html.escape(CAUTION)}</div>')
-    page = (
-        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
-        f"<title>Turbine section performance: {html.escape(unit)}</title><style>{CSS}</style></head><body>"
-        + "\n".join(parts)
-        + "</body></html>"
+def data_quality(d: ReportData, figs: Figures) -> list[str]:
+    """Screening counts per mapped tag."""
+    summ = d.quality_summary
+    if summ is None:
+        return []
+    config = d.config
+    tagged = {m.role: m.tag for m in config.mappings}
+    keep = [r for r in summ.index if r in tagged]
+    q = summ.loc[keep].copy()
+    reasons = [c for c in q.columns if c not in ("flagged", "samples") and q[c].sum() > 0]
+    counts = pd.DataFrame(
+        {
+            "role": keep,
+            "tag": [tagged[r] for r in keep],
+            "samples": q["samples"].to_numpy(),
+            "flagged": q["flagged"].to_numpy(),
+            "flagged [%]": [
+                fmt(100 * f / n if n else math.nan, ".2f")
+                for f, n in zip(q["flagged"], q["samples"], strict=True)
+            ],
+        }
     )
-    path = out / "index.html"
-    path.write_text(redact(page), encoding="utf-8")
-    return path
+    for c in reasons:
+        counts[c.lower()] = q[c].to_numpy()
+    expected = int(round((d.end - d.start) / pd.Timedelta(minutes=1)))
+    return [
+        "<h2>Data quality per tag</h2>",
+        table(counts, left=("role", "tag")),
+        f"<p>Samples found: {d.raw_rows:,} rows against {expected:,} one-minute intervals in the "
+        "period (missing rows are gaps in the store). Flagged samples are excluded from steady "
+        "windows and trends.</p>",
+    ]
+
+
+#: The page's sections, in order.
+RENDERERS = (planner, period, efficiency, coverage, moisture, expansion, cost, alarms, data_quality)
