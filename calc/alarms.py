@@ -15,10 +15,6 @@ worker stores between runs; each machine remembers the time of the last observat
 consumed and ignores observations at or before it, so re-running a window that was already
 processed yields no duplicate events, and processing window A then window B gives exactly
 the events of processing A and B at once.
-
-Alarms here are advisory performance information, not a protective function: they do not
-replace the turbine maker's limits, the plant's protection and alarm systems, local codes or
-a licensed engineer's judgement.
 """
 
 from __future__ import annotations
@@ -418,8 +414,8 @@ def _prepare(observations: pd.DataFrame):
     Returns ``(obs, ns, values, order)``: the frame (with a ``time`` column), times as int64 ns
     (UTC), values as float (non-numbers and NaT times become NaN: skipped), and the indices
     that sort them by time, equal times keeping their input order. The frame itself is neither
-    copied nor sorted (measured: sorting a 700,000-row frame with its text columns cost more
-    than the machines).
+    copied nor sorted (sorting it with its text columns cost more than the machines;
+    calc/DECISIONS.md, "Speed of the kernels").
     """
     obs = observations
     if "time" not in obs.columns:
@@ -469,9 +465,8 @@ def _run_machine(
     normal machine the streak count and the time since its first B grow together, so the
     raising observation is the first one where both the count and (when set) the duration
     are reached (a search in the run); a C run of a raised machine clears at the observation
-    where the clear count is reached; every other run only resets a counter. Measured: the
-    per-observation loop cost about 1.0 s per day of one-minute data (16 roles), nearly all
-    of it on tag-quality series that change class a few times a day.
+    where the clear count is reached; every other run only resets a counter (a loop over every
+    observation was the slow part: calc/DECISIONS.md, "Speed of the kernels").
     """
     if rule.direction == "below":
         beyond, cleared = v < rule.threshold, v >= rule.clear_level

@@ -16,9 +16,8 @@ Sign convention: deviation < 0 is a loss; heat-rate change > 0, output change < 
 > 0, extra fuel and fuel cost > 0 are losses. A deviation above baseline gives the opposite
 signs (a gain).
 
-These figures are advisory planning information. They are not a substitute for the unit's
-heat balance, a performance test to a code such as ASME PTC 6, or a licensed engineer's
-judgement, and they do not weigh the turbine maker's limits or inspection findings.
+These figures are planning estimates: they do not replace the unit's heat balance or a
+performance test to a code such as ASME PTC 6, and they do not weigh inspection findings.
 """
 
 from __future__ import annotations

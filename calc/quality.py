@@ -12,8 +12,7 @@ block noise level) and running max/min over the whole column, steam properties o
 arrays. The frame is in internal units (MPa absolute, K, MW,
 kg/s, percent), one column per role.
 
-Results are advisory: a clean screen says the readings are self-consistent, not that the
-instruments are right. Instrument calibration and the turbine maker's limits govern.
+A clean screen says the readings are self-consistent, not that the instruments are right.
 
 References
 ----------
@@ -187,7 +186,7 @@ DEFAULT_SPIKE_THRESHOLD = 5.0
 SPIKE_SCALE_BLOCK = "1h"
 #: MAD to standard deviation for Gaussian noise: 1 / Phi^-1(3/4) = 1.4826.
 MAD_TO_SIGMA = 1.482602218505602
-#: Plausible HP/IP/LP-dry-group efficiency band [fraction] (issue default; typical large
+#: Plausible HP/IP/LP-dry-group efficiency band [fraction] (project default; typical large
 #: reheat units run HP 0.82-0.88 and IP 0.89-0.93, from memory, calc/REFERENCES.md).
 DEFAULT_EFFICIENCY_BAND = (0.5, 1.0)
 
@@ -488,10 +487,9 @@ def _noise_scale(values: np.ndarray, t: np.ndarray, block_ns: int) -> np.ndarray
     2 sigma^2; a spike or a step moves the median of a block little. NaN for a block with
     no such pair (no spike test there).
 
-    Measured in one run on a year of one-minute rows (shared 2-core machine): 60 ms per role,
-    about the cost of a second running median filter (70 ms) and 1/25 of the exact per-window
-    MAD of the textbook Hampel identifier (1.7 s). It is chosen for the clock alignment and
-    the steadier estimate (a median of about 60 differences instead of 15), not for speed.
+    It is chosen for the clock alignment and the steadier estimate (a median of about 60
+    differences instead of 15), not for speed; it costs about as much as a second running
+    median filter (calc/DECISIONS.md, "Speed of the kernels").
     """
     n = len(values)
     if n < 2:
@@ -793,8 +791,7 @@ def screen(
         Section name ("hp", "ip", "lp_group") -> efficiency per sample already computed
         from the same readings [fraction], aligned with ``frame``; used for the band test
         instead of calling ``section_efficiency`` again (it dominates the run time of a
-        screen: 1.5-4.5 s per section for a year of one-minute rows, measured on the
-        shared 2-core project machine).
+        screen; calc/DECISIONS.md, "Speed of the kernels").
     deadband : mapping of str to float, optional
         Role -> exception deadband of the historian [internal unit], for readings taken onto a
         grid from data stored by exception (isentrope.daemon.stores.grid). The spike floor of

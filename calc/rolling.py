@@ -6,9 +6,7 @@ NaN samples are skipped, never propagated. Times are int64 nanoseconds, strictly
 
 On a regular time grid (the usual historian export) the window is a fixed number of samples
 and the running max/min use scipy.ndimage's O(n) filters; an irregular grid falls back to
-pandas' time-based rolling max/min (measured on the project machine for a year of one-minute
-rows and a 2 h window: about 28 ms per column and statistic, against about 17 ms on the fast
-path).
+pandas' time-based rolling max/min, slower but still fast (calc/DECISIONS.md, "Speed of the kernels").
 Running sums use cumulative sums over the window start indices and need no fast path.
 """
 

@@ -20,9 +20,8 @@ typically) for a few hours. Given the start and end of the test:
    sub-periods' uncertainties);
 6. optionally, it is compared with the online trend value at the test date.
 
-Advisory performance information only: a routine test evaluated here is not an acceptance
-test to ASME PTC 6, does not check the test's instrumentation, isolation or corrections, and
-defers to the turbine maker's limits, local codes and licensed engineering practice.
+A routine test evaluated here is not an acceptance test to ASME PTC 6: the test's
+instrumentation, isolation and corrections are not checked.
 
 References
 ----------

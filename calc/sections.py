@@ -22,9 +22,6 @@ finite differences of the same vectorised functions, combined root-sum-square
 Everything here is pure: numpy/pandas in, the same type out, no I/O, no clock, no logging.
 Internal units are IAPWS-IF97's: MPa (absolute), K, kJ/kg, kJ/(kg K), m3/kg, kg/s, MW.
 
-The figures are advisory performance information. They are not a protective function and do
-not replace the turbine maker's limits, local codes or licensed engineering practice.
-
 References
 ----------
 ASME PTC 6-2004, Steam Turbines (enthalpy-drop efficiency of a turbine section).
@@ -570,9 +567,7 @@ def _crossing_pressure(h_in, s_in, eta, p_lo, p_hi):
     saturated-vapour line h''(p): root of g(ln p) = h(p) - h''(p) in [p_lo, p_hi], Illinois
     regula falsi on the saturation table. g < 0 at p_lo (wet end), g > 0 at p_hi (superheated
     inlet; where the inlet isentrope is superheated the wet formula extrapolates with the
-    same sign). Returns (p, converged). (Starting the uncertainty differences from the
-    unperturbed root saved one of the nine table evaluations: measured 1.04 s -> 1.00 s for
-    ``evaluate`` on 60 days; not kept.)"""
+    same sign). Returns (p, converged)."""
 
     def g(u, i):
         hf, hg, sf, sg = _sat_interp(u)
@@ -612,8 +607,7 @@ def _crossing_pressure(h_in, s_in, eta, p_lo, p_hi):
 def _exhaust_states(p_exh, mask):
     """Exact h', h'', s', s'' and v', v'' at the exhaust pressure where ``mask`` (NaN
     elsewhere): ``steam.saturation_states``, the public saturation functions bit for bit in
-    one pass. Measured on 86,400 condenser pressures (60 days of one-minute rows): 0.171 s
-    for the six functions one by one, 0.055 s in one pass."""
+    one pass, about three times faster (calc/DECISIONS.md, "Speed of the kernels")."""
     n = mask.shape[0]
     out = {k: np.full(n, np.nan) for k in ("hf", "hg", "sf", "sg", "vf", "vg")}
     if mask.any():
@@ -1298,10 +1292,7 @@ def _pt_derivative_hs(p, t, step, which, h0, s0, mask, inlet_states=None):
     """d h / d(which) and d s / d(which) at (p, t): the same central (or one-sided)
     differences as ``_pt_derivative`` of ``steam.h_pt`` and of ``steam.s_pt``, bit for bit,
     from one h-and-s evaluation per perturbed state and, for a temperature step, one
-    saturation temperature shared by both states. Measured on 30 days (42,480 rows) of the
-    synthetic unit, together with the one-pass inlet h and s of the base figures:
-    ``evaluate`` 1.75 s -> 1.34 s (energy balance), 1.60 s -> 1.25 s (expansion), results
-    identical bit for bit."""
+    saturation temperature shared by both states (calc/DECISIONS.md, "Speed of the kernels")."""
     pp, pm, tp, tm, okp, okm = _perturbed_states(p, t, step, which, mask)
     if inlet_states is None:
         hp_, sp_ = _call_hs(okp, pp, tp)
@@ -1333,9 +1324,8 @@ def _section_uncertainty(p_in, t_in, p_out, t_out, base, u, steps, inlet_states=
     cp and (dv/dT)_p of the Gibbs equations), else a central difference of the property
     functions that input enters (region 3 and 5 states). The isentropic end point follows by
     dh = T ds + v dp at constant p_out (dh_s = T_s ds_in) and constant s_in (dh_s = v_s
-    dp_out), exact to the first order. Measured on a 30-day chunk of the synthetic unit
-    (43,200 rows; one HP-like section): 0.115 s with differences for every input, 0.002 s
-    analytic; the two agree within the curvature over one uncertainty step (tests).
+    dp_out), exact to the first order; the analytic and the differenced coefficients agree
+    within the curvature over one uncertainty step (tests; speed: calc/DECISIONS.md, "Speed of the kernels").
 
     ``u`` and ``steps``: dicts with keys "p_in", "t_in", "p_out", "t_out" (arrays).
     ``inlet_states``: an ``_InletStates`` that keeps the inlet states for later reuse."""
@@ -1572,7 +1562,7 @@ def _lp_figures(inp, cfg):
         # A re-evaluation for one input's uncertainty leaves the other inputs' arrays as they
         # are (same objects): the HP and IP sections and the LP inlet block whose inputs it
         # does not touch are taken from the first evaluation (cache local to one evaluate).
-        # Measured on 20 days (28,320 rows) of the synthetic unit: evaluate 5.5 s -> 3.0 s.
+        # About half the time of an energy-balance evaluate (calc/DECISIONS.md, "Speed of the kernels").
         parts = cfg.setdefault("eb_cache", {})
 
         def cached(name, keys, compute):
@@ -1722,9 +1712,7 @@ def _add_assumption_uncertainty(out, base, inp, cfg, band, keys):
 
 
 #: ``evaluate`` works through longer frames in row blocks of this size: its temporaries then
-#: stay in the caches. Measured on a synthetic unit-year (525,600 rows, every role, with
-#: uncertainty): 7.48 s in one piece, 5.97 s in blocks of 43,200 rows (6.28 s at 86,400,
-#: 6.11 s at 16,384).
+#: stay in the caches (calc/DECISIONS.md, "Speed of the kernels").
 EVALUATE_ROWS = 43_200
 
 
@@ -1804,11 +1792,6 @@ def evaluate(
     ValueError
         On a bad parameter, a non-numeric role column, or an explicitly requested
         energy-balance mode whose roles or parameters are missing.
-
-    Notes
-    -----
-    Advisory performance information, not a protective function; defer to the turbine
-    maker's limits, local codes and licensed engineering practice.
 
     References
     ----------

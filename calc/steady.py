@@ -27,8 +27,8 @@ non-steady sample, and after ``max_length`` (long plateaus give several windows)
 shorter than ``min_length`` are dropped, and with ptc6 so are windows whose own readings break
 the limits about their own mean.
 
-The thresholds are defaults a user can change; they are advisory, and the turbine maker's
-limits, the test code and licensed engineering practice decide what a valid test is.
+The thresholds are defaults a user can change; for a performance test, the test code decides
+what a valid steady period is.
 
 References
 ----------
@@ -85,7 +85,7 @@ LOAD_BAND = 0.01
 OFFLINE_FRACTION_OF_RATING = 0.05
 OFFLINE_MW = 1.0
 #: Moving window of the PTC 6 method. PTC 6 runs last about 1 h after about 1 h of
-#: stabilisation (common practice); 30 min is the issue's default for trending.
+#: stabilisation (common practice); 30 min is the project's default for trending.
 DEFAULT_WINDOW = "30m"
 #: Longest steady window; longer plateaus are cut into several (common practice: test runs
 #: of about 1 h).

@@ -24,9 +24,6 @@ are grouped by J, a_j = sum_i n_ij x^I_i is accumulated from the x powers, and t
 8192 points at a time keep the work in cache. No Python loop runs over points (only over
 terms and blocks), except for the iapws fallback.
 
-Results are advisory performance information, not a protective function; they do not replace
-the turbine maker's limits, local codes or licensed engineering practice.
-
 References
 ----------
 IAPWS R7-97(2012), Revised Release on the IAPWS Industrial Formulation 1997 for the
@@ -1954,8 +1951,21 @@ def _core_hs_pt(p, t):
 def hs_pt(p, t):
     """Specific enthalpy [kJ/kg] and entropy [kJ/(kg K)] at flat float arrays p [MPa] and
     T [K] in one pass: the same values, bit for bit, as ``h_pt`` and ``s_pt`` (same region
-    choice and the same sums; NaN outside IF97), at about the cost of one of them. A kernel of calc/sections.py (the perturbed states of its
-    uncertainty propagation): flat float arrays in, no broadcasting or reason codes.
+    choice and the same sums; NaN outside IF97), at about the cost of one of them. A kernel
+    of calc/sections.py (the perturbed states of its uncertainty propagation): flat float
+    arrays in, no broadcasting or reason codes.
+
+    Parameters
+    ----------
+    p : ndarray
+        Pressure, absolute [MPa], flat float array.
+    t : ndarray
+        Temperature [K], flat float array of the same length.
+
+    Returns
+    -------
+    h, s : ndarray
+        Specific enthalpy [kJ/kg] and entropy [kJ/(kg K)].
 
     References
     ----------
@@ -1981,6 +1991,13 @@ def hs_slopes_pt(p, t):
     included, from the same fallback); the derivatives are NaN outside regions 1 and 2
     (callers difference there). A kernel of calc/sections.py (the sensitivity coefficients of
     its uncertainty propagation).
+
+    Parameters
+    ----------
+    p : ndarray
+        Pressure, absolute [MPa], flat float array.
+    t : ndarray
+        Temperature [K], flat float array of the same length.
 
     Returns
     -------
@@ -2030,10 +2047,20 @@ def saturation_states(p):
     NaN where those are NaN. A kernel of calc/sections.py (the exhaust saturation of its LP
     chain, evaluated again for every condenser-pressure difference of its uncertainty).
 
+    Parameters
+    ----------
+    p : ndarray
+        Pressure, absolute [MPa], flat float array; NaN results outside the triple-point to
+        critical-point range.
+
     Returns
     -------
     dict of ndarray
         "hf", "hg", "sf", "sg", "vf", "vg".
+
+    References
+    ----------
+    IAPWS R7-97(2012): saturation temperature eq. (31), region 1 eq. (7), region 2 eq. (15).
     """
     p = np.ascontiguousarray(p, dtype=float).reshape(-1)
     n = p.shape[0]
@@ -2069,6 +2096,18 @@ def end_state_ps(p, s):
     properties asked for); T and v are those of the same solution (NaN outside IF97).
     A kernel of calc/sections.py (the isentropic end point and its sensitivities,
     dh_s = T ds + v dp, without a second solve).
+
+    Parameters
+    ----------
+    p : ndarray
+        Pressure, absolute [MPa], flat float array.
+    s : ndarray
+        Specific entropy [kJ/(kg K)], flat float array of the same length.
+
+    Returns
+    -------
+    h, t, v : ndarray
+        Specific enthalpy [kJ/kg], temperature [K] and specific volume [m3/kg].
 
     References
     ----------
@@ -2498,24 +2537,9 @@ _CORE_X_PH = _core_solve("h", "x")
 _CORE_S_PH = _core_solve("h", "s")
 _CORE_V_PH = _core_solve("h", "v")
 
-_PS_NOTES = """
-    Compressed liquid and superheated points start from the IF97 backward equation T(p,s)
-    (region 1 eq. (13); subregions 2a, 2b, 2c eqs. (25)-(27)) and are polished with Newton
-    steps on the forward equation until s_pt(p, T) matches s (to about 1e-12 kJ/(kg K)).
-    Wet points (s between the saturated-liquid and saturated-vapour entropies) are a mixture
-    of the saturation states with the quality given by s."""
-
-_PH_NOTES = """
-    Compressed liquid and superheated points start from the IF97 backward equation T(p,h)
-    (region 1 eq. (11); subregions 2a, 2b, 2c eqs. (22)-(24), split by p = 4 MPa and the
-    B2bc line eq. (21)) and are polished with Newton steps on the forward equation until
-    h_pt(p, T) matches h (to about 1e-10 kJ/kg). Wet points are a mixture of the saturation
-    states with the quality given by h."""
-
 
 def h_ps(p, s, return_details=False):
-    (
-        """Specific enthalpy from pressure and entropy: the isentropic end point.
+    """Specific enthalpy from pressure and entropy: the isentropic end point.
 
     Parameters
     ----------
@@ -2531,22 +2555,28 @@ def h_ps(p, s, return_details=False):
     h : float, ndarray or Series
         Specific enthalpy [kJ/kg]
 
+    Raises
+    ------
+    ValueError
+        Scalar input outside IF97's validity.
+
     Notes
-    -----"""
-        + _PS_NOTES
-        + """
+    -----
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,s)
+    (region 1 eq. (13); subregions 2a, 2b, 2c eqs. (25)-(27)) and are polished with Newton
+    steps on the forward equation until s_pt(p, T) matches s (to about 1e-12 kJ/(kg K)).
+    Wet points (s between the saturated-liquid and saturated-vapour entropies) are a mixture
+    of the saturation states with the quality given by s.
 
     References
     ----------
     IAPWS R7-97(2012) sections 5.2.2 and 6.3.2; region 3/5 points through the iapws package.
     """
-    )
     return _call("h_ps", _CORE_H_PS, ("p", "s"), (p, s), return_details, _RANGE_PS)
 
 
 def t_ps(p, s, return_details=False):
-    (
-        """Temperature from pressure and entropy.
+    """Temperature from pressure and entropy.
 
     Parameters
     ----------
@@ -2562,16 +2592,23 @@ def t_ps(p, s, return_details=False):
     t : float, ndarray or Series
         Temperature [K] (the saturation temperature for a wet point)
 
+    Raises
+    ------
+    ValueError
+        Scalar input outside IF97's validity.
+
     Notes
-    -----"""
-        + _PS_NOTES
-        + """
+    -----
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,s)
+    (region 1 eq. (13); subregions 2a, 2b, 2c eqs. (25)-(27)) and are polished with Newton
+    steps on the forward equation until s_pt(p, T) matches s (to about 1e-12 kJ/(kg K)).
+    Wet points (s between the saturated-liquid and saturated-vapour entropies) are a mixture
+    of the saturation states with the quality given by s.
 
     References
     ----------
     IAPWS R7-97(2012) sections 5.2.2 and 6.3.2.
     """
-    )
     return _call("t_ps", _CORE_T_PS, ("p", "s"), (p, s), return_details, _RANGE_PS)
 
 
@@ -2601,8 +2638,7 @@ def x_ps(p, s, return_details=False):
 
 
 def t_ph(p, h, return_details=False):
-    (
-        """Temperature from pressure and enthalpy.
+    """Temperature from pressure and enthalpy.
 
     Parameters
     ----------
@@ -2618,16 +2654,23 @@ def t_ph(p, h, return_details=False):
     t : float, ndarray or Series
         Temperature [K] (the saturation temperature for a wet point)
 
+    Raises
+    ------
+    ValueError
+        Scalar input outside IF97's validity.
+
     Notes
-    -----"""
-        + _PH_NOTES
-        + """
+    -----
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,h)
+    (region 1 eq. (11); subregions 2a, 2b, 2c eqs. (22)-(24), split by p = 4 MPa and the
+    B2bc line eq. (21)) and are polished with Newton steps on the forward equation until
+    h_pt(p, T) matches h (to about 1e-10 kJ/kg). Wet points are a mixture of the saturation
+    states with the quality given by h.
 
     References
     ----------
     IAPWS R7-97(2012) sections 5.2.1 and 6.3.1; region 3/5 points through the iapws package.
     """
-    )
     return _call("t_ph", _CORE_T_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)
 
 
@@ -2657,8 +2700,7 @@ def x_ph(p, h, return_details=False):
 
 
 def s_ph(p, h, return_details=False):
-    (
-        """Specific entropy from pressure and enthalpy.
+    """Specific entropy from pressure and enthalpy.
 
     Parameters
     ----------
@@ -2674,22 +2716,28 @@ def s_ph(p, h, return_details=False):
     s : float, ndarray or Series
         Specific entropy [kJ/(kg K)] (wet: mixture by quality)
 
+    Raises
+    ------
+    ValueError
+        Scalar input outside IF97's validity.
+
     Notes
-    -----"""
-        + _PH_NOTES
-        + """
+    -----
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,h)
+    (region 1 eq. (11); subregions 2a, 2b, 2c eqs. (22)-(24), split by p = 4 MPa and the
+    B2bc line eq. (21)) and are polished with Newton steps on the forward equation until
+    h_pt(p, T) matches h (to about 1e-10 kJ/kg). Wet points are a mixture of the saturation
+    states with the quality given by h.
 
     References
     ----------
     IAPWS R7-97(2012) sections 5.2.1 and 6.3.1.
     """
-    )
     return _call("s_ph", _CORE_S_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)
 
 
 def v_ph(p, h, return_details=False):
-    (
-        """Specific volume from pressure and enthalpy.
+    """Specific volume from pressure and enthalpy.
 
     Parameters
     ----------
@@ -2705,14 +2753,21 @@ def v_ph(p, h, return_details=False):
     v : float, ndarray or Series
         Specific volume [m3/kg] (wet: mixture by quality)
 
+    Raises
+    ------
+    ValueError
+        Scalar input outside IF97's validity.
+
     Notes
-    -----"""
-        + _PH_NOTES
-        + """
+    -----
+    Compressed liquid and superheated points start from the IF97 backward equation T(p,h)
+    (region 1 eq. (11); subregions 2a, 2b, 2c eqs. (22)-(24), split by p = 4 MPa and the
+    B2bc line eq. (21)) and are polished with Newton steps on the forward equation until
+    h_pt(p, T) matches h (to about 1e-10 kJ/kg). Wet points are a mixture of the saturation
+    states with the quality given by h.
 
     References
     ----------
     IAPWS R7-97(2012) sections 5.2.1 and 6.3.1.
     """
-    )
     return _call("v_ph", _CORE_V_PH, ("p", "h"), (p, h), return_details, _RANGE_PH)

@@ -270,8 +270,7 @@ def _group_medians(h: np.ndarray, d: np.ndarray, block: np.ndarray, max_points: 
     """Medians of consecutive groups of points (in hour order, never across a break).
 
     Each block's full groups are one ``numpy.median`` over a reshaped array and its last,
-    shorter group another: measured 10x faster than a pandas groupby median, which took
-    70 % of a daily rate fit (same values)."""
+    shorter group another: the same values as a pandas groupby median, faster (calc/DECISIONS.md, "Speed of the kernels")."""
     order = np.argsort(h, kind="stable")
     h, d, block = h[order], d[order], block[order]
     size = int(math.ceil(h.size / max_points))
@@ -299,8 +298,8 @@ def _tie_term(v: np.ndarray) -> float:
 def _pairwise_slopes(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """Slopes of every pair of points at distinct x (unordered).
 
-    Built one lag at a time into one preallocated array: measured twice as fast as fancy
-    indexing with ``numpy.triu_indices`` on 1250 points (35 ms against 70 ms).
+    Built one lag at a time into one preallocated array, faster than fancy indexing with
+    ``numpy.triu_indices`` (calc/DECISIONS.md, "Speed of the kernels").
     """
     n = x.size
     dy = np.empty(n * (n - 1) // 2)

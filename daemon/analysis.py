@@ -49,9 +49,6 @@ Result series (also in daemon/DECISIONS.md, "Result series"):
   ``-[alarms] min_step_points`` (the ``threshold`` written), cleared only when later steps
   up bring it back above half of that (an overhaul, a cleaning, an instrument change) or a
   new baseline starts the steps anew; a slow recovery without a step does not clear it.
-
-Advisory performance information, not a protective function; the turbine maker's limits,
-local codes and licensed engineering practice take precedence.
 """
 
 from __future__ import annotations

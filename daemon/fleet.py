@@ -31,8 +31,6 @@ How a partition stays independent and idempotent:
 The result of a unit equals a plain sequential ``isentrope backfill`` cut at the same instants
 (tests/daemon/test_fleet.py); a different chunking changes at most the last bits of a figure
 (see daemon/DECISIONS.md, "The worker": how results stay identical however time is cut).
-
-Results are advisory performance information, not a protective function.
 """
 
 from __future__ import annotations

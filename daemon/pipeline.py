@@ -26,9 +26,6 @@ of plant readings in internal units (what ``Store.read`` returns) that covers th
 Determinism: the same frame, window and state give identical results; the results inside the
 window depend only on the samples in the window and its margins, so re-processing any window
 (after an outage, a kill, or from a look-back) gives the same numbers.
-
-Results are advisory performance information, not a protective function; the turbine maker's
-limits, local codes and licensed engineering practice take precedence.
 """
 
 from __future__ import annotations

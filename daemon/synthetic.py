@@ -48,9 +48,7 @@ Faults: one transmitter holds its last value (flatline), a stretch of rows is ab
 gap: the rows are dropped, so a store written from the frame sees no samples there), and a
 burst of samples on one transmitter lies outside its instrument range.
 
-This is demonstration data. Figures computed from it say nothing about any real machine;
-isentrope's results are advisory performance information, not a protective function, and
-the turbine maker's limits, local codes and licensed engineering practice take precedence.
+This is demonstration data. Figures computed from it say nothing about any real machine.
 
 Regenerate from the command line: ``python -m isentrope.daemon.synthetic --days 30 -o DIR``.
 """

@@ -27,8 +27,6 @@ that chunk: its batch stays pending and the chunk computed meanwhile is dropped.
 ``plan_windows`` takes the clock as an argument, and ``Worker`` takes ``clock`` and ``sleep``
 callables, so the tests need no real waiting. ``stop()`` (wired to SIGTERM/SIGINT by the
 ``run`` and ``backfill`` commands) ends the work between chunks, never in the middle of one.
-
-Results are advisory performance information, not a protective function.
 """
 
 from __future__ import annotations

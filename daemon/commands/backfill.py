@@ -8,7 +8,6 @@ what is left of the period (``Worker.own_period``), so rows of an earlier run st
 this one writes none. At its end it analyses the whole history again (``Worker.analyse``
 with ``rebuild``): every analysis row is replaced, as if only this run had happened. One chunk
 (``[schedule] chunk``, or ``--chunk``) is in memory at a time. A progress bar goes to stderr.
-Results are advisory performance information, not a protective function.
 """
 
 from __future__ import annotations
@@ -23,10 +22,7 @@ from isentrope.daemon.errors import EXIT_OK, EXIT_UNREACHABLE
 from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "backfill"
-HELP = (
-    "process a past period in chunks and write the results; resumable (advisory performance "
-    "information, not a protective function)"
-)
+HELP = "process a past period in chunks and write the results; resumable"
 
 logger = logging.getLogger("isentrope.backfill")
 

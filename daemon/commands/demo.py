@@ -8,8 +8,7 @@ the scheduled worker writes them), and writes the HTML report and a short summar
 from what that job stored. Run it again with the same folder: the data is written again
 (replacing, not duplicating) and the backfill resumes from its checkpoint.
 
-Demonstration data only; the figures say nothing about any real machine. isentrope gives
-advisory performance information, not a protective function.
+Demonstration data only; the figures say nothing about any real machine.
 """
 
 from __future__ import annotations

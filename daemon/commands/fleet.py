@@ -6,7 +6,7 @@ installed and access to the units' stores and configuration files at the same pa
 local cluster of ``--workers`` processes (one thread each; the dashboard is off and everything
 listens on 127.0.0.1). Partitions that are already done are skipped, so the same command
 resumes after an interruption. See ``isentrope.daemon.fleet`` for how the baseline and the
-alarms are handled. Results are advisory performance information, not a protective function.
+alarms are handled.
 """
 
 from __future__ import annotations
@@ -18,10 +18,7 @@ from isentrope.daemon.errors import EXIT_OK
 from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "fleet-backfill"
-HELP = (
-    "backfill many units over a long period on a Dask cluster, partitioned by unit and month; "
-    "resumable (advisory performance information, not a protective function)"
-)
+HELP = "backfill many units over a long period on a Dask cluster, partitioned by unit and month; resumable"
 
 logger = logging.getLogger("isentrope.fleet")
 

@@ -6,8 +6,7 @@ stored yet it brings it up to the last reading first (``run_analysis``, as the w
 does). Then writes ``DIR/index.html`` with its PNG figures for the period ``[--start,
 --end)``: the planner summary is the state at the end of the analysed history, the period
 table and the figures are the period's, taken from that analysis. A report never rewrites the
-stored rates, steps or cumulative costs with those of its period alone. Advisory performance
-information, not a protective function.
+stored rates, steps or cumulative costs with those of its period alone.
 """
 
 from __future__ import annotations
@@ -15,7 +14,7 @@ from __future__ import annotations
 from isentrope.daemon.timeutil import parse_time
 
 NAME = "report"
-HELP = "write the HTML performance report for a period (advisory information, not a protective function)"
+HELP = "write the HTML performance report for a period"
 
 
 def add_arguments(parser) -> None:

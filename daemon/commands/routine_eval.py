@@ -5,8 +5,7 @@ checks each sub-period against the PTC 6 fluctuation limits, computes the sectio
 from each sub-period's averaged readings with their uncertainty
 (``isentrope.calc.routine_test.evaluate_test``), compares the result with the online trend
 (the stored steady-window figures within a week of the test), prints the tables and, with
-``-o``, writes them as CSV. Not an acceptance test to ASME PTC 6; advisory performance
-information, not a protective function.
+``-o``, writes them as CSV. Not an acceptance test to ASME PTC 6.
 """
 
 from __future__ import annotations
@@ -19,10 +18,7 @@ import pandas as pd
 from isentrope.daemon.timeutil import parse_duration, parse_time
 
 NAME = "test-eval"
-HELP = (
-    "evaluate a planned routine performance test from the stored readings (advisory, not an "
-    "acceptance test, not a protective function)"
-)
+HELP = "evaluate a planned routine performance test from the stored readings (not an acceptance test)"
 
 #: Figures reported, with the column of the online trend they are compared with.
 FIGURES = ("hp_efficiency", "ip_efficiency", "lp_dry_efficiency", "lp_moisture")

@@ -8,8 +8,7 @@ and step alarms, losses and the outlook back for dashboards (``Worker.analyse``)
 ``--once`` runs a single cycle and then the analysis, and exits (for cron or a systemd timer).
 Without a checkpoint (first start) it processes only the last look-back; process the history
 before that with ``isentrope backfill``.
-SIGTERM and SIGINT stop it cleanly after the chunk in progress. Results are advisory
-performance information, not a protective function.
+SIGTERM and SIGINT stop it cleanly after the chunk in progress.
 """
 
 from __future__ import annotations
@@ -31,10 +30,7 @@ from isentrope.daemon.errors import (
 )
 
 NAME = "run"
-HELP = (
-    "run the worker: every interval, process new data from the checkpoint and write the "
-    "results (advisory performance information, not a protective function)"
-)
+HELP = "run the worker: every interval, process new data from the checkpoint and write the results"
 
 logger = logging.getLogger("isentrope.run")
 

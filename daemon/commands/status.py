@@ -15,8 +15,6 @@ Exit codes (also in deploy/operators-guide.md):
 * 4: the worker lags: checkpoint older than ``--max-lag``, its last cycle failed, or the
   analysis is older than ``--max-analysis-lag`` behind the checkpoint.
 * 5: the worker never ran for this unit (no checkpoint).
-
-Advisory performance information, not a protective function.
 """
 
 from __future__ import annotations
