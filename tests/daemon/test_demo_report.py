@@ -186,44 +186,8 @@ def test_report_loads_in_a_real_browser(demo_dir, tmp_path):
     assert shot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
-# --- the dashboard definition ------------------------------------------------------------------
-_FROM = re.compile(r'FROM\s+"([^"]+)"')
-_SELECT = re.compile(r"SELECT\s+(.*?)\s+FROM", re.S)
-_FIELD = re.compile(r'"([^"]+)"')
-
-
-def _queries(node):
-    if isinstance(node, dict):
-        if node.get("type") == "datasource":  # a template variable choosing the data source
-            return
-        for k, v in node.items():
-            if k == "query" and isinstance(v, str):
-                yield v
-            else:
-                yield from _queries(v)
-    elif isinstance(node, list):
-        for v in node:
-            yield from _queries(v)
-
-
-def test_dashboard_is_json_and_names_only_series_the_worker_writes(demo_dir):
-    path = Path(__file__).resolve().parents[2] / "deploy" / "dashboard.json"
-    dash = json.loads(path.read_text())
-    assert dash["panels"], "no panels"
-    tables = _tables(demo_dir / "greywater2.sqlite")
-    queries = [q for q in _queries(dash) if not q.startswith("SHOW ")]
-    assert len(queries) >= 10
-    for q in queries:
-        measurements = _FROM.findall(q)
-        assert len(measurements) == 1, q
-        m = measurements[0]
-        assert m in tables, f"dashboard queries {m!r}, which the worker does not write ({sorted(tables)})"
-        fields = set(_FIELD.findall(_SELECT.search(q).group(1)))
-        assert fields, q
-        missing = fields - tables[m]
-        assert not missing, f"{m}: fields {sorted(missing)} are not written (written: {sorted(tables[m])})"
-        for tag in re.findall(r'"(unit|section|rule)"\s*(?:=|=~)', q):
-            assert tag in tables[m], f"{m} has no tag {tag}"
+# The dashboard's queries are held to the result-series registry in tests/daemon/test_series.py,
+# and the registry to this demo's store by test_the_demo_stores_exactly_the_registered_series_and_fields.
 
 
 def test_test_eval_on_a_plateau_agrees_with_the_online_trend(demo_dir, capsys):
