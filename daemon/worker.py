@@ -31,7 +31,6 @@ callables, so the tests need no real waiting. ``stop()`` (wired to SIGTERM/SIGIN
 
 from __future__ import annotations
 
-import functools
 import json
 import logging
 import random
@@ -44,8 +43,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from isentrope.calc.baseline import BaselineModel
 from isentrope.daemon import analysis
+from isentrope.daemon.baselines import Baselines, reference_period
 from isentrope.daemon.pipeline import (
     Pipeline,
 )
@@ -58,11 +57,9 @@ from isentrope.daemon.series import (
 )
 from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.timeutil import as_timedelta, epoch_seconds, floor_time, utc
+from isentrope.daemon.writer import DEFAULT_RESOLUTION, ResultWriter
 
 logger = logging.getLogger("isentrope.worker")
-
-#: Window boundaries are floored to this resolution (stable keys; common practice, no source).
-DEFAULT_RESOLUTION = pd.Timedelta("1s")
 
 
 def plan_windows(
@@ -283,7 +280,10 @@ class Worker:
         self.rng = rng or random.Random()
         self.stop_event = threading.Event()
         self.config = None  # set by from_config; gives the baseline period
-        self._models: dict | None = None
+        self.baseline_models = Baselines(
+            store, pipeline, unit, self._retry, lambda: reference_period(self.config)
+        )
+        self.writer = ResultWriter(store, self._retry, unit, self.checkpoint_name)
         self.pending: Batch | None = None
         self.last_report: CycleReport | None = None
         self._lock = threading.Lock()
@@ -651,187 +651,26 @@ class Worker:
         future.result()
         self._account(batch, start, end, rows_read, rows_flagged, report, progress)
 
+    # --- baselines and writes (daemon.baselines, daemon.writer) -----------------------------
     def _fit_reads_windows(self, chunk_start: pd.Timestamp) -> bool:
         """Whether ``baselines(chunk_start)`` may read the steady windows just written."""
-        period = self.baseline_period()
-        return self._models is None and period is not None and chunk_start >= period[1]
+        return self.baseline_models.fit_reads_windows(chunk_start)
 
     def baseline_period(self) -> tuple[pd.Timestamp, pd.Timestamp] | None:
         """The reference period ``[baseline] start..end`` (UTC), None when not configured."""
-        cfg = getattr(self.config, "baseline", None)
-        if cfg is None or cfg.start is None or cfg.end is None:
-            return None
-        return utc(cfg.start), utc(cfg.end)
+        return reference_period(self.config)
 
     def baselines(self, chunk_start: pd.Timestamp) -> dict:
-        """Baseline models for a chunk starting at ``chunk_start`` (section -> model).
-
-        A model saved in the store (state ``baseline/<unit>``) is used as it is. Otherwise,
-        once the reference period ``[baseline] start..end`` has been processed (the chunk
-        starts at or after its end), the models are fitted on the steady windows written for
-        that period and saved. Windows of the reference period itself get no deviation (see
-        ``Pipeline``), so the results do not depend on the cycle in which the fit happened.
-        """
-        if self._models is not None:
-            return self._models
-        saved = self._retry(
-            lambda: self.store.load_state(self.baseline_state_name),
-            f"loading state {self.baseline_state_name!r}",
-        )
-        period = self.baseline_period()
-        if saved and saved.get("models"):
-            self._models = {
-                sec: BaselineModel.from_json(text) for sec, text in sorted(saved["models"].items())
-            }
-            self._say_if_baseline_changed(saved)
-            return self._models
-        if period is None or chunk_start < period[1]:
-            return {}
-
-        ref_start, ref_end = period
-        windows = self._retry(
-            lambda: self.store.read_results(WINDOWS_MEASUREMENT, ref_start, ref_end, self.tags),
-            f"reading {WINDOWS_MEASUREMENT} {ref_start.isoformat()} to {ref_end.isoformat()}",
-        )
-        models, problems = self.pipeline.fit_baselines(windows)
-        for line in self.pipeline.baseline_notes:
-            logger.info(
-                "unit %s: baseline over %s to %s: %s",
-                self.unit,
-                ref_start.isoformat(),
-                ref_end.isoformat(),
-                line,
-            )
-        if not len(windows):
-            logger.warning(
-                "unit %s: no steady windows are stored for the reference period %s to %s, so no "
-                "baseline is fitted and no deviations are computed; process that period first "
-                "(isentrope backfill --start %s --end %s), then run this one again with --refit",
-                self.unit,
-                ref_start.isoformat(),
-                ref_end.isoformat(),
-                ref_start.isoformat(),
-                ref_end.isoformat(),
-            )
-        for line in problems:
-            logger.warning(
-                "unit %s: baseline over %s to %s not fitted for section %s; no deviations "
-                "for it until the worker restarts with a usable [baseline] period",
-                self.unit,
-                ref_start.isoformat(),
-                ref_end.isoformat(),
-                line,
-            )
-        if models:
-            state = {
-                "models": {sec: m.to_json() for sec, m in sorted(models.items())},
-                "reference_start": ref_start.isoformat(),
-                "reference_end": ref_end.isoformat(),
-            }
-            self._retry(
-                lambda: self.store.save_state(self.baseline_state_name, state),
-                f"saving state {self.baseline_state_name!r}",
-            )
-            logger.info(
-                "unit %s: baseline fitted on %d steady windows (%s to %s) for %s",
-                self.unit,
-                len(windows),
-                ref_start.isoformat(),
-                ref_end.isoformat(),
-                ", ".join(sorted(models)),
-            )
-        self._models = models  # also when empty: the reference windows are final, one try is enough
-        return models
+        """Baseline models for a chunk starting at ``chunk_start`` (``Baselines.for_chunk``)."""
+        return self.baseline_models.for_chunk(chunk_start)
 
     def warn_if_baseline_changed(self) -> bool:
-        """Log a warning when the saved baseline models were fitted on another period than
-        the configured ``[baseline]``; True when they were (the saved models are what the
-        worker uses). Called by the commands at start, so a resumed backfill with nothing
-        left to do says it too."""
-        saved = self._retry(
-            lambda: self.store.load_state(self.baseline_state_name),
-            f"loading state {self.baseline_state_name!r}",
-        )
-        return bool(saved and saved.get("models")) and self._say_if_baseline_changed(saved)
-
-    def _say_if_baseline_changed(self, saved: dict) -> bool:
-        period = self.baseline_period()
-        fitted_on = (saved.get("reference_start"), saved.get("reference_end"))
-        if period is None or fitted_on == (period[0].isoformat(), period[1].isoformat()):
-            return False
-        if not getattr(self, "_baseline_change_said", False):
-            logger.warning(
-                "unit %s: [baseline] is %s to %s, but the saved models (state %r) were fitted on "
-                "%s to %s; the saved models are used. To fit them on the configured period, run "
-                "`isentrope backfill --refit` from the reference period's end on",
-                self.unit,
-                period[0].isoformat(),
-                period[1].isoformat(),
-                self.baseline_state_name,
-                fitted_on[0],
-                fitted_on[1],
-            )
-            self._baseline_change_said = True
-        return True
+        """Warn when the saved models were fitted on another period than ``[baseline]``
+        (``Baselines.warn_if_changed``); called by the commands at start."""
+        return self.baseline_models.warn_if_changed()
 
     def _flush(self, batch: Batch) -> None:
-        """Write what is left of ``batch``, save its state, then advance the checkpoint."""
-        while batch.written < len(batch.writes):
-            measurement, frame, tags = batch.writes[batch.written]
-            if batch.prepared is not None:
-                write = functools.partial(self.store.write_prepared, batch.prepared[batch.written])
-            else:
-                write = functools.partial(self.store.write_results, measurement, frame, tags)
-            self._retry(
-                write,
-                f"writing {measurement} ({len(frame)} rows) for {batch.start.isoformat()} "
-                f"to {batch.end.isoformat()}",
-            )
-            batch.written += 1
-        if batch.alarm_state is not None and not batch.state_saved:
-            self._retry(
-                lambda: self.store.save_state(self.alarm_state_name, batch.alarm_state),
-                f"saving state {self.alarm_state_name!r}",
-            )
-            batch.state_saved = True
-        self._retry(
-            lambda: self.store.set_checkpoint(self.checkpoint_name, batch.end),
-            f"setting checkpoint {self.checkpoint_name!r} to {batch.end.isoformat()}",
-        )
+        self.writer.flush(batch)
 
     def _heartbeat(self, report: CycleReport) -> None:
-        """One row of ``worker_status``; a failure here is logged and never ends the worker,
-        except a refused token or permission (``AuthorizationError``): a configuration error
-        that every later cycle would meet too."""
-        last = report.checkpoint
-        if last is None:
-            try:
-                last = self.store.get_checkpoint(self.checkpoint_name)
-            except AuthorizationError:
-                raise
-            except (TemporaryStoreError, FatalStoreError):
-                last = None
-        lag = (report.started - last).total_seconds() if last is not None else np.nan
-        row = pd.DataFrame(
-            {
-                "last_processed_s": [epoch_seconds(last) if last is not None else np.nan],
-                "lag_s": [float(lag)],
-                "rows_read": [float(report.rows_read)],
-                "rows_flagged": [float(report.rows_flagged)],
-                "chunks": [float(report.chunks_done)],
-                "cycle_duration_s": [float(report.duration_s)],
-                "ok": [bool(report.ok)],
-                "pending_writes": [
-                    float(0 if self.pending is None else len(self.pending.writes) - self.pending.written)
-                ],
-            },
-            index=pd.DatetimeIndex([floor_time(report.started, DEFAULT_RESOLUTION)], name="time"),
-        )
-        try:
-            self.store.write_results(STATUS_MEASUREMENT, row, {**self.tags, "worker": self.checkpoint_name})
-        except AuthorizationError:
-            raise
-        except (TemporaryStoreError, FatalStoreError) as exc:
-            logger.warning(
-                "unit %s: heartbeat at %s not written: %s", self.unit, report.started.isoformat(), exc
-            )
+        self.writer.heartbeat(report, self.pending)
