@@ -48,6 +48,19 @@ Faults: one transmitter holds its last value (flatline), a stretch of rows is ab
 gap: the rows are dropped, so a store written from the frame sees no samples there), and a
 burst of samples on one transmitter lies outside its instrument range.
 
+Structure: a ``ScenarioSpec`` (frozen dataclass, the arguments of ``generate_with_state``)
+goes through one plain function per step, ``generate_from_spec`` calling them in order:
+``timeline`` (checks, sample grid, events placed), ``load_profile`` (dispatch, outages, AGC
+wander), ``true_efficiencies`` (design curves, HP loss, IP step, wander, flow to hold output),
+``boundary_states`` (``process_states`` + IF97 ``expansion`` + offline decay), ``sensor_readings``
+(noise), ``inject_faults`` (``flatline``, ``spike_burst``, ``data_gap``), then
+``readings_frame``, ``state_frame`` and ``truth_record``. All draws come from one
+``numpy`` Generator in that order (the wander from its own), so a step must keep its draws
+and their order for the output to stay the same for a given seed.
+
+The plant around the unit (``SCENARIO``, ``TAG_MAP``, plant units, configuration text, the
+historian's deadbands) is ``isentrope.daemon.synthetic_plant``; this module re-exports it.
+
 This is demonstration data. Figures computed from it say nothing about any real machine.
 
 Regenerate from the command line: ``python -m isentrope.daemon.synthetic --days 30 -o DIR``.
@@ -59,32 +72,87 @@ import argparse
 import json
 import math
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from itertools import pairwise
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 from scipy.signal import lfilter
 
-from isentrope.daemon.roles import ROLES, RoleMapping
+from isentrope.daemon.roles import ROLES
+from isentrope.daemon.synthetic_plant import (
+    EXCEPTION_DEADBANDS,
+    INHG_KPA,
+    SCENARIO,
+    TAG_DESCRIPTIONS,
+    TAG_MAP,
+    config_toml,
+    exception_report,
+    internal_to_plant,
+    plant_to_internal,
+    role_mappings,
+    tag_map_toml,
+    to_plant_units,
+)
+
+# The public names: the generator here, and the fictional plant's identity and instrumentation
+# (isentrope.daemon.synthetic_plant), re-exported for the callers of this module.
+__all__ = [
+    "DEFAULT_SEED",
+    "DESIGN_CURVES",
+    "EXCEPTION_DEADBANDS",
+    "GENERATOR_VERSION",
+    "INHG_KPA",
+    "NOISE",
+    "RATING_MW",
+    "SCENARIO",
+    "TAG_DESCRIPTIONS",
+    "TAG_MAP",
+    "WANDER",
+    "Efficiencies",
+    "Faults",
+    "Operation",
+    "ScenarioSpec",
+    "Timeline",
+    "boundary_states",
+    "config_toml",
+    "data_gap",
+    "design_efficiency",
+    "dispatch",
+    "events_table",
+    "exception_report",
+    "expansion",
+    "flatline",
+    "generate",
+    "generate_from_spec",
+    "generate_with_state",
+    "inject_faults",
+    "internal_to_plant",
+    "load_profile",
+    "main",
+    "plant_to_internal",
+    "process_states",
+    "read_truth",
+    "readings_frame",
+    "role_mappings",
+    "sensor_readings",
+    "spike_burst",
+    "state_frame",
+    "tag_map_toml",
+    "timeline",
+    "to_plant_units",
+    "true_efficiencies",
+    "truth_record",
+    "write_truth",
+]
 
 GENERATOR_VERSION = 2
 MAX_ROWS = 6_000_000  # about 11 years at one minute; guards against runaway memory use
 DEFAULT_SEED = 20250101
 
-# --- the scenario (invented) ---------------------------------------------------------------
-SCENARIO = {
-    "plant": "Greywater Bend Station",
-    "unit": "Unit 2",
-    "description": (
-        "fictional 530 MW subcritical drum unit, single reheat, HP + IP + two double-flow LP "
-        "turbines, 60 Hz, 3600 rpm, throttle and hot reheat 538 degC"
-    ),
-    "rating_mw": 530.0,
-    "online_mw": 30.0,
-    "grid_hz": 60.0,
-}
-
+# --- the process (invented) ----------------------------------------------------------------
 RATING_MW = 530.0  # gross rating (invented)
 RATED_FLOW_KGS = 440.0  # main steam flow at rating, ~1584 t/h (invented)
 THROTTLE_P_RATED = 16.55  # MPa abs, 2400 psia (invented; a usual throttle pressure for this class)
@@ -216,163 +284,6 @@ OFFLINE = {
     "valve_position": (0.0, 0.0, 0.0),
 }
 
-# --- the plant's tag mapping (tag names invented) -------------------------------------------
-#: Role -> [roles.<role>] table of a TOML configuration: plant tag, plant unit, instrument
-#: range in the plant unit, and the instrument's standard uncertainty (pressure: percent of
-#: reading; temperature: K; power, flow: percent; valve position: percent points).
-TAG_MAP: dict[str, dict] = {
-    "throttle_p": {"tag": "GB2-MST-P01", "unit": "bar(g)", "range": [-1.0, 200.0], "uncertainty": 0.1},
-    "throttle_t": {"tag": "GB2-MST-T01", "unit": "degC", "range": [0.0, 650.0], "uncertainty": 0.5},
-    "cold_reheat_p": {"tag": "GB2-CRH-P01", "unit": "bar(g)", "range": [-1.0, 60.0], "uncertainty": 0.1},
-    "cold_reheat_t": {"tag": "GB2-CRH-T01", "unit": "degC", "range": [0.0, 500.0], "uncertainty": 0.5},
-    "hot_reheat_p": {"tag": "GB2-HRH-P01", "unit": "bar(g)", "range": [-1.0, 60.0], "uncertainty": 0.1},
-    "hot_reheat_t": {"tag": "GB2-HRH-T01", "unit": "degC", "range": [0.0, 650.0], "uncertainty": 0.5},
-    "crossover_p": {"tag": "GB2-XOV-P01", "unit": "kPa(a)", "range": [0.0, 1600.0], "uncertainty": 0.1},
-    "crossover_t": {"tag": "GB2-XOV-T01", "unit": "degC", "range": [0.0, 500.0], "uncertainty": 0.5},
-    "lp_extraction_p": {"tag": "GB2-LPX-P05", "unit": "kPa(a)", "range": [0.0, 400.0], "uncertainty": 0.1},
-    "lp_extraction_t": {"tag": "GB2-LPX-T05", "unit": "degC", "range": [0.0, 400.0], "uncertainty": 0.5},
-    "condenser_p": {"tag": "GB2-CND-P01", "unit": "inHgA", "range": [0.0, 31.0], "uncertainty": 0.5},
-    "gross_output": {"tag": "GB2-GEN-MW01", "unit": "MW", "range": [-10.0, 600.0], "uncertainty": 0.2},
-    "main_steam_flow": {"tag": "GB2-MST-F01", "unit": "t/h", "range": [-50.0, 2000.0], "uncertainty": 1.0},
-    "first_stage_p": {"tag": "GB2-FST-P01", "unit": "bar(g)", "range": [-1.0, 160.0], "uncertainty": 0.1},
-    "valve_position": {"tag": "GB2-HPV-Z01", "unit": "%", "range": [-5.0, 105.0], "uncertainty": 0.5},
-    "barometric_p": {"tag": "GB2-AMB-P01", "unit": "kPa(a)", "range": [85.0, 110.0], "uncertainty": 0.05},
-}
-
-#: Plain description of each tag, for the demo's tag list.
-TAG_DESCRIPTIONS = {role: ROLES[role][2] for role in TAG_MAP}
-
-# Internal -> plant conversion for the units used in TAG_MAP. Factors: 1 bar = 0.1 MPa and
-# 1 inHg (32 degF) = 3.38638 kPa (NIST SP 811, appendix B); 1 t/h = 1/3.6 kg/s.
-INHG_KPA = 3.38638
-_PLANT_UNITS = ("bar(g)", "kPa(a)", "inHgA", "degC", "MW", "t/h", "%")
-
-
-def internal_to_plant(values, unit: str, barometric_mpa=None):
-    """Convert internal-unit values (MPa abs, K, MW, kg/s, %) to the plant ``unit``.
-
-    Parameters
-    ----------
-    values : array_like
-        Values in internal units [MPa abs, K, MW, kg/s or %].
-    unit : str
-        Plant unit, one of ``bar(g)``, ``kPa(a)``, ``inHgA``, ``degC``, ``MW``, ``t/h``, ``%``.
-    barometric_mpa : array_like, optional
-        Barometric pressure for gauge units [MPa]; default 0.101325 MPa.
-    """
-    v = np.asarray(values, dtype=float)
-    baro = 0.101325 if barometric_mpa is None else np.asarray(barometric_mpa, dtype=float)
-    if unit == "bar(g)":
-        return (v - baro) * 10.0
-    if unit == "kPa(a)":
-        return v * 1000.0
-    if unit == "inHgA":
-        return v * 1000.0 / INHG_KPA
-    if unit == "degC":
-        return v - 273.15
-    if unit == "t/h":
-        return v * 3.6
-    if unit in ("MW", "%"):
-        return v.copy()
-    raise ValueError(f"unit {unit!r} is not one of the synthetic plant's units {_PLANT_UNITS}")
-
-
-def plant_to_internal(values, unit: str, barometric_mpa=None):
-    """Inverse of ``internal_to_plant`` (same parameters, plant unit in, internal unit out)."""
-    v = np.asarray(values, dtype=float)
-    baro = 0.101325 if barometric_mpa is None else np.asarray(barometric_mpa, dtype=float)
-    if unit == "bar(g)":
-        return v / 10.0 + baro
-    if unit == "kPa(a)":
-        return v / 1000.0
-    if unit == "inHgA":
-        return v * INHG_KPA / 1000.0
-    if unit == "degC":
-        return v + 273.15
-    if unit == "t/h":
-        return v / 3.6
-    if unit in ("MW", "%"):
-        return v.copy()
-    raise ValueError(f"unit {unit!r} is not one of the synthetic plant's units {_PLANT_UNITS}")
-
-
-def to_plant_units(frame: pd.DataFrame, tag_map: Mapping[str, Mapping] = TAG_MAP) -> pd.DataFrame:
-    """The role frame from ``generate`` converted to the plant units of ``tag_map``.
-
-    Columns stay role names (what ``Store.write_raw`` takes with ``role_mappings``). Gauge
-    pressures are referred to the frame's own ``barometric_p`` column when it has one.
-
-    Parameters
-    ----------
-    frame : DataFrame
-        Role columns in internal units [MPa abs, K, MW, kg/s, %].
-    tag_map : mapping
-        Role -> table with at least ``unit``; roles missing from it are left out.
-    """
-    baro = frame["barometric_p"].to_numpy() if "barometric_p" in frame else None
-    out = {}
-    for role in frame.columns:
-        if role not in tag_map:
-            continue
-        out[role] = internal_to_plant(frame[role].to_numpy(), tag_map[role]["unit"], baro)
-    return pd.DataFrame(out, index=frame.index)
-
-
-def role_mappings(tag_map: Mapping[str, Mapping] = TAG_MAP, measurement: str = "plant") -> list[RoleMapping]:
-    """``RoleMapping`` objects for ``tag_map`` (for ``Store.write_raw`` / ``Store.read``)."""
-    return [
-        RoleMapping(
-            role=role,
-            tag=entry["tag"],
-            unit=entry["unit"],
-            measurement=measurement,
-            range=tuple(entry["range"]) if entry.get("range") is not None else None,
-        )
-        for role, entry in tag_map.items()
-    ]
-
-
-def tag_map_toml(tag_map: Mapping[str, Mapping] = TAG_MAP) -> str:
-    """``tag_map`` as ``[roles.<role>]`` tables of TOML text (values are plain strings/numbers)."""
-    lines = []
-    for role, entry in tag_map.items():
-        lines.append(f"[roles.{role}]")
-        lines.append(f"# {TAG_DESCRIPTIONS.get(role, ROLES.get(role, ('', '', ''))[2])}")
-        for key, value in entry.items():
-            if isinstance(value, str):
-                lines.append(f"{key} = {json.dumps(value)}")
-            elif isinstance(value, (list, tuple)):
-                lines.append(f"{key} = [{', '.join(repr(float(x)) for x in value)}]")
-            else:
-                lines.append(f"{key} = {value!r}")
-        lines.append("")
-    return "\n".join(lines)
-
-
-def config_toml(store_path: str = "greywater2.sqlite", tag_map: Mapping[str, Mapping] = TAG_MAP) -> str:
-    """A complete configuration of the synthetic unit (``[unit]``, SQLite ``[store]``, roles).
-
-    Every option not written here takes its documented default (deploy/example.toml).
-    """
-    head = [
-        "# Greywater Bend Station, Unit 2: a fictional unit (isentrope.daemon.synthetic).",
-        "# Demonstration data only. isentrope gives advisory performance information, not a",
-        "# protective function; the turbine maker's limits, local codes and licensed",
-        "# engineering practice take precedence.",
-        "",
-        "[unit]",
-        f"name = {json.dumps(SCENARIO['plant'].replace(' Station', '') + ' ' + SCENARIO['unit'].split()[-1])}",
-        f"plant = {json.dumps(SCENARIO['plant'])}",
-        f"rating_mw = {SCENARIO['rating_mw']!r}",
-        f"online_mw = {SCENARIO['online_mw']!r}",
-        "",
-        "[store]",
-        'kind = "sqlite"',
-        f"path = {json.dumps(store_path)}",
-        "",
-    ]
-    return "\n".join(head) + "\n" + tag_map_toml(tag_map)
-
 
 # --- helpers --------------------------------------------------------------------------------
 def design_efficiency(section: str, load_fraction):
@@ -448,6 +359,663 @@ def _auto_events(start: pd.Timestamp, days: float) -> dict:
     }
 
 
+# --- the scenario spec ----------------------------------------------------------------------
+@dataclass(frozen=True)
+class ScenarioSpec:
+    """What to generate: span, sampling, seed, noise, the injected losses and the events.
+
+    The defaults are those of ``generate_with_state``, whose docstring gives every field's
+    meaning and unit. Times take anything ``pandas.Timestamp`` takes (naive means UTC);
+    ``"auto"`` places an event at a fixed fraction of the span (``_auto_events``), None leaves
+    it out.
+    """
+
+    start: Any = "2025-01-01"
+    days: float = 365
+    freq: str = "1min"
+    seed: int = DEFAULT_SEED
+    noise: float = 1.0
+    faults: bool = True
+    hp_rate: float = HP_RATE_POINTS_PER_1000H
+    ip_step: float = IP_STEP_POINTS
+    initial_hours: float = 0.0
+    wander: float = 1.0
+    shutdowns: Any = "auto"
+    trip_at: Any = "auto"
+    trip_hours: float = 7.0
+    flatline_at: Any = "auto"
+    flatline_role: str = "cold_reheat_t"
+    flatline_days: float = 2.0
+    gap_at: Any = "auto"
+    gap_hours: float = 12.0
+    spike_at: Any = "auto"
+    spike_role: str = "throttle_p"
+    spike_minutes: int = 15
+
+
+@dataclass(frozen=True)
+class Timeline:
+    """A spec placed on its sample grid: the index and the events, in minutes since start.
+
+    ``outages`` are ``(off, on, kind)`` [min], sorted, kind "shutdown" or "trip"; ``trip``,
+    ``flatline``, ``gap`` and ``spike`` are the resolved start times (None: left out), with
+    the fault durations after the short-span shortening of automatically placed faults.
+    """
+
+    start: pd.Timestamp
+    step: pd.Timedelta
+    step_min: float
+    index: pd.DatetimeIndex
+    tmin: np.ndarray
+    outages: list
+    trip: Any
+    flatline: Any
+    flatline_days: float
+    gap: Any
+    gap_hours: float
+    spike: Any
+
+    @property
+    def n(self) -> int:
+        return len(self.index)
+
+
+@dataclass(frozen=True)
+class Operation:
+    """How the unit ran: ``load`` [fraction of rating, 0 offline], ``online`` (bool) and
+    ``warm_min``, minutes since the last synchronisation (inf before the first) [min]."""
+
+    load: np.ndarray
+    online: np.ndarray
+    warm_min: np.ndarray
+
+
+@dataclass(frozen=True)
+class Efficiencies:
+    """The true section efficiencies [fractions] and what follows from them.
+
+    ``wander`` is the slow wander in each [points]; ``flow_fraction`` the main steam flow
+    [fraction of rated] that holds the output with the losses; ``ip_step_time`` the first
+    online sample after the rub (None without one).
+    """
+
+    operating_hours: np.ndarray
+    eta_hp: np.ndarray
+    eta_ip: np.ndarray
+    eta_lp: np.ndarray
+    wander: dict
+    flow_fraction: np.ndarray
+    ip_step_time: Any
+
+
+@dataclass(frozen=True)
+class Faults:
+    """``measured`` with the faults written in, ``in_gap`` (rows the gap removes) and
+    ``record`` (the truth entries "flatline", "spike", "gap" of the faults injected)."""
+
+    measured: dict
+    in_gap: np.ndarray
+    record: dict
+
+
+def _is_auto(value) -> bool:
+    return isinstance(value, str) and value == "auto"
+
+
+# --- the steps of the generation --------------------------------------------------------------
+def timeline(spec: ScenarioSpec) -> Timeline:
+    """Check ``spec`` and place it on its grid: index, automatic events, outages."""
+    start = _ts(spec.start)
+    step = pd.Timedelta(spec.freq)
+    days = spec.days
+    if not pd.Timedelta(seconds=1) <= step <= pd.Timedelta(hours=1):
+        raise ValueError(f"freq {spec.freq!r} is outside the valid range 1s to 1h")
+    if not days > 0:
+        raise ValueError(f"days must be positive, found {days!r}")
+    for role in (spec.flatline_role, spec.spike_role):
+        if role not in TAG_MAP:
+            raise ValueError(f"role {role!r} is not one of {sorted(TAG_MAP)}")
+    step_min = step.total_seconds() / 60.0
+    n = int(round(days * 1440.0 / step_min))
+    if not 2 <= n <= MAX_ROWS:
+        raise ValueError(
+            f"days={days!r} at freq={spec.freq!r} gives {n} rows; valid: 2 to {MAX_ROWS} "
+            "(use a coarser freq or a shorter span)"
+        )
+    index = pd.date_range(start, periods=n, freq=step, name="time")
+    end = start + n * step
+    tmin = np.arange(n) * step_min  # minutes since start
+
+    auto = _auto_events(start, days)
+    shutdown_list = auto["shutdowns"] if _is_auto(spec.shutdowns) else list(spec.shutdowns or [])
+    trip = auto["trip_at"] if _is_auto(spec.trip_at) else spec.trip_at
+    flat = auto["flatline_at"] if _is_auto(spec.flatline_at) else spec.flatline_at
+    gap = auto["gap_at"] if _is_auto(spec.gap_at) else spec.gap_at
+    spike = auto["spike_at"] if _is_auto(spec.spike_at) else spec.spike_at
+    flatline_days, gap_hours = spec.flatline_days, spec.gap_hours
+    if days < 10:  # short spans: shorten the automatically placed faults so they fit
+        if _is_auto(spec.flatline_at):
+            flatline_days = min(flatline_days, 0.2 * days)
+        if _is_auto(spec.gap_at):
+            gap_hours = min(gap_hours, 2.4 * days)
+    if not spec.faults:
+        flat = gap = spike = None
+
+    def minute(t) -> float:
+        return (_ts(t) - start).total_seconds() / 60.0
+
+    # Outages: (off, on, kind), in minutes since start.
+    outages = [(minute(t), minute(t) + 60.0 * h, "shutdown") for t, h in shutdown_list]
+    if trip is not None:
+        outages.append((minute(trip), minute(trip) + 60.0 * spec.trip_hours, "trip"))
+    outages.sort()
+    for (_, a1, ka), (b0, _, kb) in pairwise(outages):
+        if b0 < a1 + 240.0:
+            raise ValueError(
+                f"{kb} at minute {b0:.0f} starts before the {ka} ending at minute {a1:.0f} "
+                "is over (allow 4 h between them)"
+            )
+    for off, _, kind in outages:
+        if not 0.0 < off < tmin[-1]:
+            raise ValueError(
+                f"{kind} at {_iso(start + pd.Timedelta(minutes=off))} is outside the "
+                f"history {_iso(start)} to {_iso(end)}"
+            )
+    return Timeline(
+        start, step, step_min, index, tmin, outages, trip, flat, flatline_days, gap, gap_hours, spike
+    )
+
+
+def dispatch(tl: Timeline, rng: np.random.Generator) -> np.ndarray:
+    """The dispatched load [fraction of rating] on every row, before outages and AGC wander.
+
+    Hourly setpoints (weekday/weekend pattern, season, day-to-day and hourly draws from
+    ``rng``), quantised and held on small changes, joined by ramps of ``RAMP_PER_MIN``.
+    """
+    start, n, step_min = tl.start, tl.n, tl.step_min
+    n_hours = int(math.ceil(n * step_min / 60.0)) + 1
+    hours = pd.date_range(start.floor("h"), periods=n_hours, freq="h")
+    doy = hours.day_of_year.to_numpy()
+    weekend = hours.day_of_week.to_numpy() >= 5
+    hod = hours.hour.to_numpy()
+    base = np.where(weekend, WEEKEND_PATTERN[hod], WEEKDAY_PATTERN[hod])
+    summer = np.cos(2 * np.pi * (doy - 200) / 365.25)  # +1 in mid-July
+    day_index = (hours - start.floor("h")).days.to_numpy()
+    day_offset = rng.normal(0.0, 0.03, day_index.max() + 1)[day_index]
+    target = base + 0.04 * summer * (hod >= 8) + day_offset + rng.normal(0.0, 0.015, n_hours)
+    target = np.clip(np.round(target / 0.025) * 0.025, MIN_DISPATCH, 1.0)
+    setpoint = target.copy()
+    for k in range(1, n_hours):  # hold small changes: long plateaus
+        setpoint[k] = setpoint[k - 1] if abs(target[k] - setpoint[k - 1]) < 0.03 else target[k]
+    hour_min = (hours - start).total_seconds().to_numpy() / 60.0
+    ramp = np.abs(np.diff(setpoint)) / RAMP_PER_MIN
+    knot_t = np.empty(2 * n_hours - 1)
+    knot_v = np.empty(2 * n_hours - 1)
+    knot_t[0], knot_v[0] = hour_min[0], setpoint[0]
+    knot_t[1::2], knot_v[1::2] = hour_min[1:], setpoint[:-1]
+    knot_t[2::2], knot_v[2::2] = hour_min[1:] + ramp, setpoint[1:]
+    return np.interp(tl.tmin, knot_t, knot_v)
+
+
+def load_profile(tl: Timeline, rng: np.random.Generator) -> Operation:
+    """Dispatch, outages (ramp-down, offline, synchronising and loading curve) and AGC wander."""
+    n, tmin = tl.n, tl.tmin
+    load = dispatch(tl, rng)
+    online = np.ones(n, dtype=bool)
+    warm_min = np.full(n, np.inf)  # minutes since the last synchronisation
+    for off, on, kind in tl.outages:
+        if kind == "shutdown":
+            near = (tmin < off) & (tmin > off - 300.0)
+            load[near] = np.minimum(load[near], 0.10 + (off - tmin[near]) * 0.008)
+        online[(tmin >= off) & (tmin < on)] = False
+        after = tmin >= on
+        tau = tmin[after] - on
+        curve = np.where(
+            tau < 30.0,
+            SYNC_LOAD,
+            np.where(
+                tau < 90.0,
+                SYNC_LOAD + (tau - 30.0) / 60.0 * (MIN_DISPATCH - SYNC_LOAD),
+                np.where(tau < 150.0, MIN_DISPATCH, MIN_DISPATCH + (tau - 150.0) * 0.01),
+            ),
+        )
+        load[after] = np.minimum(load[after], curve)
+        warm_min[after] = np.minimum(warm_min[after], tau)
+    load = np.clip(load + _ar1(rng, n, 0.002, 4.0 / tl.step_min), 0.05, 1.02)
+    load[~online] = 0.0
+    return Operation(load, online, warm_min)
+
+
+def true_efficiencies(spec: ScenarioSpec, tl: Timeline, op: Operation) -> Efficiencies:
+    """Design curves, HP loss per operating hour, IP step after the trip and the wander.
+
+    The wander draws from its own generator (seed ``[seed, 1]``), so the other draws do not
+    change with it.
+    """
+    n, step_min, tmin = tl.n, tl.step_min, tl.tmin
+    load, online = op.load, op.online
+    op_hours = spec.initial_hours + np.cumsum(online) * step_min / 60.0
+    counted = op_hours - spec.initial_hours
+    eta_hp = design_efficiency("hp", load) + spec.hp_rate / 100.0 * counted / 1000.0
+    eta_ip = design_efficiency("ip", load)
+    eta_lp = design_efficiency("lp", load)
+    ip_step_time = None
+    if tl.trip is not None:
+        trip_on = next(on for off, on, kind in tl.outages if kind == "trip")
+        after_rub = tmin >= trip_on
+        eta_ip = eta_ip + np.where(after_rub, spec.ip_step / 100.0, 0.0)
+        if after_rub.any():
+            ip_step_time = tl.index[np.argmax(after_rub & online)]
+    wander_rng = np.random.default_rng([int(spec.seed), 1])
+    wander_pts = {
+        sec: spec.wander * _ar1(wander_rng, n, WANDER["sd_points"], WANDER["tau_hours"] * 60.0 / step_min)
+        for sec in ("hp", "ip", "lp")
+    }
+    eta_hp = eta_hp + wander_pts["hp"] / 100.0
+    eta_ip = eta_ip + wander_pts["ip"] / 100.0
+    eta_lp = eta_lp + wander_pts["lp"] / 100.0
+    hp_loss_pts = -spec.hp_rate * counted / 1000.0
+    ip_loss_pts = np.where(after_rub, -spec.ip_step, 0.0) if tl.trip is not None else 0.0
+    flow_frac = (FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * load) * (
+        1.0 + FLOW_PER_POINT["hp"] * hp_loss_pts + FLOW_PER_POINT["ip"] * ip_loss_pts
+    )
+    return Efficiencies(op_hours, eta_hp, eta_ip, eta_lp, wander_pts, flow_frac, ip_step_time)
+
+
+def process_states(tl: Timeline, op: Operation, eff: Efficiencies, rng: np.random.Generator) -> dict:
+    """True pressures, inlet temperatures, output, flow and valve position [internal units].
+
+    Keys are roles; the section outlet temperatures come from ``expansion``. Draws from
+    ``rng`` in a fixed order: barometric, throttle pressure, condenser, throttle and hot
+    reheat temperature.
+    """
+    n, step_min, index = tl.n, tl.step_min, tl.index
+    load, warm_min, flow_frac = op.load, op.warm_min, eff.flow_fraction
+    baro = 0.1006 + _ar1(rng, n, 0.0007, 2880.0 / step_min)
+    flow_at_slide = FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * SLIDING_BELOW
+    p_slide = THROTTLE_P_RATED * flow_frac / flow_at_slide
+    p_thr = np.clip(p_slide, THROTTLE_P_MIN, THROTTLE_P_RATED)
+    p_thr = p_thr * (1.0 + _ar1(rng, n, 0.001, 10.0 / step_min))
+    valve = np.where(
+        load >= SLIDING_BELOW,
+        62.0 + (load - SLIDING_BELOW) / (1.0 - SLIDING_BELOW) * 33.0,
+        62.0 * np.minimum(1.0, p_slide / THROTTLE_P_MIN),
+    )
+    p_crh = COLD_REHEAT_P_RATED * flow_frac
+    hour_of_day = index.hour.to_numpy() + index.minute.to_numpy() / 60.0
+    doy_min = index.day_of_year.to_numpy() + hour_of_day / 24.0
+    p_cond_kpa = (
+        6.0
+        + 2.5 * np.cos(2 * np.pi * (doy_min - 205.0) / 365.25)
+        + 0.3 * np.cos(2 * np.pi * (hour_of_day - 15.0) / 24.0)
+    )
+    p_cond_kpa = p_cond_kpa * (0.55 + 0.45 * load) + _ar1(rng, n, 0.1, 360.0 / step_min)
+
+    t_thr_set = STEAM_T_SET - np.clip(0.40 - load, 0.0, None) / 0.32 * 40.0
+    t_hrh_set = STEAM_T_SET - np.clip(0.60 - load, 0.0, None) / 0.52 * 50.0
+    t_thr = np.minimum(t_thr_set, 440.0 + 273.15 + 100.0 * warm_min / 240.0)
+    t_hrh = np.minimum(t_hrh_set, 420.0 + 273.15 + 120.0 * warm_min / 240.0)
+    t_thr = t_thr + _ar1(rng, n, 1.0, 20.0 / step_min)
+    t_hrh = t_hrh + _ar1(rng, n, 1.2, 20.0 / step_min)
+    return {
+        "throttle_p": p_thr,
+        "throttle_t": t_thr,
+        "cold_reheat_p": p_crh,
+        "hot_reheat_p": (1.0 - REHEATER_DROP) * p_crh,
+        "hot_reheat_t": t_hrh,
+        "crossover_p": CROSSOVER_P_RATED * flow_frac,
+        "lp_extraction_p": LP_EXTRACTION_P_RATED * flow_frac,
+        "condenser_p": np.maximum(p_cond_kpa, 2.5) / 1000.0,
+        "gross_output": RATING_MW * load,
+        "main_steam_flow": RATED_FLOW_KGS * flow_frac,
+        "first_stage_p": FIRST_STAGE_P_RATED * flow_frac,
+        "valve_position": valve,
+        "barometric_p": baro,
+    }
+
+
+def expansion(process: Mapping[str, np.ndarray], eff: Efficiencies, online: np.ndarray) -> dict:
+    """Outlet temperatures of the HP, IP and LP dry group from the true efficiencies (IF97).
+
+    ``h_out = h_in - eta (h_in - h(p_out, s_in))``, ``T_out = T(p_out, h_out)`` on the online
+    rows; NaN offline. Returns ``cold_reheat_t``, ``crossover_t``, ``lp_extraction_t`` [K].
+    """
+    steam = _steam()
+    on = online
+    p_thr, t_thr = process["throttle_p"], process["throttle_t"]
+    p_crh, p_hrh, t_hrh = process["cold_reheat_p"], process["hot_reheat_p"], process["hot_reheat_t"]
+    p_xo, p_ext = process["crossover_p"], process["lp_extraction_p"]
+    h1 = steam.h_pt(p_thr[on], t_thr[on])
+    s1 = steam.s_pt(p_thr[on], t_thr[on])
+    h2 = h1 - eff.eta_hp[on] * (h1 - steam.h_ps(p_crh[on], s1))
+    t_crh_on = steam.t_ph(p_crh[on], h2)
+    h3 = steam.h_pt(p_hrh[on], t_hrh[on])
+    s3 = steam.s_pt(p_hrh[on], t_hrh[on])
+    h4 = h3 - eff.eta_ip[on] * (h3 - steam.h_ps(p_xo[on], s3))
+    t_xo_on = steam.t_ph(p_xo[on], h4)
+    s4 = steam.s_pt(p_xo[on], t_xo_on)
+    h5 = h4 - eff.eta_lp[on] * (h4 - steam.h_ps(p_ext[on], s4))
+    t_ext_on = steam.t_ph(p_ext[on], h5)
+    for name, arr in (("cold reheat", t_crh_on), ("crossover", t_xo_on), ("LP extraction", t_ext_on)):
+        bad = ~np.isfinite(arr)
+        if bad.any():
+            raise RuntimeError(
+                f"steam properties failed for {bad.sum()} {name} points; "
+                "the scenario left the range of isentrope.calc.steam"
+            )
+    out = {}
+    for role, arr in (("cold_reheat_t", t_crh_on), ("crossover_t", t_xo_on), ("lp_extraction_t", t_ext_on)):
+        out[role] = np.full(len(on), np.nan)
+        out[role][on] = arr
+    return out
+
+
+def _fill_offline(true: dict, online: np.ndarray, tmin: np.ndarray, baro: np.ndarray) -> None:
+    """Offline readings: decay from the last online value, return before the next start-up."""
+    if online.all():
+        return
+    n = len(online)
+    idx = np.arange(n)
+    last_on = np.maximum.accumulate(np.where(online, idx, -1))
+    next_on = np.minimum.accumulate(np.where(online, idx, n)[::-1])[::-1]
+    off = ~online
+    lo, nx = last_on[off], next_on[off]
+    t = tmin[off]
+    for role, (ambient, tau, blend_min) in OFFLINE.items():
+        x = true[role]
+        amb = baro[off] if ambient is None else np.full(off.sum(), ambient)
+        v_last = np.where(lo >= 0, x[np.maximum(lo, 0)], amb)
+        dt = t - tmin[np.maximum(lo, 0)]
+        decayed = amb + (v_last - amb) * (np.exp(-dt / tau) if tau > 0 else 0.0)
+        if blend_min > 0:
+            has_next = nx < n
+            v_next = np.where(has_next, x[np.minimum(nx, n - 1)], decayed)
+            to_go = np.where(has_next, tmin[np.minimum(nx, n - 1)] - t, np.inf)
+            w = np.clip(1.0 - to_go / blend_min, 0.0, 1.0)
+            decayed = (1.0 - w) * decayed + w * v_next
+        x[off] = decayed
+
+
+def boundary_states(tl: Timeline, op: Operation, eff: Efficiencies, rng: np.random.Generator) -> dict:
+    """The true (noise-free, fault-free) value of every role on every row [internal units].
+
+    ``process_states`` and ``expansion`` online; offline, readings decay towards ambient and
+    return before the next start-up (``OFFLINE``). Keys in ``TAG_MAP`` order.
+    """
+    process = process_states(tl, op, eff, rng)
+    outlets = expansion(process, eff, op.online)
+    true = {role: process[role] if role in process else outlets[role] for role in TAG_MAP}
+    _fill_offline(true, op.online, tl.tmin, process["barometric_p"])
+    return true
+
+
+def sensor_readings(true: Mapping[str, np.ndarray], rng: np.random.Generator, noise: float = 1.0) -> dict:
+    """``true`` plus sensor noise (``NOISE`` scaled by ``noise``), one draw per role in
+    ``TAG_MAP`` order so that the draws stay reproducible."""
+    measured = {}
+    for role in TAG_MAP:
+        x = true[role]
+        quantity = ROLES[role][0]
+        z = rng.standard_normal(len(x)) * noise
+        if role == "condenser_p":
+            sd = NOISE["condenser_abs_mpa"] + NOISE["condenser_rel"] * x
+        elif role == "barometric_p":
+            sd = NOISE["barometric_abs_mpa"]
+        elif quantity == "pressure":
+            sd = NOISE["pressure_rel"] * x
+        elif quantity == "temperature":
+            sd = NOISE["temperature_k"]
+        elif quantity == "power":
+            sd = NOISE["output_abs_mw"] + NOISE["output_rel"] * np.abs(x)
+        elif quantity == "flow":
+            sd = NOISE["flow_abs_kgs"] + NOISE["flow_rel"] * x
+        else:
+            sd = NOISE["valve_abs"]
+        measured[role] = x + sd * z
+    return measured
+
+
+def flatline(measured: dict, tl: Timeline, role: str) -> dict:
+    """Hold ``role`` at its last reading from ``tl.flatline`` for ``tl.flatline_days``, in
+    its plant unit (a frozen gauge transmitter stays frozen). Writes into ``measured[role]``;
+    returns the truth entry."""
+    index, n = tl.index, tl.n
+    f0, f1 = _ts(tl.flatline), _ts(tl.flatline) + _dur(days=tl.flatline_days)
+    i0, i1 = index.searchsorted(f0), index.searchsorted(f1)
+    if not 0 < i0 < i1 <= n:
+        raise ValueError(f"flatline {_iso(f0)} to {_iso(f1)} is outside the history")
+    unit = TAG_MAP[role]["unit"]
+    plant = internal_to_plant(measured[role], unit, measured["barometric_p"])
+    held = float(plant[i0 - 1])
+    measured[role][i0:i1] = plant_to_internal(held, unit, measured["barometric_p"][i0:i1])
+    return {
+        "role": role,
+        "tag": TAG_MAP[role]["tag"],
+        "start": _iso(index[i0]),
+        "end": _iso(f1),
+        "held_value": held,
+        "held_unit": unit,
+    }
+
+
+def spike_burst(measured: dict, tl: Timeline, role: str, minutes: float) -> dict:
+    """Readings of ``role`` outside its instrument range (high, low, normal, repeated) for
+    ``minutes`` from ``tl.spike``. Writes into ``measured[role]``; returns the truth entry."""
+    index, n = tl.index, tl.n
+    s0 = _ts(tl.spike)
+    i0 = index.searchsorted(s0)
+    i1 = min(n, index.searchsorted(s0 + _dur(minutes=minutes)))
+    if not 0 <= i0 < i1:
+        raise ValueError(f"spike burst at {_iso(s0)} is outside the history")
+    unit = TAG_MAP[role]["unit"]
+    lo, hi = TAG_MAP[role]["range"]
+    span = hi - lo
+    k = np.arange(i1 - i0)
+    pattern = np.where(k % 3 == 0, hi + 0.2 * span, np.where(k % 3 == 1, lo - 0.05 * span, np.nan))
+    rows = i0 + k[np.isfinite(pattern)]
+    measured[role][rows] = plant_to_internal(
+        pattern[np.isfinite(pattern)], unit, measured["barometric_p"][rows]
+    )
+    return {
+        "role": role,
+        "tag": TAG_MAP[role]["tag"],
+        "start": _iso(index[i0]),
+        "end": _iso(index[i1 - 1] + tl.step),
+        "samples": int(len(rows)),
+        "high_value": hi + 0.2 * span,
+        "low_value": lo - 0.05 * span,
+        "unit": unit,
+        "range": [lo, hi],
+    }
+
+
+def data_gap(tl: Timeline, placed: Mapping[str, Mapping]) -> tuple[np.ndarray, dict]:
+    """Rows absent from ``tl.gap`` for ``tl.gap_hours``: the mask and the truth entry.
+
+    ``placed`` holds the other faults' truth entries; the gap must not overlap them.
+    """
+    index, n = tl.index, tl.n
+    in_gap = np.zeros(n, dtype=bool)
+    g0, g1 = _ts(tl.gap), _ts(tl.gap) + _dur(hours=tl.gap_hours)
+    i0, i1 = index.searchsorted(g0), index.searchsorted(g1)
+    if not 0 < i0 < i1 <= n:
+        raise ValueError(f"data gap {_iso(g0)} to {_iso(g1)} is outside the history")
+    in_gap[i0:i1] = True
+    for kind in ("flatline", "spike"):
+        fault = placed.get(kind)
+        if fault and pd.Timestamp(fault["start"]) < g1 and g0 < pd.Timestamp(fault["end"]):
+            raise ValueError(
+                f"data gap {_iso(g0)} to {_iso(g1)} overlaps the {kind} "
+                f"{fault['start']} to {fault['end']}; place them apart"
+            )
+    return in_gap, {
+        "start": _iso(index[i0]),
+        "end": _iso(g1),
+        "rows": "absent",
+        "missing_samples": int(i1 - i0),
+    }
+
+
+def inject_faults(spec: ScenarioSpec, tl: Timeline, measured: Mapping[str, np.ndarray]) -> Faults:
+    """The flatline, the spike burst and the data gap of ``tl`` (each only when placed).
+
+    ``measured`` is not changed: the faulted roles are copied. (The trip is an outage, in
+    ``load_profile``; its IP step in ``true_efficiencies``.)
+    """
+    out = dict(measured)
+    record = {}
+    if tl.flatline is not None:
+        out[spec.flatline_role] = out[spec.flatline_role].copy()
+        record["flatline"] = flatline(out, tl, spec.flatline_role)
+    if tl.spike is not None:
+        out[spec.spike_role] = out[spec.spike_role].copy()
+        record["spike"] = spike_burst(out, tl, spec.spike_role, spec.spike_minutes)
+    in_gap = np.zeros(tl.n, dtype=bool)
+    if tl.gap is not None:
+        in_gap, record["gap"] = data_gap(tl, record)
+    return Faults(out, in_gap, record)
+
+
+def readings_frame(tl: Timeline, measured: Mapping[str, np.ndarray], in_gap: np.ndarray) -> pd.DataFrame:
+    """The output frame: one column per role (``ROLES`` order), the gap's rows left out."""
+    kept = np.flatnonzero(~in_gap)
+    values = np.empty((len(kept), len(ROLES)))  # one block: no copy when the frame is built
+    for j, role in enumerate(ROLES):
+        np.take(measured[role], kept, out=values[:, j])
+    return pd.DataFrame(values, index=tl.index[kept], columns=list(ROLES), copy=False)
+
+
+def state_frame(
+    tl: Timeline,
+    op: Operation,
+    eff: Efficiencies,
+    in_gap: np.ndarray,
+    true: Mapping[str, np.ndarray] | None = None,
+) -> pd.DataFrame:
+    """The state behind the readings on the full index (see ``generate_with_state``);
+    ``true_<role>`` columns only when ``true`` is given."""
+    columns = {
+        "online": op.online,
+        "load_fraction": op.load,
+        "operating_hours": eff.operating_hours,
+        "eta_hp": eff.eta_hp,
+        "eta_ip": eff.eta_ip,
+        "eta_lp": eff.eta_lp,
+        "wander_hp": eff.wander["hp"],
+        "wander_ip": eff.wander["ip"],
+        "wander_lp": eff.wander["lp"],
+        "in_gap": in_gap,
+    }
+    if true is not None:
+        columns.update({f"true_{role}": true[role] for role in ROLES})
+    return pd.DataFrame(columns, index=tl.index)
+
+
+def truth_record(
+    spec: ScenarioSpec, tl: Timeline, op: Operation, eff: Efficiencies, state: pd.DataFrame, faults: Mapping
+) -> dict:
+    """The JSON-serialisable record of what was injected (see fixtures/README.md)."""
+    start, index, step = tl.start, tl.index, tl.step
+    hp_rate, initial_hours = spec.hp_rate, spec.initial_hours
+    step_h = step.total_seconds() / 3600.0
+    events = []
+    for off, on, kind in tl.outages:
+        t_off = start + pd.Timedelta(minutes=off)
+        t_on = start + pd.Timedelta(minutes=on)
+        if t_on > index[-1]:
+            t_on = None
+        events.append(
+            {
+                "kind": kind,
+                "offline": _iso(t_off),
+                "online": _iso(t_on) if t_on is not None else None,
+                "hours": round((on - off) / 60.0, 3),
+            }
+        )
+    part = state[["eta_hp", "eta_ip", "eta_lp", "load_fraction"]]
+    daily = part[state["online"].to_numpy()].resample("1D").mean()
+    hours_end = state["operating_hours"].resample("1D").last()
+    at_rating_hp = DESIGN_CURVES["hp"]["at_rating"] + hp_rate / 100.0 * (hours_end - initial_hours) / 1000.0
+
+    def series(s):
+        return [None if not np.isfinite(v) else round(float(v), 6) for v in s.to_numpy()]
+
+    return {
+        "scenario": dict(SCENARIO),
+        "generator": {
+            "module": "isentrope.daemon.synthetic",
+            "version": GENERATOR_VERSION,
+            "start": _iso(start),
+            "end": _iso(index[-1] + step),
+            "days": spec.days,
+            "freq": spec.freq,
+            "seed": spec.seed,
+            "noise_scale": spec.noise,
+            "samples": int(len(index)),
+        },
+        "units": "internal: MPa absolute, K, MW, kg/s, percent; efficiencies as fractions; "
+        "efficiency changes in percentage points",
+        "design_curves": {
+            k: dict(v, form="at_rating - droop * (1 - load_fraction)**2") for k, v in DESIGN_CURVES.items()
+        },
+        "hp": {
+            "rate_points_per_1000h": hp_rate,
+            "initial_hours": initial_hours,
+            "form": "design_hp(load) + rate/100 * (operating_hours - initial_hours)/1000",
+            "at_rating_start": round(float(at_rating_hp.iloc[0]), 6),
+            "at_rating_end": round(float(at_rating_hp.iloc[-1]), 6),
+        },
+        "ip": {
+            "step_points": spec.ip_step if tl.trip is not None else 0.0,
+            "step_time": _iso(eff.ip_step_time) if eff.ip_step_time is not None else None,
+            "cause": "rub at the trip; applies from the restart after the trip",
+        },
+        "lp": {"form": "design_lp(load), no change over the history"},
+        "trip": (
+            {"time": _iso(_ts(tl.trip)), "restart": next(e["online"] for e in events if e["kind"] == "trip")}
+            if tl.trip is not None
+            else None
+        ),
+        "outages": events,
+        "startups": [e["online"] for e in events if e["online"] is not None],
+        "shutdowns": [e["offline"] for e in events],
+        "flatline": faults.get("flatline"),
+        "gap": faults.get("gap"),
+        "spike": faults.get("spike"),
+        "operating_hours": round(float(op.online.sum() * step_h), 3),
+        "online_fraction": round(float(op.online.mean()), 6),
+        "noise_sd": dict(NOISE),
+        "wander": dict(WANDER, scale=spec.wander),
+        "efficiency_daily": {
+            "date": [d.strftime("%Y-%m-%d") for d in daily.index],
+            "eta_hp_mean": series(daily["eta_hp"]),
+            "eta_ip_mean": series(daily["eta_ip"]),
+            "eta_lp_mean": series(daily["eta_lp"]),
+            "load_fraction_mean": series(daily["load_fraction"]),
+            "eta_hp_at_rating_end_of_day": series(at_rating_hp.reindex(daily.index)),
+        },
+        "caution": "invented demonstration data for a fictional unit; advisory performance "
+        "information only, not a protective function",
+    }
+
+
+def generate_from_spec(
+    spec: ScenarioSpec, *, full_state: bool = True
+) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
+    """Run the steps for ``spec``: frame, truth and state as ``generate_with_state`` returns
+    them (``true_<role>`` state columns only with ``full_state``)."""
+    tl = timeline(spec)
+    rng = np.random.default_rng(spec.seed)  # one stream, drawn in the order of the steps
+    op = load_profile(tl, rng)
+    eff = true_efficiencies(spec, tl, op)
+    true = boundary_states(tl, op, eff, rng)
+    measured = sensor_readings(true, rng, spec.noise)
+    faults = inject_faults(spec, tl, measured)
+    frame = readings_frame(tl, faults.measured, faults.in_gap)
+    state = state_frame(tl, op, eff, faults.in_gap, true if full_state else None)
+    return frame, truth_record(spec, tl, op, eff, state, faults.record), state
+
+
 # --- the generator --------------------------------------------------------------------------
 def generate(
     start="2025-01-01",
@@ -510,6 +1078,8 @@ def generate_with_state(
 ) -> tuple[pd.DataFrame, dict, pd.DataFrame]:
     """Like ``generate``, and also the noise-free state behind the readings.
 
+    Builds a ``ScenarioSpec`` from the arguments and runs ``generate_from_spec``.
+
     Parameters
     ----------
     noise : float
@@ -547,478 +1117,30 @@ def generate_with_state(
         ``wander_hp``, ``wander_ip``, ``wander_lp`` (the wander in them [points]), ``in_gap`` and
         ``true_<role>`` for every role (noise-free, fault-free, internal units).
     """
-    start = _ts(start)
-    step = pd.Timedelta(freq)
-    if not pd.Timedelta(seconds=1) <= step <= pd.Timedelta(hours=1):
-        raise ValueError(f"freq {freq!r} is outside the valid range 1s to 1h")
-    if not days > 0:
-        raise ValueError(f"days must be positive, found {days!r}")
-    for role in (flatline_role, spike_role):
-        if role not in TAG_MAP:
-            raise ValueError(f"role {role!r} is not one of {sorted(TAG_MAP)}")
-    step_min = step.total_seconds() / 60.0
-    n = int(round(days * 1440.0 / step_min))
-    if not 2 <= n <= MAX_ROWS:
-        raise ValueError(
-            f"days={days!r} at freq={freq!r} gives {n} rows; valid: 2 to {MAX_ROWS} "
-            "(use a coarser freq or a shorter span)"
-        )
-    index = pd.date_range(start, periods=n, freq=step, name="time")
-    end = start + n * step
-    tmin = np.arange(n) * step_min  # minutes since start
-    rng = np.random.default_rng(seed)
-
-    auto = _auto_events(start, days)
-
-    def is_auto(value) -> bool:
-        return isinstance(value, str) and value == "auto"
-
-    shutdown_list = auto["shutdowns"] if is_auto(shutdowns) else list(shutdowns or [])
-    trip = auto["trip_at"] if is_auto(trip_at) else trip_at
-    flat = auto["flatline_at"] if is_auto(flatline_at) else flatline_at
-    gap = auto["gap_at"] if is_auto(gap_at) else gap_at
-    spike = auto["spike_at"] if is_auto(spike_at) else spike_at
-    if days < 10:  # short spans: shorten the automatically placed faults so they fit
-        if is_auto(flatline_at):
-            flatline_days = min(flatline_days, 0.2 * days)
-        if is_auto(gap_at):
-            gap_hours = min(gap_hours, 2.4 * days)
-    if not faults:
-        flat = gap = spike = None
-
-    def minute(t) -> float:
-        return (_ts(t) - start).total_seconds() / 60.0
-
-    # Outages: (off, on, kind), in minutes since start.
-    outages = [(minute(t), minute(t) + 60.0 * h, "shutdown") for t, h in shutdown_list]
-    if trip is not None:
-        outages.append((minute(trip), minute(trip) + 60.0 * trip_hours, "trip"))
-    outages.sort()
-    for (_, a1, ka), (b0, _, kb) in pairwise(outages):
-        if b0 < a1 + 240.0:
-            raise ValueError(
-                f"{kb} at minute {b0:.0f} starts before the {ka} ending at minute {a1:.0f} "
-                "is over (allow 4 h between them)"
-            )
-    for off, _, kind in outages:
-        if not 0.0 < off < tmin[-1]:
-            raise ValueError(
-                f"{kind} at {_iso(start + pd.Timedelta(minutes=off))} is outside the "
-                f"history {_iso(start)} to {_iso(end)}"
-            )
-
-    # --- load --------------------------------------------------------------------------------
-    n_hours = int(math.ceil(n * step_min / 60.0)) + 1
-    hours = pd.date_range(start.floor("h"), periods=n_hours, freq="h")
-    doy = hours.day_of_year.to_numpy()
-    weekend = hours.day_of_week.to_numpy() >= 5
-    hod = hours.hour.to_numpy()
-    base = np.where(weekend, WEEKEND_PATTERN[hod], WEEKDAY_PATTERN[hod])
-    summer = np.cos(2 * np.pi * (doy - 200) / 365.25)  # +1 in mid-July
-    day_index = (hours - start.floor("h")).days.to_numpy()
-    day_offset = rng.normal(0.0, 0.03, day_index.max() + 1)[day_index]
-    target = base + 0.04 * summer * (hod >= 8) + day_offset + rng.normal(0.0, 0.015, n_hours)
-    target = np.clip(np.round(target / 0.025) * 0.025, MIN_DISPATCH, 1.0)
-    setpoint = target.copy()
-    for k in range(1, n_hours):  # hold small changes: long plateaus
-        setpoint[k] = setpoint[k - 1] if abs(target[k] - setpoint[k - 1]) < 0.03 else target[k]
-    hour_min = (hours - start).total_seconds().to_numpy() / 60.0
-    ramp = np.abs(np.diff(setpoint)) / RAMP_PER_MIN
-    knot_t = np.empty(2 * n_hours - 1)
-    knot_v = np.empty(2 * n_hours - 1)
-    knot_t[0], knot_v[0] = hour_min[0], setpoint[0]
-    knot_t[1::2], knot_v[1::2] = hour_min[1:], setpoint[:-1]
-    knot_t[2::2], knot_v[2::2] = hour_min[1:] + ramp, setpoint[1:]
-    load = np.interp(tmin, knot_t, knot_v)
-
-    online = np.ones(n, dtype=bool)
-    warm_min = np.full(n, np.inf)  # minutes since the last synchronisation
-    for off, on, kind in outages:
-        if kind == "shutdown":
-            near = (tmin < off) & (tmin > off - 300.0)
-            load[near] = np.minimum(load[near], 0.10 + (off - tmin[near]) * 0.008)
-        online[(tmin >= off) & (tmin < on)] = False
-        after = tmin >= on
-        tau = tmin[after] - on
-        curve = np.where(
-            tau < 30.0,
-            SYNC_LOAD,
-            np.where(
-                tau < 90.0,
-                SYNC_LOAD + (tau - 30.0) / 60.0 * (MIN_DISPATCH - SYNC_LOAD),
-                np.where(tau < 150.0, MIN_DISPATCH, MIN_DISPATCH + (tau - 150.0) * 0.01),
-            ),
-        )
-        load[after] = np.minimum(load[after], curve)
-        warm_min[after] = np.minimum(warm_min[after], tau)
-    load = np.clip(load + _ar1(rng, n, 0.002, 4.0 / step_min), 0.05, 1.02)
-    load[~online] = 0.0
-
-    # --- operating hours and true efficiencies ------------------------------------------------
-    op_hours = initial_hours + np.cumsum(online) * step_min / 60.0
-    counted = op_hours - initial_hours
-    eta_hp = design_efficiency("hp", load) + hp_rate / 100.0 * counted / 1000.0
-    eta_ip = design_efficiency("ip", load)
-    eta_lp = design_efficiency("lp", load)
-    ip_step_time = None
-    if trip is not None:
-        trip_on = next(on for off, on, kind in outages if kind == "trip")
-        after_rub = tmin >= trip_on
-        eta_ip = eta_ip + np.where(after_rub, ip_step / 100.0, 0.0)
-        if after_rub.any():
-            ip_step_time = index[np.argmax(after_rub & online)]
-    # the wander: its own random stream, so the other draws do not change with it
-    wander_rng = np.random.default_rng([int(seed), 1])
-    wander_pts = {
-        sec: wander * _ar1(wander_rng, n, WANDER["sd_points"], WANDER["tau_hours"] * 60.0 / step_min)
-        for sec in ("hp", "ip", "lp")
-    }
-    eta_hp = eta_hp + wander_pts["hp"] / 100.0
-    eta_ip = eta_ip + wander_pts["ip"] / 100.0
-    eta_lp = eta_lp + wander_pts["lp"] / 100.0
-    hp_loss_pts = -hp_rate * counted / 1000.0
-    ip_loss_pts = np.where(after_rub, -ip_step, 0.0) if trip is not None else 0.0
-    flow_frac = (FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * load) * (
-        1.0 + FLOW_PER_POINT["hp"] * hp_loss_pts + FLOW_PER_POINT["ip"] * ip_loss_pts
-    )
-
-    # --- pressures (true) --------------------------------------------------------------------
-    baro = 0.1006 + _ar1(rng, n, 0.0007, 2880.0 / step_min)
-    flow_at_slide = FLOW_AT_ZERO_LOAD + (1.0 - FLOW_AT_ZERO_LOAD) * SLIDING_BELOW
-    p_slide = THROTTLE_P_RATED * flow_frac / flow_at_slide
-    p_thr = np.clip(p_slide, THROTTLE_P_MIN, THROTTLE_P_RATED)
-    p_thr = p_thr * (1.0 + _ar1(rng, n, 0.001, 10.0 / step_min))
-    valve = np.where(
-        load >= SLIDING_BELOW,
-        62.0 + (load - SLIDING_BELOW) / (1.0 - SLIDING_BELOW) * 33.0,
-        62.0 * np.minimum(1.0, p_slide / THROTTLE_P_MIN),
-    )
-    p_fs = FIRST_STAGE_P_RATED * flow_frac
-    p_crh = COLD_REHEAT_P_RATED * flow_frac
-    p_hrh = (1.0 - REHEATER_DROP) * p_crh
-    p_xo = CROSSOVER_P_RATED * flow_frac
-    p_ext = LP_EXTRACTION_P_RATED * flow_frac
-    hour_of_day = index.hour.to_numpy() + index.minute.to_numpy() / 60.0
-    doy_min = index.day_of_year.to_numpy() + hour_of_day / 24.0
-    p_cond_kpa = (
-        6.0
-        + 2.5 * np.cos(2 * np.pi * (doy_min - 205.0) / 365.25)
-        + 0.3 * np.cos(2 * np.pi * (hour_of_day - 15.0) / 24.0)
-    )
-    p_cond_kpa = p_cond_kpa * (0.55 + 0.45 * load) + _ar1(rng, n, 0.1, 360.0 / step_min)
-    p_cond = np.maximum(p_cond_kpa, 2.5) / 1000.0
-
-    # --- temperatures at the inlets (true) ----------------------------------------------------
-    t_thr_set = STEAM_T_SET - np.clip(0.40 - load, 0.0, None) / 0.32 * 40.0
-    t_hrh_set = STEAM_T_SET - np.clip(0.60 - load, 0.0, None) / 0.52 * 50.0
-    t_thr = np.minimum(t_thr_set, 440.0 + 273.15 + 100.0 * warm_min / 240.0)
-    t_hrh = np.minimum(t_hrh_set, 420.0 + 273.15 + 120.0 * warm_min / 240.0)
-    t_thr = t_thr + _ar1(rng, n, 1.0, 20.0 / step_min)
-    t_hrh = t_hrh + _ar1(rng, n, 1.2, 20.0 / step_min)
-
-    # --- the expansion (IF97) on the online rows --------------------------------------------
-    steam = _steam()
-    on = online
-    h1 = steam.h_pt(p_thr[on], t_thr[on])
-    s1 = steam.s_pt(p_thr[on], t_thr[on])
-    h2 = h1 - eta_hp[on] * (h1 - steam.h_ps(p_crh[on], s1))
-    t_crh_on = steam.t_ph(p_crh[on], h2)
-    h3 = steam.h_pt(p_hrh[on], t_hrh[on])
-    s3 = steam.s_pt(p_hrh[on], t_hrh[on])
-    h4 = h3 - eta_ip[on] * (h3 - steam.h_ps(p_xo[on], s3))
-    t_xo_on = steam.t_ph(p_xo[on], h4)
-    s4 = steam.s_pt(p_xo[on], t_xo_on)
-    h5 = h4 - eta_lp[on] * (h4 - steam.h_ps(p_ext[on], s4))
-    t_ext_on = steam.t_ph(p_ext[on], h5)
-    for name, arr in (("cold reheat", t_crh_on), ("crossover", t_xo_on), ("LP extraction", t_ext_on)):
-        bad = ~np.isfinite(arr)
-        if bad.any():
-            raise RuntimeError(
-                f"steam properties failed for {bad.sum()} {name} points; "
-                "the scenario left the range of isentrope.calc.steam"
-            )
-    t_crh = np.full(n, np.nan)
-    t_xo = np.full(n, np.nan)
-    t_ext = np.full(n, np.nan)
-    t_crh[on], t_xo[on], t_ext[on] = t_crh_on, t_xo_on, t_ext_on
-
-    true = {
-        "throttle_p": p_thr,
-        "throttle_t": t_thr,
-        "cold_reheat_p": p_crh,
-        "cold_reheat_t": t_crh,
-        "hot_reheat_p": p_hrh,
-        "hot_reheat_t": t_hrh,
-        "crossover_p": p_xo,
-        "crossover_t": t_xo,
-        "lp_extraction_p": p_ext,
-        "lp_extraction_t": t_ext,
-        "condenser_p": p_cond,
-        "gross_output": RATING_MW * load,
-        "main_steam_flow": RATED_FLOW_KGS * flow_frac,
-        "first_stage_p": p_fs,
-        "valve_position": valve,
-        "barometric_p": baro,
-    }
-    _fill_offline(true, online, tmin, baro)
-
-    # --- measured = true + sensor noise ------------------------------------------------------
-    measured = {}
-    for role in TAG_MAP:  # fixed order: the draws stay reproducible
-        x = true[role]
-        quantity = ROLES[role][0]
-        z = rng.standard_normal(n) * noise
-        if role == "condenser_p":
-            sd = NOISE["condenser_abs_mpa"] + NOISE["condenser_rel"] * x
-        elif role == "barometric_p":
-            sd = NOISE["barometric_abs_mpa"]
-        elif quantity == "pressure":
-            sd = NOISE["pressure_rel"] * x
-        elif quantity == "temperature":
-            sd = NOISE["temperature_k"]
-        elif quantity == "power":
-            sd = NOISE["output_abs_mw"] + NOISE["output_rel"] * np.abs(x)
-        elif quantity == "flow":
-            sd = NOISE["flow_abs_kgs"] + NOISE["flow_rel"] * x
-        else:
-            sd = NOISE["valve_abs"]
-        measured[role] = x + sd * z
-
-    # --- faults (in plant units, so a frozen gauge transmitter stays frozen) ---------------
-    truth_faults = {}
-    if flat is not None:
-        f0, f1 = _ts(flat), _ts(flat) + _dur(days=flatline_days)
-        i0, i1 = index.searchsorted(f0), index.searchsorted(f1)
-        if not 0 < i0 < i1 <= n:
-            raise ValueError(f"flatline {_iso(f0)} to {_iso(f1)} is outside the history")
-        unit = TAG_MAP[flatline_role]["unit"]
-        plant = internal_to_plant(measured[flatline_role], unit, measured["barometric_p"])
-        held = float(plant[i0 - 1])
-        measured[flatline_role][i0:i1] = plant_to_internal(held, unit, measured["barometric_p"][i0:i1])
-        truth_faults["flatline"] = {
-            "role": flatline_role,
-            "tag": TAG_MAP[flatline_role]["tag"],
-            "start": _iso(index[i0]),
-            "end": _iso(f1),
-            "held_value": held,
-            "held_unit": unit,
-        }
-    if spike is not None:
-        s0 = _ts(spike)
-        i0 = index.searchsorted(s0)
-        i1 = min(n, index.searchsorted(s0 + _dur(minutes=spike_minutes)))
-        if not 0 <= i0 < i1:
-            raise ValueError(f"spike burst at {_iso(s0)} is outside the history")
-        unit = TAG_MAP[spike_role]["unit"]
-        lo, hi = TAG_MAP[spike_role]["range"]
-        span = hi - lo
-        k = np.arange(i1 - i0)
-        pattern = np.where(k % 3 == 0, hi + 0.2 * span, np.where(k % 3 == 1, lo - 0.05 * span, np.nan))
-        rows = i0 + k[np.isfinite(pattern)]
-        measured[spike_role][rows] = plant_to_internal(
-            pattern[np.isfinite(pattern)], unit, measured["barometric_p"][rows]
-        )
-        truth_faults["spike"] = {
-            "role": spike_role,
-            "tag": TAG_MAP[spike_role]["tag"],
-            "start": _iso(index[i0]),
-            "end": _iso(index[i1 - 1] + step),
-            "samples": int(len(rows)),
-            "high_value": hi + 0.2 * span,
-            "low_value": lo - 0.05 * span,
-            "unit": unit,
-            "range": [lo, hi],
-        }
-    in_gap = np.zeros(n, dtype=bool)
-    if gap is not None:
-        g0, g1 = _ts(gap), _ts(gap) + _dur(hours=gap_hours)
-        i0, i1 = index.searchsorted(g0), index.searchsorted(g1)
-        if not 0 < i0 < i1 <= n:
-            raise ValueError(f"data gap {_iso(g0)} to {_iso(g1)} is outside the history")
-        in_gap[i0:i1] = True
-        for kind in ("flatline", "spike"):
-            fault = truth_faults.get(kind)
-            if fault and pd.Timestamp(fault["start"]) < g1 and g0 < pd.Timestamp(fault["end"]):
-                raise ValueError(
-                    f"data gap {_iso(g0)} to {_iso(g1)} overlaps the {kind} "
-                    f"{fault['start']} to {fault['end']}; place them apart"
-                )
-        truth_faults["gap"] = {
-            "start": _iso(index[i0]),
-            "end": _iso(g1),
-            "rows": "absent",
-            "missing_samples": int(i1 - i0),
-        }
-
-    keep = ~in_gap
-    kept = np.flatnonzero(keep)
-    values = np.empty((len(kept), len(ROLES)))  # one block: no copy when the frame is built
-    for j, role in enumerate(ROLES):
-        np.take(measured[role], kept, out=values[:, j])
-    frame = pd.DataFrame(values, index=index[kept], columns=list(ROLES), copy=False)
-
-    columns = {
-        "online": online,
-        "load_fraction": load,
-        "operating_hours": op_hours,
-        "eta_hp": eta_hp,
-        "eta_ip": eta_ip,
-        "eta_lp": eta_lp,
-        "wander_hp": wander_pts["hp"],
-        "wander_ip": wander_pts["ip"],
-        "wander_lp": wander_pts["lp"],
-        "in_gap": in_gap,
-    }
-    if _full_state:
-        columns.update({f"true_{role}": true[role] for role in ROLES})
-    state = pd.DataFrame(columns, index=index)
-    truth = _truth(
+    spec = ScenarioSpec(
         start,
         days,
         freq,
         seed,
-        noise,
-        index,
-        step,
-        online,
-        state,
-        outages,
-        trip,
-        ip_step_time,
-        hp_rate,
-        ip_step,
-        initial_hours,
-        truth_faults,
+        noise=noise,
+        faults=faults,
+        hp_rate=hp_rate,
+        ip_step=ip_step,
+        initial_hours=initial_hours,
+        wander=wander,
+        shutdowns=shutdowns,
+        trip_at=trip_at,
+        trip_hours=trip_hours,
+        flatline_at=flatline_at,
+        flatline_role=flatline_role,
+        flatline_days=flatline_days,
+        gap_at=gap_at,
+        gap_hours=gap_hours,
+        spike_at=spike_at,
+        spike_role=spike_role,
+        spike_minutes=spike_minutes,
     )
-    truth["wander"]["scale"] = wander
-    return frame, truth, state
-
-
-def _fill_offline(true: dict, online: np.ndarray, tmin: np.ndarray, baro: np.ndarray) -> None:
-    """Offline readings: decay from the last online value, return before the next start-up."""
-    if online.all():
-        return
-    n = len(online)
-    idx = np.arange(n)
-    last_on = np.maximum.accumulate(np.where(online, idx, -1))
-    next_on = np.minimum.accumulate(np.where(online, idx, n)[::-1])[::-1]
-    off = ~online
-    lo, nx = last_on[off], next_on[off]
-    t = tmin[off]
-    for role, (ambient, tau, blend_min) in OFFLINE.items():
-        x = true[role]
-        amb = baro[off] if ambient is None else np.full(off.sum(), ambient)
-        v_last = np.where(lo >= 0, x[np.maximum(lo, 0)], amb)
-        dt = t - tmin[np.maximum(lo, 0)]
-        decayed = amb + (v_last - amb) * (np.exp(-dt / tau) if tau > 0 else 0.0)
-        if blend_min > 0:
-            has_next = nx < n
-            v_next = np.where(has_next, x[np.minimum(nx, n - 1)], decayed)
-            to_go = np.where(has_next, tmin[np.minimum(nx, n - 1)] - t, np.inf)
-            w = np.clip(1.0 - to_go / blend_min, 0.0, 1.0)
-            decayed = (1.0 - w) * decayed + w * v_next
-        x[off] = decayed
-
-
-def _truth(
-    start,
-    days,
-    freq,
-    seed,
-    noise,
-    index,
-    step,
-    online,
-    state,
-    outages,
-    trip,
-    ip_step_time,
-    hp_rate,
-    ip_step,
-    initial_hours,
-    faults,
-) -> dict:
-    step_h = step.total_seconds() / 3600.0
-    events = []
-    for off, on, kind in outages:
-        t_off = start + pd.Timedelta(minutes=off)
-        t_on = start + pd.Timedelta(minutes=on)
-        if t_on > index[-1]:
-            t_on = None
-        events.append(
-            {
-                "kind": kind,
-                "offline": _iso(t_off),
-                "online": _iso(t_on) if t_on is not None else None,
-                "hours": round((on - off) / 60.0, 3),
-            }
-        )
-    part = state[["eta_hp", "eta_ip", "eta_lp", "load_fraction"]]
-    daily = part[state["online"].to_numpy()].resample("1D").mean()
-    hours_end = state["operating_hours"].resample("1D").last()
-    at_rating_hp = DESIGN_CURVES["hp"]["at_rating"] + hp_rate / 100.0 * (hours_end - initial_hours) / 1000.0
-
-    def series(s):
-        return [None if not np.isfinite(v) else round(float(v), 6) for v in s.to_numpy()]
-
-    truth = {
-        "scenario": dict(SCENARIO),
-        "generator": {
-            "module": "isentrope.daemon.synthetic",
-            "version": GENERATOR_VERSION,
-            "start": _iso(start),
-            "end": _iso(index[-1] + step),
-            "days": days,
-            "freq": freq,
-            "seed": seed,
-            "noise_scale": noise,
-            "samples": int(len(index)),
-        },
-        "units": "internal: MPa absolute, K, MW, kg/s, percent; efficiencies as fractions; "
-        "efficiency changes in percentage points",
-        "design_curves": {
-            k: dict(v, form="at_rating - droop * (1 - load_fraction)**2") for k, v in DESIGN_CURVES.items()
-        },
-        "hp": {
-            "rate_points_per_1000h": hp_rate,
-            "initial_hours": initial_hours,
-            "form": "design_hp(load) + rate/100 * (operating_hours - initial_hours)/1000",
-            "at_rating_start": round(float(at_rating_hp.iloc[0]), 6),
-            "at_rating_end": round(float(at_rating_hp.iloc[-1]), 6),
-        },
-        "ip": {
-            "step_points": ip_step if trip is not None else 0.0,
-            "step_time": _iso(ip_step_time) if ip_step_time is not None else None,
-            "cause": "rub at the trip; applies from the restart after the trip",
-        },
-        "lp": {"form": "design_lp(load), no change over the history"},
-        "trip": (
-            {"time": _iso(_ts(trip)), "restart": next(e["online"] for e in events if e["kind"] == "trip")}
-            if trip is not None
-            else None
-        ),
-        "outages": events,
-        "startups": [e["online"] for e in events if e["online"] is not None],
-        "shutdowns": [e["offline"] for e in events],
-        "flatline": faults.get("flatline"),
-        "gap": faults.get("gap"),
-        "spike": faults.get("spike"),
-        "operating_hours": round(float(online.sum() * step_h), 3),
-        "online_fraction": round(float(online.mean()), 6),
-        "noise_sd": dict(NOISE),
-        "wander": dict(WANDER),
-        "efficiency_daily": {
-            "date": [d.strftime("%Y-%m-%d") for d in daily.index],
-            "eta_hp_mean": series(daily["eta_hp"]),
-            "eta_ip_mean": series(daily["eta_ip"]),
-            "eta_lp_mean": series(daily["eta_lp"]),
-            "load_fraction_mean": series(daily["load_fraction"]),
-            "eta_hp_at_rating_end_of_day": series(at_rating_hp.reindex(daily.index)),
-        },
-        "caution": "invented demonstration data for a fictional unit; advisory performance "
-        "information only, not a protective function",
-    }
-    return truth
+    return generate_from_spec(spec, full_state=_full_state)
 
 
 def events_table(truth: Mapping) -> pd.DataFrame:
@@ -1055,78 +1177,6 @@ def write_truth(truth: Mapping, path) -> Path:
 def read_truth(path) -> dict:
     """Read a truth file written by ``write_truth``."""
     return json.loads(Path(path).read_text(encoding="utf-8"))
-
-
-#: Exception deadbands of the synthetic tags in their plant units (TAG_MAP), for
-#: ``exception_report``: two to three noise standard deviations of each reading (see the module
-#: docstring), which keeps about 30 % of the samples with a one-hour heartbeat (invented for the
-#: demo; a real historian's deadbands come from its tag configuration). Each stays below the
-#: steadiness limit of its role in [steady] (PTC 6 Table 3-1: 34.5 kPa throttle pressure, 4 K,
-#: 0.14 kPa exhaust pressure, 1 % of rating), as isentrope.daemon.config requires.
-EXCEPTION_DEADBANDS: dict[str, float] = {
-    "throttle_p": 0.3,  # bar (30 kPa)
-    "throttle_t": 1.2,  # degC
-    "cold_reheat_p": 0.1,
-    "cold_reheat_t": 1.2,
-    "hot_reheat_p": 0.1,
-    "hot_reheat_t": 1.2,
-    "crossover_p": 2.0,  # kPa
-    "crossover_t": 1.2,
-    "lp_extraction_p": 0.6,
-    "lp_extraction_t": 1.2,
-    "condenser_p": 0.02,  # inHg (0.068 kPa)
-    "gross_output": 2.0,  # MW
-    "main_steam_flow": 20.0,  # t/h
-    "first_stage_p": 0.2,
-    "valve_position": 0.3,  # %
-    "barometric_p": 0.04,  # kPa
-}
-
-
-def exception_report(
-    frame: pd.DataFrame, deadbands: Mapping[str, float], heartbeat: str | pd.Timedelta = "1h"
-) -> dict[str, pd.Series]:
-    """What an exception-reporting historian keeps of a regular history.
-
-    Per column: the first sample is stored; after it a sample is stored when it differs from
-    the last stored value by more than the column's deadband, or when ``heartbeat`` has passed
-    since the last stored sample (the historian's maximum time between values). NaN samples
-    and absent rows store nothing.
-
-    Parameters
-    ----------
-    frame : pandas.DataFrame
-        Regular readings, UTC index, one column per role [any unit].
-    deadbands : mapping of str to float
-        Column -> deadband, in the unit of the column; columns not named keep every sample.
-    heartbeat : str or Timedelta
-        Longest time between two stored samples of a live column [duration].
-
-    Returns
-    -------
-    dict of str to pandas.Series
-        Column -> the stored samples (a subset of the column's finite samples).
-    """
-    beat = pd.Timedelta(heartbeat).value
-    out = {}
-    for col in frame.columns:
-        s = frame[col].dropna()
-        band = deadbands.get(col)
-        if band is None or not len(s):
-            out[col] = s
-            continue
-        t = pd.DatetimeIndex(s.index).as_unit("ns").asi8
-        v = s.to_numpy(dtype=float)
-        keep = np.zeros(len(v), dtype=bool)
-        last_v, last_t = v[0], t[0]
-        keep[0] = True
-        # a loop: each decision depends on the last stored sample (about 0.1 s per 100,000)
-        for i in range(1, len(v)):
-            if abs(v[i] - last_v) > band or t[i] - last_t >= beat:
-                keep[i] = True
-                last_v, last_t = v[i], t[i]
-        out[col] = s[keep]
-    return out
 
 
 def bench(days: float = 365, freq: str = "1min", seed: int = DEFAULT_SEED) -> dict:

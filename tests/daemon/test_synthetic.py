@@ -570,3 +570,56 @@ def test_generate_matches_generate_with_state_and_bench_runs(capsys):
     assert syn.main(["--bench", "--days", "2", "--freq", "10min"]) == 0
     figures = dict(item.split("=") for item in capsys.readouterr().out.split())
     assert int(figures["rows"]) == 288 and float(figures["steam_reference_s"]) > 0  # no timed assertion
+
+
+def test_spec_defaults_are_the_wrappers_defaults():
+    """ScenarioSpec carries exactly the arguments and defaults of generate_with_state."""
+    import dataclasses
+    import inspect
+
+    params = {
+        name: p.default
+        for name, p in inspect.signature(syn.generate_with_state).parameters.items()
+        if not name.startswith("_")
+    }
+    fields = {f.name: f.default for f in dataclasses.fields(syn.ScenarioSpec)}
+    assert fields == params
+
+
+def test_steps_run_alone_and_compose_to_generate_with_state():
+    spec = syn.ScenarioSpec(start="2025-08-01", days=3, freq="10min", seed=4, spike_role="cold_reheat_t")
+    frame, truth, state = syn.generate_from_spec(spec)
+    f2, t2, s2 = syn.generate_with_state(
+        start="2025-08-01", days=3, freq="10min", seed=4, spike_role="cold_reheat_t"
+    )
+    pd.testing.assert_frame_equal(frame, f2, check_exact=True)
+    pd.testing.assert_frame_equal(state, s2, check_exact=True)
+    assert truth == t2
+    assert not any(c.startswith("true_") for c in syn.generate_from_spec(spec, full_state=False)[2].columns)
+
+    # the steps by hand, in the same order and on the same stream, give the same readings
+    tl = syn.timeline(spec)
+    assert tl.n == 3 * 144 and tl.index[0] == pd.Timestamp("2025-08-01", tz="UTC")
+    rng = np.random.default_rng(spec.seed)
+    op = syn.load_profile(tl, rng)
+    eff = syn.true_efficiencies(spec, tl, op)
+    true = syn.boundary_states(tl, op, eff, rng)
+    for role in ROLES:
+        np.testing.assert_array_equal(true[role], state[f"true_{role}"].to_numpy())
+    measured = syn.sensor_readings(true, rng, spec.noise)
+    before = {role: x.copy() for role, x in measured.items()}
+    faults = syn.inject_faults(spec, tl, measured)
+    for role in ROLES:  # the faults are written into copies, the step's input is left alone
+        np.testing.assert_array_equal(measured[role], before[role])
+    # flatline and spike on the same transmitter: both land in the one faulted copy
+    changed = [r for r in ROLES if not np.array_equal(faults.measured[r], measured[r], equal_nan=True)]
+    assert changed == ["cold_reheat_t"]
+    assert set(faults.record) == {"flatline", "spike", "gap"}
+    pd.testing.assert_frame_equal(
+        syn.readings_frame(tl, faults.measured, faults.in_gap), frame, check_exact=True
+    )
+
+    # no noise: the readings are the true values exactly
+    quiet = syn.sensor_readings(true, np.random.default_rng(0), 0.0)
+    for role in ROLES:
+        np.testing.assert_array_equal(quiet[role], true[role])
