@@ -28,8 +28,9 @@ logger = logging.getLogger("isentrope.lease")
 class UnitLease:
     """Hold ``unit`` on ``store`` for ``command`` (a context manager).
 
-    ``on_lost`` is called (from the renewal thread) when the unit was taken over; ``lost`` then
-    holds the ``UnitBusyError`` to raise once the worker has stopped (``check``).
+    ``on_lost`` is called (from the renewal thread) when the unit was taken over, or at once
+    when it is set after that; ``lost`` then holds the ``UnitBusyError`` to raise once the
+    worker has stopped (``check``).
     """
 
     def __init__(
@@ -42,10 +43,23 @@ class UnitLease:
     ):
         self.store, self.unit, self.lease = store, unit, pd.Timedelta(lease)
         self.holder = LeaseHolder.this_process(command)
-        self.on_lost = on_lost
         self.lost: UnitBusyError | None = None
+        self._guard = threading.Lock()
+        self._on_lost = on_lost
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
+
+    @property
+    def on_lost(self) -> Callable[[UnitBusyError], None] | None:
+        return self._on_lost
+
+    @on_lost.setter
+    def on_lost(self, fn: Callable[[UnitBusyError], None] | None) -> None:
+        with self._guard:
+            self._on_lost = fn
+            lost = self.lost
+        if lost is not None and fn is not None:
+            fn(lost)
 
     def __enter__(self) -> UnitLease:
         self.store.acquire_lease(self.unit, self.holder, self.lease)
@@ -59,10 +73,12 @@ class UnitLease:
             try:
                 self.store.renew_lease(self.unit, self.holder, self.lease)
             except UnitBusyError as exc:
-                self.lost = exc
                 logger.error("unit %s: %s", self.unit, exc)
-                if self.on_lost is not None:
-                    self.on_lost(exc)
+                with self._guard:
+                    self.lost = exc
+                    fn = self._on_lost
+                if fn is not None:
+                    fn(exc)
                 return
             except (StoreError, OSError) as exc:  # the store is away: the worker sees it too
                 logger.warning("unit %s: could not renew the lease (will retry): %s", self.unit, exc)
