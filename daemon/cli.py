@@ -1,7 +1,8 @@
 """The `isentrope` command line.
 
 Exit codes: 0 ok, 2 configuration error (a refused TLS certificate, and the store refusing the
-credentials or their rights, 401/403, included), 3 store unreachable, 1 anything else. Errors
+credentials or their rights, 401/403, included), 3 store unreachable, 6 another worker holds the
+unit on this store (``isentrope.daemon.lease``), 1 anything else. Errors
 are one clear line on stderr, not a traceback, unless ``--debug`` is given. Every error line, log line and traceback goes through
 ``isentrope.daemon.redact`` first: no configured secret leaves the process.
 """
@@ -18,6 +19,7 @@ import traceback
 from isentrope.daemon import __version__
 from isentrope.daemon.commands import COMMAND_MODULES
 from isentrope.daemon.errors import (
+    EXIT_BUSY,
     EXIT_CONFIG,
     EXIT_OK,
     EXIT_OTHER,
@@ -27,6 +29,7 @@ from isentrope.daemon.errors import (
     ConfigError,
     FatalStoreError,
     TemporaryStoreError,
+    UnitBusyError,
 )
 from isentrope.daemon.files import DEFAULT_UMASK, parse_umask
 from isentrope.daemon.redact import format_exception, install_log_filter, redact
@@ -96,6 +99,7 @@ def main(argv: list[str] | None = None) -> int:
 
 #: Exception class -> (exit code, what the error line calls it); the first that matches wins.
 _EXITS = (
+    (UnitBusyError, EXIT_BUSY, "refused"),
     (ConfigError, EXIT_CONFIG, "configuration error"),
     (CertificateError, EXIT_CONFIG, "configuration error"),
     (AuthorizationError, EXIT_CONFIG, "configuration error"),

@@ -431,6 +431,10 @@ class ScheduleConfig:
     retries: int = 4
     backoff: dt.timedelta = dt.timedelta(seconds=2)
     backoff_max: dt.timedelta = dt.timedelta(seconds=60)
+    #: One worker per unit and store (isentrope.daemon.lease): how long the InfluxDB stores
+    #: keep a worker's lease after its last renewal (renewed every third of it), i.e. how
+    #: soon another worker may start after one crashed. SQLite's lock ends with its process.
+    lease: dt.timedelta = dt.timedelta(minutes=3)
 
 
 #: Fills of ``[read]``: see isentrope.daemon.stores.grid.
@@ -1384,11 +1388,16 @@ SCHEDULE_LONGEST = {
     "settle": dt.timedelta(days=1),
     "lookback": dt.timedelta(days=31),
     "analysis_interval": dt.timedelta(days=1),
+    "lease": dt.timedelta(days=1),
 }
+#: Shortest ``[schedule] lease``: a lease is renewed every third of it, and taking one on an
+#: InfluxDB store pauses a second (influx_common.LEASE_CONFIRM_DELAY); project choice.
+LEASE_SHORTEST = dt.timedelta(seconds=30)
 SCHEDULE_WHY = {
     "settle": "results come this late; data arriving later is reprocessed by the look-back",
     "lookback": "every cycle reads and computes this much again",
     "analysis_interval": "a step alarm must come within a day of the step",
+    "lease": "another worker may start this long after one crashed",
 }
 
 
@@ -1400,7 +1409,7 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
     v = {}
     for k in ("interval", "chunk", "backoff", "backoff_max"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0, low_open=True)
-    for k in ("settle", "lookback", "analysis_interval"):
+    for k in ("settle", "lookback", "analysis_interval", "lease"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0)
         longest = SCHEDULE_LONGEST[k]
         if v[k] is not None and v[k] > longest:
@@ -1409,6 +1418,13 @@ def _read_schedule(r: _Reader, top: dict) -> ScheduleConfig:
                 f"expected at most {format_duration(longest)} ({SCHEDULE_WHY[k]}), found {format_duration(v[k])}",
             )
             v[k] = getattr(D, k)
+    if v["lease"] is not None and v["lease"] < LEASE_SHORTEST:
+        r.problem(
+            p + ("lease",),
+            f"expected at least {format_duration(LEASE_SHORTEST)} (it is renewed every third of it), "
+            f"found {format_duration(v['lease'])}",
+        )
+        v["lease"] = D.lease
     v["retries"] = r.value(d, p + ("retries",), "int", D.retries, low=0, high=20)
     if v["backoff"] > v["backoff_max"]:
         r.problem(

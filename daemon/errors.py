@@ -8,6 +8,7 @@ from isentrope.daemon.stores.base import (
     FatalStoreError,
     StoreError,
     TemporaryStoreError,
+    UnitBusyError,
 )
 
 __all__ = [
@@ -21,12 +22,17 @@ __all__ = [
     "EXIT_OTHER",
     "EXIT_CONFIG",
     "EXIT_UNREACHABLE",
+    "EXIT_BUSY",
+    "UnitBusyError",
 ]
 
 EXIT_OK = 0
 EXIT_OTHER = 1
 EXIT_CONFIG = 2
 EXIT_UNREACHABLE = 3
+#: Another worker holds the unit on this store (isentrope.daemon.lease); 4 and 5 are
+#: ``isentrope status``'s lagging and never-ran.
+EXIT_BUSY = 6
 
 
 class ConfigError(Exception):

@@ -8,6 +8,9 @@ what is left of the period (``Worker.own_period``), so rows of an earlier run st
 this one writes none. At its end it analyses the whole history again (``Worker.analyse``
 with ``rebuild``): every analysis row is replaced, as if only this run had happened. One chunk
 (``[schedule] chunk``, or ``--chunk``) is in memory at a time. A progress bar goes to stderr.
+It holds the unit's lease on its store from before its first write to its end
+(``isentrope.daemon.lease``): a second backfill or a ``run`` of the unit is refused with exit
+code 6.
 """
 
 from __future__ import annotations
@@ -50,11 +53,9 @@ def checkpoint_name(unit: str, start: pd.Timestamp, end: pd.Timestamp) -> str:
 
 
 def run(args) -> int:
-    from tqdm import tqdm
-
     from isentrope.daemon.config import load_config
+    from isentrope.daemon.lease import UnitLease
     from isentrope.daemon.stores import open_store
-    from isentrope.daemon.worker import Worker
 
     config = load_config(args.config)  # ConfigError before any connection is made
     start, end = parse_time(args.start), parse_time(args.end)
@@ -64,91 +65,102 @@ def run(args) -> int:
     name = checkpoint_name(config.unit.name, start, end)
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        worker = Worker.from_config(
-            config, store, checkpoint_name=name, start_default=start, lookback="0s", settle="0s", chunk=chunk
-        )
-        if args.refit:
-            if worker.baseline_period() is None:
-                raise ValueError("--refit needs a [baseline] period (start and end) in the configuration")
-            # Fresh models, fresh alarm machines, from the start: results are replaced where they
-            # are written again; events of the old models at other instants stay (daemon/DECISIONS.md).
-            store.save_state(worker.baseline_state_name, {})
-            store.save_state(worker.alarm_state_name, {})
-            store.set_checkpoint(name, start)
-            logger.info(
-                "unit %s: refit: baseline models and alarm state cleared; processing %s to %s again",
-                config.unit.name,
-                start.isoformat(),
-                end.isoformat(),
-            )
-        else:
-            worker.warn_if_baseline_changed()
-        resumed_at = store.get_checkpoint(name)
-        worker.own_period(start if resumed_at is None else max(start, min(resumed_at, end)), end)
-        received: list[int] = []
+        with UnitLease(store, config.unit.name, "backfill", config.schedule.lease) as lease:
+            return _backfill(args, config, store, lease, name, start, end, chunk)
+    finally:
+        store.close()
 
-        def on_signal(signum, _frame):
-            received.append(signum)
-            worker.stop()
 
-        previous = {s: signal.signal(s, on_signal) for s in (signal.SIGTERM, signal.SIGINT)}
-        total_h = (end - start).total_seconds() / 3600.0
-        done = worker.store.get_checkpoint(name)
-        done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
-        if done is not None:
-            logger.info("unit %s: resuming backfill %s at %s", config.unit.name, name, done.isoformat())
-        bar = tqdm(
-            total=round(total_h, 3),
-            initial=round(done_h, 3),
-            unit="h",
-            file=sys.stderr,
-            disable=args.no_progress,
-            desc=f"backfill {config.unit.name}",
-            dynamic_ncols=True,
-        )
+def _backfill(args, config, store, lease, name, start, end, chunk) -> int:
+    from tqdm import tqdm
 
-        def progress(s, e):
-            bar.update(round((e - s).total_seconds() / 3600.0, 3))
+    from isentrope.daemon.worker import Worker
 
-        try:
-            report = worker.run_cycle(until=end, progress=progress)
-        finally:
-            bar.close()
-            for s, h in previous.items():
-                signal.signal(s, h)
-        if received:
-            logger.info(
-                "unit %s: backfill stopped on signal %d at %s; run the same command to resume",
-                config.unit.name,
-                received[0],
-                report.checkpoint.isoformat() if report.checkpoint is not None else start.isoformat(),
-            )
-            return 128 + received[0]
-        if not report.ok:
-            print(
-                f"isentrope: backfill interrupted: {report.error}; run the same command to resume",
-                file=sys.stderr,
-            )
-            return EXIT_UNREACHABLE
-        live = store.get_checkpoint(f"run/{config.unit.name}")  # the scheduled worker's
-        worker.analyse(end=max(end, live) if live is not None else end, rebuild=True)
-        if report.chunks_done and not report.rows_read:
-            logger.warning(
-                "unit %s: no sample of any mapped tag between %s and %s: nothing was computed; "
-                "check the tag names and the period with `isentrope check`",
-                config.unit.name,
-                start.isoformat(),
-                end.isoformat(),
-            )
+    worker = Worker.from_config(
+        config, store, checkpoint_name=name, start_default=start, lookback="0s", settle="0s", chunk=chunk
+    )
+    if args.refit:
+        if worker.baseline_period() is None:
+            raise ValueError("--refit needs a [baseline] period (start and end) in the configuration")
+        # Fresh models, fresh alarm machines, from the start: results are replaced where they
+        # are written again; events of the old models at other instants stay (daemon/DECISIONS.md).
+        store.save_state(worker.baseline_state_name, {})
+        store.save_state(worker.alarm_state_name, {})
+        store.set_checkpoint(name, start)
         logger.info(
-            "unit %s: backfill %s to %s done: %d chunks, %d rows read, %d flagged",
+            "unit %s: refit: baseline models and alarm state cleared; processing %s to %s again",
             config.unit.name,
             start.isoformat(),
             end.isoformat(),
-            report.chunks_done,
-            report.rows_read,
-            report.rows_flagged,
         )
-        return EXIT_OK
+    else:
+        worker.warn_if_baseline_changed()
+    resumed_at = store.get_checkpoint(name)
+    worker.own_period(start if resumed_at is None else max(start, min(resumed_at, end)), end)
+    received: list[int] = []
+
+    def on_signal(signum, _frame):
+        received.append(signum)
+        worker.stop()
+
+    previous = {s: signal.signal(s, on_signal) for s in (signal.SIGTERM, signal.SIGINT)}
+    total_h = (end - start).total_seconds() / 3600.0
+    done = worker.store.get_checkpoint(name)
+    done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
+    if done is not None:
+        logger.info("unit %s: resuming backfill %s at %s", config.unit.name, name, done.isoformat())
+    bar = tqdm(
+        total=round(total_h, 3),
+        initial=round(done_h, 3),
+        unit="h",
+        file=sys.stderr,
+        disable=args.no_progress,
+        desc=f"backfill {config.unit.name}",
+        dynamic_ncols=True,
+    )
+
+    def progress(s, e):
+        bar.update(round((e - s).total_seconds() / 3600.0, 3))
+
+    lease.on_lost = lambda _exc: worker.stop()
+    try:
+        report = worker.run_cycle(until=end, progress=progress)
     finally:
-        store.close()
+        bar.close()
+        for s, h in previous.items():
+            signal.signal(s, h)
+    lease.check()  # exit 6: another worker took the unit while this lease had run out
+    if received:
+        logger.info(
+            "unit %s: backfill stopped on signal %d at %s; run the same command to resume",
+            config.unit.name,
+            received[0],
+            report.checkpoint.isoformat() if report.checkpoint is not None else start.isoformat(),
+        )
+        return 128 + received[0]
+    if not report.ok:
+        print(
+            f"isentrope: backfill interrupted: {report.error}; run the same command to resume",
+            file=sys.stderr,
+        )
+        return EXIT_UNREACHABLE
+    live = store.get_checkpoint(f"run/{config.unit.name}")  # the scheduled worker's
+    worker.analyse(end=max(end, live) if live is not None else end, rebuild=True)
+    if report.chunks_done and not report.rows_read:
+        logger.warning(
+            "unit %s: no sample of any mapped tag between %s and %s: nothing was computed; "
+            "check the tag names and the period with `isentrope check`",
+            config.unit.name,
+            start.isoformat(),
+            end.isoformat(),
+        )
+    logger.info(
+        "unit %s: backfill %s to %s done: %d chunks, %d rows read, %d flagged",
+        config.unit.name,
+        start.isoformat(),
+        end.isoformat(),
+        report.chunks_done,
+        report.rows_read,
+        report.rows_flagged,
+    )
+    return EXIT_OK

@@ -6,11 +6,14 @@ installed and access to the units' stores and configuration files at the same pa
 local cluster of ``--workers`` processes (one thread each; the dashboard is off and everything
 listens on 127.0.0.1). Partitions that are already done are skipped, so the same command
 resumes after an interruption. See ``isentrope.daemon.fleet`` for how the baseline and the
-alarms are handled.
+alarms are handled. This process holds every unit's lease on its store while the cluster
+works (``isentrope.daemon.lease``; its tasks write under it): a unit another worker holds is
+refused with exit code 6 before anything is started.
 """
 
 from __future__ import annotations
 
+import contextlib
 import logging
 import sys
 
@@ -66,18 +69,36 @@ def add_arguments(parser) -> None:
 
 
 def run(args) -> int:
-    from isentrope.daemon import fleet
     from isentrope.daemon.config import load_config
+    from isentrope.daemon.lease import UnitLease
+    from isentrope.daemon.stores import open_store
 
     start, end = parse_time(args.start), parse_time(args.end)
     if end <= start:
         raise ValueError(f"--end ({end.isoformat()}) must be after --start ({start.isoformat()})")
     if args.workers < 1:
         raise ValueError(f"--workers must be at least 1, found {args.workers}")
-    for path in args.config:
-        load_config(path)  # every ConfigError before a cluster is started
+    configs = [load_config(path) for path in args.config]  # every ConfigError before a cluster is started
     chunk = parse_duration(args.chunk) if args.chunk else None
+    with contextlib.ExitStack() as held:
+        leases = []
+        for config in configs:  # UnitBusyError (exit 6) before a cluster is started
+            store = held.enter_context(open_store(config.store.kind, **config.store.open_options()))
+            leases.append(
+                held.enter_context(
+                    UnitLease(store, config.unit.name, "fleet-backfill", config.schedule.lease)
+                )
+            )
+        code = _run(args, start, end, chunk)
+        for lease in leases:
+            lease.check()
+        return code
+
+
+def _run(args, start, end, chunk) -> int:
     from dask.distributed import Client, LocalCluster
+
+    from isentrope.daemon import fleet
 
     if args.scheduler:
         client, cluster = Client(args.scheduler), None

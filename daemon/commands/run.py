@@ -8,7 +8,9 @@ and step alarms, losses and the outlook back for dashboards (``Worker.analyse``)
 ``--once`` runs a single cycle and then the analysis, and exits (for cron or a systemd timer).
 Without a checkpoint (first start) it processes only the last look-back; process the history
 before that with ``isentrope backfill``.
-SIGTERM and SIGINT stop it cleanly after the chunk in progress.
+SIGTERM and SIGINT stop it cleanly after the chunk in progress. It holds the unit's lease on
+its store while it runs (``isentrope.daemon.lease``): a second worker of the unit is refused
+with exit code 6.
 """
 
 from __future__ import annotations
@@ -56,25 +58,30 @@ def _restore(previous: dict) -> None:
 
 def run(args) -> int:
     from isentrope.daemon.config import load_config
+    from isentrope.daemon.lease import UnitLease
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
 
     config = load_config(args.config)  # ConfigError before any connection is made
     store = open_store(config.store.kind, **config.store.open_options())
     try:
-        worker = Worker.from_config(config, store)
-        if args.once:
-            report = worker.run_cycle()
-            if report.ok and config.schedule.analysis_interval.total_seconds() > 0:
-                if worker.analyse() is None and worker.last_report.checkpoint is not None:
-                    return EXIT_UNREACHABLE
-            return EXIT_OK if report.ok else EXIT_UNREACHABLE
-        return _serve(worker, config)
+        lease = UnitLease(store, config.unit.name, "run", config.schedule.lease)
+        with lease:  # UnitBusyError (exit 6) when another worker holds the unit
+            worker = Worker.from_config(config, store)
+            lease.on_lost = lambda _exc: worker.stop()
+            if args.once:
+                report = worker.run_cycle()
+                lease.check()
+                if report.ok and config.schedule.analysis_interval.total_seconds() > 0:
+                    if worker.analyse() is None and worker.last_report.checkpoint is not None:
+                        return EXIT_UNREACHABLE
+                return EXIT_OK if report.ok else EXIT_UNREACHABLE
+            return _serve(worker, config, lease)
     finally:
         store.close()
 
 
-def _serve(worker, config) -> int:
+def _serve(worker, config, lease=None) -> int:
     from apscheduler.schedulers.background import BackgroundScheduler
     from apscheduler.triggers.interval import IntervalTrigger
 
@@ -87,6 +94,13 @@ def _serve(worker, config) -> int:
         stop.set()
 
     exit_code = [EXIT_OK]
+
+    def on_lost(_exc):  # another worker took the unit while this one's lease had run out
+        worker.stop()
+        stop.set()
+
+    if lease is not None:
+        lease.on_lost = on_lost
 
     def cycle():
         try:
@@ -156,6 +170,8 @@ def _serve(worker, config) -> int:
     finally:
         scheduler.shutdown(wait=True)  # waits for the cycle in progress (it stops between chunks)
         _restore(previous)
+    if lease is not None:
+        lease.check()  # exit 6, after the cycle in progress has ended
     if received:
         logger.info(
             "unit %s: worker stopped on signal %d; checkpoint at %s",

@@ -1,6 +1,13 @@
 """Stores: where raw plant samples are read and results, checkpoints and alarm state written."""
 
-from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import (
+    AuthorizationError,
+    FatalStoreError,
+    LeaseHolder,
+    Store,
+    TemporaryStoreError,
+    UnitBusyError,
+)
 
 #: ``[store] kind`` -> "module:class" of the implementation (imported on first use).
 STORE_KINDS = {
@@ -27,6 +34,8 @@ def open_store(kind: str, **options) -> Store:
 
 __all__ = [
     "AuthorizationError",
+    "LeaseHolder",
+    "UnitBusyError",
     "Store",
     "TemporaryStoreError",
     "FatalStoreError",

@@ -30,12 +30,21 @@ Contract (checked by tests/daemon/stores/test_contract.py against every implemen
 * ``get_checkpoint(name)`` / ``set_checkpoint(name, time)``: the worker's progress.
 * ``load_state(name)`` / ``save_state(name, dict)``: JSON-serialisable state (alarm state
   machines, baseline model references) that must survive a restart.
+* ``acquire_lease(unit, holder, lease)`` / ``renew_lease`` / ``release_lease``: one worker per
+  unit and store. A second holder is refused with ``UnitBusyError`` naming the holder; a
+  holder that dies without releasing stops holding (SQLite: the lock file's ``flock`` ends
+  with the process; InfluxDB: its lease point expires ``lease`` after its last renewal).
+  ``renew_lease`` raises ``UnitBusyError`` when another holder has taken the unit meanwhile
+  (this one's lease had expired).
 """
 
 from __future__ import annotations
 
+import os
+import socket
 from abc import ABC, abstractmethod
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 
 import pandas as pd
 
@@ -73,6 +82,74 @@ class AuthorizationError(FatalStoreError):
     """The server refused the credentials (401) or what they allow (403): a configuration error,
     never retried as an outage. The message names the store key and what the token lacks and
     never shows the token."""
+
+
+@dataclass(frozen=True)
+class LeaseHolder:
+    """Who holds (or asks for) a unit: the command, the host, the process and its start."""
+
+    command: str
+    host: str
+    pid: int
+    started: pd.Timestamp
+
+    @classmethod
+    def this_process(cls, command: str) -> LeaseHolder:
+        return cls(command, socket.gethostname(), os.getpid(), _PROCESS_START)
+
+    @property
+    def id(self) -> str:
+        """Unique per process start: host, pid and the start time in ns."""
+        return f"{self.host}/{self.pid}/{self.started.value}"
+
+    def as_dict(self) -> dict:
+        return {
+            "command": self.command,
+            "host": self.host,
+            "pid": self.pid,
+            "started": self.started.isoformat(),
+        }
+
+    @classmethod
+    def from_dict(cls, d: Mapping) -> LeaseHolder:
+        return cls(str(d["command"]), str(d["host"]), int(d["pid"]), pd.Timestamp(d["started"]))
+
+    def describe(self) -> str:
+        return f"`{self.command}` on host {self.host}, pid {self.pid}, started {_when(self.started)}"
+
+
+_PROCESS_START = pd.Timestamp.now(tz="UTC")
+
+
+def _when(t: pd.Timestamp) -> str:
+    return t.tz_convert("UTC").strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+class UnitBusyError(Exception):
+    """Another worker holds this unit on this store (``acquire_lease``), or took it while this
+    one's lease had expired (``renew_lease``). The command line exits 6."""
+
+    def __init__(
+        self,
+        unit: str,
+        store: str,
+        holder: LeaseHolder | None,
+        expires: pd.Timestamp | None = None,
+        *,
+        lost: bool = False,
+        until: str = "",
+    ):
+        self.unit, self.store, self.holder, self.expires, self.lost = unit, store, holder, expires, lost
+        who = holder.describe() if holder is not None else "another process (it has not said who)"
+        if expires is not None:
+            until = f"its lease expires at {_when(expires)} unless renewed"
+        head = (
+            f"unit {unit!r} on {store} was taken over by {who} while this worker's lease had expired"
+            if lost
+            else f"unit {unit!r} on {store} is held by {who}"
+        )
+        tail = "; stop that worker or wait, then run this again" if not lost else "; this worker stops"
+        super().__init__(head + (f"; {until}" if until else "") + tail)
 
 
 class Store(ABC):
@@ -246,6 +323,22 @@ class Store(ABC):
     @abstractmethod
     def save_state(self, name: str, state: Mapping) -> None:
         """Save JSON-serialisable state under ``name``, replacing what was there."""
+
+    # --- one worker per unit and store -------------------------------------------------------
+    @abstractmethod
+    def acquire_lease(self, unit: str, holder: LeaseHolder, lease: pd.Timedelta) -> None:
+        """Take the unit for ``holder`` for ``lease`` (renewed by ``renew_lease``), or raise
+        ``UnitBusyError`` naming the present holder. Taking a unit this store already holds
+        for the same holder renews it."""
+
+    @abstractmethod
+    def renew_lease(self, unit: str, holder: LeaseHolder, lease: pd.Timedelta) -> None:
+        """Extend the holder's lease to ``lease`` from now; ``UnitBusyError`` (``lost``) when
+        another holder has the unit now."""
+
+    @abstractmethod
+    def release_lease(self, unit: str, holder: LeaseHolder) -> None:
+        """Give the unit up (nothing when not held)."""
 
     def close(self) -> None:  # noqa: B027 (optional hook: a store without connections keeps it)
         """Release connections. Safe to call twice."""

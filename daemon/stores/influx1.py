@@ -45,19 +45,21 @@ from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
+    LeaseOnState,
     LineProtocolWriter,
     StateClock,
     authorization_error,
     certificate_failure,
     classify_http,
     delete_statement,
+    influxql_time,
     state_line,
     time_windows,
     tls_verify,
 )
 
 
-class Influx1Store(LineProtocolWriter, Store):
+class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
     """Store on an InfluxDB v1 HTTP API.
 
     Parameters
@@ -395,6 +397,29 @@ class Influx1Store(LineProtocolWriter, Store):
     def _save_state(self, kind: str, name: str, value: str) -> None:
         line = state_line(kind, name, value, self._clock.next())
         self._write([line], f"save {kind} {name!r}")
+
+    def _lease_values(self, unit: str, after: pd.Timestamp) -> list[str]:
+        q = (
+            f'SELECT "value" FROM {self._from(STATE_MEASUREMENT)} WHERE "kind"::tag = \'lease\' '
+            f'AND "name"::tag = {escape.influxql_string(unit)} AND time > {influxql_time(after)}'
+        )
+        params = {"db": self.database, "epoch": "ns", "q": q}
+        if self.retention_policy:
+            params["rp"] = self.retention_policy
+        text = self._request(
+            "POST",
+            "/query",
+            f"read the leases of unit {unit!r}",
+            data=params,
+            headers={"Accept": "application/csv"},
+        ).content.decode("utf-8")
+        rows = list(csv.reader(io.StringIO(text)))
+        if len(rows) < 2:
+            return []
+        header = rows[0]
+        i_time, i_value = header.index("time"), header.index("value")
+        body = sorted((r for r in rows[1:] if len(r) == len(header)), key=lambda r: int(r[i_time]))
+        return [r[i_value] for r in body]
 
     def get_checkpoint(self, name: str) -> pd.Timestamp | None:
         v = self._last_state("checkpoint", name)

@@ -83,6 +83,7 @@ from isentrope.daemon.stores.influx_common import (
     RAW,
     RESULTS,
     STATE_MEASUREMENT,
+    LeaseOnState,
     LineProtocolWriter,
     StateClock,
     authorization_error,
@@ -133,7 +134,7 @@ def flux_time(t: pd.Timestamp) -> str:
     return t.strftime("%Y-%m-%dT%H:%M:%S") + f".{t.value % 1_000_000_000:09d}Z"
 
 
-class Influx2Store(LineProtocolWriter, Store):
+class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
     """Store on an InfluxDB v2 HTTP API.
 
     Parameters
@@ -628,6 +629,21 @@ class Influx2Store(LineProtocolWriter, Store):
 
     def _save_state(self, kind: str, name: str, value: str) -> None:
         self._write([state_line(kind, name, value, self._clock.next())], f"save {kind} {name!r}")
+
+    def _lease_values(self, unit: str, after: pd.Timestamp) -> list[str]:
+        flux = (
+            f"from(bucket: {escape.flux_string(self.results_bucket)})\n"
+            f"  |> range(start: {flux_time(after)})\n"
+            f"  |> filter(fn: (r) => {self._filter(STATE_MEASUREMENT, ['value'], {'kind': 'lease', 'name': unit})})\n"
+            '  |> keep(columns: ["_time", "_value"])\n'
+            "  |> group()\n"
+            '  |> sort(columns: ["_time"])'
+        )
+        blocks = [b for b in self.query_csv(flux, f"read the leases of unit {unit!r}", RESULTS) if len(b)]
+        if not blocks:
+            return []
+        frame = pd.concat(blocks).sort_values("_time", kind="stable")
+        return [str(v) for v in frame["_value"]]
 
     def get_checkpoint(self, name: str) -> pd.Timestamp | None:
         v = self._last_state("checkpoint", name)

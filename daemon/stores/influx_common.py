@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import re
 import threading
 import time
@@ -19,7 +20,9 @@ from isentrope.daemon.stores.base import (
     AuthorizationError,
     CertificateError,
     FatalStoreError,
+    LeaseHolder,
     TemporaryStoreError,
+    UnitBusyError,
 )
 
 #: Measurement holding checkpoints and saved state: tags ``kind`` ("checkpoint" or "state")
@@ -356,6 +359,108 @@ def keep_unwritten(store, err: Exception, lines: list[str]) -> None:
     store.pending = list(lines) if isinstance(err, TemporaryStoreError) else []
     if isinstance(err, FieldTypeConflictError):
         err.note_batch(lines[: getattr(store, "batch_size", len(lines))])
+
+
+#: Longest lease a holder may take; lease points older than this plus an hour are not read.
+LEASE_LONGEST = pd.Timedelta(days=1)
+
+#: Seconds between writing a lease claim and reading the claims back. Two claims are settled by
+#: their ``since`` times (earliest wins), which is safe when every claim written before a
+#: reader's ``since`` is readable when that reader looks: the pause must exceed the time a write
+#: takes to become readable and the clock difference between the hosts (NTP keeps it to
+#: milliseconds). Project choice, no source.
+LEASE_CONFIRM_DELAY = 1.0
+
+
+class LeaseOnState:
+    """One worker per unit on an InfluxDB store: lease points in ``STATE_MEASUREMENT``.
+
+    Each claim, renewal and release is a point of the series (kind "lease", name = unit) whose
+    value is JSON: the holder (``LeaseHolder``), ``since`` (when it asked) and ``expires``.
+    A holder's state is its last point. To take a unit a holder writes a claim, waits
+    ``LEASE_CONFIRM_DELAY`` and reads every claim of the last ``LEASE_LONGEST``; of the
+    unexpired ones, the earliest ``since`` (then the holder id) wins; a loser writes its claim
+    as released and is refused with the winner's name. A renewal first reads: another holder
+    in front (this one's lease ran out, e.g. the process was frozen) means the unit is lost.
+    A crashed holder stops holding when its lease expires. Hosts' clocks must agree to well
+    under the lease and the confirmation pause.
+
+    Subclasses give ``_save_state(kind, name, value)`` and ``_lease_values(unit, after)``: the
+    values of the unit's lease points after ``after``, in time order.
+    """
+
+    def _lease_values(self, unit: str, after: pd.Timestamp) -> list[str]:  # pragma: no cover
+        raise NotImplementedError
+
+    def _lease_write(self, unit: str, holder: LeaseHolder, since, expires) -> None:
+        record = {**holder.as_dict(), "since": since.isoformat(), "expires": expires.isoformat()}
+        self._save_state("lease", unit, json.dumps(record, sort_keys=True))
+
+    def _lease_claims(
+        self, unit: str, now: pd.Timestamp
+    ) -> list[tuple[pd.Timestamp, str, LeaseHolder, pd.Timestamp]]:
+        """Unexpired claims as (since, holder id, holder, expires), earliest first."""
+        last: dict[str, dict] = {}
+        for text in self._lease_values(unit, now - LEASE_LONGEST - pd.Timedelta(hours=1)):
+            try:
+                d = json.loads(text)
+                holder = LeaseHolder.from_dict(d)
+                last[holder.id] = {
+                    "holder": holder,
+                    "since": pd.Timestamp(d["since"]),
+                    "expires": pd.Timestamp(d["expires"]),
+                }
+            except (ValueError, KeyError, TypeError):
+                continue  # not a lease record of ours: ignored
+        claims = [
+            (c["since"], hid, c["holder"], c["expires"]) for hid, c in last.items() if c["expires"] > now
+        ]
+        return sorted(claims, key=lambda c: (c[0], c[1]))
+
+    def acquire_lease(self, unit: str, holder: LeaseHolder, lease: pd.Timedelta) -> None:
+        escape.check_name(unit, "unit name")
+        lease = pd.Timedelta(lease)
+        if not pd.Timedelta(0) < lease <= LEASE_LONGEST:
+            raise ValueError(f"a lease must be longer than 0 s and at most {LEASE_LONGEST}, found {lease}")
+        held = self.__dict__.setdefault("_held_leases", {})  # unit -> (since, expires)
+        if unit in held:
+            self.renew_lease(unit, holder, lease)
+            return
+        since = pd.Timestamp.now(tz="UTC")
+        self._lease_write(unit, holder, since, since + lease)
+        time.sleep(LEASE_CONFIRM_DELAY)
+        claims = self._lease_claims(unit, pd.Timestamp.now(tz="UTC"))
+        first = claims[0] if claims else None
+        if first is not None and first[1] != holder.id:
+            self._lease_write(unit, holder, since, since)  # withdrawn: expired at once
+            raise UnitBusyError(unit, repr(self), first[2], first[3])
+        held[unit] = (since, since + lease)
+
+    def renew_lease(self, unit: str, holder: LeaseHolder, lease: pd.Timedelta) -> None:
+        held = self.__dict__.setdefault("_held_leases", {})
+        if unit not in held:
+            raise UnitBusyError(unit, repr(self), None, lost=True)
+        since, expires = held[unit]
+        now = pd.Timestamp.now(tz="UTC")
+        # A claim made so late that its holder read the claims after this lease had run out
+        # has taken the unit; earlier claims saw this one and withdrew (or will).
+        late = [
+            c
+            for c in self._lease_claims(unit, now)
+            if c[1] != holder.id and c[0] + pd.Timedelta(seconds=LEASE_CONFIRM_DELAY) >= expires
+        ]
+        if late:
+            held.pop(unit, None)
+            raise UnitBusyError(unit, repr(self), late[0][2], late[0][3], lost=True)
+        new_expiry = now + pd.Timedelta(lease)
+        self._lease_write(unit, holder, since, new_expiry)
+        held[unit] = (since, new_expiry)
+
+    def release_lease(self, unit: str, holder: LeaseHolder) -> None:
+        held = self.__dict__.setdefault("_held_leases", {})
+        entry = held.pop(unit, None)
+        if entry is not None:
+            self._lease_write(unit, holder, entry[0], entry[0])
 
 
 class LineProtocolWriter:

@@ -39,6 +39,11 @@ Behaviour worth knowing:
 * A new tag key on an existing measurement rebuilds its table once with the wider key.
 * ``delete_results`` is a plain ``DELETE ... WHERE <tags> AND time >= ? AND time < ?``.
 * Table names ``samples`` and those starting with ``isentrope_`` or ``sqlite_`` are reserved.
+* One worker per unit: ``acquire_lease`` takes an exclusive ``flock`` on the lock file
+  ``<database>.<unit, percent-encoded>.lock`` beside the database and holds it until
+  ``release_lease`` or ``close``; the operating system releases it when the process ends,
+  however it ends, so the lease needs no expiry here. The file says who holds it (JSON) for
+  the refusal message; it is left in place (removing a lock file races with its next taker).
 * Grid reads (``Store.read_grid``) take the plain ``read_raw`` SELECT and the numpy windowing of
   ``Store.read_window_last``. A SQL ``GROUP BY (time + iv - 1) / iv`` with ``MAX(time)`` gives
   the same values but was slower: 30 days of one-minute rows of 16 tags, 2.2-3.2 s against
@@ -48,6 +53,8 @@ Behaviour worth knowing:
 
 from __future__ import annotations
 
+import errno
+import fcntl
 import itertools
 import json
 import os
@@ -55,13 +62,21 @@ import sqlite3
 import threading
 from collections.abc import Mapping, Sequence
 from pathlib import Path
+from urllib.parse import quote
 
 import numpy as np
 import pandas as pd
 
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common
-from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
+from isentrope.daemon.stores.base import (
+    DEFAULT_TIMEOUT_S,
+    FatalStoreError,
+    LeaseHolder,
+    Store,
+    TemporaryStoreError,
+    UnitBusyError,
+)
 from isentrope.daemon.stores.escape import check_name
 
 _SCHEMA = """
@@ -105,6 +120,7 @@ class SqliteStore(Store):
     def __init__(self, path: str | Path, timeout: float = DEFAULT_TIMEOUT_S):
         self.path = str(path)
         self._lock = threading.RLock()
+        self._leases: dict[str, tuple[int, str]] = {}  # unit -> (lock file descriptor, holder id)
         try:
             if self.path != ":memory:":
                 parent = Path(self.path).parent
@@ -407,8 +423,71 @@ class SqliteStore(Store):
             ),
         )
 
+    # --- one worker per unit ---------------------------------------------------------------
+    def lock_path(self, unit: str) -> Path:
+        """The lock file of ``unit`` beside the database."""
+        return Path(f"{self.path}.{quote(unit, safe='')}.lock")
+
+    def acquire_lease(self, unit: str, holder: LeaseHolder, lease: pd.Timedelta) -> None:
+        check_name(unit, "unit name")
+        with self._lock:
+            held = self._leases.get(unit)
+            if held is not None:
+                if held[1] == holder.id:
+                    return
+                raise UnitBusyError(unit, f"sqlite store {self.path}", None, until="in this process")
+            if self.path == ":memory:":  # private to this store object: nobody else can see it
+                self._leases[unit] = (-1, holder.id)
+                return
+            path = self.lock_path(unit)
+            try:
+                fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o640)
+            except OSError as exc:
+                raise FatalStoreError(f"sqlite store {self.path}: lock file {path}: {exc.strerror}") from None
+            try:
+                fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except OSError as exc:
+                text = os.pread(fd, 4096, 0).decode("utf-8", "replace")
+                os.close(fd)
+                if exc.errno not in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
+                    raise FatalStoreError(
+                        f"sqlite store {self.path}: lock file {path}: {exc.strerror}"
+                    ) from None
+                try:
+                    other = LeaseHolder.from_dict(json.loads(text))
+                except (ValueError, KeyError, TypeError):
+                    other = None
+                raise UnitBusyError(
+                    unit,
+                    f"sqlite store {self.path}",
+                    other,
+                    until=f"lock file {path}, released when that process ends",
+                ) from None
+            os.ftruncate(fd, 0)
+            os.pwrite(fd, json.dumps(holder.as_dict()).encode("utf-8"), 0)
+            self._leases[unit] = (fd, holder.id)
+
+    def renew_lease(self, unit: str, holder: LeaseHolder, lease: pd.Timedelta) -> None:
+        with self._lock:
+            held = self._leases.get(unit)
+            if held is None or held[1] != holder.id:
+                raise UnitBusyError(unit, f"sqlite store {self.path}", None, lost=True)
+
+    def release_lease(self, unit: str, holder: LeaseHolder) -> None:
+        with self._lock:
+            held = self._leases.get(unit)
+            if held is None or held[1] != holder.id:
+                return
+            del self._leases[unit]
+            if held[0] >= 0:
+                os.close(held[0])  # closing the only descriptor releases the flock
+
     def close(self) -> None:
         with self._lock:
+            for fd, _ in self._leases.values():
+                if fd >= 0:
+                    os.close(fd)
+            self._leases.clear()
             if not getattr(self, "_closed", True):
                 self._closed = True
                 self._db.close()

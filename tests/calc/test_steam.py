@@ -649,3 +649,37 @@ def test_every_public_function_has_a_numpydoc_docstring():
             if part not in doc:
                 missing.append(f"{name}: {part.strip()}")
     assert not missing, missing
+
+
+def _plain_rows_sum(b):
+    # the reference order: row 0, then each next row added one by one
+    out = b[0].copy()
+    for r in range(1, b.shape[0]):
+        out = out + b[r]
+    return out
+
+
+@pytest.mark.parametrize("rows", [1, 6, 9, 13, 27, 34])
+def test_rows_sum_adds_rows_in_order_for_every_block_size(rows):
+    # Property under test (issue 13 item 7), not a value: each point's sum is the plain
+    # row-by-row sum, whatever the number of points; numpy's pairwise summation over one
+    # point (rows >= 9) would differ in the last bits with these wide-ranging terms.
+    rng = np.random.default_rng(rows)
+    for m in [*range(1, 71), 127, 128, 129, steam._BLOCK - 1, steam._BLOCK]:
+        b = rng.normal(size=(rows, m)) * 10.0 ** rng.integers(-8, 8, size=(rows, m))
+        assert np.array_equal(steam._rows_sum(b), _plain_rows_sum(b)), m
+
+
+def test_a_point_gives_the_same_bits_alone_and_in_any_block():
+    # h, s and h(p, s) of a point do not depend on the points evaluated with it (issue 13
+    # item 7): alone, in a block of 2, in a full block and across a block boundary.
+    rng = np.random.default_rng(3)
+    n = steam._BLOCK + 50
+    p = np.exp(rng.uniform(np.log(0.005), np.log(20.0), n))
+    t = steam.t_sat(p) + rng.uniform(5.0, 200.0, n)
+    h, s = steam.h_pt(p, t), steam.s_pt(p, t)
+    hs = steam.h_ps(p * 0.3, s)
+    for k in (0, 1, 17, steam._BLOCK - 1, steam._BLOCK, n - 1):
+        assert steam.h_pt(p[k : k + 1], t[k : k + 1])[0] == h[k]
+        assert steam.s_pt(p[k : k + 2], t[k : k + 2])[0] == s[k]
+        assert steam.h_ps(p[k : k + 1] * 0.3, s[k : k + 1])[0] == hs[k]

@@ -103,7 +103,7 @@ def assert_same_results(a: pd.DataFrame, b: pd.DataFrame, rtol: float = SAME_RTO
 
 import json  # noqa: E402
 
-from isentrope.daemon.stores.base import Store, TemporaryStoreError  # noqa: E402
+from isentrope.daemon.stores.base import Store, TemporaryStoreError, UnitBusyError  # noqa: E402
 
 
 class MemoryStore(Store):
@@ -170,6 +170,20 @@ class MemoryStore(Store):
     def save_state(self, name, state):
         self.states[name] = json.dumps(state)
 
+    # one holder per unit, in this object only (the contract suite checks the real stores)
+    def acquire_lease(self, unit, holder, lease):
+        held = self.__dict__.setdefault("leases", {})
+        if held.setdefault(unit, holder.id) != holder.id:
+            raise UnitBusyError(unit, "memory store", None)
+
+    def renew_lease(self, unit, holder, lease):
+        if self.__dict__.get("leases", {}).get(unit) != holder.id:
+            raise UnitBusyError(unit, "memory store", None, lost=True)
+
+    def release_lease(self, unit, holder):
+        if self.__dict__.get("leases", {}).get(unit) == holder.id:
+            del self.leases[unit]
+
 
 class FailingStore(Store):
     """Wraps a store; the next ``fail[method]`` calls of a method raise TemporaryStoreError."""
@@ -219,6 +233,15 @@ class FailingStore(Store):
     def save_state(self, name, state):
         self._maybe_fail("save_state")
         return self.inner.save_state(name, state)
+
+    def acquire_lease(self, unit, holder, lease):
+        return self.inner.acquire_lease(unit, holder, lease)
+
+    def renew_lease(self, unit, holder, lease):
+        return self.inner.renew_lease(unit, holder, lease)
+
+    def release_lease(self, unit, holder):
+        return self.inner.release_lease(unit, holder)
 
 
 class FakeClock:

@@ -20,7 +20,13 @@ import pandas as pd
 import pytest
 
 from isentrope.daemon.roles import RoleMapping
-from isentrope.daemon.stores import FatalStoreError, TemporaryStoreError, open_store
+from isentrope.daemon.stores import (
+    FatalStoreError,
+    LeaseHolder,
+    TemporaryStoreError,
+    UnitBusyError,
+    open_store,
+)
 
 CASES = [
     "sqlite",
@@ -557,3 +563,131 @@ def test_a_refused_write_leaves_the_store_usable(case):
     np.testing.assert_allclose(
         got["hp_efficiency"].to_numpy(), (frame["hp_efficiency"] + 0.01).to_numpy(), rtol=0, atol=0
     )
+
+
+# --- one worker per unit and store ------------------------------------------------------------
+def _holder(command, host, pid):
+    return LeaseHolder(command, host, pid, pd.Timestamp("2026-03-01T08:00:00Z"))
+
+
+LEASE = pd.Timedelta("3m")
+
+
+def test_a_second_holder_is_refused_until_the_first_releases(case):
+    a, b = _holder("backfill", "host-a", 101), _holder("run", "host-b", 202)
+    case.store.acquire_lease("U7", a, LEASE)
+    case.store.acquire_lease("U7", a, LEASE)  # the same holder again: it keeps it
+    other = case.other()
+    try:
+        with pytest.raises(UnitBusyError) as refused:
+            other.acquire_lease("U7", b, LEASE)
+        text = str(refused.value)
+        assert "'U7'" in text and "backfill" in text and "host-a" in text and "pid 101" in text
+        assert "\n" not in text
+        assert refused.value.holder == a
+        other.acquire_lease("U8", b, LEASE)  # another unit on the same store is free
+        case.store.renew_lease("U7", a, LEASE)  # the refused claim did not take it from a
+        case.store.release_lease("U7", a)
+        other.acquire_lease("U7", b, LEASE)
+        with pytest.raises(UnitBusyError, match="host-b"):
+            case.store.acquire_lease("U7", a, LEASE)
+        other.release_lease("U7", b)
+        other.release_lease("U8", b)
+    finally:
+        other.close()
+
+
+def test_exactly_one_of_simultaneous_claims_wins(case):
+    import threading
+
+    stores = [case.other() for _ in range(3)]
+    outcome: dict[int, str] = {}
+    go = threading.Barrier(len(stores))
+
+    def claim(i):
+        go.wait()
+        try:
+            stores[i].acquire_lease("U7", _holder("backfill", f"host-{i}", 300 + i), LEASE)
+            outcome[i] = "won"
+        except UnitBusyError:
+            outcome[i] = "refused"
+
+    threads = [threading.Thread(target=claim, args=(i,)) for i in range(len(stores))]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    try:
+        assert sorted(outcome.values()) == ["refused", "refused", "won"], outcome
+    finally:
+        for s in stores:
+            s.close()
+
+
+def test_a_crashed_holder_stops_holding(case, tmp_path):
+    b = _holder("run", "host-b", 202)
+    if case.name == "sqlite":
+        # a holder process killed with SIGKILL: the operating system ends its lock
+        import signal
+        import subprocess
+        import sys
+
+        code = (
+            "import sys, time, pandas as pd\n"
+            "from isentrope.daemon.stores import LeaseHolder, open_store\n"
+            "s = open_store('sqlite', path=sys.argv[1])\n"
+            "s.acquire_lease('U7', LeaseHolder.this_process('backfill'), pd.Timedelta('3m'))\n"
+            "print('held', flush=True)\n"
+            "time.sleep(120)\n"
+        )
+        proc = subprocess.Popen(
+            [sys.executable, "-c", code, str(tmp_path / "unit.sqlite")], stdout=subprocess.PIPE, text=True
+        )
+        try:
+            assert proc.stdout.readline().strip() == "held"
+            with pytest.raises(UnitBusyError, match=f"pid {proc.pid}"):
+                case.store.acquire_lease("U7", b, LEASE)
+        finally:
+            proc.send_signal(signal.SIGKILL)
+            proc.wait(timeout=30)
+            proc.stdout.close()
+        case.store.acquire_lease("U7", b, LEASE)
+        return
+    # InfluxDB: a holder that stops renewing loses the unit when its lease expires
+    import time
+
+    a = _holder("backfill", "host-a", 101)
+    lease = pd.Timedelta("4s")
+    case.store.acquire_lease("U7", a, lease)
+    other = case.other()
+    try:
+        with pytest.raises(UnitBusyError, match="lease expires") as refused:
+            other.acquire_lease("U7", b, LEASE)
+        expires = refused.value.expires
+        time.sleep(max(0.0, (expires - pd.Timestamp.now(tz="UTC")).total_seconds()) + 0.3)
+        other.acquire_lease("U7", b, LEASE)  # the stale lease does not hold any more
+        with pytest.raises(UnitBusyError, match="taken over") as lost:  # a wakes up: lost
+            case.store.renew_lease("U7", a, lease)
+        assert lost.value.lost and lost.value.holder == b
+        with pytest.raises(UnitBusyError):
+            case.store.acquire_lease("U7", a, lease)
+    finally:
+        other.close()
+
+
+def test_a_renewed_lease_keeps_holding(case):
+    import time
+
+    a, b = _holder("backfill", "host-a", 101), _holder("run", "host-b", 202)
+    lease = pd.Timedelta("3s")
+    case.store.acquire_lease("U7", a, lease)
+    deadline = time.monotonic() + 4.5
+    while time.monotonic() < deadline:  # renewed every second, for longer than the lease
+        time.sleep(1.0)
+        case.store.renew_lease("U7", a, lease)
+    other = case.other()
+    try:
+        with pytest.raises(UnitBusyError, match="host-a"):
+            other.acquire_lease("U7", b, LEASE)
+    finally:
+        other.close()
