@@ -55,13 +55,17 @@ def check_name(name: str, what: str = "name") -> str:
 def flux_string(value: str) -> str:
     """A Flux string literal holding ``value`` exactly: ``"..."`` with ``\\``, ``"`` escaped.
 
-    ``${`` is escaped as ``\\${`` so that it is never read as string interpolation.
+    Every ``$`` is written as the byte escape ``\\x24``, so that ``${`` is never read as string
+    interpolation and a ``$`` before an escape still compiles: the Flux of InfluxDB 2.9.1
+    refuses ``"$\\""`` ("invalid escape sequence") and ``"\\$\\""`` (it allows ``\\$`` only
+    before ``{``), and ``"\\x24\\""`` matches the tag value ``$"`` on 2.9.1 and 1.8.10
+    (measured).
     """
     if not isinstance(value, str):
         raise ValueError(f"Flux string must be a string, found {type(value).__name__} {value!r}")
     if _FORBIDDEN.search(value):
         raise ValueError(f"Flux string {value!r} holds a newline or another control character")
-    out = value.replace("\\", "\\\\").replace('"', '\\"').replace("${", "\\${")
+    out = value.replace("\\", "\\\\").replace('"', '\\"').replace("$", "\\x24")
     return f'"{out}"'
 
 
