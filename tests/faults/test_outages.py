@@ -30,7 +30,7 @@ from isentrope.daemon.worker import STATUS_MEASUREMENT, Worker
 TAGS = {"unit": UNIT}
 FIRST = ws.START + pd.Timedelta("5h")
 #: how long each fault lasts [s]; the store's timeout is 2 s, the retries' backoff 0.5 s to 2 s
-OUTAGE_S = 4.0
+OUTAGE_S = 3.0
 RETRIES = 'retries = 12\nbackoff = "0.5s"\nbackoff_max = "2s"'
 
 
@@ -66,7 +66,7 @@ def test_backfill_through_a_stopped_frozen_and_killed_server_ends_with_the_unint
     kind = "influx1-1.6"
     server = request.getfixturevalue("influxdb_v1")
     raw = ws.plant_history(1.0, freq="5min")
-    start, end = FIRST, FIRST + pd.Timedelta("10h")
+    start, end = FIRST, FIRST + pd.Timedelta("8h")
     args = ["--start", start.isoformat(), "--end", end.isoformat(), "--chunk", "1h", "--no-progress"]
     replace = [
         ('timeout = "30s"', 'timeout = "2s"'),
