@@ -28,10 +28,11 @@ import sys
 import pandas as pd
 import pytest
 import worker_support as ws
-from test_kills import UNIT, compare_exactly, results
 
 from isentrope.daemon.cli import main as cli_main
 from isentrope.daemon.stores.sqlite import SqliteStore
+
+from .test_kills import UNIT, compare_exactly, results
 
 TAGS = {"unit": UNIT}
 FIRST = ws.START + pd.Timedelta("5h")

@@ -21,13 +21,14 @@ import numpy as np
 import pandas as pd
 import pytest
 import worker_support as ws
-from fault_stores import KINDS, store_place
 from hypothesis import HealthCheck, assume, example, given, settings
 from hypothesis import strategies as st
 
 from isentrope.daemon.config import parse_config
 from isentrope.daemon.errors import ConfigError
 from isentrope.daemon.stores import escape
+
+from .fault_stores import KINDS, store_place
 
 pytestmark = pytest.mark.faults
 

@@ -23,10 +23,11 @@ import time
 import pandas as pd
 import pytest
 import worker_support as ws
-from fault_stores import store_place
 
 from isentrope.daemon.cli import main as cli_main
 from isentrope.daemon.commands.backfill import checkpoint_name
+
+from .fault_stores import store_place
 
 UNIT = "Greywater Bend 2"
 TAGS = {"unit": UNIT}

@@ -19,13 +19,14 @@ import time
 import pandas as pd
 import pytest
 import worker_support as ws
-from test_kills import UNIT, cli, compare_exactly, results, unit_store
 
 from isentrope.daemon.cli import main as cli_main
 from isentrope.daemon.commands.backfill import checkpoint_name
 from isentrope.daemon.config import load_config
 from isentrope.daemon.pipeline import Pipeline
 from isentrope.daemon.worker import STATUS_MEASUREMENT, Worker
+
+from .test_kills import UNIT, cli, compare_exactly, results, unit_store
 
 TAGS = {"unit": UNIT}
 FIRST = ws.START + pd.Timedelta("5h")
