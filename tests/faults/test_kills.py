@@ -98,7 +98,7 @@ def kill_loop(args, store, checkpoint: str, *, env=None, rng: random.Random, fir
             while proc.poll() is None and time.monotonic() < deadline:
                 now = store.get_checkpoint(checkpoint)
                 if now is not None and (before is None or now > before):
-                    time.sleep(rng.uniform(0.0, 0.25))  # into the next chunk
+                    time.sleep(rng.uniform(0.0, 0.1))  # into the next chunk (one takes 0.1-0.5 s)
                     break
                 time.sleep(0.02)
             assert proc.poll() is None, f"finished before the kill: {proc.communicate()[1][-2000:]}"
@@ -119,7 +119,7 @@ def test_backfill_killed_five_times_ends_with_the_uninterrupted_results(
 ):
     raw = ws.plant_history(1.0, freq="5min")
     start = ws.START + pd.Timedelta("5h")
-    end = start + pd.Timedelta("11h")
+    end = start + pd.Timedelta("14h")
     args = ["--start", start.isoformat(), "--end", end.isoformat(), "--chunk", "1h", "--no-progress"]
     ref_place, ref_cfg, ref = unit_store(request, kind, tmp_path, "reference", raw)
     place, cfg, store = unit_store(request, kind, tmp_path, "victim", raw)
@@ -165,7 +165,7 @@ def test_run_killed_five_times_ends_with_the_uninterrupted_results(request, kind
     # the data end well before now - settle - the pipeline's after-margin, so that every result
     # of them is final in both runs, whenever each ran
     data_end = pd.Timestamp.now(tz="UTC").floor("5min") - pd.Timedelta("6h")
-    idx = pd.date_range(data_end - pd.Timedelta("16h"), data_end, freq="5min", inclusive="left", name="time")
+    idx = pd.date_range(data_end - pd.Timedelta("20h"), data_end, freq="5min", inclusive="left", name="time")
     raw = ws.plant_history(1.0, freq="5min").iloc[: len(idx)].set_axis(idx, axis=0)
     seeded = idx[0] + pd.Timedelta("5h")  # the checkpoint the worker had before its stop
     replace = [('interval = "5m"', 'interval = "1s"'), ('chunk = "6h"', 'chunk = "1h"')]
