@@ -1004,6 +1004,39 @@ def _check_unit_name(r: _Reader, name: str, kind: str) -> None:
         r.problem(("unit", "name"), f"the {kind} store cannot write it: {exc}")
 
 
+def _check_role_names(r: _Reader, roles: dict[str, RoleMapping], kind: str) -> None:
+    """Refuse at load a role's measurement, field or tag name that the store cannot write as it
+    is read, naming the key (``isentrope.daemon.stores.escape``): on every store a control
+    character (newline, tab, ...); on the InfluxDB stores also a backslash at the end or right
+    before a comma, a space, an equals sign or (measurements) a double quote, which line
+    protocol cannot write; on the Flux store a tag key ``$`` (``escape.flux_tag_key``).
+    SQLite holds any other name (its SQL takes names as parameters or quoted identifiers)."""
+    from isentrope.daemon.stores import escape
+
+    influx = kind in ("influx1", "influx2")
+    for role, m in roles.items():
+        p = ("roles", role)
+        field_key = p + ("field",) if m.field else p + ("tag",)
+        checks = [
+            (p + ("tag",), m.tag, escape.check_name),
+            (p + ("measurement",), m.measurement, escape.lp_measurement if influx else escape.check_name),
+            (field_key, m.field_name, escape.lp_field_key if influx else escape.check_name),
+        ]
+        for k, v in m.tags.items():
+            checks += [
+                (p + ("tags",), k, escape.lp_tag_key if influx else escape.check_name),
+                (p + ("tags",), k, escape.flux_tag_key if kind == "influx2" else escape.check_name),
+                (p + ("tags",), v, escape.lp_tag_value if influx else escape.check_name),
+            ]
+        for key, name, check in checks:
+            if r.problems_for(key):
+                continue
+            try:
+                check(name)
+            except ValueError as exc:
+                r.problem(key, f"the {kind} store cannot write it: {exc}")
+
+
 def _units_module():
     """isentrope.calc.units, imported on first use."""
     from isentrope.calc import units
@@ -1599,6 +1632,7 @@ def parse_config(
     store = _read_store(r, top, base_dir, environ)
     _check_unit_name(r, unit.name, store.kind)
     roles, unc = _read_roles(r, top)
+    _check_role_names(r, roles, store.kind)
     screening = _read_screening(r, top)
     steady = _read_steady(r, top)
     sections = _read_sections(r, top, roles)

@@ -1,6 +1,6 @@
-"""Faults the worker must survive, against real stores: a worker killed with SIGKILL in the middle
-of a backfill, an InfluxDB server stopped part-way through a run of cycles, raw data with
-strings, NaN, out-of-range values, duplicate times and gaps, and a clean stop on SIGTERM.
+"""Faults the worker must survive, against real stores: raw data with strings, NaN, out-of-range
+values, duplicate times and gaps, a clean stop on SIGTERM, an unreachable store, a bad
+configuration. Kills, server outages and the rest of the fault suite are in tests/faults.
 
 Data: a short synthetic history of the fictional Greywater Bend Unit 2
 (isentrope.daemon.synthetic), five-minute samples to keep the tests quick.
@@ -9,7 +9,6 @@ Data: a short synthetic history of the fictional Greywater Bend Unit 2
 from __future__ import annotations
 
 import os
-import random
 import signal
 import sqlite3
 import subprocess
@@ -22,9 +21,7 @@ import pytest
 import worker_support as ws
 
 from isentrope.daemon.cli import main as cli_main
-from isentrope.daemon.commands.backfill import checkpoint_name
 from isentrope.daemon.config import load_config
-from isentrope.daemon.pipeline import Pipeline
 from isentrope.daemon.stores.sqlite import SqliteStore
 from isentrope.daemon.worker import STATUS_MEASUREMENT, Worker
 
@@ -65,137 +62,6 @@ def cli(*args: str) -> subprocess.Popen:
         text=True,
         env=env,
     )
-
-
-# --- SIGKILL in the middle of a backfill ------------------------------------------------------
-
-
-@pytest.mark.slow
-def test_a_backfill_killed_with_sigkill_resumes_and_ends_with_the_uninterrupted_results(tmp_path):
-    raw = ws.plant_history(1.5, freq="5min")
-    start, end = FIRST, FIRST + pd.Timedelta("9h")
-    args = ["--start", start.isoformat(), "--end", end.isoformat(), "--chunk", "3h"]
-
-    ref_cfg, ref = sqlite_unit(tmp_path, "reference", raw)
-    assert cli_main(["backfill", "-c", str(ref_cfg), *args, "--no-progress"]) == 0
-
-    cfg, store = sqlite_unit(tmp_path, "victim", raw)
-    name = checkpoint_name(UNIT, start, end)
-    proc = cli("backfill", "-c", str(cfg), *args)
-    deadline = time.monotonic() + 120
-    killed_at = None
-    while time.monotonic() < deadline and proc.poll() is None:
-        cp = store.get_checkpoint(name)
-        if cp is not None and cp >= start + pd.Timedelta("3h"):  # the first chunk is in
-            os.kill(proc.pid, signal.SIGKILL)
-            killed_at = cp
-            break
-        time.sleep(0.05)
-    _, err = proc.communicate(timeout=30)
-    assert proc.returncode == -signal.SIGKILL, err
-    assert killed_at is not None and killed_at < end  # killed in the middle, not after the end
-    partial = store.read_results("section_samples", start, end, TAGS)
-    assert 0 < len(partial) < len(ref.read_results("section_samples", start, end, TAGS))
-
-    again = cli("backfill", "-c", str(cfg), *args)
-    out, err = again.communicate(timeout=180)
-    assert again.returncode == 0, err
-    assert "resuming backfill" in err and "h/" in err  # the log line and the progress bar (stderr)
-    assert store.get_checkpoint(name) == end
-
-    results = assert_same_store_results(ref, store)
-    assert len(results["section_samples"]) == ((raw.index >= start) & (raw.index < end)).sum()
-    assert len(results["steady_windows"]) >= 2
-    # no duplicates, asked of the file with plain SQL, not through our store
-    with sqlite3.connect(tmp_path / "victim.sqlite") as db:
-        for table in ("section_samples", "steady_windows"):
-            dup = db.execute(
-                f'SELECT unit, time, COUNT(*) FROM "{table}" GROUP BY unit, time HAVING COUNT(*) > 1'
-            ).fetchall()
-            assert dup == [], table
-            n = db.execute(f'SELECT COUNT(*) FROM "{table}"').fetchone()[0]
-            assert n == len(results[table])
-
-
-# --- the InfluxDB server stopped part-way through a run of cycles ----------------------------
-
-
-@pytest.mark.influx
-@pytest.mark.slow
-def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_up(influxdb_v2, tmp_path):
-    from isentrope.daemon.stores import open_store
-
-    raw = ws.plant_history(1.0, freq="5min")
-
-    def unit(name: str):
-        db = influxdb_v2.new_database(name)
-        store_table = ws.store_toml(
-            "influx2",
-            url=influxdb_v2.url,
-            org="isentrope",
-            bucket=influxdb_v2.bucket(db),
-            token="${ISENTROPE_TEST_TOKEN}",
-            timeout="30s",
-        )  # generous: the test machine is shared
-        path = ws.write_config(tmp_path / f"{name}.toml", store_table)
-        config = load_config(path, environ={"ISENTROPE_TEST_TOKEN": "isentrope:unused"})
-        store = open_store(config.store.kind, **config.store.open_options())
-        store.write_raw(config.mappings, raw)
-        return config, store
-
-    times = [ws.START + pd.Timedelta("10h") + k * pd.Timedelta("2h") for k in range(3)]
-
-    def worker(config, store, clock):
-        return Worker.from_config(
-            config,
-            store,
-            pipeline=pipeline,
-            start_default=FIRST,
-            clock=clock,
-            sleep=lambda s: None,
-            rng=random.Random(5),
-        )
-
-    cfg_a, a = unit("steady")
-    pipeline = Pipeline(cfg_a)
-    clock_a = ws.FakeClock(times[0])
-    wa = worker(cfg_a, a, clock_a)
-    for t in times:
-        clock_a.now = t
-        assert wa.run_cycle().ok
-
-    cfg_b, b = unit("outage")
-    clock_b = ws.FakeClock(times[0])
-    wb = worker(cfg_b, b, clock_b)
-    reports = []
-    try:
-        for k, t in enumerate(times):
-            clock_b.now = t
-            if k == 1:
-                influxdb_v2.stop()  # the database goes away for a cycle
-            if k == 2:
-                influxdb_v2.start()
-            reports.append(wb.run_cycle())  # never raises for a temporary outage
-    finally:
-        if not influxdb_v2.running:
-            influxdb_v2.start()
-    assert [r.ok for r in reports] == [True, False, True]
-    assert "store unreachable" in reports[1].error
-    assert reports[2].chunks_done >= 2  # caught up from the checkpoint in chunks
-    assert a.get_checkpoint(wa.checkpoint_name) == b.get_checkpoint(wb.checkpoint_name)
-    results = assert_same_store_results(a, b)
-    assert len(results["section_samples"]) > 50 and len(results["steady_windows"]) >= 2
-    status = b.read_results(
-        STATUS_MEASUREMENT, times[0], times[-1] + pd.Timedelta("1h"), {**TAGS, "worker": wb.checkpoint_name}
-    )
-    # heartbeats of the cycles the server was up for (the store may deliver the one of the
-    # outage later, from its kept batch: then it says the cycle failed)
-    assert {times[0], times[2]} <= set(status.index)
-    assert status.loc[times[2], "ok"] == 1.0 and status.loc[times[2], "lag_s"] > 0
-    if times[1] in status.index:
-        assert status.loc[times[1], "ok"] == 0.0
-    a.close()
-    b.close()
 
 
 # --- bad raw data -----------------------------------------------------------------------------

@@ -11,8 +11,6 @@ from __future__ import annotations
 
 import base64
 import logging
-import os
-import subprocess
 import sys
 from pathlib import Path
 
@@ -166,58 +164,8 @@ def cli_config(tmp_path: Path, url: str, store: str) -> Path:
     return path
 
 
-COMMANDS = {
-    "check": ["check", "--end", "2026-05-04T12:00Z", "--since", "2h"],
-    "run": ["run", "--once"],
-    "backfill": ["backfill", "--start", "2026-05-03", "--end", "2026-05-04", "--no-progress"],
-}
-
-
-@pytest.mark.parametrize("debug", [False, True], ids=["plain", "debug"])
-@pytest.mark.parametrize("status", [401, 500])
-@pytest.mark.parametrize("store", list(CLI_STORES))
-def test_command_line_never_shows_a_secret(tmp_path, capsys, caplog, monkeypatch, store, status, debug):
-    for k, v in SECRET_ENV.items():
-        monkeypatch.setenv(k, v)
-    caplog.set_level(logging.DEBUG)
-    with LocalServer("echo", status=status) as server:
-        path = cli_config(tmp_path, server.url, CLI_STORES[store])
-        for name, argv in COMMANDS.items():
-            rc = cli.main((["--debug"] if debug else []) + argv[:1] + ["-c", str(path)] + argv[1:])
-            out = capsys.readouterr()
-            # a refused credential (401) is a configuration error (exit 2); a server error is not
-            assert rc in ((2,) if status == 401 else (1, 3)), (name, rc, out.err)
-            text = out.out + out.err + caplog.text
-            assert not leaks(text), (name, text)
-            assert "***" in text, (name, text)  # the echo reached a message, redacted
-            if debug and "isentrope: " in out.err:  # an error line: its traceback before it
-                assert "Traceback" in out.err, name
-            caplog.clear()
-
-
-@pytest.mark.slow
-@pytest.mark.parametrize(
-    "store, status, debug, command",
-    [
-        ("influx2-pair", 500, True, "run"),
-        ("influx1-basic", 401, True, "backfill"),
-        ("influx1-token", 500, False, "check"),
-    ],
-)
-def test_command_line_process_never_shows_a_secret(tmp_path, store, status, debug, command):
-    """The real process: its own stderr log handler, the interpreter's output."""
-    with LocalServer("echo", status=status) as server:
-        path = cli_config(tmp_path, server.url, CLI_STORES[store])
-        argv = COMMANDS[command]
-        cmd = [sys.executable, "-m", "isentrope.daemon.cli", *(["--debug"] if debug else [])]
-        cmd += [argv[0], "-c", str(path), *argv[1:]]
-        done = subprocess.run(
-            cmd, capture_output=True, text=True, timeout=120, env={**os.environ, **SECRET_ENV}, check=False
-        )
-    text = done.stdout + done.stderr
-    assert done.returncode in ((2,) if status == 401 else (1, 3)), text
-    assert "***" in text, text
-    assert not leaks(text), text
+# The command line against the echoing server (in-process and as a process, every command,
+# the files it writes): tests/faults/test_secrets_echo.py
 
 
 # --------------------------------------------------------------------------------------

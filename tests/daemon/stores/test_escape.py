@@ -23,7 +23,8 @@ def test_flux_string():
     assert e.flux_string('a"b') == '"a\\"b"'
     assert e.flux_string("a\\b") == '"a\\\\b"'
     assert e.flux_string('x") |> drop(') == '"x\\") |> drop("'
-    assert e.flux_string("cost ${x}") == '"cost \\${x}"'
+    assert e.flux_string("cost ${x}") == '"cost \\x24{x}"'
+    assert e.flux_string('$"') == '"\\x24\\""'  # 2.9.1 refuses "$\\"" (escape.py)
 
 
 def test_influxql_quoting():
@@ -62,6 +63,21 @@ def test_bad_names_rejected(bad):
 def test_ambiguous_backslashes_rejected(bad):
     with pytest.raises(ValueError, match="backslash"):
         e.lp_tag_value(bad)
+
+
+def test_what_the_servers_unescape_beyond_the_reference():
+    """Measured on influxd 1.6.7 and 1.8.10 (daemon/stores/escape.py): a field key's ``\\"`` is
+    read as ``"``; a measurement's ``\\=`` and ``\\"`` cannot be written; Flux on 1.8 finds
+    no point of a tag key ``$``."""
+    assert e.lp_field_key('a"b') == 'a\\"b'
+    assert e.lp_field_key('a\\"b') == 'a\\\\"b'  # the backslash literal, the quote escaped
+    assert e.lp_tag_key('k\\"') == 'k\\"'  # tag keys keep it as written
+    for bad in ("a\\=b", 'a\\"b'):
+        with pytest.raises(ValueError, match="backslash"):
+            e.lp_measurement(bad)
+    with pytest.raises(ValueError, match="Flux"):
+        e.flux_tag_key("$")
+    assert e.flux_tag_key("$a") == "$a"
 
 
 def test_hash_measurement_rejected_and_nan_float():

@@ -1,0 +1,1 @@
+"""The fault suite (see conftest.py)."""
