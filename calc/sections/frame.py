@@ -6,7 +6,7 @@ HP, IP and LP dry group (``dry``), the LP exhaust chain (``lp`` or the energy ba
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -169,49 +169,112 @@ def _section_group(inp, roles, end_state=False):
     return section_core(*(inp[r] for r in roles), end_state=end_state)
 
 
-def _lp_figures(inp, cfg):
+@dataclass(frozen=True)
+class LPOptions:
+    """How ``evaluate`` computes the LP exhaust chain: its checked arguments and the mode.
+
+    Attributes
+    ----------
+    mode : str
+        "expansion" (an assumed LP efficiency with the Baumann correction) or
+        "energy_balance" (the UEEP from the generator output).
+    eta_source : str
+        "design" (``eta_lp_design``) or "measured" (the LP dry group's efficiency of the row).
+    eta_lp_design : float
+        LP dry efficiency of the expansion when ``eta_source`` is "design" [-].
+    baumann : float
+        Baumann coefficient a [-].
+    annulus_area : float or None
+        Total last-stage annulus area [m2]; None: no exhaust loss.
+    curve : ExhaustLossCurve
+        Exhaust loss [kJ/kg] against annulus velocity [m/s].
+    lp_exhaust_flow_fraction : float or None
+        LP exhaust flow as a fraction of main steam flow [-].
+    flow_fractions : FlowFractions or None
+        Effective section flows of the energy balance [-].
+    losses_mw : float or None
+        Mechanical plus generator losses of the energy balance [MW].
+    eta_shift : float
+        Added to the assumed LP efficiency (the band of that assumption) [-].
+    """
+
+    mode: str
+    eta_source: str
+    eta_lp_design: float
+    baumann: float
+    annulus_area: float | None
+    curve: ExhaustLossCurve
+    lp_exhaust_flow_fraction: float | None
+    flow_fractions: FlowFractions | None
+    losses_mw: float | None
+    eta_shift: float = 0.0
+
+
+@dataclass
+class LPCache:
+    """What the evaluations of the LP chain within one ``evaluate`` call share.
+
+    Attributes
+    ----------
+    inlet_states : InletStates
+        Crossover states, shared with the LP dry group.
+    saturation : dict
+        ``id(p_exh)`` -> (p_exh, saturation values, volumes) at the exhaust pressure.
+    expansion : tuple or None
+        (input arrays, ``lp_core`` result) of the first expansion, reused while the arrays
+        are the same objects.
+    energy_balance : dict
+        Part name ("hp", "ip", "lp_inlet") -> (input arrays, value), likewise.
+    """
+
+    inlet_states: InletStates
+    saturation: dict = field(default_factory=dict)
+    expansion: tuple | None = None
+    energy_balance: dict = field(default_factory=dict)
+
+
+def _lp_figures(inp, opts: LPOptions, cache: LPCache):
     """The whole LP exhaust chain for one set of inputs (used for values and for the
     finite-difference re-evaluations). Returns dict of flat arrays."""
     n = inp["crossover_p"].size
     p_in, t_in, p_exh = inp["crossover_p"], inp["crossover_t"], inp["condenser_p"]
     # Exhaust saturation values depend on the condenser pressure only: reuse them across the
     # finite-difference re-evaluations that leave it unchanged (cache local to one evaluate).
-    cache = cfg["sat_cache"]
-    hit = cache.get(id(p_exh))
+    hit = cache.saturation.get(id(p_exh))
     if hit is not None and hit[0] is p_exh:
         sat, vols = hit[1], hit[2]
     else:
         valid_p = np.isfinite(p_exh) & (p_exh > 0)
         sat, vols = exhaust_states(p_exh, valid_p)
-        cache[id(p_exh)] = (p_exh, sat, vols)
+        cache.saturation[id(p_exh)] = (p_exh, sat, vols)
     flow = (
-        inp["main_steam_flow"] * cfg["lp_exhaust_flow_fraction"]
-        if cfg["lp_exhaust_flow_fraction"]
+        inp["main_steam_flow"] * opts.lp_exhaust_flow_fraction
+        if opts.lp_exhaust_flow_fraction
         else np.full(n, np.nan)
     )
-    if cfg["mode"] == "expansion":
+    if opts.mode == "expansion":
         # The expansion does not depend on the flow: a re-evaluation that changes only the
         # main steam flow (its uncertainty) reuses the expansion of the same inputs.
         key = tuple(inp[k] for k in (_LP_EXP + _LPD[2:]))
-        done = cfg["lp_core_cache"]
+        done = cache.expansion
         if done is not None and all(a is b for a, b in zip(done[0], key, strict=True)):
             r = done[1]
         else:
-            if cfg["eta_source"] == "measured":
+            if opts.eta_source == "measured":
                 eta = _section_group(inp, _LPD)["efficiency"]
             else:
-                eta = np.full(n, cfg["eta_lp_design"])
-            eta = eta + cfg.get("eta_shift", 0.0)  # the band of the assumed efficiency
+                eta = np.full(n, opts.eta_lp_design)
+            eta = eta + opts.eta_shift  # the band of the assumed efficiency
             r = lp_core(
-                p_in, t_in, p_exh, eta, cfg["baumann"], exhaust_sat=sat, inlet_states=cfg.get("inlet_states")
+                p_in, t_in, p_exh, eta, opts.baumann, exhaust_sat=sat, inlet_states=cache.inlet_states
             )
             if done is None:
-                cfg["lp_core_cache"] = (key, r)
+                cache.expansion = (key, r)
         lp_reason = r["reason"].copy()
-        if cfg["eta_source"] == "measured":
+        if opts.eta_source == "measured":
             lp_reason[lp_reason == NO_DRY_EFFICIENCY] = UPSTREAM_INVALID
         vel, loss, ue_reason = exhaust_figures(
-            p_exh, r["h_elep"], r["moisture"], flow, cfg["annulus_area"], cfg["curve"], sat, vols
+            p_exh, r["h_elep"], r["moisture"], flow, opts.annulus_area, opts.curve, sat, vols
         )
         ueep = np.where(ue_reason == OK, r["h_elep"] + loss, np.nan)
         h_in, h_s, h_elep, y = r["h_in"], r["h_isentropic"], r["h_elep"], r["moisture"]
@@ -222,7 +285,7 @@ def _lp_figures(inp, cfg):
         # are (same objects): the HP and IP sections and the LP inlet block whose inputs it
         # does not touch are taken from the first evaluation (cache local to one evaluate).
         # About half the time of an energy-balance evaluate (calc/DECISIONS.md, "Speed of the kernels").
-        parts = cfg.setdefault("eb_cache", {})
+        parts = cache.energy_balance
 
         def cached(name, keys, compute):
             key = tuple(inp[k] for k in keys)
@@ -271,20 +334,20 @@ def _lp_figures(inp, cfg):
             mark(ue_reason, ~(inp["main_steam_flow"] > 0), OUT_OF_RANGE)
         ueep = energy_balance_ueep(
             inp["gross_output"],
-            cfg["losses_mw"],
+            opts.losses_mw,
             inp["main_steam_flow"],
             hp_drop,
             ip_drop,
             h_in,
-            cfg["flow_fractions"],
+            opts.flow_fractions,
         )
         with np.errstate(invalid="ignore"):
             mark(ue_reason, ~((ueep < h_in) & (ueep >= h_s)), ENERGY_BALANCE_IMPLAUSIBLE)
         ueep = np.where(ue_reason == OK, ueep, np.nan)
         h_elep, y, vel, loss, lp_reason = elep_from_ueep(
-            p_exh, ueep, flow, cfg["annulus_area"], cfg["curve"], sat, vols
+            p_exh, ueep, flow, opts.annulus_area, opts.curve, sat, vols
         )
-        if cfg["annulus_area"] is None:
+        if opts.annulus_area is None:
             loss = np.full(n, np.nan)
         p_wet = np.full(n, np.nan)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -308,14 +371,15 @@ def _lp_figures(inp, cfg):
     }
 
 
-def _add_assumption_uncertainty(out, base, inp, cfg, band, keys):
+def _add_assumption_uncertainty(out, base, inp, opts, cache, band, keys):
     """Combine into ``out[<key>_u]`` the uncertainty of the LP efficiency the expansion
     assumes: rectangular over +/- ``band``, u = band / sqrt(3) (JCGM 100:2008, 4.3.7),
     sensitivity by a central difference of the whole LP chain (one-sided where the upper
     step leaves (0, 1])."""
     u_eta = band / np.sqrt(3.0)
-    hi = _lp_figures(inp, {**cfg, "eta_shift": u_eta, "lp_core_cache": None})
-    lo = _lp_figures(inp, {**cfg, "eta_shift": -u_eta, "lp_core_cache": None})
+    # a fresh expansion for each shifted efficiency; the exhaust states and inlet states shared
+    hi = _lp_figures(inp, replace(opts, eta_shift=u_eta), replace(cache, expansion=None))
+    lo = _lp_figures(inp, replace(opts, eta_shift=-u_eta), replace(cache, expansion=None))
     for k in keys:
         with np.errstate(invalid="ignore"):
             slope = np.where(np.isfinite(hi[k]), (hi[k] - lo[k]) / (2.0 * u_eta), (base[k] - lo[k]) / u_eta)
@@ -583,21 +647,19 @@ def evaluate(
         for k in lp_keys + tuple(f"{k}_u" for k in lp_u_keys):
             out[k] = nan()
     else:
-        cfg = {
-            "mode": mode,
-            "eta_source": lp_dry_efficiency_source,
-            "eta_lp_design": eta_d,
-            "baumann": a,
-            "annulus_area": annulus_area,
-            "curve": curve,
-            "lp_exhaust_flow_fraction": lp_exhaust_flow_fraction,
-            "flow_fractions": ff,
-            "losses_mw": losses_mw,
-            "sat_cache": {},
-            "lp_core_cache": None,
-            "inlet_states": inlet_states,
-        }
-        r = _lp_figures(inp, cfg)
+        opts = LPOptions(
+            mode=mode,
+            eta_source=lp_dry_efficiency_source,
+            eta_lp_design=eta_d,
+            baumann=a,
+            annulus_area=annulus_area,
+            curve=curve,
+            lp_exhaust_flow_fraction=lp_exhaust_flow_fraction,
+            flow_fractions=ff,
+            losses_mw=losses_mw,
+        )
+        cache = LPCache(inlet_states)
+        r = _lp_figures(inp, opts, cache)
         codes["lp"] = r["lp_reason"]
         codes["lp_ueep"] = r["ueep_reason"]
         for k in lp_keys:
@@ -620,7 +682,7 @@ def evaluate(
                 roles = sorted(set(_LP_EXP + _HP + _IP) | eb_roles)
             uu = {k: u_roles[k].of(inp[k]) for k in roles}
             res = propagate_uncertainty(
-                lambda d: _lp_figures({**inp, **d}, cfg),
+                lambda d: _lp_figures({**inp, **d}, opts, cache),
                 {k: inp[k] for k in roles},
                 uu,
                 lp_u_keys,
@@ -630,7 +692,7 @@ def evaluate(
             for k in lp_u_keys:
                 out[f"{k}_u"] = np.where(np.isfinite(out[k]), res[k], np.nan)
             if mode == "expansion" and band > 0:
-                _add_assumption_uncertainty(out, r, inp, cfg, band, lp_u_keys)
+                _add_assumption_uncertainty(out, r, inp, opts, cache, band, lp_u_keys)
 
     # Shares of the expansion-line drop (per kg): HP + IP + LP to the ELEP.
     total = out["hp_enthalpy_drop"] + out["ip_enthalpy_drop"] + out["lp_enthalpy_drop"]
