@@ -386,6 +386,297 @@ def _add_assumption_uncertainty(out, base, inp, opts, cache, band, keys):
             out[f"{k}_u"] = np.hypot(out[f"{k}_u"], slope * u_eta)
 
 
+@dataclass(frozen=True)
+class _Arguments:
+    """The checked arguments of ``evaluate`` (meaning and units there)."""
+
+    lp_mode: str
+    eta_source: str
+    eta_lp_design: float
+    eta_lp_band: float
+    baumann: float
+    annulus_area: float | None
+    curve: ExhaustLossCurve
+    lp_exhaust_flow_fraction: float | None
+    flow_fractions: FlowFractions | None
+    losses_mw: float | None
+    uncertainty: dict | None
+
+
+def _check_arguments(
+    eta_lp_design,
+    eta_lp_band,
+    lp_dry_efficiency_source,
+    baumann,
+    annulus_area,
+    exhaust_loss_curve,
+    lp_exhaust_flow_fraction,
+    lp_mode,
+    flow_fractions,
+    losses_mw,
+    uncertainty,
+) -> _Arguments:
+    """``evaluate``'s keyword arguments checked and converted; ValueError on a bad one."""
+    a = check_baumann(baumann)
+    band = float(eta_lp_band)
+    if not (np.isfinite(band) and 0 <= band < 0.5):
+        raise ValueError(f"eta_lp_band: expected a number in [0, 0.5), found {eta_lp_band!r}")
+    eta_d = float(eta_lp_design) if eta_lp_design is not None else np.nan
+    if lp_dry_efficiency_source not in ("design", "measured"):
+        raise ValueError(
+            f"lp_dry_efficiency_source: expected 'design' or 'measured', found {lp_dry_efficiency_source!r}"
+        )
+    if lp_dry_efficiency_source == "design" and not (np.isfinite(eta_d) and 0 < eta_d <= 1):
+        raise ValueError(f"eta_lp_design: expected a number in (0, 1], found {eta_lp_design!r}")
+    if lp_mode not in ("auto", "expansion", "energy_balance"):
+        raise ValueError(f"lp_mode: expected 'auto', 'expansion' or 'energy_balance', found {lp_mode!r}")
+    if annulus_area is not None:
+        area = float(annulus_area)
+        if not (np.isfinite(area) and area > 0):
+            raise ValueError(f"annulus_area: expected a positive area [m2], found {annulus_area!r}")
+        annulus_area = area
+    if exhaust_loss_curve is None:
+        curve = DEFAULT_EXHAUST_LOSS_CURVE
+    elif isinstance(exhaust_loss_curve, ExhaustLossCurve):
+        curve = exhaust_loss_curve
+    else:
+        curve = ExhaustLossCurve.from_points(exhaust_loss_curve)
+    if lp_exhaust_flow_fraction is not None:
+        f = float(lp_exhaust_flow_fraction)
+        if not (np.isfinite(f) and 0 < f <= 1.5):
+            raise ValueError(
+                f"lp_exhaust_flow_fraction: expected a number in (0, 1.5], found {lp_exhaust_flow_fraction!r}"
+            )
+        lp_exhaust_flow_fraction = f
+    ff = FlowFractions.coerce(flow_fractions) if flow_fractions is not None else None
+    if losses_mw is not None:
+        lm = float(losses_mw)
+        if not (np.isfinite(lm) and lm >= 0):
+            raise ValueError(f"losses_mw: expected a number >= 0 [MW], found {losses_mw!r}")
+        losses_mw = lm
+    return _Arguments(
+        lp_mode=lp_mode,
+        eta_source=lp_dry_efficiency_source,
+        eta_lp_design=eta_d,
+        eta_lp_band=band,
+        baumann=a,
+        annulus_area=annulus_area,
+        curve=curve,
+        lp_exhaust_flow_fraction=lp_exhaust_flow_fraction,
+        flow_fractions=ff,
+        losses_mw=losses_mw,
+        uncertainty=resolve_uncertainty(uncertainty),
+    )
+
+
+#: Roles the energy balance reads besides those of the HP, IP and LP expansion.
+_EB = ("gross_output", "main_steam_flow")
+
+
+@dataclass(frozen=True)
+class _Plan:
+    """What one frame allows: the LP mode, the roles each figure group misses, the notes."""
+
+    mode: str
+    missing: dict
+    notes: tuple
+
+
+def _plan(args: _Arguments, cols: set) -> _Plan:
+    """The LP mode and the figure groups switched off by missing roles or parameters, with a
+    note for each; ValueError when the energy balance is asked for and cannot be had."""
+    notes = []
+    eb_missing = sorted(set(_EB) - cols)
+    eb_params_missing = [
+        name
+        for name, v in (("flow_fractions", args.flow_fractions), ("losses_mw", args.losses_mw))
+        if v is None
+    ]
+    if args.lp_mode == "energy_balance":
+        if eb_missing or eb_params_missing:
+            raise ValueError(
+                "lp_mode='energy_balance' needs the roles gross_output and main_steam_flow and the "
+                f"parameters flow_fractions and losses_mw; missing roles {eb_missing}, missing parameters {eb_params_missing}"
+            )
+        mode = "energy_balance"
+    elif args.lp_mode == "auto" and not eb_missing and not eb_params_missing:
+        mode = "energy_balance"
+    else:
+        mode = "expansion"
+        if args.lp_mode == "auto":
+            notes.append(
+                "LP exhaust from the expansion with the Baumann correction; the energy balance needs "
+                f"roles {sorted(_EB)} (missing {eb_missing}) and parameters flow_fractions, losses_mw "
+                f"(missing {eb_params_missing})"
+            )
+
+    def missing(roles):
+        return sorted(set(roles) - cols)
+
+    groups_missing = {
+        "hp": missing(_HP),
+        "ip": missing(_IP),
+        "lp_dry": missing(_LPD),
+        "lp": missing(_LP_EXP if mode == "expansion" else _LP_EXP + _HP + _IP + _EB),
+    }
+    if args.eta_source == "measured" and mode == "expansion":
+        groups_missing["lp"] = sorted(set(groups_missing["lp"]) | set(groups_missing["lp_dry"]))
+    for g, m in groups_missing.items():
+        if m:
+            notes.append(f"{g} figures off: roles {m} not in the frame")
+    if args.annulus_area is None:
+        notes.append(
+            "no annulus_area: exhaust loss, annulus velocity and "
+            + ("UEEP" if mode == "expansion" else "ELEP, moisture and LP efficiency")
+            + " are NaN"
+        )
+    if args.lp_exhaust_flow_fraction is None or "main_steam_flow" not in cols:
+        notes.append(
+            "exhaust loss needs main_steam_flow and lp_exhaust_flow_fraction: "
+            + ("UEEP" if mode == "expansion" else "ELEP and moisture")
+            + " are NaN"
+        )
+    if args.uncertainty is None:
+        notes.append("uncertainty propagation off: the _u figures are NaN")
+    return _Plan(mode=mode, missing=groups_missing, notes=tuple(notes))
+
+
+def _superheated_groups(inp, plan: _Plan, u_roles, inlet_states: InletStates, n):
+    """HP, IP and LP dry group: figures and their uncertainties (dict of flat arrays) and
+    reason codes (dict group -> codes). The LP dry group's crossover states go to
+    ``inlet_states`` for the LP chain."""
+    out = {}
+    codes = {}
+    for g, roles in (("hp", _HP), ("ip", _IP), ("lp_dry", _LPD)):
+        if plan.missing[g]:
+            codes[g] = np.full(n, NOT_MAPPED, dtype=np.int64)
+            for k in ("efficiency", "efficiency_u", "enthalpy_drop", "isentropic_drop"):
+                out[f"{g}_{k}"] = np.full(n, np.nan)
+            continue
+        r = _section_group(inp, roles, end_state=u_roles is not None)
+        codes[g] = r["reason"]
+        out[f"{g}_efficiency"] = r["efficiency"]
+        good = r["reason"] == OK
+        out[f"{g}_enthalpy_drop"] = np.where(good, r["enthalpy_drop"], np.nan)
+        out[f"{g}_isentropic_drop"] = np.where(good, r["isentropic_drop"], np.nan)
+        if u_roles is None:
+            out[f"{g}_efficiency_u"] = np.full(n, np.nan)
+        else:
+            sub = {k: inp[k] for k in roles}
+            uu = {k: u_roles[k].of(inp[k]) for k in roles}
+            st = fd_steps(uu, sub)
+            keys = ("p_in", "t_in", "p_out", "t_out")
+            out[f"{g}_efficiency_u"] = section_uncertainty(
+                *(inp[k] for k in roles),
+                r,
+                {kk: uu[k] for kk, k in zip(keys, roles, strict=True)},
+                {kk: st[k] for kk, k in zip(keys, roles, strict=True)},
+                inlet_states if g == "lp_dry" else None,
+            )
+    return out, codes
+
+
+#: The LP exhaust figures of ``_lp_figures`` that ``evaluate`` returns, and those with a ``_u``.
+_LP_KEYS = (
+    "lp_efficiency",
+    "lp_used_energy_efficiency",
+    "lp_enthalpy_drop",
+    "lp_isentropic_drop",
+    "lp_saturation_p",
+    "lp_elep",
+    "lp_ueep",
+    "lp_x",
+    "lp_moisture",
+    "lp_exhaust_loss",
+    "lp_annulus_velocity",
+)
+_LP_U_KEYS = ("lp_efficiency", "lp_used_energy_efficiency", "lp_elep", "lp_ueep", "lp_moisture")
+
+
+def _lp_uncertain_roles(args: _Arguments, mode, cols):
+    """The roles whose instrument uncertainty reaches the LP exhaust figures."""
+    if mode != "expansion":
+        return sorted(set(_LP_EXP + _HP + _IP) | set(_EB))
+    roles = list(_LP_EXP)
+    if args.eta_source == "measured":
+        roles += ["lp_extraction_p", "lp_extraction_t"]
+    if (
+        args.annulus_area is not None
+        and args.lp_exhaust_flow_fraction is not None
+        and "main_steam_flow" in cols
+    ):
+        roles.append("main_steam_flow")
+    return roles
+
+
+def _lp_exhaust(inp, args: _Arguments, plan: _Plan, cols, inlet_states: InletStates, n):
+    """LP exhaust figures and their uncertainties (dict of flat arrays) and reason codes
+    (dict "lp", "lp_ueep" -> codes)."""
+    if plan.missing["lp"]:
+        codes = {g: np.full(n, NOT_MAPPED, dtype=np.int64) for g in ("lp", "lp_ueep")}
+        return {k: np.full(n, np.nan) for k in _LP_KEYS + tuple(f"{k}_u" for k in _LP_U_KEYS)}, codes
+    opts = LPOptions(
+        mode=plan.mode,
+        eta_source=args.eta_source,
+        eta_lp_design=args.eta_lp_design,
+        baumann=args.baumann,
+        annulus_area=args.annulus_area,
+        curve=args.curve,
+        lp_exhaust_flow_fraction=args.lp_exhaust_flow_fraction,
+        flow_fractions=args.flow_fractions,
+        losses_mw=args.losses_mw,
+    )
+    cache = LPCache(inlet_states)
+    r = _lp_figures(inp, opts, cache)
+    codes = {"lp": r["lp_reason"], "lp_ueep": r["ueep_reason"]}
+    out = {k: r[k] for k in _LP_KEYS}
+    if args.uncertainty is None:
+        for k in _LP_U_KEYS:
+            out[f"{k}_u"] = np.full(n, np.nan)
+        return out, codes
+    roles = _lp_uncertain_roles(args, plan.mode, cols)
+    uu = {k: args.uncertainty[k].of(inp[k]) for k in roles}
+    res = propagate_uncertainty(
+        lambda d: _lp_figures({**inp, **d}, opts, cache),
+        {k: inp[k] for k in roles},
+        uu,
+        _LP_U_KEYS,
+        steps=fd_steps(uu, {k: inp[k] for k in roles}),
+        base=r,
+    )
+    for k in _LP_U_KEYS:
+        out[f"{k}_u"] = np.where(np.isfinite(out[k]), res[k], np.nan)
+    if plan.mode == "expansion" and args.eta_lp_band > 0:
+        _add_assumption_uncertainty(out, r, inp, opts, cache, args.eta_lp_band, _LP_U_KEYS)
+    return out, codes
+
+
+def _results(out, codes, plan: _Plan, index, n) -> SectionResults:
+    """The shares of the expansion-line drop, the estimate flag and the packed reasons added
+    to ``out``; every figure as a Series on ``index``."""
+    # Shares of the expansion-line drop (per kg): HP + IP + LP to the ELEP.
+    total = out["hp_enthalpy_drop"] + out["ip_enthalpy_drop"] + out["lp_enthalpy_drop"]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for g in ("hp", "ip", "lp"):
+            out[f"{g}_share"] = out[f"{g}_enthalpy_drop"] / total
+    out["lp_estimate"] = np.full(n, 1.0 if plan.mode == "expansion" else 0.0)
+    out["reason"] = pack_reason(codes)
+    series = {name: pd.Series(out[name], index=index, name=name) for name, _, _ in FIGURE_FIELDS}
+    return SectionResults(**series, lp_mode=plan.mode, notes=plan.notes)
+
+
+def _evaluate_rows(frame, args: _Arguments) -> SectionResults:
+    """``evaluate`` on one block of rows, arguments checked."""
+    n = len(frame)
+    inp = {role: _column(frame, role, n) for role in ROLE_QUANTITY}
+    cols = set(frame.columns)
+    plan = _plan(args, cols)
+    inlet_states = InletStates()  # crossover states shared by the LP dry group and LP chain
+    groups, group_codes = _superheated_groups(inp, plan, args.uncertainty, inlet_states, n)
+    lp, lp_codes = _lp_exhaust(inp, args, plan, cols, inlet_states, n)
+    return _results({**groups, **lp}, {**group_codes, **lp_codes}, plan, frame.index, n)
+
+
 #: ``evaluate`` works through longer frames in row blocks of this size: its temporaries then
 #: stay in the caches (calc/DECISIONS.md, "Speed of the kernels").
 EVALUATE_ROWS = 43_200
@@ -474,235 +765,26 @@ def evaluate(
     """
     if not isinstance(frame, pd.DataFrame):
         raise ValueError(f"frame: expected a pandas DataFrame of role columns, found {type(frame).__name__}")
-    if len(frame) > EVALUATE_ROWS:
-        # Row blocks: every figure is per row and every choice (mode, groups, notes) follows
-        # from the columns, so the blocks give the figures of the whole (to the last bits of
-        # the iterated solvers, as any other cut of the rows).
-        kwargs = dict(
-            eta_lp_design=eta_lp_design,
-            eta_lp_band=eta_lp_band,
-            lp_dry_efficiency_source=lp_dry_efficiency_source,
-            baumann=baumann,
-            annulus_area=annulus_area,
-            exhaust_loss_curve=exhaust_loss_curve,
-            lp_exhaust_flow_fraction=lp_exhaust_flow_fraction,
-            lp_mode=lp_mode,
-            flow_fractions=flow_fractions,
-            losses_mw=losses_mw,
-            uncertainty=uncertainty,
-        )
-        parts = [
-            evaluate(frame.iloc[i : i + EVALUATE_ROWS], **kwargs) for i in range(0, len(frame), EVALUATE_ROWS)
-        ]
-        series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in FIGURE_FIELDS}
-        return SectionResults(**series, lp_mode=parts[0].lp_mode, notes=parts[0].notes)
-    a = check_baumann(baumann)
-    band = float(eta_lp_band)
-    if not (np.isfinite(band) and 0 <= band < 0.5):
-        raise ValueError(f"eta_lp_band: expected a number in [0, 0.5), found {eta_lp_band!r}")
-    eta_d = float(eta_lp_design) if eta_lp_design is not None else np.nan
-    if lp_dry_efficiency_source not in ("design", "measured"):
-        raise ValueError(
-            f"lp_dry_efficiency_source: expected 'design' or 'measured', found {lp_dry_efficiency_source!r}"
-        )
-    if lp_dry_efficiency_source == "design" and not (np.isfinite(eta_d) and 0 < eta_d <= 1):
-        raise ValueError(f"eta_lp_design: expected a number in (0, 1], found {eta_lp_design!r}")
-    if lp_mode not in ("auto", "expansion", "energy_balance"):
-        raise ValueError(f"lp_mode: expected 'auto', 'expansion' or 'energy_balance', found {lp_mode!r}")
-    if annulus_area is not None:
-        area = float(annulus_area)
-        if not (np.isfinite(area) and area > 0):
-            raise ValueError(f"annulus_area: expected a positive area [m2], found {annulus_area!r}")
-        annulus_area = area
-    if exhaust_loss_curve is None:
-        curve = DEFAULT_EXHAUST_LOSS_CURVE
-    elif isinstance(exhaust_loss_curve, ExhaustLossCurve):
-        curve = exhaust_loss_curve
-    else:
-        curve = ExhaustLossCurve.from_points(exhaust_loss_curve)
-    if lp_exhaust_flow_fraction is not None:
-        f = float(lp_exhaust_flow_fraction)
-        if not (np.isfinite(f) and 0 < f <= 1.5):
-            raise ValueError(
-                f"lp_exhaust_flow_fraction: expected a number in (0, 1.5], found {lp_exhaust_flow_fraction!r}"
-            )
-        lp_exhaust_flow_fraction = f
-    ff = FlowFractions.coerce(flow_fractions) if flow_fractions is not None else None
-    if losses_mw is not None:
-        lm = float(losses_mw)
-        if not (np.isfinite(lm) and lm >= 0):
-            raise ValueError(f"losses_mw: expected a number >= 0 [MW], found {losses_mw!r}")
-        losses_mw = lm
-    u_roles = resolve_uncertainty(uncertainty)
-
-    n = len(frame)
-    idx = frame.index
-    cols = set(frame.columns)
-    inp = {role: _column(frame, role, n) for role in ROLE_QUANTITY}
-    notes = []
-
-    eb_roles = {"gross_output", "main_steam_flow"}
-    eb_missing = sorted(eb_roles - cols)
-    eb_params_missing = [name for name, v in (("flow_fractions", ff), ("losses_mw", losses_mw)) if v is None]
-    if lp_mode == "energy_balance":
-        if eb_missing or eb_params_missing:
-            raise ValueError(
-                "lp_mode='energy_balance' needs the roles gross_output and main_steam_flow and the "
-                f"parameters flow_fractions and losses_mw; missing roles {eb_missing}, missing parameters {eb_params_missing}"
-            )
-        mode = "energy_balance"
-    elif lp_mode == "auto" and not eb_missing and not eb_params_missing:
-        mode = "energy_balance"
-    else:
-        mode = "expansion"
-        if lp_mode == "auto":
-            notes.append(
-                "LP exhaust from the expansion with the Baumann correction; the energy balance needs "
-                f"roles {sorted(eb_roles)} (missing {eb_missing}) and parameters flow_fractions, losses_mw "
-                f"(missing {eb_params_missing})"
-            )
-
-    def missing(roles):
-        return sorted(set(roles) - cols)
-
-    groups_missing = {
-        "hp": missing(_HP),
-        "ip": missing(_IP),
-        "lp_dry": missing(_LPD),
-        "lp": missing(_LP_EXP if mode == "expansion" else _LP_EXP + _HP + _IP + tuple(eb_roles)),
-    }
-    if lp_dry_efficiency_source == "measured" and mode == "expansion":
-        groups_missing["lp"] = sorted(set(groups_missing["lp"]) | set(groups_missing["lp_dry"]))
-    for g, m in groups_missing.items():
-        if m:
-            notes.append(f"{g} figures off: roles {m} not in the frame")
-    if annulus_area is None:
-        notes.append(
-            "no annulus_area: exhaust loss, annulus velocity and "
-            + ("UEEP" if mode == "expansion" else "ELEP, moisture and LP efficiency")
-            + " are NaN"
-        )
-    if lp_exhaust_flow_fraction is None or "main_steam_flow" not in cols:
-        notes.append(
-            "exhaust loss needs main_steam_flow and lp_exhaust_flow_fraction: "
-            + ("UEEP" if mode == "expansion" else "ELEP and moisture")
-            + " are NaN"
-        )
-    if u_roles is None:
-        notes.append("uncertainty propagation off: the _u figures are NaN")
-
-    out = {}
-    codes = {}
-    inlet_states = InletStates()  # crossover states shared by the LP dry group and LP chain
-
-    def nan():
-        return np.full(n, np.nan)
-
-    # HP, IP, LP dry group
-    for g, roles in (("hp", _HP), ("ip", _IP), ("lp_dry", _LPD)):
-        if groups_missing[g]:
-            codes[g] = np.full(n, NOT_MAPPED, dtype=np.int64)
-            for k in ("efficiency", "efficiency_u", "enthalpy_drop", "isentropic_drop"):
-                out[f"{g}_{k}"] = nan()
-            continue
-        r = _section_group(inp, roles, end_state=u_roles is not None)
-        codes[g] = r["reason"]
-        out[f"{g}_efficiency"] = r["efficiency"]
-        good = r["reason"] == OK
-        out[f"{g}_enthalpy_drop"] = np.where(good, r["enthalpy_drop"], np.nan)
-        out[f"{g}_isentropic_drop"] = np.where(good, r["isentropic_drop"], np.nan)
-        if u_roles is None:
-            out[f"{g}_efficiency_u"] = nan()
-        else:
-            sub = {k: inp[k] for k in roles}
-            uu = {k: u_roles[k].of(inp[k]) for k in roles}
-            st = fd_steps(uu, sub)
-            keys = ("p_in", "t_in", "p_out", "t_out")
-            out[f"{g}_efficiency_u"] = section_uncertainty(
-                *(inp[k] for k in roles),
-                r,
-                {kk: uu[k] for kk, k in zip(keys, roles, strict=True)},
-                {kk: st[k] for kk, k in zip(keys, roles, strict=True)},
-                inlet_states if g == "lp_dry" else None,
-            )
-
-    # LP exhaust
-    lp_keys = (
-        "lp_efficiency",
-        "lp_used_energy_efficiency",
-        "lp_enthalpy_drop",
-        "lp_isentropic_drop",
-        "lp_saturation_p",
-        "lp_elep",
-        "lp_ueep",
-        "lp_x",
-        "lp_moisture",
-        "lp_exhaust_loss",
-        "lp_annulus_velocity",
+    args = _check_arguments(
+        eta_lp_design,
+        eta_lp_band,
+        lp_dry_efficiency_source,
+        baumann,
+        annulus_area,
+        exhaust_loss_curve,
+        lp_exhaust_flow_fraction,
+        lp_mode,
+        flow_fractions,
+        losses_mw,
+        uncertainty,
     )
-    lp_u_keys = ("lp_efficiency", "lp_used_energy_efficiency", "lp_elep", "lp_ueep", "lp_moisture")
-    if groups_missing["lp"]:
-        codes["lp"] = np.full(n, NOT_MAPPED, dtype=np.int64)
-        codes["lp_ueep"] = np.full(n, NOT_MAPPED, dtype=np.int64)
-        for k in lp_keys + tuple(f"{k}_u" for k in lp_u_keys):
-            out[k] = nan()
-    else:
-        opts = LPOptions(
-            mode=mode,
-            eta_source=lp_dry_efficiency_source,
-            eta_lp_design=eta_d,
-            baumann=a,
-            annulus_area=annulus_area,
-            curve=curve,
-            lp_exhaust_flow_fraction=lp_exhaust_flow_fraction,
-            flow_fractions=ff,
-            losses_mw=losses_mw,
-        )
-        cache = LPCache(inlet_states)
-        r = _lp_figures(inp, opts, cache)
-        codes["lp"] = r["lp_reason"]
-        codes["lp_ueep"] = r["ueep_reason"]
-        for k in lp_keys:
-            out[k] = r[k]
-        if u_roles is None:
-            for k in lp_u_keys:
-                out[f"{k}_u"] = nan()
-        else:
-            if mode == "expansion":
-                roles = list(_LP_EXP)
-                if lp_dry_efficiency_source == "measured":
-                    roles += ["lp_extraction_p", "lp_extraction_t"]
-                if (
-                    annulus_area is not None
-                    and lp_exhaust_flow_fraction is not None
-                    and "main_steam_flow" in cols
-                ):
-                    roles.append("main_steam_flow")
-            else:
-                roles = sorted(set(_LP_EXP + _HP + _IP) | eb_roles)
-            uu = {k: u_roles[k].of(inp[k]) for k in roles}
-            res = propagate_uncertainty(
-                lambda d: _lp_figures({**inp, **d}, opts, cache),
-                {k: inp[k] for k in roles},
-                uu,
-                lp_u_keys,
-                steps=fd_steps(uu, {k: inp[k] for k in roles}),
-                base=r,
-            )
-            for k in lp_u_keys:
-                out[f"{k}_u"] = np.where(np.isfinite(out[k]), res[k], np.nan)
-            if mode == "expansion" and band > 0:
-                _add_assumption_uncertainty(out, r, inp, opts, cache, band, lp_u_keys)
-
-    # Shares of the expansion-line drop (per kg): HP + IP + LP to the ELEP.
-    total = out["hp_enthalpy_drop"] + out["ip_enthalpy_drop"] + out["lp_enthalpy_drop"]
-    with np.errstate(invalid="ignore", divide="ignore"):
-        for g in ("hp", "ip", "lp"):
-            out[f"{g}_share"] = out[f"{g}_enthalpy_drop"] / total
-
-    if groups_missing["lp_dry"]:
-        codes["lp_dry"] = np.full(n, NOT_MAPPED, dtype=np.int64)
-    out["lp_estimate"] = np.full(n, 1.0 if mode == "expansion" else 0.0)
-    out["reason"] = pack_reason(codes)
-    series = {name: pd.Series(out[name], index=idx, name=name) for name, _, _ in FIGURE_FIELDS}
-    return SectionResults(**series, lp_mode=mode, notes=tuple(notes))
+    if len(frame) <= EVALUATE_ROWS:
+        return _evaluate_rows(frame, args)
+    # Row blocks: every figure is per row and every choice (mode, groups, notes) follows from
+    # the columns, so the blocks give the figures of the whole (to the last bits of the
+    # iterated solvers, as any other cut of the rows).
+    parts = [
+        _evaluate_rows(frame.iloc[i : i + EVALUATE_ROWS], args) for i in range(0, len(frame), EVALUATE_ROWS)
+    ]
+    series = {name: pd.concat([getattr(p, name) for p in parts]) for name, _, _ in FIGURE_FIELDS}
+    return SectionResults(**series, lp_mode=parts[0].lp_mode, notes=parts[0].notes)
