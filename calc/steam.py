@@ -827,7 +827,7 @@ def hs_pt(p, t):
     """Specific enthalpy [kJ/kg] and entropy [kJ/(kg K)] at flat float arrays p [MPa] and
     T [K] in one pass: the same values, bit for bit, as ``h_pt`` and ``s_pt`` (same region
     choice and the same sums; NaN outside IF97), at about the cost of one of them. A kernel
-    of calc/sections.py (the perturbed states of its uncertainty propagation): flat float
+    of calc/sections/ (the perturbed states of its uncertainty propagation): flat float
     arrays in, no broadcasting or reason codes.
 
     Parameters
@@ -864,7 +864,7 @@ def hs_slopes_pt(p, t):
     (dh/dp)_T = v - T (dv/dT)_p and (ds/dp)_T = -(dv/dT)_p (Maxwell; per MPa: kJ/kg/MPa and
     kJ/(kg K)/MPa). h and s are bit for bit those of ``hs_pt`` (region 3 and 5 points
     included, from the same fallback); the derivatives are NaN outside regions 1 and 2
-    (callers difference there). A kernel of calc/sections.py (the sensitivity coefficients of
+    (callers difference there). A kernel of calc/sections/ (the sensitivity coefficients of
     its uncertainty propagation).
 
     Parameters
@@ -919,7 +919,7 @@ def saturation_states(p):
     """h [kJ/kg], s [kJ/(kg K)] and v [m3/kg] of saturated liquid and vapour at flat float
     pressures p [MPa] in one pass (one T_sat(p), one region-1 and one region-2 evaluation
     instead of one of each per property): bit for bit ``h_sat_liquid`` ... ``v_sat_vapour``,
-    NaN where those are NaN. A kernel of calc/sections.py (the exhaust saturation of its LP
+    NaN where those are NaN. A kernel of calc/sections/ (the exhaust saturation of its LP
     chain, evaluated again for every condenser-pressure difference of its uncertainty).
 
     Parameters
@@ -969,7 +969,7 @@ def end_state_ps(p, s):
     """h [kJ/kg], T [K] and v [m3/kg] at flat float arrays p [MPa] and s [kJ/(kg K)] from
     one solve: h is bit for bit ``h_ps`` (the Newton iterates do not depend on the extra
     properties asked for); T and v are those of the same solution (NaN outside IF97).
-    A kernel of calc/sections.py (the isentropic end point and its sensitivities,
+    A kernel of calc/sections/ (the isentropic end point and its sensitivities,
     dh_s = T ds + v dp, without a second solve).
 
     Parameters

@@ -607,7 +607,7 @@ def test_uncertainty_off_gives_nan_u_and_a_note():
 
 
 def test_fast_section_uncertainty_matches_whole_chain_propagation():
-    # The per-property differences of _section_uncertainty against the generic law applied to
+    # The per-property differences of section_uncertainty against the generic law applied to
     # the whole section function (JCGM 100:2008 Eq. (10), numerical sensitivities), including
     # outlets within 1 K of saturation where one side of a difference is not superheated.
     rng = np.random.default_rng(11)
@@ -623,10 +623,10 @@ def test_fast_section_uncertainty_matches_whole_chain_propagation():
         "p_out": 0.0025 * inputs["p_out"],
         "t_out": np.full(len(cases), 1.0),
     }
-    base = S._section_core(*(inputs[k] for k in names))
-    fast = S._section_uncertainty(*(inputs[k] for k in names), base, u, u)
+    base = S.dry.section_core(*(inputs[k] for k in names))
+    fast = S.uncertainty.section_uncertainty(*(inputs[k] for k in names), base, u, u)
     slow = S.propagate_uncertainty(
-        lambda d: {"e": S._section_core(*(d[k] for k in names))["efficiency"]},
+        lambda d: {"e": S.dry.section_core(*(d[k] for k in names))["efficiency"]},
         inputs,
         u,
         ("e",),
@@ -636,8 +636,8 @@ def test_fast_section_uncertainty_matches_whole_chain_propagation():
 
 
 def test_one_pass_inlet_differences_equal_the_per_property_differences_bit_for_bit():
-    # _pt_derivative_hs (h and s of each perturbed state in one pass) must give exactly the
-    # central / one-sided / NaN differences of _pt_derivative applied to h_pt and s_pt:
+    # pt_derivative_hs (h and s of each perturbed state in one pass) must give exactly the
+    # central / one-sided / NaN differences of pt_derivative applied to h_pt and s_pt:
     # the _u figures are stored. Points 0.5 K above saturation (iapws, reference library)
     # make the minus state wet (one-sided), a NaN pressure gives NaN.
     p = np.array([12.0, 16.0, 3.0, 0.5, 8.0, np.nan, 25.0])
@@ -647,19 +647,19 @@ def test_one_pass_inlet_differences_equal_the_per_property_differences_bit_for_b
     mask = np.isfinite(p)
     h0, s0 = steam.h_pt(p, t), steam.s_pt(p, t)
     for which, step in (("t", np.full(p.size, 1.0)), ("p", 0.0025 * p)):
-        dh, ds = S._pt_derivative_hs(p, t, step, which, h0, s0, mask)
-        ref_h = S._pt_derivative(steam.h_pt, p, t, step, which, h0, mask)
-        ref_s = S._pt_derivative(steam.s_pt, p, t, step, which, s0, mask)
+        dh, ds = S.uncertainty.pt_derivative_hs(p, t, step, which, h0, s0, mask)
+        ref_h = S.uncertainty.pt_derivative(steam.h_pt, p, t, step, which, h0, mask)
+        ref_s = S.uncertainty.pt_derivative(steam.s_pt, p, t, step, which, s0, mask)
         assert np.array_equal(dh, ref_h, equal_nan=True)
         assert np.array_equal(ds, ref_s, equal_nan=True)
         assert np.isnan(dh[5]) and np.isfinite(dh[:5]).all()
     # (dh/dT)_p is cp to the first order: iapws (reference library), central difference error
-    dh, _ = S._pt_derivative_hs(p, t, np.full(p.size, 1.0), "t", h0, s0, mask)
+    dh, _ = S.uncertainty.pt_derivative_hs(p, t, np.full(p.size, 1.0), "t", h0, s0, mask)
     assert dh[0] == pytest.approx(IAPWS97(P=12.0, T=800.0).cp, rel=1e-4)
 
 
 def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
-    # _section_core(..., end_state=True) takes T and v of the isentropic end point from the
+    # section_core(..., end_state=True) takes T and v of the isentropic end point from the
     # h(p, s) solve instead of re-solving T(p, h): the figures must be bit for bit the same
     # and the uncertainty the same within 1e-12 relative (both are IF97 at one state),
     # wet end points (LP-dry-like outlets near saturation) included.
@@ -671,8 +671,8 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
         ]
     )
     args = [cases[:, i].copy() for i in range(4)]
-    old = S._section_core(*args)
-    new = S._section_core(*args, end_state=True)
+    old = S.dry.section_core(*args)
+    new = S.dry.section_core(*args, end_state=True)
     for k, v in old.items():
         assert np.array_equal(v, new[k], equal_nan=True), k
     wet_end = np.isfinite(steam.x_ps(args[2], new["s_in"]))
@@ -683,9 +683,9 @@ def test_end_state_from_the_solve_gives_the_same_section_uncertainty():
         "p_out": 0.0025 * args[2],
         "t_out": np.full(len(cases), 1.0),
     }
-    a = S._section_uncertainty(*args, old, u, u)
+    a = S.uncertainty.section_uncertainty(*args, old, u, u)
     differenced = {k: v for k, v in new.items() if not k.startswith("slopes")}
-    b = S._section_uncertainty(*args, differenced, u, u)
+    b = S.uncertainty.section_uncertainty(*args, differenced, u, u)
     assert np.isfinite(a).all()
     np.testing.assert_allclose(b, a, rtol=1e-12)
 
@@ -704,7 +704,7 @@ def test_analytic_sensitivities_are_the_limit_of_the_differences():
         ]
     )
     args = [cases[:, i].copy() for i in range(4)]
-    new = S._section_core(*args, end_state=True)
+    new = S.dry.section_core(*args, end_state=True)
     differenced = {k: v for k, v in new.items() if not k.startswith("slopes")}
     u = {
         "p_in": 0.0025 * args[0],
@@ -713,9 +713,9 @@ def test_analytic_sensitivities_are_the_limit_of_the_differences():
         "t_out": np.full(len(cases), 1.0),
     }
     small = {k: v * 1e-3 for k, v in u.items()}
-    analytic = S._section_uncertainty(*args, new, u, u)
-    fine = S._section_uncertainty(*args, differenced, u, small)
-    coarse = S._section_uncertainty(*args, differenced, u, u)
+    analytic = S.uncertainty.section_uncertainty(*args, new, u, u)
+    fine = S.uncertainty.section_uncertainty(*args, differenced, u, small)
+    coarse = S.uncertainty.section_uncertainty(*args, differenced, u, u)
     assert np.isfinite(analytic).all()
     np.testing.assert_allclose(analytic, fine, rtol=1e-7)
     assert np.max(np.abs(coarse / analytic - 1)) < 2e-5
@@ -729,27 +729,27 @@ def test_analytic_sensitivities_are_the_limit_of_the_differences():
     for k in ("dh_dt", "ds_dt", "dh_dp", "ds_dp"):
         mixed["slopes_in"][k][holes] = np.nan
         mixed["slopes_out"][k][holes] = np.nan
-    both = S._section_uncertainty(*args, mixed, u, u)
+    both = S.uncertainty.section_uncertainty(*args, mixed, u, u)
     np.testing.assert_array_equal(both[holes], coarse[holes])
     np.testing.assert_array_equal(both[~holes], analytic[~holes])
 
 
 def test_shared_inlet_states_give_what_a_fresh_evaluation_gives():
-    # _InletStates.get must return exactly _call_hs on the requested mask (NaN elsewhere),
+    # InletStates.get must return exactly call_hs on the requested mask (NaN elsewhere),
     # whether the state was stored on a smaller, a larger or an overlapping mask.
     p = np.array([12.0, 3.0, 0.5, np.nan, 8.0, 1.0])
     t = np.array([800.0, 600.0, 500.0, 700.0, 650.0, 560.0])
     m1 = np.array([True, True, False, False, True, False])
     m2 = np.array([False, True, True, False, True, True])
-    states = S._InletStates()
+    states = S.inputs.InletStates()
     h1, s1 = states.get(m1, p, t)
     h2, s2 = states.get(m2, p.copy(), t.copy())
     for (h, s), m in (((h1, s1), m1), ((h2, s2), m2)):
-        rh, rs = S._call_hs(m, p, t)
+        rh, rs = S.inputs.call_hs(m, p, t)
         assert np.array_equal(h, rh, equal_nan=True) and np.array_equal(s, rs, equal_nan=True)
         assert np.array_equal(h, steam.h_pt(np.where(m, p, np.nan), t), equal_nan=True)
     h3, _ = states.get(m1, p, t + 1.0)  # another state: evaluated, not taken from the store
-    assert np.array_equal(h3, S._call_hs(m1, p, t + 1.0)[0], equal_nan=True)
+    assert np.array_equal(h3, S.inputs.call_hs(m1, p, t + 1.0)[0], equal_nan=True)
 
 
 def test_flow_uncertainty_reaches_ueep_only():
@@ -849,7 +849,7 @@ def test_a_long_frame_is_evaluated_in_row_blocks_with_the_figures_of_one_piece(m
 
     frame, _ = synthetic.generate(days=2, freq="2min")
     whole = S.evaluate(frame)
-    monkeypatch.setattr(S, "EVALUATE_ROWS", 500)
+    monkeypatch.setattr(S.frame, "EVALUATE_ROWS", 500)  # where evaluate reads it
     blocked = S.evaluate(frame)
     assert blocked.lp_mode == whole.lp_mode and blocked.notes == whole.notes
     a, b = whole.to_frame(), blocked.to_frame()
