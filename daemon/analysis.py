@@ -698,11 +698,11 @@ def _alarm_events(state, obs: list[dict], rules):
     return alarms.evaluate_alarms(state or None, frame.reset_index(drop=True), rules)
 
 
-#: Threads that scan the sections at once. The scans spend most of their time in numpy
-#: (partitions, cumulative sums) that runs without the interpreter lock: measured 1.2-1.6x
-#: faster on two cores than one after another (the same results: each section's scan is its
-#: own). Project choice.
-SCAN_THREADS = 3
+#: Threads that scan the sections at once. 1 (one after another) by default: measured on two
+#: idle cores, a unit-year rebuild took 7.9-8.8 s with one thread and 11.9 s with three (the
+#: scans' Python-level work holds the interpreter lock, and numpy's partitions are too short to
+#: gain from it). Results are identical either way (tests/daemon/test_analysis.py).
+SCAN_THREADS = 1
 
 
 def _in_threads(func, names: list[str]) -> dict:
