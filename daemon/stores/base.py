@@ -117,6 +117,20 @@ class LeaseHolder:
     def describe(self) -> str:
         return f"`{self.command}` on host {self.host}, pid {self.pid}, started {_when(self.started)}"
 
+    def vanished(self) -> bool:
+        """True when this holder ran on this host and its process no longer exists (it was
+        killed or crashed): its lease need not be waited out. A pid taken again by another
+        process counts as alive (the lease then expires as usual)."""
+        if self.host != socket.gethostname() or self.pid == os.getpid():
+            return False
+        try:
+            os.kill(self.pid, 0)
+        except ProcessLookupError:
+            return True
+        except OSError:  # exists, owned by another user
+            return False
+        return False
+
 
 _PROCESS_START = pd.Timestamp.now(tz="UTC")
 

@@ -148,7 +148,9 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
             if cert is not None:
                 raise cert from None
             raise TemporaryStoreError(f"{what}: {self.url} unreachable: {type(exc).__name__}") from None
-        except (requests.ConnectionError, requests.Timeout) as exc:
+        except (requests.ConnectionError, requests.Timeout, requests.exceptions.ChunkedEncodingError) as exc:
+            # ChunkedEncodingError: the server went away in the middle of its answer (killed or
+            # restarted mid-read), an outage like a refused connection
             raise TemporaryStoreError(f"{what}: {self.url} unreachable: {type(exc).__name__}") from None
         except requests.RequestException as exc:
             raise FatalStoreError(f"{what}: {self.url}: {exc}") from None

@@ -382,7 +382,8 @@ class LeaseOnState:
     unexpired ones, the earliest ``since`` (then the holder id) wins; a loser writes its claim
     as released and is refused with the winner's name. A renewal first reads: another holder
     in front (this one's lease ran out, e.g. the process was frozen) means the unit is lost.
-    A crashed holder stops holding when its lease expires. Hosts' clocks must agree to well
+    A crashed holder stops holding when its lease expires, or at once when it ran on this
+    host and its process is gone (``LeaseHolder.vanished``). Hosts' clocks must agree to well
     under the lease and the confirmation pause.
 
     Subclasses give ``_save_state(kind, name, value)`` and ``_lease_values(unit, after)``: the
@@ -413,7 +414,9 @@ class LeaseOnState:
             except (ValueError, KeyError, TypeError):
                 continue  # not a lease record of ours: ignored
         claims = [
-            (c["since"], hid, c["holder"], c["expires"]) for hid, c in last.items() if c["expires"] > now
+            (c["since"], hid, c["holder"], c["expires"])
+            for hid, c in last.items()
+            if c["expires"] > now and not c["holder"].vanished()  # a killed holder on this host
         ]
         return sorted(claims, key=lambda c: (c[0], c[1]))
 

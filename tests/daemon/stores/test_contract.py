@@ -15,6 +15,8 @@ Values are invented test data; the expectations are the contract itself.
 
 from __future__ import annotations
 
+import os
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -691,3 +693,17 @@ def test_a_renewed_lease_keeps_holding(case):
             other.acquire_lease("U7", b, LEASE)
     finally:
         other.close()
+
+
+def test_a_killed_holder_on_this_host_has_vanished():
+    # the lease of a process of this host that no longer exists is not waited out
+    import socket
+    import subprocess
+    import sys
+
+    child = subprocess.Popen([sys.executable, "-c", "pass"])
+    child.wait()
+    here = socket.gethostname()
+    assert _holder("backfill", here, child.pid).vanished()
+    assert not _holder("backfill", here, os.getpid()).vanished()
+    assert not _holder("backfill", "host-a", child.pid).vanished()
