@@ -180,7 +180,7 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         body = self._request("POST", "/query", "check database", data={"q": q}).json()
         result = body.get("results", [{}])[0]
         if "error" in result:
-            raise FatalStoreError(f"database {self.database!r} on {self.url}: {result['error']}")
+            raise _answer_error(f"database {self.database!r} on {self.url}: {result['error']}")
         names = [row[0] for s in result.get("series", []) for row in s.get("values", [])]
         if not names:
             # InfluxDB 2.x answers a database (bucket) that does not exist, or that the token
@@ -361,7 +361,7 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         body = self._request("POST", "/query", what, params=params, data={"q": q}).json()
         result = (body.get("results") or [{}])[0]
         if "error" in result or "error" in body:
-            raise FatalStoreError(
+            raise _answer_error(
                 f"{what} ({self.url}, database {self.database!r}): {result.get('error') or body['error']}"
             )
         return result
@@ -442,3 +442,15 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
 
     def close(self) -> None:
         self._session.close()
+
+
+#: Words of an InfluxQL error answer given while the server stops (measured on 1.6.7: "query
+#: engine shutdown"): an outage, retried, not a configuration problem.
+_STOPPING = ("shutdown", "shutting down")
+
+
+def _answer_error(message: str) -> FatalStoreError | TemporaryStoreError:
+    """The error for an error in the server's answer: temporary while the server stops."""
+    if any(w in message.lower() for w in _STOPPING):
+        return TemporaryStoreError(message)
+    return FatalStoreError(message)

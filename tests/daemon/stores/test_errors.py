@@ -64,3 +64,13 @@ def test_kept_lines_go_to_their_own_target_first():
     w._write(["x1"], "save checkpoint", RESULTS)  # the raw lines first, to where raw lines go
     assert w.sent == [(RAW, ["r1", "r2"]), (RAW, ["r3"]), (RESULTS, ["x1"])]
     assert w.pending == []
+
+
+def test_an_influxql_answer_given_while_the_server_stops_is_an_outage():
+    # influxd 1.6.7 answers "query engine shutdown" to a query that arrives while it stops
+    # (seen by the fault suite's stopped-server backfill): retried, not a configuration error
+    from isentrope.daemon.stores.base import FatalStoreError, TemporaryStoreError
+    from isentrope.daemon.stores.influx1 import _answer_error
+
+    assert isinstance(_answer_error("database 'x' on http://h: query engine shutdown"), TemporaryStoreError)
+    assert isinstance(_answer_error("database not found: x"), FatalStoreError)
