@@ -19,6 +19,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from isentrope.calc.names import FIGURE_FIELDS
+from isentrope.calc.units import INTERNAL_UNIT
 from isentrope.daemon.roles import ROLES
 
 
@@ -66,9 +67,8 @@ def _fields(*rows: tuple[str, str, str]) -> tuple[Field, ...]:
 
 
 _FIGURES = tuple(Field(name, unit, text) for name, unit, text in FIGURE_FIELDS)
-_ROLE_UNITS = {"pressure": "MPa abs", "temperature": "K", "flow": "kg/s", "power": "MW", "percent": "%"}
 _ROLE_MEANS = tuple(
-    Field(role, _ROLE_UNITS[quantity], f"window mean of {text}")
+    Field(role, INTERNAL_UNIT[quantity], f"window mean of {text}")
     for role, (quantity, _, text) in ROLES.items()
 )
 _ALARM_FIELDS = _fields(

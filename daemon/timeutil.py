@@ -200,3 +200,8 @@ def floor_time(t: pd.Timestamp, step: pd.Timedelta) -> pd.Timestamp:
 def epoch_seconds(t) -> float:
     """Seconds from ``EPOCH`` to ``t`` (a UTC time), as the ``*_s`` result fields store times."""
     return float((pd.Timestamp(t) - EPOCH).total_seconds())
+
+
+#: Window boundaries and heartbeat times are floored to this resolution (stable keys; common
+#: practice, no source).
+DEFAULT_RESOLUTION = pd.Timedelta("1s")

@@ -56,8 +56,8 @@ from isentrope.daemon.series import (
     WINDOWS_MEASUREMENT,
 )
 from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, Store, TemporaryStoreError
-from isentrope.daemon.timeutil import as_timedelta, epoch_seconds, floor_time, utc
-from isentrope.daemon.writer import DEFAULT_RESOLUTION, ResultWriter
+from isentrope.daemon.timeutil import DEFAULT_RESOLUTION, as_timedelta, epoch_seconds, floor_time, utc
+from isentrope.daemon.writer import ResultWriter
 
 logger = logging.getLogger("isentrope.worker")
 

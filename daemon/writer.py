@@ -12,12 +12,9 @@ import pandas as pd
 
 from isentrope.daemon.series import STATUS_MEASUREMENT
 from isentrope.daemon.stores.base import AuthorizationError, FatalStoreError, TemporaryStoreError
-from isentrope.daemon.timeutil import epoch_seconds, floor_time
+from isentrope.daemon.timeutil import DEFAULT_RESOLUTION, epoch_seconds, floor_time
 
 logger = logging.getLogger("isentrope.worker")
-
-#: Window boundaries are floored to this resolution (stable keys; common practice, no source).
-DEFAULT_RESOLUTION = pd.Timedelta("1s")
 
 
 class ResultWriter:
