@@ -31,7 +31,6 @@ from __future__ import annotations
 
 import csv
 import io
-import json
 import threading
 from collections.abc import Mapping, Sequence
 
@@ -53,7 +52,6 @@ from isentrope.daemon.stores.influx_common import (
     classify_http,
     delete_statement,
     influxql_time,
-    state_line,
     time_windows,
     tls_verify,
 )
@@ -375,20 +373,26 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         self.execute(delete_statement(measurement, start, end, tags), f"delete_results {measurement}")
 
     # --- worker state --------------------------------------------------------------------
-    def _last_state(self, kind: str, name: str) -> str | None:
-        escape.check_name(name, f"{kind} name")
-        q = (
-            f'SELECT last("value") FROM {self._from(STATE_MEASUREMENT)} WHERE '
-            f'"kind"::tag = {escape.influxql_string(kind)} AND "name"::tag = {escape.influxql_string(name)}'
-        )
+    def _state_rows(self, where: str, select: str, what: str) -> list[list[str]]:
+        """Rows (header first) of ``SELECT <select> FROM <state measurement> WHERE <where>``.
+
+        Read as CSV with the csv module: the values are JSON, quoted by the server.
+        """
+        q = f"SELECT {select} FROM {self._from(STATE_MEASUREMENT)} WHERE {where}"
         params = {"db": self.database, "epoch": "ns", "q": q}
         if self.retention_policy:
             params["rp"] = self.retention_policy
-        # CSV for the value: csv module (the value is JSON, quoted by the server).
         text = self._request(
-            "POST", "/query", f"load {kind}", data=params, headers={"Accept": "application/csv"}
+            "POST", "/query", what, data=params, headers={"Accept": "application/csv"}
         ).content.decode("utf-8")
-        rows = list(csv.reader(io.StringIO(text)))
+        return list(csv.reader(io.StringIO(text)))
+
+    def _last_state(self, kind: str, name: str) -> str | None:
+        escape.check_name(name, f"{kind} name")
+        where = (
+            f'"kind"::tag = {escape.influxql_string(kind)} AND "name"::tag = {escape.influxql_string(name)}'
+        )
+        rows = self._state_rows(where, 'last("value")', f"load {kind}")
         if len(rows) < 2:
             if not self._db_checked:
                 self._check_database()
@@ -396,49 +400,18 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         header, row = rows[0], rows[1]
         return row[header.index("last")]
 
-    def _save_state(self, kind: str, name: str, value: str) -> None:
-        line = state_line(kind, name, value, self._clock.next())
-        self._write([line], f"save {kind} {name!r}")
-
     def _lease_values(self, unit: str, after: pd.Timestamp) -> list[str]:
-        q = (
-            f'SELECT "value" FROM {self._from(STATE_MEASUREMENT)} WHERE "kind"::tag = \'lease\' '
-            f'AND "name"::tag = {escape.influxql_string(unit)} AND time > {influxql_time(after)}'
+        where = (
+            f'"kind"::tag = \'lease\' AND "name"::tag = {escape.influxql_string(unit)} '
+            f"AND time > {influxql_time(after)}"
         )
-        params = {"db": self.database, "epoch": "ns", "q": q}
-        if self.retention_policy:
-            params["rp"] = self.retention_policy
-        text = self._request(
-            "POST",
-            "/query",
-            f"read the leases of unit {unit!r}",
-            data=params,
-            headers={"Accept": "application/csv"},
-        ).content.decode("utf-8")
-        rows = list(csv.reader(io.StringIO(text)))
+        rows = self._state_rows(where, '"value"', f"read the leases of unit {unit!r}")
         if len(rows) < 2:
             return []
         header = rows[0]
         i_time, i_value = header.index("time"), header.index("value")
         body = sorted((r for r in rows[1:] if len(r) == len(header)), key=lambda r: int(r[i_time]))
         return [r[i_value] for r in body]
-
-    def get_checkpoint(self, name: str) -> pd.Timestamp | None:
-        v = self._last_state("checkpoint", name)
-        return None if v is None else common.utc(v, f"checkpoint {name!r}")
-
-    def set_checkpoint(self, name: str, time) -> None:
-        t = common.utc(time, "checkpoint time")
-        self._save_state("checkpoint", name, t.isoformat())
-
-    def load_state(self, name: str) -> dict:
-        v = self._last_state("state", name)
-        return {} if v is None else json.loads(v)
-
-    def save_state(self, name: str, state: Mapping) -> None:
-        if not isinstance(state, Mapping):
-            raise ValueError(f"state {name!r} must be a mapping, found {type(state).__name__}")
-        self._save_state("state", name, json.dumps(dict(state), allow_nan=False, sort_keys=True))
 
     def close(self) -> None:
         self._session.close()

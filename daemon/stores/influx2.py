@@ -57,7 +57,6 @@ Token: ``token`` itself, or the name of an environment variable (``token_env``) 
 from __future__ import annotations
 
 import io
-import json
 import logging
 import os
 import re
@@ -93,7 +92,6 @@ from isentrope.daemon.stores.influx_common import (
     clear_type_text,
     delete_statement,
     influxql_time,
-    state_line,
     time_windows,
     tls_verify,
 )
@@ -612,54 +610,33 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
             raise FatalStoreError(f"{where}: {result.get('error') or body['error']}")
 
     # --- worker state --------------------------------------------------------------------
-    def _last_state(self, kind: str, name: str) -> str | None:
-        escape.check_name(name, f"{kind} name")
+    def _state_blocks(self, kind: str, name: str, start: str, tail: str, what: str) -> list[pd.DataFrame]:
+        """The non-empty answer blocks (``_time``, ``_value``) of the state points ``kind``/``name``
+        from ``start`` on, in one table, ending with the Flux step ``tail``."""
         flux = (
             f"from(bucket: {escape.flux_string(self.results_bucket)})\n"
-            "  |> range(start: 1970-01-01T00:00:00Z)\n"
+            f"  |> range(start: {start})\n"
             f"  |> filter(fn: (r) => {self._filter(STATE_MEASUREMENT, ['value'], {'kind': kind, 'name': name})})\n"
             '  |> keep(columns: ["_time", "_value"])\n'
             "  |> group()\n"
-            "  |> last()"
+            f"  |> {tail}"
         )
-        blocks = [b for b in self.query_csv(flux, f"load {kind} {name!r}", RESULTS) if len(b)]
+        return [b for b in self.query_csv(flux, what, RESULTS) if len(b)]
+
+    def _last_state(self, kind: str, name: str) -> str | None:
+        escape.check_name(name, f"{kind} name")
+        blocks = self._state_blocks(kind, name, "1970-01-01T00:00:00Z", "last()", f"load {kind} {name!r}")
         if not blocks:
             return None
         return str(blocks[-1]["_value"].iloc[-1])
 
-    def _save_state(self, kind: str, name: str, value: str) -> None:
-        self._write([state_line(kind, name, value, self._clock.next())], f"save {kind} {name!r}")
-
     def _lease_values(self, unit: str, after: pd.Timestamp) -> list[str]:
-        flux = (
-            f"from(bucket: {escape.flux_string(self.results_bucket)})\n"
-            f"  |> range(start: {flux_time(after)})\n"
-            f"  |> filter(fn: (r) => {self._filter(STATE_MEASUREMENT, ['value'], {'kind': 'lease', 'name': unit})})\n"
-            '  |> keep(columns: ["_time", "_value"])\n'
-            "  |> group()\n"
-            '  |> sort(columns: ["_time"])'
-        )
-        blocks = [b for b in self.query_csv(flux, f"read the leases of unit {unit!r}", RESULTS) if len(b)]
+        what = f"read the leases of unit {unit!r}"
+        blocks = self._state_blocks("lease", unit, flux_time(after), 'sort(columns: ["_time"])', what)
         if not blocks:
             return []
         frame = pd.concat(blocks).sort_values("_time", kind="stable")
         return [str(v) for v in frame["_value"]]
-
-    def get_checkpoint(self, name: str) -> pd.Timestamp | None:
-        v = self._last_state("checkpoint", name)
-        return None if v is None else common.utc(v, f"checkpoint {name!r}")
-
-    def set_checkpoint(self, name: str, time) -> None:
-        self._save_state("checkpoint", name, common.utc(time, "checkpoint time").isoformat())
-
-    def load_state(self, name: str) -> dict:
-        v = self._last_state("state", name)
-        return {} if v is None else json.loads(v)
-
-    def save_state(self, name: str, state: Mapping) -> None:
-        if not isinstance(state, Mapping):
-            raise ValueError(f"state {name!r} must be a mapping, found {type(state).__name__}")
-        self._save_state("state", name, json.dumps(dict(state), allow_nan=False, sort_keys=True))
 
     def close(self) -> None:
         if self._client is not None:

@@ -372,7 +372,41 @@ LEASE_LONGEST = pd.Timedelta(days=1)
 LEASE_CONFIRM_DELAY = 1.0
 
 
-class LeaseOnState:
+class StateOnPoints:
+    """Checkpoints and worker state on an InfluxDB store: points of ``STATE_MEASUREMENT``.
+
+    A save is a new point (tags ``kind`` and ``name``, a string field ``value``) at a strictly
+    increasing time (``StateClock``), so a load is the series' last point: checkpoints as ISO
+    8601 text, states as JSON. Nothing is overwritten, so an interrupted save loses nothing.
+
+    Subclasses give ``_last_state(kind, name)`` (the last value, None when there is none) and
+    ``_write(lines, what)``, and set ``self._clock`` to a ``StateClock``.
+    """
+
+    def _last_state(self, kind: str, name: str) -> str | None:  # pragma: no cover
+        raise NotImplementedError
+
+    def _save_state(self, kind: str, name: str, value: str) -> None:
+        self._write([state_line(kind, name, value, self._clock.next())], f"save {kind} {name!r}")
+
+    def get_checkpoint(self, name: str) -> pd.Timestamp | None:
+        v = self._last_state("checkpoint", name)
+        return None if v is None else common.utc(v, f"checkpoint {name!r}")
+
+    def set_checkpoint(self, name: str, time) -> None:
+        self._save_state("checkpoint", name, common.utc(time, "checkpoint time").isoformat())
+
+    def load_state(self, name: str) -> dict:
+        v = self._last_state("state", name)
+        return {} if v is None else json.loads(v)
+
+    def save_state(self, name: str, state: Mapping) -> None:
+        if not isinstance(state, Mapping):
+            raise ValueError(f"state {name!r} must be a mapping, found {type(state).__name__}")
+        self._save_state("state", name, json.dumps(dict(state), allow_nan=False, sort_keys=True))
+
+
+class LeaseOnState(StateOnPoints):
     """One worker per unit on an InfluxDB store: lease points in ``STATE_MEASUREMENT``.
 
     Each claim, renewal and release is a point of the series (kind "lease", name = unit) whose
@@ -386,7 +420,7 @@ class LeaseOnState:
     host and its process is gone (``LeaseHolder.vanished``). Hosts' clocks must agree to well
     under the lease and the confirmation pause.
 
-    Subclasses give ``_save_state(kind, name, value)`` and ``_lease_values(unit, after)``: the
+    Subclasses give, besides what ``StateOnPoints`` needs, ``_lease_values(unit, after)``: the
     values of the unit's lease points after ``after``, in time order.
     """
 
