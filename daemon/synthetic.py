@@ -1179,45 +1179,6 @@ def read_truth(path) -> dict:
     return json.loads(Path(path).read_text(encoding="utf-8"))
 
 
-def bench(days: float = 365, freq: str = "1min", seed: int = DEFAULT_SEED) -> dict:
-    """Time ``generate`` against its own floor: the same IF97 calls alone, in the same run.
-
-    The reference repeats the eleven ``isentrope.calc.steam`` calls of the expansion on the
-    generated online rows (what any IF97-consistent generator must pay); ``ratio`` is the
-    generator's time over the reference. Returns the figures [s] and row counts.
-    """
-    import time
-
-    t0 = time.perf_counter()
-    frame, truth, state = generate_with_state(start="2025-01-01", days=days, freq=freq, seed=seed)
-    t_gen = time.perf_counter() - t0
-    on = state["online"].to_numpy()
-    st = {role: state[f"true_{role}"].to_numpy()[on] for role in ROLES}
-    steam = _steam()
-    t0 = time.perf_counter()
-    for p_in, t_in, p_out, _ in (
-        ("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t"),
-        ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t"),
-    ):
-        h = steam.h_pt(st[p_in], st[t_in])
-        s = steam.s_pt(st[p_in], st[t_in])
-        steam.h_ps(st[p_out], s)
-        steam.t_ph(st[p_out], h - 0.88 * (h - h + 300.0))
-    s = steam.s_pt(st["crossover_p"], st["crossover_t"])
-    h = steam.h_ps(st["lp_extraction_p"], s)
-    steam.t_ph(st["lp_extraction_p"], h + 30.0)
-    t_ref = time.perf_counter() - t0
-    return {
-        "days": days,
-        "rows": int(len(state)),
-        "online_rows": int(on.sum()),
-        "generate_s": round(t_gen, 3),
-        "steam_reference_s": round(t_ref, 3),
-        "ratio": round(t_gen / t_ref, 3),
-        "rest_s": round(t_gen - t_ref, 3),
-    }
-
-
 def main(argv: Sequence[str] | None = None) -> int:
     """Write a synthetic history (wide CSV: time, then one column per plant tag, plant units;
     or role columns in internal units with ``--internal``), its truth file and a configuration."""
@@ -1226,11 +1187,6 @@ def main(argv: Sequence[str] | None = None) -> int:
         description="Write the synthetic Greywater Bend Unit 2 history.",
     )
     parser.add_argument("-o", "--out", help="output folder (created)")
-    parser.add_argument(
-        "--bench",
-        action="store_true",
-        help="time the generator against the IF97 calls alone and print the ratio",
-    )
     parser.add_argument("--start", default="2025-01-01")
     parser.add_argument("--days", type=float, default=30.0)
     parser.add_argument("--freq", default="1min")
@@ -1241,12 +1197,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         help="write internal units (MPa abs, K, ...) instead of the plant units",
     )
     args = parser.parse_args(argv)
-    if args.bench:
-        figures = bench(args.days, args.freq, args.seed)
-        print(" ".join(f"{k}={v}" for k, v in figures.items()))
-        return 0
     if not args.out:
-        parser.error("-o/--out is required (or give --bench)")
+        parser.error("-o/--out is required")
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     frame, truth = generate(args.start, args.days, args.freq, args.seed)

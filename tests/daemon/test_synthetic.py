@@ -561,15 +561,26 @@ def test_events_table_lists_every_injection(history):
     assert table.loc[table["kind"] == "flatline", "role"].item() == "cold_reheat_t"
 
 
-def test_generate_matches_generate_with_state_and_bench_runs(capsys):
+def test_generate_matches_generate_with_state():
     a, ta = syn.generate(start="2025-08-01", days=2, freq="10min", seed=4)
     b, tb, state = syn.generate_with_state(start="2025-08-01", days=2, freq="10min", seed=4)
     pd.testing.assert_frame_equal(a, b)
     assert ta == tb
     assert "true_throttle_p" in state.columns
-    assert syn.main(["--bench", "--days", "2", "--freq", "10min"]) == 0
-    figures = dict(item.split("=") for item in capsys.readouterr().out.split())
-    assert int(figures["rows"]) == 288 and float(figures["steam_reference_s"]) > 0  # no timed assertion
+
+
+def test_benchmark_script_runs():
+    # A smoke run: tests/bench/bench_synthetic.py works and prints its figures (no timing asserted).
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    script = Path(__file__).resolve().parents[1] / "bench" / "bench_synthetic.py"
+    args = ["--days", "2", "--freq", "10min"]
+    proc = subprocess.run([sys.executable, str(script), *args], capture_output=True, text=True, timeout=300)
+    assert proc.returncode == 0, proc.stderr
+    figures = dict(item.split("=") for item in proc.stdout.split())
+    assert int(figures["rows"]) == 288 and float(figures["steam_reference_s"]) > 0
 
 
 def test_spec_defaults_are_the_wrappers_defaults():
