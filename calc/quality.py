@@ -32,7 +32,7 @@ import numpy as np
 import pandas as pd
 from scipy import ndimage
 
-from isentrope.calc import rolling
+from isentrope.calc import rolling, sections, steam
 from isentrope.calc.names import REQUIRED_ROLES
 
 __all__ = [
@@ -586,8 +586,6 @@ def _subset(a: np.ndarray, sel: np.ndarray | None) -> np.ndarray:
 
 def _saturation_temperature(p: np.ndarray) -> np.ndarray:
     """T_sat(p) [K] below the critical pressure, T_crit at and above it, NaN below the triple point."""
-    from isentrope.calc import steam
-
     sub = (p >= P_TRIPLE) & (p < P_CRIT)
     if sub.all():
         return np.asarray(steam.t_sat(p), dtype=float)
@@ -614,12 +612,8 @@ def _section_codes(p_in, t_in, p_out, t_out, with_efficiency, band, margin, give
     if given is not None:
         eff = np.where(todo, given, np.nan)
     elif todo.all():
-        from isentrope.calc import sections
-
         eff = np.asarray(sections.section_efficiency(p_in, t_in, p_out, t_out), dtype=float)
     else:
-        from isentrope.calc import sections
-
         eff = np.full(len(p_in), np.nan)
         if todo.any():
             eff[todo] = np.asarray(

@@ -81,6 +81,7 @@ import numpy as np
 import pandas as pd
 from scipy.signal import lfilter
 
+from isentrope.calc import steam
 from isentrope.daemon.roles import ROLES
 from isentrope.daemon.synthetic_plant import (
     EXCEPTION_DEADBANDS,
@@ -302,12 +303,6 @@ def _ar1(rng: np.random.Generator, n: int, sigma: float, tau_steps: float) -> np
     w[1:] *= sigma * math.sqrt(1.0 - a * a)
     w[0] *= sigma
     return lfilter([1.0], [1.0, -a], w)
-
-
-def _steam():
-    from isentrope.calc import steam
-
-    return steam
 
 
 def _ts(value) -> pd.Timestamp:
@@ -680,7 +675,6 @@ def expansion(process: Mapping[str, np.ndarray], eff: Efficiencies, online: np.n
     ``h_out = h_in - eta (h_in - h(p_out, s_in))``, ``T_out = T(p_out, h_out)`` on the online
     rows; NaN offline. Returns ``cold_reheat_t``, ``crossover_t``, ``lp_extraction_t`` [K].
     """
-    steam = _steam()
     on = online
     p_thr, t_thr = process["throttle_p"], process["throttle_t"]
     p_crh, p_hrh, t_hrh = process["cold_reheat_p"], process["hot_reheat_p"], process["hot_reheat_t"]

@@ -48,8 +48,11 @@ from dataclasses import dataclass
 
 import pandas as pd
 
+from isentrope.calc import units
 from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores import common
+from isentrope.daemon.stores import grid as g
 from isentrope.daemon.stores.grid import ReadGrid
 
 #: Default ``timeout`` of every store [s]: an HTTP request to InfluxDB, or SQLite's wait for a
@@ -202,8 +205,6 @@ class Store(ABC):
     ) -> pd.DataFrame:
         """Like ``read_raw`` (or ``read_grid`` with a ``grid``), converted to internal units
         (MPa abs, K, kg/s, MW, %)."""
-        from isentrope.calc import units
-
         raw = (
             self.read_raw(mappings, start, end)
             if grid is None
@@ -219,9 +220,6 @@ class Store(ABC):
         held roles from ``read_window_last`` (one request for all of them, reaching back the
         longest max_age), interpolated roles from ``read_raw`` around the window. Rows where
         no role has a value are left out. See ``isentrope.daemon.stores.grid``."""
-        from isentrope.daemon.stores import common
-        from isentrope.daemon.stores import grid as g
-
         mappings = common.check_mappings(mappings)
         start, end = common.window(start, end)
         times = g.grid_ns(start, end, grid.interval)
@@ -273,8 +271,6 @@ class Store(ABC):
         holds one, stamped ``t``, for the stored points in ``(after, until]`` (``after`` and
         ``until`` on the grid). Stores override this with their native windowing; here it is
         ``read_raw`` and numpy (``grid.window_last``)."""
-        from isentrope.daemon.stores import grid as g
-
         one_ns = pd.Timedelta(1, unit="ns")
         raw = self.read_raw(mappings, after + one_ns, until + one_ns)
         out = {}

@@ -11,6 +11,7 @@ import numpy as np
 import pandas as pd
 
 from isentrope.daemon.roles import RoleMapping
+from isentrope.daemon.stores.escape import check_name
 from isentrope.daemon.timeutil import utc
 
 
@@ -166,8 +167,6 @@ def results_frame(
 
 
 def check_tags(tags: Mapping[str, str] | None) -> dict[str, str]:
-    from isentrope.daemon.stores.escape import check_name
-
     out = {}
     for k, v in (tags or {}).items():
         check_name(k, "tag key")

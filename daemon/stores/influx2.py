@@ -66,6 +66,7 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
+import requests
 import urllib3
 from influxdb_client import InfluxDBClient, WritePrecision
 from influxdb_client.client.exceptions import InfluxDBError
@@ -568,8 +569,6 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
 
     def _delete_v1(self, measurement: str, start, end, tags: Mapping[str, str], what: str) -> None:
         """The delete as InfluxQL on the v1 /query endpoint (influxd 1.8 has no /api/v2/delete)."""
-        import requests
-
         db, _, rp = self.results_bucket.partition("/")
         headers = {"User-Agent": "isentrope"}
         if self._token:
