@@ -332,12 +332,19 @@ class SqliteStore(Store):
 
         return self._run("write_results", go)
 
-    def read_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> pd.DataFrame:
+    def _result_where(self, measurement: str, start, end, tags: Mapping[str, str]) -> tuple[dict, str, tuple]:
+        """Checked ``tags``, and the WHERE clause with its parameters for a result query: those
+        tags, and stored times (whole ms) in ``[start, end)``."""
         self._check_measurement(measurement)
         tags = common.check_tags(tags)
         start, end = common.window(start, end)
         lo = -(-start.value // _NS_PER_MS)
         hi = -(-end.value // _NS_PER_MS)
+        where = " AND ".join([f"{_ident(k)} = ?" for k in tags] + ["time >= ?", "time < ?"])
+        return tags, where, (*tags.values(), lo, hi)
+
+    def read_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> pd.DataFrame:
+        tags, where, params = self._result_where(measurement, start, end, tags)
 
         def go(db):
             keys = self._tag_keys(db, measurement)
@@ -349,12 +356,11 @@ class SqliteStore(Store):
             fields = [
                 c for c in self._columns(db, measurement) if c not in keys and c not in ("time", "time_utc")
             ]
-            where = " AND ".join([f"{_ident(k)} = ?" for k in tags] + ["time >= ?", "time < ?"])
             sql = (
                 f"SELECT time, {', '.join(_ident(f) for f in fields) or 'NULL'} FROM {_ident(measurement)} "
                 f"WHERE {where} ORDER BY time"
             )
-            return db.execute(sql, (*tags.values(), lo, hi)).fetchall(), fields
+            return db.execute(sql, params).fetchall(), fields
 
         rows, fields = self._run("read_results", go)
         if not rows:
@@ -366,18 +372,13 @@ class SqliteStore(Store):
         return common.results_frame({f: data[:, i] for i, f in enumerate(fields)}, times)
 
     def delete_results(self, measurement: str, start, end, tags: Mapping[str, str]) -> None:
-        self._check_measurement(measurement)
-        tags = common.check_tags(tags)
-        start, end = common.window(start, end)
-        lo = -(-start.value // _NS_PER_MS)
-        hi = -(-end.value // _NS_PER_MS)
+        tags, where, params = self._result_where(measurement, start, end, tags)
 
         def go(db):
             keys = self._tag_keys(db, measurement)
             if keys is None or any(k not in keys for k in tags):
                 return  # no such table or tag key: no such rows
-            where = " AND ".join([f"{_ident(k)} = ?" for k in tags] + ["time >= ?", "time < ?"])
-            db.execute(f"DELETE FROM {_ident(measurement)} WHERE {where}", (*tags.values(), lo, hi))
+            db.execute(f"DELETE FROM {_ident(measurement)} WHERE {where}", params)
 
         self._run("delete_results", go)
 

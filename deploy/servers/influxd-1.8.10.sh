@@ -13,17 +13,8 @@ set -euo pipefail
 
 VERSION=1.8.10
 MODULE=github.com/influxdata/influxdb/cmd/influxd
-CACHE_ROOT=${ISENTROPE_SERVER_CACHE:-/var/cache/isentrope}
-DEST_DIR="$CACHE_ROOT/influxd-$VERSION"
-BIN="$DEST_DIR/influxd"
-
-log() { printf '%s\n' "influxd-$VERSION: $*" >&2; }
-
-if [[ -x "$BIN" ]] && "$BIN" version 2>/dev/null | grep -q "v$VERSION"; then
-    log "cached: $BIN"
-    printf '%s\n' "$BIN"
-    exit 0
-fi
+# shellcheck source=deploy/servers/cached.sh
+source "$(dirname "${BASH_SOURCE[0]}")/cached.sh"
 
 command -v go >/dev/null || { log "go is not on PATH (install Go 1.21+ first)"; exit 1; }
 mkdir -p "$DEST_DIR"

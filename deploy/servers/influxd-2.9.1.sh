@@ -30,17 +30,8 @@ set -euo pipefail
 
 VERSION=2.9.1
 MODULE=github.com/influxdata/influxdb/v2
-CACHE_ROOT=${ISENTROPE_SERVER_CACHE:-/var/cache/isentrope}
-DEST_DIR="$CACHE_ROOT/influxd-$VERSION"
-BIN="$DEST_DIR/influxd"
-
-log() { printf '%s\n' "influxd-$VERSION: $*" >&2; }
-
-if [[ -x "$BIN" ]] && "$BIN" version 2>/dev/null | grep -q "v$VERSION"; then
-    log "cached: $BIN"
-    printf '%s\n' "$BIN"
-    exit 0
-fi
+# shellcheck source=deploy/servers/cached.sh
+source "$(dirname "${BASH_SOURCE[0]}")/cached.sh"
 
 if ! command -v go >/dev/null && [[ -x /usr/local/go/bin/go ]]; then PATH="$PATH:/usr/local/go/bin"; fi
 if ! command -v cargo >/dev/null && [[ -x "$HOME/.cargo/bin/cargo" ]]; then PATH="$PATH:$HOME/.cargo/bin"; fi
