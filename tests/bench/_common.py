@@ -150,6 +150,13 @@ def shares(total: float, parts: dict[str, float]) -> str:
     return ", ".join(f"{k} {v:.1f} s ({100 * v / total:.0f} %)" for k, v in parts.items())
 
 
+def backfill_shares(wall: float, timer: StoreTimer, compute_s: float) -> str:
+    """Read, compute, write and the rest of a backfill's ``wall`` time, as ``shares``."""
+    read, write = timer.seconds["read"], timer.seconds["write"]
+    parts = {"read": read, "compute": compute_s, "write": write, "other": wall - read - write - compute_s}
+    return shares(wall, parts)
+
+
 # --- the obvious way: point by point with iapws ---------------------------------------------
 def reference_rows(frame: pd.DataFrame, eta_lp: float = 0.88, baumann: float = 1.0) -> pd.DataFrame:
     """HP and IP enthalpy-drop efficiencies and the LP expansion of every row, one

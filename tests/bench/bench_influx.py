@@ -125,19 +125,7 @@ def main(argv=None) -> int:
             + f"; sending took {timer.seconds['write']:.1f} s in the second thread"
         )
     else:
-        other = wall - timer.seconds["read"] - timer.seconds["write"] - compute["s"]
-        print(
-            "  "
-            + _common.shares(
-                wall,
-                {
-                    "read": timer.seconds["read"],
-                    "compute": compute["s"],
-                    "write": timer.seconds["write"],
-                    "other": other,
-                },
-            )
-        )
+        print("  " + _common.backfill_shares(wall, timer, compute["s"]))
     print(f"  unit-year at this rate: {wall / args.days * 365:.0f} s (target 90 s)")
     return 0
 

@@ -86,23 +86,11 @@ def main(argv=None) -> int:
             return 1
         rows = report.rows_read  # includes the margins read around each chunk
         n_rows = int(round(args.days * 1440))
-        other = wall - timer.seconds["read"] - timer.seconds["write"] - compute["s"]
         print(
             f"\nbackfill {args.days:g} d ({n_rows:,} one-minute rows, {report.chunks_done} chunks of {args.chunk}, "
             f"{rows:,} rows read incl. margins): {wall:.1f} s wall, peak RSS {_common.peak_rss_mb():.0f} MB"
         )
-        print(
-            "  "
-            + _common.shares(
-                wall,
-                {
-                    "read": timer.seconds["read"],
-                    "compute": compute["s"],
-                    "write": timer.seconds["write"],
-                    "other": other,
-                },
-            )
-        )
+        print("  " + _common.backfill_shares(wall, timer, compute["s"]))
         per_row_ours = wall / n_rows
         per_row_compute = compute["s"] / n_rows
         print(
