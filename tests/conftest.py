@@ -98,6 +98,9 @@ class _ServerProcess:
 
     _proc: subprocess.Popen | None = None
     log_path: Path
+    url: str
+    ping_path: str
+    ping_status: int
 
     @property
     def running(self) -> bool:
@@ -127,6 +130,13 @@ class _ServerProcess:
             return "\n".join(self.log_path.read_text(errors="replace").splitlines()[-lines:])
         except OSError:
             return "(no log)"
+
+    def ping(self, timeout: float = 1.0) -> bool:
+        try:
+            with urllib.request.urlopen(self.url + self.ping_path, timeout=timeout) as resp:
+                return resp.status == self.ping_status
+        except (urllib.error.URLError, OSError):
+            return False
 
     def _launch(self, argv: list[str], timeout: float, what: str) -> None:
         """Start ``argv`` with its output in the log and wait until ``ping()`` answers (``what``:
@@ -198,12 +208,8 @@ bind-address = "127.0.0.1:{self.rpc_port}"
         )
 
     # --- process -------------------------------------------------------------------------
-    def ping(self, timeout: float = 1.0) -> bool:
-        try:
-            with urllib.request.urlopen(self.url + "/ping", timeout=timeout) as resp:
-                return resp.status == 204
-        except (urllib.error.URLError, OSError):
-            return False
+    #: the endpoint that answers when the server is up, and its status
+    ping_path, ping_status = "/ping", 204
 
     def start(self, timeout: float = 120.0) -> InfluxServer:
         """Start (or restart after ``stop()``) on the same ports and data; wait for /ping."""
@@ -306,12 +312,8 @@ class Influx2xServer(_ServerProcess):
         self._names = itertools.count(1)
 
     # --- process -------------------------------------------------------------------------
-    def ping(self, timeout: float = 1.0) -> bool:
-        try:
-            with urllib.request.urlopen(self.url + "/health", timeout=timeout) as resp:
-                return resp.status == 200
-        except (urllib.error.URLError, OSError):
-            return False
+    #: the endpoint that answers when the server is up, and its status
+    ping_path, ping_status = "/health", 200
 
     def start(self, timeout: float = 120.0) -> Influx2xServer:
         """Start (or restart after ``stop()``) on the same port and data; wait for /health;
