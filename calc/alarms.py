@@ -447,6 +447,15 @@ def _stamp(ns: int) -> pd.Timestamp:
     return pd.Timestamp(int(ns), unit="ns", tz="UTC")
 
 
+def _event(
+    rule: Rule, r_i: int, section: str, kind: str, t_ns: int, value, level: float, count: int
+) -> tuple:
+    """The record of one event (see ``_run_machine``): at the deciding observation's time
+    ``t_ns`` [ns] and value, with the level crossed and ``count``, the observations counted."""
+    val = float(value)
+    return (_stamp(t_ns), r_i, section, kind, val, level, _message(rule, section, kind, val, level, count))
+
+
 def _run_machine(
     m: dict,
     rule: Rule,
@@ -492,18 +501,8 @@ def _run_machine(
                     m["count"] += b - a
                     break
                 count = m["count"] + (j - a + 1)
-                ts = _stamp(t[j])
-                val = float(v[j])
                 records.append(
-                    (
-                        ts,
-                        r_i,
-                        section,
-                        KIND_RAISED,
-                        val,
-                        float(rule.threshold),
-                        _message(rule, section, KIND_RAISED, val, rule.threshold, count),
-                    )
+                    _event(rule, r_i, section, KIND_RAISED, t[j], v[j], float(rule.threshold), count)
                 )
                 m.update(state=RAISED, count=0, since=None, clear_count=0)
                 a = j + 1  # the rest of this B run keeps the clear count at 0
@@ -516,19 +515,7 @@ def _run_machine(
                     m["clear_count"] += b - a
                     break
                 count = m["clear_count"] + (j - a + 1)
-                ts = _stamp(t[j])
-                val = float(v[j])
-                records.append(
-                    (
-                        ts,
-                        r_i,
-                        section,
-                        KIND_CLEARED,
-                        val,
-                        rule.clear_level,
-                        _message(rule, section, KIND_CLEARED, val, rule.clear_level, count),
-                    )
-                )
+                records.append(_event(rule, r_i, section, KIND_CLEARED, t[j], v[j], rule.clear_level, count))
                 m.update(state=NORMAL, count=0, since=None, clear_count=0)
                 a = j + 1  # the rest of this C run keeps the streak count at 0
     m["last_time"] = _iso(_stamp(t[-1]))

@@ -85,6 +85,9 @@ DEFAULT_MIN_WINDOWS = 10
 #: 4th ed., section 10.5; from memory).
 MAX_VIF = 10.0
 
+#: The columns of the frame ``deviation`` returns, in order.
+DEVIATION_COLUMNS = ("expected", "expected_u", "deviation", "deviation_u", "extrapolated", "model_id")
+
 
 def _iso(t) -> str | None:
     if t is None:

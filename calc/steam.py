@@ -1027,39 +1027,35 @@ def _core_region(p, t):
     return reg.astype(np.int64), reason, reg, 0
 
 
-def _core_psat(t):
-    n = t.shape[0]
-    reason = np.zeros(n, dtype=np.int8)
-    finite = np.isfinite(t)
+def _saturation_range(x, low, high, out_of_range):
+    """Reason codes of the points of a saturation-line input ``x`` (NOT_FINITE, or
+    ``out_of_range`` outside ``[low, high]``) and the mask of the points inside."""
+    reason = np.zeros(x.shape[0], dtype=np.int8)
+    finite = np.isfinite(x)
     reason[~finite] = NOT_FINITE
-    ok = finite & (t >= T_MIN) & (t <= T_CRIT)
-    reason[finite & ~ok] = OUT_OF_RANGE_T
-    out = np.full(n, np.nan)
+    ok = finite & (x >= low) & (x <= high)
+    reason[finite & ~ok] = out_of_range
+    return reason, ok
+
+
+def _core_psat(t):
+    reason, ok = _saturation_range(t, T_MIN, T_CRIT, OUT_OF_RANGE_T)
+    out = np.full(t.shape[0], np.nan)
     out[ok] = _psat(t[ok])
     return out, reason, np.where(ok, 4, 0).astype(np.int8), 0
 
 
 def _core_tsat(p):
-    n = p.shape[0]
-    reason = np.zeros(n, dtype=np.int8)
-    finite = np.isfinite(p)
-    reason[~finite] = NOT_FINITE
-    ok = finite & (p >= P_MIN) & (p <= P_CRIT)
-    reason[finite & ~ok] = OUT_OF_RANGE_P
-    out = np.full(n, np.nan)
+    reason, ok = _saturation_range(p, P_MIN, P_CRIT, OUT_OF_RANGE_P)
+    out = np.full(p.shape[0], np.nan)
     out[ok] = _tsat(p[ok])
     return out, reason, np.where(ok, 4, 0).astype(np.int8), 0
 
 
 def _core_sat(prop, quality):
     def core(p):
-        n = p.shape[0]
-        reason = np.zeros(n, dtype=np.int8)
-        finite = np.isfinite(p)
-        reason[~finite] = NOT_FINITE
-        ok = finite & (p >= P_MIN) & (p <= P_CRIT)
-        reason[finite & ~ok] = OUT_OF_RANGE_P
-        out = np.full(n, np.nan)
+        reason, ok = _saturation_range(p, P_MIN, P_CRIT, OUT_OF_RANGE_P)
+        out = np.full(p.shape[0], np.nan)
         reg = np.where(ok, 4, 0).astype(np.int8)
         low = np.flatnonzero(ok & (p <= P_SAT_623))
         if low.size:

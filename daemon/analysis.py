@@ -70,6 +70,7 @@ from isentrope.daemon.config import DEFAULT_SENSITIVITY
 from isentrope.daemon.pipeline import (
     WORK_SHARE,
     Pipeline,
+    alarm_event_writes,
     no_events,
 )
 from isentrope.daemon.series import (
@@ -209,18 +210,7 @@ class Analysis:
                         t,
                     )
                 )
-        ev = self.alarm_events
-        if len(ev):
-            for (section, rule), part in ev.groupby(["section", "rule"], sort=True):
-                frame = pd.DataFrame(
-                    {
-                        "raised": (part["kind"] == "raised").to_numpy(dtype=bool),
-                        "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
-                        "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float),
-                    },
-                    index=pd.DatetimeIndex(part.index, name="time"),
-                )
-                out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
+        out.extend(alarm_event_writes(self.alarm_events, tags))
         return out
 
 

@@ -149,19 +149,7 @@ class _ObservingPipeline(Pipeline):
         self.last_no_data = None  # time of the last no_data observation (stands in for the state)
         self.spacing = None  # sample spacing of the last frame with rows
 
-    def _alarms(
-        self,
-        windows,
-        deviation,
-        state,
-        final_end,
-        notes,
-        screen=None,
-        start=None,
-        rows=None,
-        rows_end=None,
-        online=None,
-    ):
+    def cycle_alarms(self, windows, deviation, state, final_end, notes, rows=None, **where):
         # The alarm state is not at hand here (the machines run later, in alarm_partition):
         # an absence of rows that goes on from the previous chunk continues from this
         # pipeline's own last no_data observation; one from the previous partition is filled
@@ -172,17 +160,7 @@ class _ObservingPipeline(Pipeline):
         )
         if rows is not None and len(rows) > 2:
             self.spacing = sample_spacing(rows)
-        obs = self.alarm_observations(
-            windows,
-            deviation,
-            final_end,
-            screen=screen,
-            start=start,
-            rows=rows,
-            state=seen,
-            rows_end=rows_end,
-            online=online,
-        )
+        obs = self.alarm_observations(windows, deviation, final_end, rows=rows, state=seen, **where)
         if obs is not None:
             mine = obs["time"][obs["section"] == HISTORIAN_SECTION]
             if len(mine):

@@ -133,19 +133,30 @@ class CycleResults:
                 out.append(
                     (DEVIATION_MEASUREMENT, frame, {**tags, "section": str(section), "model": str(model_id)})
                 )
-        if len(self.alarm_events):
-            ev = self.alarm_events
-            for (section, rule), part in ev.groupby(["section", "rule"], sort=True):
-                frame = pd.DataFrame(
-                    {
-                        "raised": (part["kind"] == "raised").to_numpy(dtype=bool),
-                        "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
-                        "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float),
-                    },
-                    index=pd.DatetimeIndex(part.index, name="time"),
-                )
-                out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
+        out.extend(alarm_event_writes(self.alarm_events, tags))
         return out
+
+
+def alarm_event_writes(
+    events: pd.DataFrame, tags: dict[str, str]
+) -> list[tuple[str, pd.DataFrame, dict[str, str]]]:
+    """Alarm events (the frame ``calc.alarms.evaluate_alarms`` returns) as ``(measurement,
+    frame, tags)`` for ``Store.write_results``: one series per section and rule, tagged with
+    both, with ``raised`` (bool), ``value`` and ``threshold``. No events, no series."""
+    out: list[tuple[str, pd.DataFrame, dict[str, str]]] = []
+    if not len(events):
+        return out
+    for (section, rule), part in events.groupby(["section", "rule"], sort=True):
+        frame = pd.DataFrame(
+            {
+                "raised": (part["kind"] == "raised").to_numpy(dtype=bool),
+                "value": pd.to_numeric(part["value"], errors="coerce").to_numpy(dtype=float),
+                "threshold": pd.to_numeric(part["threshold"], errors="coerce").to_numpy(dtype=float),
+            },
+            index=pd.DatetimeIndex(part.index, name="time"),
+        )
+        out.append((ALARMS_MEASUREMENT, frame, {**tags, "section": str(section), "rule": str(rule)}))
+    return out
 
 
 def _numeric(frame: pd.DataFrame) -> pd.DataFrame:
@@ -543,7 +554,7 @@ class Pipeline:
             windows = windows.join(of_windows.to_frame().set_axis(windows.index, axis=0))
 
         deviation = self.deviation(windows, baselines or {}, notes)
-        events, new_state = self._alarms(
+        events, new_state = self.cycle_alarms(
             windows,
             deviation,
             alarm_state,
@@ -583,7 +594,7 @@ class Pipeline:
         no figures; the ``no_data`` alarm runs on from the last row it saw (alarm state)."""
         empty = pd.DataFrame(index=pd.DatetimeIndex([], tz="UTC", name="time"))
         notes = ["no samples in the window"]
-        events, new_state = self._alarms(
+        events, new_state = self.cycle_alarms(
             empty, empty.copy(), alarm_state, final_end, notes, rows=empty.index, start=start, rows_end=end
         )
         counts = dict.fromkeys(
@@ -696,16 +707,7 @@ class Pipeline:
 
         notes = [] if notes is None else notes
 
-        cols = [
-            "section",
-            "efficiency",
-            "expected",
-            "expected_u",
-            "deviation",
-            "deviation_u",
-            "extrapolated",
-            "model_id",
-        ]
+        cols = ["section", "efficiency", *baseline.DEVIATION_COLUMNS]
         empty = pd.DataFrame(columns=cols, index=pd.DatetimeIndex([], tz="UTC", name="time"))
         if not baselines:
             notes.append("no baseline model yet: deviation not computed")
@@ -838,37 +840,17 @@ class Pipeline:
             *no_data,
         ]
 
-    def _alarms(
-        self,
-        windows,
-        deviation,
-        state,
-        final_end,
-        notes,
-        screen=None,
-        start=None,
-        rows=None,
-        rows_end=None,
-        online=None,
-    ):
-        """Alarm events from the final results (before ``final_end``) only; absent rows up to
-        ``rows_end`` (see ``alarm_observations``).
+    def cycle_alarms(self, windows, deviation, state, final_end, notes, **where):
+        """Alarm events and the new alarm state of one cycle: from the final results (before
+        ``final_end``) only; absent rows up to ``rows_end``. ``where`` holds the keywords
+        ``screen``, ``start``, ``rows``, ``rows_end`` and ``online`` of ``alarm_observations``.
 
         The state machines of ``calc.alarms`` skip observations at or before the last one
         they consumed, so the look-back overlap of consecutive cycles raises nothing twice.
+        (``isentrope.daemon.fleet`` overrides this to keep the observations instead.)
         """
 
-        obs = self.alarm_observations(
-            windows,
-            deviation,
-            final_end,
-            screen=screen,
-            start=start,
-            rows=rows,
-            state=state,
-            rows_end=rows_end,
-            online=online,
-        )
+        obs = self.alarm_observations(windows, deviation, final_end, state=state, **where)
         if obs is None:
             return no_events(), (dict(state) if state else None)
         new_state, events = alarms.evaluate_alarms(state or None, obs, self.alarm_rules())

@@ -71,9 +71,31 @@ def run(args) -> int:
         store.close()
 
 
-def _backfill(args, config, store, lease, name, start, end, chunk) -> int:
+def hours_bar(start: pd.Timestamp, end: pd.Timestamp, done: pd.Timestamp | None, desc: str, disable: bool):
+    """A progress bar on stderr over ``[start, end]`` in hours, already at the checkpoint ``done``
+    (None: at the start). Returns the bar (to close) and ``progress(s, e)`` for
+    ``Worker.run_cycle``, which moves it on by the hours of the chunk ``[s, e)``."""
     from tqdm import tqdm
 
+    total_h = (end - start).total_seconds() / 3600.0
+    done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
+    bar = tqdm(
+        total=round(total_h, 3),
+        initial=round(done_h, 3),
+        unit="h",
+        file=sys.stderr,
+        disable=disable,
+        desc=desc,
+        dynamic_ncols=True,
+    )
+
+    def progress(s, e):
+        bar.update(round((e - s).total_seconds() / 3600.0, 3))
+
+    return bar, progress
+
+
+def _backfill(args, config, store, lease, name, start, end, chunk) -> int:
     from isentrope.daemon.worker import Worker
 
     worker = Worker.from_config(
@@ -104,24 +126,10 @@ def _backfill(args, config, store, lease, name, start, end, chunk) -> int:
         worker.stop()
 
     previous = {s: signal.signal(s, on_signal) for s in (signal.SIGTERM, signal.SIGINT)}
-    total_h = (end - start).total_seconds() / 3600.0
     done = worker.store.get_checkpoint(name)
-    done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
     if done is not None:
         logger.info("unit %s: resuming backfill %s at %s", config.unit.name, name, done.isoformat())
-    bar = tqdm(
-        total=round(total_h, 3),
-        initial=round(done_h, 3),
-        unit="h",
-        file=sys.stderr,
-        disable=args.no_progress,
-        desc=f"backfill {config.unit.name}",
-        dynamic_ncols=True,
-    )
-
-    def progress(s, e):
-        bar.update(round((e - s).total_seconds() / 3600.0, 3))
-
+    bar, progress = hours_bar(start, end, done, f"backfill {config.unit.name}", disable=args.no_progress)
     lease.on_lost = lambda _exc: worker.stop()
     try:
         report = worker.run_cycle(until=end, progress=progress)

@@ -93,10 +93,9 @@ cost = 1500000.0
 
 
 def run(args) -> int:
-    from tqdm import tqdm
-
     from isentrope.daemon import synthetic
     from isentrope.daemon.analysis import load_analysis, raised_alarms
+    from isentrope.daemon.commands.backfill import hours_bar
     from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker
@@ -134,22 +133,10 @@ def run(args) -> int:
             settle="0s",
             chunk=DEMO_CHUNK,
         )
-        total_h = (end - start).total_seconds() / 3600.0
         done = store.get_checkpoint(worker.checkpoint_name)
-        done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
-        bar = tqdm(
-            total=round(total_h, 3),
-            initial=round(done_h, 3),
-            unit="h",
-            file=sys.stderr,
-            disable=args.no_progress,
-            desc="backfill",
-            dynamic_ncols=True,
-        )
+        bar, progress = hours_bar(start, end, done, "backfill", disable=args.no_progress)
         try:
-            report = worker.run_cycle(
-                until=end, progress=lambda s, e: bar.update(round((e - s).total_seconds() / 3600.0, 3))
-            )
+            report = worker.run_cycle(until=end, progress=progress)
         finally:
             bar.close()
         if not report.ok:

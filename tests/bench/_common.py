@@ -18,6 +18,8 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from isentrope.calc.names import REQUIRED_ROLES, ROLES
+
 DEMO_START = pd.Timestamp("2025-01-01", tz="UTC")
 
 
@@ -203,18 +205,9 @@ def reference_rows(frame: pd.DataFrame, eta_lp: float = 0.88, baumann: float = 1
     return pd.DataFrame(out, index=frame.index)
 
 
-#: Inputs of the reference perturbed one at a time for its uncertainty [role, step].
-REFERENCE_INPUTS = [
-    "throttle_p",
-    "throttle_t",
-    "cold_reheat_p",
-    "cold_reheat_t",
-    "hot_reheat_p",
-    "hot_reheat_t",
-    "crossover_p",
-    "crossover_t",
-    "condenser_p",
-]
+#: Inputs of the reference perturbed one at a time for its uncertainty: the required
+#: pressures and temperatures (throttle, cold and hot reheat, crossover, condenser).
+REFERENCE_INPUTS = [r for r in REQUIRED_ROLES if ROLES[r][0] in ("pressure", "temperature")]
 
 
 def reference_with_uncertainty(frame: pd.DataFrame) -> pd.DataFrame:

@@ -12,7 +12,7 @@ import pandas as pd
 import pytest
 
 from isentrope.calc import baseline
-from isentrope.calc.baseline import BaselineModel, deviation, fit_baseline
+from isentrope.calc.baseline import DEVIATION_COLUMNS, BaselineModel, deviation, fit_baseline
 
 RATING = 600.0  # [MW] invented unit
 
@@ -189,6 +189,7 @@ def test_deviation_points_and_uncertainty():
         "extrapolated",
         "model_id",
     ]
+    assert tuple(d.columns) == DEVIATION_COLUMNS
     assert d.index.equals(later.index)
     far = later.iloc[:2].copy()
     far["gross_output"] = [0.1 * RATING, 0.7 * RATING]

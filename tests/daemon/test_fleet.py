@@ -65,6 +65,21 @@ def _load(path, plant):
     return config, store
 
 
+def _sequential_backfill(config, store):
+    """Runs one worker, day by day from START to END, as the backfill command does; the worker."""
+    worker = Worker.from_config(
+        config,
+        store,
+        checkpoint_name="backfill/seq",
+        start_default=START,
+        lookback="0s",
+        settle="0s",
+        chunk="1d",
+    )
+    assert worker.run_cycle(until=END).ok
+    return worker
+
+
 def _tables(store, unit):
     out = {}
     for m in MEASUREMENTS:
@@ -91,16 +106,7 @@ def test_fleet_on_two_processes_equals_a_sequential_backfill(tmp_path, raw):
     _, fleet_store = _load(fleet_path, raw)
     fleet_store.close()
     try:
-        worker = Worker.from_config(
-            config,
-            seq_store,
-            checkpoint_name="backfill/seq",
-            start_default=START,
-            lookback="0s",
-            settle="0s",
-            chunk="1d",
-        )
-        assert worker.run_cycle(until=END).ok
+        worker = _sequential_backfill(config, seq_store)
 
         parts = fleet.plan_partitions(str(fleet_path), config, START, END, period="1D")
         assert [(p.start, p.end, p.phase) for p in parts] == [
@@ -194,16 +200,7 @@ def test_a_row_outage_across_a_partition_boundary_raises_no_data_as_a_sequential
     assert Worker.from_config(config, seq_store).pipeline.margins[0] < pd.Timedelta("6h")
     tags = {"unit": config.unit.name, "section": "historian", "rule": "no_data"}
     try:
-        worker = Worker.from_config(
-            config,
-            seq_store,
-            checkpoint_name="backfill/seq",
-            start_default=START,
-            lookback="0s",
-            settle="0s",
-            chunk="1d",
-        )
-        assert worker.run_cycle(until=END).ok
+        _sequential_backfill(config, seq_store)
         want = seq_store.read_results("alarm_events", START, END, tags)
     finally:
         seq_store.close()

@@ -21,6 +21,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from isentrope.calc.names import REQUIRED_ROLES
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import (
     FatalStoreError,
@@ -409,23 +410,7 @@ def test_awkward_names_round_trip(case):
             field=f"f {name}",
             tags={f"k {name}": f"v {name}"},
         )
-        for role, name in zip(
-            [
-                "throttle_p",
-                "throttle_t",
-                "cold_reheat_p",
-                "cold_reheat_t",
-                "hot_reheat_p",
-                "hot_reheat_t",
-                "crossover_p",
-                "crossover_t",
-                "condenser_p",
-                "gross_output",
-                "main_steam_flow",
-            ],
-            AWKWARD,
-            strict=True,
-        )
+        for role, name in zip([*REQUIRED_ROLES, "main_steam_flow"], AWKWARD, strict=True)
     ]
     idx = pd.date_range(T0, periods=3, freq="1min", tz="UTC")
     frame = pd.DataFrame({m.role: np.arange(3) + 10.0 * i for i, m in enumerate(maps)}, index=idx)

@@ -543,36 +543,44 @@ def test_a_float_written_where_the_shard_holds_text_is_fatal_and_not_kept(kind, 
 # --- the worker: a fatal read ends the cycle at once, without retries ---------------------------
 
 
-@pytest.mark.influx
-def test_the_worker_stops_at_once_on_text_in_a_raw_field(influxdb_v2, tmp_path):
+def unit_with_text_before_its_history(server, tmp_path, database: str, days: float):
+    """A unit of ``worker_support`` on a new database of the InfluxDB 2 API ``server`` (token
+    from ``ISENTROPE_TEST_TOKEN``): its throttle pressure field holds 'I/O BAD' an hour before
+    ``ws.START`` (the week before the history: another shard), then ``days`` of history.
+    Returns ``(ws, config path, config, open store, throttle pressure mapping)``."""
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/daemon: worker_support
     import worker_support as ws
 
     from isentrope.daemon.config import load_config
-    from isentrope.daemon.worker import Worker
 
-    db = influxdb_v2.new_database("typeworker")
+    db = server.new_database(database)
     table = ws.store_toml(
         "influx2",
-        url=influxdb_v2.url,
+        url=server.url,
         org="isentrope",
-        bucket=influxdb_v2.bucket(db),
+        bucket=server.bucket(db),
         token="${ISENTROPE_TEST_TOKEN}",
         timeout="30s",
     )
-    config = load_config(
-        ws.write_config(tmp_path / "unit.toml", table), environ={"ISENTROPE_TEST_TOKEN": "u:p"}
-    )
+    path = ws.write_config(tmp_path / "unit.toml", table)
+    config = load_config(path, environ={"ISENTROPE_TEST_TOKEN": "u:p"})
     store = open_store(config.store.kind, **config.store.open_options())
-    # the week before the history (another shard) has the throttle pressure as text
     m = next(m for m in config.mappings if m.role == "throttle_p")
     bad = ws.START - pd.Timedelta("1h")
     lp = (
         f"{escape.lp_series_key(m.measurement, m.tags)} "
         f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}"
     )
-    assert line_protocol(influxdb_v2, db, lp).status_code == 204
-    store.write_raw(config.mappings, ws.plant_history(0.5, freq="5min"))
+    assert line_protocol(server, db, lp).status_code == 204
+    store.write_raw(config.mappings, ws.plant_history(days, freq="5min"))
+    return ws, path, config, store, m
+
+
+@pytest.mark.influx
+def test_the_worker_stops_at_once_on_text_in_a_raw_field(influxdb_v2, tmp_path):
+    from isentrope.daemon.worker import Worker
+
+    ws, _, config, store, m = unit_with_text_before_its_history(influxdb_v2, tmp_path, "typeworker", 0.5)
     sleeps = []
     worker = Worker.from_config(
         config,
@@ -640,34 +648,11 @@ def test_check_reads_role_by_role_when_the_store_refuses_one():
 @pytest.mark.influx
 def test_check_shows_a_text_field_as_its_roles_verdict(influxdb_v2, tmp_path, capsys, monkeypatch):
     # Before: "error: read_raw ...", exit 1, and no table at all.
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))  # tests/daemon: worker_support
-    import worker_support as ws
-
     from isentrope.daemon import cli
-    from isentrope.daemon.config import load_config
 
-    db = influxdb_v2.new_database("typecheck")
-    table = ws.store_toml(
-        "influx2",
-        url=influxdb_v2.url,
-        org="isentrope",
-        bucket=influxdb_v2.bucket(db),
-        token="${ISENTROPE_TEST_TOKEN}",
-        timeout="30s",
-    )
-    monkeypatch.setenv("ISENTROPE_TEST_TOKEN", "u:p")
-    path = ws.write_config(tmp_path / "unit.toml", table)
-    config = load_config(path)
-    store = open_store(config.store.kind, **config.store.open_options())
-    m = next(m for m in config.mappings if m.role == "throttle_p")
-    bad = ws.START - pd.Timedelta("1h")  # the shard before the history's
-    lp = (
-        f"{escape.lp_series_key(m.measurement, m.tags)} "
-        f"{escape.lp_field_key(m.field_name)}={escape.lp_string_value('I/O BAD')} {bad.value}"
-    )
-    assert line_protocol(influxdb_v2, db, lp).status_code == 204
-    store.write_raw(config.mappings, ws.plant_history(0.25, freq="5min"))
+    ws, path, config, store, m = unit_with_text_before_its_history(influxdb_v2, tmp_path, "typecheck", 0.25)
     store.close()
+    monkeypatch.setenv("ISENTROPE_TEST_TOKEN", "u:p")  # for the command's own reading of the config
     end = ws.START + pd.Timedelta("6h")
     rc = cli.main(["check", "-c", str(path), "--end", end.isoformat(), "--since", "8h"])
     captured = capsys.readouterr()
