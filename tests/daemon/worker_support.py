@@ -39,6 +39,19 @@ def store_toml(kind: str, **options) -> str:
     return "\n".join(lines)
 
 
+def influx18_store_toml(server, db: str) -> str:
+    """The [store] table of database ``db`` on the influxd 1.8.10 fixture ``server`` through the v2
+    API (token from ISENTROPE_TEST_TOKEN; a generous timeout: the test machine is shared)."""
+    return store_toml(
+        "influx2",
+        url=server.url,
+        org="isentrope",
+        bucket=server.bucket(db),
+        token="${ISENTROPE_TEST_TOKEN}",
+        timeout="30s",
+    )
+
+
 def write_config(path: Path, store: str, *, schedule: str = "", extra: str = "") -> Path:
     """A complete configuration of the fictional unit, with the given [store] table."""
     text = f"""

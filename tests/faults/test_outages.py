@@ -131,14 +131,7 @@ def test_influx_server_stopped_and_restarted_the_worker_keeps_going_and_catches_
 
     def unit(name: str):
         db = influxdb_v2.new_database(name)
-        store_table = ws.store_toml(
-            "influx2",
-            url=influxdb_v2.url,
-            org="isentrope",
-            bucket=influxdb_v2.bucket(db),
-            token="${ISENTROPE_TEST_TOKEN}",
-            timeout="30s",
-        )  # generous: the test machine is shared
+        store_table = ws.influx18_store_toml(influxdb_v2, db)
         path = ws.write_config(tmp_path / f"{name}.toml", store_table)
         config = load_config(path, environ={"ISENTROPE_TEST_TOKEN": "isentrope:unused"})
         store = open_store(config.store.kind, **config.store.open_options())

@@ -554,14 +554,7 @@ def unit_with_text_before_its_history(server, tmp_path, database: str, days: flo
     from isentrope.daemon.config import load_config
 
     db = server.new_database(database)
-    table = ws.store_toml(
-        "influx2",
-        url=server.url,
-        org="isentrope",
-        bucket=server.bucket(db),
-        token="${ISENTROPE_TEST_TOKEN}",
-        timeout="30s",
-    )
+    table = ws.influx18_store_toml(server, db)
     path = ws.write_config(tmp_path / "unit.toml", table)
     config = load_config(path, environ={"ISENTROPE_TEST_TOKEN": "u:p"})
     store = open_store(config.store.kind, **config.store.open_options())
