@@ -91,10 +91,6 @@ logger = logging.getLogger(__name__)
 #: (project choice, no source: long enough to average out day-to-day scatter).
 CURRENT_WINDOW_DAYS = 7.0
 
-#: Sections analysed, in report order: HP, IP, the LP dry stage group (crossover -> LP
-#: extraction) and the whole LP (from the energy balance, where it is mapped).
-SECTIONS = TRENDED_SECTIONS  # calc.names
-
 
 @dataclass
 class SectionOutlook:
@@ -739,7 +735,7 @@ def _clean(frame: pd.DataFrame) -> pd.DataFrame:
 
 def _sections_input(deviation: dict) -> dict:
     out = {}
-    for name in SECTIONS:
+    for name in TRENDED_SECTIONS:
         frame = deviation.get(name)
         if frame is None or not len(frame) or "deviation" not in frame:
             continue
@@ -1001,9 +997,9 @@ def alarm_series(config) -> list[tuple[str, str]]:
         elif rule.sections is not None:
             where = list(rule.sections)
         else:
-            where = list(SECTIONS)
+            where = list(TRENDED_SECTIONS)
         out += [(w, rule.name) for w in where]
-    out += [(w, r) for w in SECTIONS for r in ANALYSIS_RULES]
+    out += [(w, r) for w in TRENDED_SECTIONS for r in ANALYSIS_RULES]
     return out
 
 
@@ -1240,7 +1236,7 @@ def run_analysis(
         since = ref.floor("D")  # the first day's rows are at its midnight
         if state.get("key", {}).get("reference_start"):
             since = min(since, pd.Timestamp(state["key"]["reference_start"]).floor("D"))
-        _delete_from(store, config, since, SECTIONS, final=False)
+        _delete_from(store, config, since, TRENDED_SECTIONS, final=False)
         for m in (STEPS_MEASUREMENT, OUTLOOK_MEASUREMENT):
             store.delete_results(m, since, _FAR, tags)
         state = {}
@@ -1300,7 +1296,7 @@ def run_analysis(
     )
     result = done["analysis"]
     if final is not None:
-        _delete_from(store, config, final, SECTIONS, final=True)
+        _delete_from(store, config, final, TRENDED_SECTIONS, final=True)
     for m in (STEPS_MEASUREMENT, OUTLOOK_MEASUREMENT):
         store.delete_results(m, ref.floor("D"), _FAR, tags)
     store.write_results(OPERATION_MEASUREMENT, new_ops[new_ops.index >= read_from.floor("D")], tags)

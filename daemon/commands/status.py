@@ -79,6 +79,7 @@ def _last_row(store, measurement, tags, now) -> pd.Series | None:
 def gather(store, config, now: pd.Timestamp) -> dict:
     """What ``status`` shows, read from ``store`` (``now``: the clock, UTC)."""
     from isentrope.calc import alarms
+    from isentrope.calc.names import TRENDED_SECTIONS
     from isentrope.daemon import analysis
     from isentrope.daemon.worker import STATUS_MEASUREMENT
 
@@ -98,7 +99,7 @@ def gather(store, config, now: pd.Timestamp) -> dict:
     out["analysis_final"] = pd.Timestamp(state["final"]) if state.get("final") else None
     sections = {}
     if out["analysis_end"] is not None:
-        for sec in analysis.SECTIONS:
+        for sec in TRENDED_SECTIONS:
             row = _last_row(
                 store, analysis.DEGRADATION_MEASUREMENT, {"unit": unit, "section": sec}, out["analysis_end"]
             )

@@ -9,7 +9,8 @@ import pandas as pd
 
 from isentrope.calc import quality
 from isentrope.calc.baseline import BaselineModel
-from isentrope.daemon.analysis import SECTIONS, alarm_series, period_view
+from isentrope.calc.names import TRENDED_SECTIONS
+from isentrope.daemon.analysis import alarm_series, period_view
 from isentrope.daemon.pipeline import Pipeline
 from isentrope.daemon.series import (
     ALARMS_MEASUREMENT,
@@ -71,7 +72,7 @@ class ReportData:
 
     @property
     def sections_with_baseline(self) -> list[str]:
-        return [s for s in SECTIONS if s in self.deviation]
+        return [s for s in TRENDED_SECTIONS if s in self.deviation]
 
 
 def _read(store, measurement, start, end, tags) -> pd.DataFrame:

@@ -14,7 +14,8 @@ import numpy as np
 import pandas as pd
 
 from isentrope.calc import steam
-from isentrope.daemon.analysis import CURRENT_WINDOW_DAYS, SECTIONS
+from isentrope.calc.names import TRENDED_SECTIONS
+from isentrope.daemon.analysis import CURRENT_WINDOW_DAYS
 from isentrope.daemon.report.data import ReportData
 from isentrope.daemon.report.page import (
     EFFICIENCY_COLUMNS,
@@ -85,7 +86,7 @@ def planner(d: ReportData, figs: Figures) -> list[str]:
     cost_col = f"extra fuel cost since the baseline end [{cur}]"
     rows = []
     outage = d.config.economics.planned_outage
-    for s in SECTIONS:
+    for s in TRENDED_SECTIONS:
         if analysis is not None and s in analysis.sections:
             o = analysis.sections[s]
             r = o.rate
@@ -183,7 +184,7 @@ def period(d: ReportData, figs: Figures) -> list[str]:
     if views:
         parts.append(f"<h3>The period {start:%Y-%m-%d %H:%M} to {end:%Y-%m-%d %H:%M} UTC</h3>")
         prow = []
-        for s in SECTIONS:
+        for s in TRENDED_SECTIONS:
             v = views.get(s)
             if v is None:
                 continue
@@ -227,7 +228,7 @@ def efficiency(d: ReportData, figs: Figures) -> list[str]:
     analysis, start, end, windows = d.analysis, d.start, d.end, d.windows
     a, outage, pyplot = d.config.alarms, d.config.economics.planned_outage, plt()
     parts.append("<h2>Section efficiency and deviation</h2>")
-    for s in SECTIONS:
+    for s in TRENDED_SECTIONS:
         col = EFFICIENCY_COLUMNS[s]
         if not len(windows) or col not in windows.columns or not np.isfinite(windows[col]).any():
             continue

@@ -14,6 +14,7 @@ import pandas as pd
 import pytest
 import worker_support as ws
 
+from isentrope.calc.names import TRENDED_SECTIONS
 from isentrope.daemon import analysis, cli, synthetic
 from isentrope.daemon.config import load_config
 from isentrope.daemon.pipeline import (
@@ -137,7 +138,7 @@ def _series(config, store, models):
     out = {}
     for m in (SAMPLES_MEASUREMENT, WINDOWS_MEASUREMENT, analysis.OPERATION_MEASUREMENT):
         out[(m, ())] = store.read_results(m, START - pd.Timedelta(days=1), FAR, tags)
-    for sec in analysis.SECTIONS:
+    for sec in TRENDED_SECTIONS:
         for model in models:
             t = {**tags, "section": sec, "model": model}
             out[(DEVIATION_MEASUREMENT, tuple(t.items()))] = store.read_results(
@@ -203,7 +204,7 @@ def test_a_refit_after_overlapping_backfills_leaves_the_store_as_the_refit_alone
             if len(ra):
                 ws.assert_same_results(ra, rb)
         # the old model's deviations went with the period the refit owns
-        for sec in analysis.SECTIONS:
+        for sec in TRENDED_SECTIONS:
             for model in old_models:
                 assert not len(
                     got_a[(DEVIATION_MEASUREMENT, (("unit", UNIT), ("section", sec), ("model", model)))]
