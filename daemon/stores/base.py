@@ -36,6 +36,11 @@ Contract (checked by tests/daemon/stores/test_contract.py against every implemen
   with the process; InfluxDB: its lease point expires ``lease`` after its last renewal).
   ``renew_lease`` raises ``UnitBusyError`` when another holder has taken the unit meanwhile
   (this one's lease had expired).
+
+Configuration: a store class declares its ``[store]`` keys in ``OPTIONS``
+(``isentrope.daemon.stores.options.Option``), the rules between them in ``check_options``, the
+names it can write in ``NAME_CHECKS``, and what ``open(create=False)`` refuses in
+``refuse_to_create``; ``isentrope.daemon.config`` reads and checks a kind from these alone.
 """
 
 from __future__ import annotations
@@ -51,9 +56,10 @@ import pandas as pd
 from isentrope.calc import units
 from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
-from isentrope.daemon.stores import common
+from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores import grid as g
 from isentrope.daemon.stores.grid import ReadGrid
+from isentrope.daemon.stores.options import Option
 
 #: Default ``timeout`` of every store [s]: an HTTP request to InfluxDB, or SQLite's wait for a
 #: locked database. ``[store] timeout`` has the same default (project choice, no source).
@@ -183,6 +189,37 @@ class Store(ABC):
 
     #: The smallest time step the store keeps: samples closer than this are one sample.
     time_resolution: pd.Timedelta = pd.Timedelta(1, "ns")
+
+    # --- configuration ------------------------------------------------------------------
+    #: The ``[store]`` keys of this kind besides ``kind``, in the order they are read; each
+    #: is a keyword argument of the constructor (``options.Option``).
+    OPTIONS: tuple[Option, ...] = ()
+
+    #: Checks of the names this kind writes, each raising ``ValueError`` for a name it cannot
+    #: write as it is read (``escape``): "unit" the unit name (a tag value of every result and
+    #: part of the checkpoint and state names), "measurement", "field", "tag_key" and
+    #: "tag_value" those of a role's raw series (the tag name itself is the field or tag of
+    #: "tag" as written). The configuration refuses such a name at load, naming the key.
+    NAME_CHECKS: Mapping[str, tuple] = {
+        "unit": (escape.check_name,),
+        "measurement": (escape.check_name,),
+        "field": (escape.check_name,),
+        "tag_key": (escape.check_name,),
+        "tag_value": (escape.check_name,),
+    }
+
+    @classmethod  # noqa: B027 (a hook, empty by default)
+    def check_options(cls, values: Mapping, given: set[str], problem) -> None:
+        """Rules between options. ``values``: option name -> value read (defaults filled in,
+        a secret as an object with ``reveal()`` or None); ``given``: the options written in
+        the file (a secret also as ``<name>_file``); ``problem(name, message)`` reports a
+        problem at a key. None by default."""
+
+    @classmethod  # noqa: B027 (a hook, empty by default)
+    def refuse_to_create(cls, options: Mapping) -> None:
+        """Raise ``FatalStoreError`` when opening with the constructor's ``options`` would
+        create a new, empty store (``StoreConfig.open(create=False)``, for the commands that
+        only read). Nothing by default: a server store is never created by opening it."""
 
     # --- raw samples --------------------------------------------------------------------
     @abstractmethod

@@ -43,18 +43,22 @@ from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
+    CONNECTION_OPTIONS,
+    NAME_CHECKS,
     STATE_MEASUREMENT,
     LeaseOnState,
     LineProtocolWriter,
     StateClock,
     authorization_error,
     certificate_failure,
+    check_connection,
     classify_http,
     delete_statement,
     influxql_time,
     time_windows,
     tls_verify,
 )
+from isentrope.daemon.stores.options import Option
 
 
 class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
@@ -87,6 +91,23 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
     """
 
     kind = "influx1"
+    OPTIONS = (
+        *CONNECTION_OPTIONS,
+        Option("database"),
+        Option("token", default=None, secret=True),
+        Option("password", default=None, secret=True),
+        Option("username", default=""),
+        Option("retention_policy", default=""),
+    )
+    NAME_CHECKS = NAME_CHECKS
+
+    @classmethod
+    def check_options(cls, values, given, problem):
+        check_connection(values, given, problem)
+        if "token" in given and ("password" in given or values["username"]):
+            problem("token", "give either 'token' or 'username'/'password', not both")
+        if "password" in given and not values["username"]:
+            problem("username", "missing required key 'username' (a password is given)")
 
     def __init__(
         self,

@@ -62,6 +62,7 @@ import os
 import re
 import threading
 from collections.abc import Mapping, Sequence
+from functools import partial
 from pathlib import Path
 
 import numpy as np
@@ -80,6 +81,8 @@ from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
+    CONNECTION_OPTIONS,
+    NAME_CHECKS,
     RAW,
     RESULTS,
     STATE_MEASUREMENT,
@@ -89,6 +92,7 @@ from isentrope.daemon.stores.influx_common import (
     authorization_error,
     certificate_detail,
     certificate_failure,
+    check_connection,
     classify_http,
     clear_type_text,
     delete_statement,
@@ -96,6 +100,7 @@ from isentrope.daemon.stores.influx_common import (
     time_windows,
     tls_verify,
 )
+from isentrope.daemon.stores.options import Option
 
 logger = logging.getLogger(__name__)
 
@@ -168,6 +173,19 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
     """
 
     kind = "influx2"
+    OPTIONS = (
+        *CONNECTION_OPTIONS,
+        Option("org"),
+        Option("bucket", check=partial(escape.check_name, what="bucket")),
+        # given empty is a mistake (check_name refuses it); left out means 'bucket'
+        Option("results_bucket", default="", check=partial(escape.check_name, what="results_bucket")),
+        Option("token", secret=True),
+    )
+    NAME_CHECKS = {**NAME_CHECKS, "tag_key": (escape.lp_tag_key, escape.flux_tag_key)}
+
+    @classmethod
+    def check_options(cls, values, given, problem):
+        check_connection(values, given, problem)
 
     def __init__(
         self,

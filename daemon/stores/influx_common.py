@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import datetime as dt
 import json
 import re
 import threading
@@ -17,6 +18,7 @@ from isentrope.daemon.redact import redact
 from isentrope.daemon.roles import RoleMapping
 from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import (
+    DEFAULT_TIMEOUT_S,
     AuthorizationError,
     CertificateError,
     FatalStoreError,
@@ -24,6 +26,7 @@ from isentrope.daemon.stores.base import (
     TemporaryStoreError,
     UnitBusyError,
 )
+from isentrope.daemon.stores.options import Option, http_url, pem_file
 
 #: Measurement holding checkpoints and saved state: tags ``kind`` ("checkpoint" or "state")
 #: and ``name``; one string field ``value`` (ISO time or JSON). Each save is a new point at the
@@ -111,6 +114,32 @@ def tls_verify(verify_ssl: bool, ca_bundle: str = "") -> bool | str:
             raise ValueError(f"ca_bundle {str(ca_bundle)!r} is not a file (a PEM file of CA certificates)")
         return str(ca_bundle)
     return requests.certs.where()
+
+
+#: The ``[store]`` options of both InfluxDB kinds (their connection), read first.
+CONNECTION_OPTIONS = (
+    Option("url", check=http_url),
+    Option("verify_ssl", "bool", default=True),
+    Option("ca_bundle", default=None, path=True, check=pem_file),
+    Option("timeout", "duration", default=dt.timedelta(seconds=DEFAULT_TIMEOUT_S), low=0, low_open=True),
+    Option("batch_size", "int", default=5000, low=1),
+)
+
+#: ``Store.NAME_CHECKS`` of both InfluxDB kinds: line protocol writes every name, InfluxQL and
+#: Flux read the unit name back as a string.
+NAME_CHECKS = {
+    "unit": (escape.lp_tag_value, escape.influxql_string, escape.flux_string),
+    "measurement": (escape.lp_measurement,),
+    "field": (escape.lp_field_key,),
+    "tag_key": (escape.lp_tag_key,),
+    "tag_value": (escape.lp_tag_value,),
+}
+
+
+def check_connection(values: Mapping, given: set[str], problem) -> None:
+    """``check_options`` of ``CONNECTION_OPTIONS``: a CA bundle with ``verify_ssl = false``."""
+    if values["ca_bundle"] is not None and not values["verify_ssl"]:
+        problem("ca_bundle", "verify_ssl = false checks no certificate: give one of the two")
 
 
 _VERIFY_FAILED = re.compile(r"certificate verify failed:?\s*(.*?)\s*(?:\(_ssl\.c|['\"]|$)", re.IGNORECASE)

@@ -78,6 +78,7 @@ from isentrope.daemon.stores.base import (
     UnitBusyError,
 )
 from isentrope.daemon.stores.escape import check_name
+from isentrope.daemon.stores.options import Option
 
 _SCHEMA = """
 CREATE TABLE IF NOT EXISTS samples (
@@ -99,6 +100,14 @@ def _ident(name: str) -> str:
     return '"' + name.replace('"', '""') + '"'
 
 
+def _file_location(path: Path) -> None:
+    """``check`` of ``[store] path``: a file in a directory that exists."""
+    if not path.parent.is_dir():
+        raise ValueError(f"the directory {path.parent} does not exist (create it first)")
+    if path.is_dir():
+        raise ValueError(f"{path} is a directory; give the SQLite file in it")
+
+
 def _now_utc() -> str:
     return pd.Timestamp.now(tz="UTC").strftime("%Y-%m-%dT%H:%M:%S.%fZ")
 
@@ -116,6 +125,16 @@ class SqliteStore(Store):
 
     kind = "sqlite"
     time_resolution = pd.Timedelta(1, "ms")  # times are kept in milliseconds (floored)
+    OPTIONS = (Option("path", path=True, check=_file_location),)
+
+    @classmethod
+    def refuse_to_create(cls, options):
+        path = options["path"]
+        if not Path(path).is_file():
+            raise FatalStoreError(
+                f"no SQLite store at {path} (check [store] path; "
+                "the file is created by import-csv, run, backfill or demo)"
+            )
 
     def __init__(self, path: str | Path, timeout: float = DEFAULT_TIMEOUT_S):
         self.path = str(path)

@@ -116,12 +116,12 @@ def test_example_documents_every_option():
     ]
     wanted = {f.name for t in tables for f in dataclasses.fields(t)} - {"sensitivity", "overhaul"}
     wanted -= {"quantity", "roles"}  # the [read.quantity.<q>] and [read.roles.<role>] tables
-    wanted |= set().union(*cfgmod._STORE_KEYS.values())
-    wanted |= set(cfgmod._ROLE_KEYS)
+    wanted |= set().union(*(cfgmod.store_keys(kind) for kind in cfgmod.STORE_KINDS))
+    wanted |= set(cfgmod.ROLE_KEYS)
     role_keys_doc = text[text.index("Keys of each [roles.<role>] table") :]
-    for k in cfgmod._ROLE_KEYS:  # documented in the comment block, as "#   key  ..."
+    for k in cfgmod.ROLE_KEYS:  # documented in the comment block, as "#   key  ..."
         assert re.search(rf"^#\s+{k}\s", role_keys_doc, flags=re.MULTILINE), k
-    missing = sorted(wanted - set(cfgmod._ROLE_KEYS) - keys)
+    missing = sorted(wanted - set(cfgmod.ROLE_KEYS) - keys)
     assert not missing, f"options not documented in example.toml: {missing}"
 
 
@@ -419,6 +419,51 @@ def test_results_bucket_defaults_to_bucket_and_is_checked():
     assert got[0].endswith("names may not contain newlines, tabs or other control characters")
     got = problems(minimal(store=INFLUX2 + 'result_bucket = "p"\ntoken = "${T}"\n'), environ=env)
     assert "did you mean 'results_bucket'" in got[0]
+
+
+def test_each_store_option_is_a_keyword_of_its_store_class():
+    # the configuration reads a kind from its class's OPTIONS alone and gives the values to the
+    # constructor under the option's name (StoreConfig.open_options)
+    import inspect
+
+    from isentrope.daemon.stores import store_class
+
+    for kind in cfgmod.STORE_KINDS:
+        cls = store_class(kind)
+        names = [o.name for o in cls.OPTIONS]
+        assert names and len(set(names)) == len(names), kind
+        assert set(names) <= set(inspect.signature(cls.__init__).parameters), kind
+        assert "kind" not in names and cfgmod.store_keys(kind) >= {"kind", *names}
+
+
+def test_store_open_options_as_the_constructors_take_them(tmp_path):
+    env = {"T": "tok", "P": "pw"}
+    c = parse_config(minimal(store=INFLUX2 + 'token = "${T}"\ntimeout = "1m"\n'), environ=env)
+    assert c.store.timeout == dt.timedelta(minutes=1) and c.store.token == Secret("tok")
+    assert c.store.open_options() == {
+        "url": "http://127.0.0.1:8086",
+        "org": "o",
+        "bucket": "b",
+        "token": "tok",
+        "verify_ssl": True,
+        "timeout": 60.0,
+        "batch_size": 5000,
+    }
+    store = '[store]\nkind = "influx1"\nurl = "http://h:8086"\ndatabase = "d"\nusername = "u"\n'
+    c = parse_config(minimal(store=store + 'password = "${P}"\n'), environ=env)
+    assert c.store.open_options() == {
+        "url": "http://h:8086",
+        "database": "d",
+        "username": "u",
+        "password": "pw",
+        "verify_ssl": True,
+        "timeout": 10.0,
+        "batch_size": 5000,
+    }
+    c = parse_config(minimal(), base_dir=tmp_path)
+    assert c.store.open_options() == {"path": str(tmp_path / "t.sqlite")}
+    with pytest.raises(AttributeError, match="no option 'url'"):
+        _ = c.store.url
 
 
 def test_store_kind_and_url():
