@@ -38,6 +38,15 @@ def epoch_ns(idx: pd.DatetimeIndex) -> np.ndarray:
     return np.asarray(idx.as_unit("ns").asi8, dtype=np.int64)
 
 
+def series_groups(mappings: Sequence[RoleMapping]) -> dict[tuple, list[RoleMapping]]:
+    """The mappings by the series they read: ``(measurement, sorted (tag, value) pairs)`` ->
+    the mappings of that series, in the given order (tags checked)."""
+    groups: dict[tuple, list[RoleMapping]] = {}
+    for m in mappings:
+        groups.setdefault((m.measurement, tuple(sorted(check_tags(m.tags).items()))), []).append(m)
+    return groups
+
+
 def check_mappings(mappings: Sequence[RoleMapping]) -> list[RoleMapping]:
     mappings = list(mappings)
     seen = set()

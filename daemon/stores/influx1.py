@@ -51,6 +51,7 @@ from isentrope.daemon.stores.influx_common import (
     StateClock,
     authorization_error,
     certificate_failure,
+    check_client_arguments,
     check_connection,
     classify_http,
     delete_statement,
@@ -123,13 +124,10 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         read_chunk: str | pd.Timedelta = "31D",
         ca_bundle: str = "",
     ):
-        if not url.startswith(("http://", "https://")):
-            raise ValueError(f"url {url!r} must start with http:// or https://")
+        check_client_arguments(url, batch_size)
         escape.check_name(database, "database")
         if retention_policy:
             escape.check_name(retention_policy, "retention policy")
-        if batch_size < 1:
-            raise ValueError(f"batch_size must be at least 1, found {batch_size}")
         self.url = url.rstrip("/")
         self.database = database
         self.retention_policy = retention_policy
@@ -244,9 +242,7 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
     def read_raw(self, mappings: Sequence[RoleMapping], start, end) -> pd.DataFrame:
         mappings = common.check_mappings(mappings)
         start, end = common.window(start, end)
-        groups: dict[tuple, list[RoleMapping]] = {}
-        for m in mappings:
-            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        groups = common.series_groups(mappings)
         if not self._db_checked:
             self._check_database()
         parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}
@@ -301,9 +297,7 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         mappings = common.check_mappings(mappings)
         after, until = common.window(after, until)
         iv = pd.Timedelta(interval)
-        groups: dict[tuple, list[RoleMapping]] = {}
-        for m in mappings:
-            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        groups = common.series_groups(mappings)
         if not self._db_checked:
             self._check_database()
         parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}

@@ -92,6 +92,7 @@ from isentrope.daemon.stores.influx_common import (
     authorization_error,
     certificate_detail,
     certificate_failure,
+    check_client_arguments,
     check_connection,
     classify_http,
     clear_type_text,
@@ -203,13 +204,10 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
         ca_bundle: str = "",
         results_bucket: str = "",
     ):
-        if not url.startswith(("http://", "https://")):
-            raise ValueError(f"url {url!r} must start with http:// or https://")
+        check_client_arguments(url, batch_size)
         escape.check_name(bucket, "bucket")
         if results_bucket:
             escape.check_name(results_bucket, "results_bucket")
-        if batch_size < 1:
-            raise ValueError(f"batch_size must be at least 1, found {batch_size}")
         if not token and token_env:
             if token_env not in os.environ:
                 raise ValueError(f"token_env names the environment variable {token_env!r}, which is not set")
@@ -421,9 +419,7 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
     def read_raw(self, mappings: Sequence[RoleMapping], start, end) -> pd.DataFrame:
         mappings = common.check_mappings(mappings)
         start, end = common.window(start, end)
-        groups: dict[tuple, list[RoleMapping]] = {}
-        for m in mappings:
-            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        groups = common.series_groups(mappings)
         parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}
         for lo, hi in time_windows(start, end, self.read_chunk):
             for (measurement, tags), ms in groups.items():
@@ -464,9 +460,7 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
         after, until = common.window(after, until)
         iv = pd.Timedelta(interval)
         one = pd.Timedelta(1, unit="ns")
-        groups: dict[tuple, list[RoleMapping]] = {}
-        for m in mappings:
-            groups.setdefault((m.measurement, tuple(sorted(common.check_tags(m.tags).items()))), []).append(m)
+        groups = common.series_groups(mappings)
         parts: dict[str, list[pd.Series]] = {m.role: [] for m in mappings}
         chunk = max(1, -(-self.read_chunk.value // iv.value)) * iv  # whole grid intervals
         for lo, hi in time_windows(after, until, chunk):

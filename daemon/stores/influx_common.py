@@ -101,6 +101,14 @@ def classify_http(status: int, body: str, what: str) -> Exception:
     return FatalStoreError(msg)
 
 
+def check_client_arguments(url: str, batch_size: int) -> None:
+    """What both InfluxDB stores' constructors refuse: a URL that is not http(s), a batch under 1."""
+    if not url.startswith(("http://", "https://")):
+        raise ValueError(f"url {url!r} must start with http:// or https://")
+    if batch_size < 1:
+        raise ValueError(f"batch_size must be at least 1, found {batch_size}")
+
+
 def tls_verify(verify_ssl: bool, ca_bundle: str = "") -> bool | str:
     """What both InfluxDB stores check the server's TLS certificate against: False (no check),
     the PEM file ``ca_bundle``, or else the CA bundle that requests ships (certifi's). Never the
