@@ -126,6 +126,12 @@ def section_core(p_in, t_in, p_out, t_out, end_state=False):
     }
 
 
+def section_of(inp, roles, end_state=False):
+    """``section_core`` of the four arrays of ``inp`` (role -> flat array) named by ``roles``
+    (inlet p, inlet T, outlet p, outlet T; e.g. ``inputs.HP_ROLES``)."""
+    return section_core(*(inp[r] for r in roles), end_state=end_state)
+
+
 def section_expansion(p_in, t_in, p_out, t_out):
     """Enthalpy-drop figures of one superheated turbine section.
 

@@ -29,6 +29,15 @@ T_MAX = 1073.15
 #: Quantity of each role the section figures read (``calc.names``).
 ROLE_QUANTITY = {role: ROLES[role][0] for role in SECTION_ROLES}
 
+#: The roles of each section figure, inlet first: the HP and IP sections and the LP dry group
+#: (p and T in, p and T out), the LP expansion (crossover state to condenser pressure), and
+#: what the energy balance reads besides those of the HP, IP and LP expansion.
+HP_ROLES = ("throttle_p", "throttle_t", "cold_reheat_p", "cold_reheat_t")
+IP_ROLES = ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t")
+LP_DRY_ROLES = ("crossover_p", "crossover_t", "lp_extraction_p", "lp_extraction_t")
+LP_EXPANSION_ROLES = ("crossover_p", "crossover_t", "condenser_p")
+ENERGY_BALANCE_ROLES = ("gross_output", "main_steam_flow")
+
 
 class Shape:
     """Remembers the type and shape of the inputs and restores it on the outputs."""
