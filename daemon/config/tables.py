@@ -16,6 +16,7 @@ import math
 import re
 from itertools import pairwise
 from pathlib import Path
+from typing import Any
 
 from isentrope.calc import units
 from isentrope.calc.names import TRENDED_SECTIONS
@@ -55,6 +56,15 @@ __all__ = ["ROLE_KEYS", "SCHEDULE_LONGEST", "LEASE_SHORTEST", "SCHEDULE_WHY", "r
 
 def _fields(cls) -> list[str]:
     return [f.name for f in dataclasses.fields(cls)]
+
+
+def _open_table(r: TableReader, top: dict, name: str, cls) -> tuple[tuple[str, ...], dict, Any]:
+    """The key path, the table and the defaults (``cls()``) of the optional table ``[name]``
+    whose keys are the fields of ``cls``; unknown keys are reported."""
+    p = (name,)
+    d = r.table(top, p)
+    r.unknown(d, p, _fields(cls))
+    return p, d, cls()
 
 
 def _read_unit(r: TableReader, top: dict) -> UnitConfig:
@@ -245,10 +255,7 @@ def _read_roles(r: TableReader, top: dict) -> tuple[dict[str, RoleMapping], dict
 
 
 def _read_screening(r: TableReader, top: dict) -> ScreeningConfig:
-    p = ("screening",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(ScreeningConfig))
-    D = ScreeningConfig()
+    p, d, D = _open_table(r, top, "screening", ScreeningConfig)
     band = r.value(d, p + ("efficiency_band",), "pair", default=D.efficiency_band)
     if band is not None and (band[0] < 0 or band[1] > 1.2):
         r.problem(p + ("efficiency_band",), f"expected fractions within [0, 1.2], found {list(band)}")
@@ -267,10 +274,7 @@ def _read_screening(r: TableReader, top: dict) -> ScreeningConfig:
 
 
 def _read_steady(r: TableReader, top: dict) -> SteadyConfig:
-    p = ("steady",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(SteadyConfig))
-    D = SteadyConfig()
+    p, d, D = _open_table(r, top, "steady", SteadyConfig)
     v = {}
     v["method"] = r.value(d, p + ("method",), "str", D.method, choices=("ptc6", "r_statistic"))
     for k in ("window", "min_length", "max_length"):
@@ -308,10 +312,7 @@ def _read_steady(r: TableReader, top: dict) -> SteadyConfig:
 
 
 def _read_sections(r: TableReader, top: dict, roles: dict) -> SectionsConfig:
-    p = ("sections",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(SectionsConfig))
-    D = SectionsConfig()
+    p, d, D = _open_table(r, top, "sections", SectionsConfig)
     v = {}
     v["lp_mode"] = r.value(
         d, p + ("lp_mode",), "str", D.lp_mode, choices=("auto", "expansion", "energy_balance")
@@ -408,10 +409,7 @@ def _read_sections(r: TableReader, top: dict, roles: dict) -> SectionsConfig:
 
 
 def _read_baseline(r: TableReader, top: dict) -> BaselineConfig:
-    p = ("baseline",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(BaselineConfig))
-    D = BaselineConfig()
+    p, d, D = _open_table(r, top, "baseline", BaselineConfig)
     start = r.value(d, p + ("start",), "time", None)
     end = r.value(d, p + ("end",), "time", None)
     if (start is None) != (end is None) and not r.problems_for(p):
@@ -427,10 +425,7 @@ def _read_baseline(r: TableReader, top: dict) -> BaselineConfig:
 
 
 def _read_alarms(r: TableReader, top: dict) -> AlarmsConfig:
-    p = ("alarms",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(AlarmsConfig))
-    D = AlarmsConfig()
+    p, d, D = _open_table(r, top, "alarms", AlarmsConfig)
     v = {}
     v["deviation_warning"] = r.value(
         d, p + ("deviation_warning",), "float", D.deviation_warning, high=0, high_open=True
@@ -471,10 +466,7 @@ def _read_alarms(r: TableReader, top: dict) -> AlarmsConfig:
 
 
 def _read_economics(r: TableReader, top: dict) -> EconomicsConfig:
-    p = ("economics",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(EconomicsConfig))
-    D = EconomicsConfig()
+    p, d, D = _open_table(r, top, "economics", EconomicsConfig)
     currency = r.value(d, p + ("currency",), "str", D.currency)
     if currency is not None and not re.fullmatch(r"[A-Z]{3}", currency):
         r.problem(
@@ -558,10 +550,7 @@ SCHEDULE_WHY = {
 
 
 def _read_schedule(r: TableReader, top: dict) -> ScheduleConfig:
-    p = ("schedule",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(ScheduleConfig))
-    D = ScheduleConfig()
+    p, d, D = _open_table(r, top, "schedule", ScheduleConfig)
     v = {}
     for k in ("interval", "chunk", "backoff", "backoff_max"):
         v[k] = r.value(d, p + (k,), "duration", getattr(D, k), low=0, low_open=True)
@@ -607,10 +596,7 @@ def _read_rule(r: TableReader, d: dict, p: tuple[str, ...]) -> ReadRule:
 
 
 def _read_read(r: TableReader, top: dict, roles: dict) -> ReadConfig:
-    p = ("read",)
-    d = r.table(top, p)
-    r.unknown(d, p, _fields(ReadConfig))
-    D = ReadConfig()
+    p, d, D = _open_table(r, top, "read", ReadConfig)
     interval = r.value(d, p + ("interval",), "duration", D.interval, low=0)
     if interval and (interval.total_seconds() < 1 or interval.total_seconds() % 1):
         r.problem(p + ("interval",), f"expected 0 or a whole number of seconds, found {d.get('interval')!r}")
