@@ -465,6 +465,20 @@ def _read_alarms(r: TableReader, top: dict) -> AlarmsConfig:
     return AlarmsConfig(**v)
 
 
+def _section_tables(r: TableReader, d: dict, p: tuple[str, ...], cls):
+    """``(section, key path, table)`` of each trended section's table under ``p`` that is given
+    and not empty, in ``TRENDED_SECTIONS`` order; unknown sections and keys (the fields of
+    ``cls``) are reported as the tables are reached."""
+    sub = r.table(d, p)
+    r.unknown(sub, p, TRENDED_SECTIONS)
+    for sec in TRENDED_SECTIONS:
+        sp = p + (sec,)
+        body = r.table(sub, sp)
+        r.unknown(body, sp, _fields(cls))
+        if body:
+            yield sec, sp, body
+
+
 def _read_economics(r: TableReader, top: dict) -> EconomicsConfig:
     p, d, D = _open_table(r, top, "economics", EconomicsConfig)
     currency = r.value(d, p + ("currency",), "str", D.currency)
@@ -481,42 +495,25 @@ def _read_economics(r: TableReader, top: dict) -> EconomicsConfig:
             p + ("heat_rate_kj_per_kwh",), "fuel_price_per_gj is given: heat_rate_kj_per_kwh is needed too"
         )
     sens = dict(DEFAULT_SENSITIVITY)
-    sd = r.table(d, p + ("sensitivity",))
-    r.unknown(sd, p + ("sensitivity",), TRENDED_SECTIONS)
-    for sec in TRENDED_SECTIONS:
-        sp = p + ("sensitivity", sec)
-        body = r.table(sd, sp)
-        r.unknown(body, sp, _fields(SensitivityConfig))
-        if body:
-            base = DEFAULT_SENSITIVITY.get(sec)
-            values = [
-                r.value(
-                    body,
-                    sp + (key,),
-                    "float",
-                    getattr(base, key) if base is not None else None,
-                    low=0,
-                    high=5,
-                )
-                for key in ("heat_rate_percent_per_point", "output_percent_per_point")
-            ]
-            if None in values:
-                if not r.problems_for(sp):
-                    r.problem(sp, "no default for this section: give both coefficients (with their source)")
-                continue
-            sens[sec] = SensitivityConfig(*values)
+    for sec, sp, body in _section_tables(r, d, p + ("sensitivity",), SensitivityConfig):
+        base = DEFAULT_SENSITIVITY.get(sec)
+        values = [
+            r.value(
+                body, sp + (key,), "float", getattr(base, key) if base is not None else None, low=0, high=5
+            )
+            for key in ("heat_rate_percent_per_point", "output_percent_per_point")
+        ]
+        if None in values:
+            if not r.problems_for(sp):
+                r.problem(sp, "no default for this section: give both coefficients (with their source)")
+            continue
+        sens[sec] = SensitivityConfig(*values)
     overhaul: dict[str, OverhaulCase] = {}
-    od = r.table(d, p + ("overhaul",))
-    r.unknown(od, p + ("overhaul",), TRENDED_SECTIONS)
-    for sec in TRENDED_SECTIONS:
-        op = p + ("overhaul", sec)
-        body = r.table(od, op)
-        r.unknown(body, op, _fields(OverhaulCase))
-        if body:
-            pts = r.value(body, op + ("recoverable_points",), "float", low=0, high=20, low_open=True)
-            cost = r.value(body, op + ("cost",), "float", low=0)
-            if pts is not None and cost is not None:
-                overhaul[sec] = OverhaulCase(pts, cost)
+    for sec, op, body in _section_tables(r, d, p + ("overhaul",), OverhaulCase):
+        pts = r.value(body, op + ("recoverable_points",), "float", low=0, high=20, low_open=True)
+        cost = r.value(body, op + ("cost",), "float", low=0)
+        if pts is not None and cost is not None:
+            overhaul[sec] = OverhaulCase(pts, cost)
     return EconomicsConfig(
         currency=currency or D.currency,
         fuel_price_per_gj=fuel,

@@ -689,3 +689,41 @@ def test_step_method_and_threshold_are_read_and_checked():
     got = problems(minimal('[alarms]\nstep_method = "page"\nstep_threshold = 0\n'))
     assert any("alarms.step_method" in p and "'scan', 'cusum'" in p for p in got), got
     assert any("alarms.step_threshold" in p for p in got), got
+
+
+def test_economics_section_tables_report_each_problem_at_its_key():
+    # The per-section tables of [economics.sensitivity] and [economics.overhaul]: an unknown
+    # section, an unknown key, a section without default coefficients given only one of them,
+    # and an incomplete overhaul case (nothing recorded for it) each name their key and line.
+    text = minimal(
+        """
+        [economics.sensitivity.hp]
+        heat_rate_percent_per_point = 0.3
+        [economics.sensitivity.lp_dry]
+        heat_rate_percent_per_point = 0.1
+        [economics.sensitivity.xp]
+        output_percent_per_point = 0.2
+        [economics.overhaul.ip]
+        recoverable_points = 2.0
+        [economics.overhaul.lp]
+        recoverable_points = 1.0
+        cost = 2.5e6
+        colour = "red"
+        """
+    )
+    found = problems(text)
+    lines = text.splitlines()
+
+    def line_of(header):
+        return next(i for i, line in enumerate(lines, 1) if line.strip() == header)
+
+    expected = [
+        f"unit.toml:{line_of('[economics.sensitivity.xp]')}: economics.sensitivity.xp:",
+        f"unit.toml:{line_of('[economics.sensitivity.lp_dry]')}: economics.sensitivity.lp_dry: no default",
+        "economics.overhaul.ip.cost: missing required key",
+        "economics.overhaul.lp.colour:",
+    ]
+    for start in expected:
+        assert any(p.startswith(start) or start in p for p in found), (start, found)
+    assert not any(p.split(": ")[1].startswith("economics.sensitivity.hp") for p in found), found
+    assert len(found) == 4, found
