@@ -438,11 +438,6 @@ def _prepare(observations: pd.DataFrame):
     return obs, ns, values, np.argsort(ns, kind="stable")
 
 
-def _time_ns(times: pd.Series) -> np.ndarray:
-    """UTC times as int64 nanoseconds since 1970."""
-    return pd.DatetimeIndex(times).as_unit("ns").asi8
-
-
 def _stamp(ns: int) -> pd.Timestamp:
     return pd.Timestamp(int(ns), unit="ns", tz="UTC")
 

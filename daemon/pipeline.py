@@ -396,8 +396,9 @@ class Pipeline:
         return self._before, self._after
 
     # --- calc arguments from the configuration -------------------------------------------
-    def _section_kwargs(self) -> dict:
-
+    def section_kwargs(self) -> dict:
+        """The keyword arguments of ``calc.sections.evaluate`` from ``[sections]`` and ``[unit]``
+        (the cycles and the routine-test evaluation use the same)."""
         sc, unit = self.config.sections, self.config.unit
         kwargs: dict = dict(
             eta_lp_design=sc.eta_lp_design,
@@ -519,7 +520,7 @@ class Pipeline:
         # 30-day chunk), so that screening's efficiency-band test reuses them instead of
         # solving the same expansions again (measured: that second solve was about a third
         # of the screening time of a unit-year).
-        section_kwargs = self._section_kwargs()
+        section_kwargs = self.section_kwargs()
         evaluated = sections.evaluate(frame[self.roles], **section_kwargs)
         notes.extend(evaluated.notes)
         per_sample = evaluated.to_frame().set_axis(frame.index, axis=0)

@@ -22,7 +22,10 @@ finite differences of the same vectorised functions, combined root-sum-square
 The modules: ``reasons`` (reason codes), ``inputs`` (argument shapes, masked steam calls),
 ``dry`` (superheated sections), ``lp`` (the LP expansion), ``exhaust`` (exhaust loss, UEEP,
 energy balance), ``uncertainty`` (propagation), ``lp_chain`` (the LP exhaust chain of one
-evaluation: options, cache, figures) and ``frame`` (``evaluate`` over a frame of role columns). Their public names are re-exported here.
+evaluation: options, cache, figures) and ``frame`` (``evaluate`` over a frame of role
+columns). The names this package had as a single module are re-exported here; what the
+modules share among themselves (``lp_chain``, the role groups of ``inputs``) is imported
+from its module.
 
 Everything here is pure: numpy/pandas in, the same type out, no I/O, no clock, no logging.
 Internal units are IAPWS-IF97's: MPa (absolute), K, kJ/kg, kJ/(kg K), m3/kg, kg/s, MW.

@@ -91,7 +91,7 @@ def run(args) -> int:
         stabilisation=stabilisation,
         sub_period=sub_period,
         rating_mw=float(config.unit.rating_mw) or None,
-        section_kwargs=Pipeline(config)._section_kwargs(),
+        section_kwargs=Pipeline(config).section_kwargs(),
         online=online or None,
     )
 

@@ -4,7 +4,7 @@
 ``isentrope.daemon.errors.ConfigError`` listing *every* problem at once, each as
 ``<file>:<line>: <key>: <what is wrong>``. Nothing here opens a store connection.
 
-The package is the configuration as model, reader and secrets:
+The package: the model, the reader, the secrets, each table's rules and the loading:
 
 * ``model``: the dataclass tree (``Config``, ``UnitConfig``, ``StoreConfig``, ... one per
   table; these names are stable, other modules build on them) and the defaults.

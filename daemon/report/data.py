@@ -9,7 +9,6 @@ import pandas as pd
 
 from isentrope.calc import quality
 from isentrope.calc.baseline import BaselineModel
-from isentrope.calc.names import TRENDED_SECTIONS
 from isentrope.daemon.analysis import alarm_series, period_view
 from isentrope.daemon.pipeline import Pipeline
 from isentrope.daemon.series import (
@@ -69,10 +68,6 @@ class ReportData:
     quality_summary: pd.DataFrame | None = None
     lp_energy_balance: bool = False
     hs_window: pd.Timestamp | None = None
-
-    @property
-    def sections_with_baseline(self) -> list[str]:
-        return [s for s in TRENDED_SECTIONS if s in self.deviation]
 
 
 def _read(store, measurement, start, end, tags) -> pd.DataFrame:

@@ -122,7 +122,7 @@ def main(argv=None) -> int:
         t = time.perf_counter()
         _common.reference_with_uncertainty(small)
         ref_u_s = (time.perf_counter() - t) / len(small)
-        ours = sections.evaluate(sample, **pipeline._section_kwargs()).to_frame()
+        ours = sections.evaluate(sample, **pipeline.section_kwargs()).to_frame()
         diff = {
             c: float(np.nanmax(np.abs(ours[c].to_numpy() - ref[c].to_numpy())))
             for c in ("hp_efficiency", "ip_efficiency")

@@ -417,8 +417,8 @@ def test_lp_dry_efficiency_source_measured_reaches_calc_sections(tmp_path):
     s, e = ws.START + pd.Timedelta("2h"), ws.START + pd.Timedelta("10h")  # online (a shutdown follows)
     design = _pipeline_with(tmp_path / "d", "")
     measured = _pipeline_with(tmp_path / "m", '[sections]\nlp_dry_efficiency_source = "measured"\n')
-    assert design._section_kwargs()["lp_dry_efficiency_source"] == "design"
-    assert measured._section_kwargs()["lp_dry_efficiency_source"] == "measured"
+    assert design.section_kwargs()["lp_dry_efficiency_source"] == "design"
+    assert measured.section_kwargs()["lp_dry_efficiency_source"] == "measured"
     sub = _slice(frame, design, s, e)
     a = design.process(sub, s, e)
     b = measured.process(sub, s, e)
@@ -435,7 +435,7 @@ def test_lp_dry_efficiency_source_measured_reaches_calc_sections(tmp_path):
         a.samples["hp_efficiency"].to_numpy(), b.samples["hp_efficiency"].to_numpy()
     )
     # what the pipeline gives with "measured" is calc.sections.evaluate called with that option
-    kwargs = dict(design._section_kwargs(), lp_dry_efficiency_source="measured")
+    kwargs = dict(design.section_kwargs(), lp_dry_efficiency_source="measured")
     direct = sections.evaluate(sub[measured.roles], **kwargs).to_frame().set_axis(sub.index, axis=0)
     direct = direct.loc[(direct.index >= s) & (direct.index < e)]
     for col in (
