@@ -31,7 +31,6 @@ from __future__ import annotations
 
 import csv
 import io
-import threading
 from collections.abc import Mapping, Sequence
 
 import numpy as np
@@ -48,7 +47,6 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LeaseOnState,
     LineProtocolWriter,
-    StateClock,
     authorization_error,
     certificate_failure,
     check_client_arguments,
@@ -131,12 +129,7 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         self.url = url.rstrip("/")
         self.database = database
         self.retention_policy = retention_policy
-        self.timeout = float(timeout)
-        self.batch_size = int(batch_size)
-        self.read_chunk = pd.Timedelta(read_chunk)
-        self.pending: list[str] = []
-        self._write_lock = threading.Lock()
-        self._clock = StateClock()
+        self.init_writer(timeout, batch_size, read_chunk)
         self._db_checked = False
         remember(token)
         remember_basic(username, password)

@@ -60,7 +60,6 @@ import io
 import logging
 import os
 import re
-import threading
 from collections.abc import Mapping, Sequence
 from functools import partial
 from pathlib import Path
@@ -88,7 +87,6 @@ from isentrope.daemon.stores.influx_common import (
     STATE_MEASUREMENT,
     LeaseOnState,
     LineProtocolWriter,
-    StateClock,
     authorization_error,
     certificate_detail,
     certificate_failure,
@@ -222,12 +220,7 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
         self.bucket = bucket
         self.results_bucket = results_bucket or bucket
         self._token = token
-        self.timeout = float(timeout)
-        self.batch_size = int(batch_size)
-        self.read_chunk = pd.Timedelta(read_chunk)
-        self.pending: list[str] = []
-        self._write_lock = threading.Lock()
-        self._clock = StateClock()
+        self.init_writer(timeout, batch_size, read_chunk)
         remember(token)
         verify = tls_verify(verify_ssl, ca_bundle)
         retry = _Retry(

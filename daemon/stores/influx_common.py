@@ -417,7 +417,7 @@ class StateOnPoints:
     8601 text, states as JSON. Nothing is overwritten, so an interrupted save loses nothing.
 
     Subclasses give ``_last_state(kind, name)`` (the last value, None when there is none) and
-    ``_write(lines, what)``, and set ``self._clock`` to a ``StateClock``.
+    ``_write(lines, what)``, and a ``StateClock`` as ``self._clock`` (``init_writer`` sets it).
     """
 
     def _last_state(self, kind: str, name: str) -> str | None:  # pragma: no cover
@@ -541,7 +541,7 @@ class LineProtocolWriter:
     """What both InfluxDB stores share on the write side: raw samples and results as line protocol, sent
     in batches of ``batch_size`` under one lock, with unwritten lines kept (``keep_unwritten``).
 
-    A store using it sets ``batch_size``, ``pending`` (list) and ``_write_lock`` and implements
+    A store using it calls ``init_writer`` (``batch_size``, ``pending``, the lock) and implements
     ``_send_batch(text, what, target)``, raising ``TemporaryStoreError`` or ``FatalStoreError``.
     ``target`` is ``RAW`` for raw samples and ``RESULTS`` for results, checkpoints and state: a
     store that keeps them apart (``Influx2Store`` with ``results_bucket``) sends each to its own
@@ -556,6 +556,17 @@ class LineProtocolWriter:
 
     write_behind = True
     pending_target = RESULTS
+
+    def init_writer(self, timeout: float, batch_size: int, read_chunk) -> None:
+        """Set what both stores keep for their requests and writes: ``timeout`` [s],
+        ``batch_size``, ``read_chunk`` (a ``Timedelta``), no ``pending`` lines, the write lock
+        and the clock of the state points."""
+        self.timeout = float(timeout)
+        self.batch_size = int(batch_size)
+        self.read_chunk = pd.Timedelta(read_chunk)
+        self.pending: list[str] = []
+        self._write_lock = threading.Lock()
+        self._clock = StateClock()
 
     def write_raw(self, mappings, frame) -> int:
         lines, samples = raw_lines(mappings, frame)
