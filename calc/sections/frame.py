@@ -23,13 +23,21 @@ from isentrope.calc.sections.inputs import (
     ENERGY_BALANCE_ROLES,
     HP_ROLES,
     IP_ROLES,
+    LP_BALANCE_ROLES,
     LP_DRY_ROLES,
     LP_EXPANSION_ROLES,
     ROLE_QUANTITY,
     InletStates,
 )
 from isentrope.calc.sections.lp import BAUMANN_DEFAULT, check_baumann
-from isentrope.calc.sections.lp_chain import LPCache, LPOptions, add_assumption_uncertainty, lp_chain_figures
+from isentrope.calc.sections.lp_chain import (
+    LP_FIGURES,
+    LP_UNCERTAIN_FIGURES,
+    LPCache,
+    LPOptions,
+    add_assumption_uncertainty,
+    lp_chain_figures,
+)
 from isentrope.calc.sections.reasons import (
     NOT_MAPPED,
     OK,
@@ -283,11 +291,7 @@ def _plan(args: _Arguments, cols: set) -> _Plan:
         "hp": missing(HP_ROLES),
         "ip": missing(IP_ROLES),
         "lp_dry": missing(LP_DRY_ROLES),
-        "lp": missing(
-            LP_EXPANSION_ROLES
-            if mode == "expansion"
-            else LP_EXPANSION_ROLES + HP_ROLES + IP_ROLES + ENERGY_BALANCE_ROLES
-        ),
+        "lp": missing(LP_EXPANSION_ROLES if mode == "expansion" else LP_BALANCE_ROLES),
     }
     if args.eta_source == "measured" and mode == "expansion":
         groups_missing["lp"] = sorted(set(groups_missing["lp"]) | set(groups_missing["lp_dry"]))
@@ -346,27 +350,10 @@ def _superheated_groups(inp, plan: _Plan, u_roles, inlet_states: InletStates, n)
     return out, codes
 
 
-#: The LP exhaust figures of ``lp_chain.lp_chain_figures`` that ``evaluate`` returns, and those with a ``_u``.
-_LP_KEYS = (
-    "lp_efficiency",
-    "lp_used_energy_efficiency",
-    "lp_enthalpy_drop",
-    "lp_isentropic_drop",
-    "lp_saturation_p",
-    "lp_elep",
-    "lp_ueep",
-    "lp_x",
-    "lp_moisture",
-    "lp_exhaust_loss",
-    "lp_annulus_velocity",
-)
-_LP_U_KEYS = ("lp_efficiency", "lp_used_energy_efficiency", "lp_elep", "lp_ueep", "lp_moisture")
-
-
 def _lp_uncertain_roles(args: _Arguments, mode, cols):
     """The roles whose instrument uncertainty reaches the LP exhaust figures."""
     if mode != "expansion":
-        return sorted(set(LP_EXPANSION_ROLES + HP_ROLES + IP_ROLES) | set(ENERGY_BALANCE_ROLES))
+        return sorted(set(LP_BALANCE_ROLES))
     roles = list(LP_EXPANSION_ROLES)
     if args.eta_source == "measured":
         roles += ["lp_extraction_p", "lp_extraction_t"]
@@ -384,7 +371,9 @@ def _lp_exhaust(inp, args: _Arguments, plan: _Plan, cols, inlet_states: InletSta
     (dict "lp", "lp_ueep" -> codes)."""
     if plan.missing["lp"]:
         codes = {g: np.full(n, NOT_MAPPED, dtype=np.int64) for g in ("lp", "lp_ueep")}
-        return {k: np.full(n, np.nan) for k in _LP_KEYS + tuple(f"{k}_u" for k in _LP_U_KEYS)}, codes
+        return {
+            k: np.full(n, np.nan) for k in LP_FIGURES + tuple(f"{k}_u" for k in LP_UNCERTAIN_FIGURES)
+        }, codes
     opts = LPOptions(
         mode=plan.mode,
         eta_source=args.eta_source,
@@ -399,9 +388,9 @@ def _lp_exhaust(inp, args: _Arguments, plan: _Plan, cols, inlet_states: InletSta
     cache = LPCache(inlet_states)
     r = lp_chain_figures(inp, opts, cache)
     codes = {"lp": r["lp_reason"], "lp_ueep": r["ueep_reason"]}
-    out = {k: r[k] for k in _LP_KEYS}
+    out = {k: r[k] for k in LP_FIGURES}
     if args.uncertainty is None:
-        for k in _LP_U_KEYS:
+        for k in LP_UNCERTAIN_FIGURES:
             out[f"{k}_u"] = np.full(n, np.nan)
         return out, codes
     roles = _lp_uncertain_roles(args, plan.mode, cols)
@@ -410,14 +399,14 @@ def _lp_exhaust(inp, args: _Arguments, plan: _Plan, cols, inlet_states: InletSta
         lambda d: lp_chain_figures({**inp, **d}, opts, cache),
         {k: inp[k] for k in roles},
         uu,
-        _LP_U_KEYS,
+        LP_UNCERTAIN_FIGURES,
         steps=fd_steps(uu, {k: inp[k] for k in roles}),
         base=r,
     )
-    for k in _LP_U_KEYS:
+    for k in LP_UNCERTAIN_FIGURES:
         out[f"{k}_u"] = np.where(np.isfinite(out[k]), res[k], np.nan)
     if plan.mode == "expansion" and args.eta_lp_band > 0:
-        add_assumption_uncertainty(out, r, inp, opts, cache, args.eta_lp_band, _LP_U_KEYS)
+        add_assumption_uncertainty(out, r, inp, opts, cache, args.eta_lp_band, LP_UNCERTAIN_FIGURES)
     return out, codes
 
 

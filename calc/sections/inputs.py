@@ -37,6 +37,8 @@ IP_ROLES = ("hot_reheat_p", "hot_reheat_t", "crossover_p", "crossover_t")
 LP_DRY_ROLES = ("crossover_p", "crossover_t", "lp_extraction_p", "lp_extraction_t")
 LP_EXPANSION_ROLES = ("crossover_p", "crossover_t", "condenser_p")
 ENERGY_BALANCE_ROLES = ("gross_output", "main_steam_flow")
+#: Every role the LP figures of the energy balance read.
+LP_BALANCE_ROLES = LP_EXPANSION_ROLES + HP_ROLES + IP_ROLES + ENERGY_BALANCE_ROLES
 
 
 class Shape:

@@ -48,6 +48,23 @@ from isentrope.calc.sections.reasons import (
     mark,
 )
 
+#: The figures of ``lp_chain_figures`` that ``evaluate`` returns, and those it gives a standard
+#: uncertainty (``<figure>_u``).
+LP_FIGURES = (
+    "lp_efficiency",
+    "lp_used_energy_efficiency",
+    "lp_enthalpy_drop",
+    "lp_isentropic_drop",
+    "lp_saturation_p",
+    "lp_elep",
+    "lp_ueep",
+    "lp_x",
+    "lp_moisture",
+    "lp_exhaust_loss",
+    "lp_annulus_velocity",
+)
+LP_UNCERTAIN_FIGURES = ("lp_efficiency", "lp_used_energy_efficiency", "lp_elep", "lp_ueep", "lp_moisture")
+
 
 @dataclass(frozen=True)
 class LPOptions:

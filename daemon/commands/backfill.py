@@ -71,31 +71,8 @@ def run(args) -> int:
         store.close()
 
 
-def hours_bar(start: pd.Timestamp, end: pd.Timestamp, done: pd.Timestamp | None, desc: str, disable: bool):
-    """A progress bar on stderr over ``[start, end]`` in hours, already at the checkpoint ``done``
-    (None: at the start). Returns the bar (to close) and ``progress(s, e)`` for
-    ``Worker.run_cycle``, which moves it on by the hours of the chunk ``[s, e)``."""
-    from tqdm import tqdm
-
-    total_h = (end - start).total_seconds() / 3600.0
-    done_h = 0.0 if done is None else min(total_h, max(0.0, (done - start).total_seconds() / 3600.0))
-    bar = tqdm(
-        total=round(total_h, 3),
-        initial=round(done_h, 3),
-        unit="h",
-        file=sys.stderr,
-        disable=disable,
-        desc=desc,
-        dynamic_ncols=True,
-    )
-
-    def progress(s, e):
-        bar.update(round((e - s).total_seconds() / 3600.0, 3))
-
-    return bar, progress
-
-
 def _backfill(args, config, store, lease, name, start, end, chunk) -> int:
+    from isentrope.daemon.commands.progress import hours_bar
     from isentrope.daemon.worker import Worker
 
     worker = Worker.from_config(

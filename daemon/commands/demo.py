@@ -95,7 +95,7 @@ cost = 1500000.0
 def run(args) -> int:
     from isentrope.daemon import synthetic
     from isentrope.daemon.analysis import load_analysis, raised_alarms
-    from isentrope.daemon.commands.backfill import hours_bar
+    from isentrope.daemon.commands.progress import hours_bar
     from isentrope.daemon.config import load_config
     from isentrope.daemon.stores import open_store
     from isentrope.daemon.worker import Worker

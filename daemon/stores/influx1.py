@@ -43,6 +43,7 @@ from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     CONNECTION_OPTIONS,
+    DEFAULT_BATCH_SIZE,
     NAME_CHECKS,
     STATE_MEASUREMENT,
     LeaseOnState,
@@ -117,7 +118,7 @@ class Influx1Store(LeaseOnState, LineProtocolWriter, Store):
         password: str = "",
         token: str = "",
         timeout: float = DEFAULT_TIMEOUT_S,
-        batch_size: int = 5000,
+        batch_size: int = DEFAULT_BATCH_SIZE,
         verify_ssl: bool = True,
         read_chunk: str | pd.Timedelta = "31D",
         ca_bundle: str = "",

@@ -81,6 +81,7 @@ from isentrope.daemon.stores import common, escape
 from isentrope.daemon.stores.base import DEFAULT_TIMEOUT_S, FatalStoreError, Store, TemporaryStoreError
 from isentrope.daemon.stores.influx_common import (
     CONNECTION_OPTIONS,
+    DEFAULT_BATCH_SIZE,
     NAME_CHECKS,
     RAW,
     RESULTS,
@@ -194,7 +195,7 @@ class Influx2Store(LeaseOnState, LineProtocolWriter, Store):
         token: str = "",
         verify_ssl: bool = True,
         timeout: float = DEFAULT_TIMEOUT_S,
-        batch_size: int = 5000,
+        batch_size: int = DEFAULT_BATCH_SIZE,
         token_env: str = "",
         token_file: str = "",
         retries: int = 2,

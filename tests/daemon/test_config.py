@@ -434,6 +434,13 @@ def test_each_store_option_is_a_keyword_of_its_store_class():
         assert names and len(set(names)) == len(names), kind
         assert set(names) <= set(inspect.signature(cls.__init__).parameters), kind
         assert "kind" not in names and cfgmod.store_keys(kind) >= {"kind", *names}
+        # a default the configuration fills in is the constructor's own (durations in seconds)
+        params = inspect.signature(cls.__init__).parameters
+        for o in cls.OPTIONS:
+            if o.required or o.default in (None, ""):
+                continue  # required, or left out so that the constructor's default applies
+            default = o.default.total_seconds() if isinstance(o.default, dt.timedelta) else o.default
+            assert params[o.name].default == default, (kind, o.name)
 
 
 def test_store_open_options_as_the_constructors_take_them(tmp_path):
